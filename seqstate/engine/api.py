@@ -1,0 +1,401 @@
+"""The engine's Python face: prepare a model's arrays once, encode records, run kernels.
+
+Coordinates are 0-based; segment bounds are half-open ``[start0, end0)``.
+Log-likelihoods and log probabilities are natural logs.
+
+Emission codes
+--------------
+A record is turned into one integer code per position.  For an order-k model
+over A symbols, the code of position i names the emission row to use:
+``offsets[j] + context * A + symbol`` where ``j`` is the length of the longest
+clean context before i (``j = k`` except within k bases after the record start
+or after an unknown base) and ``context`` reads those j symbols in base A.  The
+last code stands for an unknown symbol (N, IUPAC ambiguity codes, gaps) whose
+emission factor is 1 in every state (the base is marginalised).
+
+Back-off rows (order j < k) come from the model's explicit lower-order rows when
+it has them; otherwise they are derived from the order-k table of each state,
+weighted by the stationary k-mer frequencies of that state's own order-k chain:
+``P_j(x | c') = sum_u pi(u c') P(x | u c') / sum_u pi(u c')`` over the k-mers
+``u c'`` that end in ``c'`` (uniform weights if every such k-mer has zero
+frequency).  The stationary frequencies are found by power iteration of the
+lazy chain ``(I + P) / 2``, which has the same fixed point and always converges.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from seqstate.engine import kernels
+from seqstate.errors import ImpossibleSequenceError
+from seqstate.model import Model
+
+#: Default checkpoint block length for records longer than this (about sqrt(N) otherwise).
+MIN_BLOCK = 1024
+
+
+@dataclass
+class EngineTables:
+    """Everything a kernel needs for one model, as plain arrays (see kernels module)."""
+
+    n_states: int
+    n_symbols: int
+    order: int
+    start: np.ndarray
+    end: np.ndarray
+    log_start: np.ndarray
+    log_end: np.ndarray
+    pred_ptr: np.ndarray
+    pred_src: np.ndarray
+    pred_p: np.ndarray
+    pred_logp: np.ndarray
+    succ_ptr: np.ndarray
+    succ_dst: np.ndarray
+    succ_p: np.ndarray
+    E: np.ndarray
+    logE: np.ndarray
+    nz_ptr: np.ndarray
+    nz_state: np.ndarray
+    offsets: np.ndarray
+    unknown_code: int
+    symbol_lookup: np.ndarray
+    transitions: np.ndarray
+
+
+def _log(x: np.ndarray) -> np.ndarray:
+    with np.errstate(divide="ignore"):
+        return np.log(x)
+
+
+def stationary_kmers(cond: np.ndarray, n_symbols: int, order: int) -> np.ndarray:
+    """Stationary k-mer frequencies of an order-k chain with rows ``cond[c, x]``.
+
+    ``cond`` has shape (A**k, A).  Returns a vector of length A**k summing to 1.
+    """
+    a, k = n_symbols, order
+    size = a**k
+    pi = np.full(size, 1.0 / size)
+    inner = a ** (k - 1)
+    p3 = cond.reshape(a, inner, a)
+    for _ in range(20000):
+        step = (pi.reshape(a, inner)[:, :, None] * p3).sum(axis=0).reshape(size)
+        new = 0.5 * (pi + step)
+        new /= new.sum()
+        if np.max(np.abs(new - pi)) < 1e-15:
+            pi = new
+            break
+        pi = new
+    return pi
+
+
+def backoff_rows(model: Model) -> dict[int, np.ndarray]:
+    """Emission rows for every order j < k: explicit rows where given, else derived."""
+    a, k, m = len(model.alphabet), model.order, model.n_states
+    out: dict[int, np.ndarray] = {}
+    if k == 0:
+        return out
+    weights = np.empty((m, a**k))
+    for s in range(m):
+        weights[s] = stationary_kmers(model.emissions[s], a, k)
+    for j in range(k):
+        # group the k-mers by their last j symbols: index = c % a**j
+        w = weights.reshape(m, a ** (k - j), a**j)
+        p = model.emissions.reshape(m, a ** (k - j), a**j, a)
+        num = (w[:, :, :, None] * p).sum(axis=1)
+        den = w.sum(axis=1)
+        uniform = p.mean(axis=1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            derived = np.where(den[:, :, None] > 0, num / den[:, :, None], uniform)
+        derived /= derived.sum(axis=-1, keepdims=True)
+        given = model.lower_emissions.get(j)
+        if given is not None:
+            have = ~np.all(np.isnan(given), axis=-1)
+            derived[have] = given[have]
+        out[j] = derived
+    return out
+
+
+def prepare(model: Model) -> EngineTables:
+    """Build the kernel arrays of ``model`` (once per model, cheap)."""
+    m = model.n_states
+    a = len(model.alphabet)
+    k = model.order
+    T = np.ascontiguousarray(model.transitions, dtype=np.float64)
+    allowed = T > 0
+    # by to-state (predecessor lists, from-states ascending)
+    pred_ptr = np.zeros(m + 1, dtype=np.int64)
+    pred_src_l, pred_p_l = [], []
+    for t in range(m):
+        src = np.flatnonzero(allowed[:, t])
+        pred_src_l.append(src)
+        pred_p_l.append(T[src, t])
+        pred_ptr[t + 1] = pred_ptr[t] + src.size
+    pred_src = np.concatenate(pred_src_l).astype(np.int64) if m else np.zeros(0, np.int64)
+    pred_p = np.concatenate(pred_p_l).astype(np.float64)
+    succ_ptr = np.zeros(m + 1, dtype=np.int64)
+    succ_dst_l, succ_p_l = [], []
+    for s in range(m):
+        dst = np.flatnonzero(allowed[s])
+        succ_dst_l.append(dst)
+        succ_p_l.append(T[s, dst])
+        succ_ptr[s + 1] = succ_ptr[s] + dst.size
+    succ_dst = np.concatenate(succ_dst_l).astype(np.int64)
+    succ_p = np.concatenate(succ_p_l).astype(np.float64)
+    # emission codes
+    offsets = np.zeros(k + 2, dtype=np.int64)
+    for j in range(k + 1):
+        offsets[j + 1] = offsets[j] + a ** (j + 1)
+    n_codes = int(offsets[k + 1]) + 1
+    E = np.zeros((n_codes, m))
+    lower = backoff_rows(model)
+    for j in range(k + 1):
+        rows = model.emissions if j == k else lower[j]  # (m, a**j, a)
+        block = rows.reshape(m, a ** (j + 1)).T  # code-major
+        E[offsets[j]:offsets[j + 1], :] = block
+    E[n_codes - 1, :] = 1.0
+    nz_ptr = np.zeros(n_codes + 1, dtype=np.int64)
+    nz_list = []
+    for c in range(n_codes):
+        idx = np.flatnonzero(E[c] > 0)
+        nz_list.append(idx)
+        nz_ptr[c + 1] = nz_ptr[c] + idx.size
+    nz_state = np.concatenate(nz_list).astype(np.int64)
+    end = np.ones(m) if model.end is None else np.asarray(model.end, dtype=np.float64)
+    lookup = np.full(256, -1, dtype=np.int8)
+    fold = not any(ch.islower() for ch in model.alphabet)
+    for i, ch in enumerate(model.alphabet):
+        lookup[ord(ch)] = i
+        if fold and ch.isalpha():
+            lookup[ord(ch.lower())] = i
+    return EngineTables(
+        n_states=m, n_symbols=a, order=k,
+        start=np.asarray(model.start, dtype=np.float64), end=end,
+        log_start=_log(model.start), log_end=_log(end),
+        pred_ptr=pred_ptr, pred_src=pred_src, pred_p=pred_p, pred_logp=_log(pred_p),
+        succ_ptr=succ_ptr, succ_dst=succ_dst, succ_p=succ_p,
+        E=np.ascontiguousarray(E), logE=np.ascontiguousarray(_log(E)),
+        nz_ptr=nz_ptr, nz_state=nz_state, offsets=offsets, unknown_code=n_codes - 1,
+        symbol_lookup=lookup, transitions=T,
+    )
+
+
+def symbols_of(tables: EngineTables, seq: bytes | str | np.ndarray,
+               *, masked_unknown: bool = False) -> np.ndarray:
+    """Symbol index per position (int8), -1 for anything outside the alphabet.
+
+    Lowercase (soft-masked) bases read as their base unless ``masked_unknown``.
+    """
+    if isinstance(seq, str):
+        seq = seq.encode("ascii")
+    raw = np.frombuffer(seq, dtype=np.uint8) if isinstance(seq, (bytes, bytearray)) else seq
+    sym = tables.symbol_lookup[raw]
+    if masked_unknown:
+        lower = (raw >= ord("a")) & (raw <= ord("z"))
+        sym = np.where(lower, np.int8(-1), sym)
+    return sym
+
+
+def encode(tables: EngineTables, seq: bytes | str | np.ndarray,
+           *, masked_unknown: bool = False) -> np.ndarray:
+    """Emission codes of one record (see module docstring); smallest fitting unsigned dtype."""
+    sym = symbols_of(tables, seq, masked_unknown=masked_unknown)
+    n_codes = tables.unknown_code + 1
+    dtype = np.uint8 if n_codes <= 256 else np.uint16 if n_codes <= 65536 else np.int32
+    out = np.empty(sym.shape[0], dtype=dtype)
+    kernels.encode_codes(sym, tables.order, tables.n_symbols, tables.offsets,
+                         tables.unknown_code, out)
+    return out
+
+
+def default_block(n: int) -> int:
+    """Checkpoint block length: about sqrt(N), at least :data:`MIN_BLOCK`."""
+    return max(MIN_BLOCK, int(math.isqrt(max(n, 1))) + 1)
+
+
+def _raise_impossible(tables: EngineTables, codes: np.ndarray, record: str | None) -> None:
+    _, pos = kernels.forward_loglik(codes, tables.start, tables.end, tables.E, tables.nz_ptr,
+                                    tables.nz_state, tables.pred_ptr, tables.pred_src,
+                                    tables.pred_p)
+    name = f"record '{record}'" if record else "the record"
+    if pos >= codes.shape[0] or pos < 0:
+        msg = "no state that may end the sequence can be reached at its last base"
+    else:
+        msg = f"has probability zero under the model: every state is impossible at position {pos + 1}"
+    raise ImpossibleSequenceError(f"{name} {msg}" if pos < codes.shape[0] else f"{name}: {msg}")
+
+
+def loglik(tables: EngineTables, codes: np.ndarray, *, record: str | None = None) -> float:
+    """Total log-likelihood (natural log) of one encoded record."""
+    if codes.shape[0] == 0:
+        raise ValueError("empty record")
+    ll, pos = kernels.forward_loglik(codes, tables.start, tables.end, tables.E, tables.nz_ptr,
+                                     tables.nz_state, tables.pred_ptr, tables.pred_src,
+                                     tables.pred_p)
+    if pos >= 0:
+        _raise_impossible(tables, codes, record)
+    return ll
+
+
+@dataclass
+class Posterior:
+    """Result of a posterior run on one record.
+
+    ``values[i, g]`` is the posterior of group g at 0-based position i (groups are
+    states or labels, as requested).  The checkpoints let segment queries
+    recompute forward and backward vectors anywhere in O(block) time.
+    """
+
+    loglik: float
+    values: np.ndarray
+    block: int
+    alpha_ck: np.ndarray
+    alpha_ck_log: np.ndarray
+    beta_ck: np.ndarray
+    beta_ck_log: np.ndarray
+
+
+def posterior(tables: EngineTables, codes: np.ndarray, *, group: np.ndarray | None = None,
+              n_groups: int | None = None, block: int | None = None,
+              dtype=np.float32, record: str | None = None) -> Posterior:
+    """Posteriors summed by ``group`` (state -> column, -1 to drop); per state by default.
+
+    Memory is O(block * M) for the dynamic programme plus the N x groups output,
+    stored as ``dtype`` (float32 by default, float64 on request).
+    """
+    n = codes.shape[0]
+    if n == 0:
+        raise ValueError("empty record")
+    m = tables.n_states
+    if group is None:
+        group = np.arange(m, dtype=np.int64)
+        n_groups = m
+    group = np.asarray(group, dtype=np.int64)
+    if n_groups is None:
+        n_groups = int(group.max()) + 1 if group.size else 0
+    block = default_block(n) if block is None else max(1, min(int(block), n))
+    nblocks = (n + block - 1) // block
+    out = np.zeros((n, n_groups), dtype=dtype)
+    alpha_ck = np.zeros((nblocks, m))
+    beta_ck = np.zeros((nblocks, m))
+    alpha_log = np.zeros(nblocks)
+    beta_log = np.zeros(nblocks)
+    ll, pos = kernels.posterior_checkpointed(
+        codes, tables.start, tables.end, tables.E, tables.nz_ptr, tables.nz_state,
+        tables.pred_ptr, tables.pred_src, tables.pred_p, tables.succ_ptr, tables.succ_dst,
+        tables.succ_p, block, group, out, alpha_ck, alpha_log, beta_ck, beta_log)
+    if pos >= 0:
+        _raise_impossible(tables, codes, record)
+    return Posterior(ll, out, block, alpha_ck, alpha_log, beta_ck, beta_log)
+
+
+def viterbi(tables: EngineTables, codes: np.ndarray, *, block: int | None = None,
+            record: str | None = None) -> tuple[np.ndarray, float]:
+    """Most probable path (int16/int32 state indices) and its log probability (natural log).
+
+    Ties are broken towards the lowest state index at every step and at the end.
+    """
+    n = codes.shape[0]
+    if n == 0:
+        raise ValueError("empty record")
+    block = default_block(n) if block is None else max(1, min(int(block), n))
+    dtype = np.int16 if tables.n_states < 32768 else np.int32
+    path = np.empty(n, dtype=dtype)
+    lp, pos = kernels.viterbi_checkpointed(
+        codes, tables.log_start, tables.log_end, tables.logE, tables.nz_ptr, tables.nz_state,
+        tables.pred_ptr, tables.pred_src, tables.pred_logp, block, path)
+    if pos >= 0:
+        _raise_impossible(tables, codes, record)
+    return path, lp
+
+
+def forward_vector(tables: EngineTables, codes: np.ndarray, post: Posterior,
+                   pos: int) -> tuple[np.ndarray, float]:
+    """Scaled forward vector at ``pos`` and its natural-log scale."""
+    out = np.empty(tables.n_states)
+    lg = kernels.vector_at(codes, pos, tables.start, tables.E, tables.nz_ptr, tables.nz_state,
+                           tables.pred_ptr, tables.pred_src, tables.pred_p, post.block,
+                           post.alpha_ck, post.alpha_ck_log, out)
+    return out, lg
+
+
+def backward_vector(tables: EngineTables, codes: np.ndarray, post: Posterior,
+                    pos: int) -> tuple[np.ndarray, float]:
+    """Scaled backward vector at ``pos`` and its natural-log scale."""
+    out = np.empty(tables.n_states)
+    lg = kernels.backward_vector_at(codes, pos, tables.E, tables.nz_ptr, tables.nz_state,
+                                    tables.succ_ptr, tables.succ_dst, tables.succ_p, post.block,
+                                    post.beta_ck, post.beta_ck_log, out)
+    return out, lg
+
+
+def _restricted(tables, codes, start0, end0, init, init_is_start, mask, use_emissions):
+    out = np.empty(tables.n_states)
+    lg = kernels.restricted_forward(codes, start0, end0, init, init_is_start, mask,
+                                    use_emissions, tables.E, tables.nz_ptr, tables.nz_state,
+                                    tables.pred_ptr, tables.pred_src, tables.pred_p, out)
+    return out, lg
+
+
+def segment_log_probability(tables: EngineTables, codes: np.ndarray, post: Posterior,
+                            start0: int, end0: int, mask: np.ndarray) -> float:
+    """log P(z_i in mask for every i in [start0, end0) | x), natural log; -inf if impossible.
+
+    A forward pass restricted to the masked states between the bounds, joined to
+    the unrestricted forward vector before the segment and the backward vector
+    at its last base.  Exact, not a product of per-base posteriors.
+    """
+    mask = np.asarray(mask, dtype=np.bool_)
+    if start0 == 0:
+        init, init_log, is_start = tables.start, 0.0, True
+    else:
+        init, init_log = forward_vector(tables, codes, post, start0 - 1)
+        is_start = False
+    vec, lg = _restricted(tables, codes, start0, end0, init, is_start, mask, True)
+    if lg == -np.inf:
+        return -np.inf
+    beta, blog = backward_vector(tables, codes, post, end0 - 1)
+    joint = float(np.dot(vec, beta))
+    if joint <= 0.0:
+        return -np.inf
+    return min(0.0, math.log(joint) + lg + init_log + blog - post.loglik)
+
+
+def segment_log_odds(tables: EngineTables, codes: np.ndarray, post: Posterior,
+                     start0: int, end0: int, mask: np.ndarray) -> float:
+    """Natural-log odds of the segment's bases under the masked states against the rest.
+
+    ``log P(x_seg | x_before, z_seg all in mask) - log P(x_seg | x_before, z_seg all
+    outside mask)``: each term is a restricted forward with emissions divided by
+    the same restricted forward without emissions (the prior probability of
+    staying in the class), both started from the forward vector before the
+    segment.  For a two-state order-1 model this is the sum over the segment of
+    log(a_class / a_other) of the two emission tables.  +inf or -inf when one
+    class cannot hold the segment.
+    """
+    mask = np.asarray(mask, dtype=np.bool_)
+    if start0 == 0:
+        init, is_start = tables.start, True
+    else:
+        init, _ = forward_vector(tables, codes, post, start0 - 1)
+        is_start = False
+    terms = []
+    for msk in (mask, ~mask):
+        v1, l1 = _restricted(tables, codes, start0, end0, init, is_start, msk, True)
+        v0, l0 = _restricted(tables, codes, start0, end0, init, is_start, msk, False)
+        if l0 == -np.inf:
+            terms.append(math.nan)
+            continue
+        s1 = float(v1.sum())
+        if l1 == -np.inf or s1 <= 0:
+            terms.append(-math.inf)
+            continue
+        terms.append(math.log(s1) + l1 - math.log(float(v0.sum())) - l0)
+    inside, outside = terms
+    if math.isnan(inside) or math.isnan(outside):
+        return math.nan
+    if inside == -math.inf and outside == -math.inf:
+        return math.nan
+    return inside - outside

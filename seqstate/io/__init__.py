@@ -1,0 +1,1 @@
+"""Readers and writers for the file formats seqstate reads and writes."""

@@ -1,0 +1,320 @@
+"""FASTA input and output, plus the input opener the other readers share.
+
+A record's sequence is kept as the raw ASCII bytes of the file, case kept and
+every whitespace character removed.  Positions in messages are 1-based (the
+first base of a record is position 1), as are file line numbers; inside the
+program sequences are indexed 0-based like any Python ``bytes``.
+
+The header line ``>chr1 some words`` gives the record ID ``chr1`` (the first
+word after ``>``, split on whitespace as Biopython's FASTA parser does) and the
+description ``some words`` (the rest of the line, stripped; ``""`` if none).
+Note that, unlike Biopython's ``SeqRecord.description``, the description here
+does not repeat the ID.
+"""
+
+from __future__ import annotations
+
+import gzip
+import io
+import sys
+import zlib
+from collections.abc import Iterable, Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+from typing import BinaryIO, TextIO
+
+from seqstate.errors import SeqstateError, SequenceFormatError
+
+__all__ = [
+    "DNA_ALPHABET",
+    "Record",
+    "display_name",
+    "iter_fasta",
+    "iter_lines",
+    "open_input",
+    "read_fasta",
+    "write_fasta",
+]
+
+#: Characters accepted in a record when ``alphabet_check="dna"``: the four
+#: bases, U, the IUPAC ambiguity codes, N, and '-' as gap, in either case.
+#: Nothing else is accepted (not '.', '*', 'X' or digits).
+DNA_ALPHABET = "ACGTURYSWKMBDHVN-"
+
+_DNA_BYTES = (DNA_ALPHABET + DNA_ALPHABET.lower()).encode("ascii")
+_WHITESPACE = b" \t\r\n\v\f"
+_GZIP_MAGIC = b"\x1f\x8b"
+_STDIN_NAME = "<stdin>"
+_SNIPPET = 40
+
+
+@dataclass(frozen=True)
+class Record:
+    """One FASTA record.
+
+    ``id`` is the first word of the header, ``description`` the rest of the
+    header (may be empty) and ``seq`` the sequence as raw ASCII bytes exactly as
+    in the file (case kept, whitespace removed).  ``seq[i]`` is the base at
+    0-based position ``i``, i.e. at 1-based position ``i + 1``.
+    """
+
+    id: str
+    description: str
+    seq: bytes
+
+
+# ---------------------------------------------------------------- input opener
+
+
+def display_name(path: str | Path) -> str:
+    """The name used for ``path`` in messages: ``<stdin>`` for ``"-"``."""
+    return _STDIN_NAME if str(path) == "-" else str(path)
+
+
+class _PrefixedReader(io.RawIOBase):
+    """A raw reader that returns ``prefix`` and then the rest of ``inner``."""
+
+    def __init__(self, prefix: bytes, inner: BinaryIO) -> None:
+        super().__init__()
+        self._prefix = prefix
+        self._inner = inner
+
+    def readable(self) -> bool:
+        return True
+
+    def readinto(self, buffer) -> int:  # type: ignore[no-untyped-def]
+        view = memoryview(buffer).cast("B")
+        if self._prefix:
+            n = min(len(view), len(self._prefix))
+            view[:n] = self._prefix[:n]
+            self._prefix = self._prefix[n:]
+            return n
+        read1 = getattr(self._inner, "read1", None)
+        data = read1(len(view)) if read1 is not None else self._inner.read(len(view))
+        n = len(data)
+        view[:n] = data
+        return n
+
+
+@contextmanager
+def open_input(
+    path: str | Path,
+    error_cls: type[SeqstateError] = SequenceFormatError,
+    what: str = "FASTA",
+) -> Iterator[BinaryIO]:
+    """Open an input file for reading bytes, decompressing gzip transparently.
+
+    ``path`` is a file name or ``"-"`` for standard input.  Gzip is recognised
+    by its first two bytes (1f 8b), whatever the file name.  A missing or
+    unreadable file raises ``error_cls`` naming the file; ``what`` names the
+    expected format in the message.  Shared by the FASTA, GFF3 and BED readers.
+    """
+    shown = display_name(path)
+    if str(path) == "-":
+        inner: BinaryIO = sys.stdin.buffer
+        close_inner = False
+    else:
+        try:
+            inner = open(path, "rb")
+        except FileNotFoundError:
+            raise error_cls("file not found", path=shown) from None
+        except IsADirectoryError:
+            raise error_cls(f"is a directory, expected a {what} file", path=shown) from None
+        except OSError as exc:
+            raise error_cls(f"cannot be read: {exc.strerror or exc}", path=shown) from None
+        close_inner = True
+    try:
+        try:
+            magic = inner.read(2)
+        except OSError as exc:
+            raise error_cls(f"cannot be read: {exc.strerror or exc}", path=shown) from None
+        base: BinaryIO = io.BufferedReader(_PrefixedReader(magic, inner))  # type: ignore[arg-type]
+        if magic == _GZIP_MAGIC:
+            handle: BinaryIO = gzip.GzipFile(fileobj=base, mode="rb")  # type: ignore[assignment]
+        else:
+            handle = base
+        try:
+            yield handle
+        finally:
+            handle.close()
+            base.close()
+    finally:
+        if close_inner:
+            inner.close()
+
+
+def iter_lines(
+    handle: BinaryIO, shown: str, error_cls: type[SeqstateError]
+) -> Iterator[tuple[int, bytes]]:
+    """Yield ``(line0, line)`` pairs (0-based line index, raw bytes with EOL).
+
+    A read failure (for example a truncated or corrupt gzip stream) raises
+    ``error_cls`` naming the file and the line reached.
+    """
+    line0 = -1
+    iterator = iter(handle)
+    while True:
+        try:
+            line = next(iterator)
+        except StopIteration:
+            return
+        except (OSError, EOFError, zlib.error) as exc:
+            reason = getattr(exc, "strerror", None) or str(exc) or type(exc).__name__
+            raise error_cls(
+                f"cannot be read (corrupt or truncated file?): {reason}",
+                path=shown,
+                line0=line0 + 1,
+            ) from None
+        line0 += 1
+        yield line0, line
+
+
+def _snippet(raw: bytes) -> str:
+    text = raw.rstrip(b"\r\n").decode("utf-8", errors="replace")
+    if len(text) > _SNIPPET:
+        text = text[:_SNIPPET] + "..."
+    return text
+
+
+def _describe_byte(value: int) -> str:
+    if value < 0x80:
+        return repr(chr(value))
+    return f"byte 0x{value:02X}"
+
+
+# ---------------------------------------------------------------- reading
+
+
+def iter_fasta(path: str | Path, *, alphabet_check: str | None = "dna") -> Iterator[Record]:
+    """Yield the records of a FASTA file one at a time, checking as it goes.
+
+    ``path`` is a file name or ``"-"`` for standard input; plain or gzip.
+    With ``alphabet_check="dna"`` every sequence character must be one of
+    :data:`DNA_ALPHABET` (either case); with ``None`` no character is checked
+    (the caller validates other alphabets).  Raises
+    :class:`~seqstate.errors.SequenceFormatError` for a missing or unreadable
+    file, an empty file, text that is not FASTA, a header without an ID, a
+    record with an empty sequence, a repeated record ID or a character outside
+    the alphabet.  Errors are raised when the generator reaches them, so
+    records before the problem may already have been yielded.
+    """
+    if alphabet_check not in ("dna", None):
+        raise ValueError(f"alphabet_check must be 'dna' or None, not {alphabet_check!r}")
+    check = alphabet_check == "dna"
+    shown = display_name(path)
+    seen: dict[str, int] = {}
+    with open_input(path, SequenceFormatError, "FASTA") as handle:
+        rid: str | None = None
+        desc = ""
+        header0 = -1
+        buf = bytearray()
+        any_line = False
+        for line0, raw in iter_lines(handle, shown, SequenceFormatError):
+            any_line = True
+            if raw[:1] == b">":
+                if rid is not None:
+                    yield _finish(shown, rid, desc, header0, buf)
+                rid, desc = _parse_header(raw, shown, line0)
+                header0 = line0
+                if rid in seen:
+                    raise SequenceFormatError(
+                        f"duplicate record ID '{rid}' (first used on line {seen[rid] + 1})",
+                        path=shown,
+                        line0=line0,
+                        where=f"record '{rid}'",
+                    )
+                seen[rid] = line0
+                buf = bytearray()
+                continue
+            chunk = raw.translate(None, _WHITESPACE)
+            if not chunk:
+                continue
+            if rid is None:
+                raise SequenceFormatError(
+                    "not a FASTA file: expected a header line starting with '>', "
+                    f"found {_snippet(raw)!r}",
+                    path=shown,
+                    line0=line0,
+                )
+            if check:
+                bad = chunk.translate(None, _DNA_BYTES)
+                if bad:
+                    index = chunk.index(bad[:1])
+                    position = len(buf) + index + 1
+                    raise SequenceFormatError(
+                        f"character {_describe_byte(bad[0])} at position {position} is not a "
+                        f"nucleotide or IUPAC ambiguity code (expected one of {DNA_ALPHABET} "
+                        "in either case)",
+                        path=shown,
+                        line0=line0,
+                        where=f"record '{rid}'",
+                    )
+            buf += chunk
+        if rid is not None:
+            yield _finish(shown, rid, desc, header0, buf)
+        elif not any_line:
+            raise SequenceFormatError("no FASTA records found (empty file)", path=shown)
+        else:
+            raise SequenceFormatError("no FASTA records found (only blank lines)", path=shown)
+
+
+def _parse_header(raw: bytes, shown: str, line0: int) -> tuple[str, str]:
+    try:
+        title = raw[1:].decode("utf-8")
+    except UnicodeDecodeError:
+        raise SequenceFormatError(
+            "header line is not valid UTF-8 text", path=shown, line0=line0
+        ) from None
+    parts = title.split(None, 1)
+    if not parts:
+        raise SequenceFormatError(
+            "header line has no record ID after '>'", path=shown, line0=line0
+        )
+    rid = parts[0]
+    desc = parts[1].strip() if len(parts) > 1 else ""
+    return rid, desc
+
+
+def _finish(shown: str, rid: str, desc: str, header0: int, buf: bytearray) -> Record:
+    if not buf:
+        raise SequenceFormatError(
+            f"record '{rid}' has an empty sequence (expected at least one base)",
+            path=shown,
+            line0=header0,
+            where=f"record '{rid}'",
+        )
+    return Record(id=rid, description=desc, seq=bytes(buf))
+
+
+def read_fasta(path: str | Path, *, alphabet_check: str | None = "dna") -> list[Record]:
+    """Read every record of a FASTA file; same input and checks as :func:`iter_fasta`."""
+    return list(iter_fasta(path, alphabet_check=alphabet_check))
+
+
+# ---------------------------------------------------------------- writing
+
+
+def write_fasta(handle: TextIO, records: Iterable[Record], width: int = 60) -> None:
+    """Write records to a text handle as FASTA, ``width`` bases a line.
+
+    The header is ``>id description`` (just ``>id`` when the description is
+    empty).  Raises ``ValueError`` for an ID that is empty or contains
+    whitespace, for an empty sequence, or for ``width < 1``.
+    """
+    if width < 1:
+        raise ValueError(f"width must be at least 1, not {width}")
+    for record in records:
+        if not record.id or record.id.split() != [record.id]:
+            raise ValueError(f"record ID {record.id!r} is empty or contains whitespace")
+        if not record.seq:
+            raise ValueError(f"record '{record.id}' has an empty sequence")
+        desc = " ".join(record.description.split())
+        handle.write(f">{record.id} {desc}\n" if desc else f">{record.id}\n")
+        seq = record.seq.decode("ascii")
+        step = width * 10_000
+        for block in range(0, len(seq), step):
+            part = seq[block : block + step]
+            handle.write(
+                "".join(part[i : i + width] + "\n" for i in range(0, len(part), width))
+            )

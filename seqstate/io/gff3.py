@@ -1,0 +1,387 @@
+"""GFF3 writing and reading, following the Sequence Ontology GFF3 specification 1.26.
+
+Coordinates: a :class:`Feature` is 0-based half-open (``start0`` is the first
+base, ``end0`` one past the last).  In the file, columns 4 and 5 are 1-based
+and closed, so a feature is written as ``start0 + 1`` and ``end0`` and read
+back as ``start - 1`` and ``end``.
+
+Escaping (specification, "Description of the Format" and "Column 1"): in every
+column, tab, newline, carriage return, '%' and control characters (0x00-0x1F,
+0x7F) are percent-encoded; in column 9 ';', '=', '&' and ',' are too; column 1
+(seqid) encodes every character outside ``a-z A-Z 0-9 . : ^ * $ @ ! + _ ? - |``.
+Encoding is RFC 3986 percent-encoding of the UTF-8 bytes with uppercase hex.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+import urllib.parse
+from collections.abc import Iterable, Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TextIO
+
+from seqstate.errors import FeatureFormatError
+from seqstate.io.fasta import display_name, iter_lines, open_input
+
+__all__ = [
+    "STRANDS",
+    "Feature",
+    "GFF3Writer",
+    "escape_column",
+    "escape_column9",
+    "escape_seqid",
+    "iter_gff3",
+    "read_gff3",
+    "unescape",
+]
+
+#: Values of column 7: plus, minus, unstranded, and '?' (stranded but unknown).
+STRANDS = ("+", "-", ".", "?")
+_PHASES = {"0": 0, "1": 1, "2": 2}
+
+_CONTROL = "".join(chr(c) for c in range(0x20)) + "\x7f"
+_COLUMN_ESCAPE = frozenset(_CONTROL + "%")
+_COLUMN9_ESCAPE = frozenset(_CONTROL + "%;=&,")
+_SEQID_SAFE = frozenset(
+    "abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ0123456789.:^*$@!+_?-|"
+)
+_WHOLE_NUMBER = re.compile(r"[0-9]+")
+
+
+def _percent(ch: str) -> str:
+    return "".join(f"%{b:02X}" for b in ch.encode("utf-8"))
+
+
+def _escape(value: str, reserved: frozenset[str]) -> str:
+    if not any(ch in reserved for ch in value):
+        return value
+    return "".join(_percent(ch) if ch in reserved else ch for ch in value)
+
+
+def escape_column(value: str) -> str:
+    """Escape a value for columns 2-8: tab, newline, CR, '%' and control characters."""
+    return _escape(value, _COLUMN_ESCAPE)
+
+
+def escape_column9(value: str) -> str:
+    """Escape a column 9 tag or value.
+
+    Encodes tab, newline, carriage return, '%', control characters
+    (0x00-0x1F, 0x7F) and the reserved ``; = & ,`` as uppercase ``%XX``.
+    Everything else, spaces and non-ASCII letters included, is kept as is.
+    """
+    return _escape(value, _COLUMN9_ESCAPE)
+
+
+def escape_seqid(value: str) -> str:
+    """Escape a column 1 seqid: every character outside ``[a-zA-Z0-9.:^*$@!+_?-|]``.
+
+    The set is read as a list of literal characters (so '-' and '|' are safe);
+    any other character, including space, '>' and non-ASCII letters, becomes
+    the ``%XX`` codes of its UTF-8 bytes.
+    """
+    if all(ch in _SEQID_SAFE for ch in value):
+        return value
+    return "".join(ch if ch in _SEQID_SAFE else _percent(ch) for ch in value)
+
+
+def unescape(value: str) -> str:
+    """Decode ``%XX`` escapes (UTF-8).  A '%' not followed by two hex digits stays.
+
+    Raises ``UnicodeDecodeError`` if the decoded bytes are not UTF-8.
+    """
+    if "%" not in value:
+        return value
+    return urllib.parse.unquote(value, encoding="utf-8", errors="strict")
+
+
+@dataclass
+class Feature:
+    """One GFF3 feature line, 0-based half-open (``start0 < end0``).
+
+    ``strand`` is '+', '-', '.' or '?'; ``phase`` is 0, 1, 2 or None ('.').
+    ``attributes`` is an ordered list of ``(tag, value)``; a value is a string
+    or, for a multi-valued tag such as Parent, a list of strings.  Values are
+    kept unescaped here and escaped on writing.  ``line0`` is the 0-based line
+    the feature was read from (None for features made by the program).
+    """
+
+    seqid: str
+    source: str
+    type: str
+    start0: int
+    end0: int
+    score: float | None
+    strand: str
+    phase: int | None
+    attributes: list[tuple[str, str | list[str]]] = field(default_factory=list)
+    line0: int | None = None
+
+    def values(self, tag: str) -> list[str]:
+        """All values of ``tag`` as a list (empty if the tag is absent)."""
+        out: list[str] = []
+        for key, value in self.attributes:
+            if key == tag:
+                out.extend([value] if isinstance(value, str) else value)
+        return out
+
+    def get(self, tag: str) -> str | None:
+        """The first value of ``tag``, or None if the tag is absent."""
+        found = self.values(tag)
+        return found[0] if found else None
+
+
+# ---------------------------------------------------------------- writing
+
+
+def _format_attributes(attributes: list[tuple[str, str | list[str]]]) -> str:
+    if not attributes:
+        return "."
+    parts = []
+    for key, value in attributes:
+        if not key:
+            raise ValueError("attribute tag must not be empty")
+        if isinstance(value, str):
+            text = escape_column9(value)
+        else:
+            if not value:
+                raise ValueError(f"attribute {key!r} has an empty list of values")
+            text = ",".join(escape_column9(v) for v in value)
+        parts.append(f"{escape_column9(key)}={text}")
+    return ";".join(parts)
+
+
+class GFF3Writer:
+    """Write GFF3 lines to a text handle.
+
+    Call :meth:`header` once first, then :meth:`write` for each feature.  The
+    score is formatted with ``score_format`` (default ``"{:.4f}"``); attribute
+    values must already be strings (the caller formats numbers).
+    """
+
+    def __init__(self, handle: TextIO, score_format: str = "{:.4f}") -> None:
+        self._handle = handle
+        self._score_format = score_format
+        self._started = False
+
+    def header(self, sequence_regions: list[tuple[str, int]]) -> None:
+        """Write ``##gff-version 3`` and one ``##sequence-region seqid 1 length`` per record.
+
+        ``sequence_regions`` lists ``(seqid, length)`` in input order.
+        """
+        if self._started:
+            raise RuntimeError("GFF3Writer.header() must be called before any feature")
+        self._started = True
+        lines = ["##gff-version 3\n"]
+        for seqid, length in sequence_regions:
+            if length < 1:
+                raise ValueError(f"record {seqid!r} has length {length}; expected >= 1")
+            lines.append(f"##sequence-region {escape_seqid(seqid)} 1 {length}\n")
+        self._handle.write("".join(lines))
+
+    def format_score(self, score: float | None) -> str:
+        """Column 6 text for ``score``: '.' for None, else ``score_format``."""
+        if score is None:
+            return "."
+        if not math.isfinite(score):
+            raise ValueError(f"score {score!r} is not a finite number")
+        text = self._score_format.format(score)
+        if text.startswith("-"):
+            try:
+                is_zero = float(text) == 0.0
+            except ValueError:
+                is_zero = False
+            if is_zero:
+                # "-0.0000" (a tiny negative rounded to zero) is written as "0.0000".
+                text = text[1:]
+        return text
+
+    def write(self, feature: Feature) -> None:
+        """Write one feature line (1-based closed: ``start0 + 1`` to ``end0``)."""
+        if not self._started:
+            self._handle.write("##gff-version 3\n")
+            self._started = True
+        if not (0 <= feature.start0 < feature.end0):
+            raise ValueError(
+                f"feature {feature.start0}-{feature.end0} is not a 0-based half-open "
+                "interval with 0 <= start0 < end0"
+            )
+        if feature.strand not in STRANDS:
+            raise ValueError(f"strand {feature.strand!r} is not one of {' '.join(STRANDS)}")
+        if feature.phase not in (None, 0, 1, 2):
+            raise ValueError(f"phase {feature.phase!r} is not 0, 1, 2 or None")
+        if not feature.seqid:
+            raise ValueError("seqid must not be empty")
+        columns = [
+            escape_seqid(feature.seqid),
+            escape_column(feature.source) or ".",
+            escape_column(feature.type),
+            str(feature.start0 + 1),
+            str(feature.end0),
+            self.format_score(feature.score),
+            feature.strand,
+            "." if feature.phase is None else str(feature.phase),
+            _format_attributes(feature.attributes),
+        ]
+        if not columns[2]:
+            raise ValueError("feature type must not be empty")
+        self._handle.write("\t".join(columns) + "\n")
+
+    def write_all(self, features: Iterable[Feature]) -> None:
+        """Write every feature of ``features`` in order."""
+        for feature in features:
+            self.write(feature)
+
+    def close(self) -> None:
+        """Flush the handle (the caller owns and closes it)."""
+        self._handle.flush()
+
+
+# ---------------------------------------------------------------- reading
+
+
+def _error(message: str, shown: str, line0: int) -> FeatureFormatError:
+    return FeatureFormatError(message, path=shown, line0=line0)
+
+
+def _unescape_field(text: str, what: str, shown: str, line0: int) -> str:
+    try:
+        return unescape(text)
+    except UnicodeDecodeError:
+        raise _error(
+            f"{what} {text!r} has %-escapes that do not decode as UTF-8", shown, line0
+        ) from None
+
+
+def _parse_position(text: str, column: int, name: str, shown: str, line0: int) -> int:
+    if not _WHOLE_NUMBER.fullmatch(text):
+        raise _error(f"column {column} ({name}) {text!r} is not a whole number", shown, line0)
+    value = int(text)
+    if value < 1:
+        raise _error(
+            f"column {column} ({name}) is {value}; GFF3 positions are 1-based, expected >= 1",
+            shown,
+            line0,
+        )
+    return value
+
+
+def _parse_attributes(
+    text: str, shown: str, line0: int
+) -> list[tuple[str, str | list[str]]]:
+    if text in ("", "."):
+        return []
+    out: list[tuple[str, str | list[str]]] = []
+    for piece in text.split(";"):
+        if not piece.strip():
+            continue  # a trailing or doubled ';'
+        key, eq, raw_value = piece.partition("=")
+        if not eq:
+            raise _error(
+                f"column 9 attribute {piece!r} has no '=' (expected tag=value)", shown, line0
+            )
+        key = key.strip()
+        if not key:
+            raise _error(
+                f"column 9 attribute {piece!r} has an empty tag (expected tag=value)",
+                shown,
+                line0,
+            )
+        tag = _unescape_field(key, "column 9 tag", shown, line0)
+        values = [_unescape_field(v, "column 9 value", shown, line0) for v in raw_value.split(",")]
+        out.append((tag, values[0] if len(values) == 1 else values))
+    return out
+
+
+def iter_gff3(path: str | Path, *, types: set[str] | None = None) -> Iterator[Feature]:
+    """Yield the features of a GFF3 file, converted to 0-based half-open.
+
+    ``path`` is a file name or ``"-"``; plain or gzip.  Blank lines, comments
+    and directives are skipped; reading stops at ``##FASTA`` or at a line
+    starting with '>' (an implied ``##FASTA``, as the specification allows).
+    With ``types``, only features whose column 3 is in the set are returned.
+    Raises :class:`~seqstate.errors.FeatureFormatError` naming the file and
+    line for a wrong column count, a start or end that is not a whole number
+    >= 1, start > end, a bad score, strand or phase, or a column 9 piece
+    without '='.
+    """
+    shown = display_name(path)
+    with open_input(path, FeatureFormatError, "GFF3") as handle:
+        for line0, raw in iter_lines(handle, shown, FeatureFormatError):
+            try:
+                line = raw.decode("utf-8")
+            except UnicodeDecodeError:
+                raise _error("line is not valid UTF-8 text", shown, line0) from None
+            line = line.rstrip("\r\n")
+            if not line.strip():
+                continue
+            if line.startswith("##FASTA") or line.startswith(">"):
+                return
+            if line.startswith("#"):
+                continue
+            feature = _parse_line(line, shown, line0)
+            if types is None or feature.type in types:
+                yield feature
+
+
+def _parse_line(line: str, shown: str, line0: int) -> Feature:
+    cols = line.split("\t")
+    if len(cols) != 9:
+        hint = ""
+        if len(cols) < 9 and len(line.split()) >= 9:
+            hint = " (columns must be separated by tabs, not spaces)"
+        raise _error(
+            f"found {len(cols)} tab-separated columns, expected 9{hint}", shown, line0
+        )
+    seqid = _unescape_field(cols[0], "column 1 (seqid)", shown, line0)
+    if not seqid or seqid == ".":
+        raise _error(f"column 1 (seqid) {cols[0]!r} is empty", shown, line0)
+    source = _unescape_field(cols[1], "column 2 (source)", shown, line0)
+    ftype = _unescape_field(cols[2], "column 3 (type)", shown, line0)
+    if not ftype or ftype == ".":
+        raise _error(f"column 3 (type) {cols[2]!r} is empty", shown, line0)
+    start = _parse_position(cols[3], 4, "start", shown, line0)
+    end = _parse_position(cols[4], 5, "end", shown, line0)
+    if start > end:
+        raise _error(
+            f"start {start} is greater than end {end} "
+            "(GFF3 positions are 1-based inclusive with start <= end)",
+            shown,
+            line0,
+        )
+    score: float | None = None
+    if cols[5] != ".":
+        try:
+            score = float(cols[5])
+        except ValueError:
+            score = math.nan
+        if not math.isfinite(score):
+            raise _error(f"column 6 (score) {cols[5]!r} is not a number or '.'", shown, line0)
+    strand = cols[6]
+    if strand not in STRANDS:
+        raise _error(f"column 7 (strand) {strand!r} is not one of + - . ?", shown, line0)
+    if cols[7] == ".":
+        phase = None
+    elif cols[7] in _PHASES:
+        phase = _PHASES[cols[7]]
+    else:
+        raise _error(f"column 8 (phase) {cols[7]!r} is not one of 0 1 2 .", shown, line0)
+    return Feature(
+        seqid=seqid,
+        source=source,
+        type=ftype,
+        start0=start - 1,
+        end0=end,
+        score=score,
+        strand=strand,
+        phase=phase,
+        attributes=_parse_attributes(cols[8], shown, line0),
+        line0=line0,
+    )
+
+
+def read_gff3(path: str | Path, *, types: set[str] | None = None) -> list[Feature]:
+    """Read every feature of a GFF3 file; see :func:`iter_gff3`."""
+    return list(iter_gff3(path, types=types))

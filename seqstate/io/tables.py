@@ -1,0 +1,544 @@
+"""Model directories: a TOML manifest that points at TSV tables.
+
+Layout (our own)::
+
+    mymodel/
+      model.toml        manifest: name, description, alphabet, order, states, tables
+      start.tsv         state <TAB> start
+      end.tsv           state <TAB> end          (optional)
+      transitions.tsv   from <TAB> to-state ...  (rows = from, columns = to; empty = 0 = forbidden)
+      emissions.tsv     state <TAB> context <TAB> one column per symbol
+
+A model may also be given as the path of its manifest file; table paths are
+relative to the manifest's folder.  Lines starting with ``#`` and blank lines
+are ignored in tables.  The emission context is the preceding symbols, oldest
+first; ``.`` stands for the empty context of order 0.  Rows for shorter contexts
+than the model's order are optional back-off rows.
+
+Everything is validated before any sequence is read; problems raise
+:class:`~seqstate.errors.TableFormatError` naming the file and line.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import sys
+from pathlib import Path
+
+import numpy as np
+
+from seqstate.errors import ModelFormatError, TableFormatError, UsageError
+from seqstate.model import (
+    SUM_TOLERANCE,
+    Model,
+    State,
+    check_reachability,
+    normalize_rows,
+    sha256_of_text,
+    validate,
+)
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+MANIFEST = "model.toml"
+FORMAT = "seqstate-model/1"
+EMPTY_CONTEXT = "."
+TABLE_FILES = {
+    "start": "start.tsv",
+    "transitions": "transitions.tsv",
+    "emissions": "emissions.tsv",
+    "end": "end.tsv",
+}
+_KNOWN_KEYS = {
+    "format", "name", "description", "alphabet", "order", "decode", "normalize",
+    "background_label", "tables", "states", "provenance",
+}
+
+
+# ---------------------------------------------------------------- built-ins
+def builtin_dir() -> Path:
+    """Folder of the built-in models (package data, or ``models/`` in a checkout)."""
+    here = Path(__file__).resolve().parent.parent
+    for cand in (here / "models", here.parent / "models"):
+        if cand.is_dir():
+            return cand
+    return here / "models"
+
+
+def list_builtin() -> list[str]:
+    """Names of the built-in models, sorted."""
+    base = builtin_dir()
+    if not base.is_dir():
+        return []
+    return sorted(p.name for p in base.iterdir() if (p / MANIFEST).is_file())
+
+
+def resolve_model_path(spec: str | os.PathLike) -> Path:
+    """A model given as a built-in NAME or a PATH (folder or manifest) -> manifest path."""
+    p = Path(spec)
+    if p.is_dir():
+        if (p / MANIFEST).is_file():
+            return p / MANIFEST
+        raise UsageError(f"model folder '{p}' has no {MANIFEST}")
+    if p.is_file():
+        return p
+    name = str(spec)
+    if name in list_builtin():
+        return builtin_dir() / name / MANIFEST
+    known = ", ".join(list_builtin()) or "none"
+    raise UsageError(f"unknown model '{name}': not a file or folder, nor a built-in model "
+                     f"(built-in: {known})")
+
+
+def load_model(spec: str | os.PathLike) -> Model:
+    """Load and fully validate a model from a built-in name, a folder or a manifest."""
+    manifest = resolve_model_path(spec)
+    return _load_manifest(manifest)
+
+
+# ---------------------------------------------------------------- reading
+def _load_manifest(manifest: Path) -> Model:
+    try:
+        text = manifest.read_text(encoding="utf-8")
+    except OSError as exc:
+        raise ModelFormatError(f"cannot read manifest: {exc.strerror}", path=manifest) from None
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ModelFormatError(f"not valid TOML: {exc}", path=manifest) from None
+
+    def need(key: str, kind: type | tuple[type, ...]):
+        if key not in doc:
+            raise ModelFormatError(f"missing required key '{key}'", path=manifest)
+        value = doc[key]
+        if not isinstance(value, kind) or isinstance(value, bool) and kind is int:
+            raise ModelFormatError(f"key '{key}' has the wrong type ({type(value).__name__})",
+                                   path=manifest)
+        return value
+
+    fmt = doc.get("format", FORMAT)
+    if fmt != FORMAT:
+        raise ModelFormatError(f"format '{fmt}' is not supported, expected '{FORMAT}'",
+                               path=manifest)
+    name = need("name", str)
+    alphabet = doc.get("alphabet", "ACGT")
+    if not isinstance(alphabet, str):
+        raise ModelFormatError("key 'alphabet' must be a string of symbols", path=manifest)
+    order = doc.get("order", 0)
+    if not isinstance(order, int) or isinstance(order, bool):
+        raise ModelFormatError("key 'order' must be a whole number", path=manifest)
+    decode = doc.get("decode", "posterior")
+    normalize = doc.get("normalize", False)
+    if not isinstance(normalize, bool):
+        raise ModelFormatError("key 'normalize' must be true or false", path=manifest)
+    states_doc = need("states", list)
+    states: list[State] = []
+    for i, sd in enumerate(states_doc):
+        if not isinstance(sd, dict) or "name" not in sd:
+            raise ModelFormatError(f"states entry {i + 1} has no name", path=manifest)
+        label = sd.get("label") or None
+        strand = sd.get("strand", ".")
+        strand = None if strand in (".", "", None) else strand
+        states.append(State(str(sd["name"]), label, strand))
+    tables = doc.get("tables", {})
+    if not isinstance(tables, dict):
+        raise ModelFormatError("[tables] must be a table", path=manifest)
+    base = manifest.parent
+    names = [s.name for s in states]
+    # names are checked before tables so that a table error can trust them
+    seen: set[str] = set()
+    for n in names:
+        if n in seen:
+            raise ModelFormatError(f"duplicate state name '{n}' in [[states]]", path=manifest)
+        seen.add(n)
+    if order < 0 or order > 8:
+        raise ModelFormatError(f"emission order {order} is outside 0..8", path=manifest)
+    if len(set(alphabet)) != len(alphabet) or not alphabet:
+        raise ModelFormatError(f"alphabet {alphabet!r} must list distinct symbols",
+                               path=manifest)
+
+    def table_path(key: str, required: bool) -> Path | None:
+        rel = tables.get(key)
+        if rel is None:
+            default = base / TABLE_FILES[key]
+            if required:
+                return default
+            return default if default.is_file() else None
+        return base / rel
+
+    strict = not normalize
+    start = _read_vector(table_path("start", True), names, "start", strict)
+    end_path = table_path("end", False)
+    end = _read_vector(end_path, names, "end", False) if end_path is not None else None
+    trans_path = table_path("transitions", True)
+    transitions = _read_transitions(trans_path, names, end, strict)
+    emis_path = table_path("emissions", True)
+    emissions, lower = _read_emissions(emis_path, names, alphabet, order, strict)
+    provenance = doc.get("provenance", {})
+    extra = {k: v for k, v in doc.items() if k not in _KNOWN_KEYS}
+    model = Model(
+        name=name,
+        description=str(doc.get("description", "")),
+        alphabet=alphabet,
+        order=order,
+        states=tuple(states),
+        start=start,
+        transitions=transitions,
+        emissions=emissions,
+        end=end,
+        decode=decode,
+        lower_emissions=lower,
+        background_label=doc.get("background_label") or None,
+        provenance=provenance,
+        extra=extra,
+    )
+    if normalize:
+        try:
+            normalize_rows(model)
+        except ModelFormatError as exc:
+            raise ModelFormatError(exc.message, path=manifest) from None
+    elif abs(start.sum() - 1.0) > SUM_TOLERANCE:
+        raise TableFormatError(
+            f"start probabilities sum to {start.sum():.9g}, expected 1 "
+            f"(tolerance {SUM_TOLERANCE:g})", path=table_path("start", True))
+    check_reachability(model, path=str(manifest))
+    validate(model, path=str(manifest))
+    return model
+
+
+def _lines(path: Path):
+    """Yield (line0, fields) for non-blank, non-comment lines of a TSV file."""
+    try:
+        with open(path, encoding="utf-8", newline="") as fh:
+            for line0, raw in enumerate(fh):
+                line = raw.rstrip("\r\n")
+                if not line.strip() or line.lstrip().startswith("#"):
+                    continue
+                yield line0, line.split("\t")
+    except FileNotFoundError:
+        raise TableFormatError("table file not found", path=path) from None
+    except UnicodeDecodeError:
+        raise TableFormatError("table is not UTF-8 text", path=path) from None
+
+
+def _number(cell: str, path: Path, line0: int, what: str) -> float:
+    text = cell.strip()
+    if text == "":
+        return 0.0
+    try:
+        value = float(text)
+    except ValueError:
+        raise TableFormatError(f"{what}: '{text[:30]}' is not a number", path=path,
+                               line0=line0) from None
+    if not math.isfinite(value):
+        raise TableFormatError(f"{what}: '{text}' is not a finite number", path=path,
+                               line0=line0)
+    if value < 0:
+        raise TableFormatError(f"{what}: {text} is negative", path=path, line0=line0)
+    return value
+
+
+def _state_index(name: str, index: dict[str, int], path: Path, line0: int) -> int:
+    if name not in index:
+        raise TableFormatError(f"unknown state '{name}' (states: {', '.join(index)})",
+                               path=path, line0=line0)
+    return index[name]
+
+
+def _check_sum(total: float, what: str, path: Path, line0: int) -> None:
+    if abs(total - 1.0) > SUM_TOLERANCE:
+        raise TableFormatError(
+            f"{what} sums to {total:.9g}, expected 1 (tolerance {SUM_TOLERANCE:g})",
+            path=path, line0=line0)
+
+
+def _read_vector(path: Path, names: list[str], column: str, strict: bool) -> np.ndarray:
+    index = {n: i for i, n in enumerate(names)}
+    values = np.zeros(len(names))
+    given = np.zeros(len(names), dtype=bool)
+    header_seen = False
+    for line0, fields in _lines(path):
+        if not header_seen:
+            header_seen = True
+            if [f.strip() for f in fields] != ["state", column]:
+                raise TableFormatError(
+                    f"header is {fields!r}, expected 'state<TAB>{column}'", path=path,
+                    line0=line0)
+            continue
+        if len(fields) != 2:
+            raise TableFormatError(f"found {len(fields)} columns, expected 2", path=path,
+                                   line0=line0)
+        s = _state_index(fields[0].strip(), index, path, line0)
+        if given[s]:
+            raise TableFormatError(f"duplicate row for state '{names[s]}'", path=path,
+                                   line0=line0)
+        given[s] = True
+        values[s] = _number(fields[1], path, line0, f"state '{names[s]}'")
+    if not header_seen:
+        raise TableFormatError("table is empty", path=path)
+    return values
+
+
+def _read_transitions(path: Path, names: list[str], end: np.ndarray | None,
+                      strict: bool) -> np.ndarray:
+    index = {n: i for i, n in enumerate(names)}
+    m = len(names)
+    table = np.zeros((m, m))
+    given = np.zeros(m, dtype=bool)
+    columns: list[int] | None = None
+    for line0, fields in _lines(path):
+        if columns is None:
+            if fields[0].strip() != "from":
+                raise TableFormatError(
+                    f"first header cell is '{fields[0]}', expected 'from' followed by the "
+                    "to-state names", path=path, line0=line0)
+            columns = []
+            for name in fields[1:]:
+                c = _state_index(name.strip(), index, path, line0)
+                if c in columns:
+                    raise TableFormatError(f"duplicate column for state '{name.strip()}'",
+                                           path=path, line0=line0)
+                columns.append(c)
+            continue
+        if len(fields) > len(columns) + 1:
+            raise TableFormatError(
+                f"found {len(fields)} columns, expected at most {len(columns) + 1}",
+                path=path, line0=line0)
+        s = _state_index(fields[0].strip(), index, path, line0)
+        if given[s]:
+            raise TableFormatError(f"duplicate row for state '{names[s]}'", path=path,
+                                   line0=line0)
+        given[s] = True
+        for c, cell in zip(columns, fields[1:]):
+            table[s, c] = _number(cell, path, line0, f"row '{names[s]}' column '{names[c]}'")
+        if strict:
+            total = table[s].sum() + (end[s] if end is not None else 0.0)
+            what = f"row '{names[s]}'" + (" (transitions plus end)" if end is not None else "")
+            _check_sum(float(total), what, path, line0)
+    if columns is None:
+        raise TableFormatError("table is empty", path=path)
+    missing = [names[i] for i in range(m) if not given[i]]
+    if missing and (end is None or any(end[index[n]] < 1.0 for n in missing)):
+        raise TableFormatError(f"no row for state '{missing[0]}'", path=path)
+    return table
+
+
+def _read_emissions(path: Path, names: list[str], alphabet: str, order: int,
+                    strict: bool) -> tuple[np.ndarray, dict[int, np.ndarray]]:
+    index = {n: i for i, n in enumerate(names)}
+    m, a = len(names), len(alphabet)
+    sym = {c: i for i, c in enumerate(alphabet)}
+    full = np.full((m, a**order, a), np.nan)
+    lower = {j: np.full((m, a**j, a), np.nan) for j in range(order)}
+    columns: list[int] | None = None
+    for line0, fields in _lines(path):
+        if columns is None:
+            head = [f.strip() for f in fields]
+            if head[:2] != ["state", "context"]:
+                raise TableFormatError(
+                    f"header starts {head[:2]!r}, expected 'state<TAB>context' then one column "
+                    "per symbol", path=path, line0=line0)
+            if sorted(head[2:]) != sorted(alphabet) or len(head[2:]) != a:
+                raise TableFormatError(
+                    f"symbol columns {' '.join(head[2:])!r} do not match the alphabet "
+                    f"{alphabet!r}", path=path, line0=line0)
+            columns = [sym[c] for c in head[2:]]
+            continue
+        if len(fields) != a + 2:
+            raise TableFormatError(f"found {len(fields)} columns, expected {a + 2}", path=path,
+                                   line0=line0)
+        s = _state_index(fields[0].strip(), index, path, line0)
+        ctx = fields[1].strip()
+        if ctx == EMPTY_CONTEXT:
+            ctx = ""
+        if len(ctx) > order:
+            raise TableFormatError(
+                f"context '{ctx}' is longer than the model's order {order}", path=path,
+                line0=line0)
+        c = 0
+        for ch in ctx:
+            if ch not in sym:
+                raise TableFormatError(f"context '{ctx}' has symbol {ch!r} not in the alphabet",
+                                       path=path, line0=line0)
+            c = c * a + sym[ch]
+        target = full if len(ctx) == order else lower[len(ctx)]
+        if not np.all(np.isnan(target[s, c])):
+            raise TableFormatError(
+                f"duplicate row for state '{names[s]}' context '{ctx or EMPTY_CONTEXT}'",
+                path=path, line0=line0)
+        row = np.zeros(a)
+        for col, cell in zip(columns, fields[2:]):
+            row[col] = _number(cell, path, line0,
+                               f"state '{names[s]}' context '{ctx or EMPTY_CONTEXT}'")
+        if strict:
+            _check_sum(float(row.sum()),
+                       f"row for state '{names[s]}' context '{ctx or EMPTY_CONTEXT}'",
+                       path, line0)
+        target[s, c] = row
+    if columns is None:
+        raise TableFormatError("table is empty", path=path)
+    for s in range(m):
+        for c in range(a**order):
+            if np.all(np.isnan(full[s, c])):
+                ctx = _context_string(alphabet, order, c) or EMPTY_CONTEXT
+                raise TableFormatError(f"missing context '{ctx}' for state '{names[s]}'",
+                                       path=path)
+    lower = {j: arr for j, arr in lower.items() if not np.all(np.isnan(arr))}
+    return full, lower
+
+
+def _context_string(alphabet: str, order: int, index: int) -> str:
+    a = len(alphabet)
+    chars = []
+    for _ in range(order):
+        chars.append(alphabet[index % a])
+        index //= a
+    return "".join(reversed(chars))
+
+
+# ---------------------------------------------------------------- writing
+def _fmt(x: float) -> str:
+    """Shortest text that reads back as the same float64 (empty for 0 in sparse tables)."""
+    return repr(float(x))
+
+
+def render_tables(model: Model) -> list[tuple[str, str]]:
+    """The canonical text of every file of ``model``: [(file name, text)], manifest first."""
+    names = model.state_names
+    out: list[tuple[str, str]] = [(MANIFEST, _render_manifest(model))]
+    out.append((TABLE_FILES["start"], "state\tstart\n" + "".join(
+        f"{n}\t{_fmt(v)}\n" for n, v in zip(names, model.start))))
+    if model.end is not None:
+        out.append((TABLE_FILES["end"], "state\tend\n" + "".join(
+            f"{n}\t{_fmt(v)}\n" for n, v in zip(names, model.end))))
+    lines = ["from\t" + "\t".join(names) + "\n"]
+    for i, n in enumerate(names):
+        cells = ["" if v == 0 else _fmt(v) for v in model.transitions[i]]
+        lines.append(n + "\t" + "\t".join(cells) + "\n")
+    out.append((TABLE_FILES["transitions"], "".join(lines)))
+    a = len(model.alphabet)
+    lines = ["state\tcontext\t" + "\t".join(model.alphabet) + "\n"]
+    for i, n in enumerate(names):
+        for j in sorted(model.lower_emissions):
+            arr = model.lower_emissions[j]
+            for c in range(a**j):
+                if np.all(np.isnan(arr[i, c])):
+                    continue
+                ctx = model.context_string(j, c) or EMPTY_CONTEXT
+                lines.append(f"{n}\t{ctx}\t" + "\t".join(_fmt(v) for v in arr[i, c]) + "\n")
+        for c in range(a**model.order):
+            ctx = model.context_string(model.order, c) or EMPTY_CONTEXT
+            lines.append(f"{n}\t{ctx}\t" + "\t".join(_fmt(v) for v in model.emissions[i, c])
+                         + "\n")
+    out.append((TABLE_FILES["emissions"], "".join(lines)))
+    return out
+
+
+def model_sha256(model: Model) -> str:
+    """SHA-256 of the model's canonical tables (independent of how its files were laid out)."""
+    return sha256_of_text(render_tables(model))
+
+
+def save_model(model: Model, folder: str | os.PathLike) -> Path:
+    """Write ``model`` as a model folder (created if absent); returns the manifest path."""
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    for name, text in render_tables(model):
+        tmp = folder / f".{name}.tmp-{os.getpid()}"
+        tmp.write_text(text, encoding="utf-8", newline="\n")
+        os.replace(tmp, folder / name)
+    return folder / MANIFEST
+
+
+def _render_manifest(model: Model) -> str:
+    lines = [
+        "# seqstate model manifest: tables are TSV files beside this one",
+        f"format = {_toml_value(FORMAT)}",
+        f"name = {_toml_value(model.name)}",
+        f"description = {_toml_value(model.description)}",
+        f"alphabet = {_toml_value(model.alphabet)}",
+        f"order = {model.order}",
+        f"decode = {_toml_value(model.decode)}",
+        "normalize = false",
+    ]
+    if model.background_label is not None:
+        lines.append(f"background_label = {_toml_value(model.background_label)}")
+    for key in sorted(model.extra):
+        value = model.extra[key]
+        if not isinstance(value, dict):
+            lines.append(f"{key} = {_toml_value(value)}")
+    lines.append("")
+    lines.append("[tables]")
+    lines.append(f"start = {_toml_value(TABLE_FILES['start'])}")
+    lines.append(f"transitions = {_toml_value(TABLE_FILES['transitions'])}")
+    lines.append(f"emissions = {_toml_value(TABLE_FILES['emissions'])}")
+    if model.end is not None:
+        lines.append(f"end = {_toml_value(TABLE_FILES['end'])}")
+    for s in model.states:
+        lines.append("")
+        lines.append("[[states]]")
+        lines.append(f"name = {_toml_value(s.name)}")
+        lines.append(f"label = {_toml_value(s.label or '')}")
+        lines.append(f"strand = {_toml_value(s.strand or '.')}")
+    for key in sorted(model.extra):
+        if isinstance(model.extra[key], dict):
+            lines.extend(_toml_table(key, model.extra[key]))
+    if model.provenance:
+        lines.extend(_toml_table("provenance", model.provenance))
+    return "\n".join(lines) + "\n"
+
+
+def _toml_table(name: str, table: dict) -> list[str]:
+    out = ["", f"[{name}]"]
+    subs = []
+    for key, value in table.items():
+        if isinstance(value, dict):
+            subs.append((key, value))
+        else:
+            out.append(f"{_toml_key(key)} = {_toml_value(value)}")
+    for key, value in subs:
+        out.extend(_toml_table(f"{name}.{_toml_key(key)}", value))
+    return out
+
+
+def _toml_key(key: str) -> str:
+    if key and all(c.isalnum() or c in "-_" for c in key):
+        return key
+    return _toml_value(key)
+
+
+def _toml_value(value) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, float):
+        if math.isnan(value):
+            return "nan"
+        if math.isinf(value):
+            return "inf" if value > 0 else "-inf"
+        return repr(value)
+    if isinstance(value, str):
+        out = ['"']
+        for ch in value:
+            if ch == '"':
+                out.append('\\"')
+            elif ch == "\\":
+                out.append("\\\\")
+            elif ch == "\n":
+                out.append("\\n")
+            elif ch == "\t":
+                out.append("\\t")
+            elif ord(ch) < 32 or ord(ch) == 127:
+                out.append(f"\\u{ord(ch):04X}")
+            else:
+                out.append(ch)
+        out.append('"')
+        return "".join(out)
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    raise TypeError(f"cannot write {type(value).__name__} to TOML")
