@@ -1,0 +1,39 @@
+"""Rebuild the derived built-in models from their sources.
+
+Run from the repository root:  python models/build.py
+Writes models/cpg-island-8 from models/cpg-island.
+"""
+
+from pathlib import Path
+
+from seqstate.io.tables import load_model, save_model
+from seqstate.layouts import expand_to_symbol_states
+
+HERE = Path(__file__).resolve().parent
+
+DESCRIPTION_8 = (
+    "The cpg-island model in its eight-state layout: one state per nucleotide per class "
+    "(island_A..island_T, background_A..background_T), order 0, each state emitting only its "
+    "own base. Built by models/build.py from models/cpg-island: a((s,x),(t,y)) = a(s,t) * "
+    "P(y | x; t) with the emission tables of Durbin, Eddy, Krogh & Mitchison (1998), "
+    "Biological Sequence Analysis, ch. 3, pp. 50-51; start(s,x) = start(s) * P0(x | s) from "
+    "the order-0 back-off of each class. Gives the same island posterior as cpg-island on "
+    "sequences without unknown bases."
+)
+
+
+def build_cpg8():
+    two = load_model(HERE / "cpg-island")
+    eight = expand_to_symbol_states(two, name="cpg-island-8", description=DESCRIPTION_8)
+    eight.provenance = {
+        "source": "derived from cpg-island by models/build.py (expand_to_symbol_states)",
+    }
+    return eight
+
+
+def main() -> None:
+    save_model(build_cpg8(), HERE / "cpg-island-8")
+
+
+if __name__ == "__main__":
+    main()

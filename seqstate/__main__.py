@@ -1,0 +1,5 @@
+"""``python -m seqstate``: the same command line as the ``seqstate`` script."""
+
+from seqstate.cli import main
+
+main()
