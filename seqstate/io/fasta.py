@@ -268,9 +268,7 @@ def _parse_header(raw: bytes, shown: str, line0: int) -> tuple[str, str]:
         ) from None
     parts = title.split(None, 1)
     if not parts:
-        raise SequenceFormatError(
-            "header line has no record ID after '>'", path=shown, line0=line0
-        )
+        raise SequenceFormatError("header line has no record ID after '>'", path=shown, line0=line0)
     rid = parts[0]
     desc = parts[1].strip() if len(parts) > 1 else ""
     return rid, desc
@@ -315,6 +313,4 @@ def write_fasta(handle: TextIO, records: Iterable[Record], width: int = 60) -> N
         step = width * 10_000
         for block in range(0, len(seq), step):
             part = seq[block : block + step]
-            handle.write(
-                "".join(part[i : i + width] + "\n" for i in range(0, len(part), width))
-            )
+            handle.write("".join(part[i : i + width] + "\n" for i in range(0, len(part), width)))

@@ -17,7 +17,7 @@ from __future__ import annotations
 import math
 import re
 import urllib.parse
-from collections.abc import Iterable, Iterator
+from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TextIO
@@ -166,19 +166,27 @@ class GFF3Writer:
         self._score_format = score_format
         self._started = False
 
-    def header(self, sequence_regions: list[tuple[str, int]]) -> None:
-        """Write ``##gff-version 3`` and one ``##sequence-region seqid 1 length`` per record.
+    def header(self, sequence_regions: Sequence[tuple[str, int] | tuple[str, int, int]]) -> None:
+        """Write ``##gff-version 3`` then one ``##sequence-region`` line per record.
 
-        ``sequence_regions`` lists ``(seqid, length)`` in input order.
+        Each item is ``(seqid, length)``, written ``##sequence-region seqid 1
+        length``, or ``(seqid, start, end)`` in 1-based closed coordinates for
+        a part of a record.  Items are written in the order given.
         """
         if self._started:
             raise RuntimeError("GFF3Writer.header() must be called before any feature")
         self._started = True
         lines = ["##gff-version 3\n"]
-        for seqid, length in sequence_regions:
-            if length < 1:
-                raise ValueError(f"record {seqid!r} has length {length}; expected >= 1")
-            lines.append(f"##sequence-region {escape_seqid(seqid)} 1 {length}\n")
+        for item in sequence_regions:
+            if len(item) == 2:
+                seqid, start, end = item[0], 1, item[1]
+            else:
+                seqid, start, end = item  # type: ignore[misc]
+            if not 1 <= start <= end:
+                raise ValueError(
+                    f"sequence region {seqid!r} {start}-{end} is not 1-based with 1 <= start <= end"
+                )
+            lines.append(f"##sequence-region {escape_seqid(seqid)} {start} {end}\n")
         self._handle.write("".join(lines))
 
     def format_score(self, score: float | None) -> str:
@@ -268,9 +276,7 @@ def _parse_position(text: str, column: int, name: str, shown: str, line0: int) -
     return value
 
 
-def _parse_attributes(
-    text: str, shown: str, line0: int
-) -> list[tuple[str, str | list[str]]]:
+def _parse_attributes(text: str, shown: str, line0: int) -> list[tuple[str, str | list[str]]]:
     if text in ("", "."):
         return []
     out: list[tuple[str, str | list[str]]] = []
@@ -332,9 +338,7 @@ def _parse_line(line: str, shown: str, line0: int) -> Feature:
         hint = ""
         if len(cols) < 9 and len(line.split()) >= 9:
             hint = " (columns must be separated by tabs, not spaces)"
-        raise _error(
-            f"found {len(cols)} tab-separated columns, expected 9{hint}", shown, line0
-        )
+        raise _error(f"found {len(cols)} tab-separated columns, expected 9{hint}", shown, line0)
     seqid = _unescape_field(cols[0], "column 1 (seqid)", shown, line0)
     if not seqid or seqid == ".":
         raise _error(f"column 1 (seqid) {cols[0]!r} is empty", shown, line0)

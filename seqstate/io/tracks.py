@@ -22,10 +22,18 @@ import numpy as np
 
 from seqstate.errors import OptionalDependencyError
 
-__all__ = ["format_scaled", "runs_of_rounded", "write_bedgraph", "write_bigwig"]
+__all__ = [
+    "BedGraphTrack",
+    "BigWigTrack",
+    "format_scaled",
+    "require_bigwig",
+    "runs_of_rounded",
+    "write_bedgraph",
+    "write_bigwig",
+]
 
 _MAX_PRECISION = 9
-_BLOCK = 1 << 22  # bases scaled at once, to bound memory on long records
+_BLOCK = 1 << 18  # bases scaled at once, to bound memory on long records
 _LINES = 1 << 16  # bedGraph lines formatted per write
 _ENTRIES = 1 << 20  # bigWig entries per addEntries call
 _TIE_TOLERANCE = 1e-6
@@ -41,20 +49,26 @@ def _exact_scaled(value: float, precision: int) -> int:
     return int(text.replace(".", ""))
 
 
-def _scale_block(block: np.ndarray, precision: int) -> np.ndarray:
+def _scale_block(block: np.ndarray, precision: int, offset0: int = 0) -> np.ndarray:
     x = block.astype(np.float64, copy=False)
-    if not np.all(np.isfinite(x)):
+    y = x * 10.0**precision
+    magnitude = np.abs(y)
+    top = float(np.max(magnitude))
+    if not np.isfinite(top):
         bad = int(np.flatnonzero(~np.isfinite(x))[0])
-        raise ValueError(f"value at offset {bad} of the block is {x[bad]!r}, not a finite number")
-    scale = 10.0**precision
-    y = x * scale
-    if y.size and float(np.max(np.abs(y))) >= 2.0**52:
+        raise ValueError(
+            f"value at 0-based position {offset0 + bad} is {x[bad]!r}, not a finite number"
+        )
+    if top >= 2.0**52:
         raise ValueError("values too large to round at this precision")
     scaled = np.rint(y)
-    # Near a tie (fraction close to .5) the product x * scale may have rounded
-    # across the tie; decide those few exactly from the decimal expansion.
-    frac = np.abs(y - np.floor(y) - 0.5)
-    for i in np.flatnonzero(frac < _TIE_TOLERANCE).tolist():
+    # Near a tie (fraction close to .5) the product x * 10**precision may have
+    # rounded across the tie; decide those few exactly from the decimal text.
+    y -= scaled
+    np.abs(y, out=y)
+    magnitude *= 4e-16
+    magnitude += 0.5 - _TIE_TOLERANCE
+    for i in np.flatnonzero(y > magnitude).tolist():
         scaled[i] = _exact_scaled(float(x[i]), precision)
     return scaled.astype(np.int64)
 
@@ -81,7 +95,7 @@ def runs_of_rounded(
     run_values: list[np.ndarray] = []
     previous: int | None = None
     for lo in range(0, n, _BLOCK):
-        q = _scale_block(arr[lo : lo + _BLOCK], precision)
+        q = _scale_block(arr[lo : lo + _BLOCK], precision, lo)
         inner = np.flatnonzero(q[1:] != q[:-1]) + 1
         if previous is None or int(q[0]) != previous:
             inner = np.concatenate(([0], inner))
@@ -111,6 +125,55 @@ def _track_text(value: str) -> str:
     return cleaned.replace('"', "'")
 
 
+class BedGraphTrack:
+    """An open bedGraph output: the track line now, then one :meth:`add` per record.
+
+    ``handle`` is a text handle the caller owns and closes.  The track line is
+    ``track type=bedGraph name="..." description="..."``; double quotes in the
+    name or description become single quotes and control characters become
+    spaces, so the line stays well-formed.
+    """
+
+    def __init__(
+        self, handle: TextIO, track_name: str, description: str, precision: int = 4
+    ) -> None:
+        _check_precision(precision)
+        self._handle = handle
+        self._precision = precision
+        handle.write(
+            f'track type=bedGraph name="{_track_text(track_name)}" '
+            f'description="{_track_text(description)}"\n'
+        )
+
+    def add(self, seqid: str, values: np.ndarray, offset0: int = 0) -> None:
+        """Write the merged runs of ``values``, base ``i`` being ``offset0 + i`` of ``seqid``.
+
+        Lines are ``seqid<TAB>start0<TAB>end0<TAB>value``, 0-based half-open.
+        ``offset0`` places a region's values on record coordinates.
+        """
+        if offset0 < 0:
+            raise ValueError(f"offset0 must be >= 0, not {offset0}")
+        starts, ends, scaled = runs_of_rounded(values, self._precision)
+        texts: dict[int, str] = {}
+        write = self._handle.write
+        for lo in range(0, starts.shape[0], _LINES):
+            hi = lo + _LINES
+            block_scaled = scaled[lo:hi].tolist()
+            for v in set(block_scaled) - texts.keys():
+                texts[v] = format_scaled(v, self._precision)
+            write(
+                "".join(
+                    f"{seqid}\t{s}\t{e}\t{texts[v]}\n"
+                    for s, e, v in zip(
+                        (starts[lo:hi] + offset0).tolist(),
+                        (ends[lo:hi] + offset0).tolist(),
+                        block_scaled,
+                        strict=True,
+                    )
+                )
+            )
+
+
 def write_bedgraph(
     handle: TextIO,
     track_name: str,
@@ -118,35 +181,98 @@ def write_bedgraph(
     chunks: Iterable[tuple[str, np.ndarray]],
     precision: int = 4,
 ) -> None:
-    """Write a bedGraph: a ``track type=bedGraph`` line, then merged runs.
+    """Write a whole bedGraph: the track line, then merged runs per record.
 
-    Each data line is ``seqid<TAB>start0<TAB>end0<TAB>value`` (0-based
-    half-open), records in the order of ``chunks``, runs in position order.
-    Double quotes in the name or description become single quotes and control
-    characters become spaces, so the track line stays well-formed.
+    ``chunks`` gives ``(seqid, values)`` per record in input order, values for
+    the whole record; see :class:`BedGraphTrack` for the line format.
     """
-    _check_precision(precision)
-    handle.write(
-        f'track type=bedGraph name="{_track_text(track_name)}" '
-        f'description="{_track_text(description)}"\n'
-    )
+    track = BedGraphTrack(handle, track_name, description, precision)
     for seqid, values in chunks:
-        starts, ends, scaled = runs_of_rounded(values, precision)
-        texts: dict[int, str] = {}
-        for lo in range(0, starts.shape[0], _LINES):
-            block_scaled = scaled[lo : lo + _LINES].tolist()
-            for v in set(block_scaled) - texts.keys():
-                texts[v] = format_scaled(v, precision)
-            handle.write(
-                "".join(
-                    f"{seqid}\t{s}\t{e}\t{texts[v]}\n"
-                    for s, e, v in zip(
-                        starts[lo : lo + _LINES].tolist(),
-                        ends[lo : lo + _LINES].tolist(),
-                        block_scaled,
-                    )
-                )
+        track.add(seqid, values)
+
+
+def require_bigwig() -> None:
+    """Raise :class:`~seqstate.errors.OptionalDependencyError` unless pyBigWig imports."""
+    _import_pybigwig()
+
+
+def _import_pybigwig():  # type: ignore[no-untyped-def]
+    try:
+        import pyBigWig
+    except ImportError:
+        raise OptionalDependencyError(
+            "bigWig output needs the optional extra: pip install 'seqstate[bigwig]'"
+        ) from None
+    return pyBigWig
+
+
+class BigWigTrack:
+    """An open bigWig output with the same merged runs as :class:`BedGraphTrack`.
+
+    ``chrom_sizes`` lists ``(seqid, length)`` for the header; :meth:`add` must
+    then be called in that order (records may be left out).  Call
+    :meth:`close` to finish the file (also done on leaving a ``with`` block).
+    bigWig stores 32-bit floats, so a value reads back within float32
+    precision of its rounded value.  Needs the optional pyBigWig package and
+    raises :class:`~seqstate.errors.OptionalDependencyError` without it.
+    """
+
+    def __init__(
+        self, path: str | Path, chrom_sizes: list[tuple[str, int]], precision: int = 4
+    ) -> None:
+        _check_precision(precision)
+        module = _import_pybigwig()
+        self._precision = precision
+        self._scale = 10.0**precision
+        self._order = {seqid: (i, int(n)) for i, (seqid, n) in enumerate(chrom_sizes)}
+        self._last = -1
+        self._bw = module.open(str(path), "w")
+        if self._bw is None:
+            raise OSError(f"pyBigWig could not open {str(path)!r} for writing")
+        try:
+            self._bw.addHeader([(seqid, int(n)) for seqid, n in chrom_sizes])
+        except BaseException:
+            self.close()
+            raise
+
+    def add(self, seqid: str, values: np.ndarray, offset0: int = 0) -> None:
+        """Add the merged runs of ``values``, base ``i`` being ``offset0 + i`` of ``seqid``."""
+        if self._bw is None:
+            raise RuntimeError("BigWigTrack is closed")
+        if seqid not in self._order:
+            raise ValueError(f"record {seqid!r} is not in chrom_sizes")
+        index, length = self._order[seqid]
+        if index <= self._last:
+            raise ValueError(f"record {seqid!r} comes out of chrom_sizes order")
+        n = np.shape(values)[0] if np.ndim(values) == 1 else -1
+        if offset0 < 0 or n < 0 or offset0 + n > length:
+            raise ValueError(
+                f"record {seqid!r}: values of shape {np.shape(values)} at offset {offset0} "
+                f"do not fit a length of {length}"
             )
+        self._last = index
+        starts, ends, scaled = runs_of_rounded(values, self._precision)
+        for lo in range(0, starts.shape[0], _ENTRIES):
+            hi = lo + _ENTRIES
+            block_starts = starts[lo:hi] + offset0
+            self._bw.addEntries(
+                [seqid] * block_starts.shape[0],
+                block_starts,
+                ends=ends[lo:hi] + offset0,
+                values=scaled[lo:hi] / self._scale,
+            )
+
+    def close(self) -> None:
+        """Finish and close the file (safe to call twice)."""
+        if self._bw is not None:
+            bw, self._bw = self._bw, None
+            bw.close()
+
+    def __enter__(self) -> BigWigTrack:
+        return self
+
+    def __exit__(self, *exc_info: object) -> None:
+        self.close()
 
 
 def write_bigwig(
@@ -155,50 +281,17 @@ def write_bigwig(
     chrom_sizes: list[tuple[str, int]],
     precision: int = 4,
 ) -> None:
-    """Write a bigWig with the same merged runs as :func:`write_bedgraph`.
+    """Write a whole bigWig: merged runs of each record's values.
 
     ``chrom_sizes`` lists ``(seqid, length)`` for the header; ``track_chunks``
-    must come in that order (records may be left out) and each values array
-    must have the record's length.  bigWig stores 32-bit floats, so a value is
-    read back within float32 precision of its rounded value.  Needs the
-    optional pyBigWig package; raises
-    :class:`~seqstate.errors.OptionalDependencyError` when it is missing.
+    gives ``(seqid, values)`` in that order (records may be left out), each
+    values array having the record's full length.  See :class:`BigWigTrack`.
     """
-    _check_precision(precision)
-    try:
-        import pyBigWig
-    except ImportError:
-        raise OptionalDependencyError(
-            "bigWig output needs the optional extra: pip install 'seqstate[bigwig]'"
-        ) from None
-    order = {seqid: (i, length) for i, (seqid, length) in enumerate(chrom_sizes)}
-    scale = 10.0**precision
-    bw = pyBigWig.open(str(path), "w")
-    if bw is None:
-        raise OSError(f"pyBigWig could not open {str(path)!r} for writing")
-    try:
-        bw.addHeader([(seqid, int(length)) for seqid, length in chrom_sizes])
-        last = -1
+    sizes = dict(chrom_sizes)
+    with BigWigTrack(path, chrom_sizes, precision) as track:
         for seqid, values in track_chunks:
-            if seqid not in order:
-                raise ValueError(f"record {seqid!r} is not in chrom_sizes")
-            index, length = order[seqid]
-            if index <= last:
-                raise ValueError(f"record {seqid!r} comes out of chrom_sizes order")
-            last = index
-            if np.shape(values) != (length,):
+            if seqid in sizes and np.shape(values) != (sizes[seqid],):
                 raise ValueError(
-                    f"record {seqid!r}: {np.shape(values)} values for a length of {length}"
+                    f"record {seqid!r}: {np.shape(values)} values for a length of {sizes[seqid]}"
                 )
-            starts, ends, scaled = runs_of_rounded(values, precision)
-            for lo in range(0, starts.shape[0], _ENTRIES):
-                hi = lo + _ENTRIES
-                block_starts = starts[lo:hi]
-                bw.addEntries(
-                    [seqid] * block_starts.shape[0],
-                    block_starts,
-                    ends=ends[lo:hi],
-                    values=scaled[lo:hi] / scale,
-                )
-    finally:
-        bw.close()
+            track.add(seqid, values)

@@ -1,0 +1,99 @@
+"""BED reading (seqstate.io.bed)."""
+
+from __future__ import annotations
+
+import gzip
+import io
+import sys
+from pathlib import Path
+
+import pytest
+
+from seqstate.errors import FeatureFormatError
+from seqstate.io.bed import BedInterval, read_bed
+
+DATA = Path(__file__).parent / "data" / "io"
+SAMPLE = DATA / "intervals.bed"
+
+
+def test_read_sample() -> None:
+    # BED is 0-based half-open and track/browser/'#' lines are headers
+    # (common practice: UCSC BED format definition, from memory).
+    assert read_bed(SAMPLE) == [
+        BedInterval("chr1", 0, 10, "first", "500", "+", 4),
+        BedInterval("chr1", 15, 15, None, None, None, 5),
+        BedInterval("chrM:part", 2, 8, "second", None, None, 6),
+    ]
+
+
+def test_tab_separated_name_may_contain_spaces(tmp_path: Path) -> None:
+    path = tmp_path / "x.bed"
+    path.write_text("c\t1\t5\tname with spaces\t0\t-\textra\tcolumns\n")
+    assert read_bed(path) == [BedInterval("c", 1, 5, "name with spaces", "0", "-", 0)]
+
+
+def test_gzip_and_stdin(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    packed = tmp_path / "intervals.txt"
+    packed.write_bytes(gzip.compress(SAMPLE.read_bytes()))
+    assert read_bed(packed) == read_bed(SAMPLE)
+
+    class FakeStdin:
+        buffer = io.BytesIO(gzip.compress(SAMPLE.read_bytes()))
+
+    monkeypatch.setattr(sys, "stdin", FakeStdin())
+    assert read_bed("-") == read_bed(SAMPLE)
+
+
+def test_empty_file_gives_no_intervals(tmp_path: Path) -> None:
+    path = tmp_path / "x.bed"
+    path.write_text("track name=nothing\n\n")
+    assert read_bed(path) == []
+
+
+def bed_error(tmp_path: Path, bad_line: str) -> FeatureFormatError:
+    path = tmp_path / "bad.bed"
+    path.write_text(f"# header\nc\t0\t5\n{bad_line}\n")
+    with pytest.raises(FeatureFormatError) as info:
+        read_bed(path)
+    err = info.value
+    assert (err.path, err.line0) == (str(path), 2)
+    assert str(err).startswith(f"{path} line 3: ")
+    return err
+
+
+def test_missing_file(tmp_path: Path) -> None:
+    with pytest.raises(FeatureFormatError, match="file not found") as info:
+        read_bed(tmp_path / "none.bed")
+    assert info.value.path == str(tmp_path / "none.bed")
+
+
+def test_too_few_fields(tmp_path: Path) -> None:
+    err = bed_error(tmp_path, "c\t5")
+    assert "found 2 fields, expected at least 3" in str(err)
+
+
+def test_non_numeric_start(tmp_path: Path) -> None:
+    err = bed_error(tmp_path, "c\tabc\t10")
+    assert "column 2 (start) 'abc' is not a whole number" in str(err)
+
+
+def test_non_numeric_end(tmp_path: Path) -> None:
+    err = bed_error(tmp_path, "c 1 1.5e3")
+    assert "column 3 (end) '1.5e3' is not a whole number" in str(err)
+
+
+def test_negative_start(tmp_path: Path) -> None:
+    err = bed_error(tmp_path, "c\t-4\t10")
+    assert "column 2 (start) is -4" in str(err)
+
+
+def test_start_after_end(tmp_path: Path) -> None:
+    # BED requires chromStart <= chromEnd (common practice: UCSC BED definition, from memory).
+    err = bed_error(tmp_path, "c\t20\t10")
+    assert "start 20 is greater than end 10" in str(err)
+
+
+def test_bad_strand(tmp_path: Path) -> None:
+    # BED strand is '+', '-' or '.' (common practice: UCSC BED definition, from memory).
+    err = bed_error(tmp_path, "c\t1\t10\tn\t0\tforward")
+    assert "column 6 (strand) 'forward' is not one of + - ." in str(err)

@@ -1,0 +1,354 @@
+"""FASTA reading and writing, and region strings (seqstate.io.fasta, seqstate.io.regions)."""
+
+from __future__ import annotations
+
+import gzip
+import io
+import sys
+from pathlib import Path
+
+import pytest
+from Bio import SeqIO
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from seqstate.errors import SequenceFormatError, UsageError
+from seqstate.io.fasta import DNA_ALPHABET, Record, iter_fasta, read_fasta, write_fasta
+from seqstate.io.regions import TO_END, Region, check_region, parse_region
+
+DATA = Path(__file__).parent / "data" / "io"
+SAMPLE = DATA / "two_records.fa"
+
+
+def write_bytes(tmp_path: Path, name: str, data: bytes) -> Path:
+    path = tmp_path / name
+    path.write_bytes(data)
+    return path
+
+
+class FakeStdin:
+    """Stands in for sys.stdin: only the binary ``.buffer`` is used."""
+
+    def __init__(self, data: bytes) -> None:
+        self.buffer = io.BytesIO(data)
+
+
+# ---------------------------------------------------------------- reading
+
+
+def test_sample_matches_biopython() -> None:
+    records = read_fasta(SAMPLE)
+    with open(SAMPLE) as handle:
+        reference = list(SeqIO.parse(handle, "fasta"))
+    # Reference: Biopython 1.88 Bio.SeqIO "fasta" parser (id = first word of the
+    # header, description = whole header, sequence = lines joined).
+    assert [r.id for r in records] == [r.id for r in reference]
+    assert [r.seq for r in records] == [str(r.seq).encode("ascii") for r in reference]
+    assert [f"{r.id} {r.description}" for r in records] == [r.description for r in reference]
+
+
+def test_sample_content_kept_exactly() -> None:
+    first, second = read_fasta(SAMPLE)
+    assert first == Record(
+        "chr1",
+        "first test record, lower and upper case",
+        b"ACGTACGTNNacgtRYSWKMBDHVACGTAC" + b"GTACGTACGTACGTACGTACGTACGTACGT" + b"acgtacgt",
+    )
+    assert len(first.seq) == 68
+    assert second.id == "chrM:part"
+    assert second.seq == b"TTGGCCAAUU-ACGT"
+
+
+def test_gzip_detected_by_magic_not_extension(tmp_path: Path) -> None:
+    packed = write_bytes(tmp_path, "sequences.txt", gzip.compress(SAMPLE.read_bytes()))
+    plain_named_gz = write_bytes(tmp_path, "plain.fa.gz", SAMPLE.read_bytes())
+    # gzip streams start with bytes 1f 8b (RFC 1952, section 2.3.1, from memory).
+    assert packed.read_bytes()[:2] == b"\x1f\x8b"
+    assert read_fasta(packed) == read_fasta(SAMPLE)
+    assert read_fasta(plain_named_gz) == read_fasta(SAMPLE)
+
+
+def test_stdin_plain(monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(sys, "stdin", FakeStdin(SAMPLE.read_bytes()))
+    assert read_fasta("-") == read_fasta(SAMPLE)
+
+
+def test_stdin_gzip(monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(sys, "stdin", FakeStdin(gzip.compress(SAMPLE.read_bytes())))
+    assert read_fasta("-") == read_fasta(SAMPLE)
+
+
+def test_stdin_error_names_stdin(monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(sys, "stdin", FakeStdin(b">a\nAC1T\n"))
+    with pytest.raises(SequenceFormatError) as info:
+        read_fasta("-")
+    assert info.value.path == "<stdin>"
+    assert str(info.value).startswith("<stdin> line 2")
+
+
+def test_crlf_blank_lines_and_inner_spaces(tmp_path: Path) -> None:
+    path = write_bytes(tmp_path, "x.fa", b"\r\n>a  desc  here \r\nAC GT\r\n\r\nTT\r\n\n>b\r\nG\r\n")
+    records = read_fasta(path)
+    assert records == [Record("a", "desc  here", b"ACGTTT"), Record("b", "", b"G")]
+
+
+def test_iter_fasta_streams_records_before_a_later_error(tmp_path: Path) -> None:
+    path = write_bytes(tmp_path, "x.fa", b">a\nACGT\n>b\nAC!T\n")
+    records = iter_fasta(path)
+    assert next(records) == Record("a", "", b"ACGT")
+    with pytest.raises(SequenceFormatError) as info:
+        next(records)
+    assert info.value.line0 == 3
+
+
+def test_iter_fasta_detects_duplicates(tmp_path: Path) -> None:
+    path = write_bytes(tmp_path, "x.fa", b">a\nA\n>b\nC\n>a\nG\n")
+    with pytest.raises(SequenceFormatError) as info:
+        list(iter_fasta(path))
+    assert info.value.line0 == 4
+
+
+def test_alphabet_check_none_accepts_any_character(tmp_path: Path) -> None:
+    path = write_bytes(tmp_path, "protein.fa", b">p\nMKX*J.12@\n")
+    assert read_fasta(path, alphabet_check=None)[0].seq == b"MKX*J.12@"
+
+
+def test_alphabet_check_rejects_unknown_mode() -> None:
+    with pytest.raises(ValueError, match="alphabet_check"):
+        read_fasta(SAMPLE, alphabet_check="protein")
+
+
+def test_every_documented_dna_character_is_accepted(tmp_path: Path) -> None:
+    # IUPAC nucleotide codes incl. U and ambiguity codes (NC-IUB 1984
+    # recommendations, from memory); '-' as gap (common practice).
+    letters = "ACGTURYSWKMBDHVN-"
+    assert DNA_ALPHABET == letters
+    body = (letters + letters.lower()).encode("ascii")
+    path = write_bytes(tmp_path, "all.fa", b">all\n" + body + b"\n")
+    assert read_fasta(path)[0].seq == body
+
+
+# ---------------------------------------------------------------- errors
+
+
+def test_missing_file(tmp_path: Path) -> None:
+    missing = tmp_path / "nope.fa"
+    with pytest.raises(SequenceFormatError) as info:
+        read_fasta(missing)
+    assert info.value.path == str(missing)
+    assert "file not found" in str(info.value)
+
+
+def test_unreadable_directory(tmp_path: Path) -> None:
+    with pytest.raises(SequenceFormatError) as info:
+        read_fasta(tmp_path)
+    assert info.value.path == str(tmp_path)
+    assert "is a directory" in str(info.value)
+
+
+def test_empty_file(tmp_path: Path) -> None:
+    path = write_bytes(tmp_path, "empty.fa", b"")
+    with pytest.raises(SequenceFormatError) as info:
+        read_fasta(path)
+    assert str(info.value) == f"{path}: no FASTA records found (empty file)"
+
+
+def test_only_blank_lines(tmp_path: Path) -> None:
+    path = write_bytes(tmp_path, "blank.fa", b"\n  \n\t\n")
+    with pytest.raises(SequenceFormatError, match="only blank lines") as info:
+        read_fasta(path)
+    assert info.value.path == str(path)
+
+
+def test_not_fasta_shows_line_and_short_copy(tmp_path: Path) -> None:
+    text = b"\n##gff-version 3 followed by a long line that goes on and on and on\n>a\nA\n"
+    path = write_bytes(tmp_path, "x.gff3", text)
+    with pytest.raises(SequenceFormatError) as info:
+        read_fasta(path)
+    err = info.value
+    assert err.path == str(path)
+    assert err.line0 == 1  # the first non-blank line, shown as line 2
+    message = str(err)
+    assert f"{path} line 2:" in message
+    assert "'>'" in message
+    assert "'##gff-version 3 followed by a long line ...'" in message
+
+
+def test_header_without_id(tmp_path: Path) -> None:
+    path = write_bytes(tmp_path, "x.fa", b">a\nAC\n>   \nGT\n")
+    with pytest.raises(SequenceFormatError, match="no record ID") as info:
+        read_fasta(path)
+    assert (info.value.path, info.value.line0) == (str(path), 2)
+
+
+def test_empty_sequence_names_record(tmp_path: Path) -> None:
+    path = write_bytes(tmp_path, "x.fa", b">a\nAC\n>empty one\n\n>c\nG\n")
+    with pytest.raises(SequenceFormatError) as info:
+        read_fasta(path)
+    err = info.value
+    assert (err.path, err.line0, err.where) == (str(path), 2, "record 'empty'")
+    assert "record 'empty' has an empty sequence" in str(err)
+
+
+def test_empty_sequence_in_last_record(tmp_path: Path) -> None:
+    path = write_bytes(tmp_path, "x.fa", b">a\nAC\n>last\n")
+    with pytest.raises(SequenceFormatError, match="'last' has an empty sequence") as info:
+        read_fasta(path)
+    assert info.value.line0 == 2
+
+
+def test_duplicate_id_names_both_lines(tmp_path: Path) -> None:
+    path = write_bytes(tmp_path, "x.fa", b">chr1 a\nAC\n>chr2\nGG\n>chr1 again\nTT\n")
+    with pytest.raises(SequenceFormatError) as info:
+        read_fasta(path)
+    err = info.value
+    assert (err.path, err.line0) == (str(path), 4)
+    assert "duplicate record ID 'chr1' (first used on line 1)" in str(err)
+    assert f"{path} line 5" in str(err)
+
+
+@pytest.mark.parametrize(
+    ("body", "char", "position", "line0"),
+    [
+        (b"ACGT\nAC5T\n", "'5'", 7, 2),
+        (b"AC@T\n", "'@'", 3, 1),
+        (b"ACGTX\n", "'X'", 5, 1),
+        (b"ACGT\nACGT\nJ\n", "'J'", 9, 3),
+        (b"A.GT\n", "'.'", 2, 1),
+        (b"ACG*\n", "'*'", 4, 1),
+        (b"AC GT\nT T x\n", "'x'", 7, 2),
+    ],
+)
+def test_bad_character_names_record_position_and_line(
+    tmp_path: Path, body: bytes, char: str, position: int, line0: int
+) -> None:
+    path = write_bytes(tmp_path, "x.fa", b">rec1 desc\n" + body)
+    with pytest.raises(SequenceFormatError) as info:
+        read_fasta(path)
+    err = info.value
+    assert (err.path, err.line0, err.where) == (str(path), line0, "record 'rec1'")
+    assert f"character {char} at position {position} " in str(err)
+
+
+def test_non_ascii_byte_is_reported_as_hex(tmp_path: Path) -> None:
+    path = write_bytes(tmp_path, "x.fa", ">r\nAC\u00e9T\n".encode())
+    with pytest.raises(SequenceFormatError, match="byte 0xC3 at position 3"):
+        read_fasta(path)
+
+
+def test_truncated_gzip(tmp_path: Path) -> None:
+    data = gzip.compress(SAMPLE.read_bytes() * 50)
+    path = write_bytes(tmp_path, "cut.fa.gz", data[: len(data) // 2])
+    with pytest.raises(SequenceFormatError, match="cannot be read") as info:
+        read_fasta(path)
+    assert info.value.path == str(path)
+
+
+# ---------------------------------------------------------------- writing
+
+
+def test_write_fasta_wraps_and_biopython_reads_it(tmp_path: Path) -> None:
+    records = [Record("a", "some text", b"ACGTACGTAC"), Record("b", "", b"GGG")]
+    path = tmp_path / "out.fa"
+    with open(path, "w") as handle:
+        write_fasta(handle, records, width=4)
+    assert path.read_text() == ">a some text\nACGT\nACGT\nAC\n>b\nGGG\n"
+    with open(path) as handle:
+        reference = [(r.id, str(r.seq)) for r in SeqIO.parse(handle, "fasta")]
+    # Reference: Biopython 1.88 Bio.SeqIO "fasta" parser.
+    assert reference == [("a", "ACGTACGTAC"), ("b", "GGG")]
+
+
+@pytest.mark.parametrize(
+    ("record", "width"),
+    [(Record("has space", "", b"A"), 60), (Record("", "", b"A"), 60), (Record("a", "", b""), 60)]
+    + [(Record("a", "", b"A"), 0)],
+)
+def test_write_fasta_rejects_bad_input(record: Record, width: int) -> None:
+    with pytest.raises(ValueError):
+        write_fasta(io.StringIO(), [record], width=width)
+
+
+_ids = st.text(alphabet="abcXYZ019_.:|-", min_size=1, max_size=8)
+_seqs = st.text(alphabet=DNA_ALPHABET + DNA_ALPHABET.lower(), min_size=1, max_size=200)
+
+
+@settings(max_examples=50, deadline=None)
+@given(
+    st.lists(st.tuples(_ids, _seqs), min_size=1, max_size=5, unique_by=lambda t: t[0]),
+    st.integers(min_value=1, max_value=70),
+)
+def test_write_read_round_trip(pairs: list[tuple[str, str]], width: int) -> None:
+    records = [Record(i, "d e", s.encode("ascii")) for i, s in pairs]
+    buffer = io.StringIO()
+    write_fasta(buffer, records, width=width)
+    stdin = FakeStdin(buffer.getvalue().encode("ascii"))
+    saved = sys.stdin
+    sys.stdin = stdin  # type: ignore[assignment]
+    try:
+        assert read_fasta("-") == records
+    finally:
+        sys.stdin = saved
+
+
+# ---------------------------------------------------------------- regions
+
+
+@pytest.mark.parametrize(
+    ("text", "expected"),
+    [
+        ("chr1:1-10", Region("chr1", 0, 10)),
+        ("chr1:1,000-2,000", Region("chr1", 999, 2000)),
+        ("chr1:5-5", Region("chr1", 4, 5)),
+        (" chr2:3 - 7 ", Region("chr2", 2, 7)),
+        ("HLA:A:10-20", Region("HLA:A", 9, 20)),
+        ("chr1", Region("chr1", 0, TO_END)),
+        ("HLA:A*01", Region("HLA:A*01", 0, TO_END)),
+    ],
+)
+def test_parse_region(text: str, expected: Region) -> None:
+    assert parse_region(text) == expected
+
+
+@pytest.mark.parametrize(
+    "text",
+    ["", "chr1:", "chr1:5", "chr1:5-", "chr1:-5", "chr1:0-10", "chr1:10-5", ":1-5", "chr 1:1-5"]
+    + ["chr1:1-2-3", "a b"],
+)
+def test_parse_region_errors(text: str) -> None:
+    with pytest.raises(UsageError) as info:
+        parse_region(text)
+    message = str(info.value)
+    assert message.startswith(f"region {text!r}: ")
+    assert "expected ID:START-END with 1-based inclusive START <= END" in message
+
+
+def test_region_to_text_round_trip() -> None:
+    assert parse_region("chr1:1,001-2,000").to_text() == "chr1:1001-2000"
+    assert parse_region("chrM").to_text() == "chrM"
+
+
+def test_check_region_resolves_whole_record() -> None:
+    assert check_region(parse_region("chr2"), {"chr1": 800, "chr2": 50}) == Region("chr2", 0, 50)
+    assert check_region(parse_region("chr1:1-800"), {"chr1": 800}) == Region("chr1", 0, 800)
+
+
+def test_check_region_outside_record() -> None:
+    with pytest.raises(UsageError) as info:
+        check_region(parse_region("chr1:5-900"), {"chr1": 800})
+    assert str(info.value) == "region chr1:5-900 lies outside record chr1 (length 800)"
+
+
+def test_check_region_start_beyond_end_of_record() -> None:
+    with pytest.raises(UsageError, match="lies outside record chr1 \\(length 800\\)"):
+        check_region(parse_region("chr1:801-801"), {"chr1": 800})
+
+
+def test_check_region_unknown_record_lists_five() -> None:
+    lengths = {f"c{i}": 10 for i in range(7)}
+    with pytest.raises(UsageError) as info:
+        check_region(parse_region("chrX:1-5"), lengths)
+    message = str(info.value)
+    assert "no record 'chrX'" in message
+    assert "c0, c1, c2, c3, c4, ... (7 records in all)" in message
+    assert "c5" not in message

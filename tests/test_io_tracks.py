@@ -1,0 +1,260 @@
+"""Posterior tracks as bedGraph and bigWig (seqstate.io.tracks)."""
+
+from __future__ import annotations
+
+import io
+import sys
+from pathlib import Path
+
+import numpy as np
+import pyBigWig
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from seqstate.errors import OptionalDependencyError
+from seqstate.io import tracks
+from seqstate.io.tracks import (
+    BedGraphTrack,
+    BigWigTrack,
+    format_scaled,
+    require_bigwig,
+    runs_of_rounded,
+    write_bedgraph,
+    write_bigwig,
+)
+
+
+def expected_text(value: float, precision: int) -> str:
+    """Oracle: Python's 'f' formatting (correctly rounded, from memory), without '-0'."""
+    text = f"{float(value):.{precision}f}"
+    if text.startswith("-") and float(text) == 0.0:
+        text = text[1:]
+    return text
+
+
+def parse_bedgraph(text: str) -> tuple[str, list[tuple[str, int, int, str]]]:
+    lines = text.splitlines()
+    rows = []
+    for line in lines[1:]:
+        seqid, start, end, value = line.split("\t")
+        rows.append((seqid, int(start), int(end), value))
+    return lines[0], rows
+
+
+def expand(rows: list[tuple[str, int, int, str]], seqid: str) -> list[str]:
+    out: list[str] = []
+    for name, start, end, value in rows:
+        if name == seqid:
+            assert start == len(out)  # contiguous, in position order
+            out.extend([value] * (end - start))
+    return out
+
+
+# Values with ties, tiny negatives and exact bounds, repeated in runs.
+_special = st.sampled_from([0.0, 1.0, 0.5, 0.00005, 0.00015, 0.99995, 0.12345, 1e-9, -1e-9, -0.0])
+_value = st.one_of(_special, st.floats(min_value=0.0, max_value=1.0))
+_runs = st.lists(st.tuples(_value, st.integers(1, 5)), min_size=1, max_size=40)
+
+
+def build(runs: list[tuple[float, int]], dtype: type) -> np.ndarray:
+    return np.repeat(np.array([v for v, _ in runs], dtype=dtype), [n for _, n in runs])
+
+
+@settings(max_examples=150, deadline=None)
+@given(
+    _runs,
+    _runs,
+    st.sampled_from([np.float32, np.float64]),
+    st.integers(min_value=0, max_value=6),
+)
+def test_bedgraph_matches_rounded_input_at_every_base(
+    runs_a: list[tuple[float, int]],
+    runs_b: list[tuple[float, int]],
+    dtype: type,
+    precision: int,
+) -> None:
+    a, b = build(runs_a, dtype), build(runs_b, dtype)
+    buffer = io.StringIO()
+    write_bedgraph(buffer, "posterior", "test", [("rec2", a), ("rec1", b)], precision)
+    track, rows = parse_bedgraph(buffer.getvalue())
+    assert track.startswith("track type=bedGraph ")
+    # Records in input order.
+    seqids = [r[0] for r in rows]
+    assert seqids == sorted(seqids, key=["rec2", "rec1"].index)
+    for seqid, values in (("rec2", a), ("rec1", b)):
+        assert expand(rows, seqid) == [expected_text(v, precision) for v in values]
+        mine = [r for r in rows if r[0] == seqid]
+        # Maximal runs: neighbouring lines of a record never share a value.
+        assert all(x[3] != y[3] for x, y in zip(mine, mine[1:], strict=False))
+        assert all(r[1] < r[2] for r in mine)
+        assert not any(r[3].startswith("-") for r in mine)
+
+
+def test_track_line_and_exact_lines() -> None:
+    buffer = io.StringIO()
+    values = np.array([0.1, 0.10004, 0.2, -1e-7, 1.0], dtype=np.float64)
+    write_bedgraph(buffer, 'CpG "island"', "posterior\tof\nstate", [("chr1", values)])
+    # bedGraph: track line with type=bedGraph, then chrom, 0-based start, end,
+    # value (common practice: UCSC bedGraph definition, from memory).
+    assert buffer.getvalue() == (
+        'track type=bedGraph name="CpG \'island\'" description="posterior of state"\n'
+        "chr1\t0\t2\t0.1000\n"
+        "chr1\t2\t3\t0.2000\n"
+        "chr1\t3\t4\t0.0000\n"
+        "chr1\t4\t5\t1.0000\n"
+    )
+
+
+def test_bedgraph_track_with_offset() -> None:
+    buffer = io.StringIO()
+    track = BedGraphTrack(buffer, "t", "d", precision=1)
+    track.add("chr1", np.array([0.0, 0.0, 0.9]), offset0=100)
+    track.add("chr2", np.array([0.5]))
+    assert buffer.getvalue().splitlines() == [
+        'track type=bedGraph name="t" description="d"',
+        "chr1\t100\t102\t0.0",
+        "chr1\t102\t103\t0.9",
+        "chr2\t0\t1\t0.5",
+    ]
+
+
+def test_values_near_a_tie_follow_the_exact_binary_value() -> None:
+    buffer = io.StringIO()
+    values = np.array([0.05, 0.15, 0.25, 0.35, 0.45], dtype=np.float64)
+    write_bedgraph(buffer, "t", "d", [("c", values)], precision=1)
+    # The doubles nearest 0.15 and 0.35 lie just below the tie, 0.05 and 0.45
+    # just above, 0.25 is exact and rounds half to even (IEEE 754 binary64 and
+    # Python's correctly rounded 'f' format, from memory).
+    assert [line.split("\t")[3] for line in buffer.getvalue().splitlines()[1:]] == [
+        "0.1",
+        "0.2",
+        "0.3",
+        "0.5",
+    ]
+    assert [line.split("\t")[1:3] for line in buffer.getvalue().splitlines()[1:]] == [
+        ["0", "2"],
+        ["2", "3"],
+        ["3", "4"],
+        ["4", "5"],
+    ]
+
+
+def test_record_of_length_one() -> None:
+    buffer = io.StringIO()
+    write_bedgraph(buffer, "t", "d", [("a", np.array([0.75], dtype=np.float32))], precision=2)
+    assert buffer.getvalue().splitlines()[1:] == ["a\t0\t1\t0.75"]
+
+
+def test_runs_across_internal_blocks(monkeypatch: pytest.MonkeyPatch) -> None:
+    rng = np.random.default_rng(7)
+    values = rng.choice([0.0, 0.25, 1.0], size=1000, p=[0.45, 0.1, 0.45])
+    values = np.repeat(values, rng.integers(1, 9, size=values.shape[0]))
+    whole = runs_of_rounded(values, 3)
+    monkeypatch.setattr(tracks, "_BLOCK", 7)
+    blocked = runs_of_rounded(values, 3)
+    for left, right in zip(whole, blocked, strict=True):
+        np.testing.assert_array_equal(left, right)
+    starts, ends, scaled = blocked
+    assert starts[0] == 0 and ends[-1] == values.shape[0]
+    np.testing.assert_array_equal(starts[1:], ends[:-1])
+    assert np.all(scaled[1:] != scaled[:-1])
+    np.testing.assert_array_equal(np.repeat(scaled, ends - starts), np.rint(values * 1000))
+
+
+def test_format_scaled() -> None:
+    assert format_scaled(0, 4) == "0.0000"
+    assert format_scaled(10000, 4) == "1.0000"
+    assert format_scaled(5, 4) == "0.0005"
+    assert format_scaled(-123, 2) == "-1.23"
+    assert format_scaled(7, 0) == "7"
+
+
+@pytest.mark.parametrize("bad", [np.nan, np.inf])
+def test_non_finite_values_are_rejected(bad: float) -> None:
+    with pytest.raises(ValueError, match="position 1 is .*not a finite number"):
+        runs_of_rounded(np.array([0.5, bad]), 4)
+
+
+@pytest.mark.parametrize("precision", [-1, 10, 2.5])
+def test_bad_precision_is_rejected(precision: float) -> None:
+    with pytest.raises(ValueError, match="precision"):
+        runs_of_rounded(np.array([0.5]), precision)  # type: ignore[arg-type]
+
+
+def test_two_dimensional_values_are_rejected() -> None:
+    with pytest.raises(ValueError, match="1-D"):
+        runs_of_rounded(np.zeros((2, 2)), 4)
+
+
+# ---------------------------------------------------------------- bigWig
+
+
+def test_bigwig_round_trip(tmp_path: Path) -> None:
+    rng = np.random.default_rng(3)
+    precision = 3
+    a = np.repeat(rng.random(200), rng.integers(1, 6, size=200)).astype(np.float32)
+    b = np.array([0.123456], dtype=np.float64)
+    sizes = [("chrA", a.shape[0]), ("chrB", 1)]
+    path = tmp_path / "t.bw"
+    write_bigwig(path, [("chrA", a), ("chrB", b)], sizes, precision=precision)
+    # Reference library: pyBigWig 0.3 (values() per base, intervals() as
+    # 0-based half-open (start, end, value) tuples, values stored as float32).
+    bw = pyBigWig.open(str(path))
+    try:
+        assert bw.chroms() == dict(sizes)
+        tolerance = 10.0**-precision / 2 + np.finfo(np.float32).eps
+        for seqid, values in (("chrA", a), ("chrB", b)):
+            back = np.array(bw.values(seqid, 0, values.shape[0]))
+            assert np.all(np.abs(back - values.astype(np.float64)) <= tolerance)
+            starts, ends, scaled = runs_of_rounded(values, precision)
+            intervals = bw.intervals(seqid)
+            assert [(s, e) for s, e, _ in intervals] == list(
+                zip(starts.tolist(), ends.tolist(), strict=True)
+            )
+            stored = np.array([v for _, _, v in intervals])
+            np.testing.assert_allclose(stored, scaled / 10.0**precision, rtol=0, atol=1e-7)
+    finally:
+        bw.close()
+
+
+def test_bigwig_rejects_out_of_order_and_wrong_length(tmp_path: Path) -> None:
+    sizes = [("a", 3), ("b", 2)]
+    with pytest.raises(ValueError, match="order"):
+        write_bigwig(tmp_path / "x.bw", [("b", np.zeros(2)), ("a", np.zeros(3))], sizes)
+    with pytest.raises(ValueError, match="length of 3"):
+        write_bigwig(tmp_path / "y.bw", [("a", np.zeros(4))], sizes)
+    with pytest.raises(ValueError, match="not in chrom_sizes"):
+        write_bigwig(tmp_path / "z.bw", [("c", np.zeros(4))], sizes)
+
+
+def test_bigwig_track_with_offset(tmp_path: Path) -> None:
+    path = tmp_path / "region.bw"
+    with BigWigTrack(path, [("chr1", 50), ("chr2", 5)], precision=2) as track:
+        track.add("chr1", np.array([0.25, 0.25, 1.0], dtype=np.float32), offset0=10)
+        with pytest.raises(ValueError, match="do not fit"):
+            track.add("chr2", np.zeros(3), offset0=3)
+    # Reference library: pyBigWig 0.3, intervals() as 0-based half-open tuples.
+    bw = pyBigWig.open(str(path))
+    try:
+        assert bw.intervals("chr1") == ((10, 12, 0.25), (12, 13, 1.0))
+    finally:
+        bw.close()
+
+
+def test_bigwig_without_pybigwig(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setitem(sys.modules, "pyBigWig", None)  # makes the import fail
+    with pytest.raises(OptionalDependencyError) as info:
+        write_bigwig(tmp_path / "x.bw", [("a", np.zeros(3))], [("a", 3)])
+    assert str(info.value) == (
+        "bigWig output needs the optional extra: pip install 'seqstate[bigwig]'"
+    )
+    assert not (tmp_path / "x.bw").exists()
+    with pytest.raises(OptionalDependencyError):
+        require_bigwig()
+    with pytest.raises(OptionalDependencyError):
+        BigWigTrack(tmp_path / "y.bw", [("a", 3)])
+
+
+def test_require_bigwig_passes_when_installed() -> None:
+    assert require_bigwig() is None
