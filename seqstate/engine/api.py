@@ -231,9 +231,14 @@ def loglik(tables: EngineTables, codes: np.ndarray, *, record: str | None = None
     """Total log-likelihood (natural log) of one encoded record."""
     if codes.shape[0] == 0:
         raise ValueError("empty record")
-    ll, pos = kernels.forward_loglik(codes, tables.start, tables.end, tables.E, tables.nz_ptr,
-                                     tables.nz_state, tables.pred_ptr, tables.pred_src,
-                                     tables.pred_p)
+    sm = _small_of(tables)
+    if sm is not None:
+        ll, pos = _small.forward_loglik(codes, sm.start, sm.end, sm.K, sm.st, sm.wide, sm.cls,
+                                        sm.W, sm.T, sm.E)
+    else:
+        ll, pos = kernels.forward_loglik(codes, tables.start, tables.end, tables.E,
+                                         tables.nz_ptr, tables.nz_state, tables.pred_ptr,
+                                         tables.pred_src, tables.pred_p)
     if pos >= 0:
         _raise_impossible(tables, codes, record)
     return ll
@@ -282,10 +287,17 @@ def posterior(tables: EngineTables, codes: np.ndarray, *, group: np.ndarray | No
     beta_ck = np.zeros((nblocks, m))
     alpha_log = np.zeros(nblocks)
     beta_log = np.zeros(nblocks)
-    ll, pos = kernels.posterior_checkpointed(
-        codes, tables.start, tables.end, tables.E, tables.nz_ptr, tables.nz_state,
-        tables.pred_ptr, tables.pred_src, tables.pred_p, tables.succ_ptr, tables.succ_dst,
-        tables.succ_p, block, group, out, alpha_ck, alpha_log, beta_ck, beta_log)
+    sm = _small_of(tables)
+    if sm is not None:
+        gc = _small.group_table(sm, group)
+        ll, pos = _small.posterior_checkpointed(
+            codes, sm.start, sm.end, sm.K, sm.st, sm.wide, sm.cls, sm.W, sm.T, sm.E, block,
+            gc, out, alpha_ck, alpha_log, beta_ck, beta_log)
+    else:
+        ll, pos = kernels.posterior_checkpointed(
+            codes, tables.start, tables.end, tables.E, tables.nz_ptr, tables.nz_state,
+            tables.pred_ptr, tables.pred_src, tables.pred_p, tables.succ_ptr, tables.succ_dst,
+            tables.succ_p, block, group, out, alpha_ck, alpha_log, beta_ck, beta_log)
     if pos >= 0:
         _raise_impossible(tables, codes, record)
     return Posterior(ll, out, block, alpha_ck, alpha_log, beta_ck, beta_log)
@@ -303,9 +315,15 @@ def viterbi(tables: EngineTables, codes: np.ndarray, *, block: int | None = None
     block = default_block(n) if block is None else max(1, min(int(block), n))
     dtype = np.int16 if tables.n_states < 32768 else np.int32
     path = np.empty(n, dtype=dtype)
-    lp, pos = kernels.viterbi_checkpointed(
-        codes, tables.log_start, tables.log_end, tables.logE, tables.nz_ptr, tables.nz_state,
-        tables.pred_ptr, tables.pred_src, tables.pred_logp, block, path)
+    sm = _small_of(tables)
+    if sm is not None:
+        lp, pos = _small.viterbi_checkpointed(
+            codes, sm.log_start, sm.log_end, sm.K, sm.st, sm.wide, sm.cls, sm.LT, sm.LE,
+            sm.logT, sm.logE, block, path)
+    else:
+        lp, pos = kernels.viterbi_checkpointed(
+            codes, tables.log_start, tables.log_end, tables.logE, tables.nz_ptr,
+            tables.nz_state, tables.pred_ptr, tables.pred_src, tables.pred_logp, block, path)
     if pos >= 0:
         _raise_impossible(tables, codes, record)
     return path, lp
@@ -399,3 +417,30 @@ def segment_log_odds(tables: EngineTables, codes: np.ndarray, post: Posterior,
     if inside == -math.inf and outside == -math.inf:
         return math.nan
     return inside - outside
+
+
+# ----------------------------------------------------------------- kernel dispatch
+import os as _os  # noqa: E402
+
+from seqstate.engine import small as _small  # noqa: E402
+
+#: Set the environment variable SEQSTATE_KERNELS=generic to use only the generic kernels.
+_USE_SMALL = _os.environ.get("SEQSTATE_KERNELS", "").strip().lower() != "generic"
+
+
+def _small_of(tables: EngineTables):
+    """The two-states-per-code tables of ``tables`` (built once, kept on the object), or None.
+
+    None when the model does not fit :mod:`seqstate.engine.small` or the
+    specialised kernels are switched off; the generic kernels then run.
+    """
+    if not _USE_SMALL:
+        return None
+    cached = tables.__dict__.get("_small_tables")
+    if cached is not None:
+        sm = cached[0]
+        if sm is None or _small.still_valid(sm, tables):
+            return sm
+    sm = _small.build(tables)
+    tables.__dict__["_small_tables"] = (sm,)
+    return sm
