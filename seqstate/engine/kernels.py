@@ -28,7 +28,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numba import njit
+from numba import njit, uintp
 
 #: Rescale a running vector when its sum falls below this value.
 RESCALE_BELOW = 1e-100
@@ -37,17 +37,27 @@ _JIT = {"cache": True, "nogil": True, "error_model": "numpy"}
 
 
 # ----------------------------------------------------------------- helpers
+# Indices read from the tables are converted to unsigned (``uintp``) before they
+# index an array: numba then emits no negative-index wrap-around code, which made
+# the sparse loops about three times faster.  Never mix ``uintp`` with signed
+# integers in arithmetic (numba types uint64 + int64 as float64).
+_ONE = uintp(1)
+
+
 @njit(**_JIT)
 def _forward_step(prev, cur, code, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p):
     """cur[t] = E[code, t] * sum_p prev[p] * a[p, t] for the emitting states; returns sum(cur)."""
-    cur[:] = 0.0
+    m = cur.shape[0]
+    for s in range(m):
+        cur[s] = 0.0
+    c = uintp(code)
     total = 0.0
-    for k in range(nz_ptr[code], nz_ptr[code + 1]):
-        t = nz_state[k]
+    for k in range(uintp(nz_ptr[c]), uintp(nz_ptr[c + _ONE])):
+        t = uintp(nz_state[k])
         acc = 0.0
-        for q in range(pred_ptr[t], pred_ptr[t + 1]):
-            acc += prev[pred_src[q]] * pred_p[q]
-        v = acc * E[code, t]
+        for q in range(uintp(pred_ptr[t]), uintp(pred_ptr[t + _ONE])):
+            acc += prev[uintp(pred_src[q])] * pred_p[q]
+        v = acc * E[c, t]
         cur[t] = v
         total += v
     return total
@@ -57,30 +67,75 @@ def _forward_step(prev, cur, code, E, nz_ptr, nz_state, pred_ptr, pred_src, pred
 def _backward_step(nxt, cur, code_next, E, nz_ptr, nz_state, succ_ptr, succ_dst, succ_p, w):
     """cur[s] = sum_t a[s, t] * E[code_next, t] * nxt[t]; returns sum(cur).  ``w`` is scratch."""
     m = cur.shape[0]
-    w[:] = 0.0
-    for k in range(nz_ptr[code_next], nz_ptr[code_next + 1]):
-        t = nz_state[k]
-        w[t] = E[code_next, t] * nxt[t]
+    for s in range(m):
+        w[s] = 0.0
+    c = uintp(code_next)
+    for k in range(uintp(nz_ptr[c]), uintp(nz_ptr[c + _ONE])):
+        t = uintp(nz_state[k])
+        w[t] = E[c, t] * nxt[t]
     total = 0.0
     for s in range(m):
         acc = 0.0
-        for q in range(succ_ptr[s], succ_ptr[s + 1]):
-            acc += succ_p[q] * w[succ_dst[q]]
+        for q in range(uintp(succ_ptr[s]), uintp(succ_ptr[s + 1])):
+            acc += succ_p[q] * w[uintp(succ_dst[q])]
         cur[s] = acc
         total += acc
     return total
 
 
 @njit(**_JIT)
-def _first(start, cur, code, E, nz_ptr, nz_state):
-    cur[:] = 0.0
+def _backward_step_any(nxt, cur, code_next, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p,
+                       succ_ptr, succ_dst, succ_p, w):
+    """:func:`_backward_step`, or the same sums scattered from the emitting states only.
+
+    Scattering costs the transitions into the states that can emit ``code_next``;
+    gathering costs all transitions but accumulates in registers.  Both add the
+    terms of each ``cur[s]`` in increasing ``t``, so they give identical results.
+    """
+    c = uintp(code_next)
+    k0 = uintp(nz_ptr[c])
+    k1 = uintp(nz_ptr[c + _ONE])
+    into = 0
+    for k in range(k0, k1):
+        t = uintp(nz_state[k])
+        into += pred_ptr[t + _ONE] - pred_ptr[t]
+    if 3 * into > pred_src.shape[0]:
+        return _backward_step(nxt, cur, code_next, E, nz_ptr, nz_state, succ_ptr, succ_dst,
+                              succ_p, w)
+    m = cur.shape[0]
+    for s in range(m):
+        cur[s] = 0.0
+    for k in range(k0, k1):
+        t = uintp(nz_state[k])
+        wt = E[c, t] * nxt[t]
+        for q in range(uintp(pred_ptr[t]), uintp(pred_ptr[t + _ONE])):
+            cur[uintp(pred_src[q])] += pred_p[q] * wt
     total = 0.0
-    for k in range(nz_ptr[code], nz_ptr[code + 1]):
-        t = nz_state[k]
-        v = start[t] * E[code, t]
+    for s in range(m):
+        total += cur[s]
+    return total
+
+
+@njit(**_JIT)
+def _first(start, cur, code, E, nz_ptr, nz_state):
+    m = cur.shape[0]
+    for s in range(m):
+        cur[s] = 0.0
+    c = uintp(code)
+    total = 0.0
+    for k in range(uintp(nz_ptr[c]), uintp(nz_ptr[c + _ONE])):
+        t = uintp(nz_state[k])
+        v = start[t] * E[c, t]
         cur[t] = v
         total += v
     return total
+
+
+@njit(**_JIT)
+def _scale(vec, total):
+    inv = 1.0 / total
+    for s in range(vec.shape[0]):
+        vec[s] *= inv
 
 
 # ----------------------------------------------------------------- forward
@@ -89,26 +144,30 @@ def forward_loglik(codes, start, end, E, nz_ptr, nz_state, pred_ptr, pred_src, p
     """Total log-likelihood (natural log) of one record; returns (loglik, fail_position)."""
     n = codes.shape[0]
     m = start.shape[0]
-    a = np.empty(m)
-    b = np.empty(m)
+    rows = np.zeros((2, m))
     logscale = 0.0
+    a = rows[0]
     total = _first(start, a, codes[0], E, nz_ptr, nz_state)
     if total == 0.0:
         return -np.inf, 0
     if total < RESCALE_BELOW:
-        a *= 1.0 / total
+        _scale(a, total)
         logscale += math.log(total)
+    src = 0
     for i in range(1, n):
-        total = _forward_step(a, b, codes[i], E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p)
+        dst = 1 - src
+        b = rows[dst]
+        total = _forward_step(rows[src], b, codes[i], E, nz_ptr, nz_state, pred_ptr, pred_src,
+                              pred_p)
         if total < RESCALE_BELOW:
             if total == 0.0:
                 return -np.inf, i
-            b *= 1.0 / total
+            _scale(b, total)
             logscale += math.log(total)
-        a, b = b, a
+        src = dst
     final = 0.0
     for s in range(m):
-        final += a[s] * end[s]
+        final += rows[src, s] * end[s]
     if final == 0.0:
         return -np.inf, n
     return math.log(final) + logscale, -1
@@ -136,8 +195,9 @@ def posterior_checkpointed(codes, start, end, E, nz_ptr, nz_state, pred_ptr, pre
     nblocks = (n + block - 1) // block
     w = np.empty(m)
     # ---- pass 1: backward, checkpoint at each block's last position
-    cur = np.empty(m)
-    nxt = np.empty(m)
+    rows = np.zeros((2, m))
+    src = 0
+    nxt = rows[0]
     for s in range(m):
         nxt[s] = end[s]
     logscale = 0.0
@@ -147,72 +207,87 @@ def posterior_checkpointed(codes, start, end, E, nz_ptr, nz_state, pred_ptr, pre
     if bsum < RESCALE_BELOW:
         if bsum == 0.0:
             return -np.inf, n
-        nxt *= 1.0 / bsum
+        _scale(nxt, bsum)
         logscale += math.log(bsum)
     last_block = nblocks - 1
     beta_ck[last_block, :] = nxt
     beta_ck_log[last_block] = logscale
+    ckpos = ((n - 1) // block) * block  # next block start (going down) below n - 1
     for i in range(n - 2, -1, -1):
-        bsum = _backward_step(nxt, cur, codes[i + 1], E, nz_ptr, nz_state, succ_ptr, succ_dst,
-                              succ_p, w)
+        dst = 1 - src
+        cur = rows[dst]
+        bsum = _backward_step_any(rows[src], cur, codes[i + 1], E, nz_ptr, nz_state, pred_ptr,
+                                  pred_src, pred_p, succ_ptr, succ_dst, succ_p, w)
         if bsum < RESCALE_BELOW:
             if bsum == 0.0:
                 return -np.inf, i + 1
-            cur *= 1.0 / bsum
+            _scale(cur, bsum)
             logscale += math.log(bsum)
-        cur, nxt = nxt, cur
-        if (i + 1) % block == 0:
-            bk = (i + 1) // block - 1
-            beta_ck[bk, :] = nxt
+        src = dst
+        if i + 1 == ckpos:
+            bk = ckpos // block - 1
+            ckpos -= block
+            for s in range(m):
+                beta_ck[bk, s] = cur[s]
             beta_ck_log[bk] = logscale
     # ---- pass 2: forward with per-block backward recomputation
     buf = np.empty((min(block, n), m))
-    alpha = np.empty(m)
-    alpha2 = np.empty(m)
+    frows = np.zeros((2, m))
+    fsrc = 0
     gamma = np.empty(m)
     flog = 0.0
     for bk in range(nblocks):
         b0 = bk * block
         b1 = min(n, b0 + block)
         # recompute backward vectors of this block (scale per row is irrelevant)
-        buf[b1 - 1 - b0, :] = beta_ck[bk, :]
+        for s in range(m):
+            buf[b1 - 1 - b0, s] = beta_ck[bk, s]
         for i in range(b1 - 2, b0 - 1, -1):
             row = buf[i - b0]
-            bsum = _backward_step(buf[i + 1 - b0], row, codes[i + 1], E, nz_ptr, nz_state,
-                                  succ_ptr, succ_dst, succ_p, w)
+            bsum = _backward_step_any(buf[i + 1 - b0], row, codes[i + 1], E, nz_ptr, nz_state,
+                                      pred_ptr, pred_src, pred_p, succ_ptr, succ_dst, succ_p,
+                                      w)
             if bsum < RESCALE_BELOW and bsum > 0.0:
-                row *= 1.0 / bsum
+                _scale(row, bsum)
         for i in range(b0, b1):
             if i == 0:
+                alpha = frows[0]
                 total = _first(start, alpha, codes[0], E, nz_ptr, nz_state)
             else:
-                total = _forward_step(alpha, alpha2, codes[i], E, nz_ptr, nz_state, pred_ptr,
-                                      pred_src, pred_p)
-                alpha, alpha2 = alpha2, alpha
+                fdst = 1 - fsrc
+                alpha = frows[fdst]
+                total = _forward_step(frows[fsrc], alpha, codes[i], E, nz_ptr, nz_state,
+                                      pred_ptr, pred_src, pred_p)
+                fsrc = fdst
             if total < RESCALE_BELOW:
                 if total == 0.0:
                     return -np.inf, i
-                alpha *= 1.0 / total
+                _scale(alpha, total)
                 flog += math.log(total)
             if i == b0:
-                alpha_ck[bk, :] = alpha
+                for s in range(m):
+                    alpha_ck[bk, s] = alpha[s]
                 alpha_ck_log[bk] = flog
             row = buf[i - b0]
             norm = 0.0
-            for s in range(m):
+            c = uintp(codes[i])
+            # only the emitting states have alpha > 0
+            for k in range(uintp(nz_ptr[c]), uintp(nz_ptr[c + _ONE])):
+                s = uintp(nz_state[k])
                 g = alpha[s] * row[s]
                 gamma[s] = g
                 norm += g
             if norm == 0.0:
                 return -np.inf, i
             inv = 1.0 / norm
-            for s in range(m):
+            for k in range(uintp(nz_ptr[c]), uintp(nz_ptr[c + _ONE])):
+                s = uintp(nz_state[k])
                 col = group[s]
                 if col >= 0:
                     out[i, col] += gamma[s] * inv
     final = 0.0
     for s in range(m):
-        final += alpha[s] * end[s]
+        final += frows[fsrc, s] * end[s]
     if final == 0.0:
         return -np.inf, n
     return math.log(final) + flog, -1
@@ -334,19 +409,23 @@ def restricted_forward(codes, s0, e0, init, init_is_start, mask, use_emissions, 
 @njit(**_JIT)
 def _viterbi_step(prev, cur, bp, code, logE, nz_ptr, nz_state, pred_ptr, pred_src, pred_logp):
     """One max-product step in log space; ties go to the lowest from-state index."""
-    cur[:] = -np.inf
+    m = cur.shape[0]
+    for s in range(m):
+        cur[s] = -np.inf
+    c = uintp(code)
     best_any = -np.inf
-    for k in range(nz_ptr[code], nz_ptr[code + 1]):
-        t = nz_state[k]
+    for k in range(uintp(nz_ptr[c]), uintp(nz_ptr[c + _ONE])):
+        t = uintp(nz_state[k])
         best = -np.inf
         arg = -1
-        for q in range(pred_ptr[t], pred_ptr[t + 1]):
-            v = prev[pred_src[q]] + pred_logp[q]
+        for q in range(uintp(pred_ptr[t]), uintp(pred_ptr[t + _ONE])):
+            p = pred_src[q]
+            v = prev[uintp(p)] + pred_logp[q]
             if v > best:
                 best = v
-                arg = pred_src[q]
+                arg = p
         if arg >= 0:
-            v = best + logE[code, t]
+            v = best + logE[c, t]
             cur[t] = v
             bp[t] = arg
             if v > best_any:
@@ -368,33 +447,41 @@ def viterbi_checkpointed(codes, log_start, log_end, logE, nz_ptr, nz_state, pred
     m = log_start.shape[0]
     nblocks = (n + block - 1) // block
     ck = np.empty((nblocks, m))
-    d = np.empty(m)
-    d2 = np.empty(m)
+    rows = np.empty((2, m))
     bp1 = np.empty(m, dtype=np.int32)
-    code = codes[0]
-    d[:] = -np.inf
+    d = rows[0]
+    c = uintp(codes[0])
+    for s in range(m):
+        d[s] = -np.inf
     anyv = -np.inf
-    for k in range(nz_ptr[code], nz_ptr[code + 1]):
-        t = nz_state[k]
-        v = log_start[t] + logE[code, t]
+    for k in range(uintp(nz_ptr[c]), uintp(nz_ptr[c + _ONE])):
+        t = uintp(nz_state[k])
+        v = log_start[t] + logE[c, t]
         d[t] = v
         if v > anyv:
             anyv = v
     if anyv == -np.inf:
         return -np.inf, 0
-    ck[0, :] = d
+    for s in range(m):
+        ck[0, s] = d[s]
+    src = 0
+    ckpos = block
     for i in range(1, n):
-        anyv = _viterbi_step(d, d2, bp1, codes[i], logE, nz_ptr, nz_state, pred_ptr, pred_src,
-                             pred_logp)
+        dst = 1 - src
+        d2 = rows[dst]
+        anyv = _viterbi_step(rows[src], d2, bp1, codes[i], logE, nz_ptr, nz_state, pred_ptr,
+                             pred_src, pred_logp)
         if anyv == -np.inf:
             return -np.inf, i
-        d, d2 = d2, d
-        if i % block == 0:
-            ck[i // block, :] = d
+        src = dst
+        if i == ckpos:
+            for s in range(m):
+                ck[i // block, s] = d2[s]
+            ckpos += block
     best = -np.inf
     state = -1
     for s in range(m):
-        v = d[s] + log_end[s]
+        v = rows[src, s] + log_end[s]
         if v > best:
             best = v
             state = s
@@ -405,18 +492,21 @@ def viterbi_checkpointed(codes, log_start, log_end, logE, nz_ptr, nz_state, pred
     for bk in range(nblocks - 1, -1, -1):
         b0 = bk * block
         b1 = min(n, b0 + block)
-        d[:] = ck[bk, :]
+        src = 0
+        for s in range(m):
+            rows[0, s] = ck[bk, s]
         for i in range(b0 + 1, b1):
-            _viterbi_step(d, d2, bps[i - b0], codes[i], logE, nz_ptr, nz_state, pred_ptr,
-                          pred_src, pred_logp)
-            d, d2 = d2, d
+            dst = 1 - src
+            _viterbi_step(rows[src], rows[dst], bps[i - b0], codes[i], logE, nz_ptr, nz_state,
+                          pred_ptr, pred_src, pred_logp)
+            src = dst
         if bk < nblocks - 1:
             # state at b1 is known (path[b1]); pick its predecessor at b1 - 1
             t = path[b1]
             bestp = -np.inf
             arg = -1
             for q in range(pred_ptr[t], pred_ptr[t + 1]):
-                v = d[pred_src[q]] + pred_logp[q]
+                v = rows[src, pred_src[q]] + pred_logp[q]
                 if v > bestp:
                     bestp = v
                     arg = pred_src[q]
