@@ -76,8 +76,8 @@ def main() -> None:
         shutil.rmtree(out)
     wall = statistics.median(walls)
     print()
-    print("| model | decode | length (Mbp) | wall (s, median of %d) | Mbp/s | peak RSS (MiB) |"
-          % args.repeat)
+    print(f"| model | decode | length (Mbp) | wall (s, median of {args.repeat}) | Mbp/s "
+          "| peak RSS (MiB) |")
     print("|---|---|---|---|---|---|")
     print(f"| {args.model} | {args.decode} | {n / 1e6:.1f} | {wall:.2f} | {n / 1e6 / wall:.2f} "
           f"| {max(rss):.0f} |")
