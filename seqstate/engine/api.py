@@ -223,7 +223,8 @@ def _raise_impossible(tables: EngineTables, codes: np.ndarray, record: str | Non
     if pos >= codes.shape[0] or pos < 0:
         msg = "no state that may end the sequence can be reached at its last base"
     else:
-        msg = f"has probability zero under the model: every state is impossible at position {pos + 1}"
+        msg = ("has probability zero under the model: every state is impossible at "
+               f"position {pos + 1}")
     raise ImpossibleSequenceError(f"{name} {msg}" if pos < codes.shape[0] else f"{name}: {msg}")
 
 

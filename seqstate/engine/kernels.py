@@ -34,6 +34,9 @@ from numba import njit, uintp
 RESCALE_BELOW = 1e-100
 
 _JIT = {"cache": True, "nogil": True, "error_model": "numpy"}
+#: Step helpers are inlined into the kernels (numba IR inlining): a call per position
+#: costs reference counting on every array argument.
+_STEP = dict(_JIT, inline="always")
 
 
 # ----------------------------------------------------------------- helpers
@@ -44,7 +47,7 @@ _JIT = {"cache": True, "nogil": True, "error_model": "numpy"}
 _ONE = uintp(1)
 
 
-@njit(**_JIT)
+@njit(**_STEP)
 def _forward_step(prev, cur, code, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p):
     """cur[t] = E[code, t] * sum_p prev[p] * a[p, t] for the emitting states; returns sum(cur)."""
     m = cur.shape[0]
@@ -63,7 +66,7 @@ def _forward_step(prev, cur, code, E, nz_ptr, nz_state, pred_ptr, pred_src, pred
     return total
 
 
-@njit(**_JIT)
+@njit(**_STEP)
 def _backward_step(nxt, cur, code_next, E, nz_ptr, nz_state, succ_ptr, succ_dst, succ_p, w):
     """cur[s] = sum_t a[s, t] * E[code_next, t] * nxt[t]; returns sum(cur).  ``w`` is scratch."""
     m = cur.shape[0]
@@ -83,7 +86,7 @@ def _backward_step(nxt, cur, code_next, E, nz_ptr, nz_state, succ_ptr, succ_dst,
     return total
 
 
-@njit(**_JIT)
+@njit(**_STEP)
 def _backward_step_any(nxt, cur, code_next, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p,
                        succ_ptr, succ_dst, succ_p, w):
     """:func:`_backward_step`, or the same sums scattered from the emitting states only.
@@ -116,7 +119,7 @@ def _backward_step_any(nxt, cur, code_next, E, nz_ptr, nz_state, pred_ptr, pred_
     return total
 
 
-@njit(**_JIT)
+@njit(**_STEP)
 def _first(start, cur, code, E, nz_ptr, nz_state):
     m = cur.shape[0]
     for s in range(m):
@@ -131,7 +134,7 @@ def _first(start, cur, code, E, nz_ptr, nz_state):
     return total
 
 
-@njit(**_JIT)
+@njit(**_STEP)
 def _scale(vec, total):
     inv = 1.0 / total
     for s in range(vec.shape[0]):
@@ -406,7 +409,7 @@ def restricted_forward(codes, s0, e0, init, init_is_start, mask, use_emissions, 
 
 
 # ----------------------------------------------------------------- Viterbi
-@njit(**_JIT)
+@njit(**_STEP)
 def _viterbi_step(prev, cur, bp, code, logE, nz_ptr, nz_state, pred_ptr, pred_src, pred_logp):
     """One max-product step in log space; ties go to the lowest from-state index."""
     m = cur.shape[0]
