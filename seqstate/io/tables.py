@@ -151,9 +151,13 @@ def _load_manifest(manifest: Path) -> Model:
     names = [s.name for s in states]
     # names are checked before tables so that a table error can trust them
     seen: set[str] = set()
-    for n in names:
+    headers = [i for i, line in enumerate(text.splitlines())
+               if line.strip().startswith("[[states]]")]
+    for i, n in enumerate(names):
         if n in seen:
-            raise ModelFormatError(f"duplicate state name '{n}' in [[states]]", path=manifest)
+            line0 = headers[i] if i < len(headers) else None
+            raise ModelFormatError(f"[[states]] entry {i + 1}: duplicate state name '{n}'",
+                                   path=manifest, line0=line0)
         seen.add(n)
     if order < 0 or order > 8:
         raise ModelFormatError(f"emission order {order} is outside 0..8", path=manifest)
@@ -179,6 +183,9 @@ def _load_manifest(manifest: Path) -> Model:
     emis_path = table_path("emissions", True)
     emissions, lower = _read_emissions(emis_path, names, alphabet, order, strict)
     provenance = doc.get("provenance", {})
+    if not isinstance(provenance, dict):
+        raise ModelFormatError("[provenance] must be a table of key = value lines",
+                               path=manifest)
     extra = {k: v for k, v in doc.items() if k not in _KNOWN_KEYS}
     model = Model(
         name=name,
@@ -261,7 +268,9 @@ def _read_vector(path: Path, names: list[str], column: str, strict: bool) -> np.
     values = np.zeros(len(names))
     given = np.zeros(len(names), dtype=bool)
     header_seen = False
+    last_line0 = None
     for line0, fields in _lines(path):
+        last_line0 = line0
         if not header_seen:
             header_seen = True
             if [f.strip() for f in fields] != ["state", column]:
@@ -280,6 +289,11 @@ def _read_vector(path: Path, names: list[str], column: str, strict: bool) -> np.
         values[s] = _number(fields[1], path, line0, f"state '{names[s]}'")
     if not header_seen:
         raise TableFormatError("table is empty", path=path)
+    if column == "start" and not strict and values.sum() <= 0:
+        raise TableFormatError("start probabilities sum to 0 and cannot be normalised",
+                               path=path, line0=last_line0)
+    if column == "start" and strict:
+        _check_sum(float(values.sum()), "start probabilities (all rows)", path, last_line0)
     return values
 
 
@@ -315,10 +329,13 @@ def _read_transitions(path: Path, names: list[str], end: np.ndarray | None,
         given[s] = True
         for c, cell in zip(columns, fields[1:]):
             table[s, c] = _number(cell, path, line0, f"row '{names[s]}' column '{names[c]}'")
+        total = table[s].sum() + (end[s] if end is not None else 0.0)
+        what = f"row '{names[s]}'" + (" (transitions plus end)" if end is not None else "")
         if strict:
-            total = table[s].sum() + (end[s] if end is not None else 0.0)
-            what = f"row '{names[s]}'" + (" (transitions plus end)" if end is not None else "")
             _check_sum(float(total), what, path, line0)
+        elif total <= 0:
+            raise TableFormatError(f"{what} sums to 0 and cannot be normalised", path=path,
+                                   line0=line0)
     if columns is None:
         raise TableFormatError("table is empty", path=path)
     missing = [names[i] for i in range(m) if not given[i]]
@@ -374,10 +391,12 @@ def _read_emissions(path: Path, names: list[str], alphabet: str, order: int,
         for col, cell in zip(columns, fields[2:]):
             row[col] = _number(cell, path, line0,
                                f"state '{names[s]}' context '{ctx or EMPTY_CONTEXT}'")
+        what = f"row for state '{names[s]}' context '{ctx or EMPTY_CONTEXT}'"
         if strict:
-            _check_sum(float(row.sum()),
-                       f"row for state '{names[s]}' context '{ctx or EMPTY_CONTEXT}'",
-                       path, line0)
+            _check_sum(float(row.sum()), what, path, line0)
+        elif row.sum() <= 0:
+            raise TableFormatError(f"{what} sums to 0 and cannot be normalised", path=path,
+                                   line0=line0)
         target[s, c] = row
     if columns is None:
         raise TableFormatError("table is empty", path=path)
