@@ -24,6 +24,7 @@ class _Group(click.Group):
         args = list(sys.argv[1:] if args is None else args)
         debug = "--debug" in args
         try:
+            kwargs.setdefault("obj", {"argv": list(args)})
             return super().main(args=args, prog_name=prog_name or "seqstate",
                                 standalone_mode=False, **kwargs)
         except click.exceptions.Exit as exc:
@@ -59,6 +60,12 @@ def main(debug: bool) -> None:
 
     For research annotation only; not for clinical or diagnostic decisions.
     """
+
+
+def command_line(obj: dict | None) -> list[str]:
+    """The command as it was given to :func:`main` (for run reports and provenance)."""
+    argv = (obj or {}).get("argv")
+    return ["seqstate", *(sys.argv[1:] if argv is None else argv)]
 
 
 # ---------------------------------------------------------------- model
@@ -153,7 +160,8 @@ def summary(m, path: str, sha: str) -> str:
 @click.option("--precision", type=click.IntRange(0, 8), default=4, show_default=True,
               help="Decimals of the posterior values in tracks.")
 @click.option("-q", "--quiet", is_flag=True, help="No progress or summary on stderr.")
-def annotate_cmd(fasta, model, out_dir, decode, min_posterior, min_length, region, masked,
+@click.pass_obj
+def annotate_cmd(obj, fasta, model, out_dir, decode, min_posterior, min_length, region, masked,
                  tracks, precision, quiet) -> None:
     """Annotate the records of FASTA (plain or gzip; '-' for stdin) with a model."""
     from seqstate.pipeline import AnnotateOptions, annotate
@@ -161,7 +169,7 @@ def annotate_cmd(fasta, model, out_dir, decode, min_posterior, min_length, regio
     opts = AnnotateOptions(
         input=fasta, model=model, out_dir=out_dir, decode=decode,
         min_posterior=min_posterior, min_length=min_length, region=region, masked=masked,
-        tracks=tracks, precision=precision, command_line=["seqstate", *sys.argv[1:]],
+        tracks=tracks, precision=precision, command_line=command_line(obj),
     )
     report = annotate(opts, progress_enabled=(not quiet) and sys.stderr.isatty())
     if not quiet:
@@ -186,6 +194,243 @@ def sample_cmd(model, length, records, seed, out_fasta, truth, prefix) -> None:
 
     sample(SampleOptions(model=model, length=length, records=records, seed=seed,
                          out_fasta=out_fasta, truth_gff3=truth, prefix=prefix))
+
+
+# ---------------------------------------------------------------- score
+@main.command("score")
+@click.argument("fasta")
+@click.option(
+    "--regions",
+    required=True,
+    help="Regions to score: BED (0-based half-open) or GFF3 (1-based closed), "
+    "plain or gzip; '-' for stdin.",
+)
+@click.option(
+    "-m",
+    "--model",
+    default="cpg-island",
+    show_default=True,
+    help="Built-in model NAME or model PATH.",
+)
+@click.option(
+    "--label",
+    default=None,
+    help="Label to score (its states against the rest); default: the model's only label.",
+)
+@click.option(
+    "-o", "--out", "out_tsv", default=None, help="TSV file to write; default: standard output."
+)
+@click.option(
+    "--gff",
+    "out_gff",
+    default=None,
+    help="Also write the regions with their scores as GFF3 ('-' for stdout).",
+)
+@click.option(
+    "--flank",
+    type=click.IntRange(min=0),
+    default=None,
+    help="Compute on each region plus N bases each side instead of the whole "
+    "record (faster; see the docs for what changes).",
+)
+@click.option(
+    "--regions-format",
+    type=click.Choice(["auto", "bed", "gff3"]),
+    default="auto",
+    show_default=True,
+    help="Format of --regions; auto: by name, else by content.",
+)
+@click.option(
+    "--type", "types", multiple=True, help="GFF3 regions: only features of this type (repeatable)."
+)
+@click.option(
+    "--masked",
+    type=click.Choice(["base", "unknown"]),
+    default="base",
+    show_default=True,
+    help="Read lowercase (soft-masked) bases as their base or as unknown.",
+)
+@click.option("-q", "--quiet", is_flag=True, help="No summary on stderr.")
+def score_cmd(
+    fasta, regions, model, label, out_tsv, out_gff, flank, regions_format, types, masked, quiet
+) -> None:
+    """Score given REGIONS of FASTA (plain or gzip; '-' for stdin) under a model's label."""
+    from seqstate.score import ScoreOptions, score
+
+    result = score(
+        ScoreOptions(
+            input=fasta,
+            regions=regions,
+            model=model,
+            label=label,
+            out_tsv=out_tsv,
+            out_gff=out_gff,
+            flank=flank,
+            regions_format=None if regions_format == "auto" else regions_format,
+            types=tuple(types),
+            masked=masked,
+        )
+    )
+    if result.stdout is not None:
+        click.echo(result.stdout, nl=False)
+    if not quiet:
+        where = out_tsv if out_tsv not in (None, "-") else "stdout"
+        click.echo(
+            f"seqstate: {result.regions} region(s) ({result.format}) scored for "
+            f"{result.label} -> {where}",
+            err=True,
+        )
+
+
+# ---------------------------------------------------------------- plot
+@main.command("plot")
+@click.argument("fasta")
+@click.option(
+    "--region", required=True, help="ID:START-END (1-based, inclusive) or ID for a whole record."
+)
+@click.option(
+    "-m",
+    "--model",
+    default="cpg-island",
+    show_default=True,
+    help="Built-in model NAME or model PATH.",
+)
+@click.option(
+    "-o",
+    "--out",
+    "out",
+    required=True,
+    help="Figure file: .png, .svg or .pdf (the format follows the name).",
+)
+@click.option("--reference", default=None, help="GFF3 or BED features to show in their own lane.")
+@click.option(
+    "--flank",
+    type=click.IntRange(min=0),
+    default=None,
+    help="Compute on the region plus N bases each side instead of the whole record.",
+)
+@click.option("--width", type=float, default=10.0, show_default=True, help="Inches.")
+@click.option("--height", type=float, default=4.0, show_default=True, help="Inches.")
+@click.option(
+    "--dpi",
+    type=int,
+    default=100,
+    show_default=True,
+    help="Dots per inch (PNG pixels = inches x dpi).",
+)
+@click.option("--force", is_flag=True, help="Allow regions over 2,000,000 bases.")
+@click.option(
+    "--decode",
+    type=click.Choice(["posterior", "viterbi"]),
+    default=None,
+    help="Feature decoding; default: the model's.",
+)
+@click.option(
+    "--min-posterior",
+    type=float,
+    default=0.5,
+    show_default=True,
+    help="Posterior decoding: smallest per-base label posterior inside a feature.",
+)
+@click.option(
+    "--min-length",
+    type=int,
+    default=1,
+    show_default=True,
+    help="Shortest feature to show, in bases.",
+)
+@click.option(
+    "--masked",
+    type=click.Choice(["base", "unknown"]),
+    default="base",
+    show_default=True,
+    help="Read lowercase (soft-masked) bases as their base or as unknown.",
+)
+@click.option("-q", "--quiet", is_flag=True, help="No summary on stderr.")
+def plot_cmd(
+    fasta,
+    region,
+    model,
+    out,
+    reference,
+    flank,
+    width,
+    height,
+    dpi,
+    force,
+    decode,
+    min_posterior,
+    min_length,
+    masked,
+    quiet,
+) -> None:
+    """Draw posteriors and features of one region of FASTA (needs the 'plot' extra)."""
+    from seqstate.plot import PlotOptions, plot
+
+    result = plot(
+        PlotOptions(
+            input=fasta,
+            region=region,
+            out=out,
+            model=model,
+            reference=reference,
+            flank=flank,
+            width=width,
+            height=height,
+            dpi=dpi,
+            force=force,
+            decode=decode,
+            min_posterior=min_posterior,
+            min_length=min_length,
+            masked=masked,
+        )
+    )
+    if not quiet:
+        ref = f", {result.reference} reference" if reference is not None else ""
+        click.echo(
+            f"seqstate: {result.region}, {result.decoded} decoded{ref} feature(s) -> {out}",
+            err=True,
+        )
+
+
+@main.command("fit")
+@click.option("-m", "--model", required=True, help="Start model: built-in NAME or PATH.")
+@click.option("--fasta", required=True, help="Sequences to fit to (FASTA, plain or gzip).")
+@click.option("--labels", default=None,
+              help="Known features, GFF3 (type = label) or BED (name = label): count the "
+              "states they give.")
+@click.option("--labels-format", type=click.Choice(["auto", "gff3", "bed"]), default="auto",
+              show_default=True, help="Format of --labels (auto: by file name, then content).")
+@click.option("--em", is_flag=True, help="Refine by Baum-Welch (after counting, if --labels).")
+@click.option("--max-iter", type=int, default=50, show_default=True,
+              help="EM: most updates.")
+@click.option("--tol", type=float, default=1e-4, show_default=True,
+              help="EM: stop when the relative gain (change / |log-likelihood|) is below this.")
+@click.option("--freeze", multiple=True, metavar="PART",
+              help="Keep start, transitions, emissions or a STATE (its transition and "
+              "emission rows) as in the start model; repeatable.")
+@click.option("--pseudocount", type=float, default=None,
+              help="Added to every allowed cell's count [default: 1 for counting, 0 for EM].")
+@click.option("--masked", type=click.Choice(["base", "unknown"]), default="base",
+              show_default=True, help="Read lowercase (soft-masked) bases as their base or as "
+              "unknown.")
+@click.option("--name", default=None, help="Name of the fitted model [default: folder name].")
+@click.option("-o", "--out", "out_dir", required=True, help="Model folder to write.")
+@click.option("--force", is_flag=True, help="Replace an existing model folder at --out.")
+@click.option("-q", "--quiet", is_flag=True, help="No progress lines on stderr.")
+def fit_cmd(model, fasta, labels, labels_format, em, max_iter, tol, freeze, pseudocount,
+            masked, name, out_dir, force, quiet) -> None:
+    """Fit a model's tables to sequences: count from known features and/or Baum-Welch."""
+    from seqstate.fit import FitOptions, fit, stderr_log
+
+    opts = FitOptions(model=model, fasta=fasta, out=out_dir, labels=labels,
+                      labels_format=labels_format, em=em, max_iter=max_iter, tol=tol,
+                      freeze=list(freeze), pseudocount=pseudocount, masked=masked, name=name,
+                      force=force, command_line=["seqstate", *sys.argv[1:]])
+    report = fit(opts, log=(lambda _: None) if quiet else stderr_log)
+    if not quiet:
+        click.echo(f"seqstate: {report.method}: log-likelihood {report.loglik:.6f} (natural "
+                   f"log) -> {report.out}/", err=True)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -118,6 +118,45 @@ def segments_from_path(path: np.ndarray, state_group: np.ndarray,
     return segs
 
 
+#: Runs of at least this many unknown bases split a feature; unknown bases are also
+#: trimmed from both ends of every feature.
+UNKNOWN_SPLIT = 10
+
+
+def split_at_unknown(segs: list[Segment], unknown: np.ndarray,
+                     min_length: int = 1) -> list[Segment]:
+    """Cut features at runs of >= :data:`UNKNOWN_SPLIT` unknown bases and trim unknown ends.
+
+    ``unknown`` is a boolean per base of the record.  The model marginalises unknown
+    bases, so a label's posterior can stay high across them; a feature must not
+    claim bases that were never seen.  Pieces shorter than ``min_length`` are dropped.
+    """
+    if not unknown.any():
+        return segs
+    out: list[Segment] = []
+    for seg in segs:
+        u = unknown[seg.start0:seg.end0]
+        if not u.any():
+            out.append(seg)
+            continue
+        padded = np.concatenate([[False], u, [False]])
+        edges = np.flatnonzero(padded[1:] != padded[:-1])
+        cuts = [(int(a), int(b)) for a, b in zip(edges[0::2], edges[1::2])]
+        pieces = []
+        lo = 0
+        for a, b in cuts:
+            if b - a >= UNKNOWN_SPLIT or a == 0 or b == len(u):
+                if a > lo:
+                    pieces.append((lo, a))
+                lo = b
+        if lo < len(u):
+            pieces.append((lo, len(u)))
+        for a, b in pieces:
+            if b - a >= min_length:
+                out.append(Segment(seg.group, seg.start0 + a, seg.start0 + b))
+    return out
+
+
 def score_segment(tables: api.EngineTables, codes: np.ndarray, post: api.Posterior,
                   group_values: np.ndarray, mask: np.ndarray, start0: int,
                   end0: int) -> dict:
@@ -146,20 +185,22 @@ def cpg_statistics(seq: bytes) -> dict:
     O/E = CpG count * length / (C count * G count) (Gardiner-Garden & Frommer 1987,
     J. Mol. Biol. 196:261); 0 when there is no C or no G.  Counts are over
     upper-cased bases; G+C counts G, C and S over the bases that are G, C, S, A,
-    T, U or W (other ambiguity codes and N left out); the O/E length counts every
-    base.  Flags: ``meets_ggf1987`` (length >= 200, G+C > 0.5,
+    T, U or W (other ambiguity codes and N left out); the O/E length counts the
+    known bases (A, C, G, T) only, so unknown bases do not inflate the ratio.
+    ``length`` is the feature's length in bases, unknown bases included.  Flags: ``meets_ggf1987`` (length >= 200, G+C > 0.5,
     O/E > 0.6) and ``meets_tj2002`` (Takai & Jones 2002, PNAS 99:3740: length >=
     500, G+C >= 0.55, O/E >= 0.65).
     """
     up = seq.upper()
     n = len(up)
+    known = sum(up.count(ch) for ch in (b"A", b"C", b"G", b"T"))
     c = up.count(b"C")
     g = up.count(b"G")
     s = up.count(b"S")
     cg = up.count(b"CG")
     acgt = sum(up.count(ch) for ch in (b"A", b"C", b"G", b"T", b"U", b"S", b"W"))
     gc = (c + g + s) / acgt if acgt else 0.0
-    oe = cg * n / (c * g) if c and g else 0.0
+    oe = cg * known / (c * g) if c and g else 0.0
     return {
         "length": n,
         "gc_fraction": gc,

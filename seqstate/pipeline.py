@@ -26,10 +26,11 @@ from seqstate.decode import (
     score_segment,
     segments_from_path,
     segments_from_posterior,
+    split_at_unknown,
     track_groups,
 )
 from seqstate.engine import api
-from seqstate.errors import SequenceFormatError, UsageError
+from seqstate.errors import ImpossibleSequenceError, SequenceFormatError, UsageError
 from seqstate.io import tracks
 from seqstate.io.atomic import OutputSet
 from seqstate.io.fasta import Record, read_fasta
@@ -234,6 +235,15 @@ def annotate(opts: AnnotateOptions, *, progress_enabled: bool = False) -> dict:
     }
     report["options"]["decode"] = decode
     progress = Progress(sum(e - s for _, s, e in spans), progress_enabled)
+    try:
+        return _annotate_into(opts, model, decode, tables, groups, state_group, spans, stem,
+                              want_bedgraph, want_bigwig, report, progress)
+    except ImpossibleSequenceError as exc:
+        raise ImpossibleSequenceError(exc.message, path=opts.input) from None
+
+
+def _annotate_into(opts, model, decode, tables, groups, state_group, spans, stem,
+                   want_bedgraph, want_bigwig, report, progress) -> dict:
     with OutputSet(opts.out_dir) as outs:
         gff_name = f"{stem}.gff3"
         tsv_name = f"{stem}.features.tsv"
@@ -275,6 +285,7 @@ def annotate(opts: AnnotateOptions, *, progress_enabled: bool = False) -> dict:
                 del path
             else:
                 segs = segments_from_posterior(post.values, opts.min_posterior, opts.min_length)
+            segs = split_at_unknown(segs, sym < 0, opts.min_length)
             score_segments(model, tables, codes, post, groups, segs, seq)
             counters = [0] * len(groups)
             for seg in segs:
