@@ -254,7 +254,7 @@ def sample_cmd(model, length, records, seed, out_fasta, truth, prefix) -> None:
 def score_cmd(
     fasta, regions, model, label, out_tsv, out_gff, flank, regions_format, types, masked, quiet
 ) -> None:
-    """Score given REGIONS of FASTA (plain or gzip; '-' for stdin) under a model's label."""
+    """Score the --regions on the records of FASTA (plain or gzip; '-' for stdin)."""
     from seqstate.score import ScoreOptions, score
 
     result = score(
@@ -418,7 +418,8 @@ def plot_cmd(
 @click.option("-o", "--out", "out_dir", required=True, help="Model folder to write.")
 @click.option("--force", is_flag=True, help="Replace an existing model folder at --out.")
 @click.option("-q", "--quiet", is_flag=True, help="No progress lines on stderr.")
-def fit_cmd(model, fasta, labels, labels_format, em, max_iter, tol, freeze, pseudocount,
+@click.pass_obj
+def fit_cmd(obj, model, fasta, labels, labels_format, em, max_iter, tol, freeze, pseudocount,
             masked, name, out_dir, force, quiet) -> None:
     """Fit a model's tables to sequences: count from known features and/or Baum-Welch."""
     from seqstate.fit import FitOptions, fit, stderr_log
@@ -426,7 +427,7 @@ def fit_cmd(model, fasta, labels, labels_format, em, max_iter, tol, freeze, pseu
     opts = FitOptions(model=model, fasta=fasta, out=out_dir, labels=labels,
                       labels_format=labels_format, em=em, max_iter=max_iter, tol=tol,
                       freeze=list(freeze), pseudocount=pseudocount, masked=masked, name=name,
-                      force=force, command_line=["seqstate", *sys.argv[1:]])
+                      force=force, command_line=command_line(obj))
     report = fit(opts, log=(lambda _: None) if quiet else stderr_log)
     if not quiet:
         click.echo(f"seqstate: {report.method}: log-likelihood {report.loglik:.6f} (natural "

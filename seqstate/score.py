@@ -1,0 +1,569 @@
+"""``seqstate score``: posterior scores of given regions (candidate intervals).
+
+Regions come from a BED file (0-based half-open, kept as written) or a GFF3 file
+(1-based closed, read as ``start - 1`` and ``end``); inside this module every
+region is 0-based half-open ``[start0, end0)`` on one record.  The output table
+writes the coordinates back in the input's convention and says which in its
+column names: ``start_0based``/``end_exclusive`` for BED, ``start_1based``/
+``end_1based`` for GFF3 (the same names as annotate's feature table).
+
+Scores are those annotate gives its features (mean and minimum posterior, the
+exact segment probability, log-odds in natural log and bits, CpG statistics),
+plus the maximum posterior, for one label of the model: the label's states
+against all the other states.  Posteriors are computed on the whole record, so
+sequence outside a region counts; with ``flank=N`` each region is computed on
+its own window (region plus N bases each side, cut at the record ends), which
+is treated as a record of its own.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+import re
+import sys
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TextIO
+
+import numpy as np
+
+from seqstate.decode import LOG2E, cpg_statistics, score_segment
+from seqstate.engine import api
+from seqstate.errors import FeatureFormatError, ImpossibleSequenceError, UsageError
+from seqstate.io.atomic import atomic_text
+from seqstate.io.bed import read_bed
+from seqstate.io.fasta import Record, display_name, iter_lines, open_input
+from seqstate.io.gff3 import Feature, GFF3Writer, iter_gff3
+from seqstate.io.tables import load_model
+from seqstate.model import Model
+from seqstate.pipeline import DNA, SCORE_FORMATS, _check_symbols, _fmt, read_records
+
+__all__ = [
+    "REGION_FORMATS",
+    "InputRegion",
+    "RegionFile",
+    "ScoreOptions",
+    "ScoreResult",
+    "choose_label",
+    "detect_region_format",
+    "check_regions",
+    "read_regions",
+    "score",
+    "score_columns",
+    "score_regions",
+    "table_text",
+    "write_scored_gff3",
+]
+
+#: Formats of a regions file.
+REGION_FORMATS = ("bed", "gff3")
+
+#: Column names of the two coordinates, by input format (the convention is in the name).
+COORDINATE_COLUMNS = {
+    "bed": ("start_0based", "end_exclusive"),
+    "gff3": ("start_1based", "end_1based"),
+}
+#: Score columns every row has, in order (after seqid, the coordinates, name, length, label).
+POSTERIOR_COLUMNS = [
+    "mean_posterior",
+    "min_posterior",
+    "max_posterior",
+    "segment_probability",
+    "log_odds_nat",
+    "log_odds_bits",
+]
+#: Further columns when the label is ``CpG_island``.
+CPG_COLUMNS = ["gc_fraction", "cpg_count", "cpg_oe", "meets_ggf1987", "meets_tj2002"]
+FORMATS = {**SCORE_FORMATS, "max_posterior": ".4f"}
+#: Type written to ``--gff`` for regions read from BED (Sequence Ontology SO:0000001).
+BED_FEATURE_TYPE = "region"
+CPG_LABEL = "CpG_island"
+
+_SNIFF_LINES = 1000
+_KNOWN_SHOWN = 5
+
+
+# ---------------------------------------------------------------- reading regions
+
+
+@dataclass
+class InputRegion:
+    """One region to score: bases ``start0 .. end0-1`` of ``seqid`` (0-based half-open).
+
+    ``name`` is BED column 4, or the GFF3 ``ID`` (else ``Name``) attribute, or
+    ``""``.  ``strand`` is '+', '-', '.' (also for a BED line without column 6)
+    or '?'.  ``line0`` is the 0-based line of the input.  For GFF3 input
+    ``type``, ``phase`` and ``attributes`` keep the rest of the line.
+    """
+
+    seqid: str
+    start0: int
+    end0: int
+    name: str
+    strand: str
+    line0: int
+    type: str | None = None
+    phase: int | None = None
+    attributes: list[tuple[str, str | list[str]]] = field(default_factory=list)
+
+
+@dataclass
+class RegionFile:
+    """The regions of one file, in file order, and how the file was read.
+
+    ``path`` is the name used in messages (``<stdin>`` for ``-``); ``format``
+    is ``"bed"`` or ``"gff3"``.
+    """
+
+    path: str
+    format: str
+    regions: list[InputRegion]
+
+    def span_text(self, region: InputRegion) -> str:
+        """The region's bounds as written in its file, with the convention named."""
+        if self.format == "bed":
+            return f"interval {region.start0}-{region.end0} (BED, 0-based half-open)"
+        return f"feature {region.start0 + 1}-{region.end0} (GFF3, 1-based closed)"
+
+
+def _format_by_name(path: str) -> str | None:
+    name = Path(path).name.lower()
+    name = re.sub(r"\.(gz|bgz)$", "", name)
+    if name.endswith(".bed"):
+        return "bed"
+    if name.endswith((".gff3", ".gff")):
+        return "gff3"
+    return None
+
+
+def detect_region_format(lines: list[bytes]) -> str:
+    """``"gff3"`` or ``"bed"`` from the first lines of a file (decompressed bytes).
+
+    A ``##gff-version`` line, or a first data line with nine tab-separated
+    columns whose 4th and 5th are whole numbers, 7th a GFF3 strand and 8th a
+    phase, means GFF3; anything else (``track``/``browser`` lines, three or
+    more BED columns, an empty file) means BED.
+    """
+    for raw in lines:
+        line = raw.decode("utf-8", errors="replace").rstrip("\r\n")
+        if not line.strip():
+            continue
+        if line.startswith("##gff-version"):
+            return "gff3"
+        if line.startswith("#"):
+            continue
+        cols = line.split("\t")
+        if (
+            len(cols) == 9
+            and cols[3].isdigit()
+            and cols[4].isdigit()
+            and cols[6] in ("+", "-", ".", "?")
+            and cols[7] in ("0", "1", "2", ".")
+        ):
+            return "gff3"
+        return "bed"
+    return "bed"
+
+
+@contextmanager
+def _stdin_from(data: bytes) -> Iterator[None]:
+    """Standard input replaced by ``data`` (already read and decompressed) for a reader."""
+    saved = sys.stdin
+    sys.stdin = io.TextIOWrapper(io.BytesIO(data), encoding="utf-8")
+    try:
+        yield
+    finally:
+        sys.stdin = saved
+
+
+def _read_stdin_bytes(shown: str) -> bytes:
+    with open_input("-", FeatureFormatError, "BED or GFF3") as handle:
+        return b"".join(raw for _, raw in iter_lines(handle, shown, FeatureFormatError))
+
+
+def _sniff_file(path: str, shown: str) -> str:
+    head: list[bytes] = []
+    with open_input(path, FeatureFormatError, "BED or GFF3") as handle:
+        for line0, raw in iter_lines(handle, shown, FeatureFormatError):
+            head.append(raw)
+            stripped = raw.strip()
+            if line0 >= _SNIFF_LINES or (stripped and not stripped.startswith(b"#")):
+                break
+    return detect_region_format(head)
+
+
+def _parse(path: str, fmt: str, types: set[str] | None) -> list[InputRegion]:
+    out: list[InputRegion] = []
+    if fmt == "bed":
+        for iv in read_bed(path):
+            out.append(
+                InputRegion(iv.seqid, iv.start0, iv.end0, iv.name or "", iv.strand or ".", iv.line0)
+            )
+        return out
+    for feat in iter_gff3(path, types=types):
+        name = feat.get("ID") or feat.get("Name") or ""
+        out.append(
+            InputRegion(
+                feat.seqid,
+                feat.start0,
+                feat.end0,
+                name,
+                feat.strand,
+                feat.line0 if feat.line0 is not None else -1,
+                feat.type,
+                feat.phase,
+                list(feat.attributes),
+            )
+        )
+    return out
+
+
+def read_regions(path: str, fmt: str | None = None, types: set[str] | None = None) -> RegionFile:
+    """Read a regions file: BED or GFF3, plain or gzip, ``"-"`` for standard input.
+
+    ``fmt`` is ``"bed"``, ``"gff3"`` or None (detect: by the name ending ``.bed``,
+    ``.gff3`` or ``.gff``, optionally followed by ``.gz``; otherwise by content,
+    see :func:`detect_region_format`).  ``types`` keeps only GFF3 features of
+    those column-3 types (ignored for BED).  Regions are 0-based half-open, in
+    file order.  Malformed lines raise
+    :class:`~seqstate.errors.FeatureFormatError` with the file and line.
+    """
+    if fmt is not None and fmt not in REGION_FORMATS:
+        raise UsageError(f"regions format {fmt!r} is not one of {', '.join(REGION_FORMATS)}")
+    shown = display_name(path)
+    if str(path) == "-":
+        data = _read_stdin_bytes(shown)
+        fmt = fmt or detect_region_format(data.splitlines(keepends=True)[:_SNIFF_LINES])
+        with _stdin_from(data):
+            regions = _parse("-", fmt, types)
+        return RegionFile(shown, fmt, regions)
+    fmt = fmt or _format_by_name(str(path)) or _sniff_file(str(path), shown)
+    return RegionFile(shown, fmt, _parse(str(path), fmt, types))
+
+
+def check_regions(rf: RegionFile, lengths: dict[str, int], fasta_shown: str) -> None:
+    """Every region must be on a record of the FASTA, non-empty and inside it.
+
+    ``lengths`` maps record ID to length (bases), in input order.  Raises
+    :class:`~seqstate.errors.FeatureFormatError` naming the regions file and
+    the line of the first bad region.
+    """
+    known = list(lengths)
+    listing = ", ".join(known[:_KNOWN_SHOWN])
+    if len(known) > _KNOWN_SHOWN:
+        listing += f", ... ({len(known)} records in all)"
+    for reg in rf.regions:
+        length = lengths.get(reg.seqid)
+        if length is None:
+            raise FeatureFormatError(
+                f"no record '{reg.seqid}' in {fasta_shown} (known records: {listing})",
+                path=rf.path,
+                line0=reg.line0,
+            )
+        if reg.end0 <= reg.start0:
+            raise FeatureFormatError(
+                f"{rf.span_text(reg)} is empty; expected at least one base",
+                path=rf.path,
+                line0=reg.line0,
+            )
+        if reg.end0 > length:
+            raise FeatureFormatError(
+                f"{rf.span_text(reg)} ends past the end of record '{reg.seqid}' (length {length})",
+                path=rf.path,
+                line0=reg.line0,
+            )
+
+
+# ---------------------------------------------------------------- scoring
+
+
+def choose_label(model: Model, label: str | None) -> str:
+    """``label`` checked against the model's labels; the only label when None.
+
+    Raises :class:`~seqstate.errors.UsageError` when the model has no label,
+    when ``label`` is None and the model has several (they are listed), or
+    when ``label`` is not one of them.
+    """
+    labels = model.labels
+    if not labels:
+        raise UsageError(f"model '{model.name}' has no labelled states: nothing to score")
+    if label is None:
+        if len(labels) > 1:
+            raise UsageError(
+                f"model '{model.name}' has labels {', '.join(labels)}: choose one with --label"
+            )
+        return labels[0]
+    if label not in labels:
+        raise UsageError(
+            f"label '{label}' is not a label of model '{model.name}' (labels: {', '.join(labels)})"
+        )
+    return label
+
+
+def score_columns(label: str) -> list[str]:
+    """The score keys of each result for ``label``, in table order."""
+    return ["length", *POSTERIOR_COLUMNS] + (CPG_COLUMNS if label == CPG_LABEL else [])
+
+
+def _score_one(
+    tables: api.EngineTables,
+    codes: np.ndarray,
+    post: api.Posterior,
+    mask: np.ndarray,
+    start0: int,
+    end0: int,
+    seq: bytes,
+    cpg: bool,
+) -> dict:
+    sc = score_segment(tables, codes, post, post.values[:, 0], mask, start0, end0)
+    out = {"length": end0 - start0}
+    for key in POSTERIOR_COLUMNS:
+        if key == "max_posterior":
+            out[key] = float(np.max(post.values[start0:end0, 0]))
+        else:
+            out[key] = sc[key]
+    lo = out["log_odds_nat"]
+    out["log_odds_bits"] = lo * LOG2E if math.isfinite(lo) else lo
+    if cpg:
+        stats = cpg_statistics(seq[start0:end0])
+        for key in CPG_COLUMNS:
+            out[key] = stats[key]
+    return out
+
+
+def score_regions(
+    model: Model,
+    records: list[Record],
+    regions: list[InputRegion],
+    label: str,
+    *,
+    flank: int | None = None,
+    masked: str = "base",
+) -> list[dict]:
+    """Scores of every region (0-based half-open, already checked), in the order given.
+
+    For each region: ``length`` (bases); ``mean_posterior``, ``min_posterior``
+    and ``max_posterior`` of the label's per-base posterior (the sum over the
+    label's states, both strands); ``segment_probability``, the exact
+    P(every base of the region is in a state of the label | sequence);
+    ``log_odds_nat``/``log_odds_bits``, the region's log-odds under the label's
+    states against the other states (natural log, base 2); and for the label
+    ``CpG_island`` the G+C fraction, CpG count, O/E ratio and the two published
+    criteria flags (see :func:`seqstate.decode.cpg_statistics`).
+
+    With ``flank=None`` the posteriors come from the whole record (one pass per
+    record that has regions).  With ``flank=N`` each region is computed on the
+    window ``[start0 - N, end0 + N)`` cut at the record ends, as if the window
+    were a record: the model's start probabilities apply at its first base, its
+    end probabilities (if any) at its last, and the first ``order`` bases use
+    the shorter-context emission rows.  ``masked`` is ``"base"`` or
+    ``"unknown"`` (lowercase bases read as unknown), as in annotate.
+    """
+    if flank is not None and flank < 0:
+        raise UsageError(f"--flank {flank} must be 0 or more")
+    tables = api.prepare(model)
+    mask = np.array([s.label == label for s in model.states], dtype=np.bool_)
+    group = np.where(mask, 0, -1).astype(np.int64)
+    unknown = masked == "unknown"
+    cpg = label == CPG_LABEL
+    by_record: dict[str, list[int]] = {}
+    for i, reg in enumerate(regions):
+        by_record.setdefault(reg.seqid, []).append(i)
+    results: list[dict | None] = [None] * len(regions)
+    for rec in records:
+        idx = by_record.get(rec.id)
+        if not idx:
+            continue
+        if flank is None:
+            codes = api.encode(tables, rec.seq, masked_unknown=unknown)
+            post = api.posterior(tables, codes, group=group, n_groups=1, record=rec.id)
+            for i in idx:
+                reg = regions[i]
+                results[i] = _score_one(
+                    tables, codes, post, mask, reg.start0, reg.end0, rec.seq, cpg
+                )
+            del post, codes
+            continue
+        for i in idx:
+            reg = regions[i]
+            w0 = max(0, reg.start0 - flank)
+            w1 = min(len(rec.seq), reg.end0 + flank)
+            window = rec.seq[w0:w1]
+            codes = api.encode(tables, window, masked_unknown=unknown)
+            post = api.posterior(
+                tables, codes, group=group, n_groups=1, record=f"{rec.id}:{w0 + 1}-{w1}"
+            )
+            results[i] = _score_one(
+                tables, codes, post, mask, reg.start0 - w0, reg.end0 - w0, window, cpg
+            )
+    missing = [regions[i].seqid for i, r in enumerate(results) if r is None]
+    if missing:
+        raise ValueError(f"regions on records not given: {sorted(set(missing))}")
+    return results  # type: ignore[return-value]
+
+
+# ---------------------------------------------------------------- writing
+
+
+def table_text(rf: RegionFile, label: str, scores: list[dict]) -> str:
+    """The TSV: a header row, then one row per region in input order."""
+    start_col, end_col = COORDINATE_COLUMNS[rf.format]
+    keys = score_columns(label)
+    header = ["seqid", start_col, end_col, "name", "label", *keys]
+    lines = ["\t".join(header)]
+    for reg, sc in zip(rf.regions, scores):
+        start = reg.start0 if rf.format == "bed" else reg.start0 + 1
+        name = " ".join(reg.name.replace("\t", " ").split())
+        row = [reg.seqid, str(start), str(reg.end0), name, label]
+        row += [_fmt(sc[k], FORMATS[k]) for k in keys]
+        lines.append("\t".join(row))
+    return "\n".join(lines) + "\n"
+
+
+def write_scored_gff3(
+    handle: TextIO, rf: RegionFile, label: str, scores: list[dict], records: list[Record]
+) -> None:
+    """The regions as GFF3 features (1-based closed) carrying their scores.
+
+    Type, phase and attributes of GFF3 input are kept (attributes with the names
+    of our scores are replaced); BED regions get type ``region`` and their name
+    as ``Name``.  Column 6 is the mean posterior, as in annotate's GFF3.
+    """
+    keys = score_columns(label)
+    ours = {"scored_label", *keys}
+    used = {reg.seqid for reg in rf.regions}
+    gff = GFF3Writer(handle)
+    gff.header([(rec.id, len(rec.seq)) for rec in records if rec.id in used])
+    for reg, sc in zip(rf.regions, scores):
+        if rf.format == "gff3":
+            attrs = [(k, v) for k, v in reg.attributes if k not in ours]
+            ftype = reg.type or BED_FEATURE_TYPE
+        else:
+            attrs = [("Name", reg.name)] if reg.name else []
+            ftype = BED_FEATURE_TYPE
+        attrs.append(("scored_label", label))
+        attrs += [(k, _fmt(sc[k], FORMATS[k])) for k in keys]
+        mean = sc["mean_posterior"]
+        gff.write(
+            Feature(
+                seqid=reg.seqid,
+                source="seqstate",
+                type=ftype,
+                start0=reg.start0,
+                end0=reg.end0,
+                score=mean if math.isfinite(mean) else None,
+                strand=reg.strand,
+                phase=reg.phase,
+                attributes=attrs,
+            )
+        )
+
+
+@dataclass
+class ScoreOptions:
+    """Everything ``seqstate score`` was asked to do.
+
+    ``out_tsv`` None means standard output; ``regions_format`` None means
+    detect; ``types`` keeps only those GFF3 feature types (empty: all).
+    """
+
+    input: str
+    regions: str
+    model: str = "cpg-island"
+    label: str | None = None
+    out_tsv: str | None = None
+    out_gff: str | None = None
+    flank: int | None = None
+    regions_format: str | None = None
+    types: tuple[str, ...] = ()
+    masked: str = "base"
+
+
+@dataclass
+class ScoreResult:
+    """What a score run produced: the TSV text, counts, the label, and what to print.
+
+    ``stdout`` is the text the caller must print on standard output (the table
+    without ``-o``, or the GFF3 with ``--gff -``), or None.
+    """
+
+    table: str
+    label: str
+    regions: int
+    format: str
+    stdout: str | None = None
+
+
+def score(opts: ScoreOptions) -> ScoreResult:
+    """Run ``seqstate score``: read, check, score, then write every output at once.
+
+    Every input is read and checked before anything is computed, and outputs
+    are written only after every region is scored (files atomically), so an
+    error leaves no output behind.  ``out_tsv`` None or ``"-"`` sends the
+    table to standard output; ``out_gff`` ``"-"`` sends the GFF3 there (then
+    the table needs a file).  Returns the result; the caller prints
+    ``result.stdout``.
+    """
+    if opts.input == "-" and opts.regions == "-":
+        raise UsageError("FASTA and --regions cannot both be standard input ('-')")
+    if opts.masked not in ("base", "unknown"):
+        raise UsageError(f"--masked {opts.masked!r} is not base or unknown")
+    for out in (opts.out_tsv, opts.out_gff):
+        if out is not None and out != "-" and Path(out).is_dir():
+            raise UsageError(f"output file '{out}' is a directory, expected a file name")
+    tsv_file = None if opts.out_tsv in (None, "-") else opts.out_tsv
+    if opts.out_gff == "-" and tsv_file is None:
+        raise UsageError(
+            "the table and --gff cannot both go to standard output: give -o a file name"
+        )
+    if tsv_file is not None and tsv_file == opts.out_gff:
+        raise UsageError(f"-o and --gff name the same file '{tsv_file}'")
+    model = load_model(opts.model)
+    label = choose_label(model, opts.label)
+    if opts.flank is not None and opts.flank < 0:
+        raise UsageError(f"--flank {opts.flank} must be 0 or more")
+    rf = read_regions(opts.regions, opts.regions_format, set(opts.types) or None)
+    if opts.types and rf.format == "bed":
+        raise UsageError(f"--type selects GFF3 features, but {rf.path} was read as BED")
+    records = read_records(opts.input, model)
+    if not set(model.alphabet) <= set(DNA):
+        _check_symbols(records, model, opts.input)
+    check_regions(rf, {r.id: len(r.seq) for r in records}, display_name(opts.input))
+    try:
+        scores = score_regions(
+            model, records, rf.regions, label, flank=opts.flank, masked=opts.masked
+        )
+    except ImpossibleSequenceError as exc:
+        raise ImpossibleSequenceError(exc.message, path=display_name(opts.input)) from None
+    table = table_text(rf, label, scores)
+    gff_text = None
+    if opts.out_gff is not None:
+        buf = io.StringIO()
+        write_scored_gff3(buf, rf, label, scores, records)
+        gff_text = buf.getvalue()
+    files = [
+        (path, text)
+        for path, text in ((tsv_file, table), (opts.out_gff, gff_text))
+        if path is not None and path != "-" and text is not None
+    ]
+    _write_all(files)
+    return ScoreResult(
+        table=table,
+        label=label,
+        regions=len(rf.regions),
+        format=rf.format,
+        stdout=table if tsv_file is None else gff_text if opts.out_gff == "-" else None,
+    )
+
+
+def _write_all(files: list[tuple[str, str]]) -> None:
+    """Write each (path, text) atomically; nested so that a failure leaves none of them."""
+    if not files:
+        return
+    (path, text), rest = files[0], files[1:]
+    with atomic_text(path) as fh:
+        fh.write(text)
+        _write_all(rest)

@@ -1,0 +1,345 @@
+"""``seqstate plot`` (seqstate.plot and its CLI command).
+
+The figure is checked against annotate's own outputs on the synthetic demo
+(its decoded features and its posterior track), against the image formats'
+own readers (matplotlib.image.imread for PNG, xml.etree for SVG, the PDF
+magic number), and for what the docs promise: stated size, one box element
+per decoded feature, greyscale-only ink, lanes with distinct line styles.
+"""
+
+from __future__ import annotations
+
+import sys
+import xml.etree.ElementTree as ET
+from pathlib import Path
+
+import matplotlib.colors
+import matplotlib.image
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from seqstate.cli import main
+from seqstate.io.gff3 import read_gff3
+from seqstate.io.tables import save_model
+from seqstate.model import State, make_model
+from seqstate.pipeline import AnnotateOptions, annotate
+from seqstate.plot import MAX_REGION, PlotOptions, draw, plot_data
+
+REPO = Path(__file__).resolve().parent.parent
+DEMO = REPO / "examples" / "cex_draft1.fa.gz"
+TRUTH = REPO / "examples" / "cex_draft1.truth.gff3"
+REGION = "cex_ctg3:180000-220000"
+R0, R1 = 179999, 220000  # the region, 0-based half-open
+SVG_NS = "{http://www.w3.org/2000/svg}"
+
+
+def run(args: list[str]):
+    return CliRunner().invoke(main, args, catch_exceptions=False)
+
+
+@pytest.fixture(scope="module")
+def annotated(tmp_path_factory) -> Path:
+    """annotate on the whole demo (default options): the reference for the figure."""
+    out = tmp_path_factory.mktemp("annot")
+    annotate(AnnotateOptions(input=str(DEMO), out_dir=str(out)))
+    return out
+
+
+def _overlapping(features, seqid, r0, r1):
+    return [f for f in features if f.seqid == seqid and f.start0 < r1 and f.end0 > r0]
+
+
+def test_png_has_the_stated_size(tmp_path):
+    out = tmp_path / "fig.png"
+    res = run(
+        [
+            "plot",
+            str(DEMO),
+            "--region",
+            REGION,
+            "-o",
+            str(out),
+            "--width",
+            "6",
+            "--height",
+            "4",
+            "--dpi",
+            "50",
+            "--reference",
+            str(TRUTH),
+        ]
+    )
+    assert res.exit_code == 0, res.stderr
+    img = matplotlib.image.imread(out)
+    # pixels = inches x dots per inch (common practice; matplotlib savefig dpi, from memory)
+    assert img.shape[:2] == (200, 300)
+    assert res.stderr.startswith(f"seqstate: {REGION}, 3 decoded, 3 reference feature(s)")
+
+
+def test_svg_has_one_box_per_decoded_feature(tmp_path, annotated):
+    out = tmp_path / "fig.svg"
+    res = run(
+        ["plot", str(DEMO), "--region", REGION, "-o", str(out), "--reference", str(TRUTH), "-q"]
+    )
+    assert res.exit_code == 0, res.stderr
+    assert res.stderr == ""
+    root = ET.parse(out).getroot()  # well-formed XML (SVG is XML)
+    assert root.tag == f"{SVG_NS}svg"
+    ids = [el.get("id") for el in root.iter() if el.get("id")]
+    boxes = [i for i in ids if i.startswith("feature-box-")]
+    refs = [i for i in ids if i.startswith("reference-box-")]
+    want = _overlapping(read_gff3(annotated / "cex_draft1.gff3"), "cex_ctg3", R0, R1)
+    truth = _overlapping(read_gff3(TRUTH), "cex_ctg3", R0, R1)
+    # one box per feature annotate decodes on the region (annotate's GFF3 is the reference)
+    assert len(want) == 3 and sorted(boxes) == [f"feature-box-{i}" for i in (1, 2, 3)]
+    assert sorted(refs) == [f"reference-box-{i + 1}" for i in range(len(truth))]
+
+
+@pytest.mark.parametrize(
+    "r0, r1", [(R0, R1), (195_000, 213_000)], ids=["islands-inside", "islands-cut-by-both-ends"]
+)
+def test_boxes_and_curve_match_annotate(annotated, r0, r1):
+    region = f"cex_ctg3:{r0 + 1}-{r1}"
+    data = plot_data(PlotOptions(input=str(DEMO), region=region, out="x.png", reference=str(TRUTH)))
+    want = _overlapping(read_gff3(annotated / "cex_draft1.gff3"), "cex_ctg3", r0, r1)
+    assert len(want) >= 2
+    assert [(f.start0, f.end0) for f in data.decoded] == [(f.start0, f.end0) for f in want]
+    # the curve is annotate's posterior track: bedGraph runs rounded to 4 decimals
+    track = np.full(r1 - r0, np.nan)
+    with open(annotated / "cex_draft1.CpG_island.bedgraph") as fh:
+        for line in fh:
+            cols = line.split()
+            if cols[0] != "cex_ctg3":
+                continue
+            s, e = max(int(cols[1]), r0), min(int(cols[2]), r1)
+            if s < e:
+                track[s - r0 : e - r0] = float(cols[3])
+    assert not np.isnan(track).any()
+    assert np.max(np.abs(data.values[:, 0] - track)) <= 0.5e-4 + 1e-7
+    fig = draw(data, 8, 4, 60)
+    ax = fig.axes[0]
+    boxes = sorted(
+        (p for p in fig.axes[1].patches if (p.get_gid() or "").startswith("feature-box-")),
+        key=lambda p: p.get_x(),
+    )
+    # base i (0-based) is drawn at x = i + 1, so a feature [s, e) spans s + 0.5 .. e + 0.5
+    # (features cut by the region's ends are drawn whole and clipped by the axes)
+    assert [(b.get_x(), b.get_x() + b.get_width()) for b in boxes] == [
+        (f.start0 + 0.5, f.end0 + 0.5) for f in want
+    ]
+    assert ax.get_ylim() == (0.0, 1.0) and ax.get_ylabel() == "posterior probability"
+    assert ax.get_xlim() == (r0 + 0.5, r1 + 0.5)
+    title = fig._suptitle.get_text()
+    assert region in title and "cpg-island" in title
+    assert fig.axes[-1].get_xlabel() == "position on cex_ctg3 (1-based)"
+
+
+def test_features_split_at_unknown_runs_as_annotate(tmp_path):
+    from seqstate.io.tables import load_model
+    from seqstate.pipeline import read_records
+
+    rec = next(r for r in read_records(str(DEMO), load_model("cpg-island")) if r.id == "cex_ctg3")
+    seq = bytearray(rec.seq)
+    seq[195_400:195_420] = b"N" * 20  # inside the planted island 194748-196221 (1-based)
+    seq[196_200:196_230] = b"n" * 30  # over its right end
+    fasta = tmp_path / "ctg3n.fa"
+    fasta.write_bytes(b">cex_ctg3\n" + bytes(seq) + b"\n")
+    out = tmp_path / "annot"
+    annotate(AnnotateOptions(input=str(fasta), out_dir=str(out)))
+    r0, r1 = 190_000, 200_000
+    want = _overlapping(read_gff3(out / "ctg3n.gff3"), "cex_ctg3", r0, r1)
+    data = plot_data(PlotOptions(input=str(fasta), region=f"cex_ctg3:{r0 + 1}-{r1}", out="x.png"))
+    # annotate's features are the reference: the island is cut at the 20 unknown bases
+    assert any(f.end0 == 195_400 for f in want) and any(f.start0 == 195_420 for f in want)
+    assert [(f.start0, f.end0) for f in data.decoded] == [(f.start0, f.end0) for f in want]
+
+
+def test_pdf_is_written(tmp_path):
+    out = tmp_path / "fig.pdf"
+    res = run(["plot", str(DEMO), "--region", "cex_ctg1:186000-187500", "-o", str(out), "-q"])
+    assert res.exit_code == 0, res.stderr
+    # a PDF file starts with "%PDF-" (ISO 32000-1, section 7.5.2, from memory)
+    head = out.read_bytes()[:5]
+    assert head == b"%PDF-"
+    # no timestamp: the same run gives the same bytes (README: outputs carry no timestamp)
+    again = tmp_path / "again.pdf"
+    run(["plot", str(DEMO), "--region", "cex_ctg1:186000-187500", "-o", str(again), "-q"])
+    assert again.read_bytes() == out.read_bytes()
+
+
+def test_flank_covering_the_record_is_the_whole_record():
+    base = PlotOptions(input=str(DEMO), region="cex_ctg2:239000-241000", out="x.png")
+    whole = plot_data(base)
+    base.flank = 300_000
+    flanked = plot_data(base)
+    # a window reaching both record ends is the record itself (same computation)
+    assert np.array_equal(whole.values, flanked.values)
+    assert [(f.start0, f.end0) for f in whole.decoded] == [
+        (f.start0, f.end0) for f in flanked.decoded
+    ]
+    base.flank = 500
+    near = plot_data(base)
+    assert "region ± 500 bases" in draw(near, 6, 3, 40)._suptitle.get_text()
+
+
+# ---------------------------------------------------------------- greyscale and lanes
+@pytest.fixture(scope="module")
+def three_groups(tmp_path_factory):
+    """A model with three track groups (alpha on both strands, beta) and a record."""
+    rng = np.random.default_rng(99)
+    m = 4
+    trans = rng.uniform(0.05, 1.0, (m, m)) + np.eye(m) * 20
+    emis = rng.uniform(0.1, 1.0, (m, 4))
+    model = make_model(
+        name="three",
+        alphabet="ACGT",
+        states=[
+            State("ap", "alpha", "+"),
+            State("am", "alpha", "-"),
+            State("b", "beta"),
+            State("bg"),
+        ],
+        start=np.full(m, 0.25),
+        transitions=trans / trans.sum(axis=1, keepdims=True),
+        emissions=emis / emis.sum(axis=1, keepdims=True),
+    )
+    root = tmp_path_factory.mktemp("three")
+    manifest = save_model(model, root / "model")
+    fasta = root / "r.fa"
+    fasta.write_text(">r\n" + "".join("ACGT"[i] for i in rng.integers(4, size=3000)) + "\n")
+    ref = root / "ref.bed"
+    ref.write_text("r\t100\t400\tx\nr\t1200\t1300\ty\n")
+    return manifest, fasta, ref
+
+
+def _greys_only(fig) -> list[str]:
+    bad = []
+    for ax in fig.axes:
+        for line in ax.get_lines():
+            bad += [c for c in [line.get_color()] if not _is_grey(c)]
+        for patch in ax.patches:
+            for c in (patch.get_facecolor(), patch.get_edgecolor()):
+                if not _is_grey(c):
+                    bad.append(str(c))
+    return bad
+
+
+def _is_grey(colour) -> bool:
+    r, g, b, _ = matplotlib.colors.to_rgba(colour)
+    return r == g == b
+
+
+def test_readable_in_greyscale(three_groups):
+    manifest, fasta, ref = three_groups
+    data = plot_data(
+        PlotOptions(
+            input=str(fasta),
+            region="r:1-3000",
+            out="x.png",
+            model=str(manifest),
+            reference=str(ref),
+        )
+    )
+    assert data.groups == ["alpha.plus", "alpha.minus", "beta"]
+    fig = draw(data, 8, 5, 50)
+    # no information in hue: every line and box is black, white or grey
+    assert _greys_only(fig) == []
+    lines = fig.axes[0].get_lines()
+    assert [ln.get_label() for ln in lines] == data.groups
+    # curves told apart by line style alone
+    assert len({ln.get_linestyle() for ln in lines}) == 3
+    dec = [p for p in fig.axes[1].patches]
+    refs = [p for p in fig.axes[2].patches]
+    assert len(refs) == 2 and all(p.get_gid().startswith("reference-box-") for p in refs)
+    # decoded and reference boxes differ by fill pattern and outline style, not colour
+    assert {p.get_hatch() for p in refs} == {"////"} and all(p.get_hatch() is None for p in dec)
+    assert {p.get_linestyle() for p in refs} != {p.get_linestyle() for p in dec}
+    # lanes by position: curves above decoded above reference
+    tops = [ax.get_position().y0 for ax in fig.axes[:3]]
+    assert tops[0] > tops[1] > tops[2]
+    # one row per track group in the decoded lane, in model order from the top
+    assert [t.get_text() for t in fig.axes[1].get_yticklabels()] == list(reversed(data.groups))
+
+
+# ---------------------------------------------------------------- bad input
+def _bad(args, out: Path):
+    res = run(args)
+    lines = res.stderr.splitlines()
+    assert len(lines) == 1 and lines[0].startswith("error: "), res.stderr
+    assert not out.exists()  # nothing half-written
+    return res.exit_code, lines[0]
+
+
+def test_region_over_the_maximum_needs_force(tmp_path):
+    rng = np.random.default_rng(5)
+    fasta = tmp_path / "big.fa"
+    seq = np.frombuffer(b"ACGT", np.uint8)[rng.integers(4, size=MAX_REGION + 100)].tobytes()
+    fasta.write_bytes(b">big\n" + seq + b"\n")
+    out = tmp_path / "big.png"
+    region = f"big:1-{MAX_REGION + 1}"
+    code, line = _bad(["plot", str(fasta), "--region", region, "-o", str(out)], out)
+    assert code == 2
+    assert line == (
+        f"error: region {region} is 2,000,001 bases, more than the 2,000,000 "
+        "plotted without --force"
+    )
+    assert MAX_REGION == 2_000_000  # the maximum the docs state
+    res = run(
+        [
+            "plot",
+            str(fasta),
+            "--region",
+            region,
+            "-o",
+            str(out),
+            "--force",
+            "-q",
+            "--width",
+            "4",
+            "--height",
+            "2",
+            "--dpi",
+            "40",
+        ]
+    )
+    assert res.exit_code == 0, res.stderr
+    assert matplotlib.image.imread(out).shape[:2] == (80, 160)
+
+
+@pytest.mark.parametrize(
+    "region, code, expect",
+    [
+        ("cex_ctg1:20-10", 2, "START 20 is after END 10"),
+        ("cex_ctg9:1-10", 2, "no record 'cex_ctg9'"),
+        ("cex_ctg1:249990-250010", 2, "lies outside record cex_ctg1 (length 250000)"),
+    ],
+)
+def test_bad_region(tmp_path, region, code, expect):
+    out = tmp_path / "f.png"
+    got, line = _bad(["plot", str(DEMO), "--region", region, "-o", str(out)], out)
+    assert got == code and expect in line
+
+
+def test_bad_reference_and_output(tmp_path):
+    out = tmp_path / "f.png"
+    ref = tmp_path / "ref.gff3"
+    ref.write_text("##gff-version 3\ncex_ctg1\t.\tx\t10\t5\t.\t.\t.\t.\n")
+    code, line = _bad(
+        ["plot", str(DEMO), "--region", "cex_ctg1:1-100", "-o", str(out), "--reference", str(ref)],
+        out,
+    )
+    assert code == 1 and "ref.gff3 line 2: start 10 is greater than end 5" in line
+    gif = tmp_path / "f.gif"
+    code, line = _bad(["plot", str(DEMO), "--region", "cex_ctg1:1-100", "-o", str(gif)], gif)
+    assert code == 2 and "must end in .png, .svg or .pdf" in line
+
+
+def test_missing_matplotlib_is_a_clear_error(tmp_path, monkeypatch):
+    for name in [m for m in sys.modules if m == "matplotlib" or m.startswith("matplotlib.")]:
+        monkeypatch.delitem(sys.modules, name)
+    monkeypatch.setitem(sys.modules, "matplotlib", None)  # import matplotlib -> ImportError
+    out = tmp_path / "f.png"
+    code, line = _bad(["plot", str(DEMO), "--region", "cex_ctg1:1-100", "-o", str(out)], out)
+    assert code == 3
+    assert line == "error: plotting needs the optional extra: pip install 'seqstate[plot]'"
