@@ -235,11 +235,11 @@ def loglik(tables: EngineTables, codes: np.ndarray, *, record: str | None = None
     sm = _small_of(tables)
     if sm is not None:
         ll, pos = _small.forward_loglik(codes, sm.start, sm.end, sm.K, sm.st, sm.wide, sm.cls,
-                                        sm.W, sm.T, sm.E)
+                                        sm.W, sm.T, sm.E, sm.lim)
     else:
         ll, pos = kernels.forward_loglik(codes, tables.start, tables.end, tables.E,
                                          tables.nz_ptr, tables.nz_state, tables.pred_ptr,
-                                         tables.pred_src, tables.pred_p)
+                                         tables.pred_src, tables.pred_p, _limit_of(tables))
     if pos >= 0:
         _raise_impossible(tables, codes, record)
     return ll
@@ -281,6 +281,9 @@ def posterior(tables: EngineTables, codes: np.ndarray, *, group: np.ndarray | No
     group = np.asarray(group, dtype=np.int64)
     if n_groups is None:
         n_groups = int(group.max()) + 1 if group.size else 0
+    if group.shape != (m,) or (m and (int(group.max()) >= n_groups or int(group.min()) < -1)):
+        # the kernels write out[i, group[s]] without bounds checks
+        raise ValueError(f"group must hold one column in [-1, {n_groups}) per state")
     block = default_block(n) if block is None else max(1, min(int(block), n))
     nblocks = (n + block - 1) // block
     out = np.zeros((n, n_groups), dtype=dtype)
@@ -293,12 +296,13 @@ def posterior(tables: EngineTables, codes: np.ndarray, *, group: np.ndarray | No
         gc = _small.group_table(sm, group)
         ll, pos = _small.posterior_checkpointed(
             codes, sm.start, sm.end, sm.K, sm.st, sm.wide, sm.cls, sm.W, sm.T, sm.E, block,
-            gc, out, alpha_ck, alpha_log, beta_ck, beta_log)
+            gc, out, alpha_ck, alpha_log, beta_ck, beta_log, sm.lim)
     else:
         ll, pos = kernels.posterior_checkpointed(
             codes, tables.start, tables.end, tables.E, tables.nz_ptr, tables.nz_state,
             tables.pred_ptr, tables.pred_src, tables.pred_p, tables.succ_ptr, tables.succ_dst,
-            tables.succ_p, block, group, out, alpha_ck, alpha_log, beta_ck, beta_log)
+            tables.succ_p, block, group, out, alpha_ck, alpha_log, beta_ck, beta_log,
+            _limit_of(tables))
     if pos >= 0:
         _raise_impossible(tables, codes, record)
     return Posterior(ll, out, block, alpha_ck, alpha_log, beta_ck, beta_log)
@@ -366,6 +370,8 @@ def segment_log_probability(tables: EngineTables, codes: np.ndarray, post: Poste
     the unrestricted forward vector before the segment and the backward vector
     at its last base.  Exact, not a product of per-base posteriors.
     """
+    if end0 <= start0:
+        return 0.0  # an empty segment: the condition holds for every path
     mask = np.asarray(mask, dtype=np.bool_)
     if start0 == 0:
         init, init_log, is_start = tables.start, 0.0, True
@@ -394,6 +400,8 @@ def segment_log_odds(tables: EngineTables, codes: np.ndarray, post: Posterior,
     log(a_class / a_other) of the two emission tables.  +inf or -inf when one
     class cannot hold the segment.
     """
+    if end0 <= start0:
+        return 0.0  # an empty segment carries no evidence either way
     mask = np.asarray(mask, dtype=np.bool_)
     if start0 == 0:
         init, is_start = tables.start, True
@@ -445,3 +453,13 @@ def _small_of(tables: EngineTables):
     sm = _small.build(tables)
     tables.__dict__["_small_tables"] = (sm,)
     return sm
+
+
+def _limit_of(tables: EngineTables) -> float:
+    """The generic kernels' rescaling threshold for ``tables`` (kept on the object)."""
+    cached = tables.__dict__.get("_rescale_limit")
+    if cached is not None and cached[1] is tables.E and cached[2] is tables.pred_p:
+        return cached[0]
+    lim = kernels.rescale_limit(_small.smallest_factor(tables))
+    tables.__dict__["_rescale_limit"] = (lim, tables.E, tables.pred_p)
+    return lim

@@ -30,142 +30,168 @@ import math
 import numpy as np
 from numba import njit, uintp
 
-#: Rescale a running vector when its sum falls below this value.
+#: Rescale a running vector when its sum falls below this value (the default ``lim``
+#: of the kernels; see :func:`rescale_limit` for models with tiny factors).
 RESCALE_BELOW = 1e-100
+#: Smallest value a scaled vector's sum times one step's factor may reach.
+SAFE_FLOOR = 1e-290
+
+
+def rescale_limit(smallest_factor: float) -> float:
+    """Rescaling threshold that keeps one step's product above :data:`SAFE_FLOOR`.
+
+    ``smallest_factor`` is the smallest non-zero transition times emission factor
+    of a model.  For ordinary models this is :data:`RESCALE_BELOW`; with factors
+    near the bottom of the float64 range the vectors are rescaled more often (every
+    step in the extreme), so that no valid path underflows.
+    """
+    if smallest_factor <= 0.0:
+        return RESCALE_BELOW
+    return max(RESCALE_BELOW, SAFE_FLOOR / smallest_factor)
 
 _JIT = {"cache": True, "nogil": True, "error_model": "numpy"}
-#: Step helpers are inlined into the kernels (numba IR inlining): a call per position
-#: costs reference counting on every array argument.
-_STEP = dict(_JIT, inline="always")
 
 
 # ----------------------------------------------------------------- helpers
-# Indices read from the tables are converted to unsigned (``uintp``) before they
-# index an array: numba then emits no negative-index wrap-around code, which made
-# the sparse loops about three times faster.  Never mix ``uintp`` with signed
-# integers in arithmetic (numba types uint64 + int64 as float64).
+# Implementation notes (measured on the development machine):
+# * Running vectors live in rows of 2-D arrays and the step helpers take the array
+#   and a row index: taking a row view (``rows[i]``) per position costs reference
+#   counting (atomic operations) that dominated small models.
+# * Indices read from the tables are converted to unsigned (``uintp``) before they
+#   index an array, so numba emits no negative-index wrap-around code (about 3x
+#   faster sparse loops).  Never mix ``uintp`` with signed integers in arithmetic
+#   (numba types uint64 + int64 as float64).
 _ONE = uintp(1)
 
 
-@njit(**_STEP)
-def _forward_step(prev, cur, code, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p):
-    """cur[t] = E[code, t] * sum_p prev[p] * a[p, t] for the emitting states; returns sum(cur)."""
-    m = cur.shape[0]
+@njit(**_JIT)
+def _forward_step(X, xr, Y, yr, code, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p):
+    """Y[yr, t] = E[code, t] * sum_p X[xr, p] a[p, t] for the emitting t (0 elsewhere); sum."""
+    m = Y.shape[1]
     for s in range(m):
-        cur[s] = 0.0
+        Y[yr, s] = 0.0
     c = uintp(code)
     total = 0.0
     for k in range(uintp(nz_ptr[c]), uintp(nz_ptr[c + _ONE])):
         t = uintp(nz_state[k])
         acc = 0.0
         for q in range(uintp(pred_ptr[t]), uintp(pred_ptr[t + _ONE])):
-            acc += prev[uintp(pred_src[q])] * pred_p[q]
+            acc += X[xr, uintp(pred_src[q])] * pred_p[q]
         v = acc * E[c, t]
-        cur[t] = v
+        Y[yr, t] = v
         total += v
     return total
 
 
-@njit(**_STEP)
-def _backward_step(nxt, cur, code_next, E, nz_ptr, nz_state, succ_ptr, succ_dst, succ_p, w):
-    """cur[s] = sum_t a[s, t] * E[code_next, t] * nxt[t]; returns sum(cur).  ``w`` is scratch."""
-    m = cur.shape[0]
+@njit(**_JIT)
+def _backward_gather(X, xr, Y, yr, code_next, E, nz_ptr, nz_state, succ_ptr, succ_dst, succ_p,
+                     w):
+    """Y[yr, s] = sum_t a[s, t] E[code_next, t] X[xr, t] over successors; sum.  ``w`` scratch."""
+    m = Y.shape[1]
     for s in range(m):
         w[s] = 0.0
     c = uintp(code_next)
     for k in range(uintp(nz_ptr[c]), uintp(nz_ptr[c + _ONE])):
         t = uintp(nz_state[k])
-        w[t] = E[c, t] * nxt[t]
+        w[t] = E[c, t] * X[xr, t]
     total = 0.0
     for s in range(m):
         acc = 0.0
         for q in range(uintp(succ_ptr[s]), uintp(succ_ptr[s + 1])):
             acc += succ_p[q] * w[uintp(succ_dst[q])]
-        cur[s] = acc
+        Y[yr, s] = acc
         total += acc
     return total
 
 
-@njit(**_STEP)
-def _backward_step_any(nxt, cur, code_next, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p,
-                       succ_ptr, succ_dst, succ_p, w):
-    """:func:`_backward_step`, or the same sums scattered from the emitting states only.
+@njit(**_JIT)
+def _scatter_codes(nz_ptr, nz_state, pred_ptr, n_trans):
+    """Per code, True when the backward step should scatter (see :func:`_backward_scatter`)."""
+    n_codes = nz_ptr.shape[0] - 1
+    flags = np.zeros(n_codes, dtype=np.bool_)
+    for c in range(n_codes):
+        into = 0
+        for k in range(nz_ptr[c], nz_ptr[c + 1]):
+            t = nz_state[k]
+            into += pred_ptr[t + 1] - pred_ptr[t]
+        flags[c] = 3 * into <= n_trans
+    return flags
 
-    Scattering costs the transitions into the states that can emit ``code_next``;
-    gathering costs all transitions but accumulates in registers.  Both add the
-    terms of each ``cur[s]`` in increasing ``t``, so they give identical results.
+
+@njit(**_JIT)
+def _backward_scatter(X, xr, Y, yr, code_next, E, nz_ptr, nz_state, pred_ptr, pred_src,
+                      pred_p):
+    """The sums of :func:`_backward_gather`, scattered from the emitting states only.
+
+    Costs the transitions into the states that can emit ``code_next`` instead of
+    all transitions.  Each ``Y[yr, s]`` receives its terms in increasing ``t``, as
+    in the gather (which only adds zeros besides), so both give identical results.
+    Which one to use per code: :func:`_scatter_codes`.  (The choice is made at the
+    call site: a branch inside a step helper made numba's loops several times
+    slower.)
     """
     c = uintp(code_next)
-    k0 = uintp(nz_ptr[c])
-    k1 = uintp(nz_ptr[c + _ONE])
-    into = 0
-    for k in range(k0, k1):
-        t = uintp(nz_state[k])
-        into += pred_ptr[t + _ONE] - pred_ptr[t]
-    if 3 * into > pred_src.shape[0]:
-        return _backward_step(nxt, cur, code_next, E, nz_ptr, nz_state, succ_ptr, succ_dst,
-                              succ_p, w)
-    m = cur.shape[0]
+    m = Y.shape[1]
     for s in range(m):
-        cur[s] = 0.0
-    for k in range(k0, k1):
+        Y[yr, s] = 0.0
+    for k in range(uintp(nz_ptr[c]), uintp(nz_ptr[c + _ONE])):
         t = uintp(nz_state[k])
-        wt = E[c, t] * nxt[t]
+        wt = E[c, t] * X[xr, t]
         for q in range(uintp(pred_ptr[t]), uintp(pred_ptr[t + _ONE])):
-            cur[uintp(pred_src[q])] += pred_p[q] * wt
+            Y[yr, uintp(pred_src[q])] += pred_p[q] * wt
     total = 0.0
     for s in range(m):
-        total += cur[s]
+        total += Y[yr, s]
     return total
 
 
-@njit(**_STEP)
-def _first(start, cur, code, E, nz_ptr, nz_state):
-    m = cur.shape[0]
+@njit(**_JIT)
+def _first(start, Y, yr, code, E, nz_ptr, nz_state):
+    """Y[yr, t] = start[t] E[code, t]; returns the sum."""
+    m = Y.shape[1]
     for s in range(m):
-        cur[s] = 0.0
+        Y[yr, s] = 0.0
     c = uintp(code)
     total = 0.0
     for k in range(uintp(nz_ptr[c]), uintp(nz_ptr[c + _ONE])):
         t = uintp(nz_state[k])
         v = start[t] * E[c, t]
-        cur[t] = v
+        Y[yr, t] = v
         total += v
     return total
 
 
-@njit(**_STEP)
-def _scale(vec, total):
+@njit(**_JIT)
+def _scale(Y, yr, total):
     inv = 1.0 / total
-    for s in range(vec.shape[0]):
-        vec[s] *= inv
+    for s in range(Y.shape[1]):
+        Y[yr, s] *= inv
 
 
 # ----------------------------------------------------------------- forward
 @njit(**_JIT)
-def forward_loglik(codes, start, end, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p):
+def forward_loglik(codes, start, end, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p,
+                   lim=RESCALE_BELOW):
     """Total log-likelihood (natural log) of one record; returns (loglik, fail_position)."""
     n = codes.shape[0]
     m = start.shape[0]
     rows = np.zeros((2, m))
     logscale = 0.0
-    a = rows[0]
-    total = _first(start, a, codes[0], E, nz_ptr, nz_state)
+    total = _first(start, rows, 0, codes[0], E, nz_ptr, nz_state)
     if total == 0.0:
         return -np.inf, 0
-    if total < RESCALE_BELOW:
-        _scale(a, total)
+    if total < lim:
+        _scale(rows, 0, total)
         logscale += math.log(total)
     src = 0
     for i in range(1, n):
         dst = 1 - src
-        b = rows[dst]
-        total = _forward_step(rows[src], b, codes[i], E, nz_ptr, nz_state, pred_ptr, pred_src,
-                              pred_p)
-        if total < RESCALE_BELOW:
+        total = _forward_step(rows, src, rows, dst, codes[i], E, nz_ptr, nz_state, pred_ptr,
+                              pred_src, pred_p)
+        if total < lim:
             if total == 0.0:
                 return -np.inf, i
-            _scale(b, total)
+            _scale(rows, dst, total)
             logscale += math.log(total)
         src = dst
     final = 0.0
@@ -180,7 +206,8 @@ def forward_loglik(codes, start, end, E, nz_ptr, nz_state, pred_ptr, pred_src, p
 @njit(**_JIT)
 def posterior_checkpointed(codes, start, end, E, nz_ptr, nz_state, pred_ptr, pred_src,
                            pred_p, succ_ptr, succ_dst, succ_p, block, group, out,
-                           alpha_ck, alpha_ck_log, beta_ck, beta_ck_log):
+                           alpha_ck, alpha_ck_log, beta_ck, beta_ck_log,
+                           lim=RESCALE_BELOW):
     """Posterior P(z_i = s | x) summed into ``out[i, group[s]]`` (group -1 = not written).
 
     Memory: O(block * M) working space plus the checkpoints.  Pass 1 runs backward
@@ -197,45 +224,49 @@ def posterior_checkpointed(codes, start, end, E, nz_ptr, nz_state, pred_ptr, pre
     m = start.shape[0]
     nblocks = (n + block - 1) // block
     w = np.empty(m)
+    scatter = _scatter_codes(nz_ptr, nz_state, pred_ptr, pred_src.shape[0])
     # ---- pass 1: backward, checkpoint at each block's last position
     rows = np.zeros((2, m))
     src = 0
-    nxt = rows[0]
-    for s in range(m):
-        nxt[s] = end[s]
-    logscale = 0.0
     bsum = 0.0
     for s in range(m):
-        bsum += nxt[s]
-    if bsum < RESCALE_BELOW:
+        rows[0, s] = end[s]
+        bsum += end[s]
+    logscale = 0.0
+    if bsum < lim:
         if bsum == 0.0:
             return -np.inf, n
-        _scale(nxt, bsum)
+        _scale(rows, 0, bsum)
         logscale += math.log(bsum)
     last_block = nblocks - 1
-    beta_ck[last_block, :] = nxt
+    for s in range(m):
+        beta_ck[last_block, s] = rows[0, s]
     beta_ck_log[last_block] = logscale
     ckpos = ((n - 1) // block) * block  # next block start (going down) below n - 1
     for i in range(n - 2, -1, -1):
         dst = 1 - src
-        cur = rows[dst]
-        bsum = _backward_step_any(rows[src], cur, codes[i + 1], E, nz_ptr, nz_state, pred_ptr,
-                                  pred_src, pred_p, succ_ptr, succ_dst, succ_p, w)
-        if bsum < RESCALE_BELOW:
+        cn = codes[i + 1]
+        if scatter[cn]:
+            bsum = _backward_scatter(rows, src, rows, dst, cn, E, nz_ptr, nz_state, pred_ptr,
+                                     pred_src, pred_p)
+        else:
+            bsum = _backward_gather(rows, src, rows, dst, cn, E, nz_ptr, nz_state, succ_ptr,
+                                    succ_dst, succ_p, w)
+        if bsum < lim:
             if bsum == 0.0:
                 return -np.inf, i + 1
-            _scale(cur, bsum)
+            _scale(rows, dst, bsum)
             logscale += math.log(bsum)
         src = dst
         if i + 1 == ckpos:
             bk = ckpos // block - 1
             ckpos -= block
             for s in range(m):
-                beta_ck[bk, s] = cur[s]
+                beta_ck[bk, s] = rows[dst, s]
             beta_ck_log[bk] = logscale
     # ---- pass 2: forward with per-block backward recomputation
     buf = np.empty((min(block, n), m))
-    frows = np.zeros((2, m))
+    fw = np.zeros((2, m))
     fsrc = 0
     gamma = np.empty(m)
     flog = 0.0
@@ -246,51 +277,56 @@ def posterior_checkpointed(codes, start, end, E, nz_ptr, nz_state, pred_ptr, pre
         for s in range(m):
             buf[b1 - 1 - b0, s] = beta_ck[bk, s]
         for i in range(b1 - 2, b0 - 1, -1):
-            row = buf[i - b0]
-            bsum = _backward_step_any(buf[i + 1 - b0], row, codes[i + 1], E, nz_ptr, nz_state,
-                                      pred_ptr, pred_src, pred_p, succ_ptr, succ_dst, succ_p,
-                                      w)
-            if bsum < RESCALE_BELOW and bsum > 0.0:
-                _scale(row, bsum)
+            r = i - b0
+            cn = codes[i + 1]
+            if scatter[cn]:
+                bsum = _backward_scatter(buf, r + 1, buf, r, cn, E, nz_ptr, nz_state, pred_ptr,
+                                         pred_src, pred_p)
+            else:
+                bsum = _backward_gather(buf, r + 1, buf, r, cn, E, nz_ptr, nz_state, succ_ptr,
+                                        succ_dst, succ_p, w)
+            if bsum < lim and bsum > 0.0:
+                _scale(buf, r, bsum)
         for i in range(b0, b1):
             if i == 0:
-                alpha = frows[0]
-                total = _first(start, alpha, codes[0], E, nz_ptr, nz_state)
+                fsrc = 0
+                total = _first(start, fw, 0, codes[0], E, nz_ptr, nz_state)
             else:
                 fdst = 1 - fsrc
-                alpha = frows[fdst]
-                total = _forward_step(frows[fsrc], alpha, codes[i], E, nz_ptr, nz_state,
+                total = _forward_step(fw, fsrc, fw, fdst, codes[i], E, nz_ptr, nz_state,
                                       pred_ptr, pred_src, pred_p)
                 fsrc = fdst
-            if total < RESCALE_BELOW:
+            if total < lim:
                 if total == 0.0:
                     return -np.inf, i
-                _scale(alpha, total)
+                _scale(fw, fsrc, total)
                 flog += math.log(total)
             if i == b0:
                 for s in range(m):
-                    alpha_ck[bk, s] = alpha[s]
+                    alpha_ck[bk, s] = fw[fsrc, s]
                 alpha_ck_log[bk] = flog
-            row = buf[i - b0]
+            r = i - b0
             norm = 0.0
             c = uintp(codes[i])
-            # only the emitting states have alpha > 0
-            for k in range(uintp(nz_ptr[c]), uintp(nz_ptr[c + _ONE])):
+            k0 = uintp(nz_ptr[c])
+            k1 = uintp(nz_ptr[c + _ONE])
+            # only the emitting states have a forward value > 0
+            for k in range(k0, k1):
                 s = uintp(nz_state[k])
-                g = alpha[s] * row[s]
+                g = fw[fsrc, s] * buf[r, s]
                 gamma[s] = g
                 norm += g
             if norm == 0.0:
                 return -np.inf, i
             inv = 1.0 / norm
-            for k in range(uintp(nz_ptr[c]), uintp(nz_ptr[c + _ONE])):
+            for k in range(k0, k1):
                 s = uintp(nz_state[k])
                 col = group[s]
                 if col >= 0:
                     out[i, col] += gamma[s] * inv
     final = 0.0
     for s in range(m):
-        final += frows[fsrc, s] * end[s]
+        final += fw[fsrc, s] * end[s]
     if final == 0.0:
         return -np.inf, n
     return math.log(final) + flog, -1
@@ -307,16 +343,21 @@ def vector_at(codes, pos, start, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p
     """
     m = start.shape[0]
     bk = pos // block
-    out[:] = alpha_ck[bk, :]
+    rows = np.zeros((2, m))
+    for s in range(m):
+        rows[0, s] = alpha_ck[bk, s]
     logscale = alpha_ck_log[bk]
-    tmp = np.empty(m)
+    src = 0
     for i in range(bk * block + 1, pos + 1):
-        total = _forward_step(out, tmp, codes[i], E, nz_ptr, nz_state, pred_ptr, pred_src,
-                              pred_p)
+        dst = 1 - src
+        total = _forward_step(rows, src, rows, dst, codes[i], E, nz_ptr, nz_state, pred_ptr,
+                              pred_src, pred_p)
         if total < RESCALE_BELOW and total > 0.0:
-            tmp *= 1.0 / total
+            _scale(rows, dst, total)
             logscale += math.log(total)
-        out[:] = tmp
+        src = dst
+    for s in range(m):
+        out[s] = rows[src, s]
     return logscale
 
 
@@ -328,17 +369,22 @@ def backward_vector_at(codes, pos, E, nz_ptr, nz_state, succ_ptr, succ_dst, succ
     m = out.shape[0]
     bk = pos // block
     b1 = min(n, bk * block + block)
-    out[:] = beta_ck[bk, :]
+    rows = np.zeros((2, m))
+    for s in range(m):
+        rows[0, s] = beta_ck[bk, s]
     logscale = beta_ck_log[bk]
-    tmp = np.empty(m)
     w = np.empty(m)
+    src = 0
     for i in range(b1 - 2, pos - 1, -1):
-        total = _backward_step(out, tmp, codes[i + 1], E, nz_ptr, nz_state, succ_ptr, succ_dst,
-                               succ_p, w)
+        dst = 1 - src
+        total = _backward_gather(rows, src, rows, dst, codes[i + 1], E, nz_ptr, nz_state,
+                                 succ_ptr, succ_dst, succ_p, w)
         if total < RESCALE_BELOW and total > 0.0:
-            tmp *= 1.0 / total
+            _scale(rows, dst, total)
             logscale += math.log(total)
-        out[:] = tmp
+        src = dst
+    for s in range(m):
+        out[s] = rows[src, s]
     return logscale
 
 
@@ -409,12 +455,13 @@ def restricted_forward(codes, s0, e0, init, init_is_start, mask, use_emissions, 
 
 
 # ----------------------------------------------------------------- Viterbi
-@njit(**_STEP)
-def _viterbi_step(prev, cur, bp, code, logE, nz_ptr, nz_state, pred_ptr, pred_src, pred_logp):
-    """One max-product step in log space; ties go to the lowest from-state index."""
-    m = cur.shape[0]
+@njit(**_JIT)
+def _viterbi_step(X, xr, Y, yr, B, br, code, logE, nz_ptr, nz_state, pred_ptr, pred_src,
+                  pred_logp):
+    """One max-product step in log space into Y[yr] with back-pointers B[br]; lowest index wins."""
+    m = Y.shape[1]
     for s in range(m):
-        cur[s] = -np.inf
+        Y[yr, s] = -np.inf
     c = uintp(code)
     best_any = -np.inf
     for k in range(uintp(nz_ptr[c]), uintp(nz_ptr[c + _ONE])):
@@ -423,14 +470,14 @@ def _viterbi_step(prev, cur, bp, code, logE, nz_ptr, nz_state, pred_ptr, pred_sr
         arg = -1
         for q in range(uintp(pred_ptr[t]), uintp(pred_ptr[t + _ONE])):
             p = pred_src[q]
-            v = prev[uintp(p)] + pred_logp[q]
+            v = X[xr, uintp(p)] + pred_logp[q]
             if v > best:
                 best = v
                 arg = p
         if arg >= 0:
             v = best + logE[c, t]
-            cur[t] = v
-            bp[t] = arg
+            Y[yr, t] = v
+            B[br, t] = arg
             if v > best_any:
                 best_any = v
     return best_any
@@ -451,35 +498,33 @@ def viterbi_checkpointed(codes, log_start, log_end, logE, nz_ptr, nz_state, pred
     nblocks = (n + block - 1) // block
     ck = np.empty((nblocks, m))
     rows = np.empty((2, m))
-    bp1 = np.empty(m, dtype=np.int32)
-    d = rows[0]
+    bp1 = np.empty((1, m), dtype=np.int32)
     c = uintp(codes[0])
     for s in range(m):
-        d[s] = -np.inf
+        rows[0, s] = -np.inf
     anyv = -np.inf
     for k in range(uintp(nz_ptr[c]), uintp(nz_ptr[c + _ONE])):
         t = uintp(nz_state[k])
         v = log_start[t] + logE[c, t]
-        d[t] = v
+        rows[0, t] = v
         if v > anyv:
             anyv = v
     if anyv == -np.inf:
         return -np.inf, 0
     for s in range(m):
-        ck[0, s] = d[s]
+        ck[0, s] = rows[0, s]
     src = 0
     ckpos = block
     for i in range(1, n):
         dst = 1 - src
-        d2 = rows[dst]
-        anyv = _viterbi_step(rows[src], d2, bp1, codes[i], logE, nz_ptr, nz_state, pred_ptr,
-                             pred_src, pred_logp)
+        anyv = _viterbi_step(rows, src, rows, dst, bp1, 0, codes[i], logE, nz_ptr, nz_state,
+                             pred_ptr, pred_src, pred_logp)
         if anyv == -np.inf:
             return -np.inf, i
         src = dst
         if i == ckpos:
             for s in range(m):
-                ck[i // block, s] = d2[s]
+                ck[i // block, s] = rows[dst, s]
             ckpos += block
     best = -np.inf
     state = -1
@@ -500,7 +545,7 @@ def viterbi_checkpointed(codes, log_start, log_end, logE, nz_ptr, nz_state, pred
             rows[0, s] = ck[bk, s]
         for i in range(b0 + 1, b1):
             dst = 1 - src
-            _viterbi_step(rows[src], rows[dst], bps[i - b0], codes[i], logE, nz_ptr, nz_state,
+            _viterbi_step(rows, src, rows, dst, bps, i - b0, codes[i], logE, nz_ptr, nz_state,
                           pred_ptr, pred_src, pred_logp)
             src = dst
         if bk < nblocks - 1:

@@ -111,3 +111,42 @@ def encode_codes(sym: np.ndarray, order: int, n_symbols: int, offsets: np.ndarra
             ctx = ctx * n_symbols + int(sym[q])
         out[i] = offsets[j] + ctx * n_symbols + int(x)
     return out
+
+
+def expected_counts(start: np.ndarray, trans: np.ndarray, end: np.ndarray,
+                    lattice: np.ndarray, codes: np.ndarray, n_codes: int) -> dict:
+    """Full-matrix twin of :func:`seqstate.engine.training.accumulate` (one record).
+
+    Scaled forward and backward over the whole record (Rabiner 1989, section V.A),
+    then the posteriors gamma_i(s) and the pair posteriors xi_i(s, t), each
+    normalised at its own position.  Returns ``{"loglik", "start" (M,), "trans"
+    (M, M), "end" (M,), "emit" (n_codes, M)}``: P(z_0 = s | x), the summed pair
+    posteriors, P(z_last = s | x) and the posteriors summed by emission code.
+    """
+    n, m = lattice.shape
+    alpha = np.zeros((n, m))
+    scale = np.zeros(n)
+    a = start * lattice[0]
+    scale[0] = a.sum()
+    alpha[0] = a / scale[0]
+    for i in range(1, n):
+        a = (alpha[i - 1] @ trans) * lattice[i]
+        scale[i] = a.sum()
+        alpha[i] = a / scale[i]
+    final = float(alpha[-1] @ end)
+    loglik = float(np.log(scale).sum() + np.log(final))
+    beta = np.zeros((n, m))
+    beta[-1] = end
+    for i in range(n - 2, -1, -1):
+        b = trans @ (lattice[i + 1] * beta[i + 1])
+        beta[i] = b / b.sum()
+    gamma = alpha * beta
+    gamma /= gamma.sum(axis=1, keepdims=True)
+    xi = np.zeros((m, m))
+    for i in range(n - 1):
+        x = alpha[i][:, None] * trans * (lattice[i + 1] * beta[i + 1])[None, :]
+        xi += x / x.sum()
+    emit = np.zeros((n_codes, m))
+    np.add.at(emit, np.asarray(codes, dtype=np.int64), gamma)
+    return {"loglik": loglik, "start": gamma[0].copy(), "trans": xi, "end": gamma[-1].copy(),
+            "emit": emit}

@@ -1,0 +1,724 @@
+"""Specialised kernels for models where each symbol can be emitted by at most two states.
+
+This covers every two-state model (any order) and the one-state-per-symbol
+layouts (the eight-state CpG layout emits one base per state, so a base names
+one island state and one background state).  The work per position is then a
+2 x 2 block instead of an M x M matrix: the state vector is carried in two local
+scalars, ``u0`` and ``u1``, standing for the (at most) two states that can emit
+the current code, in increasing state order.
+
+Tables (built by :func:`build` from an :class:`~seqstate.engine.api.EngineTables`):
+
+* ``K[c]`` -- number of states that can emit code ``c``; ``st[c, j]`` those states
+  in increasing order (padded with ``st[c, 0]`` beyond ``K[c]``).  Codes with
+  ``K[c] > 2`` (the unknown-base code, emitted by every state, and back-off codes
+  whose rows mix several contexts) are *wide*: steps that touch a wide code run a
+  plain loop over the dense transition matrix (``T``, ``E``) on compact arrays of
+  length ``K``.
+* ``cls[c]`` -- the index of the emitting set of a narrow code (codes with the
+  same emitting states share a class).
+* ``W[q, c, 2*j + k] = T[st[cp, j], st[c, k]] * E[c, st[c, k]]`` for a previous
+  code ``cp`` of class ``q``: the forward step is ``v_k = sum_j u_j W[..., j, k]``
+  and the backward step ``b_j = sum_k W[..., j, k] b'_k`` with the same table.
+  Padded entries are 0.
+* ``LT[q, r, 2*j + k] = log T[st_q[j], st_r[k]]`` and ``LE[c, k] =
+  log E[c, st[c, k]]`` for Viterbi (-inf where forbidden or padded).  Viterbi
+  adds them in the same order as the generic kernel (``delta + log a`` maximised
+  over predecessors in increasing order with strict ``>``, then ``+ log e``), so
+  its values and paths are identical to the generic kernel's.
+
+Scaling and failure conventions are those of :mod:`seqstate.engine.kernels`
+(lazy rescaling below ``RESCALE_BELOW``, natural logs, the failing position is
+returned instead of raising).  Checkpoints are written as full M-vectors with
+the same meaning as the generic kernels' (scaled vector times exp(log scale)
+equals the unscaled forward or backward probability), so the generic segment
+and vector queries work on them unchanged.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from numba import njit
+
+from seqstate.engine.kernels import RESCALE_BELOW, rescale_limit
+
+_JIT = {"cache": True, "nogil": True, "error_model": "numpy"}
+
+#: Largest number of states for which the two-state kernels are used.
+MAX_STATES = 16
+#: Largest number of distinct emitting sets (classes) the tables may hold.
+MAX_CLASSES = 64
+#: Largest ``classes x codes`` product of the step table (bounded memory).
+MAX_TABLE = 1 << 20
+
+
+@dataclass
+class SmallTables:
+    """Arrays of the two-state-per-code kernels (see module docstring)."""
+
+    n_states: int
+    K: np.ndarray
+    st: np.ndarray
+    wide: np.ndarray
+    cls: np.ndarray
+    W: np.ndarray
+    LT: np.ndarray
+    LE: np.ndarray
+    T: np.ndarray
+    logT: np.ndarray
+    E: np.ndarray
+    logE: np.ndarray
+    start: np.ndarray
+    end: np.ndarray
+    log_start: np.ndarray
+    log_end: np.ndarray
+    kmax: int
+    sources: tuple
+    lim: float
+
+
+def build(tables) -> SmallTables | None:
+    """Two-state-per-code tables of ``tables``, or None when the model does not fit.
+
+    It fits when it has at most :data:`MAX_STATES` states and every code of the
+    model's full order is emitted by at most two states.  Back-off codes (record
+    start, after an unknown base) and the unknown-base code may be wide: they are
+    rare, and run the plain loop.
+    """
+    m = tables.n_states
+    if m < 1 or m > MAX_STATES:
+        return None
+    E = tables.E
+    n_codes = E.shape[0]
+    emit = E > 0
+    K = emit.sum(axis=1).astype(np.int64)
+    wide = K > 2
+    k = tables.order
+    if wide[int(tables.offsets[k]):int(tables.offsets[k + 1])].any():
+        return None
+    kmax = max(2, int(K.max()))
+    # emitting states in increasing order first (stable sort), padded with the first
+    order = np.argsort(~emit, axis=1, kind="stable")[:, :kmax]
+    slot = np.arange(kmax)[None, :]
+    st = np.where(slot < K[:, None], order, order[:, :1]).astype(np.int64)
+    # classes of the narrow codes' emitting sets
+    narrow_codes = np.flatnonzero(~wide)
+    _, first, inverse = np.unique(emit[narrow_codes], axis=0, return_index=True,
+                                  return_inverse=True)
+    cls = np.zeros(n_codes, dtype=np.int64)
+    cls[narrow_codes] = inverse.reshape(-1)
+    reps = narrow_codes[first].tolist()
+    ncls = len(reps)
+    if ncls > MAX_CLASSES or ncls * n_codes > MAX_TABLE:
+        return None
+    T = tables.transitions
+    # the generic kernel's own logs, so that Viterbi sums are bit-identical
+    logT = np.full((m, m), -np.inf)
+    for t in range(m):
+        lo, hi = tables.pred_ptr[t], tables.pred_ptr[t + 1]
+        logT[tables.pred_src[lo:hi], t] = tables.pred_logp[lo:hi]
+    narrow = ~wide
+    kk = np.arange(2)
+    pad = kk[None, :] >= K[:, None]  # (C, 2): padded compact slots
+    st2 = st[:, :2]
+    e2 = np.take_along_axis(E, st2, axis=1)  # E[c, st[c, k]]
+    e2 = np.where(pad | wide[:, None], 0.0, e2)
+    LE = np.take_along_axis(tables.logE, st2, axis=1)
+    LE = np.where(pad | wide[:, None], -np.inf, LE)
+    W = np.zeros((ncls, n_codes, 4))
+    LT = np.full((ncls, ncls, 4), -np.inf)
+    rep = np.array(reps, dtype=np.int64)
+    for q, rp in enumerate(reps):
+        for j in range(int(K[rp])):
+            s_j = st[rp, j]
+            # W[q, c, 2j + k] = T[s_j, st[c, k]] * E[c, st[c, k]]
+            W[q, :, 2 * j:2 * j + 2] = np.where(narrow[:, None], T[s_j][st2] * e2, 0.0)
+            for k in range(2):
+                ok = k < K[rep]
+                LT[q, :, 2 * j + k] = np.where(ok, logT[s_j][st[rep, k]], -np.inf)
+    return SmallTables(
+        n_states=m, K=K, st=st, wide=wide, cls=cls, W=W, LT=LT, LE=LE,
+        T=np.ascontiguousarray(T), logT=np.ascontiguousarray(logT),
+        E=tables.E, logE=tables.logE, start=tables.start, end=tables.end,
+        log_start=tables.log_start, log_end=tables.log_end, kmax=kmax,
+        sources=(tables.E, tables.transitions, tables.start, tables.end),
+        lim=rescale_limit(smallest_factor(tables)),
+    )
+
+
+def smallest_factor(tables) -> float:
+    """Smallest non-zero transition times smallest non-zero emission factor (a lower bound
+    of every step's factors), 0 when there is none."""
+    tp = tables.pred_p[tables.pred_p > 0]
+    ep = tables.E[tables.E > 0]
+    if tp.size == 0 or ep.size == 0:
+        return 0.0
+    return float(tp.min()) * float(ep.min())
+
+
+def still_valid(small: SmallTables, tables) -> bool:
+    """True while ``tables`` still holds the very arrays ``small`` was built from."""
+    a, b, c, d = small.sources
+    return (a is tables.E and b is tables.transitions and c is tables.start
+            and d is tables.end)
+
+
+def group_table(small: SmallTables, group: np.ndarray) -> np.ndarray:
+    """Per code and compact index the output column (``group[st[c, j]]``, -1 for padding)."""
+    n_codes, kmax = small.st.shape
+    gc = np.full((n_codes, kmax), -1, dtype=np.int64)
+    for c in range(n_codes):
+        for j in range(small.K[c]):
+            gc[c, j] = group[small.st[c, j]]
+    return gc
+
+
+# ----------------------------------------------------------------- wide steps
+@njit(**_JIT)
+def _wide_forward(ua, cp, va, c, K, st, T, E):
+    """va[k] = E[c, t_k] * sum_j ua[j] T[s_j, t_k] over the compact states; returns the sum."""
+    total = 0.0
+    for k in range(K[c]):
+        t = st[c, k]
+        acc = 0.0
+        for j in range(K[cp]):
+            acc += ua[j] * T[st[cp, j], t]
+        v = acc * E[c, t]
+        va[k] = v
+        total += v
+    for k in range(K[c], va.shape[0]):
+        va[k] = 0.0
+    return total
+
+
+@njit(**_JIT)
+def _wide_backward(ba, c, bn, cn, K, st, T, E):
+    """ba[j] = sum_k T[s_j, t_k] E[cn, t_k] bn[k] (s_j states of c, t_k of cn); returns the sum."""
+    total = 0.0
+    for j in range(K[c]):
+        s = st[c, j]
+        acc = 0.0
+        for k in range(K[cn]):
+            t = st[cn, k]
+            acc += T[s, t] * (E[cn, t] * bn[k])
+        ba[j] = acc
+        total += acc
+    for j in range(K[c], ba.shape[0]):
+        ba[j] = 0.0
+    return total
+
+
+@njit(**_JIT)
+def _full_backward(full, bn, cn, K, st, T, E):
+    """Full backward vector full[s] = sum_k T[s, t_k] E[cn, t_k] bn[k]; returns its sum."""
+    m = full.shape[0]
+    total = 0.0
+    for s in range(m):
+        acc = 0.0
+        for k in range(K[cn]):
+            t = st[cn, k]
+            acc += T[s, t] * (E[cn, t] * bn[k])
+        full[s] = acc
+        total += acc
+    return total
+
+
+@njit(**_JIT)
+def _wide_viterbi(da, cp, va, bpa, c, K, st, logT, logE):
+    """Max-product step on compact arrays; bpa[k] = compact index of the best predecessor."""
+    best_any = -np.inf
+    for k in range(K[c]):
+        t = st[c, k]
+        best = -np.inf
+        arg = -1
+        for j in range(K[cp]):
+            v = da[j] + logT[st[cp, j], t]
+            if v > best:
+                best = v
+                arg = j
+        if arg >= 0:
+            v = best + logE[c, t]
+        else:
+            v = -np.inf
+            arg = 0
+        va[k] = v
+        bpa[k] = arg
+        if v > best_any:
+            best_any = v
+    for k in range(K[c], va.shape[0]):
+        va[k] = -np.inf
+        bpa[k] = 0
+    return best_any
+
+
+# ----------------------------------------------------------------- forward
+@njit(**_JIT)
+def forward_loglik(codes, start, end, K, st, wide, cls, W, T, E, lim=RESCALE_BELOW):
+    """Total log-likelihood (natural log); (loglik, fail_position) as the generic kernel."""
+    n = codes.shape[0]
+    kmax = st.shape[1]
+    ua = np.zeros(kmax)
+    va = np.zeros(kmax)
+    logscale = 0.0
+    c = codes[0]
+    total = 0.0
+    for k in range(K[c]):
+        v = start[st[c, k]] * E[c, st[c, k]]
+        ua[k] = v
+        total += v
+    if total == 0.0:
+        return -np.inf, 0
+    if total < lim:
+        inv = 1.0 / total
+        for k in range(kmax):
+            ua[k] *= inv
+        logscale += math.log(total)
+    u0 = ua[0]
+    u1 = ua[1]
+    cp = c
+    for i in range(1, n):
+        c = codes[i]
+        if wide[cp] or wide[c]:
+            if not wide[cp]:
+                ua[0] = u0
+                ua[1] = u1
+            s = _wide_forward(ua, cp, va, c, K, st, T, E)
+            if s < lim:
+                if s == 0.0:
+                    return -np.inf, i
+                inv = 1.0 / s
+                for k in range(kmax):
+                    va[k] *= inv
+                logscale += math.log(s)
+            for k in range(kmax):
+                ua[k] = va[k]
+            u0 = ua[0]
+            u1 = ua[1]
+        else:
+            q = cls[cp]
+            v0 = u0 * W[q, c, 0] + u1 * W[q, c, 2]
+            v1 = u0 * W[q, c, 1] + u1 * W[q, c, 3]
+            s = v0 + v1
+            if s < lim:
+                if s == 0.0:
+                    return -np.inf, i
+                inv = 1.0 / s
+                v0 *= inv
+                v1 *= inv
+                logscale += math.log(s)
+            u0 = v0
+            u1 = v1
+        cp = c
+    if not wide[cp]:
+        ua[0] = u0
+        ua[1] = u1
+    final = 0.0
+    for k in range(K[cp]):
+        final += ua[k] * end[st[cp, k]]
+    if final == 0.0:
+        return -np.inf, n
+    return math.log(final) + logscale, -1
+
+
+# ----------------------------------------------------------------- posterior
+@njit(**_JIT)
+def posterior_checkpointed(codes, start, end, K, st, wide, cls, W, T, E, block, gc, out,
+                           alpha_ck, alpha_ck_log, beta_ck, beta_ck_log, lim=RESCALE_BELOW):
+    """Posteriors summed into ``out[i, gc[codes[i], j]]``; same contract as the generic kernel.
+
+    ``gc`` comes from :func:`group_table`.  Pass 1 runs backward over the record
+    and keeps the full backward vector at the last position of every block;
+    pass 2 runs forward block by block, recomputes the block's compact backward
+    vectors from its checkpoint and writes the posteriors, keeping the full
+    forward vector at the first position of every block.  Working memory is
+    O(block * K) plus the checkpoints.  Returns (loglik, fail_position).
+    """
+    n = codes.shape[0]
+    m = start.shape[0]
+    kmax = st.shape[1]
+    nblocks = (n + block - 1) // block
+    full = np.empty(m)
+    ba = np.zeros(kmax)
+    bb = np.zeros(kmax)
+    # ---- pass 1: backward
+    logscale = 0.0
+    fs = 0.0
+    for s in range(m):
+        full[s] = end[s]
+        fs += end[s]
+    if fs < lim:
+        if fs == 0.0:
+            return -np.inf, n
+        inv = 1.0 / fs
+        for s in range(m):
+            full[s] *= inv
+        logscale += math.log(fs)
+    beta_ck[nblocks - 1, :] = full
+    beta_ck_log[nblocks - 1] = logscale
+    c = codes[n - 1]
+    for k in range(kmax):
+        ba[k] = full[st[c, k]] if k < K[c] else 0.0
+    b0v = ba[0]
+    b1v = ba[1]
+    cn = c
+    ckpos = ((n - 1) // block) * block  # next (going down) block start below n - 1
+    for i in range(n - 2, -1, -1):
+        c = codes[i]
+        if i + 1 == ckpos:
+            ckpos -= block
+            # checkpoint: the full backward vector at i, the compact one from it
+            if not wide[cn]:
+                ba[0] = b0v
+                ba[1] = b1v
+            fs = _full_backward(full, ba, cn, K, st, T, E)
+            if fs < lim:
+                if fs == 0.0:
+                    return -np.inf, i + 1
+                inv = 1.0 / fs
+                for s in range(m):
+                    full[s] *= inv
+                logscale += math.log(fs)
+            bk = (i + 1) // block - 1
+            for s_ in range(m):
+                beta_ck[bk, s_] = full[s_]
+            beta_ck_log[bk] = logscale
+            s = 0.0
+            for k in range(kmax):
+                if k < K[c]:
+                    v = full[st[c, k]]
+                    ba[k] = v
+                    s += v
+                else:
+                    ba[k] = 0.0
+            if s == 0.0:
+                return -np.inf, i
+            b0v = ba[0]
+            b1v = ba[1]
+        elif wide[cn] or wide[c]:
+            if not wide[cn]:
+                ba[0] = b0v
+                ba[1] = b1v
+            s = _wide_backward(bb, c, ba, cn, K, st, T, E)
+            if s < lim:
+                if s == 0.0:
+                    return -np.inf, i + 1
+                inv = 1.0 / s
+                for k in range(kmax):
+                    bb[k] *= inv
+                logscale += math.log(s)
+            for k in range(kmax):
+                ba[k] = bb[k]
+            b0v = ba[0]
+            b1v = ba[1]
+        else:
+            q = cls[c]
+            v0 = W[q, cn, 0] * b0v + W[q, cn, 1] * b1v
+            v1 = W[q, cn, 2] * b0v + W[q, cn, 3] * b1v
+            s = v0 + v1
+            if s < lim:
+                if s == 0.0:
+                    return -np.inf, i + 1
+                inv = 1.0 / s
+                v0 *= inv
+                v1 *= inv
+                logscale += math.log(s)
+            b0v = v0
+            b1v = v1
+        cn = c
+    # ---- pass 2: forward, block by block
+    buf = np.zeros((min(block, n), kmax))
+    ua = np.zeros(kmax)
+    va = np.zeros(kmax)
+    u0 = 0.0
+    u1 = 0.0
+    flog = 0.0
+    cp = codes[0]
+    for bk in range(nblocks):
+        b0 = bk * block
+        b1 = min(n, b0 + block)
+        # compact backward vectors of the block, from its checkpoint
+        c = codes[b1 - 1]
+        r = b1 - 1 - b0
+        for k in range(kmax):
+            buf[r, k] = beta_ck[bk, st[c, k]] if k < K[c] else 0.0
+        x0 = buf[r, 0]
+        x1 = buf[r, 1]
+        cn = c
+        for i in range(b1 - 2, b0 - 1, -1):
+            c = codes[i]
+            r = i - b0
+            if wide[cn] or wide[c]:
+                for k in range(kmax):
+                    ba[k] = buf[r + 1, k]
+                s = _wide_backward(bb, c, ba, cn, K, st, T, E)
+                if s < lim and s > 0.0:
+                    inv = 1.0 / s
+                    for k in range(kmax):
+                        bb[k] *= inv
+                for k in range(kmax):
+                    buf[r, k] = bb[k]
+                x0 = bb[0]
+                x1 = bb[1]
+            else:
+                q = cls[c]
+                v0 = W[q, cn, 0] * x0 + W[q, cn, 1] * x1
+                v1 = W[q, cn, 2] * x0 + W[q, cn, 3] * x1
+                s = v0 + v1
+                if s < lim and s > 0.0:
+                    inv = 1.0 / s
+                    v0 *= inv
+                    v1 *= inv
+                buf[r, 0] = v0
+                buf[r, 1] = v1
+                x0 = v0
+                x1 = v1
+            cn = c
+        # forward through the block, writing posteriors
+        for i in range(b0, b1):
+            c = codes[i]
+            r = i - b0
+            if i == 0:
+                total = 0.0
+                for k in range(kmax):
+                    if k < K[c]:
+                        v = start[st[c, k]] * E[c, st[c, k]]
+                    else:
+                        v = 0.0
+                    ua[k] = v
+                    total += v
+                if total < lim:
+                    if total == 0.0:
+                        return -np.inf, 0
+                    inv = 1.0 / total
+                    for k in range(kmax):
+                        ua[k] *= inv
+                    flog += math.log(total)
+                u0 = ua[0]
+                u1 = ua[1]
+            elif wide[cp] or wide[c]:
+                if not wide[cp]:
+                    ua[0] = u0
+                    ua[1] = u1
+                s = _wide_forward(ua, cp, va, c, K, st, T, E)
+                if s < lim:
+                    if s == 0.0:
+                        return -np.inf, i
+                    inv = 1.0 / s
+                    for k in range(kmax):
+                        va[k] *= inv
+                    flog += math.log(s)
+                for k in range(kmax):
+                    ua[k] = va[k]
+                u0 = ua[0]
+                u1 = ua[1]
+            else:
+                q = cls[cp]
+                v0 = u0 * W[q, c, 0] + u1 * W[q, c, 2]
+                v1 = u0 * W[q, c, 1] + u1 * W[q, c, 3]
+                s = v0 + v1
+                if s < lim:
+                    if s == 0.0:
+                        return -np.inf, i
+                    inv = 1.0 / s
+                    v0 *= inv
+                    v1 *= inv
+                    flog += math.log(s)
+                u0 = v0
+                u1 = v1
+            cp = c
+            if i == b0:
+                if not wide[c]:
+                    ua[0] = u0
+                    ua[1] = u1
+                for s_ in range(m):
+                    alpha_ck[bk, s_] = 0.0
+                for k in range(K[c]):
+                    alpha_ck[bk, st[c, k]] = ua[k]
+                alpha_ck_log[bk] = flog
+            if wide[c]:
+                norm = 0.0
+                for k in range(K[c]):
+                    norm += ua[k] * buf[r, k]
+                if norm == 0.0:
+                    return -np.inf, i
+                inv = 1.0 / norm
+                for k in range(K[c]):
+                    col = gc[c, k]
+                    if col >= 0:
+                        out[i, col] += ua[k] * buf[r, k] * inv
+            else:
+                g0 = u0 * buf[r, 0]
+                g1 = u1 * buf[r, 1]
+                norm = g0 + g1
+                if norm == 0.0:
+                    return -np.inf, i
+                inv = 1.0 / norm
+                col = gc[c, 0]
+                if col >= 0:
+                    out[i, col] += g0 * inv
+                col = gc[c, 1]
+                if col >= 0:
+                    out[i, col] += g1 * inv
+    if not wide[cp]:
+        ua[0] = u0
+        ua[1] = u1
+    final = 0.0
+    for k in range(K[cp]):
+        final += ua[k] * end[st[cp, k]]
+    if final == 0.0:
+        return -np.inf, n
+    return math.log(final) + flog, -1
+
+
+# ----------------------------------------------------------------- Viterbi
+@njit(**_JIT)
+def viterbi_checkpointed(codes, log_start, log_end, K, st, wide, cls, LT, LE, logT, logE,
+                         block, path):
+    """Most probable path into ``path``; (log probability, fail_position), generic tie rule.
+
+    The compact delta vector is kept at the first position of every block; the
+    traceback recomputes each block with its back-pointers (compact indices).
+    """
+    n = codes.shape[0]
+    kmax = st.shape[1]
+    nblocks = (n + block - 1) // block
+    ck = np.empty((nblocks, kmax))
+    da = np.empty(kmax)
+    va = np.empty(kmax)
+    bpa = np.zeros(kmax, dtype=np.int8)
+    c = codes[0]
+    anyv = -np.inf
+    for k in range(kmax):
+        if k < K[c]:
+            v = log_start[st[c, k]] + logE[c, st[c, k]]
+        else:
+            v = -np.inf
+        da[k] = v
+        if v > anyv:
+            anyv = v
+    if anyv == -np.inf:
+        return -np.inf, 0
+    ck[0, :] = da
+    ckpos = block
+    d0 = da[0]
+    d1 = da[1]
+    cp = c
+    for i in range(1, n):
+        c = codes[i]
+        if wide[cp] or wide[c]:
+            if not wide[cp]:
+                da[0] = d0
+                da[1] = d1
+            anyv = _wide_viterbi(da, cp, va, bpa, c, K, st, logT, logE)
+            if anyv == -np.inf:
+                return -np.inf, i
+            for k in range(kmax):
+                da[k] = va[k]
+            d0 = da[0]
+            d1 = da[1]
+        else:
+            q = cls[cp]
+            r = cls[c]
+            a0 = d0 + LT[q, r, 0]
+            a1 = d1 + LT[q, r, 2]
+            m0 = a1 if a1 > a0 else a0
+            a0 = d0 + LT[q, r, 1]
+            a1 = d1 + LT[q, r, 3]
+            m1 = a1 if a1 > a0 else a0
+            d0 = m0 + LE[c, 0]
+            d1 = m1 + LE[c, 1]
+            if d0 == -np.inf and d1 == -np.inf:
+                return -np.inf, i
+        cp = c
+        if i == ckpos:
+            ckpos += block
+            if not wide[c]:
+                da[0] = d0
+                da[1] = d1
+                for k in range(2, kmax):
+                    da[k] = -np.inf
+            ck[i // block, :] = da
+    if not wide[cp]:
+        da[0] = d0
+        da[1] = d1
+        for k in range(2, kmax):
+            da[k] = -np.inf
+    best = -np.inf
+    kbest = -1
+    for k in range(K[cp]):
+        v = da[k] + log_end[st[cp, k]]
+        if v > best:
+            best = v
+            kbest = k
+    if kbest < 0:
+        return -np.inf, n
+    # ---- traceback, one block at a time from the end
+    bps = np.zeros((min(block, n), kmax), dtype=np.int8)
+    kcur = kbest
+    for bk in range(nblocks - 1, -1, -1):
+        b0 = bk * block
+        b1 = min(n, b0 + block)
+        for k in range(kmax):
+            da[k] = ck[bk, k]
+        d0 = da[0]
+        d1 = da[1]
+        cp = codes[b0]
+        for i in range(b0 + 1, b1):
+            c = codes[i]
+            r = i - b0
+            if wide[cp] or wide[c]:
+                if not wide[cp]:
+                    da[0] = d0
+                    da[1] = d1
+                _wide_viterbi(da, cp, va, bpa, c, K, st, logT, logE)
+                for k in range(kmax):
+                    bps[r, k] = bpa[k]
+                for k in range(kmax):
+                    da[k] = va[k]
+                d0 = da[0]
+                d1 = da[1]
+            else:
+                q = cls[cp]
+                q2 = cls[c]
+                a0 = d0 + LT[q, q2, 0]
+                a1 = d1 + LT[q, q2, 2]
+                if a1 > a0:
+                    m0 = a1
+                    bps[r, 0] = 1
+                else:
+                    m0 = a0
+                    bps[r, 0] = 0
+                a0 = d0 + LT[q, q2, 1]
+                a1 = d1 + LT[q, q2, 3]
+                if a1 > a0:
+                    m1 = a1
+                    bps[r, 1] = 1
+                else:
+                    m1 = a0
+                    bps[r, 1] = 0
+                d0 = m0 + LE[c, 0]
+                d1 = m1 + LE[c, 1]
+            cp = c
+        if not wide[cp]:
+            da[0] = d0
+            da[1] = d1
+        if bk < nblocks - 1:
+            # the state at b1 is known: pick its best predecessor at b1 - 1
+            c = codes[b1]
+            t = st[c, kcur]
+            bestp = -np.inf
+            arg = -1
+            for j in range(K[cp]):
+                v = da[j] + logT[st[cp, j], t]
+                if v > bestp:
+                    bestp = v
+                    arg = j
+            kcur = arg if arg >= 0 else 0
+        path[b1 - 1] = st[cp, kcur]
+        for i in range(b1 - 1, b0, -1):
+            kcur = bps[i - b0, kcur]
+            path[i - 1] = st[codes[i - 1], kcur]
+    return best, -1
