@@ -1,0 +1,279 @@
+"""`seqstate fit` on the command line: runs, progress lines, provenance, and bad input.
+
+Every bad input must give one ``error:`` line naming the file (and line, record or
+position where there is one), a non-zero exit status, no traceback, and no model folder
+(nor a temporary one) left behind.  Inputs: tests/data/fit (our own small files).
+"""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+
+from seqstate.cli import main
+from seqstate.io.tables import load_model
+
+DATA = Path(__file__).resolve().parent / "data" / "fit"
+FASTA = str(DATA / "two.fa")
+TWO = str(DATA / "two-labels")
+
+
+def _run(args: list[str]):
+    return CliRunner().invoke(main, args, catch_exceptions=False)
+
+
+def _leftovers(folder: Path) -> list[str]:
+    return sorted(p.name for p in folder.iterdir())
+
+
+# ---------------------------------------------------------------- good runs
+@pytest.mark.parametrize("labels", ["good.gff3", "good.bed"])
+def test_counting_writes_a_model_that_model_check_reads(tmp_path, labels):
+    out = tmp_path / "m"
+    res = _run(["fit", "-m", TWO, "--fasta", FASTA, "--labels", str(DATA / labels), "-o", str(out)])
+    assert res.exit_code == 0, res.stderr
+    assert "counting from labels" in res.stderr
+    assert _leftovers(tmp_path) == ["m"]
+    model = load_model(out)
+    assert model.provenance["state_rule"] == "label"
+    assert model.transitions[0, 1] == 0.0  # forbidden in the start model, still forbidden
+    check = _run(["model", "check", str(out)])
+    assert check.exit_code == 0
+    assert "provenance" in check.stdout
+    assert "fasta_sha256: " in check.stdout and "loglik_nat: " in check.stdout
+
+
+def test_gff3_and_bed_labels_give_the_same_counts(tmp_path):
+    for name in ("good.gff3", "good.bed"):
+        res = _run(
+            [
+                "fit",
+                "-m",
+                TWO,
+                "--fasta",
+                FASTA,
+                "--labels",
+                str(DATA / name),
+                "-o",
+                str(tmp_path / name),
+                "-q",
+            ]
+        )
+        assert res.exit_code == 0, res.stderr
+    a, b = load_model(tmp_path / "good.gff3"), load_model(tmp_path / "good.bed")
+    # good.bed holds r1 4-14 alpha and r1 30-40 beta (0-based half-open), the same bases as
+    # the first two GFF3 lines (1-based closed 5-14, 31-40); good.gff3 also labels r2 1-8
+    assert a.transitions[1].tolist() == b.transitions[1].tolist()  # beta rows agree
+    assert a.start.tolist() != b.start.tolist()  # r2 starts in alpha only in the GFF3
+
+
+def test_em_prints_one_line_per_iteration_and_the_stop_reason(tmp_path):
+    res = _run(
+        [
+            "fit",
+            "-m",
+            TWO,
+            "--fasta",
+            FASTA,
+            "--em",
+            "--max-iter",
+            "3",
+            "--tol",
+            "0",
+            "-o",
+            str(tmp_path / "em"),
+        ]
+    )
+    assert res.exit_code == 0, res.stderr
+    lines = [x for x in res.stderr.splitlines() if x.startswith("em: iteration")]
+    assert len(lines) == 4  # the start model, then one line per update
+    assert "(start model)" in lines[0]
+    for line in lines[1:]:
+        assert re.search(r"loglik -?\d+\.\d+ +change [+-]\S+ +relative [+-]\S+", line), line
+    assert "stopped at --max-iter 3" in res.stderr
+    prov = load_model(tmp_path / "em").provenance
+    assert prov["iterations"] == 3 and prov["pseudocount_em"] == 0.0
+
+
+def test_em_converges_and_says_so(tmp_path):
+    res = _run(
+        [
+            "fit",
+            "-m",
+            TWO,
+            "--fasta",
+            FASTA,
+            "--labels",
+            str(DATA / "good.gff3"),
+            "--em",
+            "--tol",
+            "1e-3",
+            "--freeze",
+            "start",
+            "--freeze",
+            "bg",
+            "-o",
+            str(tmp_path / "both"),
+        ]
+    )
+    assert res.exit_code == 0, res.stderr
+    assert re.search(
+        r"converged after \d+ iterations?: relative gain \S+ \(change / \|previous "
+        r"log-likelihood\|\) below --tol 0.001",
+        res.stderr,
+    )
+    prov = load_model(tmp_path / "both").provenance
+    assert prov["frozen"] == ["start", "bg"]
+    assert prov["method"] == "counting from labels, then Baum-Welch (EM)"
+
+
+def test_force_replaces_a_model_folder_only(tmp_path):
+    out = tmp_path / "m"
+    args = ["fit", "-m", TWO, "--fasta", FASTA, "--em", "--max-iter", "1", "-o", str(out), "-q"]
+    assert _run(args).exit_code == 0
+    again = _run(args)
+    assert again.exit_code == 2 and "already exists" in again.stderr
+    assert _run([*args, "--force"]).exit_code == 0
+    (tmp_path / "other").mkdir()
+    (tmp_path / "other" / "keep.txt").write_text("x")
+    res = _run([*args[:-3], "-o", str(tmp_path / "other"), "--force", "-q"])
+    assert res.exit_code == 2 and "not a model folder" in res.stderr
+    assert (tmp_path / "other" / "keep.txt").read_text() == "x"
+    assert _leftovers(tmp_path) == ["m", "other"]
+
+
+# ---------------------------------------------------------------- bad input
+BAD = [
+    # (name, model, extra args, exit code, patterns the one error line must contain)
+    (
+        "seqid not in FASTA",
+        TWO,
+        ["--labels", str(DATA / "bad_seqid.gff3")],
+        1,
+        [r"bad_seqid\.gff3 line 3", r"seqid 'chr9' is not a record"],
+    ),
+    (
+        "past the end",
+        TWO,
+        ["--labels", str(DATA / "past_end.gff3")],
+        1,
+        [r"past_end\.gff3 line 2, record 'r2'", r"position 41", r"past the end", r"40 bases"],
+    ),
+    (
+        "overlap of types",
+        TWO,
+        ["--labels", str(DATA / "overlap.gff3")],
+        1,
+        [
+            r"overlap\.gff3 line 3, record 'r1'",
+            r"beta overlaps feature alpha of line 2",
+            r"position 18",
+        ],
+    ),
+    (
+        "unknown label type",
+        TWO,
+        ["--labels", str(DATA / "unknown_type.gff3")],
+        1,
+        [r"unknown_type\.gff3 line 3", r"'exon' is not a label of model 'two-labels'"],
+    ),
+    (
+        "BED start > end",
+        TWO,
+        ["--labels", str(DATA / "bad_order.bed")],
+        1,
+        [r"bad_order\.bed line 3", r"start 40 is greater than end 30"],
+    ),
+    (
+        "BED non-numeric",
+        TWO,
+        ["--labels", str(DATA / "bad_number.bed")],
+        1,
+        [r"bad_number\.bed line 3", r"'ten' is not a whole number"],
+    ),
+    (
+        "forbidden transition",
+        TWO,
+        ["--labels", str(DATA / "forbidden.gff3")],
+        1,
+        [
+            r"forbidden\.gff3 line 3, record 'r1'",
+            r"from state 'a' at position 20 to state 'b' "
+            r"at position 21 \(1-based\)",
+            r"forbids",
+        ],
+    ),
+    (
+        "impossible record in EM",
+        str(DATA / "no-t"),
+        ["--em"],
+        1,
+        [r"two\.fa, record 'r1'", r"probability zero", r"position 3"],
+    ),
+    (
+        "label without a fitting state",
+        str(DATA / "no-t"),
+        ["--labels", str(DATA / "good.bed"), "--labels-format", "bed"],
+        1,
+        [r"good\.bed line 1", r"BED name 'alpha' is not a label"],
+    ),
+    ("no method", TWO, [], 2, [r"nothing to do"]),
+    ("unknown freeze", TWO, ["--em", "--freeze", "bogus"], 2, [r"--freeze 'bogus' is neither"]),
+    (
+        "negative pseudocount",
+        TWO,
+        ["--em", "--pseudocount", "-1"],
+        2,
+        [r"--pseudocount -1\.0 must be"],
+    ),
+    (
+        "missing FASTA",
+        TWO,
+        ["--em", "--fasta", str(DATA / "absent.fa")],
+        1,
+        [r"absent\.fa: file not found"],
+    ),
+]
+
+
+@pytest.mark.parametrize("name,model,extra,code,patterns", BAD, ids=[b[0] for b in BAD])
+def test_bad_input_is_one_error_line_and_writes_nothing(
+    tmp_path, name, model, extra, code, patterns
+):
+    out = tmp_path / "never"
+    args = ["fit", "-m", model, "--fasta", FASTA, *extra, "-o", str(out)]
+    if "--fasta" in extra:
+        args = ["fit", "-m", model, *extra, "-o", str(out)]
+    res = _run(args)
+    assert res.exit_code == code, res.stderr
+    errors = [x for x in res.stderr.splitlines() if x.startswith("error:")]
+    assert len(errors) == 1, res.stderr
+    assert res.stderr.rstrip("\n").splitlines()[-1] == errors[0]
+    assert "Traceback" not in res.stderr
+    for pattern in patterns:
+        assert re.search(pattern, errors[0]), (pattern, errors[0])
+    assert not out.exists()
+    assert _leftovers(tmp_path) == []  # no temporary folder either
+
+
+def test_quiet_error_is_the_only_stderr_line(tmp_path):
+    res = _run(
+        [
+            "fit",
+            "-m",
+            TWO,
+            "--fasta",
+            FASTA,
+            "--labels",
+            str(DATA / "overlap.gff3"),
+            "-o",
+            str(tmp_path / "x"),
+            "-q",
+        ]
+    )
+    assert res.exit_code == 1
+    assert res.stderr.count("\n") == 1 and res.stderr.startswith("error: ")
+    assert res.stdout == ""
