@@ -1,0 +1,270 @@
+"""The engine and the built-in models against published examples.
+
+Every published number below is quoted from memory (the documents cannot be
+read here); each assertion names its source.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from hmmlearn import hmm
+
+from seqstate.engine import api
+from seqstate.io.tables import load_model
+from seqstate.model import State, make_model
+
+# ------------------------------------------------------------------ splice-site toy model
+# Eddy, S.R. (2004) "What is a hidden Markov model?", Nature Biotechnology 22:1315-1316,
+# figure 1 (from memory): exon E, 5' splice site 5, intron I.
+EDDY_SEQ = "CTTCATGTGAAAGCAGACGTAAGTCA"
+EDDY_PATH = "E" * 18 + "5" + "I" * 7
+EDDY_STATES = [
+    State("E", "exon"),
+    State("5", "five_prime_cis_splice_site"),
+    State("I", "intron"),
+]
+EDDY_START = [1.0, 0.0, 0.0]
+EDDY_TRANS = [[0.9, 0.1, 0.0], [0.0, 0.0, 1.0], [0.0, 0.0, 0.9]]
+EDDY_END = [0.0, 0.0, 0.1]
+EDDY_EMIS = [[0.25, 0.25, 0.25, 0.25], [0.05, 0.0, 0.95, 0.0], [0.4, 0.1, 0.1, 0.4]]
+
+EDDY_FILES = {
+    "model.toml": """format = "seqstate-model/1"
+name = "splice-toy"
+description = "toy 5' splice-site model"
+alphabet = "ACGT"
+order = 0
+decode = "viterbi"
+
+[tables]
+start = "start.tsv"
+transitions = "transitions.tsv"
+emissions = "emissions.tsv"
+end = "end.tsv"
+
+[[states]]
+name = "E"
+label = "exon"
+
+[[states]]
+name = "5"
+label = "five_prime_cis_splice_site"
+
+[[states]]
+name = "I"
+label = "intron"
+""",
+    "start.tsv": "state\tstart\nE\t1\n5\t0\nI\t0\n",
+    "end.tsv": "state\tend\nE\t0\n5\t0\nI\t0.1\n",
+    "transitions.tsv": "from\tE\t5\tI\nE\t0.9\t0.1\t\n5\t\t\t1\nI\t\t\t0.9\n",
+    "emissions.tsv": (
+        "state\tcontext\tA\tC\tG\tT\n"
+        "E\t.\t0.25\t0.25\t0.25\t0.25\n"
+        "5\t.\t0.05\t0\t0.95\t0\n"
+        "I\t.\t0.4\t0.1\t0.1\t0.4\n"
+    ),
+}
+
+
+def _eddy_from_arrays():
+    return make_model(
+        name="splice-toy",
+        alphabet="ACGT",
+        states=EDDY_STATES,
+        start=EDDY_START,
+        transitions=EDDY_TRANS,
+        end=EDDY_END,
+        emissions=EDDY_EMIS,
+        decode="viterbi",
+    )
+
+
+def _eddy_from_files(tmp_path):
+    folder = tmp_path / "splice-toy"
+    folder.mkdir()
+    for name, text in EDDY_FILES.items():
+        (folder / name).write_text(text, encoding="utf-8")
+    return load_model(folder)
+
+
+@pytest.fixture(params=["make_model", "files"])
+def eddy(request, tmp_path):
+    if request.param == "make_model":
+        return _eddy_from_arrays()
+    return _eddy_from_files(tmp_path)
+
+
+def test_splice_toy_files_and_arrays_are_the_same_model(tmp_path):
+    a, b = _eddy_from_arrays(), _eddy_from_files(tmp_path)
+    for x, y in [
+        (a.start, b.start),
+        (a.transitions, b.transitions),
+        (a.end, b.end),
+        (a.emissions, b.emissions),
+    ]:
+        assert np.array_equal(x, y)
+    assert a.states == b.states
+
+
+@pytest.mark.parametrize("block", [None, 1, 5, len(EDDY_SEQ)])
+def test_splice_toy_viterbi_path_and_log_probability(kernel, eddy, block):
+    tables = api.prepare(eddy)
+    codes = api.encode(tables, EDDY_SEQ)
+    path, logp = api.viterbi(tables, codes, block=block)
+    names = eddy.state_names
+    # Eddy 2004, Nat. Biotechnol. 22:1315, fig. 1 (from memory): the best path puts the
+    # splice site on the G at position 19 (18 E, one 5, 7 I); log P = -41.22
+    assert "".join(names[s] for s in path) == EDDY_PATH
+    assert abs(logp - (-41.22)) <= 0.005
+
+
+def test_splice_toy_posterior_of_splice_site(kernel, eddy):
+    tables = api.prepare(eddy)
+    codes = api.encode(tables, EDDY_SEQ)
+    post = api.posterior(tables, codes, dtype=np.float64)
+    site = post.values[:, 1]
+    chosen = EDDY_PATH.index("5")
+    # Eddy 2004, Nat. Biotechnol. 22:1315, fig. 1 (from memory): the chosen site has
+    # posterior 46%; the runner-up, another G, 28%
+    assert abs(round(float(site[chosen]), 2) - 0.46) <= 0.005
+    ranked = np.argsort(-site)
+    assert ranked[0] == chosen
+    runner_up = int(ranked[1])
+    assert EDDY_SEQ[runner_up] == "G"
+    assert abs(round(float(site[runner_up]), 2) - 0.28) <= 0.005
+    # and the splice site must sit on a G or an A (its emission table)
+    assert set(EDDY_SEQ[i] for i in np.flatnonzero(site > 0)) <= {"G", "A"}
+
+
+# ------------------------------------------------------------------ the dishonest casino
+# Durbin, Eddy, Krogh & Mitchison (1998), Biological Sequence Analysis, ch. 3,
+# section 3.2 (from memory): fair die 1/6 each face, loaded die 1/2 for six and
+# 1/10 otherwise, fair->loaded 0.05, loaded->fair 0.1.
+BOOK_TRANS = np.array([[0.95, 0.05], [0.10, 0.90]])
+BOOK_EMIS = np.array([[1 / 6] * 6, [0.1] * 5 + [0.5]])
+
+
+@pytest.fixture(scope="module")
+def casino_rolls():
+    model = load_model("casino")
+    rng = np.random.default_rng(1998)
+    n = 3000
+    die = np.empty(n, dtype=np.int64)
+    die[0] = rng.choice(2, p=model.start)
+    for i in range(1, n):
+        die[i] = rng.choice(2, p=BOOK_TRANS[die[i - 1]])
+    rolls = np.array([rng.choice(6, p=BOOK_EMIS[d]) for d in die])
+    return model, die, rolls
+
+
+def test_casino_builtin_has_book_parameters(casino_rolls):
+    model = casino_rolls[0]
+    assert model.alphabet == "123456"
+    assert model.state_names == ["fair", "loaded"]
+    # Durbin et al. 1998, ch. 3 (from memory), the parameters above
+    np.testing.assert_allclose(model.transitions, BOOK_TRANS, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(model.emissions[:, 0, :], BOOK_EMIS, rtol=0, atol=1e-12)
+
+
+def _casino_ref(model):
+    ref = hmm.CategoricalHMM(n_components=2, init_params="", params="")
+    ref.startprob_ = model.start.copy()
+    ref.transmat_ = model.transitions.copy()
+    ref.emissionprob_ = model.emissions[:, 0, :].copy()
+    return ref
+
+
+def test_casino_viterbi_matches_hmmlearn_and_recovers_the_die(kernel, casino_rolls):
+    model, die, rolls = casino_rolls
+    tables = api.prepare(model)
+    codes = api.encode(tables, "".join(model.alphabet[r] for r in rolls))
+    path, logp = api.viterbi(tables, codes)
+    want_logp, want_path = _casino_ref(model).decode(rolls.reshape(-1, 1), algorithm="viterbi")
+    # hmmlearn 0.3.3 CategoricalHMM, same tables: identical path, same log probability
+    assert np.array_equal(path.astype(np.int64), want_path)
+    assert abs(logp - want_logp) <= 1e-8 * abs(want_logp)
+    # Durbin et al. 1998, ch. 3 (from memory): Viterbi recovers most loaded stretches;
+    # 75% per-roll agreement with the true die is a common-practice floor
+    accuracy = float(np.mean(path == die))
+    assert accuracy >= 0.75
+    # and it must do better than always answering "fair" (the stationary 2/3)
+    assert accuracy > float(np.mean(die == 0))
+
+
+def test_casino_loaded_posterior_matches_hmmlearn(kernel, casino_rolls):
+    model, die, rolls = casino_rolls
+    tables = api.prepare(model)
+    codes = api.encode(tables, "".join(model.alphabet[r] for r in rolls))
+    loaded = model.states_of_label("loaded")
+    assert loaded.tolist() == [1]
+    post = api.posterior(tables, codes, group=model.label_index(), n_groups=1, dtype=np.float64)
+    want = _casino_ref(model).predict_proba(rolls.reshape(-1, 1))[:, 1]  # hmmlearn 0.3.3
+    np.testing.assert_allclose(post.values[:, 0], want, rtol=0, atol=1e-8)
+    # posterior decoding also tracks the true die (common practice: >= 0.75)
+    assert float(np.mean((post.values[:, 0] > 0.5) == (die == 1))) >= 0.75
+
+
+# ------------------------------------------------------------------ CpG log-odds tables
+ACGT = "ACGT"
+
+
+@pytest.fixture(scope="module")
+def cpg():
+    model = load_model("cpg-island")
+    assert model.state_names == ["island", "background"]
+    assert model.order == 1
+    return model
+
+
+def _beta_bits(model, prev, cur):
+    a, b = ACGT.index(prev), ACGT.index(cur)
+    return math.log2(model.emissions[0, a, b] / model.emissions[1, a, b])
+
+
+def test_cpg_rows_are_normalised(cpg):
+    # the book's + table C row sums to 1.001 (Durbin et al. 1998 p. 50, from memory);
+    # the manifest asks for normalisation, so every loaded row must sum to 1
+    np.testing.assert_allclose(cpg.emissions.sum(axis=-1), 1.0, rtol=0, atol=1e-12)
+
+
+def test_cpg_log_odds_of_cg(cpg):
+    # Durbin et al. 1998, Biological Sequence Analysis, pp. 50-51 (from memory):
+    # beta_CG = log2(a+_CG / a-_CG) = 1.812 bits
+    assert abs(_beta_bits(cpg, "C", "G") - 1.812) <= 0.005
+
+
+@pytest.mark.parametrize(
+    "pair, bits",
+    # Durbin et al. 1998, pp. 50-51, the beta table in bits (from memory); the book
+    # computed it from unrounded counts, hence the 0.01 tolerance
+    [("AA", -0.740), ("CC", 0.302), ("GG", 0.331), ("TT", -0.679)],
+)
+def test_cpg_log_odds_table_entries(cpg, pair, bits):
+    assert abs(_beta_bits(cpg, pair[0], pair[1]) - bits) <= 0.01
+
+
+def test_cpg_segment_log_odds_is_sum_of_dinucleotide_ratios(kernel, cpg):
+    # Derivation (the model's definition): with one state per class, the class path on
+    # the segment is fixed, so P(x_seg | x_before, z_seg = island) is the product of the
+    # island rows a+_{x_{i-1} x_i} over the segment, whatever the state before it (the
+    # transition factors cancel between the restricted forward with and without
+    # emissions); likewise for the background.  The log odds is therefore
+    # sum_i log(a+_{x_{i-1} x_i} / a-_{x_{i-1} x_i}) over i in [start0, end0), where the
+    # first term uses the base before the segment as its context.
+    tables = api.prepare(cpg)
+    rng = np.random.default_rng(51)
+    seq = "".join(ACGT[i] for i in rng.integers(4, size=3000))
+    codes = api.encode(tables, seq)
+    post = api.posterior(tables, codes, dtype=np.float64, block=97)
+    mask = np.array([True, False])
+    ratio = np.log(cpg.emissions[0] / cpg.emissions[1])
+    for s0, e0 in [(1, 2), (1, 3000), (10, 400), (999, 1500), (2000, 2999), (2500, 3000)]:
+        want = sum(ratio[ACGT.index(seq[i - 1]), ACGT.index(seq[i])] for i in range(s0, e0))
+        got = api.segment_log_odds(tables, codes, post, s0, e0, mask)
+        assert abs(got - want) <= 1e-9 * max(1.0, abs(want)), (s0, e0)
+        # the background view is the same number with the sign flipped
+        back = api.segment_log_odds(tables, codes, post, s0, e0, ~mask)
+        assert abs(back + want) <= 1e-9 * max(1.0, abs(want)), (s0, e0)

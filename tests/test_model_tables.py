@@ -1,0 +1,450 @@
+"""Model folders: round trips, canonical text, digests, and one test per malformed case.
+
+The malformed cases copy the valid corpus model tests/data/models/base into a
+temporary folder and break one line.  Every message must name the file and the
+row (its 1-based line, or the state/context it is about when the row is absent
+or the problem is the manifest's), which is the contract of seqstate.errors.
+"""
+
+from __future__ import annotations
+
+import re
+import shutil
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from seqstate.engine import api
+from seqstate.errors import ModelFormatError
+from seqstate.io.tables import list_builtin, load_model, model_sha256, render_tables, save_model
+from seqstate.model import State, make_model
+
+CORPUS = Path(__file__).resolve().parent / "data" / "models"
+
+
+# ------------------------------------------------------------------ round trips
+def test_builtins_are_listed():
+    assert {"cpg-island", "cpg-island-8", "casino"} <= set(list_builtin())
+
+
+@pytest.mark.parametrize("name", list_builtin())
+def test_builtin_load_save_load_is_identical(name, tmp_path):
+    first = load_model(name)
+    save_model(first, tmp_path / name)
+    second = load_model(tmp_path / name)
+    assert first.equals(second)
+    # a second trip changes nothing either, down to the bytes
+    save_model(second, tmp_path / "again")
+    for fname, _ in render_tables(second):
+        assert (tmp_path / "again" / fname).read_bytes() == (tmp_path / name / fname).read_bytes()
+
+
+@pytest.mark.parametrize("name", list_builtin())
+def test_render_tables_equals_saved_files(name, tmp_path):
+    model = load_model(name)
+    folder = tmp_path / "out"
+    save_model(model, folder)
+    rendered = render_tables(model)
+    assert rendered[0][0] == "model.toml"
+    assert sorted(p.name for p in folder.iterdir()) == sorted(f for f, _ in rendered)
+    for fname, text in rendered:
+        assert (folder / fname).read_text(encoding="utf-8") == text
+
+
+@pytest.mark.parametrize("name", list_builtin())
+def test_model_sha256_is_stable(name, tmp_path):
+    model = load_model(name)
+    digest = model_sha256(model)
+    assert re.fullmatch(r"[0-9a-f]{64}", digest)
+    assert model_sha256(load_model(name)) == digest
+    save_model(model, tmp_path / "copy")
+    assert model_sha256(load_model(tmp_path / "copy")) == digest
+    # any changed probability changes the digest
+    changed = load_model(name)
+    changed.transitions[0, 0] = np.nextafter(changed.transitions[0, 0], 0.0)
+    assert model_sha256(changed) != digest
+
+
+def test_model_sha256_ignores_layout_of_files(tmp_path):
+    # the same tables with reordered columns and rows, comments, blank lines and CRLF
+    # line ends must give the same digest as the built-in copy
+    src = load_model("cpg-island")
+    folder = tmp_path / "shuffled"
+    shutil.copytree(Path(__file__).resolve().parent.parent / "models" / "cpg-island", folder)
+    (folder / "transitions.tsv").write_text(
+        "# reordered\r\nfrom\tbackground\tisland\r\n\r\nbackground\t0.99999\t0.00001\r\n"
+        "island\t0.001\t0.999\r\n",
+        encoding="utf-8",
+        newline="",
+    )
+    lines = (folder / "emissions.tsv").read_text(encoding="utf-8").splitlines()
+    head = [ln for ln in lines if ln.startswith("state\t")][0].split("\t")
+    body = [ln.split("\t") for ln in lines if ln and not ln.startswith(("#", "state\t"))]
+    order = [0, 1, 5, 4, 3, 2]  # state, context, T, G, C, A
+    out = ["\t".join(head[i] for i in order)]
+    out += ["\t".join(row[i] for i in order) for row in reversed(body)]
+    (folder / "emissions.tsv").write_text("\n\n".join(out) + "\n", encoding="utf-8")
+    (folder / "start.tsv").write_text(
+        "state\tstart\nbackground\t0.99\nisland\t0.01\n", encoding="utf-8"
+    )
+    other = load_model(folder)
+    assert other.equals(src)
+    assert model_sha256(other) == model_sha256(src)
+
+
+@pytest.mark.parametrize("seed", range(8))
+def test_random_model_round_trip(random_model, seed, tmp_path):
+    rng = np.random.default_rng(300 + seed)
+    model = random_model(
+        rng,
+        n_states=int(rng.integers(1, 6)),
+        order=int(rng.integers(0, 3)),
+        with_end=bool(seed % 2 == 0),
+        p_forbid=0.3,
+        p_zero_emission=0.2,
+        lower_rows=True,
+        name=f"random-{seed}",
+    )
+    model.description = 'quotes " and \\ backslash,\ttab, new\nline, unicode 5\u2032 end'
+    model.provenance = {
+        "source": "random",
+        "seed": seed,
+        "scale": 1e-5,
+        "flag": True,
+        "nested": {"list": [1, 2.5, "x"], "key with space": "v"},
+    }
+    model.extra = {"origin": "test", "meta": {"depth": 2}}
+    model.decode = "viterbi" if seed % 3 == 0 else "posterior"
+    model.background_label = "bg" if seed % 2 else None
+    save_model(model, tmp_path / "m")
+    back = load_model(tmp_path / "m")
+    assert back.equals(model)
+    assert model_sha256(back) == model_sha256(model)
+    # and the engine reads the same numbers from both (common practice: a file format
+    # that round-trips its data exactly)
+    t1, t2 = api.prepare(model), api.prepare(back)
+    assert np.array_equal(t1.E, t2.E)
+
+
+def test_equals_sees_a_changed_value(tmp_path):
+    model = load_model(CORPUS / "base")
+    save_model(model, tmp_path / "m")
+    back = load_model(tmp_path / "m")
+    assert back.equals(model)
+    back.emissions[2, 1, 0] = np.nextafter(back.emissions[2, 1, 0], 1.0)
+    assert not back.equals(model)
+
+
+def test_corpus_models_round_trip(tmp_path):
+    for name in ("base", "counts", "dice-order1"):
+        model = load_model(CORPUS / name)
+        save_model(model, tmp_path / name)
+        assert load_model(tmp_path / name).equals(model), name
+
+
+def test_alphabet_of_die_faces_with_order_one_loads():
+    model = load_model(CORPUS / "dice-order1")
+    assert model.alphabet == "123456"
+    assert model.order == 1
+    assert model.emissions.shape == (2, 6, 6)
+    assert model.end is None
+    assert model.emissions[0, 2, 2] == 0.5  # even state, context '3', face 3
+    tables = api.prepare(model)
+    codes = api.encode(tables, "1234563N66")
+    assert np.isfinite(api.loglik(tables, codes))
+
+
+# ------------------------------------------------------------------ normalize = true
+def test_normalize_accepts_raw_counts():
+    model = load_model(CORPUS / "counts")
+    # each row divided by its total (common practice); transitions and end together
+    np.testing.assert_allclose(model.start, [3 / 4, 1 / 4], rtol=1e-15)
+    np.testing.assert_allclose(
+        model.transitions, [[90 / 100, 8 / 100], [5 / 50, 45 / 50]], rtol=1e-15
+    )
+    np.testing.assert_allclose(model.end, [2 / 100, 0.0], rtol=1e-15)
+    np.testing.assert_allclose(
+        model.emissions[:, 0, :], [[0.1, 0.2, 0.3, 0.4], [7 / 15, 0.0, 7 / 15, 1 / 15]], rtol=1e-15
+    )
+
+
+def test_without_normalize_counts_are_rejected(tmp_path):
+    folder = _copy(tmp_path, "counts")
+    _edit(folder, "model.toml", "normalize = true", "normalize = false")
+    with pytest.raises(ModelFormatError) as info:
+        load_model(folder)
+    assert "start.tsv" in str(info.value) or "transitions.tsv" in str(info.value)
+
+
+@pytest.mark.parametrize(
+    "fname, old, new, state",
+    [
+        ("emissions.tsv", "q\t", "q\t.\t0\t\t0\t0", "q"),
+        ("transitions.tsv", "q\t", "q\t0\t0", "q"),
+    ],
+    ids=["emissions", "transitions"],
+)
+def test_normalize_names_the_row_that_sums_to_zero(tmp_path, fname, old, new, state):
+    # a row of zero counts cannot be normalised; like every table error the message
+    # must name the table file and the row (errors.py contract)
+    folder = _copy(tmp_path, "counts")
+    line = _edit(folder, fname, old, new)
+    msg = _error(folder)
+    assert "sums to 0" in msg, msg
+    assert fname in msg, msg
+    assert _names_line(msg, fname, line) or f"'{state}'" in msg, msg
+
+
+def test_provenance_that_is_not_a_table(tmp_path):
+    # [provenance] is a TOML table; a plain string there must either be rejected with
+    # a message naming model.toml and the key, or survive a save/load round trip.  It
+    # must not load and then fail later with a non-seqstate exception.
+    folder = _copy(tmp_path)
+    path = folder / "model.toml"
+    text = path.read_text(encoding="utf-8")
+    text = text.replace('[provenance]\nsource = "hand-written test data"\n', "")
+    text = text.replace("normalize = false\n", 'normalize = false\nprovenance = "free text"\n')
+    path.write_text(text, encoding="utf-8")
+    try:
+        model = load_model(folder)
+    except ModelFormatError as exc:
+        assert "model.toml" in str(exc) and "provenance" in str(exc), str(exc)
+        return
+    save_model(model, tmp_path / "out")
+    assert load_model(tmp_path / "out").equals(model)
+    assert isinstance(model_sha256(model), str)
+
+
+# ------------------------------------------------------------------ malformed tables
+def _copy(tmp_path: Path, name: str = "base") -> Path:
+    folder = tmp_path / name
+    shutil.copytree(CORPUS / name, folder)
+    return folder
+
+
+def _edit(folder: Path, fname: str, old: str, new: str | None) -> int:
+    """Replace the one line that starts with ``old`` (None deletes it); its 1-based number."""
+    path = folder / fname
+    lines = path.read_text(encoding="utf-8").split("\n")
+    hits = [i for i, ln in enumerate(lines) if ln.startswith(old)]
+    assert len(hits) == 1, (fname, old, hits)
+    if new is None:
+        del lines[hits[0]]
+    else:
+        lines[hits[0]] = new
+    path.write_text("\n".join(lines), encoding="utf-8")
+    return hits[0] + 1
+
+
+def _append(folder: Path, fname: str, text: str) -> int:
+    """Append one line; its 1-based number."""
+    path = folder / fname
+    body = path.read_text(encoding="utf-8")
+    if not body.endswith("\n"):
+        body += "\n"
+    n = body.count("\n") + 1
+    path.write_text(body + text + "\n", encoding="utf-8")
+    return n
+
+
+def _error(folder: Path) -> str:
+    with pytest.raises(ModelFormatError) as info:
+        load_model(folder)
+    return str(info.value)
+
+
+def _names_line(msg: str, fname: str, line: int) -> bool:
+    return re.search(rf"{re.escape(fname)} line {line}\b", msg) is not None
+
+
+def test_base_corpus_model_is_valid():
+    model = load_model(CORPUS / "base")
+    assert model.state_names == ["bg", "up", "down"]
+    assert sorted(model.lower_emissions) == [0]
+
+
+def test_transitions_row_not_summing_to_one(tmp_path):
+    folder = _copy(tmp_path)
+    line = _edit(folder, "transitions.tsv", "up\t", "up\t0.05\t0.9\t")
+    msg = _error(folder)
+    assert _names_line(msg, "transitions.tsv", line), msg
+    assert "'up'" in msg and "0.95" in msg, msg
+
+
+def test_transitions_row_not_summing_to_one_without_end_table(tmp_path):
+    folder = _copy(tmp_path, "dice-order1")
+    line = _edit(folder, "transitions.tsv", "odd\t", "odd\t0.2\t0.7")
+    msg = _error(folder)
+    assert _names_line(msg, "transitions.tsv", line), msg
+    assert "'odd'" in msg and "0.9" in msg, msg
+
+
+def test_emission_row_not_summing_to_one(tmp_path):
+    folder = _copy(tmp_path)
+    line = _edit(folder, "emissions.tsv", "up\tC\t", "up\tC\t0.1\t0.4\t0.4\t0.2")
+    msg = _error(folder)
+    assert _names_line(msg, "emissions.tsv", line), msg
+    assert "'up'" in msg and "'C'" in msg and "1.1" in msg, msg
+
+
+def test_backoff_emission_row_not_summing_to_one(tmp_path):
+    folder = _copy(tmp_path)
+    line = _edit(folder, "emissions.tsv", "bg\t.\t", "bg\t.\t0.3\t0.2\t0.2\t0.2")
+    msg = _error(folder)
+    assert _names_line(msg, "emissions.tsv", line), msg
+    assert "0.9" in msg, msg
+
+
+def test_start_not_summing_to_one(tmp_path):
+    folder = _copy(tmp_path)
+    _edit(folder, "start.tsv", "up\t", "up\t0.2")
+    msg = _error(folder)
+    assert "start.tsv" in msg and "1.1" in msg, msg
+    # errors.py contract (file, line, row): a table error names a line of the file.
+    # No single row is at fault in a bad start total, so any line of start.tsv (its
+    # header, or its last row) satisfies the test.
+    assert re.search(r"start\.tsv line \d+", msg), msg
+
+
+@pytest.mark.parametrize(
+    "fname, old, new",
+    [
+        ("transitions.tsv", "down\t", "down\t-0.1\t\t1.08"),
+        ("emissions.tsv", "down\tA\t", "down\tA\t0.5\t-0.1\t0.2\t0.4"),
+        ("start.tsv", "bg\t", "bg\t-0.8"),
+        ("end.tsv", "down\t", "down\t-0.02"),
+    ],
+)
+def test_negative_value(tmp_path, fname, old, new):
+    folder = _copy(tmp_path)
+    line = _edit(folder, fname, old, new)
+    msg = _error(folder)
+    assert _names_line(msg, fname, line), msg
+    assert "negative" in msg, msg
+
+
+@pytest.mark.parametrize(
+    "fname, old, new, cell",
+    [
+        ("emissions.tsv", "bg\tA\t", "bg\tA\t0.3\t0.2\tabc\t0.2", "abc"),
+        ("transitions.tsv", "bg\t", "bg\t0.97\t0,01\t0.01", "0,01"),
+        ("start.tsv", "down\t", "down\tten", "ten"),
+        ("end.tsv", "bg\t", "bg\t1/100", "1/100"),
+        ("emissions.tsv", "up\tA\t", "up\tA\tnan\t0.4\t0.4\t0.1", "nan"),
+    ],
+)
+def test_non_numeric_value(tmp_path, fname, old, new, cell):
+    folder = _copy(tmp_path)
+    line = _edit(folder, fname, old, new)
+    msg = _error(folder)
+    assert _names_line(msg, fname, line), msg
+    assert cell in msg, msg
+
+
+@pytest.mark.parametrize(
+    "fname, old, new",
+    [
+        ("transitions.tsv", "down\t", "dwn\t0.1\t\t0.88"),
+        ("transitions.tsv", "from\t", "from\tbg\tup\tdwn"),
+        ("emissions.tsv", "down\tT\t", "dwn\tT\t0.4\t0.1\t0.15\t0.35"),
+        ("start.tsv", "down\t", "dwn\t0.1"),
+        ("end.tsv", "down\t", "dwn\t0.02"),
+    ],
+)
+def test_unknown_state_in_a_table(tmp_path, fname, old, new):
+    folder = _copy(tmp_path)
+    line = _edit(folder, fname, old, new)
+    msg = _error(folder)
+    assert _names_line(msg, fname, line), msg
+    assert "'dwn'" in msg, msg
+
+
+def test_duplicate_state_name_in_manifest(tmp_path):
+    folder = _copy(tmp_path)
+    path = folder / "model.toml"
+    text = path.read_text(encoding="utf-8")
+    text = text.replace(
+        "[provenance]", '[[states]]\nname = "up"\nlabel = "feature"\n\n[provenance]'
+    )
+    path.write_text(text, encoding="utf-8")
+    msg = _error(folder)
+    assert "model.toml" in msg and "'up'" in msg, msg
+    # the row: the fourth [[states]] entry (1-based) or its line in model.toml
+    line = text.split("\n").index('name = "up"', text.split("\n").index('name = "down"')) + 1
+    assert re.search(r"\bentry 4\b", msg) or _names_line(msg, "model.toml", line), msg
+
+
+@pytest.mark.parametrize(
+    "fname, text, state",
+    [
+        ("transitions.tsv", "up\t0.05\t0.95\t", "up"),
+        ("emissions.tsv", "down\tC\t0.4\t0.1\t0.1\t0.4", "down"),
+        ("emissions.tsv", "bg\t.\t0.25\t0.25\t0.25\t0.25", "bg"),
+        ("start.tsv", "bg\t0.8", "bg"),
+        ("end.tsv", "down\t0.02", "down"),
+    ],
+)
+def test_duplicate_row_in_a_table(tmp_path, fname, text, state):
+    folder = _copy(tmp_path)
+    line = _append(folder, fname, text)
+    msg = _error(folder)
+    assert _names_line(msg, fname, line), msg
+    assert "duplicate" in msg and f"'{state}'" in msg, msg
+
+
+def test_missing_emission_context(tmp_path):
+    folder = _copy(tmp_path)
+    _edit(folder, "emissions.tsv", "down\tG\t", None)
+    msg = _error(folder)
+    # the row is absent, so the message names it by state and context
+    assert "emissions.tsv" in msg and "'G'" in msg and "'down'" in msg, msg
+
+
+def test_missing_transitions_row(tmp_path):
+    folder = _copy(tmp_path)
+    _edit(folder, "transitions.tsv", "up\t", None)
+    msg = _error(folder)
+    assert "transitions.tsv" in msg and "'up'" in msg, msg
+
+
+def test_state_unreachable_from_start(tmp_path):
+    folder = _copy(tmp_path)
+    _edit(folder, "start.tsv", "bg\t", "bg\t0.9")
+    _edit(folder, "start.tsv", "down\t", "down\t0")
+    _edit(folder, "transitions.tsv", "bg\t", "bg\t0.97\t0.02\t")  # nothing enters down
+    msg = _error(folder)
+    assert "model.toml" in msg and "'down'" in msg and "reached" in msg, msg
+
+
+def test_state_from_which_no_end_is_reachable(tmp_path):
+    folder = _copy(tmp_path)
+    _edit(folder, "transitions.tsv", "up\t", "up\t\t1.0\t")  # up is absorbing; its end is 0
+    msg = _error(folder)
+    assert "model.toml" in msg and "'up'" in msg and "end" in msg, msg
+
+
+def test_make_model_rejects_the_same_cases():
+    # the array path (make_model) enforces the same rules as the files
+    states = [State("a"), State("b")]
+    good = dict(
+        name="x",
+        alphabet="ACGT",
+        states=states,
+        start=[0.5, 0.5],
+        transitions=[[0.9, 0.1], [0.2, 0.8]],
+        emissions=[[0.25] * 4, [0.1, 0.2, 0.3, 0.4]],
+    )
+    make_model(**good)
+    bad = [
+        dict(transitions=[[0.9, 0.05], [0.2, 0.8]]),
+        dict(start=[0.5, 0.6]),
+        dict(emissions=[[0.25] * 4, [0.1, 0.2, 0.3, 0.5]]),
+        dict(emissions=[[0.25] * 4, [-0.1, 0.4, 0.3, 0.4]]),
+        dict(states=[State("a"), State("a")]),
+        dict(start=[1.0, 0.0], transitions=[[1.0, 0.0], [0.2, 0.8]]),
+        dict(end=[0.0, 0.1], transitions=[[1.0, 0.0], [0.2, 0.7]]),
+    ]
+    for change in bad:
+        with pytest.raises(ModelFormatError):
+            make_model(**{**good, **change})
