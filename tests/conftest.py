@@ -13,6 +13,7 @@
 
 from __future__ import annotations
 
+import bisect
 import contextlib
 from pathlib import Path
 
@@ -172,16 +173,34 @@ def sample_record(
     models without zero emissions inside a state's allowed symbols, where such a
     record always has positive probability.
     """
-    m, a, k = model.n_states, len(model.alphabet), model.order
+    a, k = len(model.alphabet), model.order
+
+    def cdf(rows: np.ndarray) -> list[list[float]]:
+        out = []
+        for row in rows.reshape(-1, rows.shape[-1]):
+            if row.sum() > 0:
+                c = np.cumsum(row / row.sum())
+                c[np.flatnonzero(row > 0)[-1] :] = 1.0  # no rounding gap at the top
+            else:
+                c = np.ones(len(row))
+            out.append(c.tolist())
+        return out
+
+    def draw(c: list[float], u: float) -> int:
+        # first i with u < c[i]: entry i has probability c[i] - c[i-1] (never zero here)
+        return min(bisect.bisect_right(c, u), len(c) - 1)
+
+    t_cdf = cdf(model.transitions)
+    e_cdf = cdf(model.emissions)  # index s * a**k + context
+    s_cdf = cdf(model.start[None, :])[0]
     for _ in range(1000):
-        z = [int(rng.choice(m, p=model.start))]
+        z = [draw(s_cdf, rng.random())]
         ok = True
         for _ in range(n - 1):
-            row = model.transitions[z[-1]]
-            if row.sum() <= 0:
+            if model.transitions[z[-1]].sum() <= 0:
                 ok = False
                 break
-            z.append(int(rng.choice(m, p=row / row.sum())))
+            z.append(draw(t_cdf[z[-1]], rng.random()))
         if not ok or (model.end is not None and model.end[z[-1]] <= 0):
             continue
         sym: list[int] = []
@@ -190,7 +209,7 @@ def sample_record(
                 c = 0
                 for y in sym[i - k : i]:
                     c = c * a + y
-                sym.append(int(rng.choice(a, p=model.emissions[s, c])))
+                sym.append(draw(e_cdf[s * a**k + c], rng.random()))
             else:
                 can = np.flatnonzero(model.emissions[s].max(axis=0) > 0)
                 sym.append(int(rng.choice(can)))
