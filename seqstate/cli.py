@@ -434,5 +434,52 @@ def fit_cmd(obj, model, fasta, labels, labels_format, em, max_iter, tol, freeze,
                    f"log) -> {report.out}/", err=True)
 
 
+# ---------------------------------------------------------------- compare
+@main.command("compare")
+@click.argument("predicted")
+@click.argument("reference")
+@click.option(
+    "--type",
+    "feature_type",
+    default=None,
+    help="Feature type to compare (CDS, exon, CpG_island, ...); default: CDS if either "
+    "file has CDS, else the only type both files have.",
+)
+@click.option(
+    "--region",
+    default=None,
+    help="Only ID:START-END (1-based, inclusive) or ID; also gives the span of a sequence "
+    "without a ##sequence-region line.",
+)
+@click.option(
+    "-o",
+    "--out",
+    "out",
+    default=None,
+    help="Report file, .tsv or .json (the format follows the name); default: a table on "
+    "standard output.",
+)
+@click.option("-q", "--quiet", is_flag=True, help="No summary on stderr when writing -o.")
+def compare_cmd(predicted, reference, feature_type, region, out, quiet) -> None:
+    """Accuracy of PREDICTED features against REFERENCE features (both GFF3)."""
+    from seqstate.compare import compare_files, report_format, report_table, write_report
+
+    if out is not None:
+        report_format(out)
+    result = compare_files(predicted, reference, feature_type=feature_type, region=region)
+    if out is None:
+        click.echo(report_table(result), nl=False)
+        return
+    write_report(result, out)
+    if not quiet:
+        sn = result["nucleotide"]["strand_aware"]["sensitivity"]
+        sp = result["nucleotide"]["strand_aware"]["specificity"]
+        shown = "NA" if sn is None else f"{sn:.4f}", "NA" if sp is None else f"{sp:.4f}"
+        click.echo(
+            f"seqstate: {result['type']}, strand-aware base Sn {shown[0]} Sp {shown[1]} -> {out}",
+            err=True,
+        )
+
+
 if __name__ == "__main__":  # pragma: no cover
     main()
