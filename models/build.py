@@ -1,7 +1,9 @@
 """Rebuild the derived built-in models from their sources.
 
 Run from the repository root:  python models/build.py
-Writes models/cpg-island-8 from models/cpg-island.
+Writes models/cpg-island-8 from models/cpg-island, and models/gene-segment-layout (the
+gene-segment skeleton, uniform over its allowed moves and bases; seqstate fit turns it into
+models/gene-segment, see models/README.md).
 """
 
 from pathlib import Path
@@ -31,8 +33,20 @@ def build_cpg8():
     return eight
 
 
+def build_gene_layout():
+    from seqstate.genes import build_layout
+
+    layout = build_layout(3)
+    layout.provenance = {
+        "source": "seqstate.genes.build_layout(3) via models/build.py; uniform over the "
+        "allowed moves and bases (fit with seqstate fit, see models/README.md)",
+    }
+    return layout
+
+
 def main() -> None:
     save_model(build_cpg8(), HERE / "cpg-island-8")
+    save_model(build_gene_layout(), HERE / "gene-segment-layout")
 
 
 if __name__ == "__main__":

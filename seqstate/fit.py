@@ -24,8 +24,10 @@ label's state on the feature's strand).  Without a declaration the rule is
 inferred: ``label`` when every label (and the unlabelled group) has exactly one
 state, else ``label_and_base`` when the model is order 0 and each state of a
 multi-state label emits one distinct symbol with probability 1, else an error
-asks for a declaration.  ``label_and_frame`` (codon position from the CDS
-phase) is reserved for gene models and not available yet.
+asks for a declaration.  ``gene_structure`` reads a GFF3 gene annotation
+(gene -> mRNA -> CDS with phase) through :func:`seqstate.genes.label_records`,
+the labelling rule of the gene-segment layout (codon positions, intron copies
+and splice chains, both strands).
 
 **Baum–Welch (EM).**  Expected counts from a checkpointed forward–backward over
 every record (:mod:`seqstate.engine.training`), pooled, then the same
@@ -97,12 +99,12 @@ from seqstate.io.tables import MANIFEST, load_model, model_sha256, save_model
 from seqstate.model import Model, make_model, validate
 
 #: State rules that are implemented (see :func:`assign_states`).
-STATE_RULES = ("label", "label_and_base", "label_and_strand")
+STATE_RULES = ("label", "label_and_base", "label_and_strand", "gene_structure")
 #: State rules the manifest may name but that are not available yet.  Extension point:
 #: a gene model will need the codon position of each CDS base, taken from the GFF3
 #: phase (column 8) of its CDS feature; add the rule to STATE_RULES and a branch to
 #: assign_states (the per-base phase is already carried by LabelFeature).
-PLANNED_STATE_RULES = {"label_and_frame": "the codon position from the CDS phase"}
+PLANNED_STATE_RULES: dict[str, str] = {}
 #: Keywords of ``--freeze`` (anything else must be a state name).
 FREEZE_KEYWORDS = ("start", "transitions", "emissions")
 
@@ -502,6 +504,39 @@ class Counts:
         self.end += other.end
         self.emissions += other.emissions
         self.loglik += other.loglik
+
+
+def pool_counts(model: Model, counts: Counts) -> None:
+    """Pool emission counts as the manifest's ``[fit]`` table asks (in place).
+
+    ``emission_order = {STATE = j}``: the state's counts are summed over the
+    oldest k - j context symbols, so its rows depend on the last j bases only
+    (order j inside an order-k table).  ``tie = [[STATE, ...], ...]``: the
+    emission counts of each group are summed and shared, so tied states get one
+    table.  Used for position-specific states with few observations.
+    """
+    fit_table = model.extra.get("fit", {})
+    if not isinstance(fit_table, dict):
+        return
+    names = {n: i for i, n in enumerate(model.state_names)}
+    a, k = len(model.alphabet), model.order
+    for name, j in dict(fit_table.get("emission_order", {})).items():
+        if name not in names:
+            raise ModelFormatError(f"[fit] emission_order names unknown state '{name}'")
+        j = int(j)
+        if not 0 <= j <= k:
+            raise ModelFormatError(f"[fit] emission_order of '{name}' is {j}, expected 0..{k}")
+        s = names[name]
+        e = counts.emissions[s].reshape(a ** (k - j), a**j, a)
+        counts.emissions[s] = np.broadcast_to(e.sum(axis=0), e.shape).reshape(a**k, a)
+    for group in fit_table.get("tie", []):
+        idx = []
+        for name in group:
+            if name not in names:
+                raise ModelFormatError(f"[fit] tie names unknown state '{name}'")
+            idx.append(names[name])
+        total = counts.emissions[idx].sum(axis=0)
+        counts.emissions[idx] = total
 
 
 def count_path(
@@ -1077,11 +1112,35 @@ def fit(opts: FitOptions, *, log: Log = _quiet) -> FitReport:
     pc_count = 1.0 if opts.pseudocount is None else float(opts.pseudocount)
     pc_em = 0.0 if opts.pseudocount is None else float(opts.pseudocount)
     model = start_model
+    labelling_report: dict | None = None
     kept: list[str] = []
     methods: list[str] = []
     n_features = 0
     codes_list = []
-    if opts.labels:
+    if opts.labels and rule == "gene_structure":
+        from seqstate import genes
+        from seqstate.io.gff3 import read_gff3
+
+        features = read_gff3(opts.labels)
+        n_features = len(features)
+        pairs, gene_report = genes.label_records(start_model, records, features,
+                                                 path=opts.labels)
+        counts = Counts.zeros(start_model)
+        for k, (seq, states) in enumerate(pairs):
+            rid = records[k // 2].id + ("" if k % 2 == 0 else " (reverse complement)")
+            codes = api.encode(tables, seq, masked_unknown=masked)
+            counts.add(count_path(start_model, tables, codes, states, record=rid,
+                                  path=opts.labels))
+            if k % 2 == 0:
+                codes_list.append(codes)
+        pool_counts(start_model, counts)
+        model, kept = estimate(start_model, counts, pseudocount=pc_count, frozen=frozen)
+        methods.append("counting from a gene annotation")
+        log(f"fit: genes used {gene_report.used}, skipped "
+            + (", ".join(f"{v} ({k})" for k, v in sorted(gene_report.skipped.items()))
+               or "none"))
+        labelling_report = gene_report.as_dict()
+    elif opts.labels:
         features = read_labels(opts.labels, start_model, opts.labels_format)
         n_features = len(features)
         by_record = group_features(features, lengths, opts.labels)
@@ -1173,6 +1232,8 @@ def fit(opts: FitOptions, *, log: Log = _quiet) -> FitReport:
                 "pseudocount_counting": pc_count,
             }
         )
+    if labelling_report is not None:
+        prov["labelling"] = labelling_report
     prov["records"] = len(ids)
     prov["bases"] = total_bases
     prov["masked"] = opts.masked

@@ -211,9 +211,6 @@ def test_state_rule_inference_and_declaration(tmp_path):
     for rule in fit.STATE_RULES:
         two.extra = {"fit": {"state_rule": rule}}
         assert fit.resolve_state_rule(two) == rule
-    two.extra = {"fit": {"state_rule": "label_and_frame"}}
-    with pytest.raises(ModelFormatError, match="not available yet"):
-        fit.resolve_state_rule(two)
     two.extra = {"fit": {"state_rule": "by_magic"}}
     with pytest.raises(ModelFormatError, match="unknown"):
         fit.resolve_state_rule(two)
