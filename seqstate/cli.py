@@ -414,20 +414,24 @@ def plot_cmd(
 @click.option("--masked", type=click.Choice(["base", "unknown"]), default="base",
               show_default=True, help="Read lowercase (soft-masked) bases as their base or as "
               "unknown.")
+@click.option("--bad-genes", type=click.Choice(["skip", "fail"]), default="skip",
+              show_default=True, help="Gene models: skip a gene whose annotation the "
+              "layout cannot use (phases that contradict the lengths, no stop codon, ...), "
+              "or fail naming it.")
 @click.option("--name", default=None, help="Name of the fitted model [default: folder name].")
 @click.option("-o", "--out", "out_dir", required=True, help="Model folder to write.")
 @click.option("--force", is_flag=True, help="Replace an existing model folder at --out.")
 @click.option("-q", "--quiet", is_flag=True, help="No progress lines on stderr.")
 @click.pass_obj
 def fit_cmd(obj, model, fasta, labels, labels_format, em, max_iter, tol, freeze, pseudocount,
-            masked, name, out_dir, force, quiet) -> None:
+            masked, bad_genes, name, out_dir, force, quiet) -> None:
     """Fit a model's tables to sequences: count from known features and/or Baum-Welch."""
     from seqstate.fit import FitOptions, fit, stderr_log
 
     opts = FitOptions(model=model, fasta=fasta, out=out_dir, labels=labels,
                       labels_format=labels_format, em=em, max_iter=max_iter, tol=tol,
                       freeze=list(freeze), pseudocount=pseudocount, masked=masked, name=name,
-                      force=force, command_line=command_line(obj))
+                      force=force, command_line=command_line(obj), bad_genes=bad_genes)
     report = fit(opts, log=(lambda _: None) if quiet else stderr_log)
     if not quiet:
         click.echo(f"seqstate: {report.method}: log-likelihood {report.loglik:.6f} (natural "

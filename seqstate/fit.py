@@ -984,6 +984,7 @@ class FitOptions:
     name: str | None = None
     force: bool = False
     command_line: list[str] = field(default_factory=list)
+    bad_genes: str = "skip"
 
 
 @dataclass
@@ -1124,7 +1125,7 @@ def fit(opts: FitOptions, *, log: Log = _quiet) -> FitReport:
         features = read_gff3(opts.labels)
         n_features = len(features)
         pairs, gene_report = genes.label_records(start_model, records, features,
-                                                 path=opts.labels)
+                                                 path=opts.labels, bad_genes=opts.bad_genes)
         counts = Counts.zeros(start_model)
         for k, (seq, states) in enumerate(pairs):
             rid = records[k // 2].id + ("" if k % 2 == 0 else " (reverse complement)")

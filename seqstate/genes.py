@@ -553,8 +553,8 @@ def _frames(tx: Transcript, length: int) -> dict[int, int]:
     return out
 
 
-def label_records(model: Model, records: list, features: list[Feature], *,
-                  path: str) -> tuple[list[tuple[bytes, np.ndarray]], LabelReport]:
+def label_records(model: Model, records: list, features: list[Feature], *, path: str,
+                  bad_genes: str = "skip") -> tuple[list[tuple[bytes, np.ndarray]], LabelReport]:
     """The labelling rule: GFF3 genes -> one state path per record, and its mirror.
 
     For each gene, the longest transcript that passes :func:`check_transcript` is
@@ -563,7 +563,9 @@ def label_records(model: Model, records: list, features: list[Feature], *,
     codon positions (the isoforms disagree on the frame), or when its coding span
     (first to last coding base of any transcript, with the start flank) overlaps
     another coding gene's.  Spans of pseudogenes are unknown; every other base
-    (untranslated regions and non-coding genes included) is intergenic.  Returns
+    (untranslated regions and non-coding genes included) is intergenic.  With
+    ``bad_genes="fail"`` a gene none of whose transcripts passes is an error
+    naming the gene, the reason and the line of its first CDS.  Returns
     ``[(sequence, states), ...]`` with each record twice: as given, and reverse
     complemented with the strands of its labels flipped (the counts of both
     strands), plus the report of genes used and skipped.
@@ -638,6 +640,11 @@ def label_records(model: Model, records: list, features: list[Feature], *,
                 else:
                     reasons.append(why)
             if not good:
+                if bad_genes == "fail":
+                    raise FeatureFormatError(
+                        f"gene '{gid}': {reasons[0]} (no transcript of the gene can be "
+                        "used; --bad-genes skip leaves such genes out)", path=path,
+                        line0=txs[0].line0, where=f"record '{rec.id}'")
                 report.skip(reasons[0], gid)
                 states[s0:e0] = -1
                 continue
@@ -684,10 +691,17 @@ def label_records(model: Model, records: list, features: list[Feature], *,
 # ====================================================================== decoding
 @dataclass
 class GenePrediction:
-    """One decoded gene: strand and CDS pieces (plus-strand coordinates, 0-based)."""
+    """One decoded gene: strand and CDS pieces (plus-strand coordinates, 0-based).
+
+    ``phases`` (genomic order) come from the codon position of each piece's 5'-most
+    base on the path, so they are right even for a gene cut by a record end
+    (``partial`` is then True: it lacks its start or stop codon).
+    """
 
     strand: str
     pieces: list[tuple[int, int]]  # in genomic order
+    phases: list[int] | None = None
+    partial: bool = False
 
     @property
     def span(self) -> tuple[int, int]:
@@ -708,6 +722,7 @@ def genes_from_path(path: np.ndarray, model: Model) -> list[GenePrediction]:
             strand_of[i] = 1 if s.strand == "+" else 2
         is_cds[i] = s.label == "CDS"
     p = np.asarray(path, dtype=np.int64)
+    frame = codon_positions(model)
     g = strand_of[p]
     c = is_cds[p]
     n = p.shape[0]
@@ -723,16 +738,38 @@ def genes_from_path(path: np.ndarray, model: Model) -> list[GenePrediction]:
         edges = np.flatnonzero(padded[1:] != padded[:-1])
         pieces = [(s0 + int(a), s0 + int(b)) for a, b in zip(edges[0::2], edges[1::2])]
         if pieces:
-            genes.append(GenePrediction("+" if g[s0] == 1 else "-", pieces))
+            strand = "+" if g[s0] == 1 else "-"
+            five = [a if strand == "+" else b - 1 for a, b in pieces]
+            phases = [(3 - int(frame[p[q]])) % 3 for q in five]
+            partial = s0 == 0 or e0 == n
+            genes.append(GenePrediction(strand, pieces, phases, partial))
     return genes
+
+
+def codon_positions(model: Model) -> np.ndarray:
+    """Per state, the codon position (0, 1, 2) of the base it emits, in the transcript's
+    own orientation; -1 for non-coding states."""
+    out = np.full(model.n_states, -1, dtype=np.int64)
+    for i, s in enumerate(model.states):
+        base = s.name[:-1] if s.name[-1:] in "+-" else s.name
+        if base in ("start_A", "stop_T") or base.startswith("cds1"):
+            out[i] = 0
+        elif base in ("start_T", "stop_A", "stop_G") or base.startswith("cds2"):
+            out[i] = 1
+        elif base in ("start_G", "stop_AR", "stop_GA") or base.startswith("cds3"):
+            out[i] = 2
+    return out
 
 
 def cds_phases(gene: GenePrediction) -> list[int]:
     """GFF3 phase of each CDS piece, in genomic order.
 
     GFF3 1.26: the phase is the number of bases to remove from the 5' end of the
-    piece (on its strand) to reach the first base of the next codon.
+    piece (on its strand) to reach the first base of the next codon.  Taken from
+    the path when the gene has them, else from the lengths (a complete gene).
     """
+    if gene.phases is not None:
+        return list(gene.phases)
     order = gene.pieces if gene.strand == "+" else gene.pieces[::-1]
     phases = []
     done = 0

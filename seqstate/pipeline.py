@@ -250,8 +250,11 @@ def _annotate_into(opts, model, decode, tables, groups, state_group, spans, stem
         gff = GFF3Writer(outs.open_text(gff_name))
         gff.header([(rec.id, s + 1, e) for rec, s, e in spans])
         tsv = outs.open_text(tsv_name)
+        gene_mode = decode == "viterbi" and is_gene_model(model)
         columns = ["seqid", "start_1based", "end_1based", "strand", "type", "id"] + BASE_COLUMNS
-        if any(g.label == "CpG_island" for g in groups):
+        if gene_mode:
+            columns = GENE_COLUMNS
+        elif any(g.label == "CpG_island" for g in groups):
             columns += CPG_COLUMNS
         tsv.write("\t".join(columns) + "\n")
         bedgraphs = []
@@ -279,13 +282,21 @@ def _annotate_into(opts, model, decode, tables, groups, state_group, spans, stem
             post = api.posterior(tables, codes, group=state_group, n_groups=len(groups),
                                  record=rec.id)
             progress.advance((e0 - s0) // 2, rec.id)
-            if decode == "viterbi":
+            if gene_mode:
+                path, _ = api.viterbi(tables, codes, record=rec.id)
+                n_feat = write_genes(gff, tsv, model, tables, codes, post, groups, path, rec.id,
+                                     s0, seq)
+                segs = []
+                del path
+            elif decode == "viterbi":
                 path, _ = api.viterbi(tables, codes, record=rec.id)
                 segs = segments_from_path(path, state_group, opts.min_length)
                 del path
             else:
                 segs = segments_from_posterior(post.values, opts.min_posterior, opts.min_length)
-            segs = split_at_unknown(segs, sym < 0, opts.min_length)
+            if not gene_mode:
+                segs = split_at_unknown(segs, sym < 0, opts.min_length)
+                n_feat = len(segs)
             score_segments(model, tables, codes, post, groups, segs, seq)
             counters = [0] * len(groups)
             for seg in segs:
@@ -310,7 +321,7 @@ def _annotate_into(opts, model, decode, tables, groups, state_group, spans, stem
                 "end_1based": e0,
                 "unknown_bases": unknown,
                 "loglik_nat": post.loglik,
-                "features": len(segs),
+                "features": n_feat,
             })
             progress.advance((e0 - s0) - (e0 - s0) // 2, rec.id)
             del post, codes
@@ -323,6 +334,84 @@ def _annotate_into(opts, model, decode, tables, groups, state_group, spans, stem
             fh.write("\n")
     progress.finish()
     return report
+
+
+# ---------------------------------------------------------------- gene structures
+GENE_COLUMNS = ["seqid", "start_1based", "end_1based", "strand", "type", "id", "parent",
+                "phase", "mean_posterior", "min_posterior", "segment_probability", "length"]
+
+
+def is_gene_model(model: Model) -> bool:
+    """Models whose Viterbi paths are written as gene -> mRNA -> exon + CDS hierarchies."""
+    table = model.extra.get("annotate", {})
+    return isinstance(table, dict) and table.get("features") == "gene_structure"
+
+
+def write_genes(gff: GFF3Writer, tsv, model: Model, tables: api.EngineTables,
+                codes: np.ndarray, post: api.Posterior, groups: list[Group],
+                path: np.ndarray, seqid: str, offset0: int, seq: bytes) -> int:
+    """Write the genes of a decoded path as a GFF3 hierarchy; returns the feature count.
+
+    gene and mRNA span the coding part (start codon to stop codon; the model has
+    no untranslated regions), exon and CDS lines share coordinates, CDS phase as
+    GFF3 1.26 defines it.  Scores: the posterior of the strand's gene states (CDS
+    and intron) on gene and mRNA, of the strand's CDS states on CDS; the exact
+    probability that every base of the feature is in those states.
+    """
+    from seqstate import genes as gene_layout
+
+    col = {(g.label, g.strand): i for i, g in enumerate(groups)}
+    masks = {}
+    for strand in "+-":
+        cds = np.zeros(model.n_states, dtype=np.bool_)
+        gene = np.zeros(model.n_states, dtype=np.bool_)
+        for i, st in enumerate(model.states):
+            if st.strand == strand and st.label in ("CDS", "intron"):
+                gene[i] = True
+                cds[i] = st.label == "CDS"
+        masks[strand] = (gene, cds)
+    count = 0
+    predictions = gene_layout.genes_from_path(path, model)
+    for number, gp in enumerate(predictions, start=1):
+        strand = gp.strand
+        g0, g1 = gp.span
+        gene_mask, cds_mask = masks[strand]
+        gene_cols = [col[k] for k in (("CDS", strand), ("intron", strand)) if k in col]
+        gene_values = post.values[:, gene_cols].sum(axis=1)
+        gsc = score_segment(tables, codes, post, gene_values, gene_mask, g0, g1)
+        gid = f"{seqid}.gene.{number}"
+        mid = f"{seqid}.mRNA.{number}"
+
+        def emit(ftype, a, b, fid, parent, sc, phase=None):
+            attrs: list[tuple[str, str | list[str]]] = [("ID", fid)]
+            if parent:
+                attrs.append(("Parent", parent))
+            for key in ("mean_posterior", "min_posterior", "segment_probability"):
+                attrs.append((key, _fmt(sc[key], SCORE_FORMATS[key])))
+            attrs.append(("length", str(b - a)))
+            if gp.partial and ftype in ("gene", "mRNA"):
+                attrs.append(("partial", "cut by the record end"))
+            gff.write(Feature(seqid=seqid, source=SOURCE, type=ftype, start0=a + offset0,
+                              end0=b + offset0, score=sc["mean_posterior"], strand=strand,
+                              phase=phase, attributes=attrs))
+            tsv.write("\t".join([
+                seqid, str(a + offset0 + 1), str(b + offset0), strand, ftype, fid, parent or "",
+                "." if phase is None else str(phase),
+                _fmt(sc["mean_posterior"], ".4f"), _fmt(sc["min_posterior"], ".4f"),
+                _fmt(sc["segment_probability"], ".4g"), str(b - a)]) + "\n")
+
+        emit("gene", g0, g1, gid, None, gsc)
+        emit("mRNA", g0, g1, mid, gid, gsc)
+        phases = gene_layout.cds_phases(gp)
+        cds_values = post.values[:, col[("CDS", strand)]]
+        order = range(len(gp.pieces)) if strand == "+" else range(len(gp.pieces) - 1, -1, -1)
+        for k, i in enumerate(order, start=1):
+            a, b = gp.pieces[i]
+            sc = score_segment(tables, codes, post, cds_values, cds_mask, a, b)
+            emit("exon", a, b, f"{mid}.exon.{k}", mid, sc)
+            emit("CDS", a, b, f"{mid}.CDS.{k}", mid, sc, phase=phases[i])
+        count += 2 + 2 * len(gp.pieces)
+    return count
 
 
 # ---------------------------------------------------------------- sampling
