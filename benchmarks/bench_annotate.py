@@ -49,38 +49,85 @@ def main() -> None:
     import seqstate
 
     print("command:", " ".join([Path(sys.executable).name, *sys.argv]))
-    print(f"machine: {platform.machine()}, {os.cpu_count()} cores, Python "
-          f"{platform.python_version()}, numpy {numpy.__version__}, numba {numba.__version__}, "
-          f"seqstate {seqstate.__version__}")
+    print(
+        f"machine: {platform.machine()}, {os.cpu_count()} cores, Python "
+        f"{platform.python_version()}, numpy {numpy.__version__}, numba {numba.__version__}, "
+        f"seqstate {seqstate.__version__}"
+    )
     work = Path(tempfile.mkdtemp(prefix="seqstate-bench-"))
     n = int(args.mbp * 1e6)
     fasta = work / "bench.fa"
     exe = [sys.executable, "-m", "seqstate"]
     t0 = time.perf_counter()
-    subprocess.run(exe + ["sample", args.model, "--length", str(n), "--seed", "11",
-                          "-o", str(fasta), "--prefix", "bench"], check=True)
+    subprocess.run(
+        exe
+        + [
+            "sample",
+            args.model,
+            "--length",
+            str(n),
+            "--seed",
+            "11",
+            "-o",
+            str(fasta),
+            "--prefix",
+            "bench",
+        ],
+        check=True,
+    )
     print(f"sampled {n / 1e6:.1f} Mbp from {args.model} in {time.perf_counter() - t0:.1f} s")
     # warm the numba cache so that compile time is not measured
     small = work / "small.fa"
-    subprocess.run(exe + ["sample", args.model, "--length", "5000", "--seed", "1",
-                          "-o", str(small)], check=True)
-    subprocess.run(exe + ["annotate", str(small), "-o", str(work / "warm"), "-q",
-                          "--decode", args.decode, "-m", args.model], check=True)
+    subprocess.run(
+        exe + ["sample", args.model, "--length", "5000", "--seed", "1", "-o", str(small)],
+        check=True,
+    )
+    subprocess.run(
+        exe
+        + [
+            "annotate",
+            str(small),
+            "-o",
+            str(work / "warm"),
+            "-q",
+            "--decode",
+            args.decode,
+            "-m",
+            args.model,
+        ],
+        check=True,
+    )
     walls, rss = [], []
     for r in range(args.repeat):
         out = work / f"out{r}"
-        wall, peak = run_child(exe + ["annotate", str(fasta), "-o", str(out), "-q",
-                                      "--decode", args.decode, "-m", args.model])
+        wall, peak = run_child(
+            exe
+            + [
+                "annotate",
+                str(fasta),
+                "-o",
+                str(out),
+                "-q",
+                "--decode",
+                args.decode,
+                "-m",
+                args.model,
+            ]
+        )
         walls.append(wall)
         rss.append(peak)
         shutil.rmtree(out)
     wall = statistics.median(walls)
     print()
-    print(f"| model | decode | length (Mbp) | wall (s, median of {args.repeat}) | Mbp/s "
-          "| peak RSS (MiB) |")
+    print(
+        f"| model | decode | length (Mbp) | wall (s, median of {args.repeat}) | Mbp/s "
+        "| peak RSS (MiB) |"
+    )
     print("|---|---|---|---|---|---|")
-    print(f"| {args.model} | {args.decode} | {n / 1e6:.1f} | {wall:.2f} | {n / 1e6 / wall:.2f} "
-          f"| {max(rss):.0f} |")
+    print(
+        f"| {args.model} | {args.decode} | {n / 1e6:.1f} | {wall:.2f} | {n / 1e6 / wall:.2f} "
+        f"| {max(rss):.0f} |"
+    )
     print("\ntargets: >= 5 Mbp/s end to end on one core; peak RSS < 1024 MiB")
     if not args.keep:
         shutil.rmtree(work)

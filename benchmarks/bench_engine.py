@@ -150,8 +150,9 @@ def _child(spec: dict) -> dict:
             lookup[ord(ch)] = i
         x = lookup[seq].reshape(-1, 1)
         del seq
-        hmm = CategoricalHMM(n_components=model.n_states, implementation="scaling",
-                             init_params="", params="")
+        hmm = CategoricalHMM(
+            n_components=model.n_states, implementation="scaling", init_params="", params=""
+        )
         hmm.n_features = len(model.alphabet)
         hmm.startprob_ = model.start / model.start.sum()
         hmm.transmat_ = model.transitions / model.transitions.sum(axis=1, keepdims=True)
@@ -195,8 +196,9 @@ print(time.perf_counter() - t0)
 # ----------------------------------------------------------------- parent side
 def _env(numba_cache: str | None = None, drop_blas: bool = False) -> dict:
     env = dict(os.environ)
-    env["PYTHONPATH"] = str(REPO) + (os.pathsep + env["PYTHONPATH"]
-                                     if env.get("PYTHONPATH") else "")
+    env["PYTHONPATH"] = str(REPO) + (
+        os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else ""
+    )
     if numba_cache is not None:
         env["NUMBA_CACHE_DIR"] = numba_cache
     if drop_blas:
@@ -209,7 +211,9 @@ def measure(spec: dict) -> dict:
     """Run ``spec`` in a fresh interpreter (this file with ``--child``)."""
     proc = subprocess.run(
         [sys.executable, __file__, "--child", json.dumps(spec)],
-        capture_output=True, text=True, env=_env(drop_blas=spec["tool"] == "hmmlearn"),
+        capture_output=True,
+        text=True,
+        env=_env(drop_blas=spec["tool"] == "hmmlearn"),
         cwd=REPO,
     )
     if proc.returncode != 0:
@@ -223,8 +227,13 @@ def startup(tmp: str) -> tuple[float, float, float, float]:
     out = []
     for _ in range(2):
         t0 = time.perf_counter()
-        proc = subprocess.run([sys.executable, "-c", STARTUP_CODE], capture_output=True,
-                              text=True, env=_env(numba_cache=cache), cwd=tmp)
+        proc = subprocess.run(
+            [sys.executable, "-c", STARTUP_CODE],
+            capture_output=True,
+            text=True,
+            env=_env(numba_cache=cache),
+            cwd=tmp,
+        )
         wall = time.perf_counter() - t0
         if proc.returncode != 0:
             raise RuntimeError(proc.stderr[-3000:])
@@ -272,13 +281,22 @@ def _fmt_n(n: int) -> str:
 
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    ap.add_argument("--sizes", default="1e6,1e7",
-                    help="comma-separated record lengths in bases (default 1e6,1e7)")
+    ap.add_argument(
+        "--sizes",
+        default="1e6,1e7",
+        help="comma-separated record lengths in bases (default 1e6,1e7)",
+    )
     ap.add_argument("--repeat", type=int, default=3, help="runs per measurement (median)")
-    ap.add_argument("--quick", action="store_true",
-                    help="sizes 2e5 and 1e6, one run each, no hmmlearn Viterbi repeats")
-    ap.add_argument("--big", action="store_true",
-                    help="add the cpg-island posterior on a 100 Mbp record (peak RSS)")
+    ap.add_argument(
+        "--quick",
+        action="store_true",
+        help="sizes 2e5 and 1e6, one run each, no hmmlearn Viterbi repeats",
+    )
+    ap.add_argument(
+        "--big",
+        action="store_true",
+        help="add the cpg-island posterior on a 100 Mbp record (peak RSS)",
+    )
     ap.add_argument("--no-hmmlearn", action="store_true", help="skip the hmmlearn rows")
     ap.add_argument("--no-startup", action="store_true", help="skip the start-up measurement")
     ap.add_argument("--child", help=argparse.SUPPRESS)
@@ -292,9 +310,11 @@ def main(argv: list[str] | None = None) -> int:
         sizes, repeat = [200_000, 1_000_000], 1
     for line in machine_info():
         print(line)
-    print(f"input: one record drawn from cpg-island's own tables; throughput = median of "
-          f"{repeat} run(s) in a fresh subprocess per row, after a warm-up call; "
-          f"peak RSS = the child's VmHWM")
+    print(
+        f"input: one record drawn from cpg-island's own tables; throughput = median of "
+        f"{repeat} run(s) in a fresh subprocess per row, after a warm-up call; "
+        f"peak RSS = the child's VmHWM"
+    )
     print(flush=True)
     rows = []
     with tempfile.TemporaryDirectory(prefix="seqstate-bench-") as tmp:
@@ -314,30 +334,42 @@ def main(argv: list[str] | None = None) -> int:
                 plan.append(("cpg-island", "seqstate", op, n))
         if args.big:
             plan.append(("cpg-island", "seqstate", "posterior", 100_000_000))
-        header = (f"{'model':<13} {'tool':<9} {'N':>5} {'operation':<28} "
-                  f"{'Mbp/s':>7} {'peak RSS MB':>11}  result")
+        header = (
+            f"{'model':<13} {'tool':<9} {'N':>5} {'operation':<28} "
+            f"{'Mbp/s':>7} {'peak RSS MB':>11}  result"
+        )
         print(header)
         print("-" * len(header), flush=True)
         for model, tool, op, n in plan:
-            spec = {"tool": tool, "model": model, "op": op, "seq": seqs[n],
-                    "repeat": 1 if n >= 100_000_000 else repeat}
+            spec = {
+                "tool": tool,
+                "model": model,
+                "op": op,
+                "seq": seqs[n],
+                "repeat": 1 if n >= 100_000_000 else repeat,
+            }
             res = measure(spec)
             med = float(np.median(res["times"]))
             mbps = n / 1e6 / med
             label = {
                 "forward": "log-likelihood (forward)",
-                "posterior": ("posterior, per-label f32" if tool == "seqstate"
-                              else "posterior (predict_proba)"),
+                "posterior": (
+                    "posterior, per-label f32"
+                    if tool == "seqstate"
+                    else "posterior (predict_proba)"
+                ),
                 "posterior-states": "posterior, per-state f32",
                 "viterbi": "Viterbi",
             }[op]
             rows.append((model, tool, op, n, mbps, res["peak_mb"], res["result"]))
-            print(f"{model:<13} {tool:<9} {_fmt_n(n):>5} {label:<28} {mbps:>7.1f} "
-                  f"{res['peak_mb']:>11.0f}  {res['result']:.6g}", flush=True)
+            print(
+                f"{model:<13} {tool:<9} {_fmt_n(n):>5} {label:<28} {mbps:>7.1f} "
+                f"{res['peak_mb']:>11.0f}  {res['result']:.6g}",
+                flush=True,
+            )
         print()
         for n in sizes:
-            get = {(t, o): v for (m, t, o, nn, v, _, _) in rows
-                   if m == "cpg-island-8" and nn == n}
+            get = {(t, o): v for (m, t, o, nn, v, _, _) in rows if m == "cpg-island-8" and nn == n}
             if ("hmmlearn", "posterior") in get:
                 hl = get[("hmmlearn", "posterior")]
                 ratios = (
@@ -346,15 +378,19 @@ def main(argv: list[str] | None = None) -> int:
                     get[("seqstate", "forward")] / get[("hmmlearn", "forward")],
                     get[("seqstate", "viterbi")] / get[("hmmlearn", "viterbi")],
                 )
-                print(f"cpg-island-8, N={_fmt_n(n)}: seqstate / hmmlearn throughput: posterior "
-                      f"{ratios[0]:.1f}x (per-label), {ratios[1]:.1f}x (per-state); forward "
-                      f"{ratios[2]:.1f}x; Viterbi {ratios[3]:.1f}x")
+                print(
+                    f"cpg-island-8, N={_fmt_n(n)}: seqstate / hmmlearn throughput: posterior "
+                    f"{ratios[0]:.1f}x (per-label), {ratios[1]:.1f}x (per-state); forward "
+                    f"{ratios[2]:.1f}x; Viterbi {ratios[3]:.1f}x"
+                )
         if not args.no_startup:
             w1, p1, w2, p2 = startup(tmp)
-            print(f"start-up (import seqstate, load cpg-island, posterior of 1 kb), "
-                  f"wall time of the whole process: first run with an empty numba cache "
-                  f"{w1:.2f} s (in-process {p1:.2f} s), second run {w2:.2f} s "
-                  f"(in-process {p2:.2f} s)")
+            print(
+                f"start-up (import seqstate, load cpg-island, posterior of 1 kb), "
+                f"wall time of the whole process: first run with an empty numba cache "
+                f"{w1:.2f} s (in-process {p1:.2f} s), second run {w2:.2f} s "
+                f"(in-process {p2:.2f} s)"
+            )
     return 0
 
 

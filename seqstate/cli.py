@@ -25,8 +25,9 @@ class _Group(click.Group):
         debug = "--debug" in args
         try:
             kwargs.setdefault("obj", {"argv": list(args)})
-            return super().main(args=args, prog_name=prog_name or "seqstate",
-                                standalone_mode=False, **kwargs)
+            return super().main(
+                args=args, prog_name=prog_name or "seqstate", standalone_mode=False, **kwargs
+            )
         except click.exceptions.Exit as exc:
             sys.exit(exc.exit_code)
         except click.exceptions.Abort:
@@ -116,19 +117,26 @@ def summary(m, path: str, sha: str) -> str:
     w = max(5, max(len(n) for n in names))
     labels = [s.label or "-" for s in m.states]
     lw = max(5, max(len(x) for x in labels))
-    lines.append(f"{'state':<{w}}  {'label':<{lw}}  strand  {'start':>10}  {'end':>10}  "
-                 f"expected stay (bases)")
+    lines.append(
+        f"{'state':<{w}}  {'label':<{lw}}  strand  {'start':>10}  {'end':>10}  "
+        f"expected stay (bases)"
+    )
     for i, s in enumerate(m.states):
         end = "-" if m.end is None else f"{m.end[i]:.4g}"
         st = "inf" if stay[i] == float("inf") else f"{stay[i]:.4g}"
-        lines.append(f"{s.name:<{w}}  {labels[i]:<{lw}}  {s.strand or '.':<6}  "
-                     f"{m.start[i]:>10.4g}  {end:>10}  {st}")
+        lines.append(
+            f"{s.name:<{w}}  {labels[i]:<{lw}}  {s.strand or '.':<6}  "
+            f"{m.start[i]:>10.4g}  {end:>10}  {st}"
+        )
     allowed = m.allowed_transitions()
     lines.append("")
-    lines.append(f"allowed transitions: {len(allowed)} of {m.n_states ** 2}")
+    lines.append(f"allowed transitions: {len(allowed)} of {m.n_states**2}")
     for i, n in enumerate(names):
-        succ = [f"{names[j]} {m.transitions[i, j]:.6g}" for j in range(m.n_states)
-                if m.transitions[i, j] > 0]
+        succ = [
+            f"{names[j]} {m.transitions[i, j]:.6g}"
+            for j in range(m.n_states)
+            if m.transitions[i, j] > 0
+        ]
         lines.append(f"  {n:<{w}} -> " + (", ".join(succ) if succ else "(none)"))
     if m.provenance:
         lines.append("")
@@ -141,42 +149,104 @@ def summary(m, path: str, sha: str) -> str:
 # ---------------------------------------------------------------- annotate
 @main.command("annotate")
 @click.argument("fasta")
-@click.option("-m", "--model", default="cpg-island", show_default=True,
-              help="Built-in model NAME or model PATH.")
-@click.option("-o", "--out", "out_dir", default="seqstate-out", show_default=True,
-              help="Output folder (created if absent).")
-@click.option("--decode", type=click.Choice(["posterior", "viterbi"]), default=None,
-              help="Feature decoding; default: the model's.")
-@click.option("--min-posterior", type=float, default=0.5, show_default=True,
-              help="Posterior decoding: smallest per-base label posterior inside a feature.")
-@click.option("--min-length", type=int, default=1, show_default=True,
-              help="Shortest feature to report, in bases.")
+@click.option(
+    "-m",
+    "--model",
+    default="cpg-island",
+    show_default=True,
+    help="Built-in model NAME or model PATH.",
+)
+@click.option(
+    "-o",
+    "--out",
+    "out_dir",
+    default="seqstate-out",
+    show_default=True,
+    help="Output folder (created if absent).",
+)
+@click.option(
+    "--decode",
+    type=click.Choice(["posterior", "viterbi"]),
+    default=None,
+    help="Feature decoding; default: the model's.",
+)
+@click.option(
+    "--min-posterior",
+    type=float,
+    default=0.5,
+    show_default=True,
+    help="Posterior decoding: smallest per-base label posterior inside a feature.",
+)
+@click.option(
+    "--min-length",
+    type=int,
+    default=1,
+    show_default=True,
+    help="Shortest feature to report, in bases.",
+)
 @click.option("--region", default=None, help="Only ID:START-END (1-based, inclusive).")
-@click.option("--masked", type=click.Choice(["base", "unknown"]), default="base",
-              show_default=True, help="Read lowercase (soft-masked) bases as their base "
-              "or as unknown.")
-@click.option("--tracks", type=click.Choice(["bedgraph", "bigwig", "both", "none"]),
-              default="bedgraph", show_default=True, help="Per-base posterior track format.")
-@click.option("--precision", type=click.IntRange(0, 8), default=4, show_default=True,
-              help="Decimals of the posterior values in tracks.")
+@click.option(
+    "--masked",
+    type=click.Choice(["base", "unknown"]),
+    default="base",
+    show_default=True,
+    help="Read lowercase (soft-masked) bases as their base or as unknown.",
+)
+@click.option(
+    "--tracks",
+    type=click.Choice(["bedgraph", "bigwig", "both", "none"]),
+    default="bedgraph",
+    show_default=True,
+    help="Per-base posterior track format.",
+)
+@click.option(
+    "--precision",
+    type=click.IntRange(0, 8),
+    default=4,
+    show_default=True,
+    help="Decimals of the posterior values in tracks.",
+)
 @click.option("-q", "--quiet", is_flag=True, help="No progress or summary on stderr.")
 @click.pass_obj
-def annotate_cmd(obj, fasta, model, out_dir, decode, min_posterior, min_length, region, masked,
-                 tracks, precision, quiet) -> None:
+def annotate_cmd(
+    obj,
+    fasta,
+    model,
+    out_dir,
+    decode,
+    min_posterior,
+    min_length,
+    region,
+    masked,
+    tracks,
+    precision,
+    quiet,
+) -> None:
     """Annotate the records of FASTA (plain or gzip; '-' for stdin) with a model."""
     from seqstate.pipeline import AnnotateOptions, annotate
 
     opts = AnnotateOptions(
-        input=fasta, model=model, out_dir=out_dir, decode=decode,
-        min_posterior=min_posterior, min_length=min_length, region=region, masked=masked,
-        tracks=tracks, precision=precision, command_line=command_line(obj),
+        input=fasta,
+        model=model,
+        out_dir=out_dir,
+        decode=decode,
+        min_posterior=min_posterior,
+        min_length=min_length,
+        region=region,
+        masked=masked,
+        tracks=tracks,
+        precision=precision,
+        command_line=command_line(obj),
     )
     report = annotate(opts, progress_enabled=(not quiet) and sys.stderr.isatty())
     if not quiet:
         n = sum(r["features"] for r in report["records"])
         bases = sum(r["end_1based"] - r["start_1based"] + 1 for r in report["records"])
-        click.echo(f"seqstate: {len(report['records'])} record(s), {bases} bases, {n} features "
-                   f"-> {out_dir}/", err=True)
+        click.echo(
+            f"seqstate: {len(report['records'])} record(s), {bases} bases, {n} features "
+            f"-> {out_dir}/",
+            err=True,
+        )
 
 
 # ---------------------------------------------------------------- sample
@@ -192,8 +262,17 @@ def sample_cmd(model, length, records, seed, out_fasta, truth, prefix) -> None:
     """Draw synthetic records and their true state paths from MODEL."""
     from seqstate.pipeline import SampleOptions, sample
 
-    sample(SampleOptions(model=model, length=length, records=records, seed=seed,
-                         out_fasta=out_fasta, truth_gff3=truth, prefix=prefix))
+    sample(
+        SampleOptions(
+            model=model,
+            length=length,
+            records=records,
+            seed=seed,
+            out_fasta=out_fasta,
+            truth_gff3=truth,
+            prefix=prefix,
+        )
+    )
 
 
 # ---------------------------------------------------------------- score
@@ -396,46 +475,106 @@ def plot_cmd(
 @main.command("fit")
 @click.option("-m", "--model", required=True, help="Start model: built-in NAME or PATH.")
 @click.option("--fasta", required=True, help="Sequences to fit to (FASTA, plain or gzip).")
-@click.option("--labels", default=None,
-              help="Known features, GFF3 (type = label) or BED (name = label): count the "
-              "states they give.")
-@click.option("--labels-format", type=click.Choice(["auto", "gff3", "bed"]), default="auto",
-              show_default=True, help="Format of --labels (auto: by file name, then content).")
+@click.option(
+    "--labels",
+    default=None,
+    help="Known features, GFF3 (type = label) or BED (name = label): count the states they give.",
+)
+@click.option(
+    "--labels-format",
+    type=click.Choice(["auto", "gff3", "bed"]),
+    default="auto",
+    show_default=True,
+    help="Format of --labels (auto: by file name, then content).",
+)
 @click.option("--em", is_flag=True, help="Refine by Baum-Welch (after counting, if --labels).")
-@click.option("--max-iter", type=int, default=50, show_default=True,
-              help="EM: most updates.")
-@click.option("--tol", type=float, default=1e-4, show_default=True,
-              help="EM: stop when the relative gain (change / |log-likelihood|) is below this.")
-@click.option("--freeze", multiple=True, metavar="PART",
-              help="Keep start, transitions, emissions or a STATE (its transition and "
-              "emission rows) as in the start model; repeatable.")
-@click.option("--pseudocount", type=float, default=None,
-              help="Added to every allowed cell's count [default: 1 for counting, 0 for EM].")
-@click.option("--masked", type=click.Choice(["base", "unknown"]), default="base",
-              show_default=True, help="Read lowercase (soft-masked) bases as their base or as "
-              "unknown.")
-@click.option("--bad-genes", type=click.Choice(["skip", "fail"]), default="skip",
-              show_default=True, help="Gene models: skip a gene whose annotation the "
-              "layout cannot use (phases that contradict the lengths, no stop codon, ...), "
-              "or fail naming it.")
+@click.option("--max-iter", type=int, default=50, show_default=True, help="EM: most updates.")
+@click.option(
+    "--tol",
+    type=float,
+    default=1e-4,
+    show_default=True,
+    help="EM: stop when the relative gain (change / |log-likelihood|) is below this.",
+)
+@click.option(
+    "--freeze",
+    multiple=True,
+    metavar="PART",
+    help="Keep start, transitions, emissions or a STATE (its transition and "
+    "emission rows) as in the start model; repeatable.",
+)
+@click.option(
+    "--pseudocount",
+    type=float,
+    default=None,
+    help="Added to every allowed cell's count [default: 1 for counting, 0 for EM].",
+)
+@click.option(
+    "--masked",
+    type=click.Choice(["base", "unknown"]),
+    default="base",
+    show_default=True,
+    help="Read lowercase (soft-masked) bases as their base or as unknown.",
+)
+@click.option(
+    "--bad-genes",
+    type=click.Choice(["skip", "fail"]),
+    default="skip",
+    show_default=True,
+    help="Gene models: skip a gene whose annotation the "
+    "layout cannot use (phases that contradict the lengths, no stop codon, ...), "
+    "or fail naming it.",
+)
 @click.option("--name", default=None, help="Name of the fitted model [default: folder name].")
 @click.option("-o", "--out", "out_dir", required=True, help="Model folder to write.")
 @click.option("--force", is_flag=True, help="Replace an existing model folder at --out.")
 @click.option("-q", "--quiet", is_flag=True, help="No progress lines on stderr.")
 @click.pass_obj
-def fit_cmd(obj, model, fasta, labels, labels_format, em, max_iter, tol, freeze, pseudocount,
-            masked, bad_genes, name, out_dir, force, quiet) -> None:
+def fit_cmd(
+    obj,
+    model,
+    fasta,
+    labels,
+    labels_format,
+    em,
+    max_iter,
+    tol,
+    freeze,
+    pseudocount,
+    masked,
+    bad_genes,
+    name,
+    out_dir,
+    force,
+    quiet,
+) -> None:
     """Fit a model's tables to sequences: count from known features and/or Baum-Welch."""
     from seqstate.fit import FitOptions, fit, stderr_log
 
-    opts = FitOptions(model=model, fasta=fasta, out=out_dir, labels=labels,
-                      labels_format=labels_format, em=em, max_iter=max_iter, tol=tol,
-                      freeze=list(freeze), pseudocount=pseudocount, masked=masked, name=name,
-                      force=force, command_line=command_line(obj), bad_genes=bad_genes)
+    opts = FitOptions(
+        model=model,
+        fasta=fasta,
+        out=out_dir,
+        labels=labels,
+        labels_format=labels_format,
+        em=em,
+        max_iter=max_iter,
+        tol=tol,
+        freeze=list(freeze),
+        pseudocount=pseudocount,
+        masked=masked,
+        name=name,
+        force=force,
+        command_line=command_line(obj),
+        bad_genes=bad_genes,
+    )
     report = fit(opts, log=(lambda _: None) if quiet else stderr_log)
     if not quiet:
-        click.echo(f"seqstate: {report.method}: log-likelihood {report.loglik:.6f} (natural "
-                   f"log) -> {report.out}/", err=True)
+        click.echo(
+            f"seqstate: {report.method}: log-likelihood {report.loglik:.6f} (natural "
+            f"log) -> {report.out}/",
+            err=True,
+        )
 
 
 # ---------------------------------------------------------------- compare

@@ -89,8 +89,7 @@ def runs_above(values: np.ndarray, threshold: float, min_length: int) -> list[tu
     return list(zip(starts[keep].tolist(), ends[keep].tolist()))
 
 
-def segments_from_posterior(post: np.ndarray, threshold: float,
-                            min_length: int) -> list[Segment]:
+def segments_from_posterior(post: np.ndarray, threshold: float, min_length: int) -> list[Segment]:
     """Posterior decoding: per group, maximal runs at or above ``threshold``; sorted by start."""
     segs = []
     for g in range(post.shape[1]):
@@ -100,8 +99,9 @@ def segments_from_posterior(post: np.ndarray, threshold: float,
     return segs
 
 
-def segments_from_path(path: np.ndarray, state_group: np.ndarray,
-                       min_length: int = 1) -> list[Segment]:
+def segments_from_path(
+    path: np.ndarray, state_group: np.ndarray, min_length: int = 1
+) -> list[Segment]:
     """Viterbi decoding: maximal runs of one group along the path (runs of no group dropped)."""
     g = state_group[np.asarray(path, dtype=np.int64)]
     n = g.shape[0]
@@ -123,8 +123,9 @@ def segments_from_path(path: np.ndarray, state_group: np.ndarray,
 UNKNOWN_SPLIT = 10
 
 
-def split_at_unknown(segs: list[Segment], unknown: np.ndarray,
-                     min_length: int = 1) -> list[Segment]:
+def split_at_unknown(
+    segs: list[Segment], unknown: np.ndarray, min_length: int = 1
+) -> list[Segment]:
     """Cut features at runs of >= :data:`UNKNOWN_SPLIT` unknown bases and trim unknown ends.
 
     ``unknown`` is a boolean per base of the record.  The model marginalises unknown
@@ -135,7 +136,7 @@ def split_at_unknown(segs: list[Segment], unknown: np.ndarray,
         return segs
     out: list[Segment] = []
     for seg in segs:
-        u = unknown[seg.start0:seg.end0]
+        u = unknown[seg.start0 : seg.end0]
         if not u.any():
             out.append(seg)
             continue
@@ -157,9 +158,15 @@ def split_at_unknown(segs: list[Segment], unknown: np.ndarray,
     return out
 
 
-def score_segment(tables: api.EngineTables, codes: np.ndarray, post: api.Posterior,
-                  group_values: np.ndarray, mask: np.ndarray, start0: int,
-                  end0: int) -> dict:
+def score_segment(
+    tables: api.EngineTables,
+    codes: np.ndarray,
+    post: api.Posterior,
+    group_values: np.ndarray,
+    mask: np.ndarray,
+    start0: int,
+    end0: int,
+) -> dict:
     """Scores of one segment: posterior mean/min, exact segment probability, log-odds.
 
     ``group_values`` is the group's per-base posterior over the record.
@@ -187,9 +194,10 @@ def cpg_statistics(seq: bytes) -> dict:
     upper-cased bases; G+C counts G, C and S over the bases that are G, C, S, A,
     T, U or W (other ambiguity codes and N left out); the O/E length counts the
     known bases (A, C, G, T) only, so unknown bases do not inflate the ratio.
-    ``length`` is the feature's length in bases, unknown bases included.  Flags: ``meets_ggf1987`` (length >= 200, G+C > 0.5,
-    O/E > 0.6) and ``meets_tj2002`` (Takai & Jones 2002, PNAS 99:3740: length >=
-    500, G+C >= 0.55, O/E >= 0.65).
+    ``length`` is the feature's length in bases, unknown bases included.
+    Flags: ``meets_ggf1987`` (length >= 200, G+C > 0.5, O/E > 0.6) and
+    ``meets_tj2002`` (Takai & Jones 2002, PNAS 99:3740: length >= 500,
+    G+C >= 0.55, O/E >= 0.65).
     """
     up = seq.upper()
     n = len(up)

@@ -321,8 +321,7 @@ class LabelReport:
         self.examples.setdefault(reason, gene)
 
     def as_dict(self) -> dict:
-        return {"genes_used": self.used,
-                "genes_skipped": dict(sorted(self.skipped.items()))}
+        return {"genes_used": self.used, "genes_skipped": dict(sorted(self.skipped.items()))}
 
 
 _RC = bytes.maketrans(b"ACGTacgtNn", b"TGCAtgcaNn")
@@ -364,10 +363,16 @@ def transcripts_from_gff3(features: list[Feature]) -> tuple[dict, dict]:
         pieces = sorted({(c.start0, c.end0, c.phase) for c in cds})
         if strand == "-":
             pieces = pieces[::-1]
-        transcripts[gene_id].append(Transcript(
-            gene=gene_id, mrna=parent, strand=strand,
-            pieces=[(s, e) for s, e, _ in pieces], phases=[p for _, _, p in pieces],
-            line0=cds[0].line0))
+        transcripts[gene_id].append(
+            Transcript(
+                gene=gene_id,
+                mrna=parent,
+                strand=strand,
+                pieces=[(s, e) for s, e, _ in pieces],
+                phases=[p for _, _, p in pieces],
+                line0=cds[0].line0,
+            )
+        )
         if gene_id not in genes and rna is not None:
             genes[gene_id] = rna
     return genes, transcripts
@@ -405,7 +410,7 @@ def check_transcript(tx: Transcript, seq: bytes, rc: bytes) -> str | None:
     if coding[-3:].decode() not in STOPS:
         return "no stop codon at the end"
     for i in range(0, len(coding) - 3, 3):
-        if coding[i:i + 3].decode() in STOPS:
+        if coding[i : i + 3].decode() in STOPS:
             return "in-frame stop codon inside the CDS"
     if set(coding) - set(b"ACGT"):
         return "unknown bases in the CDS"
@@ -413,9 +418,9 @@ def check_transcript(tx: Transcript, seq: bytes, rc: bytes) -> str | None:
         return "intron inside the start or stop codon"
     if pieces[0][0] < UP_FLANK:
         return "start flank runs off the record"
-    if set(s[pieces[0][0] - UP_FLANK:pieces[0][0]].upper()) - set(b"ACGT"):
+    if set(s[pieces[0][0] - UP_FLANK : pieces[0][0]].upper()) - set(b"ACGT"):
         return "unknown bases in the start flank"
-    for (a0, b0), (a1, b1) in zip(pieces, pieces[1:]):
+    for (_, b0), (a1, _) in zip(pieces, pieces[1:]):
         intron = s[b0:a1].upper()
         if len(intron) < MIN_INTRON:
             return f"intron shorter than {MIN_INTRON} bases"
@@ -553,8 +558,9 @@ def _frames(tx: Transcript, length: int) -> dict[int, int]:
     return out
 
 
-def label_records(model: Model, records: list, features: list[Feature], *, path: str,
-                  bad_genes: str = "skip") -> tuple[list[tuple[bytes, np.ndarray]], LabelReport]:
+def label_records(
+    model: Model, records: list, features: list[Feature], *, path: str, bad_genes: str = "skip"
+) -> tuple[list[tuple[bytes, np.ndarray]], LabelReport]:
     """The labelling rule: GFF3 genes -> one state path per record, and its mirror.
 
     For each gene, the longest transcript that passes :func:`check_transcript` is
@@ -577,8 +583,9 @@ def label_records(model: Model, records: list, features: list[Feature], *, path:
     seqids = {f.seqid for f in features}
     for sid in sorted(seqids - set(lengths)):
         first = next(f for f in features if f.seqid == sid)
-        raise FeatureFormatError(f"feature on seqid '{sid}', which is not in the FASTA",
-                                 path=path, line0=first.line0)
+        raise FeatureFormatError(
+            f"feature on seqid '{sid}', which is not in the FASTA", path=path, line0=first.line0
+        )
     genes, transcripts = transcripts_from_gff3(features)
     report = LabelReport()
     from seqstate.engine import api
@@ -595,11 +602,13 @@ def label_records(model: Model, records: list, features: list[Feature], *, path:
             if g.seqid == rec.id:
                 if g.end0 > n:
                     raise FeatureFormatError(
-                        f"feature ends at {g.end0}, past the end of record '{rec.id}' "
-                        f"(length {n})", path=path, line0=g.line0)
+                        f"feature ends at {g.end0}, past the end of record '{rec.id}' (length {n})",
+                        path=path,
+                        line0=g.line0,
+                    )
                 if not transcripts.get(gid):
                     if g.type != "gene":
-                        states[g.start0:g.end0] = -1  # pseudogenes: neither coding nor not
+                        states[g.start0 : g.end0] = -1  # pseudogenes: neither coding nor not
                     continue
                 # a coding locus: from its first coding base (less the start flank) to
                 # its last, over all its transcripts
@@ -643,8 +652,11 @@ def label_records(model: Model, records: list, features: list[Feature], *, path:
                 if bad_genes == "fail":
                     raise FeatureFormatError(
                         f"gene '{gid}': {reasons[0]} (no transcript of the gene can be "
-                        "used; --bad-genes skip leaves such genes out)", path=path,
-                        line0=txs[0].line0, where=f"record '{rec.id}'")
+                        "used; --bad-genes skip leaves such genes out)",
+                        path=path,
+                        line0=txs[0].line0,
+                        where=f"record '{rec.id}'",
+                    )
                 report.skip(reasons[0], gid)
                 states[s0:e0] = -1
                 continue

@@ -154,9 +154,7 @@ class Model:
             return False
         for j in self.lower_emissions:
             arrays.append((self.lower_emissions[j], other.lower_emissions[j]))
-        return all(
-            a.shape == b.shape and np.array_equal(a, b, equal_nan=True) for a, b in arrays
-        )
+        return all(a.shape == b.shape and np.array_equal(a, b, equal_nan=True) for a, b in arrays)
 
     def context_string(self, order: int, index: int) -> str:
         """The k-mer string of context ``index`` at ``order`` (oldest symbol first)."""
@@ -211,8 +209,9 @@ def make_model(
         emissions=emissions.copy(),
         end=None if end is None else np.asarray(end, dtype=np.float64).copy(),
         decode=decode,
-        lower_emissions={int(j): np.asarray(v, dtype=np.float64) for j, v in
-                         (lower_emissions or {}).items()},
+        lower_emissions={
+            int(j): np.asarray(v, dtype=np.float64) for j, v in (lower_emissions or {}).items()
+        },
         background_label=background_label,
         provenance=dict(provenance or {}),
         extra=dict(extra or {}),
@@ -292,16 +291,20 @@ def validate(model: Model, *, path: str | None = None) -> None:
             check_sum(total, f"transitions of state {n!r}")
     for i, n in enumerate(names):
         for c in range(a**k):
-            check_sum(float(model.emissions[i, c].sum()),
-                      f"emissions of state {n!r} context {model.context_string(k, c) or '.'!r}")
+            check_sum(
+                float(model.emissions[i, c].sum()),
+                f"emissions of state {n!r} context {model.context_string(k, c) or '.'!r}",
+            )
     for j, arr in model.lower_emissions.items():
         for i, n in enumerate(names):
             for c in range(a**j):
                 row = arr[i, c]
                 if np.all(np.isnan(row)):
                     continue
-                check_sum(float(row.sum()),
-                          f"emissions of state {n!r} context {model.context_string(j, c) or '.'!r}")
+                check_sum(
+                    float(row.sum()),
+                    f"emissions of state {n!r} context {model.context_string(j, c) or '.'!r}",
+                )
     check_reachability(model, path=path)
 
 

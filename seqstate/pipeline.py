@@ -63,7 +63,8 @@ class Progress:
         left = (self.total - self.done) / rate if rate > 0 else 0.0
         self.stream.write(
             f"\r{what}: {self.done / 1e6:.2f}/{self.total / 1e6:.2f} Mbp, "
-            f"{rate / 1e6:.2f} Mbp/s, {left:.0f} s left   ")
+            f"{rate / 1e6:.2f} Mbp/s, {left:.0f} s left   "
+        )
         self.stream.flush()
 
     def finish(self) -> None:
@@ -114,7 +115,10 @@ def _check_symbols(records: list[Record], model: Model, path: str) -> None:
             if ch not in allowed:
                 raise SequenceFormatError(
                     f"position {i + 1} has character {ch!r}, expected one of the model's "
-                    f"symbols {model.alphabet!r}", path=path, where=f"record '{rec.id}'")
+                    f"symbols {model.alphabet!r}",
+                    path=path,
+                    where=f"record '{rec.id}'",
+                )
 
 
 def _fmt(value: float, spec: str) -> str:
@@ -145,14 +149,26 @@ SCORE_FORMATS = {
     "meets_ggf1987": "",
     "meets_tj2002": "",
 }
-BASE_COLUMNS = ["mean_posterior", "min_posterior", "segment_probability", "log_odds_nat",
-                "log_odds_bits", "length"]
+BASE_COLUMNS = [
+    "mean_posterior",
+    "min_posterior",
+    "segment_probability",
+    "log_odds_nat",
+    "log_odds_bits",
+    "length",
+]
 CPG_COLUMNS = ["gc_fraction", "cpg_count", "cpg_oe", "meets_ggf1987", "meets_tj2002"]
 
 
-def score_segments(model: Model, tables: api.EngineTables, codes: np.ndarray,
-                   post: api.Posterior, groups: list[Group], segs: list[Segment],
-                   seq: bytes) -> None:
+def score_segments(
+    model: Model,
+    tables: api.EngineTables,
+    codes: np.ndarray,
+    post: api.Posterior,
+    groups: list[Group],
+    segs: list[Segment],
+    seq: bytes,
+) -> None:
     """Fill ``seg.scores`` for every segment (posterior scores, and CpG statistics)."""
     masks = []
     for grp in groups:
@@ -161,11 +177,12 @@ def score_segments(model: Model, tables: api.EngineTables, codes: np.ndarray,
         masks.append(mask)
     for seg in segs:
         grp = groups[seg.group]
-        sc = score_segment(tables, codes, post, post.values[:, seg.group], masks[seg.group],
-                           seg.start0, seg.end0)
+        sc = score_segment(
+            tables, codes, post, post.values[:, seg.group], masks[seg.group], seg.start0, seg.end0
+        )
         sc["length"] = seg.end0 - seg.start0
         if grp.label == "CpG_island":
-            stats = cpg_statistics(seq[seg.start0:seg.end0])
+            stats = cpg_statistics(seq[seg.start0 : seg.end0])
             for key in CPG_COLUMNS:
                 sc[key] = stats[key]
         seg.scores = sc
@@ -177,9 +194,15 @@ def feature_of(seqid: str, offset0: int, grp: Group, seg: Segment, number: int) 
     for key, value in seg.scores.items():
         attrs.append((key, _fmt(value, SCORE_FORMATS.get(key, ".6g"))))
     return Feature(
-        seqid=seqid, source=SOURCE, type=grp.label, start0=seg.start0 + offset0,
-        end0=seg.end0 + offset0, score=seg.scores.get("mean_posterior"),
-        strand=grp.strand or ".", phase=None, attributes=attrs,
+        seqid=seqid,
+        source=SOURCE,
+        type=grp.label,
+        start0=seg.start0 + offset0,
+        end0=seg.end0 + offset0,
+        score=seg.scores.get("mean_posterior"),
+        strand=grp.strand or ".",
+        phase=None,
+        attributes=attrs,
     )
 
 
@@ -223,27 +246,59 @@ def annotate(opts: AnnotateOptions, *, progress_enabled: bool = False) -> dict:
         "tool": "seqstate",
         "version": __version__,
         "command_line": list(opts.command_line),
-        "model": {"name": model.name, "sha256": sha, "alphabet": model.alphabet,
-                  "order": model.order, "states": model.n_states},
+        "model": {
+            "name": model.name,
+            "sha256": sha,
+            "alphabet": model.alphabet,
+            "order": model.order,
+            "states": model.n_states,
+        },
         "options": {k: v for k, v in asdict(opts).items() if k != "command_line"},
         "decode": decode,
         "log_base": "natural log (ln)",
-        "coordinates": {"gff3": "1-based closed", "bedgraph": "0-based half-open",
-                        "tsv": "1-based closed (start_1based, end_1based)"},
+        "coordinates": {
+            "gff3": "1-based closed",
+            "bedgraph": "0-based half-open",
+            "tsv": "1-based closed (start_1based, end_1based)",
+        },
         "records": [],
         "outputs": [],
     }
     report["options"]["decode"] = decode
     progress = Progress(sum(e - s for _, s, e in spans), progress_enabled)
     try:
-        return _annotate_into(opts, model, decode, tables, groups, state_group, spans, stem,
-                              want_bedgraph, want_bigwig, report, progress)
+        return _annotate_into(
+            opts,
+            model,
+            decode,
+            tables,
+            groups,
+            state_group,
+            spans,
+            stem,
+            want_bedgraph,
+            want_bigwig,
+            report,
+            progress,
+        )
     except ImpossibleSequenceError as exc:
         raise ImpossibleSequenceError(exc.message, path=opts.input) from None
 
 
-def _annotate_into(opts, model, decode, tables, groups, state_group, spans, stem,
-                   want_bedgraph, want_bigwig, report, progress) -> dict:
+def _annotate_into(
+    opts,
+    model,
+    decode,
+    tables,
+    groups,
+    state_group,
+    spans,
+    stem,
+    want_bedgraph,
+    want_bigwig,
+    report,
+    progress,
+) -> dict:
     with OutputSet(opts.out_dir) as outs:
         gff_name = f"{stem}.gff3"
         tsv_name = f"{stem}.features.tsv"
@@ -266,26 +321,33 @@ def _annotate_into(opts, model, decode, tables, groups, state_group, spans, stem
             if want_bedgraph:
                 name = f"{stem}.{grp.track_name}.bedgraph"
                 names.append(name)
-                bedgraphs.append(tracks.BedGraphTrack(outs.open_text(name), grp.track_name,
-                                                      desc, opts.precision))
+                bedgraphs.append(
+                    tracks.BedGraphTrack(outs.open_text(name), grp.track_name, desc, opts.precision)
+                )
             if want_bigwig:
                 name = f"{stem}.{grp.track_name}.bw"
                 names.append(name)
-                bigwigs.append(tracks.BigWigTrack(outs.path(name),
-                                                  [(rec.id, len(rec.seq)) for rec, _, _ in spans],
-                                                  opts.precision))
+                bigwigs.append(
+                    tracks.BigWigTrack(
+                        outs.path(name),
+                        [(rec.id, len(rec.seq)) for rec, _, _ in spans],
+                        opts.precision,
+                    )
+                )
         for rec, s0, e0 in spans:
             seq = rec.seq[s0:e0]
             codes = api.encode(tables, seq, masked_unknown=(opts.masked == "unknown"))
             sym = api.symbols_of(tables, seq, masked_unknown=(opts.masked == "unknown"))
             unknown = int(np.count_nonzero(sym < 0))
-            post = api.posterior(tables, codes, group=state_group, n_groups=len(groups),
-                                 record=rec.id)
+            post = api.posterior(
+                tables, codes, group=state_group, n_groups=len(groups), record=rec.id
+            )
             progress.advance((e0 - s0) // 2, rec.id)
             if gene_mode:
                 path, _ = api.viterbi(tables, codes, record=rec.id)
-                n_feat = write_genes(gff, tsv, model, tables, codes, post, groups, path, rec.id,
-                                     s0, seq)
+                n_feat = write_genes(
+                    gff, tsv, model, tables, codes, post, groups, path, rec.id, s0, seq
+                )
                 segs = []
                 del path
             elif decode == "viterbi":
@@ -303,10 +365,18 @@ def _annotate_into(opts, model, decode, tables, groups, state_group, spans, stem
                 counters[seg.group] += 1
                 feat = feature_of(rec.id, s0, groups[seg.group], seg, counters[seg.group])
                 gff.write(feat)
-                row = [rec.id, str(feat.start0 + 1), str(feat.end0), feat.strand, feat.type,
-                       feat.get("ID") or ""]
-                row += [_fmt(seg.scores[c], SCORE_FORMATS[c]) if c in seg.scores else ""
-                        for c in columns[6:]]
+                row = [
+                    rec.id,
+                    str(feat.start0 + 1),
+                    str(feat.end0),
+                    feat.strand,
+                    feat.type,
+                    feat.get("ID") or "",
+                ]
+                row += [
+                    _fmt(seg.scores[c], SCORE_FORMATS[c]) if c in seg.scores else ""
+                    for c in columns[6:]
+                ]
                 tsv.write("\t".join(row) + "\n")
             for g in range(len(groups)):
                 values = post.values[:, g]
@@ -314,15 +384,17 @@ def _annotate_into(opts, model, decode, tables, groups, state_group, spans, stem
                     bedgraphs[g].add(rec.id, values, s0)
                 if want_bigwig:
                     bigwigs[g].add(rec.id, values, s0)
-            report["records"].append({
-                "id": rec.id,
-                "length": len(rec.seq),
-                "start_1based": s0 + 1,
-                "end_1based": e0,
-                "unknown_bases": unknown,
-                "loglik_nat": post.loglik,
-                "features": n_feat,
-            })
+            report["records"].append(
+                {
+                    "id": rec.id,
+                    "length": len(rec.seq),
+                    "start_1based": s0 + 1,
+                    "end_1based": e0,
+                    "unknown_bases": unknown,
+                    "loglik_nat": post.loglik,
+                    "features": n_feat,
+                }
+            )
             progress.advance((e0 - s0) - (e0 - s0) // 2, rec.id)
             del post, codes
         for bw in bigwigs:
@@ -337,8 +409,20 @@ def _annotate_into(opts, model, decode, tables, groups, state_group, spans, stem
 
 
 # ---------------------------------------------------------------- gene structures
-GENE_COLUMNS = ["seqid", "start_1based", "end_1based", "strand", "type", "id", "parent",
-                "phase", "mean_posterior", "min_posterior", "segment_probability", "length"]
+GENE_COLUMNS = [
+    "seqid",
+    "start_1based",
+    "end_1based",
+    "strand",
+    "type",
+    "id",
+    "parent",
+    "phase",
+    "mean_posterior",
+    "min_posterior",
+    "segment_probability",
+    "length",
+]
 
 
 def is_gene_model(model: Model) -> bool:
@@ -347,9 +431,19 @@ def is_gene_model(model: Model) -> bool:
     return isinstance(table, dict) and table.get("features") == "gene_structure"
 
 
-def write_genes(gff: GFF3Writer, tsv, model: Model, tables: api.EngineTables,
-                codes: np.ndarray, post: api.Posterior, groups: list[Group],
-                path: np.ndarray, seqid: str, offset0: int, seq: bytes) -> int:
+def write_genes(
+    gff: GFF3Writer,
+    tsv,
+    model: Model,
+    tables: api.EngineTables,
+    codes: np.ndarray,
+    post: api.Posterior,
+    groups: list[Group],
+    path: np.ndarray,
+    seqid: str,
+    offset0: int,
+    seq: bytes,
+) -> int:
     """Write the genes of a decoded path as a GFF3 hierarchy; returns the feature count.
 
     gene and mRNA span the coding part (start codon to stop codon; the model has
@@ -382,7 +476,7 @@ def write_genes(gff: GFF3Writer, tsv, model: Model, tables: api.EngineTables,
         gid = f"{seqid}.gene.{number}"
         mid = f"{seqid}.mRNA.{number}"
 
-        def emit(ftype, a, b, fid, parent, sc, phase=None):
+        def emit(ftype, a, b, fid, parent, sc, phase=None, strand=strand, gp=gp):
             attrs: list[tuple[str, str | list[str]]] = [("ID", fid)]
             if parent:
                 attrs.append(("Parent", parent))
@@ -391,14 +485,38 @@ def write_genes(gff: GFF3Writer, tsv, model: Model, tables: api.EngineTables,
             attrs.append(("length", str(b - a)))
             if gp.partial and ftype in ("gene", "mRNA"):
                 attrs.append(("partial", "cut by the record end"))
-            gff.write(Feature(seqid=seqid, source=SOURCE, type=ftype, start0=a + offset0,
-                              end0=b + offset0, score=sc["mean_posterior"], strand=strand,
-                              phase=phase, attributes=attrs))
-            tsv.write("\t".join([
-                seqid, str(a + offset0 + 1), str(b + offset0), strand, ftype, fid, parent or "",
-                "." if phase is None else str(phase),
-                _fmt(sc["mean_posterior"], ".4f"), _fmt(sc["min_posterior"], ".4f"),
-                _fmt(sc["segment_probability"], ".4g"), str(b - a)]) + "\n")
+            gff.write(
+                Feature(
+                    seqid=seqid,
+                    source=SOURCE,
+                    type=ftype,
+                    start0=a + offset0,
+                    end0=b + offset0,
+                    score=sc["mean_posterior"],
+                    strand=strand,
+                    phase=phase,
+                    attributes=attrs,
+                )
+            )
+            tsv.write(
+                "\t".join(
+                    [
+                        seqid,
+                        str(a + offset0 + 1),
+                        str(b + offset0),
+                        strand,
+                        ftype,
+                        fid,
+                        parent or "",
+                        "." if phase is None else str(phase),
+                        _fmt(sc["mean_posterior"], ".4f"),
+                        _fmt(sc["min_posterior"], ".4f"),
+                        _fmt(sc["segment_probability"], ".4g"),
+                        str(b - a),
+                    ]
+                )
+                + "\n"
+            )
 
         emit("gene", g0, g1, gid, None, gsc)
         emit("mRNA", g0, g1, mid, gid, gsc)
@@ -449,8 +567,13 @@ def sample(opts: SampleOptions) -> dict:
     for r in range(opts.records):
         rid = f"{opts.prefix}{r + 1}"
         path, sym = sample_record(tables, opts.length, rng)
-        records.append(Record(rid, f"synthetic, sampled from model {model.name} seed "
-                              f"{opts.seed}", alphabet[sym].tobytes()))
+        records.append(
+            Record(
+                rid,
+                f"synthetic, sampled from model {model.name} seed {opts.seed}",
+                alphabet[sym].tobytes(),
+            )
+        )
         truths.append((rid, segments_from_path(path, state_group)))
     with atomic_text(opts.out_fasta) as fh:
         write_fasta(fh, records, width=opts.width)

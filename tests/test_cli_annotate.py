@@ -846,8 +846,13 @@ def test_model_list_names_the_builtin_models():
     result = invoke(["model", "list"])
     assert result.exit_code == 0, result.stderr
     names = [line.split("\t")[0] for line in result.stdout.splitlines()]
-    assert sorted(names) == ["casino", "cpg-island", "cpg-island-8", "gene-segment",
-                            "gene-segment-layout"]
+    assert sorted(names) == [
+        "casino",
+        "cpg-island",
+        "cpg-island-8",
+        "gene-segment",
+        "gene-segment-layout",
+    ]
 
 
 def test_model_check_prints_states_and_expected_stays():

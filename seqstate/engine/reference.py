@@ -13,8 +13,9 @@ import itertools
 import numpy as np
 
 
-def forward_backward(start: np.ndarray, trans: np.ndarray, end: np.ndarray,
-                     lattice: np.ndarray) -> tuple[float, np.ndarray]:
+def forward_backward(
+    start: np.ndarray, trans: np.ndarray, end: np.ndarray, lattice: np.ndarray
+) -> tuple[float, np.ndarray]:
     """Scaled forward-backward (Rabiner 1989, section V.A): (loglik, posterior N x M)."""
     n, m = lattice.shape
     alpha = np.zeros((n, m))
@@ -37,8 +38,9 @@ def forward_backward(start: np.ndarray, trans: np.ndarray, end: np.ndarray,
     return loglik, post
 
 
-def viterbi(start: np.ndarray, trans: np.ndarray, end: np.ndarray,
-            lattice: np.ndarray) -> tuple[np.ndarray, float]:
+def viterbi(
+    start: np.ndarray, trans: np.ndarray, end: np.ndarray, lattice: np.ndarray
+) -> tuple[np.ndarray, float]:
     """Log-space Viterbi with the same tie rule as the kernels (lowest index wins)."""
     n, m = lattice.shape
     with np.errstate(divide="ignore"):
@@ -62,8 +64,7 @@ def viterbi(start: np.ndarray, trans: np.ndarray, end: np.ndarray,
     return path, best
 
 
-def brute_force(start: np.ndarray, trans: np.ndarray, end: np.ndarray,
-                lattice: np.ndarray) -> dict:
+def brute_force(start: np.ndarray, trans: np.ndarray, end: np.ndarray, lattice: np.ndarray) -> dict:
     """Enumerate every path: likelihood, posteriors, best path (tiny N and M only).
 
     Returns ``{"loglik", "posterior" (N x M), "best_path", "best_logp", "paths"}``
@@ -95,8 +96,9 @@ def brute_force(start: np.ndarray, trans: np.ndarray, end: np.ndarray,
     }
 
 
-def encode_codes(sym: np.ndarray, order: int, n_symbols: int, offsets: np.ndarray,
-                 unknown_code: int) -> np.ndarray:
+def encode_codes(
+    sym: np.ndarray, order: int, n_symbols: int, offsets: np.ndarray, unknown_code: int
+) -> np.ndarray:
     """Pure-Python twin of :func:`seqstate.engine.kernels.encode_codes`."""
     out = np.empty(len(sym), dtype=np.int64)
     for i, x in enumerate(sym):
@@ -113,8 +115,14 @@ def encode_codes(sym: np.ndarray, order: int, n_symbols: int, offsets: np.ndarra
     return out
 
 
-def expected_counts(start: np.ndarray, trans: np.ndarray, end: np.ndarray,
-                    lattice: np.ndarray, codes: np.ndarray, n_codes: int) -> dict:
+def expected_counts(
+    start: np.ndarray,
+    trans: np.ndarray,
+    end: np.ndarray,
+    lattice: np.ndarray,
+    codes: np.ndarray,
+    n_codes: int,
+) -> dict:
     """Full-matrix twin of :func:`seqstate.engine.training.accumulate` (one record).
 
     Scaled forward and backward over the whole record (Rabiner 1989, section V.A),
@@ -148,5 +156,10 @@ def expected_counts(start: np.ndarray, trans: np.ndarray, end: np.ndarray,
         xi += x / x.sum()
     emit = np.zeros((n_codes, m))
     np.add.at(emit, np.asarray(codes, dtype=np.int64), gamma)
-    return {"loglik": loglik, "start": gamma[0].copy(), "trans": xi, "end": gamma[-1].copy(),
-            "emit": emit}
+    return {
+        "loglik": loglik,
+        "start": gamma[0].copy(),
+        "trans": xi,
+        "end": gamma[-1].copy(),
+        "emit": emit,
+    }

@@ -19,8 +19,20 @@ _CHUNK = 1 << 20
 
 
 @njit(cache=True, nogil=True)
-def _sample_chunk(u, pos0, state, ctx, start_cdf, trans_cdf, emit_cdf, offsets, order,
-                  n_symbols, path_out, sym_out):
+def _sample_chunk(
+    u,
+    pos0,
+    state,
+    ctx,
+    start_cdf,
+    trans_cdf,
+    emit_cdf,
+    offsets,
+    order,
+    n_symbols,
+    path_out,
+    sym_out,
+):
     """Fill ``path_out``/``sym_out`` for positions pos0.. using 2 uniforms per position."""
     m = start_cdf.shape[0]
     cap = 1
@@ -51,8 +63,9 @@ def _sample_chunk(u, pos0, state, ctx, start_cdf, trans_cdf, emit_cdf, offsets, 
     return state, ctx
 
 
-def sample_record(tables: EngineTables, length: int,
-                  rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
+def sample_record(
+    tables: EngineTables, length: int, rng: np.random.Generator
+) -> tuple[np.ndarray, np.ndarray]:
     """One record: (state path int32, symbol indices int8), both of ``length``."""
     m, a = tables.n_states, tables.n_symbols
     start = tables.start / tables.start.sum()
@@ -65,14 +78,27 @@ def sample_record(tables: EngineTables, length: int,
     for j in range(tables.order + 1):
         lo, hi = tables.offsets[j], tables.offsets[j + 1]
         block = tables.E[lo:hi].reshape(-1, a, m)
-        emit_cdf[lo:hi] = (np.cumsum(block, axis=1) / block.sum(axis=1, keepdims=True)
-                           ).reshape(-1, m)
+        emit_cdf[lo:hi] = (np.cumsum(block, axis=1) / block.sum(axis=1, keepdims=True)).reshape(
+            -1, m
+        )
     path = np.empty(length, dtype=np.int32)
     sym = np.empty(length, dtype=np.int8)
     state, ctx = 0, 0
     for lo in range(0, length, _CHUNK):
         hi = min(length, lo + _CHUNK)
         u = rng.random(2 * (hi - lo))
-        state, ctx = _sample_chunk(u, lo, state, ctx, start_cdf, trans_cdf, emit_cdf,
-                                   tables.offsets, tables.order, a, path[lo:hi], sym[lo:hi])
+        state, ctx = _sample_chunk(
+            u,
+            lo,
+            state,
+            ctx,
+            start_cdf,
+            trans_cdf,
+            emit_cdf,
+            tables.offsets,
+            tables.order,
+            a,
+            path[lo:hi],
+            sym[lo:hi],
+        )
     return path, sym

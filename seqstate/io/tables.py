@@ -54,8 +54,17 @@ TABLE_FILES = {
     "end": "end.tsv",
 }
 _KNOWN_KEYS = {
-    "format", "name", "description", "alphabet", "order", "decode", "normalize",
-    "background_label", "tables", "states", "provenance",
+    "format",
+    "name",
+    "description",
+    "alphabet",
+    "order",
+    "decode",
+    "normalize",
+    "background_label",
+    "tables",
+    "states",
+    "provenance",
 }
 
 
@@ -90,8 +99,9 @@ def resolve_model_path(spec: str | os.PathLike) -> Path:
     if name in list_builtin():
         return builtin_dir() / name / MANIFEST
     known = ", ".join(list_builtin()) or "none"
-    raise UsageError(f"unknown model '{name}': not a file or folder, nor a built-in model "
-                     f"(built-in: {known})")
+    raise UsageError(
+        f"unknown model '{name}': not a file or folder, nor a built-in model (built-in: {known})"
+    )
 
 
 def load_model(spec: str | os.PathLike) -> Model:
@@ -116,14 +126,16 @@ def _load_manifest(manifest: Path) -> Model:
             raise ModelFormatError(f"missing required key '{key}'", path=manifest)
         value = doc[key]
         if not isinstance(value, kind) or isinstance(value, bool) and kind is int:
-            raise ModelFormatError(f"key '{key}' has the wrong type ({type(value).__name__})",
-                                   path=manifest)
+            raise ModelFormatError(
+                f"key '{key}' has the wrong type ({type(value).__name__})", path=manifest
+            )
         return value
 
     fmt = doc.get("format", FORMAT)
     if fmt != FORMAT:
-        raise ModelFormatError(f"format '{fmt}' is not supported, expected '{FORMAT}'",
-                               path=manifest)
+        raise ModelFormatError(
+            f"format '{fmt}' is not supported, expected '{FORMAT}'", path=manifest
+        )
     name = need("name", str)
     alphabet = doc.get("alphabet", "ACGT")
     if not isinstance(alphabet, str):
@@ -151,19 +163,20 @@ def _load_manifest(manifest: Path) -> Model:
     names = [s.name for s in states]
     # names are checked before tables so that a table error can trust them
     seen: set[str] = set()
-    headers = [i for i, line in enumerate(text.splitlines())
-               if line.strip().startswith("[[states]]")]
+    headers = [
+        i for i, line in enumerate(text.splitlines()) if line.strip().startswith("[[states]]")
+    ]
     for i, n in enumerate(names):
         if n in seen:
             line0 = headers[i] if i < len(headers) else None
-            raise ModelFormatError(f"[[states]] entry {i + 1}: duplicate state name '{n}'",
-                                   path=manifest, line0=line0)
+            raise ModelFormatError(
+                f"[[states]] entry {i + 1}: duplicate state name '{n}'", path=manifest, line0=line0
+            )
         seen.add(n)
     if order < 0 or order > 8:
         raise ModelFormatError(f"emission order {order} is outside 0..8", path=manifest)
     if len(set(alphabet)) != len(alphabet) or not alphabet:
-        raise ModelFormatError(f"alphabet {alphabet!r} must list distinct symbols",
-                               path=manifest)
+        raise ModelFormatError(f"alphabet {alphabet!r} must list distinct symbols", path=manifest)
 
     def table_path(key: str, required: bool) -> Path | None:
         rel = tables.get(key)
@@ -184,8 +197,7 @@ def _load_manifest(manifest: Path) -> Model:
     emissions, lower = _read_emissions(emis_path, names, alphabet, order, strict)
     provenance = doc.get("provenance", {})
     if not isinstance(provenance, dict):
-        raise ModelFormatError("[provenance] must be a table of key = value lines",
-                               path=manifest)
+        raise ModelFormatError("[provenance] must be a table of key = value lines", path=manifest)
     extra = {k: v for k, v in doc.items() if k not in _KNOWN_KEYS}
     model = Model(
         name=name,
@@ -211,7 +223,9 @@ def _load_manifest(manifest: Path) -> Model:
     elif abs(start.sum() - 1.0) > SUM_TOLERANCE:
         raise TableFormatError(
             f"start probabilities sum to {start.sum():.9g}, expected 1 "
-            f"(tolerance {SUM_TOLERANCE:g})", path=table_path("start", True))
+            f"(tolerance {SUM_TOLERANCE:g})",
+            path=table_path("start", True),
+        )
     check_reachability(model, path=str(manifest))
     validate(model, path=str(manifest))
     return model
@@ -239,11 +253,11 @@ def _number(cell: str, path: Path, line0: int, what: str) -> float:
     try:
         value = float(text)
     except ValueError:
-        raise TableFormatError(f"{what}: '{text[:30]}' is not a number", path=path,
-                               line0=line0) from None
+        raise TableFormatError(
+            f"{what}: '{text[:30]}' is not a number", path=path, line0=line0
+        ) from None
     if not math.isfinite(value):
-        raise TableFormatError(f"{what}: '{text}' is not a finite number", path=path,
-                               line0=line0)
+        raise TableFormatError(f"{what}: '{text}' is not a finite number", path=path, line0=line0)
     if value < 0:
         raise TableFormatError(f"{what}: {text} is negative", path=path, line0=line0)
     return value
@@ -251,8 +265,9 @@ def _number(cell: str, path: Path, line0: int, what: str) -> float:
 
 def _state_index(name: str, index: dict[str, int], path: Path, line0: int) -> int:
     if name not in index:
-        raise TableFormatError(f"unknown state '{name}' (states: {', '.join(index)})",
-                               path=path, line0=line0)
+        raise TableFormatError(
+            f"unknown state '{name}' (states: {', '.join(index)})", path=path, line0=line0
+        )
     return index[name]
 
 
@@ -260,7 +275,9 @@ def _check_sum(total: float, what: str, path: Path, line0: int) -> None:
     if abs(total - 1.0) > SUM_TOLERANCE:
         raise TableFormatError(
             f"{what} sums to {total:.9g}, expected 1 (tolerance {SUM_TOLERANCE:g})",
-            path=path, line0=line0)
+            path=path,
+            line0=line0,
+        )
 
 
 def _read_vector(path: Path, names: list[str], column: str, strict: bool) -> np.ndarray:
@@ -275,30 +292,32 @@ def _read_vector(path: Path, names: list[str], column: str, strict: bool) -> np.
             header_seen = True
             if [f.strip() for f in fields] != ["state", column]:
                 raise TableFormatError(
-                    f"header is {fields!r}, expected 'state<TAB>{column}'", path=path,
-                    line0=line0)
+                    f"header is {fields!r}, expected 'state<TAB>{column}'", path=path, line0=line0
+                )
             continue
         if len(fields) != 2:
-            raise TableFormatError(f"found {len(fields)} columns, expected 2", path=path,
-                                   line0=line0)
+            raise TableFormatError(
+                f"found {len(fields)} columns, expected 2", path=path, line0=line0
+            )
         s = _state_index(fields[0].strip(), index, path, line0)
         if given[s]:
-            raise TableFormatError(f"duplicate row for state '{names[s]}'", path=path,
-                                   line0=line0)
+            raise TableFormatError(f"duplicate row for state '{names[s]}'", path=path, line0=line0)
         given[s] = True
         values[s] = _number(fields[1], path, line0, f"state '{names[s]}'")
     if not header_seen:
         raise TableFormatError("table is empty", path=path)
     if column == "start" and not strict and values.sum() <= 0:
-        raise TableFormatError("start probabilities sum to 0 and cannot be normalised",
-                               path=path, line0=last_line0)
+        raise TableFormatError(
+            "start probabilities sum to 0 and cannot be normalised", path=path, line0=last_line0
+        )
     if column == "start" and strict:
         _check_sum(float(values.sum()), "start probabilities (all rows)", path, last_line0)
     return values
 
 
-def _read_transitions(path: Path, names: list[str], end: np.ndarray | None,
-                      strict: bool) -> np.ndarray:
+def _read_transitions(
+    path: Path, names: list[str], end: np.ndarray | None, strict: bool
+) -> np.ndarray:
     index = {n: i for i, n in enumerate(names)}
     m = len(names)
     table = np.zeros((m, m))
@@ -309,23 +328,28 @@ def _read_transitions(path: Path, names: list[str], end: np.ndarray | None,
             if fields[0].strip() != "from":
                 raise TableFormatError(
                     f"first header cell is '{fields[0]}', expected 'from' followed by the "
-                    "to-state names", path=path, line0=line0)
+                    "to-state names",
+                    path=path,
+                    line0=line0,
+                )
             columns = []
             for name in fields[1:]:
                 c = _state_index(name.strip(), index, path, line0)
                 if c in columns:
-                    raise TableFormatError(f"duplicate column for state '{name.strip()}'",
-                                           path=path, line0=line0)
+                    raise TableFormatError(
+                        f"duplicate column for state '{name.strip()}'", path=path, line0=line0
+                    )
                 columns.append(c)
             continue
         if len(fields) > len(columns) + 1:
             raise TableFormatError(
                 f"found {len(fields)} columns, expected at most {len(columns) + 1}",
-                path=path, line0=line0)
+                path=path,
+                line0=line0,
+            )
         s = _state_index(fields[0].strip(), index, path, line0)
         if given[s]:
-            raise TableFormatError(f"duplicate row for state '{names[s]}'", path=path,
-                                   line0=line0)
+            raise TableFormatError(f"duplicate row for state '{names[s]}'", path=path, line0=line0)
         given[s] = True
         for c, cell in zip(columns, fields[1:]):
             table[s, c] = _number(cell, path, line0, f"row '{names[s]}' column '{names[c]}'")
@@ -334,8 +358,9 @@ def _read_transitions(path: Path, names: list[str], end: np.ndarray | None,
         if strict:
             _check_sum(float(total), what, path, line0)
         elif total <= 0:
-            raise TableFormatError(f"{what} sums to 0 and cannot be normalised", path=path,
-                                   line0=line0)
+            raise TableFormatError(
+                f"{what} sums to 0 and cannot be normalised", path=path, line0=line0
+            )
     if columns is None:
         raise TableFormatError("table is empty", path=path)
     missing = [names[i] for i in range(m) if not given[i]]
@@ -344,8 +369,9 @@ def _read_transitions(path: Path, names: list[str], end: np.ndarray | None,
     return table
 
 
-def _read_emissions(path: Path, names: list[str], alphabet: str, order: int,
-                    strict: bool) -> tuple[np.ndarray, dict[int, np.ndarray]]:
+def _read_emissions(
+    path: Path, names: list[str], alphabet: str, order: int, strict: bool
+) -> tuple[np.ndarray, dict[int, np.ndarray]]:
     index = {n: i for i, n in enumerate(names)}
     m, a = len(names), len(alphabet)
     sym = {c: i for i, c in enumerate(alphabet)}
@@ -358,45 +384,56 @@ def _read_emissions(path: Path, names: list[str], alphabet: str, order: int,
             if head[:2] != ["state", "context"]:
                 raise TableFormatError(
                     f"header starts {head[:2]!r}, expected 'state<TAB>context' then one column "
-                    "per symbol", path=path, line0=line0)
+                    "per symbol",
+                    path=path,
+                    line0=line0,
+                )
             if sorted(head[2:]) != sorted(alphabet) or len(head[2:]) != a:
                 raise TableFormatError(
-                    f"symbol columns {' '.join(head[2:])!r} do not match the alphabet "
-                    f"{alphabet!r}", path=path, line0=line0)
+                    f"symbol columns {' '.join(head[2:])!r} do not match the alphabet {alphabet!r}",
+                    path=path,
+                    line0=line0,
+                )
             columns = [sym[c] for c in head[2:]]
             continue
         if len(fields) != a + 2:
-            raise TableFormatError(f"found {len(fields)} columns, expected {a + 2}", path=path,
-                                   line0=line0)
+            raise TableFormatError(
+                f"found {len(fields)} columns, expected {a + 2}", path=path, line0=line0
+            )
         s = _state_index(fields[0].strip(), index, path, line0)
         ctx = fields[1].strip()
         if ctx == EMPTY_CONTEXT:
             ctx = ""
         if len(ctx) > order:
             raise TableFormatError(
-                f"context '{ctx}' is longer than the model's order {order}", path=path,
-                line0=line0)
+                f"context '{ctx}' is longer than the model's order {order}", path=path, line0=line0
+            )
         c = 0
         for ch in ctx:
             if ch not in sym:
-                raise TableFormatError(f"context '{ctx}' has symbol {ch!r} not in the alphabet",
-                                       path=path, line0=line0)
+                raise TableFormatError(
+                    f"context '{ctx}' has symbol {ch!r} not in the alphabet", path=path, line0=line0
+                )
             c = c * a + sym[ch]
         target = full if len(ctx) == order else lower[len(ctx)]
         if not np.all(np.isnan(target[s, c])):
             raise TableFormatError(
                 f"duplicate row for state '{names[s]}' context '{ctx or EMPTY_CONTEXT}'",
-                path=path, line0=line0)
+                path=path,
+                line0=line0,
+            )
         row = np.zeros(a)
         for col, cell in zip(columns, fields[2:]):
-            row[col] = _number(cell, path, line0,
-                               f"state '{names[s]}' context '{ctx or EMPTY_CONTEXT}'")
+            row[col] = _number(
+                cell, path, line0, f"state '{names[s]}' context '{ctx or EMPTY_CONTEXT}'"
+            )
         what = f"row for state '{names[s]}' context '{ctx or EMPTY_CONTEXT}'"
         if strict:
             _check_sum(float(row.sum()), what, path, line0)
         elif row.sum() <= 0:
-            raise TableFormatError(f"{what} sums to 0 and cannot be normalised", path=path,
-                                   line0=line0)
+            raise TableFormatError(
+                f"{what} sums to 0 and cannot be normalised", path=path, line0=line0
+            )
         target[s, c] = row
     if columns is None:
         raise TableFormatError("table is empty", path=path)
@@ -404,8 +441,7 @@ def _read_emissions(path: Path, names: list[str], alphabet: str, order: int,
         for c in range(a**order):
             if np.all(np.isnan(full[s, c])):
                 ctx = _context_string(alphabet, order, c) or EMPTY_CONTEXT
-                raise TableFormatError(f"missing context '{ctx}' for state '{names[s]}'",
-                                       path=path)
+                raise TableFormatError(f"missing context '{ctx}' for state '{names[s]}'", path=path)
     lower = {j: arr for j, arr in lower.items() if not np.all(np.isnan(arr))}
     return full, lower
 
@@ -429,11 +465,19 @@ def render_tables(model: Model) -> list[tuple[str, str]]:
     """The canonical text of every file of ``model``: [(file name, text)], manifest first."""
     names = model.state_names
     out: list[tuple[str, str]] = [(MANIFEST, _render_manifest(model))]
-    out.append((TABLE_FILES["start"], "state\tstart\n" + "".join(
-        f"{n}\t{_fmt(v)}\n" for n, v in zip(names, model.start))))
+    out.append(
+        (
+            TABLE_FILES["start"],
+            "state\tstart\n" + "".join(f"{n}\t{_fmt(v)}\n" for n, v in zip(names, model.start)),
+        )
+    )
     if model.end is not None:
-        out.append((TABLE_FILES["end"], "state\tend\n" + "".join(
-            f"{n}\t{_fmt(v)}\n" for n, v in zip(names, model.end))))
+        out.append(
+            (
+                TABLE_FILES["end"],
+                "state\tend\n" + "".join(f"{n}\t{_fmt(v)}\n" for n, v in zip(names, model.end)),
+            )
+        )
     lines = ["from\t" + "\t".join(names) + "\n"]
     for i, n in enumerate(names):
         cells = ["" if v == 0 else _fmt(v) for v in model.transitions[i]]
@@ -451,8 +495,7 @@ def render_tables(model: Model) -> list[tuple[str, str]]:
                 lines.append(f"{n}\t{ctx}\t" + "\t".join(_fmt(v) for v in arr[i, c]) + "\n")
         for c in range(a**model.order):
             ctx = model.context_string(model.order, c) or EMPTY_CONTEXT
-            lines.append(f"{n}\t{ctx}\t" + "\t".join(_fmt(v) for v in model.emissions[i, c])
-                         + "\n")
+            lines.append(f"{n}\t{ctx}\t" + "\t".join(_fmt(v) for v in model.emissions[i, c]) + "\n")
     out.append((TABLE_FILES["emissions"], "".join(lines)))
     return out
 
