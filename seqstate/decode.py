@@ -80,11 +80,16 @@ class Segment:
 def runs_above(values: np.ndarray, threshold: float, min_length: int) -> list[tuple[int, int]]:
     """Maximal runs with ``values >= threshold`` of at least ``min_length`` bases."""
     above = np.asarray(values) >= threshold
-    if not above.any():
+    n = above.shape[0]
+    change = np.flatnonzero(above[1:] != above[:-1]) + 1
+    if change.size == 0 and (n == 0 or not above[0]):
         return []
-    padded = np.concatenate([[False], above, [False]])
-    edges = np.flatnonzero(padded[1:] != padded[:-1])
-    starts, ends = edges[0::2], edges[1::2]
+    edges = change.tolist()
+    if above[0]:
+        edges.insert(0, 0)
+    if above[n - 1]:
+        edges.append(n)
+    starts, ends = np.array(edges[0::2]), np.array(edges[1::2])
     keep = (ends - starts) >= min_length
     return list(zip(starts[keep].tolist(), ends[keep].tolist()))
 

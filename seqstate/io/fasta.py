@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import gzip
 import io
+import re
 import sys
 import zlib
 from collections.abc import Iterable, Iterator
@@ -205,58 +206,86 @@ def iter_fasta(path: str | Path, *, alphabet_check: str | None = "dna") -> Itera
     shown = display_name(path)
     seen: dict[str, int] = {}
     with open_input(path, SequenceFormatError, "FASTA") as handle:
-        rid: str | None = None
-        desc = ""
-        header0 = -1
-        buf = bytearray()
-        any_line = False
-        for line0, raw in iter_lines(handle, shown, SequenceFormatError):
-            any_line = True
-            if raw[:1] == b">":
-                if rid is not None:
-                    yield _finish(shown, rid, desc, header0, buf)
-                rid, desc = _parse_header(raw, shown, line0)
-                header0 = line0
-                if rid in seen:
-                    raise SequenceFormatError(
-                        f"duplicate record ID '{rid}' (first used on line {seen[rid] + 1})",
-                        path=shown,
-                        line0=line0,
-                        where=f"record '{rid}'",
-                    )
-                seen[rid] = line0
-                buf = bytearray()
-                continue
-            chunk = raw.translate(None, _WHITESPACE)
-            if not chunk:
-                continue
-            if rid is None:
-                raise SequenceFormatError(
-                    "not a FASTA file: expected a header line starting with '>', "
-                    f"found {_snippet(raw)!r}",
-                    path=shown,
-                    line0=line0,
-                )
-            if check:
-                bad = chunk.translate(None, _DNA_BYTES)
-                if bad:
-                    index = chunk.index(bad[:1])
-                    position = len(buf) + index + 1
-                    raise SequenceFormatError(
-                        f"character {_describe_byte(bad[0])} at position {position} is not a "
-                        f"nucleotide or IUPAC ambiguity code (expected one of {DNA_ALPHABET} "
-                        "in either case)",
-                        path=shown,
-                        line0=line0,
-                        where=f"record '{rid}'",
-                    )
-            buf += chunk
-        if rid is not None:
-            yield _finish(shown, rid, desc, header0, buf)
-        elif not any_line:
+        try:
+            data = handle.read()
+        except (OSError, EOFError, zlib.error) as exc:
+            reason = getattr(exc, "strerror", None) or str(exc) or type(exc).__name__
+            raise SequenceFormatError(
+                f"cannot be read (corrupt or truncated file?): {reason}", path=shown
+            ) from None
+    yield from _records_of(data, shown, check, seen)
+
+
+def _records_of(data: bytes, shown: str, check: bool, seen: dict[str, int]) -> Iterator[Record]:
+    """Split a whole FASTA text into records, with the checks of :func:`iter_fasta`.
+
+    Works on whole sequence blocks (one ``translate`` per record, not per line);
+    only when a block holds a bad character is it scanned line by line to name
+    the line and position.
+    """
+    first = re.search(rb"\S", data)
+    if first is None:
+        if not data:
             raise SequenceFormatError("no FASTA records found (empty file)", path=shown)
-        else:
-            raise SequenceFormatError("no FASTA records found (only blank lines)", path=shown)
+        raise SequenceFormatError("no FASTA records found (only blank lines)", path=shown)
+    # header lines: '>' at the start of the data or after a newline
+    starts = [0] if data[:1] == b">" else []
+    pos = data.find(b"\n>")
+    while pos >= 0:
+        starts.append(pos + 1)
+        pos = data.find(b"\n>", pos + 1)
+    first_text = first.start()
+    if not starts or starts[0] > first_text:
+        # text before the first header: the line of the first non-blank character
+        line0 = data.count(b"\n", 0, first_text)
+        line_end = data.find(b"\n", first_text)
+        raw = data[first_text : line_end if line_end >= 0 else len(data)]
+        raise SequenceFormatError(
+            "not a FASTA file: expected a header line starting with '>', "
+            f"found {_snippet(raw)!r}",
+            path=shown,
+            line0=line0,
+        )
+    line0 = data.count(b"\n", 0, starts[0])
+    for k, h in enumerate(starts):
+        nl = data.find(b"\n", h)
+        header_end = len(data) if nl < 0 else nl + 1
+        block_end = starts[k + 1] if k + 1 < len(starts) else len(data)
+        header0 = line0
+        rid, desc = _parse_header(data[h:header_end], shown, header0)
+        if rid in seen:
+            raise SequenceFormatError(
+                f"duplicate record ID '{rid}' (first used on line {seen[rid] + 1})",
+                path=shown,
+                line0=header0,
+                where=f"record '{rid}'",
+            )
+        seen[rid] = header0
+        block = data[header_end:block_end]
+        seq = block.translate(None, _WHITESPACE)
+        if check and seq.translate(None, _DNA_BYTES):
+            _raise_bad_character(block, shown, rid, header0 + 1)
+        yield _finish(shown, rid, desc, header0, bytearray(seq))
+        line0 = header0 + 1 + block.count(b"\n")
+
+
+def _raise_bad_character(block: bytes, shown: str, rid: str, first_line0: int) -> None:
+    """Name the line and 1-based record position of the first bad character of a block."""
+    done = 0
+    for i, raw in enumerate(block.split(b"\n")):
+        chunk = raw.translate(None, _WHITESPACE)
+        bad = chunk.translate(None, _DNA_BYTES)
+        if bad:
+            index = chunk.index(bad[:1])
+            raise SequenceFormatError(
+                f"character {_describe_byte(bad[0])} at position {done + index + 1} is not a "
+                f"nucleotide or IUPAC ambiguity code (expected one of {DNA_ALPHABET} "
+                "in either case)",
+                path=shown,
+                line0=first_line0 + i,
+                where=f"record '{rid}'",
+            )
+        done += len(chunk)
 
 
 def _parse_header(raw: bytes, shown: str, line0: int) -> tuple[str, str]:
