@@ -336,8 +336,8 @@ def _annotate_into(
                 )
         for rec, s0, e0 in spans:
             seq = rec.seq[s0:e0]
-            codes = api.encode(tables, seq, masked_unknown=(opts.masked == "unknown"))
             sym = api.symbols_of(tables, seq, masked_unknown=(opts.masked == "unknown"))
+            codes = api.encode_symbols(tables, sym)
             unknown = int(np.count_nonzero(sym < 0))
             post = api.posterior(
                 tables, codes, group=state_group, n_groups=len(groups), record=rec.id

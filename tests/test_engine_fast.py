@@ -1,10 +1,13 @@
-"""The specialised kernels (seqstate.engine.small) and the tuned generic kernels agree.
+"""The specialised kernels (seqstate.engine.small, seqstate.engine.sparse) and the tuned
+generic kernels agree.
 
-Three implementations are compared on random small models and records:
+Three implementations are compared on random models and records:
 
 * ``api`` -- what users call; it dispatches to :mod:`seqstate.engine.small` when
-  every known symbol is emitted by at most two states (checked per case below, so
-  a test cannot pass by silently running the generic kernel twice);
+  every known symbol is emitted by at most two states, and to
+  :mod:`seqstate.engine.sparse` for large models made mostly of chains (random
+  chain models and the built-in gene-segment model); the dispatch is checked per
+  case below, so a test cannot pass by silently running the generic kernel twice;
 * the generic kernels of :mod:`seqstate.engine.kernels`, called directly;
 * the plain NumPy oracle :mod:`seqstate.engine.reference` (full lattices).
 
@@ -19,7 +22,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from seqstate.engine import api, kernels, reference, small
+from seqstate.engine import api, kernels, reference, small, sparse
 from seqstate.errors import ImpossibleSequenceError
 from seqstate.io.tables import load_model
 from seqstate.model import State, make_model
@@ -419,3 +422,414 @@ def test_impossible_record_is_reported_with_its_position():
         with pytest.raises(ImpossibleSequenceError, match="position 4"):
             call()
     assert _generic_loglik(t, bad)[1] == 3
+
+
+# ----------------------------------------------------------------- chain-sparse kernels
+# seqstate.engine.sparse serves large models made mostly of chains (each state with one
+# predecessor and one successor).  The cases below build such models at random (the
+# tests' own parameters), check that the API really dispatches to those kernels, and
+# compare them with the plain NumPy oracle (seqstate.engine.reference, full lattices)
+# and with the generic kernels called directly.  Viterbi paths must be identical to
+# both and its log probability identical to the generic kernel's; posteriors within
+# 1e-10.
+
+
+def _chain_model(seed, m, order, with_end):
+    """A random model of ``m`` states: chains of 2..25 states, joined into a ring by
+    their tails, with self-loops, extra branches and skips, a source state with no
+    predecessor, a sink with no successor (when there is an end table), and states
+    that emit only one or two symbols.  State indices are shuffled, so that chains
+    are not numbered consecutively."""
+    rng = np.random.default_rng(seed)
+    a = len(ALPHABET)
+    n_chain = m - 2 if with_end else m - 1
+    lengths = []
+    left = n_chain
+    while left > 0:
+        k = min(left, int(rng.integers(2, 26)))
+        lengths.append(k)
+        left -= k
+    shuffle = rng.permutation(m)  # layout position -> state index
+    chains, pos = [], 0
+    for k in lengths:
+        chains.append([int(shuffle[pos + j]) for j in range(k)])
+        pos += k
+    source = int(shuffle[pos])
+    sink = int(shuffle[pos + 1]) if with_end else None
+    allowed = np.zeros((m, m), dtype=bool)
+    for i, ch in enumerate(chains):
+        for u, v in zip(ch, ch[1:]):
+            allowed[u, v] = True
+        allowed[ch[-1], chains[(i + 1) % len(chains)][0]] = True  # the ring
+        for _ in range(int(rng.integers(0, 3))):  # more branches from the tail
+            allowed[ch[-1], chains[int(rng.integers(len(chains)))][0]] = True
+    chain_states = [s for ch in chains for s in ch]
+    for s in chain_states:
+        if rng.random() < 0.1:
+            allowed[s, s] = True
+    for _ in range(max(1, m // 20)):  # skips: targets with several predecessors
+        u, v = rng.choice(chain_states, size=2, replace=False)
+        allowed[u, v] = True
+    for ch in rng.choice(len(chains), size=min(3, len(chains)), replace=False):
+        allowed[source, chains[ch][0]] = True
+    if sink is not None:
+        for ch in rng.choice(len(chains), size=min(2, len(chains)), replace=False):
+            allowed[chains[ch][-1], sink] = True
+    trans = np.where(allowed, rng.uniform(0.05, 1.0, size=(m, m)), 0.0)
+    trans[allowed.sum(axis=1) > 0] /= trans[allowed.sum(axis=1) > 0].sum(axis=1, keepdims=True)
+    end = None
+    if with_end:
+        end = rng.uniform(0.01, 0.2, size=m)
+        trans *= (1.0 - end)[:, None]
+        end[sink] = 1.0
+    emissions = np.zeros((m, a**order, a))
+    for s in range(m):
+        if rng.random() < 0.35:  # a state that emits one or two symbols only
+            keep = rng.choice(a, size=int(rng.integers(1, 3)), replace=False)
+            emissions[s][:, keep] = rng.uniform(0.05, 1.0, size=(a**order, keep.size))
+        else:
+            emissions[s] = _rows(rng, (a**order, a), 0.15)
+    emissions /= emissions.sum(axis=-1, keepdims=True)
+    start = np.zeros(m)
+    start[source] = 0.5
+    start[chains[0][0]] = 0.5
+    states = [State(f"s{i}", ("L" if i % 3 == 0 else "K" if i % 3 == 1 else None),
+                    "+" if i % 2 else "-") for i in range(m)]
+    return make_model(name="chains", alphabet=ALPHABET, states=states, start=start,
+                      transitions=trans, emissions=emissions, end=end, order=order)
+
+
+def _possible_chain(t, rng, n, **kw):
+    """A record drawn as :func:`_possible` does, never entering a state without successors
+    (the walk would stop there); the record is possible under the full model."""
+    import dataclasses
+
+    trans = t.transitions.copy()
+    trans[:, np.diff(t.succ_ptr) == 0] = 0.0
+    return _possible(dataclasses.replace(t, transitions=trans), rng, n, **kw)
+
+
+@pytest.fixture
+def specialised(monkeypatch):
+    """The API's normal dispatch, even when the run sets SEQSTATE_KERNELS=generic."""
+    monkeypatch.setattr(api, "_USE_SMALL", True)
+
+
+def _sparse_kernels_used(t):
+    """The API serves ``t`` with the chain-sparse kernels (checked, so that a test cannot
+    pass by running the generic kernels twice)."""
+    return api._sparse_of(t) is not None
+
+
+def _group_oracle(ref_post, group, n_groups):
+    return np.stack([ref_post[:, group == k].sum(axis=1) for k in range(n_groups)], axis=1)
+
+
+def _close_to_row_max(x, y, tol):
+    """|x - y| <= tol * max(y) per row: vectors whose smallest entries lie below the
+    float64 range (scaled forward / backward vectors of long chains) agree where it
+    matters, and a denormal entry may round differently."""
+    x = np.atleast_2d(x)
+    y = np.atleast_2d(y)
+    assert np.all(np.abs(x - y) <= tol * np.max(np.abs(y), axis=1, keepdims=True))
+
+
+def _unscaled(vec, logs, ref_logs):
+    """Checkpoint rows as multiples of exp(ref_logs): comparable across scalings."""
+    return vec * np.exp(logs - ref_logs)[:, None]
+
+
+def _check_sparse_against_oracles(model, t, codes, blocks):
+    m = t.n_states
+    n = codes.shape[0]
+    lattice = t.E[codes]
+    ref_ll, ref_post = reference.forward_backward(t.start, t.transitions, t.end, lattice)
+    ref_path, ref_lp = reference.viterbi(t.start, t.transitions, t.end, lattice)
+
+    ll = api.loglik(t, codes)
+    gll, gpos = _generic_loglik(t, codes)
+    assert gpos == -1
+    assert abs(ll - gll) <= 1e-10 * abs(gll)
+    assert abs(ll - ref_ll) <= 1e-10 * abs(ref_ll)  # seqstate.engine.reference oracle
+
+    labels = model.label_index()
+    n_labels = int(labels.max()) + 1
+    for block in blocks:
+        blk = n if block is None else max(1, min(block, n))
+        p = api.posterior(t, codes, block=blk, dtype=np.float64)
+        gl, gp, gout, gack, galog, gbck, gblog = _generic_posterior(
+            t, codes, np.arange(m, dtype=np.int64), m, blk)
+        assert gp == -1
+        assert abs(p.loglik - gl) <= 1e-10 * abs(gl)
+        np.testing.assert_allclose(p.values, gout, rtol=0, atol=1e-10)
+        # seqstate.engine.reference plain-NumPy oracle (full forward-backward)
+        np.testing.assert_allclose(p.values, ref_post, rtol=0, atol=1e-10)
+        _close_to_row_max(_unscaled(p.alpha_ck, p.alpha_ck_log, galog), gack, 1e-9)
+        _close_to_row_max(_unscaled(p.beta_ck, p.beta_ck_log, gblog), gbck, 1e-9)
+        # per-label output (few columns: its own numbering), float32 and float64
+        lab = api.posterior(t, codes, group=labels, n_groups=n_labels, block=blk)
+        assert lab.values.dtype == np.float32
+        want = _group_oracle(ref_post, labels, n_labels)
+        np.testing.assert_allclose(lab.values, want, rtol=0, atol=2e-7)
+        lab64 = api.posterior(t, codes, group=labels, n_groups=n_labels, block=blk,
+                              dtype=np.float64)
+        np.testing.assert_allclose(lab64.values, want, rtol=0, atol=1e-10)
+        assert abs(lab64.loglik - ref_ll) <= 1e-10 * abs(ref_ll)
+
+        path, lp = api.viterbi(t, codes, block=blk)
+        gpath, glp, gvp = _generic_viterbi(t, codes, blk)
+        assert gvp == -1
+        assert np.array_equal(path, gpath)
+        assert lp == glp
+        assert np.array_equal(path, ref_path)  # seqstate.engine.reference oracle
+        assert abs(lp - ref_lp) <= 1e-10 * abs(ref_lp)
+    # default block: the whole record's back-pointers in one pass
+    path, lp = api.viterbi(t, codes)
+    assert np.array_equal(path, ref_path) and lp == _generic_viterbi(t, codes, n)[1]
+
+
+CHAIN_CASES = [
+    # (seed, states, order, end table, length)
+    (11, 120, 0, False, 500),
+    (12, 200, 1, True, 400),
+    (13, 300, 2, False, 300),
+    (14, 150, 3, True, 600),
+    (15, 64, 2, True, 257),
+]
+
+
+@pytest.mark.parametrize("seed,m,k,with_end,n", CHAIN_CASES)
+def test_chain_sparse_equals_generic_equals_reference(seed, m, k, with_end, n, specialised):
+    model = _chain_model(seed, m, k, with_end)
+    t = api.prepare(model)
+    assert small.build(t) is None and _sparse_kernels_used(t)
+    indeg = np.diff(t.pred_ptr)
+    assert (indeg == 0).any() and (indeg > 1).any()  # the dummy slot and searched lists
+    if with_end:
+        assert (np.diff(t.succ_ptr) == 0).any()
+    codes = _possible_chain(t, np.random.default_rng(3000 + seed), n)
+    _check_sparse_against_oracles(model, t, codes, BLOCKS)
+
+
+def test_chain_sparse_checkpoints_serve_vector_queries(specialised):
+    """forward_vector/backward_vector on the chain-sparse checkpoints.
+
+    Reference: forward and backward vectors by plain products of the model's dense
+    matrices over the lattice (the recursions' definition), rescaled each step.
+    """
+    model = _chain_model(21, 180, 2, True)
+    t = api.prepare(model)
+    assert _sparse_kernels_used(t)
+    codes = _possible_chain(t, np.random.default_rng(21), 400)
+    n = codes.shape[0]
+    lattice = t.E[codes]
+    fa, fl = np.empty((n, t.n_states)), np.empty(n)
+    a, acc = t.start * lattice[0], 0.0
+    for i in range(n):
+        if i:
+            a = (a @ t.transitions) * lattice[i]
+        s = a.sum()
+        a, acc = a / s, acc + np.log(s)
+        fa[i], fl[i] = a, acc
+    ba, bl = np.empty((n, t.n_states)), np.empty(n)
+    b, acc = t.end.copy(), 0.0
+    for i in range(n - 1, -1, -1):
+        if i < n - 1:
+            b = t.transitions @ (lattice[i + 1] * b)
+        s = b.sum()
+        b, acc = b / s, acc + np.log(s)
+        ba[i], bl[i] = b, acc
+    post = api.posterior(t, codes, block=7)
+    for pos in (0, 1, 6, 7, 8, n // 2, n - 2, n - 1):
+        vec, lg = api.forward_vector(t, codes, post, pos)
+        _close_to_row_max(vec * np.exp(lg - fl[pos]), fa[pos], 1e-9)
+        vec, lg = api.backward_vector(t, codes, post, pos)
+        _close_to_row_max(vec * np.exp(lg - bl[pos]), ba[pos], 1e-9)
+
+
+def _twin_chains_model(length):
+    """A hub with a self-loop and two identical chains out of it and back: every path
+    through one chain ties with its twin through the other, at every step."""
+    m = 1 + 2 * length
+    rng = np.random.default_rng(5)
+    order = np.random.default_rng(6).permutation(m)  # shuffled indices
+    hub, one, two = int(order[0]), order[1:1 + length], order[1 + length:]
+    trans = np.zeros((m, m))
+    trans[hub, hub] = 0.5
+    trans[hub, one[0]] = trans[hub, two[0]] = 0.25
+    em = np.zeros((m, 4))
+    em[hub] = [0.25, 0.25, 0.25, 0.25]
+    for j in range(length):
+        row = _rows(rng, (4,), 0.3)
+        em[one[j]] = em[two[j]] = row
+        nxt = hub if j == length - 1 else None
+        trans[one[j], one[j + 1] if nxt is None else hub] = 1.0
+        trans[two[j], two[j + 1] if nxt is None else hub] = 1.0
+    start = np.zeros(m)
+    start[hub] = 1.0
+    return make_model(name="twins", alphabet=ALPHABET, states=[State(f"s{i}") for i in range(m)],
+                      start=start, transitions=trans, emissions=em)
+
+
+def test_chain_sparse_viterbi_ties_go_to_the_lowest_state(specialised):
+    """Exact ties everywhere: same tie rule as the generic kernel and the reference
+    (lowest from-state index among equal predecessors, lowest final state)."""
+    model = _twin_chains_model(20)
+    t = api.prepare(model)
+    assert _sparse_kernels_used(t)
+    rng = np.random.default_rng(9)
+    codes = _possible(t, rng, 700, p_unknown=0.05)
+    lattice = t.E[codes]
+    ref_path, _ = reference.viterbi(t.start, t.transitions, t.end, lattice)
+    for block in (1, 2, 7, 100, None):
+        blk = codes.shape[0] if block is None else block
+        path, lp = api.viterbi(t, codes, block=blk)
+        gpath, glp, _ = _generic_viterbi(t, codes, blk)
+        assert np.array_equal(path, gpath) and lp == glp
+        assert np.array_equal(path, ref_path)  # seqstate.engine.reference oracle
+    # the ties really happened: the path enters the lower-index chain each time
+    one_first = model.transitions[np.flatnonzero(model.start)[0]]
+    entries = np.flatnonzero(one_first > 0)
+    entries = entries[entries != np.flatnonzero(model.start)[0]]
+    visited = set(path.tolist())
+    assert int(entries.min()) in visited and int(entries.max()) not in visited
+
+
+def test_chain_sparse_viterbi_checkpointed_when_pointers_exceed_budget(monkeypatch, specialised):
+    """Above the back-pointer budget the default Viterbi checkpoints: the same path."""
+    model = _chain_model(31, 100, 1, False)
+    t = api.prepare(model)
+    assert _sparse_kernels_used(t)
+    codes = _possible(t, np.random.default_rng(31), 900)
+    one_pass = api.viterbi(t, codes)
+    monkeypatch.setattr(sparse, "BACKPOINTER_BUDGET", 16)
+    checkpointed = api.viterbi(t, codes)
+    assert np.array_equal(one_pass[0], checkpointed[0]) and one_pass[1] == checkpointed[1]
+    gpath, glp, _ = _generic_viterbi(t, codes, api.default_block(codes.shape[0]))
+    assert np.array_equal(checkpointed[0], gpath) and checkpointed[1] == glp
+
+
+def test_chain_sparse_impossible_record_reports_the_generic_positions(specialised):
+    """A base no state can emit: same error, and the kernels' failure positions are
+    those of the generic kernels (forward, posterior and Viterbi)."""
+    m = 40
+    trans = np.zeros((m, m))
+    for s in range(m):
+        trans[s, (s + 1) % m] = 1.0  # one ring: each state one predecessor, one successor
+    em = np.zeros((m, 4))
+    for s in range(m):
+        em[s, [s % 4, (s + 1) % 4]] = [0.7, 0.3]
+    start = np.zeros(m)
+    start[0] = 1.0
+    model = make_model(name="ring", alphabet=ALPHABET, states=[State(f"s{i}") for i in range(m)],
+                       start=start, transitions=trans, emissions=em)
+    t = api.prepare(model)
+    assert _sparse_kernels_used(t)
+    good = "".join(ALPHABET[s % 4] for s in range(100))
+    assert np.isfinite(api.loglik(t, api.encode(t, good)))
+    bad = api.encode(t, good[:57] + ALPHABET[(57 + 2) % 4] + good[58:])  # position 58 1-based
+    for call in (lambda: api.loglik(t, bad), lambda: api.posterior(t, bad),
+                 lambda: api.viterbi(t, bad), lambda: api.posterior(t, bad, block=5),
+                 lambda: api.viterbi(t, bad, block=5), lambda: api.viterbi(t, bad, block=1)):
+        with pytest.raises(ImpossibleSequenceError, match="position 58"):
+            call()
+    sp = api._sparse_of(t)
+    lim = _limit(t)
+    assert sparse.forward_loglik(bad, sp.start, sp.end, sp.E, sp.w1, sp.f_ptr, sp.f_n0,
+                                 sp.f_dst, sp.f_src, sp.f_w, lim)[1] == _generic_loglik(t, bad)[1]
+    for block in (1, 5, 1000):
+        path = np.empty(bad.shape[0], dtype=np.int16)
+        bps = np.empty((min(block, bad.shape[0]), sp.n_multi + 1), dtype=sp.bp_dtype)
+        got = sparse.viterbi_checkpointed(
+            bad, sp.log_start, sp.log_end, sp.logE, sp.perm, sp.inv, sp.la1, sp.f_ptr, sp.f_n0,
+            sp.f_dst, sp.f_src, sp.f_lp, sp.f_rank, sp.f_col, sp.tb_prev, sp.tb_col, sp.p_ptr,
+            sp.p_src, sp.p_lp, block, bps, path)
+        assert got[1] == _generic_viterbi(t, bad, block)[2] == 57
+
+
+# ----------------------------------------------------------------- the gene-segment model
+def test_gene_segment_uses_the_chain_sparse_kernels_and_matches_the_reference(specialised):
+    """The built-in gene-segment model on short records (one drawn from the model, one
+    uniform), against the dense NumPy oracle and the generic kernels."""
+    model = load_model("gene-segment")
+    t = api.prepare(model)
+    assert small.build(t) is None and _sparse_kernels_used(t)
+    rng = np.random.default_rng(2024)
+    drawn = _possible(t, rng, 2000, p_unknown=0.002)
+    uniform = api.encode(t, _record(rng, 2000, p_unknown=0.01))
+    for codes in (drawn, uniform):
+        _check_sparse_against_oracles(model, t, codes, (7, 1000, None))
+
+
+def test_gene_segment_track_groups_posterior(specialised):
+    """The pipeline's per-(label, strand) columns, float32, against the oracle."""
+    from seqstate.decode import group_index, track_groups
+
+    model = load_model("gene-segment")
+    t = api.prepare(model)
+    groups = track_groups(model)
+    gi = group_index(model, groups)
+    codes = _possible(t, np.random.default_rng(77), 2000, p_unknown=0.0)
+    lattice = t.E[codes]
+    ref_ll, ref_post = reference.forward_backward(t.start, t.transitions, t.end, lattice)
+    p = api.posterior(t, codes, group=gi, n_groups=len(groups))
+    # seqstate.engine.reference plain-NumPy oracle, summed per group
+    np.testing.assert_allclose(p.values, _group_oracle(ref_post, gi, len(groups)), rtol=0,
+                               atol=2e-7)
+    assert abs(p.loglik - ref_ll) <= 1e-10 * abs(ref_ll)
+
+
+# ----------------------------------------------------------------- restricted forward
+def _restricted_oracle(t, codes, s0, e0, init, init_is_start, mask, use_emissions):
+    """log of the summed restricted forward vector, by dense NumPy products (the
+    recursion's definition: only masked states, from ``init`` at s0 - 1 or the start)."""
+    lattice = t.E[codes] if use_emissions else np.ones((codes.shape[0], t.n_states))
+    keep = mask.astype(float)
+    a = (init if init_is_start else init @ t.transitions) * lattice[s0] * keep
+    acc = 0.0
+    for i in range(s0 + 1, e0):
+        s = a.sum()
+        if s == 0:
+            return -np.inf
+        a, acc = a / s, acc + np.log(s)
+        a = (a @ t.transitions) * lattice[i] * keep
+    s = a.sum()
+    return np.log(s) + acc if s > 0 else -np.inf
+
+
+@pytest.mark.parametrize("name", ["gene-segment", "chains"])
+def test_restricted_forward_masked_path_matches_plain_and_oracle(name):
+    """Large models take the masked-list restricted forward: same values as the
+    small-model loop (called directly) and as the dense NumPy oracle above."""
+    model = load_model(name) if name != "chains" else _chain_model(41, 160, 2, True)
+    t = api.prepare(model)
+    assert t.n_states >= kernels.RESTRICTED_MASKED_MIN
+    rng = np.random.default_rng(41)
+    codes = _possible_chain(t, rng, 1500, p_unknown=0.01)
+    post = api.posterior(t, codes)
+    labels = model.label_index()
+    for s0, e0 in ((0, 40), (100, 900), (700, 701), (1200, 1500)):
+        if s0 == 0:
+            init, is_start = t.start, True
+        else:
+            init, _ = api.forward_vector(t, codes, post, s0 - 1)
+            is_start = False
+        for mask in (labels == 0, labels != 0, np.ones(t.n_states, dtype=bool)):
+            for use_e in (True, False):
+                got = np.empty(t.n_states)
+                lg = kernels.restricted_forward(codes, s0, e0, init, is_start, mask, use_e, t.E,
+                                                t.nz_ptr, t.nz_state, t.pred_ptr, t.pred_src,
+                                                t.pred_p, got)
+                plain = np.empty(t.n_states)
+                lp = kernels._restricted_plain(codes, s0, e0, init, is_start, mask, use_e, t.E,
+                                               t.nz_ptr, t.nz_state, t.pred_ptr, t.pred_src,
+                                               t.pred_p, plain)
+                want = _restricted_oracle(t, codes, s0, e0, init, is_start, mask, use_e)
+                if want == -np.inf:
+                    assert lg == lp == -np.inf
+                    continue
+                total = np.log(got.sum()) + lg
+                assert abs(total - (np.log(plain.sum()) + lp)) <= 1e-10 * max(1.0, abs(total))
+                # dense NumPy oracle (restricted recursion by matrix products)
+                assert abs(total - want) <= 1e-10 * max(1.0, abs(want))
+                _close_to_row_max(got * np.exp(lg - lp), plain, 1e-10)

@@ -201,7 +201,11 @@ def symbols_of(tables: EngineTables, seq: bytes | str | np.ndarray,
 def encode(tables: EngineTables, seq: bytes | str | np.ndarray,
            *, masked_unknown: bool = False) -> np.ndarray:
     """Emission codes of one record (see module docstring); smallest fitting unsigned dtype."""
-    sym = symbols_of(tables, seq, masked_unknown=masked_unknown)
+    return encode_symbols(tables, symbols_of(tables, seq, masked_unknown=masked_unknown))
+
+
+def encode_symbols(tables: EngineTables, sym: np.ndarray) -> np.ndarray:
+    """Emission codes from symbol indices (int8, -1 unknown) as :func:`symbols_of` gives."""
     n_codes = tables.unknown_code + 1
     dtype = np.uint8 if n_codes <= 256 else np.uint16 if n_codes <= 65536 else np.int32
     out = np.empty(sym.shape[0], dtype=dtype)
@@ -233,9 +237,13 @@ def loglik(tables: EngineTables, codes: np.ndarray, *, record: str | None = None
     if codes.shape[0] == 0:
         raise ValueError("empty record")
     sm = _small_of(tables)
+    sp = _sparse_of(tables) if sm is None else None
     if sm is not None:
         ll, pos = _small.forward_loglik(codes, sm.start, sm.end, sm.K, sm.st, sm.wide, sm.cls,
                                         sm.W, sm.T, sm.E, sm.lim)
+    elif sp is not None:
+        ll, pos = _sparse.forward_loglik(codes, sp.start, sp.end, sp.E, sp.w1, sp.f_ptr,
+                                         sp.f_n0, sp.f_dst, sp.f_src, sp.f_w, _limit_of(tables))
     else:
         ll, pos = kernels.forward_loglik(codes, tables.start, tables.end, tables.E,
                                          tables.nz_ptr, tables.nz_state, tables.pred_ptr,
@@ -292,11 +300,19 @@ def posterior(tables: EngineTables, codes: np.ndarray, *, group: np.ndarray | No
     alpha_log = np.zeros(nblocks)
     beta_log = np.zeros(nblocks)
     sm = _small_of(tables)
+    keyed = n_groups <= _sparse.MAX_KEYED_GROUPS
+    sp = _sparse_of(tables, group if keyed else None, n_groups) if sm is None else None
     if sm is not None:
         gc = _small.group_table(sm, group)
         ll, pos = _small.posterior_checkpointed(
             codes, sm.start, sm.end, sm.K, sm.st, sm.wide, sm.cls, sm.W, sm.T, sm.E, block,
             gc, out, alpha_ck, alpha_log, beta_ck, beta_log, sm.lim)
+    elif sp is not None:
+        ll, pos = _sparse.posterior_checkpointed(
+            codes, sp.start, sp.end, sp.E, sp.perm, sp.w1, sp.f_ptr, sp.f_n0, sp.f_dst,
+            sp.f_src, sp.f_w, sp.v1, sp.b_ptr, sp.b_n0, sp.b_dst, sp.b_src, sp.b_w, block,
+            _sparse.group_runs(sp, group, n_groups), n_groups, out, alpha_ck, alpha_log,
+            beta_ck, beta_log, _limit_of(tables))
     else:
         ll, pos = kernels.posterior_checkpointed(
             codes, tables.start, tables.end, tables.E, tables.nz_ptr, tables.nz_state,
@@ -317,11 +333,22 @@ def viterbi(tables: EngineTables, codes: np.ndarray, *, block: int | None = None
     n = codes.shape[0]
     if n == 0:
         raise ValueError("empty record")
+    sm = _small_of(tables)
+    sp = _sparse_of(tables) if sm is None else None
+    if sp is not None and block is None:
+        # one pass when the whole record's back-pointers fit the budget
+        bp_bytes = n * (sp.n_multi + 1) * np.dtype(sp.bp_dtype).itemsize
+        block = n if bp_bytes <= _sparse.BACKPOINTER_BUDGET else None
     block = default_block(n) if block is None else max(1, min(int(block), n))
     dtype = np.int16 if tables.n_states < 32768 else np.int32
     path = np.empty(n, dtype=dtype)
-    sm = _small_of(tables)
-    if sm is not None:
+    if sp is not None:
+        bps = np.empty((min(block, n), sp.n_multi + 1), dtype=sp.bp_dtype)
+        lp, pos = _sparse.viterbi_checkpointed(
+            codes, sp.log_start, sp.log_end, sp.logE, sp.perm, sp.inv, sp.la1, sp.f_ptr,
+            sp.f_n0, sp.f_dst, sp.f_src, sp.f_lp, sp.f_rank, sp.f_col, sp.tb_prev, sp.tb_col,
+            sp.p_ptr, sp.p_src, sp.p_lp, block, bps, path)
+    elif sm is not None:
         lp, pos = _small.viterbi_checkpointed(
             codes, sm.log_start, sm.log_end, sm.K, sm.st, sm.wide, sm.cls, sm.LT, sm.LE,
             sm.logT, sm.logE, block, path)
@@ -432,8 +459,10 @@ def segment_log_odds(tables: EngineTables, codes: np.ndarray, post: Posterior,
 import os as _os  # noqa: E402
 
 from seqstate.engine import small as _small  # noqa: E402
+from seqstate.engine import sparse as _sparse  # noqa: E402
 
-#: Set the environment variable SEQSTATE_KERNELS=generic to use only the generic kernels.
+#: Set the environment variable SEQSTATE_KERNELS=generic to use only the generic kernels
+#: (neither :mod:`seqstate.engine.small` nor :mod:`seqstate.engine.sparse`).
 _USE_SMALL = _os.environ.get("SEQSTATE_KERNELS", "").strip().lower() != "generic"
 
 
@@ -453,6 +482,30 @@ def _small_of(tables: EngineTables):
     sm = _small.build(tables)
     tables.__dict__["_small_tables"] = (sm,)
     return sm
+
+
+def _sparse_of(tables: EngineTables, group: np.ndarray | None = None, n_groups: int = 0):
+    """The renumbered chain-sparse tables of ``tables``, or None (kept on the object).
+
+    With ``group`` (a posterior's state -> column array, for few columns) the
+    states of each column are numbered consecutively, so that the per-column sums
+    read contiguous ranges; such tables are kept per distinct ``group`` (a few at
+    most in practice).  None when the model does not fit :mod:`seqstate.engine.sparse`
+    (small, or not mostly chains) or the specialised kernels are switched off.
+    """
+    if not _USE_SMALL:
+        return None
+    key = None if group is None else _sparse.group_key(group, n_groups)
+    cache = tables.__dict__.setdefault("_sparse_tables", {})
+    name = None if key is None else key.tobytes()
+    sp = cache.get(name, False)
+    if sp is not False and (sp is None or _sparse.still_valid(sp, tables)):
+        return sp
+    if len(cache) > 16:
+        cache.clear()
+    sp = _sparse.build(tables, key) if _sparse.fits(tables) else None
+    cache[name] = sp
+    return sp
 
 
 def _limit_of(tables: EngineTables) -> float:

@@ -35,6 +35,11 @@ from numba import njit, uintp
 RESCALE_BELOW = 1e-100
 #: Smallest value a scaled vector's sum times one step's factor may reach.
 SAFE_FLOOR = 1e-290
+#: Models with at least this many states run the segment queries (:func:`vector_at`,
+#: :func:`backward_vector_at`, :func:`restricted_forward`) through steps that visit
+#: every state and sum by interleaved partial sums: the same recursions, another
+#: summation order, no long chain of dependent additions.
+RESTRICTED_MASKED_MIN = 32
 
 
 def rescale_limit(smallest_factor: float) -> float:
@@ -102,6 +107,51 @@ def _backward_gather(X, xr, Y, yr, code_next, E, nz_ptr, nz_state, succ_ptr, suc
         Y[yr, s] = acc
         total += acc
     return total
+
+
+@njit(**_JIT)
+def _sum4(Y, yr, m):
+    """Sum of Y[yr, :m] by four interleaved partial sums (no single chain of additions)."""
+    t0 = t1 = t2 = t3 = 0.0
+    s = 0
+    while s + 4 <= m:
+        t0 += Y[yr, s]
+        t1 += Y[yr, s + 1]
+        t2 += Y[yr, s + 2]
+        t3 += Y[yr, s + 3]
+        s += 4
+    while s < m:
+        t0 += Y[yr, s]
+        s += 1
+    return (t0 + t1) + (t2 + t3)
+
+
+@njit(**_JIT)
+def _forward_step_wide(X, xr, Y, yr, code, E, pred_ptr, pred_src, pred_p):
+    """:func:`_forward_step` for large models: every state, no reset, a four-way total."""
+    m = Y.shape[1]
+    c = uintp(code)
+    for t in range(m):
+        acc = 0.0
+        for q in range(uintp(pred_ptr[t]), uintp(pred_ptr[t + 1])):
+            acc += X[xr, uintp(pred_src[q])] * pred_p[q]
+        Y[yr, t] = acc * E[c, t]
+    return _sum4(Y, yr, m)
+
+
+@njit(**_JIT)
+def _backward_gather_wide(X, xr, Y, yr, code_next, E, succ_ptr, succ_dst, succ_p, w):
+    """:func:`_backward_gather` for large models: a four-way total."""
+    m = Y.shape[1]
+    c = uintp(code_next)
+    for t in range(m):
+        w[t] = E[c, t] * X[xr, t]
+    for s in range(m):
+        acc = 0.0
+        for q in range(uintp(succ_ptr[s]), uintp(succ_ptr[s + 1])):
+            acc += succ_p[q] * w[uintp(succ_dst[q])]
+        Y[yr, s] = acc
+    return _sum4(Y, yr, m)
 
 
 @njit(**_JIT)
@@ -348,10 +398,15 @@ def vector_at(codes, pos, start, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p
         rows[0, s] = alpha_ck[bk, s]
     logscale = alpha_ck_log[bk]
     src = 0
+    wide = m >= RESTRICTED_MASKED_MIN
     for i in range(bk * block + 1, pos + 1):
         dst = 1 - src
-        total = _forward_step(rows, src, rows, dst, codes[i], E, nz_ptr, nz_state, pred_ptr,
-                              pred_src, pred_p)
+        if wide:
+            total = _forward_step_wide(rows, src, rows, dst, codes[i], E, pred_ptr, pred_src,
+                                       pred_p)
+        else:
+            total = _forward_step(rows, src, rows, dst, codes[i], E, nz_ptr, nz_state,
+                                  pred_ptr, pred_src, pred_p)
         if total < RESCALE_BELOW and total > 0.0:
             _scale(rows, dst, total)
             logscale += math.log(total)
@@ -375,16 +430,112 @@ def backward_vector_at(codes, pos, E, nz_ptr, nz_state, succ_ptr, succ_dst, succ
     logscale = beta_ck_log[bk]
     w = np.empty(m)
     src = 0
+    wide = m >= RESTRICTED_MASKED_MIN
     for i in range(b1 - 2, pos - 1, -1):
         dst = 1 - src
-        total = _backward_gather(rows, src, rows, dst, codes[i + 1], E, nz_ptr, nz_state,
-                                 succ_ptr, succ_dst, succ_p, w)
+        if wide:
+            total = _backward_gather_wide(rows, src, rows, dst, codes[i + 1], E, succ_ptr,
+                                          succ_dst, succ_p, w)
+        else:
+            total = _backward_gather(rows, src, rows, dst, codes[i + 1], E, nz_ptr, nz_state,
+                                     succ_ptr, succ_dst, succ_p, w)
         if total < RESCALE_BELOW and total > 0.0:
             _scale(rows, dst, total)
             logscale += math.log(total)
         src = dst
     for s in range(m):
         out[s] = rows[src, s]
+    return logscale
+
+
+@njit(**_JIT)
+def _restricted_masked(codes, s0, e0, init, init_is_start, mask, use_emissions, E, pred_ptr,
+                       pred_src, pred_p, out):
+    """:func:`restricted_forward` for large models: the same values up to rounding.
+
+    The masked states and, for each, its masked predecessors are listed once per
+    call (an unmasked predecessor holds 0 after the first position, so leaving it
+    out adds nothing).  Every masked state is written at every position (0 where
+    it cannot emit), so no row is reset, and the rescaling total is summed by
+    four interleaved partial sums rather than one running sum.
+    """
+    m = init.shape[0]
+    nm = 0
+    for t in range(m):
+        if mask[t]:
+            nm += 1
+    ms = np.empty(nm, dtype=np.int64)
+    fptr = np.zeros(nm + 1, dtype=np.int64)
+    j = 0
+    for t in range(m):
+        if mask[t]:
+            ms[j] = t
+            cnt = 0
+            for q in range(pred_ptr[t], pred_ptr[t + 1]):
+                if mask[pred_src[q]]:
+                    cnt += 1
+            fptr[j + 1] = fptr[j] + cnt
+            j += 1
+    fsrc = np.empty(fptr[nm], dtype=np.int64)
+    fp = np.empty(fptr[nm])
+    for j in range(nm):
+        t = ms[j]
+        k = fptr[j]
+        for q in range(pred_ptr[t], pred_ptr[t + 1]):
+            if mask[pred_src[q]]:
+                fsrc[k] = pred_src[q]
+                fp[k] = pred_p[q]
+                k += 1
+    a = np.zeros(m)
+    b = np.zeros(m)
+    logscale = 0.0
+    for i in range(s0, e0):
+        c = uintp(codes[i])
+        if i == s0:
+            for j in range(nm):
+                t = uintp(ms[j])
+                if init_is_start:
+                    acc = init[t]
+                else:
+                    acc = 0.0
+                    for q in range(uintp(pred_ptr[t]), uintp(pred_ptr[t + _ONE])):
+                        acc += init[uintp(pred_src[q])] * pred_p[q]
+                b[t] = acc * E[c, t] if use_emissions else acc
+        elif use_emissions:
+            for j in range(nm):
+                t = uintp(ms[j])
+                acc = 0.0
+                for q in range(uintp(fptr[j]), uintp(fptr[j + 1])):
+                    acc += a[uintp(fsrc[q])] * fp[q]
+                b[t] = acc * E[c, t]
+        else:
+            for j in range(nm):
+                acc = 0.0
+                for q in range(uintp(fptr[j]), uintp(fptr[j + 1])):
+                    acc += a[uintp(fsrc[q])] * fp[q]
+                b[uintp(ms[j])] = acc
+        t0 = t1 = t2 = t3 = 0.0
+        j = 0
+        while j + 4 <= nm:
+            t0 += b[uintp(ms[j])]
+            t1 += b[uintp(ms[j + 1])]
+            t2 += b[uintp(ms[j + 2])]
+            t3 += b[uintp(ms[j + 3])]
+            j += 4
+        while j < nm:
+            t0 += b[uintp(ms[j])]
+            j += 1
+        total = (t0 + t1) + (t2 + t3)
+        if total == 0.0:
+            out[:] = 0.0
+            return -np.inf
+        if total < RESCALE_BELOW:
+            inv = 1.0 / total
+            for j in range(nm):
+                b[uintp(ms[j])] *= inv
+            logscale += math.log(total)
+        a, b = b, a
+    out[:] = a
     return logscale
 
 
@@ -397,8 +548,20 @@ def restricted_forward(codes, s0, e0, init, init_is_start, mask, use_emissions, 
     vector at ``s0 - 1``.  With ``use_emissions`` false every emission factor is 1,
     which gives the prior probability of staying inside the mask.  Writes the
     final scaled vector to ``out`` and returns its natural-log scale, or -inf if
-    no allowed path stays inside the mask.
+    no allowed path stays inside the mask.  Models of at least
+    :data:`RESTRICTED_MASKED_MIN` states run :func:`_restricted_masked`.
     """
+    if init.shape[0] >= RESTRICTED_MASKED_MIN:
+        return _restricted_masked(codes, s0, e0, init, init_is_start, mask, use_emissions, E,
+                                  pred_ptr, pred_src, pred_p, out)
+    return _restricted_plain(codes, s0, e0, init, init_is_start, mask, use_emissions, E,
+                             nz_ptr, nz_state, pred_ptr, pred_src, pred_p, out)
+
+
+@njit(**_JIT)
+def _restricted_plain(codes, s0, e0, init, init_is_start, mask, use_emissions, E, nz_ptr,
+                      nz_state, pred_ptr, pred_src, pred_p, out):
+    """:func:`restricted_forward` for small models: the emitting masked states only."""
     m = init.shape[0]
     a = np.zeros(m)
     b = np.zeros(m)

@@ -1,0 +1,721 @@
+"""Kernels for large sparse models whose states mostly have one predecessor and one successor.
+
+Gene-structure layouts are long chains: in the gene-segment model 256 of 289
+states have exactly one predecessor and one successor, and most of its 371
+allowed transitions are those chain links.  The generic kernels of
+:mod:`seqstate.engine.kernels` search every state's predecessor list (a compare
+and a branch per transition), reset every row and, in Viterbi, recompute the
+whole record for the traceback.  Here:
+
+* States are renumbered once (:func:`build`) so that chains are consecutive:
+  the allowed moves ``p -> t`` are laid out as paths, preferring moves where
+  ``t`` has no other predecessor and ``p`` no other successor.  A state whose only
+  predecessor is the state numbered just before it is *linked forward*; one whose
+  only successor is the state numbered just after it is *linked backward*.  The
+  others are *fix* states (33 with several predecessors and 13 chain heads in
+  the gene-segment model).
+* Running vectors have ``M + 2`` slots: state ``t`` (new number) lives in slot
+  ``t + 1``; slots 0 and ``M + 1`` are dummies that always hold 0 (-inf in log
+  space).  A forward step is first one contiguous, branch-free pass over every
+  state, ``y[t + 1] = x[t] * w1[c, t]`` with ``w1[c, t]`` the probability of the
+  move from the state numbered just before times the emission factor of code
+  ``c`` (0 for fix states), which the compiler vectorises.  Then the fix states
+  that can emit ``c`` are overwritten from their predecessor lists.  Backward
+  steps do the same with ``y[s + 1] = v1[c, s] * x[s + 2]``.  Every state is
+  written at every position (0 / -inf where it cannot emit), so no row is reset.
+* The fix states' moves are kept per code, only those whose target can emit the
+  code, as one flat list: first each state's first predecessor (assigned), then each
+  state's second predecessor (added), and so on.  No inner loop, no branch on a
+  list length, and consecutive entries update different states.
+* Emission factors are folded into those weights, so each transition costs one
+  multiply-add.  The posterior kernels therefore round differently from the
+  generic ones (products grouped differently, sums in another order):
+  agreement is to about 1e-15 relative, not bit for bit.
+* Rescaling tests the largest entry of a vector (an integer maximum over the bit
+  patterns of non-negative doubles: exact, order-free and vectorised) instead of
+  a floating-point sum, and multiplies by a power of two (exact); the scale is
+  kept as an integer binary exponent.
+* Viterbi keeps the generic kernel's exact arithmetic, ``(delta[p] + log a[p, t]) +
+  log e[t]`` with the predecessors of a state visited in increasing original index
+  and a strict ``>`` (the lowest index wins ties), and the lowest original index
+  among equal final states, so its paths and log probabilities are identical to
+  the generic kernel's.  A state with one predecessor has its back-pointer known
+  in advance; only the states with several predecessors store one per position
+  (one byte each: the rank of the winner in the predecessor list).  When the whole
+  record's back-pointers fit (``block = N``) the traceback needs no second pass;
+  otherwise the delta vector is checkpointed every ``block`` positions and the
+  blocks are recomputed during the traceback, as in the generic kernel.
+
+Scaling, failure and checkpoint conventions are those of
+:mod:`seqstate.engine.kernels` (a vector is rescaled when its largest entry,
+rather than its sum, falls below the threshold, which rescales at least as
+often); checkpoints are written in the original state order, so the generic
+segment and vector queries work on them unchanged.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from numba import njit, uintp
+
+from seqstate.engine.kernels import RESCALE_BELOW
+
+_JIT = {"cache": True, "nogil": True, "error_model": "numpy"}
+
+#: Use these kernels when at least this share of the states has at most one predecessor.
+MIN_CHAIN_SHARE = 0.5
+#: Smallest model for which these kernels are used (below, the generic ones do as well).
+MIN_STATES = 32
+#: Bytes of Viterbi back-pointers the default (``block=None``) may hold for a whole record;
+#: longer records are checkpointed (two passes).
+BACKPOINTER_BUDGET = 256 << 20
+
+
+@dataclass
+class SparseTables:
+    """Arrays of the chain-sparse kernels (see module docstring); states renumbered.
+
+    Slots are new state numbers + 1.  Per code ``c`` the fix moves are entries
+    ``q`` in ``[ptr[c], ptr[c + 1])``, the first ``n0[c]`` of them each state's
+    first (lowest original index) predecessor, then the second ones, and so on;
+    ``dst``/``src`` are the slots written and read.
+    """
+
+    n_states: int
+    perm: np.ndarray  # new number -> original index
+    inv: np.ndarray  # original index -> new number
+    w1: np.ndarray  # (C, M) forward weight of the move from the state numbered before
+    la1: np.ndarray  # (M,) its log probability (-inf if not linked)
+    f_ptr: np.ndarray  # forward fix moves per code
+    f_n0: np.ndarray
+    f_dst: np.ndarray
+    f_src: np.ndarray
+    f_w: np.ndarray  # a[p, t] E[c, t]
+    f_lp: np.ndarray  # log a[p, t]
+    f_rank: np.ndarray  # rank of p among t's predecessors
+    f_col: np.ndarray  # back-pointer column of t (n_multi for single-predecessor states)
+    n_multi: int  # states with several predecessors (back-pointer columns)
+    v1: np.ndarray  # (C, M) backward weight of the move to the state numbered after
+    b_ptr: np.ndarray  # backward fix moves per code
+    b_n0: np.ndarray
+    b_dst: np.ndarray
+    b_src: np.ndarray
+    b_w: np.ndarray  # a[s, t] E[c, t]
+    tb_prev: np.ndarray  # traceback: predecessor known in advance (-1: read the rank)
+    tb_col: np.ndarray  # for the others: back-pointer column
+    p_ptr: np.ndarray  # predecessor lists by new number (increasing original index)
+    p_src: np.ndarray  # their slots
+    p_lp: np.ndarray
+    E: np.ndarray  # (C, M) renumbered emission factors
+    logE: np.ndarray  # (C, M) renumbered log emission factors
+    start: np.ndarray
+    end: np.ndarray
+    log_start: np.ndarray
+    log_end: np.ndarray  # original order (the final tie rule reads it so)
+    bp_dtype: type
+    sources: tuple
+
+
+def fits(tables) -> bool:
+    """True when ``tables`` is a model these kernels are meant for (large, mostly chains)."""
+    m = tables.n_states
+    if m < MIN_STATES:
+        return False
+    indeg = np.diff(tables.pred_ptr)
+    return float(np.mean(indeg <= 1)) >= MIN_CHAIN_SHARE
+
+
+def chain_order(tables, key=None) -> np.ndarray:
+    """New number -> original index: the allowed moves laid out as consecutive paths.
+
+    Moves are taken greedily, best first: a move ``p -> t`` scores one point if
+    ``t`` has no other predecessor and one if ``p`` has no other successor (ties:
+    lower ``p``, then lower ``t``); a move is used when ``p`` has no successor in
+    the layout yet, ``t`` no predecessor, and it closes no cycle.  Paths are then
+    listed by their first state's original index.  With ``key`` (one integer per
+    state) only moves between states of equal key are used and paths are listed
+    by key first, so that the states of each key are numbered consecutively.
+    """
+    m = tables.n_states
+    key = np.zeros(m, dtype=np.int64) if key is None else np.asarray(key, dtype=np.int64)
+    indeg = np.diff(tables.pred_ptr)
+    outdeg = np.diff(tables.succ_ptr)
+    edges = []
+    for s in range(m):
+        for q in range(tables.succ_ptr[s], tables.succ_ptr[s + 1]):
+            d = int(tables.succ_dst[q])
+            score = int(indeg[d] == 1) + int(outdeg[s] == 1)
+            if d != s and score > 0 and key[s] == key[d]:
+                edges.append((-score, s, d))
+    edges.sort()
+    nxt = np.full(m, -1)
+    prv = np.full(m, -1)
+    root = list(range(m))
+
+    def find(x):
+        while root[x] != x:
+            root[x] = root[root[x]]
+            x = root[x]
+        return x
+
+    for _, s, d in edges:
+        if nxt[s] < 0 and prv[d] < 0:
+            rs, rd = find(s), find(d)
+            if rs != rd:
+                nxt[s], prv[d] = d, s
+                root[rs] = rd
+    order = []
+    for s in sorted(range(m), key=lambda s: (key[s], s)):
+        if prv[s] < 0:
+            x = s
+            while x >= 0:
+                order.append(x)
+                x = int(nxt[x])
+    return np.array(order, dtype=np.int64)
+
+
+def _per_code(dst, weights, kept):
+    """Flat per-code move lists in level order (see :class:`SparseTables`).
+
+    One entry per move of a fix state, grouped by state and, within a state, in
+    the order its terms are to be combined: ``dst`` (the state's slot, equal for
+    the moves of one state), ``weights`` (C, moves), the move's weight per code,
+    and ``kept`` (C, moves), whether the move's target can emit the code (moves
+    that cannot are left out of that code's list; a weight that merely underflows
+    to 0 stays, so that Viterbi, which works in logs, loses no move).  The kept
+    moves of a state are numbered 0, 1, ... (their level).
+    Returns ``ptr, n0, order`` where ``order`` lists the entries code by code.
+    """
+    n_codes, n_moves = weights.shape
+    if n_moves == 0:
+        return (np.zeros(n_codes + 1, np.int64), np.zeros(n_codes, np.int64),
+                np.zeros(0, np.int64))
+    # state j of each move (moves of one state are consecutive)
+    new_state = np.r_[True, dst[1:] != dst[:-1]]
+    j_of = np.cumsum(new_state) - 1
+    first = np.flatnonzero(new_state)
+    cs = np.cumsum(kept, axis=1)
+    before = np.where(first[None, :] > 0, cs[:, np.maximum(first - 1, 0)], 0)
+    level = cs - before[:, j_of] - 1
+    ptr = np.zeros(n_codes + 1, dtype=np.int64)
+    n0 = np.zeros(n_codes, dtype=np.int64)
+    parts = []
+    for c in range(n_codes):
+        idx = np.flatnonzero(kept[c])
+        parts.append(idx[np.lexsort((j_of[idx], level[c, idx]))])
+        n0[c] = int(np.count_nonzero(level[c, idx] == 0))
+        ptr[c + 1] = ptr[c] + idx.size
+    return ptr, n0, np.concatenate(parts)
+
+
+def build(tables, key=None) -> SparseTables:
+    """Renumbered tables of ``tables`` (an :class:`~seqstate.engine.api.EngineTables`).
+
+    ``key`` (optional, one integer per state, e.g. the posterior's output column)
+    makes the states of each key consecutive (see :func:`chain_order`).
+    """
+    m = tables.n_states
+    perm = chain_order(tables, key)
+    inv = np.empty(m, dtype=np.int64)
+    inv[perm] = np.arange(m)
+    pp, ps, pl, pv = tables.pred_ptr, tables.pred_src, tables.pred_logp, tables.pred_p
+    sp, sd, sv = tables.succ_ptr, tables.succ_dst, tables.succ_p
+    indeg = np.diff(pp)[perm]
+    outdeg = np.diff(sp)[perm]
+    E = np.ascontiguousarray(tables.E[:, perm])
+    logE = np.ascontiguousarray(tables.logE[:, perm])
+    n_codes = E.shape[0]
+    # ---- forward: linked states, then the fix states' predecessor lists
+    a1 = np.zeros(m)
+    la1 = np.full(m, -np.inf)
+    linked_f = np.zeros(m, dtype=bool)
+    for t in range(1, m):
+        o = perm[t]
+        if indeg[t] == 1 and inv[ps[pp[o]]] == t - 1:
+            linked_f[t] = True
+            a1[t] = pv[pp[o]]
+            la1[t] = pl[pp[o]]
+    w1 = np.ascontiguousarray(a1[None, :] * E)
+    fix = np.flatnonzero(~linked_f)
+    multi = [int(t) for t in fix if indeg[t] > 1]
+    n_multi = len(multi)
+    col_of = {t: k for k, t in enumerate(multi)}
+    f_dst_l, f_src_l, f_rank_l, f_p_l, f_lp_l, f_col_l = [], [], [], [], [], []
+    for t in fix:
+        o = perm[t]
+        lo, hi = pp[o], pp[o + 1]
+        f_dst_l += [t + 1] * (hi - lo)
+        f_src_l += (inv[ps[lo:hi]] + 1).tolist()
+        f_rank_l += list(range(hi - lo))
+        f_p_l += pv[lo:hi].tolist()
+        f_lp_l += pl[lo:hi].tolist()
+        f_col_l += [col_of.get(int(t), n_multi)] * (hi - lo)
+    f_dst_a = np.array(f_dst_l, dtype=np.int64)
+    weights = np.array(f_p_l)[None, :] * E[:, f_dst_a - 1] if f_dst_l else np.zeros((n_codes, 0))
+    f_ptr, f_n0, sel = _per_code(f_dst_a, weights, E[:, f_dst_a - 1] > 0)
+    f_dst = f_dst_a[sel].astype(np.int32)
+    f_src = np.array(f_src_l, dtype=np.int32)[sel] if f_dst_l else np.zeros(0, np.int32)
+    f_w = weights[np.repeat(np.arange(n_codes), np.diff(f_ptr)), sel]
+    f_lp = np.array(f_lp_l, dtype=np.float64)[sel] if f_dst_l else np.zeros(0)
+    f_rank = np.array(f_rank_l, dtype=np.int32)[sel] if f_dst_l else np.zeros(0, np.int32)
+    f_col = np.array(f_col_l, dtype=np.int32)[sel] if f_dst_l else np.zeros(0, np.int32)
+    # ---- backward
+    b1 = np.zeros(m)
+    linked_b = np.zeros(m, dtype=bool)
+    for s in range(m - 1):
+        o = perm[s]
+        if outdeg[s] == 1 and inv[sd[sp[o]]] == s + 1:
+            linked_b[s] = True
+            b1[s] = sv[sp[o]]
+    Enext = np.concatenate([E[:, 1:], np.zeros((n_codes, 1))], axis=1)
+    v1 = np.ascontiguousarray(b1[None, :] * Enext)
+    b_dst_l, b_src_l, b_p_l = [], [], []
+    for s in np.flatnonzero(~linked_b):
+        o = perm[s]
+        lo, hi = sp[o], sp[o + 1]
+        order = np.argsort(inv[sd[lo:hi]], kind="stable")  # terms in increasing target
+        b_dst_l += [int(s) + 1] * (hi - lo)
+        b_src_l += (inv[sd[lo:hi]][order] + 1).tolist()
+        b_p_l += sv[lo:hi][order].tolist()
+    b_dst_a = np.array(b_dst_l, dtype=np.int64)
+    b_src_a = np.array(b_src_l, dtype=np.int64)
+    weights = (np.array(b_p_l)[None, :] * E[:, b_src_a - 1] if b_dst_l
+               else np.zeros((n_codes, 0)))
+    b_ptr, b_n0, sel = _per_code(b_dst_a, weights, E[:, b_src_a - 1] > 0)
+    b_dst = b_dst_a[sel].astype(np.int32)
+    b_src = b_src_a[sel].astype(np.int32)
+    b_w = weights[np.repeat(np.arange(n_codes), np.diff(b_ptr)), sel]
+    # ---- traceback
+    tb_prev = np.full(m, -1, dtype=np.int64)
+    tb_col = np.full(m, -1, dtype=np.int64)
+    p_ptr = np.zeros(m + 1, dtype=np.int64)
+    p_src_l, p_lp_l = [], []
+    for t in range(m):
+        o = perm[t]
+        lo, hi = pp[o], pp[o + 1]
+        p_src_l.append(inv[ps[lo:hi]] + 1)
+        p_lp_l.append(pl[lo:hi])
+        p_ptr[t + 1] = p_ptr[t] + (hi - lo)
+        if indeg[t] == 1:
+            tb_prev[t] = inv[ps[lo]]
+    for t, k in col_of.items():
+        tb_col[t] = k
+    max_in = int(indeg.max()) if m else 0
+    return SparseTables(
+        n_states=m, perm=perm, inv=inv, w1=w1, la1=la1, f_ptr=f_ptr, f_n0=f_n0, f_dst=f_dst,
+        f_src=f_src, f_w=f_w, f_lp=f_lp, f_rank=f_rank, f_col=f_col, n_multi=n_multi, v1=v1,
+        b_ptr=b_ptr, b_n0=b_n0, b_dst=b_dst, b_src=b_src, b_w=b_w, tb_prev=tb_prev,
+        tb_col=tb_col, p_ptr=p_ptr, p_src=np.concatenate(p_src_l).astype(np.int64),
+        p_lp=np.concatenate(p_lp_l).astype(np.float64), E=E, logE=logE,
+        start=np.ascontiguousarray(tables.start[perm]),
+        end=np.ascontiguousarray(tables.end[perm]),
+        log_start=np.ascontiguousarray(tables.log_start[perm]),
+        log_end=np.ascontiguousarray(tables.log_end),
+        bp_dtype=np.uint8 if max_in <= 256 else np.uint16 if max_in <= 65536 else np.uint32,
+        sources=(tables.E, tables.transitions, tables.start, tables.end),
+    )
+
+
+def still_valid(sp: SparseTables, tables) -> bool:
+    """True while ``tables`` still holds the very arrays ``sp`` was built from."""
+    a, b, c, d = sp.sources
+    return (a is tables.E and b is tables.transitions and c is tables.start
+            and d is tables.end)
+
+
+#: Posteriors with at most this many output columns get a numbering of their own in which
+#: each column's states are consecutive (see :func:`chain_order`).
+MAX_KEYED_GROUPS = 16
+
+
+def group_key(group: np.ndarray, n_groups: int) -> np.ndarray:
+    """The renumbering key of a posterior's ``group`` array (-1, no group, sorts last)."""
+    group = np.asarray(group, dtype=np.int64)
+    return np.where(group < 0, n_groups, group)
+
+
+def group_runs(sp: SparseTables, group: np.ndarray, n_groups: int) -> np.ndarray:
+    """Maximal runs of consecutive slots of one output column: rows ``(lo, hi, column)``.
+
+    Column ``n_groups`` (not written) stands for the states of no group, so that
+    the runs cover every state (their sums add up to the posterior norm).
+    """
+    key = group_key(group, n_groups)[sp.perm]
+    m = key.shape[0]
+    starts = np.flatnonzero(np.r_[True, key[1:] != key[:-1]]) if m else np.zeros(0, np.int64)
+    ends = np.r_[starts[1:], m]
+    return np.ascontiguousarray(np.stack([starts + 1, ends + 1, key[starts]], axis=1),
+                                dtype=np.int64)
+
+
+# ----------------------------------------------------------------- helpers
+# Running vectors are rows of 2-D arrays passed with their row index: taking row
+# views per position costs reference counting (see the kernels module).  Indices
+# read from tables are made unsigned before indexing (no wrap-around code).
+_ONE = uintp(1)
+_LN2 = math.log(2.0)
+
+
+@njit(**_JIT)
+def _maxbits(Ri, r, lo, hi):
+    """Largest bit pattern of the non-negative doubles R[r, lo:hi] (``Ri`` an int64 view).
+
+    For non-negative doubles the order of the bit patterns is the order of the
+    values, and an integer maximum does not depend on the evaluation order, so
+    the compiler may vectorise it.
+    """
+    mx = 0
+    for i in range(lo, hi):
+        mx = max(mx, Ri[r, i])
+    return mx
+
+
+@njit(**_JIT)
+def _rescale(R, r, lo, hi, mxbits, tmpi, tmpf):
+    """Multiply R[r, lo:hi] by the power of two that brings its maximum into [0.5, 1).
+
+    Exact except for entries that stay below the normal range.  Returns the
+    binary exponent e taken out: the scaled row times 2**e equals the input.
+    """
+    tmpi[0] = mxbits
+    _, e = math.frexp(tmpf[0])
+    k = -e
+    while k != 0:
+        step = min(max(k, -1000), 1000)
+        f = math.ldexp(1.0, step)
+        for s in range(lo, hi):
+            R[r, s] *= f
+        k -= step
+    return e
+
+
+@njit(**_JIT)
+def _bits_of(x, tmpi, tmpf):
+    tmpf[0] = x
+    return tmpi[0]
+
+
+@njit(**_JIT)
+def _dot(F, fr, B, br, lo, hi):
+    """Sum of F[fr, i] * B[br, i] for i in [lo, hi), eight interleaved partial sums."""
+    s0 = s1 = s2 = s3 = s4 = s5 = s6 = s7 = 0.0
+    nch = (hi - lo) // 8
+    for b in range(nch):
+        i = uintp(lo + 8 * b)
+        s0 += F[fr, i] * B[br, i]
+        s1 += F[fr, i + _ONE] * B[br, i + _ONE]
+        s2 += F[fr, i + uintp(2)] * B[br, i + uintp(2)]
+        s3 += F[fr, i + uintp(3)] * B[br, i + uintp(3)]
+        s4 += F[fr, i + uintp(4)] * B[br, i + uintp(4)]
+        s5 += F[fr, i + uintp(5)] * B[br, i + uintp(5)]
+        s6 += F[fr, i + uintp(6)] * B[br, i + uintp(6)]
+        s7 += F[fr, i + uintp(7)] * B[br, i + uintp(7)]
+    for i in range(lo + 8 * nch, hi):
+        s0 += F[fr, i] * B[br, i]
+    return ((s0 + s1) + (s2 + s3)) + ((s4 + s5) + (s6 + s7))
+
+
+@njit(**_JIT)
+def _step(R, xr, S, yr, c, m, shift, w1, ptr, n0, dst, src, w):
+    """S[yr] = one sparse product step from R[xr] for code c (forward: shift 0, backward 2).
+
+    Bulk: ``S[yr, t + 1] = R[xr, t + shift] * w1[c, t]``; then the fix moves.
+    """
+    c = uintp(c)
+    for t in range(m):
+        S[yr, t + 1] = R[xr, t + shift] * w1[c, t]
+    lo = uintp(ptr[c])
+    mid = lo + uintp(n0[c])
+    hi = uintp(ptr[c + _ONE])
+    for q in range(lo, mid):
+        S[yr, uintp(dst[q])] = R[xr, uintp(src[q])] * w[q]
+    for q in range(mid, hi):
+        S[yr, uintp(dst[q])] += R[xr, uintp(src[q])] * w[q]
+
+
+@njit(**_JIT)
+def _first(S, yr, c, m, start, E):
+    c = uintp(c)
+    for t in range(m):
+        S[yr, t + 1] = start[t] * E[c, t]
+
+
+# ----------------------------------------------------------------- forward
+@njit(**_JIT)
+def forward_loglik(codes, start, end, E, w1, f_ptr, f_n0, f_dst, f_src, f_w,
+                   lim=RESCALE_BELOW):
+    """Total log-likelihood (natural log); (loglik, fail_position) as the generic kernel."""
+    n = codes.shape[0]
+    m = start.shape[0]
+    rows = np.zeros((2, m + 2))
+    ri = rows.view(np.int64)
+    tmpi = np.zeros(1, dtype=np.int64)
+    tmpf = tmpi.view(np.float64)
+    limbits = _bits_of(lim, tmpi, tmpf)
+    ex = 0
+    _first(rows, 0, codes[0], m, start, E)
+    src = 0
+    for i in range(n):
+        if i > 0:
+            dst = 1 - src
+            _step(rows, src, rows, dst, codes[i], m, 0, w1, f_ptr, f_n0, f_dst, f_src, f_w)
+            src = dst
+        mx = _maxbits(ri, src, 1, m + 1)
+        if mx < limbits:
+            if mx == 0:
+                return -np.inf, i
+            ex += _rescale(rows, src, 1, m + 1, mx, tmpi, tmpf)
+    final = 0.0
+    for s in range(m):
+        final += rows[src, s + 1] * end[s]
+    if final == 0.0:
+        return -np.inf, n
+    return math.log(final) + ex * _LN2, -1
+
+
+# ----------------------------------------------------------------- posterior
+@njit(**_JIT)
+def posterior_checkpointed(codes, start, end, E, perm, w1, f_ptr, f_n0, f_dst, f_src, f_w,
+                           v1, b_ptr, b_n0, b_dst, b_src, b_w, block, runs, n_groups, out,
+                           alpha_ck, alpha_ck_log, beta_ck, beta_ck_log, lim=RESCALE_BELOW):
+    """Posteriors summed per group into ``out[i, k]``; contract of the generic kernel.
+
+    ``runs`` (see :func:`group_runs`): slot ranges ``[lo, hi)`` and their output
+    column; column ``n_groups``, not written, holds the states of no group.
+    Checkpoints are written in the original state order.  Returns (loglik,
+    fail_position); ``out`` is overwritten.
+    """
+    n = codes.shape[0]
+    m = start.shape[0]
+    ng = n_groups
+    nblocks = (n + block - 1) // block
+    tmpi = np.zeros(1, dtype=np.int64)
+    tmpf = tmpi.view(np.float64)
+    limbits = _bits_of(lim, tmpi, tmpf)
+    sums = np.zeros(ng + 1)
+    # ---- pass 1: backward, checkpoint at each block's last position
+    rows = np.zeros((2, m + 2))
+    ri = rows.view(np.int64)
+    src = 0
+    for s in range(m):
+        rows[0, s + 1] = end[s]
+    ex = 0
+    mx = _maxbits(ri, 0, 1, m + 1)
+    if mx < limbits:
+        if mx == 0:
+            return -np.inf, n
+        ex += _rescale(rows, 0, 1, m + 1, mx, tmpi, tmpf)
+    last_block = nblocks - 1
+    for s in range(m):
+        beta_ck[last_block, perm[s]] = rows[0, s + 1]
+    beta_ck_log[last_block] = ex * _LN2
+    ckpos = ((n - 1) // block) * block
+    for i in range(n - 2, -1, -1):
+        dst = 1 - src
+        _step(rows, src, rows, dst, codes[i + 1], m, 2, v1, b_ptr, b_n0, b_dst, b_src, b_w)
+        src = dst
+        mx = _maxbits(ri, dst, 1, m + 1)
+        if mx < limbits:
+            if mx == 0:
+                return -np.inf, i + 1
+            ex += _rescale(rows, dst, 1, m + 1, mx, tmpi, tmpf)
+        if i + 1 == ckpos:
+            bk = ckpos // block - 1
+            ckpos -= block
+            for s in range(m):
+                beta_ck[bk, perm[s]] = rows[dst, s + 1]
+            beta_ck_log[bk] = ex * _LN2
+    # ---- pass 2: forward with per-block backward recomputation
+    buf = np.zeros((min(block, n), m + 2))
+    bufi = buf.view(np.int64)
+    fwd = np.zeros((2, m + 2))
+    fi = fwd.view(np.int64)
+    fsrc = 0
+    ex = 0
+    for bk in range(nblocks):
+        b0 = bk * block
+        b1 = min(n, b0 + block)
+        r = b1 - 1 - b0
+        for s in range(m):
+            buf[r, s + 1] = beta_ck[bk, perm[s]]
+        for i in range(b1 - 2, b0 - 1, -1):
+            r = i - b0
+            _step(buf, r + 1, buf, r, codes[i + 1], m, 2, v1, b_ptr, b_n0, b_dst, b_src, b_w)
+            mx = _maxbits(bufi, r, 1, m + 1)
+            if mx < limbits and mx > 0:
+                _rescale(buf, r, 1, m + 1, mx, tmpi, tmpf)  # a row's scale is irrelevant
+        for i in range(b0, b1):
+            if i == 0:
+                _first(fwd, 0, codes[0], m, start, E)
+                fsrc = 0
+            else:
+                fdst = 1 - fsrc
+                _step(fwd, fsrc, fwd, fdst, codes[i], m, 0, w1, f_ptr, f_n0, f_dst, f_src,
+                      f_w)
+                fsrc = fdst
+            mx = _maxbits(fi, fsrc, 1, m + 1)
+            if mx < limbits:
+                if mx == 0:
+                    return -np.inf, i
+                ex += _rescale(fwd, fsrc, 1, m + 1, mx, tmpi, tmpf)
+            if i == b0:
+                for s in range(m):
+                    alpha_ck[bk, perm[s]] = fwd[fsrc, s + 1]
+                alpha_ck_log[bk] = ex * _LN2
+            r = i - b0
+            for k in range(ng + 1):
+                sums[k] = 0.0
+            for j in range(runs.shape[0]):
+                sums[runs[j, 2]] += _dot(fwd, fsrc, buf, r, runs[j, 0], runs[j, 1])
+            norm = 0.0
+            for k in range(ng + 1):
+                norm += sums[k]
+            if norm == 0.0:
+                return -np.inf, i
+            inv = 1.0 / norm
+            for k in range(ng):
+                out[i, k] = sums[k] * inv
+    final = 0.0
+    for s in range(m):
+        final += fwd[fsrc, s + 1] * end[s]
+    if final == 0.0:
+        return -np.inf, n
+    return math.log(final) + ex * _LN2, -1
+
+
+# ----------------------------------------------------------------- Viterbi
+@njit(**_JIT)
+def _vit(R, xr, S, yr, B, br, c, m, la1, logE, ptr, n0, dst, src, lp, rank, col):
+    """One max-product step R[xr] -> S[yr]; back-pointer ranks of the multi states into B[br].
+
+    A fix state's best predecessor value is built in its own slot (first
+    predecessor assigned, later ones replace it only when strictly greater), then
+    its log emission factor is added: the generic kernel's operations, in order.
+    """
+    c = uintp(c)
+    for t in range(m):
+        S[yr, t + 1] = (R[xr, t] + la1[t]) + logE[c, t]
+    lo = uintp(ptr[c])
+    mid = lo + uintp(n0[c])
+    hi = uintp(ptr[c + _ONE])
+    for q in range(lo, mid):
+        S[yr, uintp(dst[q])] = R[xr, uintp(src[q])] + lp[q]
+        B[br, uintp(col[q])] = 0
+    for q in range(mid, hi):
+        d = uintp(dst[q])
+        v = R[xr, uintp(src[q])] + lp[q]
+        if v > S[yr, d]:
+            S[yr, d] = v
+            B[br, uintp(col[q])] = rank[q]
+    for q in range(lo, mid):
+        d = uintp(dst[q])
+        S[yr, d] = S[yr, d] + logE[c, d - _ONE]
+
+
+@njit(**_JIT)
+def _all_impossible(R, r, m):
+    for s in range(1, m + 1):
+        if R[r, s] > -np.inf:
+            return False
+    return True
+
+
+@njit(**_JIT)
+def viterbi_checkpointed(codes, log_start, log_end, logE, perm, inv, la1, f_ptr, f_n0, f_dst,
+                         f_src, f_lp, f_rank, f_col, tb_prev, tb_col, p_ptr, p_src, p_lp,
+                         block, bps, path):
+    """Most probable path (original state indices) into ``path``; (log probability, fail).
+
+    Same values, paths and tie rule as :func:`seqstate.engine.kernels.viterbi_checkpointed`.
+    ``bps`` is scratch of shape (min(block, N), n_multi + 1) for the back-pointer
+    ranks (the last column takes the writes of single-predecessor states).  With
+    ``block >= N`` the record is decoded in one pass.
+    """
+    n = codes.shape[0]
+    m = log_start.shape[0]
+    nblocks = (n + block - 1) // block
+    ck = np.empty((nblocks, m + 2))
+    rows = np.full((2, m + 2), -np.inf)
+    c = uintp(codes[0])
+    for t in range(m):
+        rows[0, t + 1] = log_start[t] + logE[c, t]
+    if _all_impossible(rows, 0, m):
+        return -np.inf, 0
+    for s in range(m + 2):
+        ck[0, s] = rows[0, s]
+    src = 0
+    for bk in range(nblocks):
+        b0 = bk * block
+        b1 = min(n, b0 + block)
+        # back-pointers of position i in row i - b0; the checkpoint is the row at b0
+        for i in range(max(b0, 1), b1):
+            dst = 1 - src
+            _vit(rows, src, rows, dst, bps, i - b0, codes[i], m, la1, logE, f_ptr, f_n0,
+                 f_dst, f_src, f_lp, f_rank, f_col)
+            src = dst
+            if i == b0:
+                for s in range(m + 2):
+                    ck[bk, s] = rows[dst, s]
+        if _all_impossible(rows, src, m):
+            # the first impossible position: recompute from the last possible checkpoint
+            k = bk
+            while k > 0 and _all_impossible(ck, k, m):
+                k -= 1
+            for s in range(m + 2):
+                rows[0, s] = ck[k, s]
+            src = 0
+            for i in range(k * block + 1, b1):
+                dst = 1 - src
+                _vit(rows, src, rows, dst, bps, 0, codes[i], m, la1, logE, f_ptr, f_n0,
+                     f_dst, f_src, f_lp, f_rank, f_col)
+                src = dst
+                if _all_impossible(rows, dst, m):
+                    return -np.inf, i
+            return -np.inf, b1 - 1
+    bestv = -np.inf
+    state = -1
+    for s in range(m):
+        v = rows[src, inv[s] + 1] + log_end[s]
+        if v > bestv:
+            bestv = v
+            state = s
+    if state < 0:
+        return -np.inf, n
+    state = inv[state]
+    # ---- traceback, one block at a time from the end (the last block's pointers are fresh)
+    for bk in range(nblocks - 1, -1, -1):
+        b0 = bk * block
+        b1 = min(n, b0 + block)
+        if bk < nblocks - 1:
+            for s in range(m + 2):
+                rows[0, s] = ck[bk, s]
+            src = 0
+            for i in range(b0 + 1, b1):
+                dst = 1 - src
+                _vit(rows, src, rows, dst, bps, i - b0, codes[i], m, la1, logE, f_ptr, f_n0,
+                     f_dst, f_src, f_lp, f_rank, f_col)
+                src = dst
+            # the state at b1 is known; its predecessor at b1 - 1 (same rule as a step)
+            if tb_prev[state] >= 0:
+                state = tb_prev[state]
+            else:
+                bestp = -np.inf
+                pick = p_src[p_ptr[state]]
+                for q in range(p_ptr[state], p_ptr[state + 1]):
+                    v = rows[src, p_src[q]] + p_lp[q]
+                    if v > bestp:
+                        bestp = v
+                        pick = p_src[q]
+                state = pick - 1
+        path[b1 - 1] = perm[state]
+        for i in range(b1 - 1, b0, -1):
+            p = tb_prev[state]
+            if p >= 0:
+                state = p
+            else:
+                state = p_src[p_ptr[state] + bps[i - b0, tb_col[state]]] - 1
+            path[i - 1] = perm[state]
+    return bestv, -1
