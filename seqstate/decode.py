@@ -171,24 +171,29 @@ def score_segment(
     mask: np.ndarray,
     start0: int,
     end0: int,
+    *,
+    log_odds: bool = True,
 ) -> dict:
     """Scores of one segment: posterior mean/min, exact segment probability, log-odds.
 
     ``group_values`` is the group's per-base posterior over the record.
     ``segment_probability`` is P(every base of the segment carries the group | x);
     ``log_odds_nat``/``log_odds_bits`` are the segment's log-odds under the group's
-    states against the other states (natural log and base 2).
+    states against the other states (natural log and base 2), left out when
+    ``log_odds`` is false.
     """
     vals = np.asarray(group_values[start0:end0], dtype=np.float64)
     lp = api.segment_log_probability(tables, codes, post, start0, end0, mask)
-    lo = api.segment_log_odds(tables, codes, post, start0, end0, mask)
-    return {
+    out = {
         "mean_posterior": float(vals.mean()),
         "min_posterior": float(vals.min()),
         "segment_probability": math.exp(lp) if lp > -math.inf else 0.0,
-        "log_odds_nat": lo,
-        "log_odds_bits": lo * LOG2E if math.isfinite(lo) else lo,
     }
+    if log_odds:
+        lo = api.segment_log_odds(tables, codes, post, start0, end0, mask)
+        out["log_odds_nat"] = lo
+        out["log_odds_bits"] = lo * LOG2E if math.isfinite(lo) else lo
+    return out
 
 
 def cpg_statistics(seq: bytes) -> dict:

@@ -472,7 +472,7 @@ def write_genes(
         gene_mask, cds_mask = masks[strand]
         gene_cols = [col[k] for k in (("CDS", strand), ("intron", strand)) if k in col]
         gene_values = post.values[:, gene_cols].sum(axis=1)
-        gsc = score_segment(tables, codes, post, gene_values, gene_mask, g0, g1)
+        gsc = score_segment(tables, codes, post, gene_values, gene_mask, g0, g1, log_odds=False)
         gid = f"{seqid}.gene.{number}"
         mid = f"{seqid}.mRNA.{number}"
 
@@ -525,7 +525,7 @@ def write_genes(
         order = range(len(gp.pieces)) if strand == "+" else range(len(gp.pieces) - 1, -1, -1)
         for k, i in enumerate(order, start=1):
             a, b = gp.pieces[i]
-            sc = score_segment(tables, codes, post, cds_values, cds_mask, a, b)
+            sc = score_segment(tables, codes, post, cds_values, cds_mask, a, b, log_odds=False)
             emit("exon", a, b, f"{mid}.exon.{k}", mid, sc)
             emit("CDS", a, b, f"{mid}.CDS.{k}", mid, sc, phase=phases[i])
         count += 2 + 2 * len(gp.pieces)
