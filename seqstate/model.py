@@ -289,22 +289,18 @@ def validate(model: Model, *, path: str | None = None) -> None:
             check_sum(total, f"transitions plus end of state {n!r}")
         else:
             check_sum(total, f"transitions of state {n!r}")
-    for i, n in enumerate(names):
-        for c in range(a**k):
+    tables = [(k, model.emissions)] + sorted(model.lower_emissions.items())
+    for j, arr in tables:
+        sums = arr.sum(axis=-1)
+        bad = np.abs(sums - 1.0) > SUM_TOLERANCE
+        if j != k:
+            bad &= ~np.all(np.isnan(arr), axis=-1)
+        if bad.any():
+            i, c = (int(v) for v in np.argwhere(bad)[0])
             check_sum(
-                float(model.emissions[i, c].sum()),
-                f"emissions of state {n!r} context {model.context_string(k, c) or '.'!r}",
+                float(sums[i, c]),
+                f"emissions of state {names[i]!r} context {model.context_string(j, c) or '.'!r}",
             )
-    for j, arr in model.lower_emissions.items():
-        for i, n in enumerate(names):
-            for c in range(a**j):
-                row = arr[i, c]
-                if np.all(np.isnan(row)):
-                    continue
-                check_sum(
-                    float(row.sum()),
-                    f"emissions of state {n!r} context {model.context_string(j, c) or '.'!r}",
-                )
     check_reachability(model, path=path)
 
 

@@ -466,12 +466,15 @@ def write_genes(
         masks[strand] = (gene, cds)
     count = 0
     predictions = gene_layout.genes_from_path(path, model)
+    gene_values_of = {}
+    for strand in "+-":
+        cols = [col[k] for k in (("CDS", strand), ("intron", strand)) if k in col]
+        gene_values_of[strand] = post.values[:, cols].sum(axis=1, dtype=np.float64)
     for number, gp in enumerate(predictions, start=1):
         strand = gp.strand
         g0, g1 = gp.span
         gene_mask, cds_mask = masks[strand]
-        gene_cols = [col[k] for k in (("CDS", strand), ("intron", strand)) if k in col]
-        gene_values = post.values[:, gene_cols].sum(axis=1)
+        gene_values = gene_values_of[strand]
         gsc = score_segment(tables, codes, post, gene_values, gene_mask, g0, g1, log_odds=False)
         gid = f"{seqid}.gene.{number}"
         mid = f"{seqid}.mRNA.{number}"

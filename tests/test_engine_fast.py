@@ -833,3 +833,106 @@ def test_restricted_forward_masked_path_matches_plain_and_oracle(name):
                 # dense NumPy oracle (restricted recursion by matrix products)
                 assert abs(total - want) <= 1e-10 * max(1.0, abs(want))
                 _close_to_row_max(got * np.exp(lg - lp), plain, 1e-10)
+
+
+# ----------------------------------------------------------------- chain-sparse segment queries
+def _generic_segment_scores(monkeypatch, t, codes, queries, block):
+    """Segment log probabilities and log-odds by the generic kernels (the oracle), each
+    query on a fresh posterior."""
+    monkeypatch.setattr(api, "_USE_SMALL", False)
+    assert api._sparse_of(t) is None  # really the generic path
+    post = api.posterior(t, codes, block=block, dtype=np.float64)
+    out = [(api.segment_log_probability(t, codes, post, s0, e0, mask),
+            api.segment_log_odds(t, codes, post, s0, e0, mask)) for s0, e0, mask in queries]
+    vecs = [(api.forward_vector(t, codes, post, p), api.backward_vector(t, codes, post, p))
+            for p in range(0, codes.shape[0], 97)]
+    monkeypatch.setattr(api, "_USE_SMALL", True)
+    return out, vecs
+
+
+def _same_score(x, y, tol=1e-10):
+    if not np.isfinite(y):
+        return x == y or (np.isnan(x) and np.isnan(y))
+    return abs(x - y) <= tol * max(1.0, abs(y))
+
+
+def _segment_queries(t, model, rng, n, count):
+    labels = model.label_index()
+    masks = [labels == 0, labels != 0, np.ones(t.n_states, dtype=bool),
+             rng.random(t.n_states) < 0.9]
+    out = [(0, 1, masks[0]), (0, n, masks[2]), (n - 1, n, masks[1]), (0, 37, masks[1])]
+    for _ in range(count):
+        s0 = int(rng.integers(0, n))
+        longest = 4 if rng.random() < 0.5 else 300  # short ones are rarely certain
+        e0 = int(min(n, s0 + rng.integers(1, longest)))
+        out.append((s0, e0, masks[int(rng.integers(len(masks)))]))
+    return out
+
+
+@pytest.mark.parametrize("name,seed,n,block", [
+    ("chains", 51, 900, 64), ("chains", 52, 700, 1), ("gene-segment", 53, 3000, 200),
+    ("gene-segment", 54, 2500, None)])
+def test_chain_sparse_segment_queries_equal_generic(monkeypatch, name, seed, n, block):
+    """segment_log_probability / segment_log_odds / forward_vector / backward_vector on
+    the chain-sparse path (which keeps the last recomputed vectors between queries)
+    against the generic kernels as oracle; queries in position order, reversed and
+    shuffled, so that the reuse of vectors cannot change a result."""
+    model = load_model(name) if name != "chains" else _chain_model(seed, 150, 2, True)
+    monkeypatch.setattr(api, "_USE_SMALL", True)
+    t = api.prepare(model)
+    assert _sparse_kernels_used(t)
+    rng = np.random.default_rng(seed)
+    codes = _possible_chain(t, rng, n, p_unknown=0.01)
+    queries = _segment_queries(t, model, rng, n, 60)
+    want, want_vecs = _generic_segment_scores(monkeypatch, t, codes, queries, block)
+    assert any(np.isfinite(lp) and lp < -1e-3 for lp, _ in want)  # informative cases
+    assert any(lp == -np.inf for lp, _ in want)  # and impossible ones
+    post = api.posterior(t, codes, block=block, dtype=np.float64)
+    assert "_sparse_cursor" not in post.__dict__
+    for order in (np.argsort([q[0] for q in queries], kind="stable"),
+                  np.arange(len(queries))[::-1], rng.permutation(len(queries))):
+        for j in order:
+            s0, e0, mask = queries[j]
+            lp = api.segment_log_probability(t, codes, post, s0, e0, mask)
+            lo = api.segment_log_odds(t, codes, post, s0, e0, mask)
+            # generic kernels as oracle
+            assert _same_score(lp, want[j][0]), (j, lp, want[j][0])
+            assert _same_score(lo, want[j][1]), (j, lo, want[j][1])
+    assert "_sparse_cursor" in post.__dict__  # the chain-sparse path really ran
+    for k, p in enumerate(range(0, n, 97)):
+        (fv, fl), (bv, bl) = api.forward_vector(t, codes, post, p), api.backward_vector(
+            t, codes, post, p)
+        (gfv, gfl), (gbv, gbl) = want_vecs[k]
+        # generic kernels as oracle (vectors compared unscaled, relative to their maximum)
+        _close_to_row_max(fv * np.exp(fl - gfl), gfv, 1e-10)
+        _close_to_row_max(bv * np.exp(bl - gbl), gbv, 1e-10)
+
+
+def test_chain_sparse_restricted_equals_generic_kernel(specialised):
+    """api._restricted on the chain-sparse path against kernels.restricted_forward
+    (the generic kernel as oracle), with and without emissions."""
+    model = _chain_model(61, 140, 1, False)
+    t = api.prepare(model)
+    assert _sparse_kernels_used(t)
+    rng = np.random.default_rng(61)
+    codes = _possible_chain(t, rng, 800, p_unknown=0.02)
+    post = api.posterior(t, codes, block=50)
+    labels = model.label_index()
+    for s0, e0 in ((0, 30), (1, 2), (99, 400), (500, 800)):
+        if s0 == 0:
+            init, is_start = t.start, True
+        else:
+            init, _ = api.forward_vector(t, codes, post, s0 - 1)
+            is_start = False
+        for mask in (labels == 0, labels != 0, np.ones(t.n_states, dtype=bool)):
+            for use_e in (True, False):
+                got, lg = api._restricted(t, codes, s0, e0, init, is_start, mask, use_e)
+                ref = np.empty(t.n_states)
+                rl = kernels.restricted_forward(codes, s0, e0, init, is_start, mask, use_e,
+                                                t.E, t.nz_ptr, t.nz_state, t.pred_ptr,
+                                                t.pred_src, t.pred_p, ref)
+                if rl == -np.inf:
+                    assert lg == -np.inf
+                    continue
+                # generic restricted_forward as oracle
+                _close_to_row_max(got * np.exp(lg - rl), ref, 1e-10)

@@ -365,6 +365,11 @@ def forward_vector(tables: EngineTables, codes: np.ndarray, post: Posterior,
                    pos: int) -> tuple[np.ndarray, float]:
     """Scaled forward vector at ``pos`` and its natural-log scale."""
     out = np.empty(tables.n_states)
+    cur = _cursor_of(tables, codes, post)
+    if cur is not None:
+        row, lg = cur.forward(pos)
+        _sparse.from_slots(row, 0, cur.sp.perm, out)
+        return out, lg
     lg = kernels.vector_at(codes, pos, tables.start, tables.E, tables.nz_ptr, tables.nz_state,
                            tables.pred_ptr, tables.pred_src, tables.pred_p, post.block,
                            post.alpha_ck, post.alpha_ck_log, out)
@@ -375,6 +380,11 @@ def backward_vector(tables: EngineTables, codes: np.ndarray, post: Posterior,
                     pos: int) -> tuple[np.ndarray, float]:
     """Scaled backward vector at ``pos`` and its natural-log scale."""
     out = np.empty(tables.n_states)
+    cur = _cursor_of(tables, codes, post)
+    if cur is not None:
+        row, lg = cur.backward(pos)
+        _sparse.from_slots(row, 0, cur.sp.perm, out)
+        return out, lg
     lg = kernels.backward_vector_at(codes, pos, tables.E, tables.nz_ptr, tables.nz_state,
                                     tables.succ_ptr, tables.succ_dst, tables.succ_p, post.block,
                                     post.beta_ck, post.beta_ck_log, out)
@@ -382,6 +392,19 @@ def backward_vector(tables: EngineTables, codes: np.ndarray, post: Posterior,
 
 
 def _restricted(tables, codes, start0, end0, init, init_is_start, mask, use_emissions):
+    sp = _sparse_of(tables)
+    if sp is not None:
+        m = tables.n_states
+        row = np.zeros((1, m + 2))
+        if not init_is_start:
+            _sparse.to_slots(np.asarray(init, dtype=np.float64), sp.perm, row, 0)
+        work = np.empty((2, m + 2))
+        lg = _sparse_restricted(tables, sp, codes, start0, end0, row, init_is_start,
+                                _mask_slots(sp, mask), use_emissions, work)
+        out = np.zeros(m)
+        if lg > -np.inf:
+            _sparse.from_slots(work, 0, sp.perm, out)
+        return out, lg
     out = np.empty(tables.n_states)
     lg = kernels.restricted_forward(codes, start0, end0, init, init_is_start, mask,
                                     use_emissions, tables.E, tables.nz_ptr, tables.nz_state,
@@ -400,6 +423,23 @@ def segment_log_probability(tables: EngineTables, codes: np.ndarray, post: Poste
     if end0 <= start0:
         return 0.0  # an empty segment: the condition holds for every path
     mask = np.asarray(mask, dtype=np.bool_)
+    cur = _cursor_of(tables, codes, post)
+    if cur is not None:
+        sp = cur.sp
+        if start0 == 0:
+            init, init_log, is_start = cur.work, 0.0, True
+        else:
+            init, init_log = cur.forward(start0 - 1)
+            is_start = False
+        lg = _sparse_restricted(tables, sp, codes, start0, end0, init, is_start,
+                                _mask_slots(sp, mask), True, cur.work)
+        if lg == -np.inf:
+            return -np.inf
+        beta, blog = cur.backward(end0 - 1)
+        ld = _sparse.log_dot(cur.work, 0, beta, 0)
+        if ld == -np.inf:
+            return -np.inf
+        return min(0.0, ld + lg + init_log + blog - post.loglik)
     if start0 == 0:
         init, init_log, is_start = tables.start, 0.0, True
     else:
@@ -430,6 +470,30 @@ def segment_log_odds(tables: EngineTables, codes: np.ndarray, post: Posterior,
     if end0 <= start0:
         return 0.0  # an empty segment carries no evidence either way
     mask = np.asarray(mask, dtype=np.bool_)
+    cur = _cursor_of(tables, codes, post)
+    if cur is not None:
+        sp = cur.sp
+        if start0 == 0:
+            init, is_start = cur.work, True
+        else:
+            init, _ = cur.forward(start0 - 1)
+            is_start = False
+        terms = []
+        for msk in (mask, ~mask):
+            mf = _mask_slots(sp, msk)
+            l1 = _sparse_restricted(tables, sp, codes, start0, end0, init, is_start, mf, True,
+                                    cur.work)
+            s1 = _sparse.log_dot(cur.work, 0, cur.ones, 0) if l1 > -np.inf else -math.inf
+            l0 = _sparse_restricted(tables, sp, codes, start0, end0, init, is_start, mf,
+                                    False, cur.work)
+            if l0 == -np.inf:
+                terms.append(math.nan)
+                continue
+            if s1 == -math.inf:
+                terms.append(-math.inf)
+                continue
+            terms.append(s1 + l1 - _sparse.log_dot(cur.work, 0, cur.ones, 0) - l0)
+        return _odds_of(*terms)
     if start0 == 0:
         init, is_start = tables.start, True
     else:
@@ -447,7 +511,10 @@ def segment_log_odds(tables: EngineTables, codes: np.ndarray, post: Posterior,
             terms.append(-math.inf)
             continue
         terms.append(math.log(s1) + l1 - math.log(float(v0.sum())) - l0)
-    inside, outside = terms
+    return _odds_of(*terms)
+
+
+def _odds_of(inside: float, outside: float) -> float:
     if math.isnan(inside) or math.isnan(outside):
         return math.nan
     if inside == -math.inf and outside == -math.inf:
@@ -516,3 +583,88 @@ def _limit_of(tables: EngineTables) -> float:
     lim = kernels.rescale_limit(_small.smallest_factor(tables))
     tables.__dict__["_rescale_limit"] = (lim, tables.E, tables.pred_p)
     return lim
+
+
+# ----------------------------------------------------------------- chain-sparse segment queries
+class _Cursor:
+    """Forward and backward vectors of one posterior in the chain-sparse slots, reused.
+
+    Segment queries arrive mostly in position order, so the last forward vector
+    (and the last backward vector) recomputed from a checkpoint is kept: a later
+    query in the same block continues from it instead of from the checkpoint.
+    The steps and the rescaling decisions are those of a pass from the
+    checkpoint, so the result does not depend on the order of the queries.
+    """
+
+    def __init__(self, tables: EngineTables, sp, codes: np.ndarray, post: Posterior):
+        m = tables.n_states
+        self.sp, self.codes, self.post = sp, codes, post
+        self.alpha, self.beta = post.alpha_ck, post.beta_ck
+        self.lim = _limit_of(tables)
+        self.f = np.zeros((2, m + 2))
+        self.b = np.zeros((2, m + 2))
+        self.f_pos = self.b_pos = -1
+        self.f_log = self.b_log = 0.0
+        self.work = np.zeros((2, m + 2))
+        self.ones = np.ones((1, m + 2))
+
+    def forward(self, pos: int) -> tuple[np.ndarray, float]:
+        """Row 0 of the returned array: scaled forward vector at ``pos`` in slots; log scale."""
+        post, sp = self.post, self.sp
+        bk = pos // post.block
+        if not (0 <= self.f_pos <= pos and self.f_pos // post.block == bk):
+            _sparse.to_slots(post.alpha_ck[bk], sp.perm, self.f, 0)
+            self.f_pos, self.f_log = bk * post.block, float(post.alpha_ck_log[bk])
+        if pos > self.f_pos:
+            ex = _sparse.forward_advance(self.codes, self.f_pos, pos, self.f, sp.w1, sp.f_ptr,
+                                         sp.f_n0, sp.f_dst, sp.f_src, sp.f_w, self.lim)
+            self.f_pos, self.f_log = pos, self.f_log + ex * _LN2
+        return self.f, self.f_log
+
+    def backward(self, pos: int) -> tuple[np.ndarray, float]:
+        """Row 0 of the returned array: scaled backward vector at ``pos`` in slots; log scale."""
+        post, sp = self.post, self.sp
+        n = self.codes.shape[0]
+        bk = pos // post.block
+        if not (self.b_pos >= pos and self.b_pos // post.block == bk):
+            _sparse.to_slots(post.beta_ck[bk], sp.perm, self.b, 0)
+            self.b_pos = min(n, bk * post.block + post.block) - 1
+            self.b_log = float(post.beta_ck_log[bk])
+        if pos < self.b_pos:
+            ex = _sparse.backward_advance(self.codes, self.b_pos, pos, self.b, sp.v1, sp.b_ptr,
+                                          sp.b_n0, sp.b_dst, sp.b_src, sp.b_w, self.lim)
+            self.b_pos, self.b_log = pos, self.b_log + ex * _LN2
+        return self.b, self.b_log
+
+
+_LN2 = math.log(2.0)
+
+
+def _cursor_of(tables: EngineTables, codes: np.ndarray, post: Posterior):
+    """The chain-sparse query state of ``post`` (kept on it), or None for the generic path."""
+    sp = _sparse_of(tables)
+    if sp is None:
+        return None
+    cur = post.__dict__.get("_sparse_cursor")
+    if (cur is None or cur.sp is not sp or cur.codes is not codes or cur.post is not post
+            or cur.alpha is not post.alpha_ck or cur.beta is not post.beta_ck):
+        cur = _Cursor(tables, sp, codes, post)
+        post.__dict__["_sparse_cursor"] = cur
+    return cur
+
+
+def _mask_slots(sp, mask: np.ndarray) -> np.ndarray:
+    """``mask`` (original order) as 0/1 factors per slot (dummy slots 0)."""
+    out = np.zeros(sp.n_states + 2)
+    out[1:-1] = np.asarray(mask, dtype=np.bool_)[sp.perm]
+    return out
+
+
+def _sparse_restricted(tables, sp, codes, start0, end0, init, init_is_start, maskf,
+                       use_emissions, work) -> float:
+    """Restricted forward in slots (result in row 0 of ``work``); natural-log scale or -inf."""
+    ex = _sparse.restricted_forward(codes, start0, end0, init, init_is_start, maskf,
+                                    -1 if use_emissions else tables.unknown_code, sp.start,
+                                    sp.E, sp.w1, sp.f_ptr, sp.f_n0, sp.f_dst, sp.f_src, sp.f_w,
+                                    _limit_of(tables), work)
+    return ex if ex == -np.inf else ex * _LN2

@@ -719,3 +719,156 @@ def viterbi_checkpointed(codes, log_start, log_end, logE, perm, inv, la1, f_ptr,
                 state = p_src[p_ptr[state] + bps[i - b0, tb_col[state]]] - 1
             path[i - 1] = perm[state]
     return bestv, -1
+
+
+# ----------------------------------------------------------------- segment queries
+# Forward and backward vectors recomputed from the posterior's checkpoints, and
+# forward passes restricted to a set of states, in the renumbered slots.  The
+# vectors are rescaled as in the kernels above (by powers of two, when the largest
+# entry falls below the threshold), so their values times 2**exponent equal the
+# unscaled probabilities to rounding, whatever the scaling history.
+@njit(**_JIT)
+def to_slots(vec, perm, R, r):
+    """R[r, t + 1] = vec[perm[t]] (original order -> slots); the dummy slots get 0."""
+    m = perm.shape[0]
+    R[r, 0] = 0.0
+    R[r, m + 1] = 0.0
+    for t in range(m):
+        R[r, t + 1] = vec[perm[t]]
+
+
+@njit(**_JIT)
+def from_slots(R, r, perm, out):
+    """out[perm[t]] = R[r, t + 1] (slots -> original order)."""
+    for t in range(perm.shape[0]):
+        out[perm[t]] = R[r, t + 1]
+
+
+@njit(**_JIT)
+def _finish(R, src, m):
+    if src != 0:
+        for s in range(m + 2):
+            R[0, s] = R[src, s]
+
+
+@njit(**_JIT)
+def forward_advance(codes, i0, i1, R, w1, f_ptr, f_n0, f_dst, f_src, f_w, lim):
+    """Row 0 of ``R`` (2, M + 2) holds the scaled forward vector at ``i0``; step it to ``i1``.
+
+    Returns the binary exponent taken out on the way (the log scale grows by
+    that times log 2).  Row 1 is scratch.
+    """
+    m = R.shape[1] - 2
+    ri = R.view(np.int64)
+    tmpi = np.zeros(1, dtype=np.int64)
+    tmpf = tmpi.view(np.float64)
+    limbits = _bits_of(lim, tmpi, tmpf)
+    src = 0
+    ex = 0
+    for i in range(i0 + 1, i1 + 1):
+        dst = 1 - src
+        _step(R, src, R, dst, codes[i], m, 0, w1, f_ptr, f_n0, f_dst, f_src, f_w)
+        src = dst
+        mx = _maxbits(ri, src, 1, m + 1)
+        if mx < limbits and mx > 0:
+            ex += _rescale(R, src, 1, m + 1, mx, tmpi, tmpf)
+    _finish(R, src, m)
+    return ex
+
+
+@njit(**_JIT)
+def backward_advance(codes, i0, i1, R, v1, b_ptr, b_n0, b_dst, b_src, b_w, lim):
+    """Row 0 of ``R`` holds the scaled backward vector at ``i0``; step it back to ``i1 <= i0``.
+
+    Returns the binary exponent taken out, as :func:`forward_advance`.
+    """
+    m = R.shape[1] - 2
+    ri = R.view(np.int64)
+    tmpi = np.zeros(1, dtype=np.int64)
+    tmpf = tmpi.view(np.float64)
+    limbits = _bits_of(lim, tmpi, tmpf)
+    src = 0
+    ex = 0
+    for i in range(i0 - 1, i1 - 1, -1):
+        dst = 1 - src
+        _step(R, src, R, dst, codes[i + 1], m, 2, v1, b_ptr, b_n0, b_dst, b_src, b_w)
+        src = dst
+        mx = _maxbits(ri, src, 1, m + 1)
+        if mx < limbits and mx > 0:
+            ex += _rescale(R, src, 1, m + 1, mx, tmpi, tmpf)
+    _finish(R, src, m)
+    return ex
+
+
+@njit(**_JIT)
+def restricted_forward(codes, s0, e0, init, init_is_start, maskf, code, start, E, w1, f_ptr,
+                       f_n0, f_dst, f_src, f_w, lim, W):
+    """Forward over positions s0..e0-1 through the states whose slot has ``maskf`` 1.
+
+    ``init`` is row 0 of an (x, M + 2) array holding the unrestricted forward vector
+    at ``s0 - 1`` in slots (unused when ``init_is_start``: the start vector then).
+    ``code`` >= 0 replaces every position's code (the unknown code, whose
+    emission factors are all 1, gives the prior probability of staying inside the
+    mask); -1 reads ``codes``.  ``maskf`` has M + 2 entries, 0 or 1, 0 in the
+    dummy slots.  The final scaled vector lands in row 0 of ``W`` (2, M + 2).
+    Returns its binary exponent as a float, or -inf if no allowed path stays
+    inside the mask.
+    """
+    m = W.shape[1] - 2
+    wi = W.view(np.int64)
+    tmpi = np.zeros(1, dtype=np.int64)
+    tmpf = tmpi.view(np.float64)
+    limbits = _bits_of(lim, tmpi, tmpf)
+    ex = 0
+    src = 0
+    for i in range(s0, e0):
+        c = codes[i] if code < 0 else code
+        dst = 1 - src
+        if i == s0:
+            dst = 0
+            if init_is_start:
+                _first(W, 0, c, m, start, E)
+                W[0, 0] = 0.0
+                W[0, m + 1] = 0.0
+            else:
+                _step(init, 0, W, 0, c, m, 0, w1, f_ptr, f_n0, f_dst, f_src, f_w)
+        else:
+            _step(W, src, W, dst, c, m, 0, w1, f_ptr, f_n0, f_dst, f_src, f_w)
+        for s in range(1, m + 1):
+            W[dst, s] *= maskf[s]
+        src = dst
+        mx = _maxbits(wi, src, 1, m + 1)
+        if mx == 0:
+            return -np.inf
+        if mx < limbits:
+            ex += _rescale(W, src, 1, m + 1, mx, tmpi, tmpf)
+    _finish(W, src, m)
+    return float(ex)
+
+
+@njit(**_JIT)
+def log_dot(F, fr, B, br):
+    """Natural log of sum_s F[fr, s] * B[br, s] (-inf when 0), each row first scaled so
+    that its largest entry lies in [0.5, 1) (exact), so the products cannot underflow
+    for want of scale.  Neither row is changed."""
+    n = F.shape[1]
+    mf = 0.0
+    mb = 0.0
+    for s in range(n):
+        mf = max(mf, F[fr, s])
+        mb = max(mb, B[br, s])
+    if mf == 0.0 or mb == 0.0:
+        return -np.inf
+    _, ef = math.frexp(mf)
+    _, eb = math.frexp(mb)
+    x = np.empty((1, n))
+    y = np.empty((1, n))
+    sf = math.ldexp(1.0, -ef)
+    sb = math.ldexp(1.0, -eb)
+    for s in range(n):
+        x[0, s] = F[fr, s] * sf
+        y[0, s] = B[br, s] * sb
+    d = _dot(x, 0, y, 0, 0, n)
+    if d <= 0.0:
+        return -np.inf
+    return math.log(d) + (ef + eb) * _LN2

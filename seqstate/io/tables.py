@@ -377,6 +377,8 @@ def _read_emissions(
     sym = {c: i for i, c in enumerate(alphabet)}
     full = np.full((m, a**order, a), np.nan)
     lower = {j: np.full((m, a**j, a), np.nan) for j in range(order)}
+    given = {j: np.zeros((m, a**j), dtype=bool) for j in range(order + 1)}
+    context_index: dict[str, int] = {}
     columns: list[int] | None = None
     for line0, fields in _lines(path):
         if columns is None:
@@ -408,40 +410,50 @@ def _read_emissions(
             raise TableFormatError(
                 f"context '{ctx}' is longer than the model's order {order}", path=path, line0=line0
             )
-        c = 0
-        for ch in ctx:
-            if ch not in sym:
-                raise TableFormatError(
-                    f"context '{ctx}' has symbol {ch!r} not in the alphabet", path=path, line0=line0
-                )
-            c = c * a + sym[ch]
+        c = context_index.get(ctx)
+        if c is None:
+            c = 0
+            for ch in ctx:
+                if ch not in sym:
+                    raise TableFormatError(
+                        f"context '{ctx}' has symbol {ch!r} not in the alphabet",
+                        path=path,
+                        line0=line0,
+                    )
+                c = c * a + sym[ch]
+            context_index[ctx] = c
         target = full if len(ctx) == order else lower[len(ctx)]
-        if not np.all(np.isnan(target[s, c])):
+        seen_rows = given[len(ctx)]
+        if seen_rows[s, c]:
             raise TableFormatError(
                 f"duplicate row for state '{names[s]}' context '{ctx or EMPTY_CONTEXT}'",
                 path=path,
                 line0=line0,
             )
-        row = np.zeros(a)
+        seen_rows[s, c] = True
+        row = [0.0] * a
         for col, cell in zip(columns, fields[2:]):
             row[col] = _number(
                 cell, path, line0, f"state '{names[s]}' context '{ctx or EMPTY_CONTEXT}'"
             )
-        what = f"row for state '{names[s]}' context '{ctx or EMPTY_CONTEXT}'"
+        total = math.fsum(row)
         if strict:
-            _check_sum(float(row.sum()), what, path, line0)
-        elif row.sum() <= 0:
+            if abs(total - 1.0) > SUM_TOLERANCE:
+                what = f"row for state '{names[s]}' context '{ctx or EMPTY_CONTEXT}'"
+                _check_sum(total, what, path, line0)
+        elif total <= 0:
+            what = f"row for state '{names[s]}' context '{ctx or EMPTY_CONTEXT}'"
             raise TableFormatError(
                 f"{what} sums to 0 and cannot be normalised", path=path, line0=line0
             )
         target[s, c] = row
     if columns is None:
         raise TableFormatError("table is empty", path=path)
-    for s in range(m):
-        for c in range(a**order):
-            if np.all(np.isnan(full[s, c])):
-                ctx = _context_string(alphabet, order, c) or EMPTY_CONTEXT
-                raise TableFormatError(f"missing context '{ctx}' for state '{names[s]}'", path=path)
+    missing = np.argwhere(~given[order])
+    if missing.size:
+        s, c = (int(v) for v in missing[0])
+        ctx = _context_string(alphabet, order, c) or EMPTY_CONTEXT
+        raise TableFormatError(f"missing context '{ctx}' for state '{names[s]}'", path=path)
     lower = {j: arr for j, arr in lower.items() if not np.all(np.isnan(arr))}
     return full, lower
 
