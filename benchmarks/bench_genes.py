@@ -95,8 +95,9 @@ def _child(spec: dict) -> dict:
 # ----------------------------------------------------------------- parent side
 def _env(generic: bool = False) -> dict:
     env = dict(os.environ)
-    env["PYTHONPATH"] = str(REPO) + (os.pathsep + env["PYTHONPATH"]
-                                     if env.get("PYTHONPATH") else "")
+    env["PYTHONPATH"] = str(REPO) + (
+        os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else ""
+    )
     env.pop("SEQSTATE_KERNELS", None)
     if generic:
         env["SEQSTATE_KERNELS"] = "generic"
@@ -106,8 +107,13 @@ def _env(generic: bool = False) -> dict:
 def run_child(cmd: list[str], env: dict, capture: bool = False) -> tuple[float, float, str]:
     """Wall seconds, peak RSS (MiB, the child's own rusage) and stdout of one child."""
     t0 = time.perf_counter()
-    proc = subprocess.Popen(cmd, env=env, stdout=subprocess.PIPE if capture else
-                            subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    proc = subprocess.Popen(
+        cmd,
+        env=env,
+        stdout=subprocess.PIPE if capture else subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
     out = proc.stdout.read() if capture else ""
     err = proc.stderr.read()
     _, status, usage = os.wait4(proc.pid, 0)
@@ -119,8 +125,9 @@ def run_child(cmd: list[str], env: dict, capture: bool = False) -> tuple[float, 
 
 def engine(fasta: Path, op: str, repeat: int, generic: bool) -> dict:
     spec = json.dumps({"fasta": str(fasta), "op": op, "repeat": repeat})
-    _, peak, out = run_child([sys.executable, __file__, "--child", spec], _env(generic),
-                             capture=True)
+    _, peak, out = run_child(
+        [sys.executable, __file__, "--child", spec], _env(generic), capture=True
+    )
     res = json.loads(out.strip().splitlines()[-1])
     res["peak_mb"] = peak
     res["mbps"] = res["n"] / 1e6 / statistics.median(res["times"])
@@ -135,13 +142,13 @@ def end_to_end(fasta: Path, repeat: int, work: Path) -> tuple[float, float]:
 
     rec = read_fasta(fasta)[0]
     small.write_text(f">warm\n{rec.seq[200000:230000].decode('ascii')}\n")
-    run_child(exe + ["annotate", str(small), "-m", MODEL, "-o", str(work / "warm"), "-q"],
-              _env())
+    run_child(exe + ["annotate", str(small), "-m", MODEL, "-o", str(work / "warm"), "-q"], _env())
     walls, peaks = [], []
     for r in range(repeat):
         out = work / f"out{r}"
-        wall, peak, _ = run_child(exe + ["annotate", str(fasta), "-m", MODEL, "-o", str(out),
-                                         "-q"], _env())
+        wall, peak, _ = run_child(
+            exe + ["annotate", str(fasta), "-m", MODEL, "-o", str(out), "-q"], _env()
+        )
         walls.append(wall)
         peaks.append(peak)
         shutil.rmtree(out)
@@ -172,13 +179,16 @@ def main() -> None:
     cpu = platform.processor() or platform.machine()
     try:
         with open("/proc/cpuinfo") as fh:
-            cpu = next(line.split(":", 1)[1].strip() for line in fh
-                       if line.startswith("model name"))
+            cpu = next(
+                line.split(":", 1)[1].strip() for line in fh if line.startswith("model name")
+            )
     except (OSError, StopIteration):
         pass
-    print(f"machine: {cpu}, {os.cpu_count()} cores, Python {platform.python_version()}, "
-          f"numpy {numpy.__version__}, numba {numba.__version__}, "
-          f"seqstate {seqstate.__version__}")
+    print(
+        f"machine: {cpu}, {os.cpu_count()} cores, Python {platform.python_version()}, "
+        f"numpy {numpy.__version__}, numba {numba.__version__}, "
+        f"seqstate {seqstate.__version__}"
+    )
     print(f"input: {fasta.name} (first record), model {MODEL}")
     rows = []
     variants = [("chain-sparse (default)", False)]
@@ -189,23 +199,36 @@ def main() -> None:
         for op in ("viterbi", "posterior"):
             res = engine(fasta, op, args.repeat, generic)
             n, record = res["n"], res["record"]
-            rows.append((f"engine {op}", label, f"{res['mbps']:.2f}",
-                         f"{statistics.median(res['times']):.2f}", f"{res['peak_mb']:.0f}"))
+            rows.append(
+                (
+                    f"engine {op}",
+                    label,
+                    f"{res['mbps']:.2f}",
+                    f"{statistics.median(res['times']):.2f}",
+                    f"{res['peak_mb']:.0f}",
+                )
+            )
     if not args.no_annotate:
         work = Path(tempfile.mkdtemp(prefix="seqstate-bench-genes-"))
         try:
             wall, peak = end_to_end(fasta, args.repeat, work)
         finally:
             shutil.rmtree(work, ignore_errors=True)
-        rows.append(("seqstate annotate -m gene-segment", "end to end", f"{n / 1e6 / wall:.2f}",
-                     f"{wall:.2f}", f"{peak:.0f}"))
+        rows.append(
+            (
+                "seqstate annotate -m gene-segment",
+                "end to end",
+                f"{n / 1e6 / wall:.2f}",
+                f"{wall:.2f}",
+                f"{peak:.0f}",
+            )
+        )
     print(f"record: {record}, {n / 1e6:.3f} Mbp; median of {args.repeat}\n")
     print("| what | kernels | Mbp/s | seconds | peak RSS (MiB) |")
     print("|---|---|---|---|---|")
     for row in rows:
         print("| " + " | ".join(row) + " |")
-    print("\ntargets (one core): Viterbi >= 1.5 Mbp/s, posterior >= 0.4 Mbp/s, "
-          "peak RSS < 1024 MiB")
+    print("\ntargets (one core): Viterbi >= 1.5 Mbp/s, posterior >= 0.4 Mbp/s, peak RSS < 1024 MiB")
 
 
 if __name__ == "__main__":

@@ -1124,22 +1124,23 @@ def fit(opts: FitOptions, *, log: Log = _quiet) -> FitReport:
 
         features = read_gff3(opts.labels)
         n_features = len(features)
-        pairs, gene_report = genes.label_records(start_model, records, features,
-                                                 path=opts.labels, bad_genes=opts.bad_genes)
+        pairs, gene_report = genes.label_records(
+            start_model, records, features, path=opts.labels, bad_genes=opts.bad_genes
+        )
         counts = Counts.zeros(start_model)
         for k, (seq, states) in enumerate(pairs):
             rid = records[k // 2].id + ("" if k % 2 == 0 else " (reverse complement)")
             codes = api.encode(tables, seq, masked_unknown=masked)
-            counts.add(count_path(start_model, tables, codes, states, record=rid,
-                                  path=opts.labels))
+            counts.add(count_path(start_model, tables, codes, states, record=rid, path=opts.labels))
             if k % 2 == 0:
                 codes_list.append(codes)
         pool_counts(start_model, counts)
         model, kept = estimate(start_model, counts, pseudocount=pc_count, frozen=frozen)
         methods.append("counting from a gene annotation")
-        log(f"fit: genes used {gene_report.used}, skipped "
-            + (", ".join(f"{v} ({k})" for k, v in sorted(gene_report.skipped.items()))
-               or "none"))
+        log(
+            f"fit: genes used {gene_report.used}, skipped "
+            + (", ".join(f"{v} ({k})" for k, v in sorted(gene_report.skipped.items())) or "none")
+        )
         labelling_report = gene_report.as_dict()
     elif opts.labels:
         features = read_labels(opts.labels, start_model, opts.labels_format)

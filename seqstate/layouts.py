@@ -8,8 +8,9 @@ from seqstate.engine.api import backoff_rows
 from seqstate.model import Model, State, make_model
 
 
-def expand_to_symbol_states(model: Model, *, name: str | None = None,
-                            description: str | None = None) -> Model:
+def expand_to_symbol_states(
+    model: Model, *, name: str | None = None, description: str | None = None
+) -> Model:
     """The order-0 layout of an order-1 model: one state per (state, symbol).
 
     State ``(s, x)`` emits only ``x``; it keeps the label and strand of ``s``.

@@ -141,7 +141,15 @@ def _limit(t):
 
 def _generic_loglik(t, codes):
     return kernels.forward_loglik(
-        codes, t.start, t.end, t.E, t.nz_ptr, t.nz_state, t.pred_ptr, t.pred_src, t.pred_p,
+        codes,
+        t.start,
+        t.end,
+        t.E,
+        t.nz_ptr,
+        t.nz_state,
+        t.pred_ptr,
+        t.pred_src,
+        t.pred_p,
         _limit(t),
     )
 
@@ -493,10 +501,20 @@ def _chain_model(seed, m, order, with_end):
     start = np.zeros(m)
     start[source] = 0.5
     start[chains[0][0]] = 0.5
-    states = [State(f"s{i}", ("L" if i % 3 == 0 else "K" if i % 3 == 1 else None),
-                    "+" if i % 2 else "-") for i in range(m)]
-    return make_model(name="chains", alphabet=ALPHABET, states=states, start=start,
-                      transitions=trans, emissions=emissions, end=end, order=order)
+    states = [
+        State(f"s{i}", ("L" if i % 3 == 0 else "K" if i % 3 == 1 else None), "+" if i % 2 else "-")
+        for i in range(m)
+    ]
+    return make_model(
+        name="chains",
+        alphabet=ALPHABET,
+        states=states,
+        start=start,
+        transitions=trans,
+        emissions=emissions,
+        end=end,
+        order=order,
+    )
 
 
 def _possible_chain(t, rng, n, **kw):
@@ -558,7 +576,8 @@ def _check_sparse_against_oracles(model, t, codes, blocks):
         blk = n if block is None else max(1, min(block, n))
         p = api.posterior(t, codes, block=blk, dtype=np.float64)
         gl, gp, gout, gack, galog, gbck, gblog = _generic_posterior(
-            t, codes, np.arange(m, dtype=np.int64), m, blk)
+            t, codes, np.arange(m, dtype=np.int64), m, blk
+        )
         assert gp == -1
         assert abs(p.loglik - gl) <= 1e-10 * abs(gl)
         np.testing.assert_allclose(p.values, gout, rtol=0, atol=1e-10)
@@ -571,8 +590,9 @@ def _check_sparse_against_oracles(model, t, codes, blocks):
         assert lab.values.dtype == np.float32
         want = _group_oracle(ref_post, labels, n_labels)
         np.testing.assert_allclose(lab.values, want, rtol=0, atol=2e-7)
-        lab64 = api.posterior(t, codes, group=labels, n_groups=n_labels, block=blk,
-                              dtype=np.float64)
+        lab64 = api.posterior(
+            t, codes, group=labels, n_groups=n_labels, block=blk, dtype=np.float64
+        )
         np.testing.assert_allclose(lab64.values, want, rtol=0, atol=1e-10)
         assert abs(lab64.loglik - ref_ll) <= 1e-10 * abs(ref_ll)
 
@@ -653,7 +673,7 @@ def _twin_chains_model(length):
     m = 1 + 2 * length
     rng = np.random.default_rng(5)
     order = np.random.default_rng(6).permutation(m)  # shuffled indices
-    hub, one, two = int(order[0]), order[1:1 + length], order[1 + length:]
+    hub, one, two = int(order[0]), order[1 : 1 + length], order[1 + length :]
     trans = np.zeros((m, m))
     trans[hub, hub] = 0.5
     trans[hub, one[0]] = trans[hub, two[0]] = 0.25
@@ -667,8 +687,14 @@ def _twin_chains_model(length):
         trans[two[j], two[j + 1] if nxt is None else hub] = 1.0
     start = np.zeros(m)
     start[hub] = 1.0
-    return make_model(name="twins", alphabet=ALPHABET, states=[State(f"s{i}") for i in range(m)],
-                      start=start, transitions=trans, emissions=em)
+    return make_model(
+        name="twins",
+        alphabet=ALPHABET,
+        states=[State(f"s{i}") for i in range(m)],
+        start=start,
+        transitions=trans,
+        emissions=em,
+    )
 
 
 def test_chain_sparse_viterbi_ties_go_to_the_lowest_state(specialised):
@@ -721,29 +747,64 @@ def test_chain_sparse_impossible_record_reports_the_generic_positions(specialise
         em[s, [s % 4, (s + 1) % 4]] = [0.7, 0.3]
     start = np.zeros(m)
     start[0] = 1.0
-    model = make_model(name="ring", alphabet=ALPHABET, states=[State(f"s{i}") for i in range(m)],
-                       start=start, transitions=trans, emissions=em)
+    model = make_model(
+        name="ring",
+        alphabet=ALPHABET,
+        states=[State(f"s{i}") for i in range(m)],
+        start=start,
+        transitions=trans,
+        emissions=em,
+    )
     t = api.prepare(model)
     assert _sparse_kernels_used(t)
     good = "".join(ALPHABET[s % 4] for s in range(100))
     assert np.isfinite(api.loglik(t, api.encode(t, good)))
     bad = api.encode(t, good[:57] + ALPHABET[(57 + 2) % 4] + good[58:])  # position 58 1-based
-    for call in (lambda: api.loglik(t, bad), lambda: api.posterior(t, bad),
-                 lambda: api.viterbi(t, bad), lambda: api.posterior(t, bad, block=5),
-                 lambda: api.viterbi(t, bad, block=5), lambda: api.viterbi(t, bad, block=1)):
+    for call in (
+        lambda: api.loglik(t, bad),
+        lambda: api.posterior(t, bad),
+        lambda: api.viterbi(t, bad),
+        lambda: api.posterior(t, bad, block=5),
+        lambda: api.viterbi(t, bad, block=5),
+        lambda: api.viterbi(t, bad, block=1),
+    ):
         with pytest.raises(ImpossibleSequenceError, match="position 58"):
             call()
     sp = api._sparse_of(t)
     lim = _limit(t)
-    assert sparse.forward_loglik(bad, sp.start, sp.end, sp.E, sp.w1, sp.f_ptr, sp.f_n0,
-                                 sp.f_dst, sp.f_src, sp.f_w, lim)[1] == _generic_loglik(t, bad)[1]
+    assert (
+        sparse.forward_loglik(
+            bad, sp.start, sp.end, sp.E, sp.w1, sp.f_ptr, sp.f_n0, sp.f_dst, sp.f_src, sp.f_w, lim
+        )[1]
+        == _generic_loglik(t, bad)[1]
+    )
     for block in (1, 5, 1000):
         path = np.empty(bad.shape[0], dtype=np.int16)
         bps = np.empty((min(block, bad.shape[0]), sp.n_multi + 1), dtype=sp.bp_dtype)
         got = sparse.viterbi_checkpointed(
-            bad, sp.log_start, sp.log_end, sp.logE, sp.perm, sp.inv, sp.la1, sp.f_ptr, sp.f_n0,
-            sp.f_dst, sp.f_src, sp.f_lp, sp.f_rank, sp.f_col, sp.tb_prev, sp.tb_col, sp.p_ptr,
-            sp.p_src, sp.p_lp, block, bps, path)
+            bad,
+            sp.log_start,
+            sp.log_end,
+            sp.logE,
+            sp.perm,
+            sp.inv,
+            sp.la1,
+            sp.f_ptr,
+            sp.f_n0,
+            sp.f_dst,
+            sp.f_src,
+            sp.f_lp,
+            sp.f_rank,
+            sp.f_col,
+            sp.tb_prev,
+            sp.tb_col,
+            sp.p_ptr,
+            sp.p_src,
+            sp.p_lp,
+            block,
+            bps,
+            path,
+        )
         assert got[1] == _generic_viterbi(t, bad, block)[2] == 57
 
 
@@ -774,8 +835,9 @@ def test_gene_segment_track_groups_posterior(specialised):
     ref_ll, ref_post = reference.forward_backward(t.start, t.transitions, t.end, lattice)
     p = api.posterior(t, codes, group=gi, n_groups=len(groups))
     # seqstate.engine.reference plain-NumPy oracle, summed per group
-    np.testing.assert_allclose(p.values, _group_oracle(ref_post, gi, len(groups)), rtol=0,
-                               atol=2e-7)
+    np.testing.assert_allclose(
+        p.values, _group_oracle(ref_post, gi, len(groups)), rtol=0, atol=2e-7
+    )
     assert abs(p.loglik - ref_ll) <= 1e-10 * abs(ref_ll)
 
 
@@ -817,13 +879,39 @@ def test_restricted_forward_masked_path_matches_plain_and_oracle(name):
         for mask in (labels == 0, labels != 0, np.ones(t.n_states, dtype=bool)):
             for use_e in (True, False):
                 got = np.empty(t.n_states)
-                lg = kernels.restricted_forward(codes, s0, e0, init, is_start, mask, use_e, t.E,
-                                                t.nz_ptr, t.nz_state, t.pred_ptr, t.pred_src,
-                                                t.pred_p, got)
+                lg = kernels.restricted_forward(
+                    codes,
+                    s0,
+                    e0,
+                    init,
+                    is_start,
+                    mask,
+                    use_e,
+                    t.E,
+                    t.nz_ptr,
+                    t.nz_state,
+                    t.pred_ptr,
+                    t.pred_src,
+                    t.pred_p,
+                    got,
+                )
                 plain = np.empty(t.n_states)
-                lp = kernels._restricted_plain(codes, s0, e0, init, is_start, mask, use_e, t.E,
-                                               t.nz_ptr, t.nz_state, t.pred_ptr, t.pred_src,
-                                               t.pred_p, plain)
+                lp = kernels._restricted_plain(
+                    codes,
+                    s0,
+                    e0,
+                    init,
+                    is_start,
+                    mask,
+                    use_e,
+                    t.E,
+                    t.nz_ptr,
+                    t.nz_state,
+                    t.pred_ptr,
+                    t.pred_src,
+                    t.pred_p,
+                    plain,
+                )
                 want = _restricted_oracle(t, codes, s0, e0, init, is_start, mask, use_e)
                 if want == -np.inf:
                     assert lg == lp == -np.inf
@@ -842,10 +930,17 @@ def _generic_segment_scores(monkeypatch, t, codes, queries, block):
     monkeypatch.setattr(api, "_USE_SMALL", False)
     assert api._sparse_of(t) is None  # really the generic path
     post = api.posterior(t, codes, block=block, dtype=np.float64)
-    out = [(api.segment_log_probability(t, codes, post, s0, e0, mask),
-            api.segment_log_odds(t, codes, post, s0, e0, mask)) for s0, e0, mask in queries]
-    vecs = [(api.forward_vector(t, codes, post, p), api.backward_vector(t, codes, post, p))
-            for p in range(0, codes.shape[0], 97)]
+    out = [
+        (
+            api.segment_log_probability(t, codes, post, s0, e0, mask),
+            api.segment_log_odds(t, codes, post, s0, e0, mask),
+        )
+        for s0, e0, mask in queries
+    ]
+    vecs = [
+        (api.forward_vector(t, codes, post, p), api.backward_vector(t, codes, post, p))
+        for p in range(0, codes.shape[0], 97)
+    ]
     monkeypatch.setattr(api, "_USE_SMALL", True)
     return out, vecs
 
@@ -858,8 +953,12 @@ def _same_score(x, y, tol=1e-10):
 
 def _segment_queries(t, model, rng, n, count):
     labels = model.label_index()
-    masks = [labels == 0, labels != 0, np.ones(t.n_states, dtype=bool),
-             rng.random(t.n_states) < 0.9]
+    masks = [
+        labels == 0,
+        labels != 0,
+        np.ones(t.n_states, dtype=bool),
+        rng.random(t.n_states) < 0.9,
+    ]
     out = [(0, 1, masks[0]), (0, n, masks[2]), (n - 1, n, masks[1]), (0, 37, masks[1])]
     for _ in range(count):
         s0 = int(rng.integers(0, n))
@@ -869,9 +968,15 @@ def _segment_queries(t, model, rng, n, count):
     return out
 
 
-@pytest.mark.parametrize("name,seed,n,block", [
-    ("chains", 51, 900, 64), ("chains", 52, 700, 1), ("gene-segment", 53, 3000, 200),
-    ("gene-segment", 54, 2500, None)])
+@pytest.mark.parametrize(
+    "name,seed,n,block",
+    [
+        ("chains", 51, 900, 64),
+        ("chains", 52, 700, 1),
+        ("gene-segment", 53, 3000, 200),
+        ("gene-segment", 54, 2500, None),
+    ],
+)
 def test_chain_sparse_segment_queries_equal_generic(monkeypatch, name, seed, n, block):
     """segment_log_probability / segment_log_odds / forward_vector / backward_vector on
     the chain-sparse path (which keeps the last recomputed vectors between queries)
@@ -889,8 +994,11 @@ def test_chain_sparse_segment_queries_equal_generic(monkeypatch, name, seed, n, 
     assert any(lp == -np.inf for lp, _ in want)  # and impossible ones
     post = api.posterior(t, codes, block=block, dtype=np.float64)
     assert "_sparse_cursor" not in post.__dict__
-    for order in (np.argsort([q[0] for q in queries], kind="stable"),
-                  np.arange(len(queries))[::-1], rng.permutation(len(queries))):
+    for order in (
+        np.argsort([q[0] for q in queries], kind="stable"),
+        np.arange(len(queries))[::-1],
+        rng.permutation(len(queries)),
+    ):
         for j in order:
             s0, e0, mask = queries[j]
             lp = api.segment_log_probability(t, codes, post, s0, e0, mask)
@@ -900,8 +1008,10 @@ def test_chain_sparse_segment_queries_equal_generic(monkeypatch, name, seed, n, 
             assert _same_score(lo, want[j][1]), (j, lo, want[j][1])
     assert "_sparse_cursor" in post.__dict__  # the chain-sparse path really ran
     for k, p in enumerate(range(0, n, 97)):
-        (fv, fl), (bv, bl) = api.forward_vector(t, codes, post, p), api.backward_vector(
-            t, codes, post, p)
+        (fv, fl), (bv, bl) = (
+            api.forward_vector(t, codes, post, p),
+            api.backward_vector(t, codes, post, p),
+        )
         (gfv, gfl), (gbv, gbl) = want_vecs[k]
         # generic kernels as oracle (vectors compared unscaled, relative to their maximum)
         _close_to_row_max(fv * np.exp(fl - gfl), gfv, 1e-10)
@@ -928,9 +1038,22 @@ def test_chain_sparse_restricted_equals_generic_kernel(specialised):
             for use_e in (True, False):
                 got, lg = api._restricted(t, codes, s0, e0, init, is_start, mask, use_e)
                 ref = np.empty(t.n_states)
-                rl = kernels.restricted_forward(codes, s0, e0, init, is_start, mask, use_e,
-                                                t.E, t.nz_ptr, t.nz_state, t.pred_ptr,
-                                                t.pred_src, t.pred_p, ref)
+                rl = kernels.restricted_forward(
+                    codes,
+                    s0,
+                    e0,
+                    init,
+                    is_start,
+                    mask,
+                    use_e,
+                    t.E,
+                    t.nz_ptr,
+                    t.nz_state,
+                    t.pred_ptr,
+                    t.pred_src,
+                    t.pred_p,
+                    ref,
+                )
                 if rl == -np.inf:
                     assert lg == -np.inf
                     continue

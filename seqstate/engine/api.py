@@ -154,7 +154,7 @@ def prepare(model: Model) -> EngineTables:
     for j in range(k + 1):
         rows = model.emissions if j == k else lower[j]  # (m, a**j, a)
         block = rows.reshape(m, a ** (j + 1)).T  # code-major
-        E[offsets[j]:offsets[j + 1], :] = block
+        E[offsets[j] : offsets[j + 1], :] = block
     E[n_codes - 1, :] = 1.0
     nz_ptr = np.zeros(n_codes + 1, dtype=np.int64)
     nz_list = []
@@ -171,19 +171,34 @@ def prepare(model: Model) -> EngineTables:
         if fold and ch.isalpha():
             lookup[ord(ch.lower())] = i
     return EngineTables(
-        n_states=m, n_symbols=a, order=k,
-        start=np.asarray(model.start, dtype=np.float64), end=end,
-        log_start=_log(model.start), log_end=_log(end),
-        pred_ptr=pred_ptr, pred_src=pred_src, pred_p=pred_p, pred_logp=_log(pred_p),
-        succ_ptr=succ_ptr, succ_dst=succ_dst, succ_p=succ_p,
-        E=np.ascontiguousarray(E), logE=np.ascontiguousarray(_log(E)),
-        nz_ptr=nz_ptr, nz_state=nz_state, offsets=offsets, unknown_code=n_codes - 1,
-        symbol_lookup=lookup, transitions=T,
+        n_states=m,
+        n_symbols=a,
+        order=k,
+        start=np.asarray(model.start, dtype=np.float64),
+        end=end,
+        log_start=_log(model.start),
+        log_end=_log(end),
+        pred_ptr=pred_ptr,
+        pred_src=pred_src,
+        pred_p=pred_p,
+        pred_logp=_log(pred_p),
+        succ_ptr=succ_ptr,
+        succ_dst=succ_dst,
+        succ_p=succ_p,
+        E=np.ascontiguousarray(E),
+        logE=np.ascontiguousarray(_log(E)),
+        nz_ptr=nz_ptr,
+        nz_state=nz_state,
+        offsets=offsets,
+        unknown_code=n_codes - 1,
+        symbol_lookup=lookup,
+        transitions=T,
     )
 
 
-def symbols_of(tables: EngineTables, seq: bytes | str | np.ndarray,
-               *, masked_unknown: bool = False) -> np.ndarray:
+def symbols_of(
+    tables: EngineTables, seq: bytes | str | np.ndarray, *, masked_unknown: bool = False
+) -> np.ndarray:
     """Symbol index per position (int8), -1 for anything outside the alphabet.
 
     Lowercase (soft-masked) bases read as their base unless ``masked_unknown``.
@@ -198,8 +213,9 @@ def symbols_of(tables: EngineTables, seq: bytes | str | np.ndarray,
     return sym
 
 
-def encode(tables: EngineTables, seq: bytes | str | np.ndarray,
-           *, masked_unknown: bool = False) -> np.ndarray:
+def encode(
+    tables: EngineTables, seq: bytes | str | np.ndarray, *, masked_unknown: bool = False
+) -> np.ndarray:
     """Emission codes of one record (see module docstring); smallest fitting unsigned dtype."""
     return encode_symbols(tables, symbols_of(tables, seq, masked_unknown=masked_unknown))
 
@@ -209,8 +225,9 @@ def encode_symbols(tables: EngineTables, sym: np.ndarray) -> np.ndarray:
     n_codes = tables.unknown_code + 1
     dtype = np.uint8 if n_codes <= 256 else np.uint16 if n_codes <= 65536 else np.int32
     out = np.empty(sym.shape[0], dtype=dtype)
-    kernels.encode_codes(sym, tables.order, tables.n_symbols, tables.offsets,
-                         tables.unknown_code, out)
+    kernels.encode_codes(
+        sym, tables.order, tables.n_symbols, tables.offsets, tables.unknown_code, out
+    )
     return out
 
 
@@ -220,15 +237,24 @@ def default_block(n: int) -> int:
 
 
 def _raise_impossible(tables: EngineTables, codes: np.ndarray, record: str | None) -> None:
-    _, pos = kernels.forward_loglik(codes, tables.start, tables.end, tables.E, tables.nz_ptr,
-                                    tables.nz_state, tables.pred_ptr, tables.pred_src,
-                                    tables.pred_p)
+    _, pos = kernels.forward_loglik(
+        codes,
+        tables.start,
+        tables.end,
+        tables.E,
+        tables.nz_ptr,
+        tables.nz_state,
+        tables.pred_ptr,
+        tables.pred_src,
+        tables.pred_p,
+    )
     name = f"record '{record}'" if record else "the record"
     if pos >= codes.shape[0] or pos < 0:
         msg = "no state that may end the sequence can be reached at its last base"
     else:
-        msg = ("has probability zero under the model: every state is impossible at "
-               f"position {pos + 1}")
+        msg = (
+            f"has probability zero under the model: every state is impossible at position {pos + 1}"
+        )
     raise ImpossibleSequenceError(f"{name} {msg}" if pos < codes.shape[0] else f"{name}: {msg}")
 
 
@@ -239,15 +265,36 @@ def loglik(tables: EngineTables, codes: np.ndarray, *, record: str | None = None
     sm = _small_of(tables)
     sp = _sparse_of(tables) if sm is None else None
     if sm is not None:
-        ll, pos = _small.forward_loglik(codes, sm.start, sm.end, sm.K, sm.st, sm.wide, sm.cls,
-                                        sm.W, sm.T, sm.E, sm.lim)
+        ll, pos = _small.forward_loglik(
+            codes, sm.start, sm.end, sm.K, sm.st, sm.wide, sm.cls, sm.W, sm.T, sm.E, sm.lim
+        )
     elif sp is not None:
-        ll, pos = _sparse.forward_loglik(codes, sp.start, sp.end, sp.E, sp.w1, sp.f_ptr,
-                                         sp.f_n0, sp.f_dst, sp.f_src, sp.f_w, _limit_of(tables))
+        ll, pos = _sparse.forward_loglik(
+            codes,
+            sp.start,
+            sp.end,
+            sp.E,
+            sp.w1,
+            sp.f_ptr,
+            sp.f_n0,
+            sp.f_dst,
+            sp.f_src,
+            sp.f_w,
+            _limit_of(tables),
+        )
     else:
-        ll, pos = kernels.forward_loglik(codes, tables.start, tables.end, tables.E,
-                                         tables.nz_ptr, tables.nz_state, tables.pred_ptr,
-                                         tables.pred_src, tables.pred_p, _limit_of(tables))
+        ll, pos = kernels.forward_loglik(
+            codes,
+            tables.start,
+            tables.end,
+            tables.E,
+            tables.nz_ptr,
+            tables.nz_state,
+            tables.pred_ptr,
+            tables.pred_src,
+            tables.pred_p,
+            _limit_of(tables),
+        )
     if pos >= 0:
         _raise_impossible(tables, codes, record)
     return ll
@@ -271,9 +318,16 @@ class Posterior:
     beta_ck_log: np.ndarray
 
 
-def posterior(tables: EngineTables, codes: np.ndarray, *, group: np.ndarray | None = None,
-              n_groups: int | None = None, block: int | None = None,
-              dtype=np.float32, record: str | None = None) -> Posterior:
+def posterior(
+    tables: EngineTables,
+    codes: np.ndarray,
+    *,
+    group: np.ndarray | None = None,
+    n_groups: int | None = None,
+    block: int | None = None,
+    dtype=np.float32,
+    record: str | None = None,
+) -> Posterior:
     """Posteriors summed by ``group`` (state -> column, -1 to drop); per state by default.
 
     Memory is O(block * M) for the dynamic programme plus the N x groups output,
@@ -305,27 +359,85 @@ def posterior(tables: EngineTables, codes: np.ndarray, *, group: np.ndarray | No
     if sm is not None:
         gc = _small.group_table(sm, group)
         ll, pos = _small.posterior_checkpointed(
-            codes, sm.start, sm.end, sm.K, sm.st, sm.wide, sm.cls, sm.W, sm.T, sm.E, block,
-            gc, out, alpha_ck, alpha_log, beta_ck, beta_log, sm.lim)
+            codes,
+            sm.start,
+            sm.end,
+            sm.K,
+            sm.st,
+            sm.wide,
+            sm.cls,
+            sm.W,
+            sm.T,
+            sm.E,
+            block,
+            gc,
+            out,
+            alpha_ck,
+            alpha_log,
+            beta_ck,
+            beta_log,
+            sm.lim,
+        )
     elif sp is not None:
         ll, pos = _sparse.posterior_checkpointed(
-            codes, sp.start, sp.end, sp.E, sp.perm, sp.w1, sp.f_ptr, sp.f_n0, sp.f_dst,
-            sp.f_src, sp.f_w, sp.v1, sp.b_ptr, sp.b_n0, sp.b_dst, sp.b_src, sp.b_w, block,
-            _sparse.group_runs(sp, group, n_groups), n_groups, out, alpha_ck, alpha_log,
-            beta_ck, beta_log, _limit_of(tables))
+            codes,
+            sp.start,
+            sp.end,
+            sp.E,
+            sp.perm,
+            sp.w1,
+            sp.f_ptr,
+            sp.f_n0,
+            sp.f_dst,
+            sp.f_src,
+            sp.f_w,
+            sp.v1,
+            sp.b_ptr,
+            sp.b_n0,
+            sp.b_dst,
+            sp.b_src,
+            sp.b_w,
+            block,
+            _sparse.group_runs(sp, group, n_groups),
+            n_groups,
+            out,
+            alpha_ck,
+            alpha_log,
+            beta_ck,
+            beta_log,
+            _limit_of(tables),
+        )
     else:
         ll, pos = kernels.posterior_checkpointed(
-            codes, tables.start, tables.end, tables.E, tables.nz_ptr, tables.nz_state,
-            tables.pred_ptr, tables.pred_src, tables.pred_p, tables.succ_ptr, tables.succ_dst,
-            tables.succ_p, block, group, out, alpha_ck, alpha_log, beta_ck, beta_log,
-            _limit_of(tables))
+            codes,
+            tables.start,
+            tables.end,
+            tables.E,
+            tables.nz_ptr,
+            tables.nz_state,
+            tables.pred_ptr,
+            tables.pred_src,
+            tables.pred_p,
+            tables.succ_ptr,
+            tables.succ_dst,
+            tables.succ_p,
+            block,
+            group,
+            out,
+            alpha_ck,
+            alpha_log,
+            beta_ck,
+            beta_log,
+            _limit_of(tables),
+        )
     if pos >= 0:
         _raise_impossible(tables, codes, record)
     return Posterior(ll, out, block, alpha_ck, alpha_log, beta_ck, beta_log)
 
 
-def viterbi(tables: EngineTables, codes: np.ndarray, *, block: int | None = None,
-            record: str | None = None) -> tuple[np.ndarray, float]:
+def viterbi(
+    tables: EngineTables, codes: np.ndarray, *, block: int | None = None, record: str | None = None
+) -> tuple[np.ndarray, float]:
     """Most probable path (int16/int32 state indices) and its log probability (natural log).
 
     Ties are broken towards the lowest state index at every step and at the end.
@@ -345,24 +457,67 @@ def viterbi(tables: EngineTables, codes: np.ndarray, *, block: int | None = None
     if sp is not None:
         bps = np.empty((min(block, n), sp.n_multi + 1), dtype=sp.bp_dtype)
         lp, pos = _sparse.viterbi_checkpointed(
-            codes, sp.log_start, sp.log_end, sp.logE, sp.perm, sp.inv, sp.la1, sp.f_ptr,
-            sp.f_n0, sp.f_dst, sp.f_src, sp.f_lp, sp.f_rank, sp.f_col, sp.tb_prev, sp.tb_col,
-            sp.p_ptr, sp.p_src, sp.p_lp, block, bps, path)
+            codes,
+            sp.log_start,
+            sp.log_end,
+            sp.logE,
+            sp.perm,
+            sp.inv,
+            sp.la1,
+            sp.f_ptr,
+            sp.f_n0,
+            sp.f_dst,
+            sp.f_src,
+            sp.f_lp,
+            sp.f_rank,
+            sp.f_col,
+            sp.tb_prev,
+            sp.tb_col,
+            sp.p_ptr,
+            sp.p_src,
+            sp.p_lp,
+            block,
+            bps,
+            path,
+        )
     elif sm is not None:
         lp, pos = _small.viterbi_checkpointed(
-            codes, sm.log_start, sm.log_end, sm.K, sm.st, sm.wide, sm.cls, sm.LT, sm.LE,
-            sm.logT, sm.logE, block, path)
+            codes,
+            sm.log_start,
+            sm.log_end,
+            sm.K,
+            sm.st,
+            sm.wide,
+            sm.cls,
+            sm.LT,
+            sm.LE,
+            sm.logT,
+            sm.logE,
+            block,
+            path,
+        )
     else:
         lp, pos = kernels.viterbi_checkpointed(
-            codes, tables.log_start, tables.log_end, tables.logE, tables.nz_ptr,
-            tables.nz_state, tables.pred_ptr, tables.pred_src, tables.pred_logp, block, path)
+            codes,
+            tables.log_start,
+            tables.log_end,
+            tables.logE,
+            tables.nz_ptr,
+            tables.nz_state,
+            tables.pred_ptr,
+            tables.pred_src,
+            tables.pred_logp,
+            block,
+            path,
+        )
     if pos >= 0:
         _raise_impossible(tables, codes, record)
     return path, lp
 
 
-def forward_vector(tables: EngineTables, codes: np.ndarray, post: Posterior,
-                   pos: int) -> tuple[np.ndarray, float]:
+def forward_vector(
+    tables: EngineTables, codes: np.ndarray, post: Posterior, pos: int
+) -> tuple[np.ndarray, float]:
     """Scaled forward vector at ``pos`` and its natural-log scale."""
     out = np.empty(tables.n_states)
     cur = _cursor_of(tables, codes, post)
@@ -370,14 +525,27 @@ def forward_vector(tables: EngineTables, codes: np.ndarray, post: Posterior,
         row, lg = cur.forward(pos)
         _sparse.from_slots(row, 0, cur.sp.perm, out)
         return out, lg
-    lg = kernels.vector_at(codes, pos, tables.start, tables.E, tables.nz_ptr, tables.nz_state,
-                           tables.pred_ptr, tables.pred_src, tables.pred_p, post.block,
-                           post.alpha_ck, post.alpha_ck_log, out)
+    lg = kernels.vector_at(
+        codes,
+        pos,
+        tables.start,
+        tables.E,
+        tables.nz_ptr,
+        tables.nz_state,
+        tables.pred_ptr,
+        tables.pred_src,
+        tables.pred_p,
+        post.block,
+        post.alpha_ck,
+        post.alpha_ck_log,
+        out,
+    )
     return out, lg
 
 
-def backward_vector(tables: EngineTables, codes: np.ndarray, post: Posterior,
-                    pos: int) -> tuple[np.ndarray, float]:
+def backward_vector(
+    tables: EngineTables, codes: np.ndarray, post: Posterior, pos: int
+) -> tuple[np.ndarray, float]:
     """Scaled backward vector at ``pos`` and its natural-log scale."""
     out = np.empty(tables.n_states)
     cur = _cursor_of(tables, codes, post)
@@ -385,9 +553,20 @@ def backward_vector(tables: EngineTables, codes: np.ndarray, post: Posterior,
         row, lg = cur.backward(pos)
         _sparse.from_slots(row, 0, cur.sp.perm, out)
         return out, lg
-    lg = kernels.backward_vector_at(codes, pos, tables.E, tables.nz_ptr, tables.nz_state,
-                                    tables.succ_ptr, tables.succ_dst, tables.succ_p, post.block,
-                                    post.beta_ck, post.beta_ck_log, out)
+    lg = kernels.backward_vector_at(
+        codes,
+        pos,
+        tables.E,
+        tables.nz_ptr,
+        tables.nz_state,
+        tables.succ_ptr,
+        tables.succ_dst,
+        tables.succ_p,
+        post.block,
+        post.beta_ck,
+        post.beta_ck_log,
+        out,
+    )
     return out, lg
 
 
@@ -399,21 +578,50 @@ def _restricted(tables, codes, start0, end0, init, init_is_start, mask, use_emis
         if not init_is_start:
             _sparse.to_slots(np.asarray(init, dtype=np.float64), sp.perm, row, 0)
         work = np.empty((2, m + 2))
-        lg = _sparse_restricted(tables, sp, codes, start0, end0, row, init_is_start,
-                                _mask_slots(sp, mask), use_emissions, work)
+        lg = _sparse_restricted(
+            tables,
+            sp,
+            codes,
+            start0,
+            end0,
+            row,
+            init_is_start,
+            _mask_slots(sp, mask),
+            use_emissions,
+            work,
+        )
         out = np.zeros(m)
         if lg > -np.inf:
             _sparse.from_slots(work, 0, sp.perm, out)
         return out, lg
     out = np.empty(tables.n_states)
-    lg = kernels.restricted_forward(codes, start0, end0, init, init_is_start, mask,
-                                    use_emissions, tables.E, tables.nz_ptr, tables.nz_state,
-                                    tables.pred_ptr, tables.pred_src, tables.pred_p, out)
+    lg = kernels.restricted_forward(
+        codes,
+        start0,
+        end0,
+        init,
+        init_is_start,
+        mask,
+        use_emissions,
+        tables.E,
+        tables.nz_ptr,
+        tables.nz_state,
+        tables.pred_ptr,
+        tables.pred_src,
+        tables.pred_p,
+        out,
+    )
     return out, lg
 
 
-def segment_log_probability(tables: EngineTables, codes: np.ndarray, post: Posterior,
-                            start0: int, end0: int, mask: np.ndarray) -> float:
+def segment_log_probability(
+    tables: EngineTables,
+    codes: np.ndarray,
+    post: Posterior,
+    start0: int,
+    end0: int,
+    mask: np.ndarray,
+) -> float:
     """log P(z_i in mask for every i in [start0, end0) | x), natural log; -inf if impossible.
 
     A forward pass restricted to the masked states between the bounds, joined to
@@ -431,8 +639,9 @@ def segment_log_probability(tables: EngineTables, codes: np.ndarray, post: Poste
         else:
             init, init_log = cur.forward(start0 - 1)
             is_start = False
-        lg = _sparse_restricted(tables, sp, codes, start0, end0, init, is_start,
-                                _mask_slots(sp, mask), True, cur.work)
+        lg = _sparse_restricted(
+            tables, sp, codes, start0, end0, init, is_start, _mask_slots(sp, mask), True, cur.work
+        )
         if lg == -np.inf:
             return -np.inf
         beta, blog = cur.backward(end0 - 1)
@@ -455,8 +664,14 @@ def segment_log_probability(tables: EngineTables, codes: np.ndarray, post: Poste
     return min(0.0, math.log(joint) + lg + init_log + blog - post.loglik)
 
 
-def segment_log_odds(tables: EngineTables, codes: np.ndarray, post: Posterior,
-                     start0: int, end0: int, mask: np.ndarray) -> float:
+def segment_log_odds(
+    tables: EngineTables,
+    codes: np.ndarray,
+    post: Posterior,
+    start0: int,
+    end0: int,
+    mask: np.ndarray,
+) -> float:
     """Natural-log odds of the segment's bases under the masked states against the rest.
 
     ``log P(x_seg | x_before, z_seg all in mask) - log P(x_seg | x_before, z_seg all
@@ -481,11 +696,13 @@ def segment_log_odds(tables: EngineTables, codes: np.ndarray, post: Posterior,
         terms = []
         for msk in (mask, ~mask):
             mf = _mask_slots(sp, msk)
-            l1 = _sparse_restricted(tables, sp, codes, start0, end0, init, is_start, mf, True,
-                                    cur.work)
+            l1 = _sparse_restricted(
+                tables, sp, codes, start0, end0, init, is_start, mf, True, cur.work
+            )
             s1 = _sparse.log_dot(cur.work, 0, cur.ones, 0) if l1 > -np.inf else -math.inf
-            l0 = _sparse_restricted(tables, sp, codes, start0, end0, init, is_start, mf,
-                                    False, cur.work)
+            l0 = _sparse_restricted(
+                tables, sp, codes, start0, end0, init, is_start, mf, False, cur.work
+            )
             if l0 == -np.inf:
                 terms.append(math.nan)
                 continue
@@ -616,8 +833,19 @@ class _Cursor:
             _sparse.to_slots(post.alpha_ck[bk], sp.perm, self.f, 0)
             self.f_pos, self.f_log = bk * post.block, float(post.alpha_ck_log[bk])
         if pos > self.f_pos:
-            ex = _sparse.forward_advance(self.codes, self.f_pos, pos, self.f, sp.w1, sp.f_ptr,
-                                         sp.f_n0, sp.f_dst, sp.f_src, sp.f_w, self.lim)
+            ex = _sparse.forward_advance(
+                self.codes,
+                self.f_pos,
+                pos,
+                self.f,
+                sp.w1,
+                sp.f_ptr,
+                sp.f_n0,
+                sp.f_dst,
+                sp.f_src,
+                sp.f_w,
+                self.lim,
+            )
             self.f_pos, self.f_log = pos, self.f_log + ex * _LN2
         return self.f, self.f_log
 
@@ -631,8 +859,19 @@ class _Cursor:
             self.b_pos = min(n, bk * post.block + post.block) - 1
             self.b_log = float(post.beta_ck_log[bk])
         if pos < self.b_pos:
-            ex = _sparse.backward_advance(self.codes, self.b_pos, pos, self.b, sp.v1, sp.b_ptr,
-                                          sp.b_n0, sp.b_dst, sp.b_src, sp.b_w, self.lim)
+            ex = _sparse.backward_advance(
+                self.codes,
+                self.b_pos,
+                pos,
+                self.b,
+                sp.v1,
+                sp.b_ptr,
+                sp.b_n0,
+                sp.b_dst,
+                sp.b_src,
+                sp.b_w,
+                self.lim,
+            )
             self.b_pos, self.b_log = pos, self.b_log + ex * _LN2
         return self.b, self.b_log
 
@@ -646,8 +885,14 @@ def _cursor_of(tables: EngineTables, codes: np.ndarray, post: Posterior):
     if sp is None:
         return None
     cur = post.__dict__.get("_sparse_cursor")
-    if (cur is None or cur.sp is not sp or cur.codes is not codes or cur.post is not post
-            or cur.alpha is not post.alpha_ck or cur.beta is not post.beta_ck):
+    if (
+        cur is None
+        or cur.sp is not sp
+        or cur.codes is not codes
+        or cur.post is not post
+        or cur.alpha is not post.alpha_ck
+        or cur.beta is not post.beta_ck
+    ):
         cur = _Cursor(tables, sp, codes, post)
         post.__dict__["_sparse_cursor"] = cur
     return cur
@@ -660,11 +905,27 @@ def _mask_slots(sp, mask: np.ndarray) -> np.ndarray:
     return out
 
 
-def _sparse_restricted(tables, sp, codes, start0, end0, init, init_is_start, maskf,
-                       use_emissions, work) -> float:
+def _sparse_restricted(
+    tables, sp, codes, start0, end0, init, init_is_start, maskf, use_emissions, work
+) -> float:
     """Restricted forward in slots (result in row 0 of ``work``); natural-log scale or -inf."""
-    ex = _sparse.restricted_forward(codes, start0, end0, init, init_is_start, maskf,
-                                    -1 if use_emissions else tables.unknown_code, sp.start,
-                                    sp.E, sp.w1, sp.f_ptr, sp.f_n0, sp.f_dst, sp.f_src, sp.f_w,
-                                    _limit_of(tables), work)
+    ex = _sparse.restricted_forward(
+        codes,
+        start0,
+        end0,
+        init,
+        init_is_start,
+        maskf,
+        -1 if use_emissions else tables.unknown_code,
+        sp.start,
+        sp.E,
+        sp.w1,
+        sp.f_ptr,
+        sp.f_n0,
+        sp.f_dst,
+        sp.f_src,
+        sp.f_w,
+        _limit_of(tables),
+        work,
+    )
     return ex if ex == -np.inf else ex * _LN2

@@ -54,6 +54,7 @@ def rescale_limit(smallest_factor: float) -> float:
         return RESCALE_BELOW
     return max(RESCALE_BELOW, SAFE_FLOOR / smallest_factor)
 
+
 _JIT = {"cache": True, "nogil": True, "error_model": "numpy"}
 
 
@@ -89,8 +90,7 @@ def _forward_step(X, xr, Y, yr, code, E, nz_ptr, nz_state, pred_ptr, pred_src, p
 
 
 @njit(**_JIT)
-def _backward_gather(X, xr, Y, yr, code_next, E, nz_ptr, nz_state, succ_ptr, succ_dst, succ_p,
-                     w):
+def _backward_gather(X, xr, Y, yr, code_next, E, nz_ptr, nz_state, succ_ptr, succ_dst, succ_p, w):
     """Y[yr, s] = sum_t a[s, t] E[code_next, t] X[xr, t] over successors; sum.  ``w`` scratch."""
     m = Y.shape[1]
     for s in range(m):
@@ -169,8 +169,7 @@ def _scatter_codes(nz_ptr, nz_state, pred_ptr, n_trans):
 
 
 @njit(**_JIT)
-def _backward_scatter(X, xr, Y, yr, code_next, E, nz_ptr, nz_state, pred_ptr, pred_src,
-                      pred_p):
+def _backward_scatter(X, xr, Y, yr, code_next, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p):
     """The sums of :func:`_backward_gather`, scattered from the emitting states only.
 
     Costs the transitions into the states that can emit ``code_next`` instead of
@@ -220,8 +219,9 @@ def _scale(Y, yr, total):
 
 # ----------------------------------------------------------------- forward
 @njit(**_JIT)
-def forward_loglik(codes, start, end, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p,
-                   lim=RESCALE_BELOW):
+def forward_loglik(
+    codes, start, end, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p, lim=RESCALE_BELOW
+):
     """Total log-likelihood (natural log) of one record; returns (loglik, fail_position)."""
     n = codes.shape[0]
     m = start.shape[0]
@@ -236,8 +236,9 @@ def forward_loglik(codes, start, end, E, nz_ptr, nz_state, pred_ptr, pred_src, p
     src = 0
     for i in range(1, n):
         dst = 1 - src
-        total = _forward_step(rows, src, rows, dst, codes[i], E, nz_ptr, nz_state, pred_ptr,
-                              pred_src, pred_p)
+        total = _forward_step(
+            rows, src, rows, dst, codes[i], E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p
+        )
         if total < lim:
             if total == 0.0:
                 return -np.inf, i
@@ -254,10 +255,28 @@ def forward_loglik(codes, start, end, E, nz_ptr, nz_state, pred_ptr, pred_src, p
 
 # ----------------------------------------------------------------- posterior
 @njit(**_JIT)
-def posterior_checkpointed(codes, start, end, E, nz_ptr, nz_state, pred_ptr, pred_src,
-                           pred_p, succ_ptr, succ_dst, succ_p, block, group, out,
-                           alpha_ck, alpha_ck_log, beta_ck, beta_ck_log,
-                           lim=RESCALE_BELOW):
+def posterior_checkpointed(
+    codes,
+    start,
+    end,
+    E,
+    nz_ptr,
+    nz_state,
+    pred_ptr,
+    pred_src,
+    pred_p,
+    succ_ptr,
+    succ_dst,
+    succ_p,
+    block,
+    group,
+    out,
+    alpha_ck,
+    alpha_ck_log,
+    beta_ck,
+    beta_ck_log,
+    lim=RESCALE_BELOW,
+):
     """Posterior P(z_i = s | x) summed into ``out[i, group[s]]`` (group -1 = not written).
 
     Memory: O(block * M) working space plus the checkpoints.  Pass 1 runs backward
@@ -297,11 +316,13 @@ def posterior_checkpointed(codes, start, end, E, nz_ptr, nz_state, pred_ptr, pre
         dst = 1 - src
         cn = codes[i + 1]
         if scatter[cn]:
-            bsum = _backward_scatter(rows, src, rows, dst, cn, E, nz_ptr, nz_state, pred_ptr,
-                                     pred_src, pred_p)
+            bsum = _backward_scatter(
+                rows, src, rows, dst, cn, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p
+            )
         else:
-            bsum = _backward_gather(rows, src, rows, dst, cn, E, nz_ptr, nz_state, succ_ptr,
-                                    succ_dst, succ_p, w)
+            bsum = _backward_gather(
+                rows, src, rows, dst, cn, E, nz_ptr, nz_state, succ_ptr, succ_dst, succ_p, w
+            )
         if bsum < lim:
             if bsum == 0.0:
                 return -np.inf, i + 1
@@ -330,11 +351,13 @@ def posterior_checkpointed(codes, start, end, E, nz_ptr, nz_state, pred_ptr, pre
             r = i - b0
             cn = codes[i + 1]
             if scatter[cn]:
-                bsum = _backward_scatter(buf, r + 1, buf, r, cn, E, nz_ptr, nz_state, pred_ptr,
-                                         pred_src, pred_p)
+                bsum = _backward_scatter(
+                    buf, r + 1, buf, r, cn, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p
+                )
             else:
-                bsum = _backward_gather(buf, r + 1, buf, r, cn, E, nz_ptr, nz_state, succ_ptr,
-                                        succ_dst, succ_p, w)
+                bsum = _backward_gather(
+                    buf, r + 1, buf, r, cn, E, nz_ptr, nz_state, succ_ptr, succ_dst, succ_p, w
+                )
             if bsum < lim and bsum > 0.0:
                 _scale(buf, r, bsum)
         for i in range(b0, b1):
@@ -343,8 +366,9 @@ def posterior_checkpointed(codes, start, end, E, nz_ptr, nz_state, pred_ptr, pre
                 total = _first(start, fw, 0, codes[0], E, nz_ptr, nz_state)
             else:
                 fdst = 1 - fsrc
-                total = _forward_step(fw, fsrc, fw, fdst, codes[i], E, nz_ptr, nz_state,
-                                      pred_ptr, pred_src, pred_p)
+                total = _forward_step(
+                    fw, fsrc, fw, fdst, codes[i], E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p
+                )
                 fsrc = fdst
             if total < lim:
                 if total == 0.0:
@@ -384,8 +408,21 @@ def posterior_checkpointed(codes, start, end, E, nz_ptr, nz_state, pred_ptr, pre
 
 # ----------------------------------------------------------------- segments
 @njit(**_JIT)
-def vector_at(codes, pos, start, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p, block,
-              alpha_ck, alpha_ck_log, out):
+def vector_at(
+    codes,
+    pos,
+    start,
+    E,
+    nz_ptr,
+    nz_state,
+    pred_ptr,
+    pred_src,
+    pred_p,
+    block,
+    alpha_ck,
+    alpha_ck_log,
+    out,
+):
     """Forward vector at ``pos`` recomputed from the nearest checkpoint; returns its log scale.
 
     ``out * exp(returned log scale)`` is the unscaled forward probability
@@ -402,11 +439,13 @@ def vector_at(codes, pos, start, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p
     for i in range(bk * block + 1, pos + 1):
         dst = 1 - src
         if wide:
-            total = _forward_step_wide(rows, src, rows, dst, codes[i], E, pred_ptr, pred_src,
-                                       pred_p)
+            total = _forward_step_wide(
+                rows, src, rows, dst, codes[i], E, pred_ptr, pred_src, pred_p
+            )
         else:
-            total = _forward_step(rows, src, rows, dst, codes[i], E, nz_ptr, nz_state,
-                                  pred_ptr, pred_src, pred_p)
+            total = _forward_step(
+                rows, src, rows, dst, codes[i], E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p
+            )
         if total < RESCALE_BELOW and total > 0.0:
             _scale(rows, dst, total)
             logscale += math.log(total)
@@ -417,8 +456,9 @@ def vector_at(codes, pos, start, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p
 
 
 @njit(**_JIT)
-def backward_vector_at(codes, pos, E, nz_ptr, nz_state, succ_ptr, succ_dst, succ_p, block,
-                       beta_ck, beta_ck_log, out):
+def backward_vector_at(
+    codes, pos, E, nz_ptr, nz_state, succ_ptr, succ_dst, succ_p, block, beta_ck, beta_ck_log, out
+):
     """Backward vector at ``pos`` recomputed from its block's checkpoint; returns its log scale."""
     n = codes.shape[0]
     m = out.shape[0]
@@ -434,11 +474,24 @@ def backward_vector_at(codes, pos, E, nz_ptr, nz_state, succ_ptr, succ_dst, succ
     for i in range(b1 - 2, pos - 1, -1):
         dst = 1 - src
         if wide:
-            total = _backward_gather_wide(rows, src, rows, dst, codes[i + 1], E, succ_ptr,
-                                          succ_dst, succ_p, w)
+            total = _backward_gather_wide(
+                rows, src, rows, dst, codes[i + 1], E, succ_ptr, succ_dst, succ_p, w
+            )
         else:
-            total = _backward_gather(rows, src, rows, dst, codes[i + 1], E, nz_ptr, nz_state,
-                                     succ_ptr, succ_dst, succ_p, w)
+            total = _backward_gather(
+                rows,
+                src,
+                rows,
+                dst,
+                codes[i + 1],
+                E,
+                nz_ptr,
+                nz_state,
+                succ_ptr,
+                succ_dst,
+                succ_p,
+                w,
+            )
         if total < RESCALE_BELOW and total > 0.0:
             _scale(rows, dst, total)
             logscale += math.log(total)
@@ -449,8 +502,9 @@ def backward_vector_at(codes, pos, E, nz_ptr, nz_state, succ_ptr, succ_dst, succ
 
 
 @njit(**_JIT)
-def _restricted_masked(codes, s0, e0, init, init_is_start, mask, use_emissions, E, pred_ptr,
-                       pred_src, pred_p, out):
+def _restricted_masked(
+    codes, s0, e0, init, init_is_start, mask, use_emissions, E, pred_ptr, pred_src, pred_p, out
+):
     """:func:`restricted_forward` for large models: the same values up to rounding.
 
     The masked states and, for each, its masked predecessors are listed once per
@@ -540,8 +594,22 @@ def _restricted_masked(codes, s0, e0, init, init_is_start, mask, use_emissions, 
 
 
 @njit(**_JIT)
-def restricted_forward(codes, s0, e0, init, init_is_start, mask, use_emissions, E, nz_ptr,
-                       nz_state, pred_ptr, pred_src, pred_p, out):
+def restricted_forward(
+    codes,
+    s0,
+    e0,
+    init,
+    init_is_start,
+    mask,
+    use_emissions,
+    E,
+    nz_ptr,
+    nz_state,
+    pred_ptr,
+    pred_src,
+    pred_p,
+    out,
+):
     """Forward over positions s0..e0-1 through the states with ``mask[s]`` only.
 
     ``init`` is the start vector (``init_is_start``) or the unrestricted forward
@@ -552,15 +620,55 @@ def restricted_forward(codes, s0, e0, init, init_is_start, mask, use_emissions, 
     :data:`RESTRICTED_MASKED_MIN` states run :func:`_restricted_masked`.
     """
     if init.shape[0] >= RESTRICTED_MASKED_MIN:
-        return _restricted_masked(codes, s0, e0, init, init_is_start, mask, use_emissions, E,
-                                  pred_ptr, pred_src, pred_p, out)
-    return _restricted_plain(codes, s0, e0, init, init_is_start, mask, use_emissions, E,
-                             nz_ptr, nz_state, pred_ptr, pred_src, pred_p, out)
+        return _restricted_masked(
+            codes,
+            s0,
+            e0,
+            init,
+            init_is_start,
+            mask,
+            use_emissions,
+            E,
+            pred_ptr,
+            pred_src,
+            pred_p,
+            out,
+        )
+    return _restricted_plain(
+        codes,
+        s0,
+        e0,
+        init,
+        init_is_start,
+        mask,
+        use_emissions,
+        E,
+        nz_ptr,
+        nz_state,
+        pred_ptr,
+        pred_src,
+        pred_p,
+        out,
+    )
 
 
 @njit(**_JIT)
-def _restricted_plain(codes, s0, e0, init, init_is_start, mask, use_emissions, E, nz_ptr,
-                      nz_state, pred_ptr, pred_src, pred_p, out):
+def _restricted_plain(
+    codes,
+    s0,
+    e0,
+    init,
+    init_is_start,
+    mask,
+    use_emissions,
+    E,
+    nz_ptr,
+    nz_state,
+    pred_ptr,
+    pred_src,
+    pred_p,
+    out,
+):
     """:func:`restricted_forward` for small models: the emitting masked states only."""
     m = init.shape[0]
     a = np.zeros(m)
@@ -619,8 +727,7 @@ def _restricted_plain(codes, s0, e0, init, init_is_start, mask, use_emissions, E
 
 # ----------------------------------------------------------------- Viterbi
 @njit(**_JIT)
-def _viterbi_step(X, xr, Y, yr, B, br, code, logE, nz_ptr, nz_state, pred_ptr, pred_src,
-                  pred_logp):
+def _viterbi_step(X, xr, Y, yr, B, br, code, logE, nz_ptr, nz_state, pred_ptr, pred_src, pred_logp):
     """One max-product step in log space into Y[yr] with back-pointers B[br]; lowest index wins."""
     m = Y.shape[1]
     for s in range(m):
@@ -647,8 +754,9 @@ def _viterbi_step(X, xr, Y, yr, B, br, code, logE, nz_ptr, nz_state, pred_ptr, p
 
 
 @njit(**_JIT)
-def viterbi_checkpointed(codes, log_start, log_end, logE, nz_ptr, nz_state, pred_ptr, pred_src,
-                         pred_logp, block, path):
+def viterbi_checkpointed(
+    codes, log_start, log_end, logE, nz_ptr, nz_state, pred_ptr, pred_src, pred_logp, block, path
+):
     """Most probable state path into ``path``; returns (log probability, fail_position).
 
     Log space (natural log), no scaling.  Ties: at every step the from-state with
@@ -680,8 +788,21 @@ def viterbi_checkpointed(codes, log_start, log_end, logE, nz_ptr, nz_state, pred
     ckpos = block
     for i in range(1, n):
         dst = 1 - src
-        anyv = _viterbi_step(rows, src, rows, dst, bp1, 0, codes[i], logE, nz_ptr, nz_state,
-                             pred_ptr, pred_src, pred_logp)
+        anyv = _viterbi_step(
+            rows,
+            src,
+            rows,
+            dst,
+            bp1,
+            0,
+            codes[i],
+            logE,
+            nz_ptr,
+            nz_state,
+            pred_ptr,
+            pred_src,
+            pred_logp,
+        )
         if anyv == -np.inf:
             return -np.inf, i
         src = dst
@@ -708,8 +829,21 @@ def viterbi_checkpointed(codes, log_start, log_end, logE, nz_ptr, nz_state, pred
             rows[0, s] = ck[bk, s]
         for i in range(b0 + 1, b1):
             dst = 1 - src
-            _viterbi_step(rows, src, rows, dst, bps, i - b0, codes[i], logE, nz_ptr, nz_state,
-                          pred_ptr, pred_src, pred_logp)
+            _viterbi_step(
+                rows,
+                src,
+                rows,
+                dst,
+                bps,
+                i - b0,
+                codes[i],
+                logE,
+                nz_ptr,
+                nz_state,
+                pred_ptr,
+                pred_src,
+                pred_logp,
+            )
             src = dst
         if bk < nblocks - 1:
             # state at b1 is known (path[b1]); pick its predecessor at b1 - 1

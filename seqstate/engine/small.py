@@ -97,7 +97,7 @@ def build(tables) -> SmallTables | None:
     K = emit.sum(axis=1).astype(np.int64)
     wide = K > 2
     k = tables.order
-    if wide[int(tables.offsets[k]):int(tables.offsets[k + 1])].any():
+    if wide[int(tables.offsets[k]) : int(tables.offsets[k + 1])].any():
         return None
     kmax = max(2, int(K.max()))
     # emitting states in increasing order first (stable sort), padded with the first
@@ -106,8 +106,9 @@ def build(tables) -> SmallTables | None:
     st = np.where(slot < K[:, None], order, order[:, :1]).astype(np.int64)
     # classes of the narrow codes' emitting sets
     narrow_codes = np.flatnonzero(~wide)
-    _, first, inverse = np.unique(emit[narrow_codes], axis=0, return_index=True,
-                                  return_inverse=True)
+    _, first, inverse = np.unique(
+        emit[narrow_codes], axis=0, return_index=True, return_inverse=True
+    )
     cls = np.zeros(n_codes, dtype=np.int64)
     cls[narrow_codes] = inverse.reshape(-1)
     reps = narrow_codes[first].tolist()
@@ -135,15 +136,28 @@ def build(tables) -> SmallTables | None:
         for j in range(int(K[rp])):
             s_j = st[rp, j]
             # W[q, c, 2j + k] = T[s_j, st[c, k]] * E[c, st[c, k]]
-            W[q, :, 2 * j:2 * j + 2] = np.where(narrow[:, None], T[s_j][st2] * e2, 0.0)
+            W[q, :, 2 * j : 2 * j + 2] = np.where(narrow[:, None], T[s_j][st2] * e2, 0.0)
             for k in range(2):
                 ok = k < K[rep]
                 LT[q, :, 2 * j + k] = np.where(ok, logT[s_j][st[rep, k]], -np.inf)
     return SmallTables(
-        n_states=m, K=K, st=st, wide=wide, cls=cls, W=W, LT=LT, LE=LE,
-        T=np.ascontiguousarray(T), logT=np.ascontiguousarray(logT),
-        E=tables.E, logE=tables.logE, start=tables.start, end=tables.end,
-        log_start=tables.log_start, log_end=tables.log_end, kmax=kmax,
+        n_states=m,
+        K=K,
+        st=st,
+        wide=wide,
+        cls=cls,
+        W=W,
+        LT=LT,
+        LE=LE,
+        T=np.ascontiguousarray(T),
+        logT=np.ascontiguousarray(logT),
+        E=tables.E,
+        logE=tables.logE,
+        start=tables.start,
+        end=tables.end,
+        log_start=tables.log_start,
+        log_end=tables.log_end,
+        kmax=kmax,
         sources=(tables.E, tables.transitions, tables.start, tables.end),
         lim=rescale_limit(smallest_factor(tables)),
     )
@@ -162,8 +176,7 @@ def smallest_factor(tables) -> float:
 def still_valid(small: SmallTables, tables) -> bool:
     """True while ``tables`` still holds the very arrays ``small`` was built from."""
     a, b, c, d = small.sources
-    return (a is tables.E and b is tables.transitions and c is tables.start
-            and d is tables.end)
+    return a is tables.E and b is tables.transitions and c is tables.start and d is tables.end
 
 
 def group_table(small: SmallTables, group: np.ndarray) -> np.ndarray:
@@ -325,8 +338,26 @@ def forward_loglik(codes, start, end, K, st, wide, cls, W, T, E, lim=RESCALE_BEL
 
 # ----------------------------------------------------------------- posterior
 @njit(**_JIT)
-def posterior_checkpointed(codes, start, end, K, st, wide, cls, W, T, E, block, gc, out,
-                           alpha_ck, alpha_ck_log, beta_ck, beta_ck_log, lim=RESCALE_BELOW):
+def posterior_checkpointed(
+    codes,
+    start,
+    end,
+    K,
+    st,
+    wide,
+    cls,
+    W,
+    T,
+    E,
+    block,
+    gc,
+    out,
+    alpha_ck,
+    alpha_ck_log,
+    beta_ck,
+    beta_ck_log,
+    lim=RESCALE_BELOW,
+):
     """Posteriors summed into ``out[i, gc[codes[i], j]]``; same contract as the generic kernel.
 
     ``gc`` comes from :func:`group_table`.  Pass 1 runs backward over the record
@@ -575,8 +606,9 @@ def posterior_checkpointed(codes, start, end, K, st, wide, cls, W, T, E, block, 
 
 # ----------------------------------------------------------------- Viterbi
 @njit(**_JIT)
-def viterbi_checkpointed(codes, log_start, log_end, K, st, wide, cls, LT, LE, logT, logE,
-                         block, path):
+def viterbi_checkpointed(
+    codes, log_start, log_end, K, st, wide, cls, LT, LE, logT, logE, block, path
+):
     """Most probable path into ``path``; (log probability, fail_position), generic tie rule.
 
     The compact delta vector is kept at the first position of every block; the

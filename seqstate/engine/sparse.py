@@ -191,8 +191,7 @@ def _per_code(dst, weights, kept):
     """
     n_codes, n_moves = weights.shape
     if n_moves == 0:
-        return (np.zeros(n_codes + 1, np.int64), np.zeros(n_codes, np.int64),
-                np.zeros(0, np.int64))
+        return (np.zeros(n_codes + 1, np.int64), np.zeros(n_codes, np.int64), np.zeros(0, np.int64))
     # state j of each move (moves of one state are consecutive)
     new_state = np.r_[True, dst[1:] != dst[:-1]]
     j_of = np.cumsum(new_state) - 1
@@ -282,8 +281,7 @@ def build(tables, key=None) -> SparseTables:
         b_p_l += sv[lo:hi][order].tolist()
     b_dst_a = np.array(b_dst_l, dtype=np.int64)
     b_src_a = np.array(b_src_l, dtype=np.int64)
-    weights = (np.array(b_p_l)[None, :] * E[:, b_src_a - 1] if b_dst_l
-               else np.zeros((n_codes, 0)))
+    weights = np.array(b_p_l)[None, :] * E[:, b_src_a - 1] if b_dst_l else np.zeros((n_codes, 0))
     b_ptr, b_n0, sel = _per_code(b_dst_a, weights, E[:, b_src_a - 1] > 0)
     b_dst = b_dst_a[sel].astype(np.int32)
     b_src = b_src_a[sel].astype(np.int32)
@@ -305,11 +303,33 @@ def build(tables, key=None) -> SparseTables:
         tb_col[t] = k
     max_in = int(indeg.max()) if m else 0
     return SparseTables(
-        n_states=m, perm=perm, inv=inv, w1=w1, la1=la1, f_ptr=f_ptr, f_n0=f_n0, f_dst=f_dst,
-        f_src=f_src, f_w=f_w, f_lp=f_lp, f_rank=f_rank, f_col=f_col, n_multi=n_multi, v1=v1,
-        b_ptr=b_ptr, b_n0=b_n0, b_dst=b_dst, b_src=b_src, b_w=b_w, tb_prev=tb_prev,
-        tb_col=tb_col, p_ptr=p_ptr, p_src=np.concatenate(p_src_l).astype(np.int64),
-        p_lp=np.concatenate(p_lp_l).astype(np.float64), E=E, logE=logE,
+        n_states=m,
+        perm=perm,
+        inv=inv,
+        w1=w1,
+        la1=la1,
+        f_ptr=f_ptr,
+        f_n0=f_n0,
+        f_dst=f_dst,
+        f_src=f_src,
+        f_w=f_w,
+        f_lp=f_lp,
+        f_rank=f_rank,
+        f_col=f_col,
+        n_multi=n_multi,
+        v1=v1,
+        b_ptr=b_ptr,
+        b_n0=b_n0,
+        b_dst=b_dst,
+        b_src=b_src,
+        b_w=b_w,
+        tb_prev=tb_prev,
+        tb_col=tb_col,
+        p_ptr=p_ptr,
+        p_src=np.concatenate(p_src_l).astype(np.int64),
+        p_lp=np.concatenate(p_lp_l).astype(np.float64),
+        E=E,
+        logE=logE,
         start=np.ascontiguousarray(tables.start[perm]),
         end=np.ascontiguousarray(tables.end[perm]),
         log_start=np.ascontiguousarray(tables.log_start[perm]),
@@ -322,8 +342,7 @@ def build(tables, key=None) -> SparseTables:
 def still_valid(sp: SparseTables, tables) -> bool:
     """True while ``tables`` still holds the very arrays ``sp`` was built from."""
     a, b, c, d = sp.sources
-    return (a is tables.E and b is tables.transitions and c is tables.start
-            and d is tables.end)
+    return a is tables.E and b is tables.transitions and c is tables.start and d is tables.end
 
 
 #: Posteriors with at most this many output columns get a numbering of their own in which
@@ -347,8 +366,9 @@ def group_runs(sp: SparseTables, group: np.ndarray, n_groups: int) -> np.ndarray
     m = key.shape[0]
     starts = np.flatnonzero(np.r_[True, key[1:] != key[:-1]]) if m else np.zeros(0, np.int64)
     ends = np.r_[starts[1:], m]
-    return np.ascontiguousarray(np.stack([starts + 1, ends + 1, key[starts]], axis=1),
-                                dtype=np.int64)
+    return np.ascontiguousarray(
+        np.stack([starts + 1, ends + 1, key[starts]], axis=1), dtype=np.int64
+    )
 
 
 # ----------------------------------------------------------------- helpers
@@ -445,8 +465,7 @@ def _first(S, yr, c, m, start, E):
 
 # ----------------------------------------------------------------- forward
 @njit(**_JIT)
-def forward_loglik(codes, start, end, E, w1, f_ptr, f_n0, f_dst, f_src, f_w,
-                   lim=RESCALE_BELOW):
+def forward_loglik(codes, start, end, E, w1, f_ptr, f_n0, f_dst, f_src, f_w, lim=RESCALE_BELOW):
     """Total log-likelihood (natural log); (loglik, fail_position) as the generic kernel."""
     n = codes.shape[0]
     m = start.shape[0]
@@ -478,9 +497,34 @@ def forward_loglik(codes, start, end, E, w1, f_ptr, f_n0, f_dst, f_src, f_w,
 
 # ----------------------------------------------------------------- posterior
 @njit(**_JIT)
-def posterior_checkpointed(codes, start, end, E, perm, w1, f_ptr, f_n0, f_dst, f_src, f_w,
-                           v1, b_ptr, b_n0, b_dst, b_src, b_w, block, runs, n_groups, out,
-                           alpha_ck, alpha_ck_log, beta_ck, beta_ck_log, lim=RESCALE_BELOW):
+def posterior_checkpointed(
+    codes,
+    start,
+    end,
+    E,
+    perm,
+    w1,
+    f_ptr,
+    f_n0,
+    f_dst,
+    f_src,
+    f_w,
+    v1,
+    b_ptr,
+    b_n0,
+    b_dst,
+    b_src,
+    b_w,
+    block,
+    runs,
+    n_groups,
+    out,
+    alpha_ck,
+    alpha_ck_log,
+    beta_ck,
+    beta_ck_log,
+    lim=RESCALE_BELOW,
+):
     """Posteriors summed per group into ``out[i, k]``; contract of the generic kernel.
 
     ``runs`` (see :func:`group_runs`): slot ranges ``[lo, hi)`` and their output
@@ -553,8 +597,7 @@ def posterior_checkpointed(codes, start, end, E, perm, w1, f_ptr, f_n0, f_dst, f
                 fsrc = 0
             else:
                 fdst = 1 - fsrc
-                _step(fwd, fsrc, fwd, fdst, codes[i], m, 0, w1, f_ptr, f_n0, f_dst, f_src,
-                      f_w)
+                _step(fwd, fsrc, fwd, fdst, codes[i], m, 0, w1, f_ptr, f_n0, f_dst, f_src, f_w)
                 fsrc = fdst
             mx = _maxbits(fi, fsrc, 1, m + 1)
             if mx < limbits:
@@ -624,9 +667,30 @@ def _all_impossible(R, r, m):
 
 
 @njit(**_JIT)
-def viterbi_checkpointed(codes, log_start, log_end, logE, perm, inv, la1, f_ptr, f_n0, f_dst,
-                         f_src, f_lp, f_rank, f_col, tb_prev, tb_col, p_ptr, p_src, p_lp,
-                         block, bps, path):
+def viterbi_checkpointed(
+    codes,
+    log_start,
+    log_end,
+    logE,
+    perm,
+    inv,
+    la1,
+    f_ptr,
+    f_n0,
+    f_dst,
+    f_src,
+    f_lp,
+    f_rank,
+    f_col,
+    tb_prev,
+    tb_col,
+    p_ptr,
+    p_src,
+    p_lp,
+    block,
+    bps,
+    path,
+):
     """Most probable path (original state indices) into ``path``; (log probability, fail).
 
     Same values, paths and tie rule as :func:`seqstate.engine.kernels.viterbi_checkpointed`.
@@ -653,8 +717,25 @@ def viterbi_checkpointed(codes, log_start, log_end, logE, perm, inv, la1, f_ptr,
         # back-pointers of position i in row i - b0; the checkpoint is the row at b0
         for i in range(max(b0, 1), b1):
             dst = 1 - src
-            _vit(rows, src, rows, dst, bps, i - b0, codes[i], m, la1, logE, f_ptr, f_n0,
-                 f_dst, f_src, f_lp, f_rank, f_col)
+            _vit(
+                rows,
+                src,
+                rows,
+                dst,
+                bps,
+                i - b0,
+                codes[i],
+                m,
+                la1,
+                logE,
+                f_ptr,
+                f_n0,
+                f_dst,
+                f_src,
+                f_lp,
+                f_rank,
+                f_col,
+            )
             src = dst
             if i == b0:
                 for s in range(m + 2):
@@ -669,8 +750,25 @@ def viterbi_checkpointed(codes, log_start, log_end, logE, perm, inv, la1, f_ptr,
             src = 0
             for i in range(k * block + 1, b1):
                 dst = 1 - src
-                _vit(rows, src, rows, dst, bps, 0, codes[i], m, la1, logE, f_ptr, f_n0,
-                     f_dst, f_src, f_lp, f_rank, f_col)
+                _vit(
+                    rows,
+                    src,
+                    rows,
+                    dst,
+                    bps,
+                    0,
+                    codes[i],
+                    m,
+                    la1,
+                    logE,
+                    f_ptr,
+                    f_n0,
+                    f_dst,
+                    f_src,
+                    f_lp,
+                    f_rank,
+                    f_col,
+                )
                 src = dst
                 if _all_impossible(rows, dst, m):
                     return -np.inf, i
@@ -695,8 +793,25 @@ def viterbi_checkpointed(codes, log_start, log_end, logE, perm, inv, la1, f_ptr,
             src = 0
             for i in range(b0 + 1, b1):
                 dst = 1 - src
-                _vit(rows, src, rows, dst, bps, i - b0, codes[i], m, la1, logE, f_ptr, f_n0,
-                     f_dst, f_src, f_lp, f_rank, f_col)
+                _vit(
+                    rows,
+                    src,
+                    rows,
+                    dst,
+                    bps,
+                    i - b0,
+                    codes[i],
+                    m,
+                    la1,
+                    logE,
+                    f_ptr,
+                    f_n0,
+                    f_dst,
+                    f_src,
+                    f_lp,
+                    f_rank,
+                    f_col,
+                )
                 src = dst
             # the state at b1 is known; its predecessor at b1 - 1 (same rule as a step)
             if tb_prev[state] >= 0:
@@ -801,8 +916,25 @@ def backward_advance(codes, i0, i1, R, v1, b_ptr, b_n0, b_dst, b_src, b_w, lim):
 
 
 @njit(**_JIT)
-def restricted_forward(codes, s0, e0, init, init_is_start, maskf, code, start, E, w1, f_ptr,
-                       f_n0, f_dst, f_src, f_w, lim, W):
+def restricted_forward(
+    codes,
+    s0,
+    e0,
+    init,
+    init_is_start,
+    maskf,
+    code,
+    start,
+    E,
+    w1,
+    f_ptr,
+    f_n0,
+    f_dst,
+    f_src,
+    f_w,
+    lim,
+    W,
+):
     """Forward over positions s0..e0-1 through the states whose slot has ``maskf`` 1.
 
     ``init`` is row 0 of an (x, M + 2) array holding the unrestricted forward vector

@@ -241,8 +241,7 @@ def _records_of(data: bytes, shown: str, check: bool, seen: dict[str, int]) -> I
         line_end = data.find(b"\n", first_text)
         raw = data[first_text : line_end if line_end >= 0 else len(data)]
         raise SequenceFormatError(
-            "not a FASTA file: expected a header line starting with '>', "
-            f"found {_snippet(raw)!r}",
+            f"not a FASTA file: expected a header line starting with '>', found {_snippet(raw)!r}",
             path=shown,
             line0=line0,
         )
