@@ -69,6 +69,41 @@ def command_line(obj: dict | None) -> list[str]:
     return ["seqstate", *(sys.argv[1:] if argv is None else argv)]
 
 
+def decoding_options(command):
+    """--decode, --min-posterior and --min-length, shared by annotate and plot."""
+    command = click.option(
+        "--min-length",
+        type=int,
+        default=1,
+        show_default=True,
+        help="Shortest feature, in bases.",
+    )(command)
+    command = click.option(
+        "--min-posterior",
+        type=float,
+        default=0.5,
+        show_default=True,
+        help="Posterior decoding: smallest per-base label posterior inside a feature.",
+    )(command)
+    return click.option(
+        "--decode",
+        type=click.Choice(["posterior", "viterbi"]),
+        default=None,
+        help="Feature decoding; default: the model's.",
+    )(command)
+
+
+def masked_option(command):
+    """--masked, shared by every command that reads sequences."""
+    return click.option(
+        "--masked",
+        type=click.Choice(["base", "unknown"]),
+        default="base",
+        show_default=True,
+        help="Read lowercase (soft-masked) bases as their base or as unknown.",
+    )(command)
+
+
 # ---------------------------------------------------------------- model
 @main.group("model")
 def model_group() -> None:
@@ -164,34 +199,9 @@ def summary(m, path: str, sha: str) -> str:
     show_default=True,
     help="Output folder (created if absent).",
 )
-@click.option(
-    "--decode",
-    type=click.Choice(["posterior", "viterbi"]),
-    default=None,
-    help="Feature decoding; default: the model's.",
-)
-@click.option(
-    "--min-posterior",
-    type=float,
-    default=0.5,
-    show_default=True,
-    help="Posterior decoding: smallest per-base label posterior inside a feature.",
-)
-@click.option(
-    "--min-length",
-    type=int,
-    default=1,
-    show_default=True,
-    help="Shortest feature to report, in bases.",
-)
+@decoding_options
 @click.option("--region", default=None, help="Only ID:START-END (1-based, inclusive).")
-@click.option(
-    "--masked",
-    type=click.Choice(["base", "unknown"]),
-    default="base",
-    show_default=True,
-    help="Read lowercase (soft-masked) bases as their base or as unknown.",
-)
+@masked_option
 @click.option(
     "--tracks",
     type=click.Choice(["bedgraph", "bigwig", "both", "none"]),
@@ -322,13 +332,7 @@ def sample_cmd(model, length, records, seed, out_fasta, truth, prefix) -> None:
 @click.option(
     "--type", "types", multiple=True, help="GFF3 regions: only features of this type (repeatable)."
 )
-@click.option(
-    "--masked",
-    type=click.Choice(["base", "unknown"]),
-    default="base",
-    show_default=True,
-    help="Read lowercase (soft-masked) bases as their base or as unknown.",
-)
+@masked_option
 @click.option("-q", "--quiet", is_flag=True, help="No summary on stderr.")
 def score_cmd(
     fasta, regions, model, label, out_tsv, out_gff, flank, regions_format, types, masked, quiet
@@ -398,33 +402,8 @@ def score_cmd(
     help="Dots per inch (PNG pixels = inches x dpi).",
 )
 @click.option("--force", is_flag=True, help="Allow regions over 2,000,000 bases.")
-@click.option(
-    "--decode",
-    type=click.Choice(["posterior", "viterbi"]),
-    default=None,
-    help="Feature decoding; default: the model's.",
-)
-@click.option(
-    "--min-posterior",
-    type=float,
-    default=0.5,
-    show_default=True,
-    help="Posterior decoding: smallest per-base label posterior inside a feature.",
-)
-@click.option(
-    "--min-length",
-    type=int,
-    default=1,
-    show_default=True,
-    help="Shortest feature to show, in bases.",
-)
-@click.option(
-    "--masked",
-    type=click.Choice(["base", "unknown"]),
-    default="base",
-    show_default=True,
-    help="Read lowercase (soft-masked) bases as their base or as unknown.",
-)
+@decoding_options
+@masked_option
 @click.option("-q", "--quiet", is_flag=True, help="No summary on stderr.")
 def plot_cmd(
     fasta,
@@ -509,13 +488,7 @@ def plot_cmd(
     default=None,
     help="Added to every allowed cell's count [default: 1 for counting, 0 for EM].",
 )
-@click.option(
-    "--masked",
-    type=click.Choice(["base", "unknown"]),
-    default="base",
-    show_default=True,
-    help="Read lowercase (soft-masked) bases as their base or as unknown.",
-)
+@masked_option
 @click.option(
     "--bad-genes",
     type=click.Choice(["skip", "fail"]),
