@@ -669,51 +669,34 @@ def _restricted_plain(
     pred_p,
     out,
 ):
-    """:func:`restricted_forward` for small models: the emitting masked states only."""
+    """:func:`restricted_forward` for small models: the emitting masked states only.
+
+    Without emissions the step uses the unknown-symbol code (the last row of ``E``,
+    all ones, every state emitting), so one loop serves both cases.
+    """
     m = init.shape[0]
+    unknown = E.shape[0] - 1
     a = np.zeros(m)
     b = np.zeros(m)
     logscale = 0.0
     for i in range(s0, e0):
-        code = codes[i]
+        code = codes[i] if use_emissions else unknown
+        prev = init if i == s0 else a
         total = 0.0
         b[:] = 0.0
-        if use_emissions:
-            for k in range(nz_ptr[code], nz_ptr[code + 1]):
-                t = nz_state[k]
-                if not mask[t]:
-                    continue
-                if i == s0:
-                    if init_is_start:
-                        acc = init[t]
-                    else:
-                        acc = 0.0
-                        for q in range(pred_ptr[t], pred_ptr[t + 1]):
-                            acc += init[pred_src[q]] * pred_p[q]
-                else:
-                    acc = 0.0
-                    for q in range(pred_ptr[t], pred_ptr[t + 1]):
-                        acc += a[pred_src[q]] * pred_p[q]
-                v = acc * E[code, t]
-                b[t] = v
-                total += v
-        else:
-            for t in range(m):
-                if not mask[t]:
-                    continue
-                if i == s0:
-                    if init_is_start:
-                        acc = init[t]
-                    else:
-                        acc = 0.0
-                        for q in range(pred_ptr[t], pred_ptr[t + 1]):
-                            acc += init[pred_src[q]] * pred_p[q]
-                else:
-                    acc = 0.0
-                    for q in range(pred_ptr[t], pred_ptr[t + 1]):
-                        acc += a[pred_src[q]] * pred_p[q]
-                b[t] = acc
-                total += acc
+        for k in range(nz_ptr[code], nz_ptr[code + 1]):
+            t = nz_state[k]
+            if not mask[t]:
+                continue
+            if i == s0 and init_is_start:
+                acc = init[t]
+            else:
+                acc = 0.0
+                for q in range(pred_ptr[t], pred_ptr[t + 1]):
+                    acc += prev[pred_src[q]] * pred_p[q]
+            v = acc * E[code, t]
+            b[t] = v
+            total += v
         if total == 0.0:
             out[:] = 0.0
             return -np.inf
