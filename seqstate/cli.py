@@ -216,6 +216,13 @@ def summary(m, path: str, sha: str) -> str:
     show_default=True,
     help="Decimals of the posterior values in tracks.",
 )
+@click.option(
+    "--split-unknown",
+    type=click.IntRange(min=1),
+    default=10,
+    show_default=True,
+    help="No feature (gene or segment) spans a run of this many unknown bases: it is cut there.",
+)
 @click.option("-q", "--quiet", is_flag=True, help="No progress or summary on stderr.")
 @click.pass_obj
 def annotate_cmd(
@@ -230,6 +237,7 @@ def annotate_cmd(
     masked,
     tracks,
     precision,
+    split_unknown,
     quiet,
 ) -> None:
     """Annotate the records of FASTA (plain or gzip; '-' for stdin) with a model."""
@@ -246,6 +254,7 @@ def annotate_cmd(
         masked=masked,
         tracks=tracks,
         precision=precision,
+        split_unknown=split_unknown,
         command_line=command_line(obj),
     )
     report = annotate(opts, progress_enabled=(not quiet) and sys.stderr.isatty())

@@ -123,19 +123,21 @@ def segments_from_path(
     return segs
 
 
-#: Runs of at least this many unknown bases split a feature; unknown bases are also
-#: trimmed from both ends of every feature.
+#: Default of ``annotate --split-unknown``: runs of at least this many unknown bases
+#: split a feature (segments and genes alike); unknown bases are also trimmed from
+#: both ends of every segment.
 UNKNOWN_SPLIT = 10
 
 
 def split_at_unknown(
-    segs: list[Segment], unknown: np.ndarray, min_length: int = 1
+    segs: list[Segment], unknown: np.ndarray, min_length: int = 1, threshold: int = UNKNOWN_SPLIT
 ) -> list[Segment]:
-    """Cut features at runs of >= :data:`UNKNOWN_SPLIT` unknown bases and trim unknown ends.
+    """Cut features at runs of >= ``threshold`` unknown bases and trim unknown ends.
 
     ``unknown`` is a boolean per base of the record.  The model marginalises unknown
     bases, so a label's posterior can stay high across them; a feature must not
     claim bases that were never seen.  Pieces shorter than ``min_length`` are dropped.
+    The result is sorted by (start, end, group), the order features are written in.
     """
     if not unknown.any():
         return segs
@@ -151,7 +153,7 @@ def split_at_unknown(
         pieces = []
         lo = 0
         for a, b in cuts:
-            if b - a >= UNKNOWN_SPLIT or a == 0 or b == len(u):
+            if b - a >= threshold or a == 0 or b == len(u):
                 if a > lo:
                     pieces.append((lo, a))
                 lo = b
@@ -160,6 +162,7 @@ def split_at_unknown(
         for a, b in pieces:
             if b - a >= min_length:
                 out.append(Segment(seg.group, seg.start0 + a, seg.start0 + b))
+    out.sort(key=lambda s: (s.start0, s.end0, s.group))
     return out
 
 

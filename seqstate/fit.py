@@ -514,6 +514,12 @@ def pool_counts(model: Model, counts: Counts) -> None:
     (order j inside an order-k table).  ``tie = [[STATE, ...], ...]``: the
     emission counts of each group are summed and shared, so tied states get one
     table.  Used for position-specific states with few observations.
+    ``tie_transitions = [[STATE, ...], ...]``: the states of each group share one
+    probability of staying (their self-loop): the self-loop counts of the group are
+    summed, and so are the counts of leaving; each state must have a self-loop and
+    exactly one other allowed move (and no end probability), as the copies of an
+    intron body do.  A copy that no training gene shows then takes the length
+    distribution of the others instead of its pseudocount-only 0.5.
     """
     fit_table = model.extra.get("fit", {})
     if not isinstance(fit_table, dict):
@@ -537,6 +543,25 @@ def pool_counts(model: Model, counts: Counts) -> None:
             idx.append(names[name])
         total = counts.emissions[idx].sum(axis=0)
         counts.emissions[idx] = total
+    for group in fit_table.get("tie_transitions", []):
+        pairs = []
+        for name in group:
+            if name not in names:
+                raise ModelFormatError(f"[fit] tie_transitions names unknown state '{name}'")
+            s = names[name]
+            others = [t for t in np.flatnonzero(model.transitions[s] > 0) if t != s]
+            has_end = model.end is not None and model.end[s] > 0
+            if model.transitions[s, s] <= 0 or len(others) != 1 or has_end:
+                raise ModelFormatError(
+                    f"[fit] tie_transitions: state '{name}' needs a self-loop and exactly one "
+                    "other allowed move (and no end probability)"
+                )
+            pairs.append((s, int(others[0])))
+        stay = sum(counts.transitions[s, s] for s, _ in pairs)
+        leave = sum(counts.transitions[s, t] for s, t in pairs)
+        for s, t in pairs:
+            counts.transitions[s, s] = stay
+            counts.transitions[s, t] = leave
 
 
 def count_path(
@@ -616,6 +641,83 @@ def count_path(
         )
     out.emissions += emit.reshape(m, a**k, a)
     return out
+
+
+def states_without_counts(model: Model, counts: Counts) -> list[str]:
+    """States with a free parameter that the counts never reached (after pooling).
+
+    A state is listed when its transition row (with its end) has at least two
+    allowed cells and no count, or when its emission rows have no count at all and
+    at least one of them allows two or more symbols: its probabilities then come
+    from the pseudocount (or the start model) alone.  Rows with one allowed cell
+    are fixed by the model's structure and need no count.
+    """
+    out = []
+    for s, name in enumerate(model.state_names):
+        allowed_t = int(np.count_nonzero(model.transitions[s] > 0))
+        seen_t = float(counts.transitions[s].sum())
+        if model.end is not None:
+            allowed_t += int(model.end[s] > 0)
+            seen_t += float(counts.end[s])
+        free_e = bool(np.any(np.count_nonzero(model.emissions[s] > 0, axis=-1) > 1))
+        no_t = allowed_t > 1 and seen_t == 0
+        no_e = free_e and float(counts.emissions[s].sum()) == 0
+        if no_t or no_e:
+            out.append(name)
+    return out
+
+
+def _require_label_units(features: Sequence[LabelFeature], model: Model, path: str) -> None:
+    """Counting needs at least one feature of every label (the background label aside)."""
+    labels = [x for x in model.labels if x != model.background_label]
+    if not features:
+        raise FeatureFormatError(
+            "has no features: counting needs at least one feature of each label of model "
+            f"'{model.name}' ({', '.join(labels) or 'none'})",
+            path=path,
+        )
+    present = {f.label for f in features}
+    missing = [x for x in labels if x not in present]
+    if missing:
+        raise FeatureFormatError(
+            f"has no feature of label {', '.join(missing)} (found only "
+            f"{', '.join(sorted(present))}): every label of model '{model.name}' needs at "
+            "least one feature to count from",
+            path=path,
+        )
+
+
+def _require_gene_units(features, pairs, report, model: Model, path: str) -> None:
+    """A gene annotation must give at least one usable gene, and an example of every
+    label (a coding exon and an intron)."""
+    if report.used == 0:
+        n_cds = sum(1 for f in features if f.type == "CDS")
+        n_mrna = sum(1 for f in features if f.type == "mRNA")
+        if not features:
+            what = "has no features"
+        elif n_cds == 0:
+            what = f"has no CDS feature ({len(features)} feature(s) of other types)"
+        elif not any(f.values("Parent") for f in features if f.type == "CDS"):
+            what = (
+                f"has {n_cds} CDS feature(s) but none with a Parent ({n_mrna} mRNA feature(s)): "
+                "flat features are not genes"
+            )
+        else:
+            skipped = ", ".join(f"{v} ({k})" for k, v in sorted(report.skipped.items()))
+            what = f"has no gene the layout can use (skipped: {skipped or 'none'})"
+        raise FeatureFormatError(
+            f"{what}; counting model '{model.name}' needs gene -> mRNA -> CDS hierarchies "
+            "with CDS phases",
+            path=path,
+        )
+    for label in model.labels:
+        idx = model.states_of_label(label)
+        if not any(np.isin(states, idx).any() for _, states in pairs):
+            raise FeatureFormatError(
+                f"the {report.used} usable gene(s) have no base of label {label} (e.g. no "
+                f"intron): every label of model '{model.name}' needs at least one example",
+                path=path,
+            )
 
 
 # ================================================================ estimation
@@ -1117,6 +1219,7 @@ def fit(opts: FitOptions, *, log: Log = _quiet) -> FitReport:
     kept: list[str] = []
     methods: list[str] = []
     n_features = 0
+    unseen: list[str] = []
     codes_list = []
     if opts.labels and rule == "gene_structure":
         from seqstate import genes
@@ -1127,6 +1230,7 @@ def fit(opts: FitOptions, *, log: Log = _quiet) -> FitReport:
         pairs, gene_report = genes.label_records(
             start_model, records, features, path=opts.labels, bad_genes=opts.bad_genes
         )
+        _require_gene_units(features, pairs, gene_report, start_model, opts.labels)
         counts = Counts.zeros(start_model)
         for k, (seq, states) in enumerate(pairs):
             rid = records[k // 2].id + ("" if k % 2 == 0 else " (reverse complement)")
@@ -1135,6 +1239,7 @@ def fit(opts: FitOptions, *, log: Log = _quiet) -> FitReport:
             if k % 2 == 0:
                 codes_list.append(codes)
         pool_counts(start_model, counts)
+        unseen = states_without_counts(start_model, counts)
         model, kept = estimate(start_model, counts, pseudocount=pc_count, frozen=frozen)
         methods.append("counting from a gene annotation")
         log(
@@ -1146,6 +1251,7 @@ def fit(opts: FitOptions, *, log: Log = _quiet) -> FitReport:
         features = read_labels(opts.labels, start_model, opts.labels_format)
         n_features = len(features)
         by_record = group_features(features, lengths, opts.labels)
+        _require_label_units(features, start_model, opts.labels)
         counts = Counts.zeros(start_model)
         for rec in records:
             track = paint_labels(
@@ -1165,6 +1271,7 @@ def fit(opts: FitOptions, *, log: Log = _quiet) -> FitReport:
                 )
             )
             codes_list.append(codes)
+        unseen = states_without_counts(start_model, counts)
         model, kept = estimate(start_model, counts, pseudocount=pc_count, frozen=frozen)
         methods.append("counting from labels")
         log(
@@ -1174,6 +1281,11 @@ def fit(opts: FitOptions, *, log: Log = _quiet) -> FitReport:
     else:
         codes_list = [api.encode(tables, r.seq, masked_unknown=masked) for r in records]
     del records
+    if unseen:
+        log(
+            f"fit: warning: {len(unseen)} state(s) had no counts, their probabilities come "
+            f"from the pseudocount alone: {', '.join(unseen)}"
+        )
     iterations = 0
     stop_reason = "counting only (no EM)"
     if opts.em:
@@ -1253,6 +1365,8 @@ def fit(opts: FitOptions, *, log: Log = _quiet) -> FitReport:
     prov["loglik_nat"] = final_ll
     prov["log_base"] = "natural log"
     prov["rows_without_counts_kept"] = kept
+    if opts.labels:
+        prov["states_without_counts"] = unseen
     prov["emission_counts"] = "full-order contexts only; back-off rows " + (
         "held at the EM start model's and listed explicitly"
         if opts.em

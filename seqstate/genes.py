@@ -260,6 +260,7 @@ def build_layout(order: int = 3, *, name: str = "gene-segment-layout") -> Model:
                 "state_rule": "gene_structure",
                 "both_strands": True,
                 "tie": ties,
+                "tie_transitions": [[f"{c}_body{st}" for c in INTRON_COPIES] for st in "+-"],
                 "emission_order": orders,
             },
             "annotate": {"features": "gene_structure"},
@@ -701,30 +702,65 @@ def label_records(
 
 
 # ====================================================================== decoding
+#: ``partial_reason`` values: the gene reaches the end of the annotated stretch, or it
+#: was cut at a run of unknown bases (``annotate --split-unknown``).
+PARTIAL_RECORD_END = "record_end"
+PARTIAL_UNKNOWN_RUN = "unknown_run"
+
+
 @dataclass
 class GenePrediction:
     """One decoded gene: strand and CDS pieces (plus-strand coordinates, 0-based).
 
     ``phases`` (genomic order) come from the codon position of each piece's 5'-most
-    base on the path, so they are right even for a gene cut by a record end
-    (``partial`` is then True: it lacks its start or stop codon).
+    base on the path, so they are right even for a gene that lacks its start or
+    stop codon.  ``partial_reasons`` says why a gene is incomplete (empty for a
+    complete one): :data:`PARTIAL_RECORD_END` (it runs into an end of the annotated
+    stretch) and/or :data:`PARTIAL_UNKNOWN_RUN` (cut at a long run of unknown bases).
     """
 
     strand: str
     pieces: list[tuple[int, int]]  # in genomic order
     phases: list[int] | None = None
-    partial: bool = False
+    partial_reasons: tuple[str, ...] = ()
+
+    @property
+    def partial(self) -> bool:
+        return bool(self.partial_reasons)
 
     @property
     def span(self) -> tuple[int, int]:
         return self.pieces[0][0], self.pieces[-1][1]
 
 
-def genes_from_path(path: np.ndarray, model: Model) -> list[GenePrediction]:
+def unknown_runs(unknown: np.ndarray, threshold: int) -> list[tuple[int, int]]:
+    """Maximal runs (0-based half-open) of at least ``threshold`` unknown bases."""
+    u = np.asarray(unknown, dtype=bool)
+    if not u.any():
+        return []
+    padded = np.concatenate([[False], u, [False]])
+    edges = np.flatnonzero(padded[1:] != padded[:-1])
+    return [
+        (int(a), int(b)) for a, b in zip(edges[0::2], edges[1::2]) if int(b) - int(a) >= threshold
+    ]
+
+
+def genes_from_path(
+    path: np.ndarray,
+    model: Model,
+    unknown: np.ndarray | None = None,
+    split_unknown: int | None = None,
+) -> list[GenePrediction]:
     """Runs of one strand's gene states (CDS and intron) along a path -> genes.
 
     A gene is a maximal run of CDS and intron states of one strand; its CDS pieces
-    are the maximal runs of CDS states inside it.
+    are the maximal runs of CDS states inside it.  With ``unknown`` (a boolean per
+    base) and ``split_unknown`` (a length), every run of at least ``split_unknown``
+    unknown bases inside a gene cuts it: the parts on either side become genes of
+    their own, marked partial (:data:`PARTIAL_UNKNOWN_RUN`), and unknown bases are
+    trimmed from the outer ends of every part.  A gene touching the first or last
+    base of the path is partial (:data:`PARTIAL_RECORD_END`).  Parts without a
+    coding base are dropped.  Genes come in genomic order.
     """
     m = model.n_states
     strand_of = np.zeros(m, dtype=np.int8)  # 1 plus gene state, 2 minus, 0 other
@@ -738,6 +774,10 @@ def genes_from_path(path: np.ndarray, model: Model) -> list[GenePrediction]:
     g = strand_of[p]
     c = is_cds[p]
     n = p.shape[0]
+    if unknown is None:
+        unknown = np.zeros(n, dtype=bool)
+    unknown = np.asarray(unknown, dtype=bool)
+    gaps = unknown_runs(unknown, split_unknown) if split_unknown else []
     change = np.flatnonzero(g[1:] != g[:-1]) + 1
     starts = np.concatenate([[0], change])
     ends = np.concatenate([change, [n]])
@@ -745,16 +785,49 @@ def genes_from_path(path: np.ndarray, model: Model) -> list[GenePrediction]:
     for s0, e0 in zip(starts.tolist(), ends.tolist()):
         if g[s0] == 0:
             continue
-        cc = c[s0:e0]
-        padded = np.concatenate([[False], cc, [False]])
-        edges = np.flatnonzero(padded[1:] != padded[:-1])
-        pieces = [(s0 + int(a), s0 + int(b)) for a, b in zip(edges[0::2], edges[1::2])]
-        if pieces:
-            strand = "+" if g[s0] == 1 else "-"
+        strand = "+" if g[s0] == 1 else "-"
+        # the run minus the long unknown runs inside it: (lo, hi, cut_left, cut_right)
+        parts = []
+        lo, cut_left = s0, False
+        for a, b in gaps:
+            if b <= s0 or a >= e0:
+                continue
+            if a > lo:
+                parts.append((lo, a, cut_left, True))
+            lo, cut_left = max(b, lo), True
+        if lo < e0:
+            parts.append((lo, e0, cut_left, False))
+        for lo, hi, cut_l, cut_r in parts:
+            while lo < hi and unknown[lo]:
+                lo += 1
+            while hi > lo and unknown[hi - 1]:
+                hi -= 1
+            cc = c[lo:hi]
+            padded = np.concatenate([[False], cc, [False]])
+            edges = np.flatnonzero(padded[1:] != padded[:-1])
+            pieces = [(lo + int(a), lo + int(b)) for a, b in zip(edges[0::2], edges[1::2])]
+            if not pieces:
+                continue
+            # outer ends of the part are trimmed of unknown bases (inner ones stay)
+            a0, b0 = pieces[0]
+            while a0 < b0 and unknown[a0]:
+                a0 += 1
+            pieces[0] = (a0, b0)
+            a1, b1 = pieces[-1]
+            while b1 > a1 and unknown[b1 - 1]:
+                b1 -= 1
+            pieces[-1] = (a1, b1)
+            pieces = [(a, b) for a, b in pieces if b > a]
+            if not pieces:
+                continue
             five = [a if strand == "+" else b - 1 for a, b in pieces]
             phases = [(3 - int(frame[p[q]])) % 3 for q in five]
-            partial = s0 == 0 or e0 == n
-            genes.append(GenePrediction(strand, pieces, phases, partial))
+            reasons = []
+            if s0 == 0 or e0 == n:
+                reasons.append(PARTIAL_RECORD_END)
+            if cut_l or cut_r:
+                reasons.append(PARTIAL_UNKNOWN_RUN)
+            genes.append(GenePrediction(strand, pieces, phases, tuple(reasons)))
     return genes
 
 
@@ -773,6 +846,29 @@ def codon_positions(model: Model) -> np.ndarray:
     return out
 
 
+def decoding_classes(model: Model) -> tuple[np.ndarray, int]:
+    """Per state, its class for posterior decoding of gene structures; and the count.
+
+    Class 0 is every non-gene state (intergenic and start flanks).  Per strand
+    (plus first): three CDS classes, one per codon position, then three intron
+    classes, one per intron phase (``i0``, ``i1*``, ``i2*`` copies).  The classes
+    carry the reading frame, so a path that maximises the expected number of bases
+    in their right class keeps the frame the posterior supports.
+    """
+    frame = codon_positions(model)
+    out = np.zeros(model.n_states, dtype=np.int64)
+    for i, s in enumerate(model.states):
+        if s.label not in ("CDS", "intron"):
+            continue
+        base = 1 if s.strand == "+" else 7
+        if s.label == "CDS":
+            out[i] = base + int(frame[i])
+        else:
+            phase = int(s.name[1]) if s.name[:1] == "i" and s.name[1:2].isdigit() else 0
+            out[i] = base + 3 + phase
+    return out, 13
+
+
 def cds_phases(gene: GenePrediction) -> list[int]:
     """GFF3 phase of each CDS piece, in genomic order.
 
@@ -789,3 +885,45 @@ def cds_phases(gene: GenePrediction) -> list[int]:
         phases.append((3 - done % 3) % 3)
         done += b - a
     return phases if gene.strand == "+" else phases[::-1]
+
+
+@dataclass(frozen=True)
+class GeneLine:
+    """One GFF3 line of a gene hierarchy (0-based half-open, plus-strand coordinates).
+
+    ``piece`` is the index of the CDS piece in genomic order (None for gene and mRNA).
+    """
+
+    type: str
+    start0: int
+    end0: int
+    id: str
+    parent: str | None
+    phase: int | None
+    piece: int | None
+
+
+_TYPE_RANK = {"gene": 0, "mRNA": 1, "exon": 2, "CDS": 3}
+
+
+def gene_lines(gene: GenePrediction, seqid: str, number: int) -> list[GeneLine]:
+    """The gene -> mRNA -> exon + CDS lines of one gene, in file order.
+
+    IDs: ``SEQID.gene.N``, ``SEQID.mRNA.N``, ``SEQID.mRNA.N.exon.K`` and
+    ``SEQID.mRNA.N.CDS.K`` with K counted from the 5' end on the gene's strand.
+    File order is by start (then parent before child: gene, mRNA, exon, CDS), the
+    order index tools need (common practice), whatever the strand.
+    """
+    g0, g1 = gene.span
+    gid = f"{seqid}.gene.{number}"
+    mid = f"{seqid}.mRNA.{number}"
+    lines = [GeneLine("gene", g0, g1, gid, None, None, None)]
+    lines.append(GeneLine("mRNA", g0, g1, mid, gid, None, None))
+    phases = cds_phases(gene)
+    k_of = range(len(gene.pieces)) if gene.strand == "+" else range(len(gene.pieces) - 1, -1, -1)
+    for k, i in enumerate(k_of, start=1):
+        a, b = gene.pieces[i]
+        lines.append(GeneLine("exon", a, b, f"{mid}.exon.{k}", mid, None, i))
+        lines.append(GeneLine("CDS", a, b, f"{mid}.CDS.{k}", mid, phases[i], i))
+    lines.sort(key=lambda ln: (ln.start0, _TYPE_RANK[ln.type]))
+    return lines

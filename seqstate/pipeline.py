@@ -87,6 +87,7 @@ class AnnotateOptions:
     masked: str = "base"
     tracks: str = "bedgraph"
     precision: int = 4
+    split_unknown: int = 10
     command_line: list[str] = field(default_factory=list)
 
 
@@ -216,6 +217,8 @@ def annotate(opts: AnnotateOptions, *, progress_enabled: bool = False) -> dict:
         raise UsageError(f"--min-posterior {opts.min_posterior} is outside 0..1")
     if opts.min_length < 1:
         raise UsageError(f"--min-length {opts.min_length} must be at least 1")
+    if opts.split_unknown < 1:
+        raise UsageError(f"--split-unknown {opts.split_unknown} must be at least 1")
     tables = api.prepare(model)
     groups = track_groups(model)
     if not groups:
@@ -305,7 +308,7 @@ def _annotate_into(
         gff = GFF3Writer(outs.open_text(gff_name))
         gff.header([(rec.id, s + 1, e) for rec, s, e in spans])
         tsv = outs.open_text(tsv_name)
-        gene_mode = decode == "viterbi" and is_gene_model(model)
+        gene_mode = is_gene_model(model)
         columns = ["seqid", "start_1based", "end_1based", "strand", "type", "id"] + BASE_COLUMNS
         if gene_mode:
             columns = GENE_COLUMNS
@@ -344,12 +347,13 @@ def _annotate_into(
             )
             progress.advance((e0 - s0) // 2, rec.id)
             if gene_mode:
-                path, _ = api.viterbi(tables, codes, record=rec.id)
+                predictions = decode_genes(
+                    model, tables, codes, sym < 0, decode, opts.split_unknown, rec.id
+                )
                 n_feat = write_genes(
-                    gff, tsv, model, tables, codes, post, groups, path, rec.id, s0, seq
+                    gff, tsv, model, tables, codes, post, groups, predictions, rec.id, s0
                 )
                 segs = []
-                del path
             elif decode == "viterbi":
                 path, _ = api.viterbi(tables, codes, record=rec.id)
                 segs = segments_from_path(path, state_group, opts.min_length)
@@ -357,7 +361,7 @@ def _annotate_into(
             else:
                 segs = segments_from_posterior(post.values, opts.min_posterior, opts.min_length)
             if not gene_mode:
-                segs = split_at_unknown(segs, sym < 0, opts.min_length)
+                segs = split_at_unknown(segs, sym < 0, opts.min_length, opts.split_unknown)
                 n_feat = len(segs)
             score_segments(model, tables, codes, post, groups, segs, seq)
             counters = [0] * len(groups)
@@ -435,27 +439,33 @@ def write_genes(
     gff: GFF3Writer,
     tsv,
     model: Model,
-    tables: api.EngineTables,
-    codes: np.ndarray,
-    post: api.Posterior,
+    tables: api.EngineTables | None,
+    codes: np.ndarray | None,
+    post: api.Posterior | None,
     groups: list[Group],
-    path: np.ndarray,
+    predictions: list,
     seqid: str,
     offset0: int,
-    seq: bytes,
 ) -> int:
-    """Write the genes of a decoded path as a GFF3 hierarchy; returns the feature count.
+    """Write decoded genes as GFF3 gene -> mRNA -> exon + CDS lines; returns the line count.
 
-    gene and mRNA span the coding part (start codon to stop codon; the model has
-    no untranslated regions), exon and CDS lines share coordinates, CDS phase as
-    GFF3 1.26 defines it.  Scores: the posterior of the strand's gene states (CDS
-    and intron) on gene and mRNA, of the strand's CDS states on CDS; the exact
-    probability that every base of the feature is in those states.
+    ``predictions`` are :class:`seqstate.genes.GenePrediction` in genomic order
+    (0-based, relative to ``offset0``).  gene and mRNA span the coding part (start
+    codon to stop codon; the model has no untranslated regions), exon and CDS lines
+    share coordinates, CDS phase as GFF3 1.26 defines it; lines in start order,
+    parents first (:func:`seqstate.genes.gene_lines`).  A partial gene has
+    ``partial=true`` and ``partial_reason`` (``record_end``, ``unknown_run``) on its
+    gene and mRNA lines.  Scores (when ``post`` is given): the posterior of the
+    strand's gene states (CDS and intron) on gene and mRNA, of the strand's CDS
+    states on exon and CDS, and the exact probability that every base of the
+    feature is in those states; without ``post`` (a sampled truth) the score
+    column is ``.`` and only ``length`` is written.  ``tsv`` may be None.
     """
     from seqstate import genes as gene_layout
 
     col = {(g.label, g.strand): i for i, g in enumerate(groups)}
     masks = {}
+    values = {}
     for strand in "+-":
         cds = np.zeros(model.n_states, dtype=np.bool_)
         gene = np.zeros(model.n_states, dtype=np.bool_)
@@ -464,75 +474,98 @@ def write_genes(
                 gene[i] = True
                 cds[i] = st.label == "CDS"
         masks[strand] = (gene, cds)
+        if post is not None:
+            cols = [col[k] for k in (("CDS", strand), ("intron", strand)) if k in col]
+            values[strand] = (
+                post.values[:, cols].sum(axis=1, dtype=np.float64),
+                post.values[:, col[("CDS", strand)]],
+            )
     count = 0
-    predictions = gene_layout.genes_from_path(path, model)
-    gene_values_of = {}
-    for strand in "+-":
-        cols = [col[k] for k in (("CDS", strand), ("intron", strand)) if k in col]
-        gene_values_of[strand] = post.values[:, cols].sum(axis=1, dtype=np.float64)
     for number, gp in enumerate(predictions, start=1):
         strand = gp.strand
-        g0, g1 = gp.span
-        gene_mask, cds_mask = masks[strand]
-        gene_values = gene_values_of[strand]
-        gsc = score_segment(tables, codes, post, gene_values, gene_mask, g0, g1, log_odds=False)
-        gid = f"{seqid}.gene.{number}"
-        mid = f"{seqid}.mRNA.{number}"
-
-        def emit(ftype, a, b, fid, parent, sc, phase=None, strand=strand, gp=gp):
-            attrs: list[tuple[str, str | list[str]]] = [("ID", fid)]
-            if parent:
-                attrs.append(("Parent", parent))
-            for key in ("mean_posterior", "min_posterior", "segment_probability"):
-                attrs.append((key, _fmt(sc[key], SCORE_FORMATS[key])))
+        for ln in gene_layout.gene_lines(gp, seqid, number):
+            a, b = ln.start0, ln.end0
+            sc = None
+            if post is not None:
+                k = 0 if ln.type in ("gene", "mRNA") else 1
+                sc = score_segment(
+                    tables, codes, post, values[strand][k], masks[strand][k], a, b, log_odds=False
+                )
+            attrs: list[tuple[str, str | list[str]]] = [("ID", ln.id)]
+            if ln.parent:
+                attrs.append(("Parent", ln.parent))
+            if sc is not None:
+                for key in ("mean_posterior", "min_posterior", "segment_probability"):
+                    attrs.append((key, _fmt(sc[key], SCORE_FORMATS[key])))
             attrs.append(("length", str(b - a)))
-            if gp.partial and ftype in ("gene", "mRNA"):
-                attrs.append(("partial", "cut by the record end"))
+            if gp.partial and ln.type in ("gene", "mRNA"):
+                attrs.append(("partial", "true"))
+                attrs.append(("partial_reason", list(gp.partial_reasons)))
             gff.write(
                 Feature(
                     seqid=seqid,
                     source=SOURCE,
-                    type=ftype,
+                    type=ln.type,
                     start0=a + offset0,
                     end0=b + offset0,
-                    score=sc["mean_posterior"],
+                    score=None if sc is None else sc["mean_posterior"],
                     strand=strand,
-                    phase=phase,
+                    phase=ln.phase,
                     attributes=attrs,
                 )
             )
-            tsv.write(
-                "\t".join(
-                    [
-                        seqid,
-                        str(a + offset0 + 1),
-                        str(b + offset0),
-                        strand,
-                        ftype,
-                        fid,
-                        parent or "",
-                        "." if phase is None else str(phase),
-                        _fmt(sc["mean_posterior"], ".4f"),
-                        _fmt(sc["min_posterior"], ".4f"),
-                        _fmt(sc["segment_probability"], ".4g"),
-                        str(b - a),
-                    ]
+            if tsv is not None:
+                tsv.write(
+                    "\t".join(
+                        [
+                            seqid,
+                            str(a + offset0 + 1),
+                            str(b + offset0),
+                            strand,
+                            ln.type,
+                            ln.id,
+                            ln.parent or "",
+                            "." if ln.phase is None else str(ln.phase),
+                            _fmt(sc["mean_posterior"], ".4f") if sc else "",
+                            _fmt(sc["min_posterior"], ".4f") if sc else "",
+                            _fmt(sc["segment_probability"], ".4g") if sc else "",
+                            str(b - a),
+                        ]
+                    )
+                    + "\n"
                 )
-                + "\n"
-            )
-
-        emit("gene", g0, g1, gid, None, gsc)
-        emit("mRNA", g0, g1, mid, gid, gsc)
-        phases = gene_layout.cds_phases(gp)
-        cds_values = post.values[:, col[("CDS", strand)]]
-        order = range(len(gp.pieces)) if strand == "+" else range(len(gp.pieces) - 1, -1, -1)
-        for k, i in enumerate(order, start=1):
-            a, b = gp.pieces[i]
-            sc = score_segment(tables, codes, post, cds_values, cds_mask, a, b, log_odds=False)
-            emit("exon", a, b, f"{mid}.exon.{k}", mid, sc)
-            emit("CDS", a, b, f"{mid}.CDS.{k}", mid, sc, phase=phases[i])
-        count += 2 + 2 * len(gp.pieces)
+            count += 1
     return count
+
+
+def decode_genes(
+    model: Model,
+    tables: api.EngineTables,
+    codes: np.ndarray,
+    unknown: np.ndarray,
+    decode: str,
+    split_unknown: int,
+    record: str,
+) -> list:
+    """Gene structures of one encoded record, by Viterbi or by posterior decoding.
+
+    Viterbi: the most probable path.  Posterior: the maximum expected accuracy
+    path over the model's allowed moves (:func:`seqstate.engine.mea.mea`), whose
+    gain at each base is the posterior of the state's class (non-gene; per strand,
+    CDS by codon position and intron by phase: :func:`seqstate.genes.decoding_classes`).
+    Genes are then cut at runs of at least ``split_unknown`` unknown bases.
+    """
+    from seqstate import genes as gene_layout
+    from seqstate.engine import mea
+
+    if decode == "viterbi":
+        path, _ = api.viterbi(tables, codes, record=record)
+    else:
+        cls, n_cls = gene_layout.decoding_classes(model)
+        fine = api.posterior(tables, codes, group=cls, n_groups=n_cls, record=record)
+        path = mea.mea(tables, codes, fine.values, cls)
+        del fine
+    return gene_layout.genes_from_path(path, model, unknown, split_unknown)
 
 
 # ---------------------------------------------------------------- sampling
@@ -564,6 +597,9 @@ def sample(opts: SampleOptions) -> dict:
     tables = api.prepare(model)
     groups = track_groups(model)
     state_group = group_index(model, groups)
+    gene_model = is_gene_model(model)
+    if gene_model:
+        from seqstate.genes import genes_from_path
     rng = np.random.default_rng(opts.seed)
     alphabet = np.frombuffer(model.alphabet.encode("ascii"), dtype=np.uint8)
     records, truths = [], []
@@ -577,7 +613,10 @@ def sample(opts: SampleOptions) -> dict:
                 alphabet[sym].tobytes(),
             )
         )
-        truths.append((rid, segments_from_path(path, state_group)))
+        if gene_model:
+            truths.append((rid, genes_from_path(path, model)))
+        else:
+            truths.append((rid, segments_from_path(path, state_group)))
     with atomic_text(opts.out_fasta) as fh:
         write_fasta(fh, records, width=opts.width)
     n_features = 0
@@ -586,6 +625,12 @@ def sample(opts: SampleOptions) -> dict:
             gff = GFF3Writer(fh)
             gff.header([(rec.id, 1, len(rec.seq)) for rec in records])
             for rid, segs in truths:
+                if gene_model:
+                    # the true genes as a gene -> mRNA -> exon + CDS hierarchy, unscored
+                    n_features += write_genes(
+                        gff, None, model, None, None, None, groups, segs, rid, 0
+                    )
+                    continue
                 counters = [0] * len(groups)
                 for seg in segs:
                     counters[seg.group] += 1
