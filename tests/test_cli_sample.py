@@ -154,3 +154,42 @@ def test_bad_sample_options_are_usage_errors(tmp_path, option):
     lines = result.stderr.splitlines()
     assert len(lines) == 1 and lines[0].startswith("error: ") and option[0] in lines[0]
     assert not (tmp_path / "x.fa").exists()
+
+
+# ---------------------------------------------------------------- gene models
+def test_gene_truth_is_a_gene_hierarchy_of_the_sampled_path(tmp_path):
+    fa, truth = sample_ok(tmp_path, "g", "gene-segment", 20_000, 2, 5)
+    _, runs = redrawn("gene-segment", 20_000, 2, 5)
+    rows = [line.split("\t") for line in truth.read_text().splitlines() if not line.startswith("#")]
+    cds = [r for r in rows if r[2] == "CDS"]
+    # the CDS lines are exactly the CDS runs of the path
+    assert sorted((r[0], int(r[3]), int(r[4]), r[6]) for r in cds) == sorted(
+        (rid, a, b, strand) for rid, a, b, label, strand in runs if label == "CDS"
+    )
+    assert cds
+    ids = {}
+    for r in rows:
+        attrs = dict(kv.split("=", 1) for kv in r[8].split(";"))
+        ids[attrs["ID"]] = (r[2], attrs.get("Parent"))
+        if r[2] in ("exon", "CDS", "mRNA"):
+            assert attrs["Parent"] in ids  # parents first (common practice for index tools)
+        assert r[5] == "."  # a truth is not scored
+    for r in cds:
+        assert r[7] in ("0", "1", "2")  # GFF3 1.26: every CDS has a phase
+        parent = dict(kv.split("=", 1) for kv in r[8].split(";"))["Parent"]
+        assert ids[parent][0] == "mRNA" and ids[ids[parent][1]][0] == "gene"
+    starts = [(r[0], int(r[3])) for r in rows]
+    assert starts == sorted(starts)
+
+
+def test_gene_truth_can_train_the_layout(tmp_path):
+    # the sampled truth is a usable training annotation: fit counts its genes
+    fa, truth = sample_ok(tmp_path, "g", "gene-segment", 30_000, 2, 3)
+    out = tmp_path / "m"
+    res = CliRunner().invoke(
+        main,
+        ["fit", "-m", "gene-segment-layout", "--fasta", str(fa), "--labels", str(truth)]
+        + ["-o", str(out), "-q"],
+    )
+    assert res.exit_code == 0, res.stderr
+    assert load_model(out).provenance["labelling"]["genes_used"] >= 2

@@ -224,3 +224,71 @@ def test_cpg_log_odds_is_the_dinucleotide_log_ratio_sum(tmp_path):
         assert abs(float(r["log_odds_bits"]) - lo / math.log(2)) <= 0.5e-3 + 1e-9
         checked += 1
     assert checked >= 1
+
+
+# ---------------------------------------------------------------- unknown runs
+def test_split_at_unknown_takes_a_threshold_and_returns_start_order():
+    from seqstate.decode import Segment, split_at_unknown
+
+    unknown = np.zeros(120, dtype=bool)
+    unknown[40:55] = True  # 15 unknown bases
+    segs = [Segment(0, 0, 100), Segment(1, 30, 70)]
+    out = split_at_unknown(segs, unknown)  # default: runs of 10 or more split
+    assert [(s.group, s.start0, s.end0) for s in out] == [
+        (0, 0, 40),
+        (1, 30, 40),
+        (1, 55, 70),
+        (0, 55, 100),
+    ]
+    kept = split_at_unknown([Segment(0, 0, 100), Segment(1, 30, 70)], unknown, threshold=16)
+    assert [(s.group, s.start0, s.end0) for s in kept] == [(0, 0, 100), (1, 30, 70)]
+
+
+# ---------------------------------------------------------------- posterior gene paths
+def _gated_model():
+    """Three states (our own numbers): x emits only A and may not follow z; z may not end."""
+    states = [State("x", "p", None), State("y", "q", None), State("z", None, None)]
+    trans = np.array([[0.5, 0.3, 0.1], [0.2, 0.5, 0.2], [0.0, 0.4, 0.4]])
+    end = np.array([0.1, 0.1, 0.2])
+    end[2] = 0.0
+    trans[2] = [0.0, 0.5, 0.5]
+    emis = np.array([[1.0, 0.0, 0.0, 0.0], [0.25] * 4, [0.1, 0.2, 0.3, 0.4]])
+    return make_model(
+        name="gated",
+        alphabet="ACGT",
+        states=states,
+        start=np.array([0.5, 0.0, 0.5]),
+        transitions=trans,
+        emissions=emis,
+        end=end,
+    )
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_mea_path_is_the_best_allowed_path_by_brute_force(seed):
+    from seqstate.engine import mea
+
+    model = _gated_model()
+    tables = api.prepare(model)
+    rng = np.random.default_rng(seed)
+    n = int(rng.integers(1, 8))
+    seq = "".join(rng.choice(list("AACG"), n))
+    codes = api.encode(tables, seq.encode())
+    cls = np.array([1, 2, 0])
+    gain = rng.random((n, 3)).astype(np.float32)
+    path = mea.mea(tables, codes, gain, cls, block=int(rng.integers(1, 4)))
+    best, best_path = -1.0, None
+    for cand in itertools.product(range(3), repeat=n):  # every path of positive probability
+        if model.start[cand[0]] == 0 or model.end[cand[-1]] == 0:
+            continue
+        if any(model.transitions[a, b] == 0 for a, b in zip(cand, cand[1:])):
+            continue
+        if any(model.emissions[s, 0, "ACGT".index(ch)] == 0 for s, ch in zip(cand, seq)):
+            continue
+        g = sum(float(gain[i, cls[s]]) for i, s in enumerate(cand))
+        if g > best + 1e-9:
+            best, best_path = g, cand
+    assert best_path is not None
+    got = sum(float(gain[i, cls[s]]) for i, s in enumerate(path))
+    assert got == pytest.approx(best, abs=1e-9)
+    assert tuple(path.tolist()) == best_path  # random gains: the optimum is unique

@@ -823,3 +823,46 @@ def test_uncovered_base_without_an_unlabelled_state_is_an_error():
         "f.gff3, record 'r': position 3 (1-based) has no label but the model has no state for "
         "it under state rule 'label'"
     )
+
+
+# ---------------------------------------------------------------- tied stays, unseen states
+def test_tied_transitions_share_the_stay_probability():
+    from seqstate import genes
+
+    layout = genes.build_layout(3)
+    names = {n: i for i, n in enumerate(layout.state_names)}
+    counts = fit.Counts.zeros(layout)
+    body = names["i0_body+"]
+    exit_ = names["i0_a1+"]
+    counts.transitions[body, body] = 998
+    counts.transitions[body, exit_] = 2
+    counts.emissions[body] = 1.0  # tied across the copies by the layout's [fit] tie
+    fit.pool_counts(layout, counts)
+    new, _ = fit.estimate(layout, counts, pseudocount=1.0)
+    # every intron copy of the strand, shown by a training gene or not, gets the pooled
+    # stay (998 + 1) / (1000 + 2): additive smoothing (common practice, from memory)
+    for copy in genes.INTRON_COPIES:
+        s = names[f"{copy}_body+"]
+        assert new.transitions[s, s] == pytest.approx(999 / 1002, rel=1e-12), copy
+    # the minus strand's copies have their own group: no counts there
+    s = names["i2TA_body-"]
+    assert new.transitions[s, s] == pytest.approx(0.5)
+    assert "i2TA_body-" in fit.states_without_counts(layout, counts)
+    assert "i2TA_body+" not in fit.states_without_counts(layout, counts)
+
+
+def test_tied_transitions_need_a_stay_and_one_exit():
+    model = load_model(REPO / "tests" / "data" / "fit" / "two-labels")
+    model.extra = {"fit": {"tie_transitions": [["b", "bg"]]}}  # b has three moves
+    with pytest.raises(ModelFormatError, match="state 'b' needs a self-loop and exactly one"):
+        fit.pool_counts(model, fit.Counts.zeros(model))
+
+
+def test_states_without_counts_skip_rows_fixed_by_the_structure():
+    from seqstate import genes
+
+    layout = genes.build_layout(3)
+    unseen = fit.states_without_counts(layout, fit.Counts.zeros(layout))
+    # i0_d1+ has one move and emits only G: nothing to estimate, not listed
+    assert "i0_d1+" not in unseen
+    assert "i0_body+" in unseen and "intergenic" in unseen

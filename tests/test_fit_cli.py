@@ -220,6 +220,41 @@ BAD = [
         1,
         [r"good\.bed line 1", r"BED name 'alpha' is not a label"],
     ),
+    (
+        "empty BED",
+        TWO,
+        ["--labels", str(DATA / "empty.bed")],
+        1,
+        [r"empty\.bed: has no features", r"alpha, beta"],
+    ),
+    (
+        "header-only GFF3",
+        TWO,
+        ["--labels", str(DATA / "header_only.gff3")],
+        1,
+        [r"header_only\.gff3: has no features"],
+    ),
+    (
+        "a label with no feature",
+        TWO,
+        ["--labels", str(DATA / "alpha_only.bed")],
+        1,
+        [r"alpha_only\.bed: has no feature of label beta", r"found only alpha"],
+    ),
+    (
+        "gene model, header-only GFF3",
+        "gene-segment-layout",
+        ["--labels", str(DATA / "header_only.gff3")],
+        1,
+        [r"header_only\.gff3: has no features", r"gene -> mRNA -> CDS"],
+    ),
+    (
+        "gene model, flat CDS without parents",
+        "gene-segment-layout",
+        ["--labels", str(DATA / "flat_cds.gff3")],
+        1,
+        [r"flat_cds\.gff3: has 2 CDS feature\(s\) but none with a Parent", r"not genes"],
+    ),
     ("no method", TWO, [], 2, [r"nothing to do"]),
     ("unknown freeze", TWO, ["--em", "--freeze", "bogus"], 2, [r"--freeze 'bogus' is neither"]),
     (
@@ -277,3 +312,23 @@ def test_quiet_error_is_the_only_stderr_line(tmp_path):
     assert res.exit_code == 1
     assert res.stderr.count("\n") == 1 and res.stderr.startswith("error: ")
     assert res.stdout == ""
+
+
+def test_states_without_counts_are_a_warning_and_in_the_provenance(tmp_path):
+    # the only alpha base is the last base of r2: state 'a' is never left, so its
+    # transition row (a -> a, a -> bg) gets no count and comes from the pseudocount
+    out = tmp_path / "m"
+    res = _run(
+        ["fit", "-m", TWO, "--fasta", FASTA, "--labels", str(DATA / "alpha_at_end.bed")]
+        + ["-o", str(out)]
+    )
+    assert res.exit_code == 0, res.stderr
+    warnings = [x for x in res.stderr.splitlines() if "warning" in x]
+    assert len(warnings) == 1 and warnings[0].endswith(": a"), res.stderr
+    assert load_model(out).provenance["states_without_counts"] == ["a"]
+    good = tmp_path / "g"
+    res = _run(
+        ["fit", "-m", TWO, "--fasta", FASTA, "--labels", str(DATA / "good.bed"), "-o", str(good)]
+    )
+    assert "warning" not in res.stderr
+    assert load_model(good).provenance["states_without_counts"] == []

