@@ -332,3 +332,28 @@ def test_states_without_counts_are_a_warning_and_in_the_provenance(tmp_path):
     )
     assert "warning" not in res.stderr
     assert load_model(good).provenance["states_without_counts"] == []
+
+
+def test_gene_annotation_without_an_intron_is_an_error(tmp_path):
+    # one valid single-exon gene (our own sequence: flank, ATG GCC GCC TAA): the intron
+    # label has no training example, so the fitted intron states would be pseudocounts only
+    seq = "GGGGGGCCCCCC" + "ATGGCCGCCTAA" + "GGGGGGCCCCCC"
+    fa = tmp_path / "one.fa"
+    fa.write_text(f">r1\n{seq}\n")
+    gff = tmp_path / "one.gff3"
+    gff.write_text(
+        "##gff-version 3\n##sequence-region r1 1 36\n"
+        "r1\tours\tgene\t13\t24\t.\t+\t.\tID=g1\n"
+        "r1\tours\tmRNA\t13\t24\t.\t+\t.\tID=m1;Parent=g1\n"
+        "r1\tours\tCDS\t13\t24\t.\t+\t0\tID=c1;Parent=m1\n"
+    )
+    out = tmp_path / "never"
+    res = _run(
+        ["fit", "-m", "gene-segment-layout", "--fasta", str(fa), "--labels", str(gff)]
+        + ["-o", str(out)]
+    )
+    assert res.exit_code == 1, res.stderr
+    errors = [x for x in res.stderr.splitlines() if x.startswith("error:")]
+    assert len(errors) == 1, res.stderr
+    assert re.search(r"one\.gff3: the 1 usable gene\(s\) have no base of label intron", errors[0])
+    assert not out.exists()
