@@ -19,18 +19,24 @@ from seqstate import __version__
 from seqstate.errors import SeqstateError
 
 EXIT_INTERRUPTED = 130
-#: Signals that stop a run like Ctrl-C does: outputs are discarded, exit 130.
-STOP_SIGNALS = tuple(getattr(signal, n) for n in ("SIGTERM", "SIGHUP") if hasattr(signal, n))
+#: Signals that stop a run: outputs are discarded, one ``error: interrupted`` line, exit 130.
+STOP_SIGNALS = tuple(
+    getattr(signal, n) for n in ("SIGINT", "SIGTERM", "SIGHUP") if hasattr(signal, n)
+)
+
+
+class Interrupted(BaseException):
+    """Raised by the handler of a stop signal (not an Exception: nothing swallows it)."""
 
 
 def _interrupt(signum, frame):  # type: ignore[no-untyped-def]
-    raise KeyboardInterrupt(f"signal {signum}")
+    raise Interrupted(signum)
 
 
 @contextlib.contextmanager
 def _signal_handlers():
-    """SIGTERM and SIGHUP raise KeyboardInterrupt; SIGXFSZ is ignored, so a file-size
-    limit is a write error (OSError EFBIG) and not a silent kill.  Restored afterwards."""
+    """SIGINT, SIGTERM and SIGHUP raise :class:`Interrupted`; SIGXFSZ is ignored, so a
+    file-size limit is a write error (OSError EFBIG), not a kill.  Restored afterwards."""
     saved = {}
     wanted = {s: _interrupt for s in STOP_SIGNALS}
     if hasattr(signal, "SIGXFSZ"):
@@ -131,7 +137,7 @@ class _Group(click.Group):
                 raise
             click.echo(f"error: {exc.format()}", err=True)
             sys.exit(exc.exit_code)
-        except KeyboardInterrupt:
+        except (KeyboardInterrupt, Interrupted):
             if debug:
                 raise
             click.echo("error: interrupted", err=True)
