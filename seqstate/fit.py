@@ -1020,15 +1020,14 @@ def _check_output(out: Path, force: bool, inputs: Sequence[str | os.PathLike | N
         raise UsageError("-o/--out is empty: expected a model folder name")
     if (out.exists() or out.is_symlink()) and not out.is_dir():
         raise UsageError(f"output '{out}' exists and is not a folder: not replaced")
-    try:
-        check_outputs([out / name for name in _model_file_names()], inputs, force=force)
-    except UsageError as exc:
-        if "already exists" not in exc.message:
-            raise
+    files = [out / name for name in _model_file_names()]
+    check_outputs(files, inputs, force=True)  # an input among them: always refused
+    present = [f.name for f in files if f.exists() or f.is_symlink()]
+    if present and not force:
         raise UsageError(
-            f"output '{out}' already holds a model ({exc.message.split(':')[0]}): use --force "
-            "to replace the model's files (other files in the folder are kept)"
-        ) from None
+            f"output '{out}' already holds a model ({', '.join(present)}): use --force to "
+            "replace the model's files (other files in the folder are kept)"
+        )
 
 
 def write_model_folder(

@@ -322,13 +322,15 @@ def test_next_run_removes_what_dead_runs_left(tmp_path: Path) -> None:
     stage = tmp_path / f".seqstate-stage-{dead}"
     stage.mkdir()
     (stage / "a.txt").write_text("half written")
-    (tmp_path / f".a.txt.tmp-{dead}").write_text("old-style temporary file")
+    (tmp_path / f".b.txt.tmp-{dead}").write_text("old-style temporary file of an output")
+    other = tmp_path / f".notes.txt.tmp-{dead}"  # not a name this run writes: not ours
+    other.write_text("another program's file")
     alive = tmp_path / f".seqstate-stage-{os.getppid()}"  # a live process: left alone
     alive.mkdir()
     (tmp_path / "user.txt").write_text("mine")
     with OutputSet(tmp_path) as outputs:
         outputs.open_text("b.txt").write("b")
-    assert listing(tmp_path) == [alive.name, "b.txt", "user.txt"]
+    assert listing(tmp_path) == sorted([alive.name, other.name, "b.txt", "user.txt"])
 
 
 def test_next_run_finishes_a_commit_whose_journal_was_written(tmp_path: Path) -> None:

@@ -24,9 +24,9 @@ folder until the end.  Guarantee:
 - if the process is killed outright (SIGKILL, power loss) the staging folder
   stays behind; the next run that writes into the same folder finishes the
   commit if the journal was complete (every file of the set was already
-  written) and otherwise deletes the staging folder, and it deletes temporary
-  files of dead runs (``.NAME.tmp-PID``) too.  A run whose process id is still
-  alive is never touched.
+  written) and otherwise deletes the staging folder; a run that writes NAME
+  also deletes ``.NAME.tmp-PID`` files that older versions left.  A run whose
+  process id is still alive is never touched.
 
 Files of the folder that a run does not write are never touched.
 """
@@ -222,14 +222,17 @@ def _roll_forward(folder: Path, stage: Path) -> None:
                 os.replace(stage / name, folder / name)
 
 
-def recover_folder(folder: str | os.PathLike) -> list[str]:
-    """Finish or remove what dead seqstate runs left in ``folder``; returns the names.
+def recover_folder(folder: str | os.PathLike, names: Iterable[str] = ()) -> list[str]:
+    """Finish or remove what dead seqstate runs left in ``folder``; returns the entries.
 
-    A staging folder with a complete journal is committed (its files renamed
-    into place), any other staging folder and any ``.NAME.tmp-PID`` file of a
-    dead process is deleted.  Entries of live processes are left alone.
+    A staging folder (``.seqstate-stage-PID``) of a dead process with a complete
+    journal is committed (its files renamed into place), any other one deleted.
+    Temporary files of older versions (``.NAME.tmp-PID``) are deleted only for
+    the given output ``names``, so files of other programs in a shared folder
+    are never touched.  Entries of live processes are left alone.
     """
     folder = Path(folder)
+    wanted = set(names)
     done: list[str] = []
     try:
         entries = list(os.scandir(folder))
@@ -238,6 +241,8 @@ def recover_folder(folder: str | os.PathLike) -> list[str]:
     for entry in entries:
         stage = _STAGE_RE.match(entry.name)
         old = _OLD_TEMP_RE.match(entry.name)
+        if old and entry.name[1 : old.start(1) - len(".tmp-")] not in wanted:
+            old = None
         match = stage or old
         if match is None or _alive(int(match.group(1))):
             continue
@@ -449,6 +454,10 @@ class OutputSet:
                     raise self._fail(self._reason(error)) from None
                 raise
             self._remove_stages()
+            with contextlib.suppress(OSError):
+                for folder in {final.parent for final in self._temps}:
+                    names = [f.name for f in self._temps if f.parent == folder]
+                    recover_folder(folder, names)  # temporary files of older versions
             self._temps.clear()
             self._handles.clear()
 
