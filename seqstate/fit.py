@@ -1025,8 +1025,8 @@ def _check_output(out: Path, force: bool, inputs: Sequence[str | os.PathLike | N
     present = [f.name for f in files if f.exists() or f.is_symlink()]
     if present and not force:
         raise UsageError(
-            f"output '{out}': model files already exist ({', '.join(present)}): use --force "
-            "to replace them (other files in the folder are kept)"
+            f"output '{out}' already exists as a model ({', '.join(present)}): use --force "
+            "to replace the model's files (other files in the folder are kept)"
         )
 
 

@@ -62,7 +62,7 @@ def test_fit_force_keeps_every_file_it_did_not_write(tmp_path):
     assert run(args).exit_code == 0
     first = snapshot(out)
     line = one_error(run(args))
-    assert "model files already exist (model.toml, start.tsv" in line and "--force" in line
+    assert "already exists as a model (model.toml, start.tsv" in line and "--force" in line
     res = run([*args, "--force"])
     assert res.exit_code == 0, res.stderr
     assert fasta.read_bytes() == (FIT_DATA / "two.fa").read_bytes()
