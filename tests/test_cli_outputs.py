@@ -273,7 +273,7 @@ def test_bedgraph_write_on_a_full_disk_is_one_line(tmp_path, monkeypatch):
     monkeypatch.setattr(tracks.BedGraphTrack, "add", full)
     out = tmp_path / "out"
     line = one_error(run(["annotate", GOLDEN_FASTA, "-o", out, "-q"]))
-    assert line == "error: output cannot be written: No space left on device"
+    assert line == f"error: output folder '{out}' cannot be written: No space left on device"
     assert not out.exists()
 
 
@@ -292,7 +292,9 @@ def test_bigwig_on_a_nearly_full_disk_fails_cleanly_before_writing(tmp_path, mon
     out.mkdir()
     (out / "keep.txt").write_text("x")
     line = one_error(run(["annotate", GOLDEN_FASTA, "-o", out, "-q", "--tracks", "bigwig"]))
-    assert line.startswith("error: output cannot be written: No space left on device (bigWig ")
+    assert line.startswith(
+        f"error: output folder '{out}' cannot be written: No space left on device (bigWig "
+    )
     assert listing(out) == ["keep.txt"]
 
 
@@ -338,7 +340,9 @@ def test_file_size_limit_while_writing_is_one_line(tmp_path):
 
     res = _cli(["annotate", GOLDEN_FASTA, "-o", out, "-q"], preexec_fn=limit)
     assert res.returncode == 2, res.stderr
-    assert res.stderr.splitlines() == ["error: output cannot be written: File too large"]
+    assert res.stderr.splitlines() == [
+        f"error: output folder '{out}' cannot be written: File too large"
+    ]
     assert not out.exists()
 
 
@@ -386,3 +390,18 @@ def test_stale_staging_folder_of_a_killed_run_is_cleaned_by_the_next_run(tmp_pat
     assert listing(out) == sorted(
         f"small.{x}" for x in ("gff3", "features.tsv", "CpG_island.bedgraph", "run.json")
     )
+
+
+def test_file_size_limit_on_a_single_file_output_names_it(tmp_path):
+    out = tmp_path / "x.fa"
+
+    def limit():
+        resource.setrlimit(resource.RLIMIT_FSIZE, (2_000, 2_000))
+
+    res = _cli(
+        ["sample", "cpg-island", "--length", "20000", "--seed", "1", "-o", out, "-q"],
+        preexec_fn=limit,
+    )
+    assert res.returncode == 2, res.stderr
+    assert res.stderr.splitlines() == [f"error: output '{out}' cannot be written: File too large"]
+    assert listing(tmp_path) == []

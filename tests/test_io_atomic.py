@@ -306,7 +306,9 @@ def test_disk_full_inside_the_block_is_one_usage_error(tmp_path: Path) -> None:
         with OutputSet(tmp_path) as outputs:
             outputs.open_text("a.txt").write("x")
             raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
-    assert info.value.format() == "output cannot be written: No space left on device"
+    assert info.value.format() == (
+        f"output folder '{tmp_path}' cannot be written: No space left on device"
+    )
     assert listing(tmp_path) == []
 
 

@@ -286,6 +286,7 @@ class OutputSet:
         self.inputs = [p for p in inputs if _usable(p)]
         self._created: list[Path] = []
         self._temps: dict[Path, Path] = {}  # final path -> staged path
+        self._shown: list[str] = []  # the output names as given
         self._stages: dict[Path, Path] = {}  # folder -> its staging folder
         self._handles: list[TextIO] = []
         self._entered = False
@@ -358,6 +359,7 @@ class OutputSet:
         check_outputs([final], self.inputs, force=self.force)
         temp = self._stage_of(final.parent) / final.name
         self._temps[key] = temp
+        self._shown.append(text)
         return temp
 
     # ------------------------------------------------------------ public API
@@ -396,10 +398,11 @@ class OutputSet:
         tb: TracebackType | None,
     ) -> bool:
         self._entered = False
+        what = self._what()
         if exc_type is not None:
             self._discard()
             if isinstance(exc, OSError):
-                failure = write_failure(exc, "output")
+                failure = write_failure(exc, what)
                 if failure is not None:
                     raise failure from None
             return False
@@ -408,7 +411,7 @@ class OutputSet:
                 handle.close()
         except OSError as error:
             self._discard()
-            raise self._fail(self._reason(error)) from None
+            raise (write_failure(error, what) or self._fail(self._reason(error))) from None
         except BaseException:
             self._discard()
             raise
@@ -418,6 +421,14 @@ class OutputSet:
             raise RuntimeError(f"outputs {missing} were never written to their temporary paths")
         self._commit()
         return False
+
+    def _what(self) -> str:
+        """How a write failure names this set: its folder, or its one file."""
+        if self.out_dir is not None:
+            return f"output folder '{self.out_dir}'"
+        if len(self._shown) == 1:
+            return f"output '{self._shown[0]}'"
+        return "output"
 
     # ------------------------------------------------------------ commit and cleanup
 
