@@ -7,14 +7,106 @@ unwritable output); 3 an optional extra is missing; 130 interrupted.
 
 from __future__ import annotations
 
+import contextlib
+import io
+import os
+import signal
 import sys
 
 import click
 
 from seqstate import __version__
 from seqstate.errors import SeqstateError
+from seqstate.io.atomic import note_stop
 
 EXIT_INTERRUPTED = 130
+#: Signals that stop a run: outputs are discarded, one ``error: interrupted`` line, exit 130.
+STOP_SIGNALS = tuple(
+    getattr(signal, n) for n in ("SIGINT", "SIGTERM", "SIGHUP") if hasattr(signal, n)
+)
+
+
+class Interrupted(BaseException):
+    """Raised by the handler of a stop signal (not an Exception: nothing swallows it)."""
+
+
+def _interrupt(signum, frame):  # type: ignore[no-untyped-def]
+    note_stop(signum)  # sticky: no output set commits, even if this raise is swallowed
+    raise Interrupted(signum)
+
+
+@contextlib.contextmanager
+def _signal_handlers():
+    """SIGINT, SIGTERM and SIGHUP raise :class:`Interrupted`; SIGXFSZ is ignored, so a
+    file-size limit is a write error (OSError EFBIG), not a kill.  Restored afterwards."""
+    saved = {}
+    wanted = {s: _interrupt for s in STOP_SIGNALS}
+    if hasattr(signal, "SIGXFSZ"):
+        wanted[signal.SIGXFSZ] = signal.SIG_IGN
+    for signum, handler in wanted.items():
+        try:
+            saved[signum] = signal.signal(signum, handler)
+        except (ValueError, OSError):  # not the main thread
+            pass
+    try:
+        yield
+    finally:
+        for signum, handler in saved.items():
+            with contextlib.suppress(ValueError, OSError, TypeError):
+                signal.signal(signum, handler)
+
+
+def _silence_stdout() -> None:
+    """After a failed write to standard output, keep the exit flush from failing again."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        os.close(devnull)
+    except (OSError, ValueError, AttributeError, io.UnsupportedOperation):
+        pass
+
+
+def echo_stdout(text: str) -> None:
+    """Write ``text`` to standard output; a full device is one ``error:`` line (exit 2)."""
+    from seqstate.errors import UsageError
+    from seqstate.io.atomic import write_failure
+
+    try:
+        click.echo(text, nl=False)
+        sys.stdout.flush()
+    except BrokenPipeError:
+        raise
+    except OSError as exc:
+        failure = write_failure(exc, "standard output")
+        if failure is None:
+            raise
+        _silence_stdout()
+        raise UsageError(failure.message) from None
+
+
+def not_empty(ctx, param, value):  # type: ignore[no-untyped-def]
+    """Click callback: an option given as '' is a usage error, not 'no value'."""
+    if value is not None and not isinstance(value, tuple) and not str(value).strip():
+        raise click.BadParameter("is empty", ctx=ctx, param=param)
+    if isinstance(value, tuple) and any(not str(v).strip() for v in value):
+        raise click.BadParameter("is empty", ctx=ctx, param=param)
+    return value
+
+
+def force_option(command):
+    """--force, the same on every command that writes files."""
+    return click.option(
+        "--force",
+        is_flag=True,
+        help="Replace output files that exist (an input is never replaced).",
+    )(command)
+
+
+def quiet_option(command):
+    """-q/--quiet, the same on every command."""
+    return click.option("-q", "--quiet", is_flag=True, help="No progress or summary on stderr.")(
+        command
+    )
 
 
 class _Group(click.Group):
@@ -25,9 +117,12 @@ class _Group(click.Group):
         debug = "--debug" in args
         try:
             kwargs.setdefault("obj", {"argv": list(args)})
-            return super().main(
-                args=args, prog_name=prog_name or "seqstate", standalone_mode=False, **kwargs
-            )
+            with _signal_handlers():
+                value = super().main(
+                    args=args, prog_name=prog_name or "seqstate", standalone_mode=False, **kwargs
+                )
+                sys.stdout.flush()
+            return value
         except click.exceptions.Exit as exc:
             sys.exit(exc.exit_code)
         except click.exceptions.Abort:
@@ -44,13 +139,23 @@ class _Group(click.Group):
                 raise
             click.echo(f"error: {exc.format()}", err=True)
             sys.exit(exc.exit_code)
-        except KeyboardInterrupt:
+        except (KeyboardInterrupt, Interrupted):
             if debug:
                 raise
             click.echo("error: interrupted", err=True)
             sys.exit(EXIT_INTERRUPTED)
         except BrokenPipeError:
+            _silence_stdout()
             sys.exit(1)
+        except OSError as exc:
+            from seqstate.io.atomic import write_failure
+
+            failure = write_failure(exc, "output")
+            if debug or failure is None:
+                raise
+            _silence_stdout()
+            click.echo(f"error: {failure.format()}", err=True)
+            sys.exit(failure.exit_code)
 
 
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
@@ -197,18 +302,30 @@ def summary(m, path: str, sha: str) -> str:
     "out_dir",
     default="seqstate-out",
     show_default=True,
-    help="Output folder (created if absent).",
+    callback=not_empty,
+    help="Output folder (created if absent); '-': only the GFF3, on standard output.",
 )
 @decoding_options
-@click.option("--region", default=None, help="Only ID:START-END (1-based, inclusive).")
+@click.option(
+    "--region",
+    default=None,
+    callback=not_empty,
+    help="Only ID:START-END (1-based, inclusive); the output names then carry it.",
+)
 @masked_option
 @click.option(
     "--tracks",
     type=click.Choice(["bedgraph", "bigwig", "both", "none"]),
-    default="bedgraph",
-    show_default=True,
-    help="Per-base posterior track format.",
+    default=None,
+    help="Per-base posterior track format [default: bedgraph; none with -o -].",
 )
+@click.option(
+    "--stem",
+    default=None,
+    callback=not_empty,
+    help="Output file names start with this [default: the FASTA name, plus the region].",
+)
+@force_option
 @click.option(
     "--precision",
     type=click.IntRange(0, 8),
@@ -236,13 +353,18 @@ def annotate_cmd(
     region,
     masked,
     tracks,
+    stem,
+    force,
     precision,
     split_unknown,
     quiet,
 ) -> None:
     """Annotate the records of FASTA (plain or gzip; '-' for stdin) with a model."""
-    from seqstate.pipeline import AnnotateOptions, annotate
+    from seqstate.pipeline import STDOUT, AnnotateOptions, annotate
 
+    if tracks is None:
+        tracks = "none" if out_dir == STDOUT else "bedgraph"
+    gff_out = io.StringIO() if out_dir == STDOUT else None
     opts = AnnotateOptions(
         input=fasta,
         model=model,
@@ -256,14 +378,18 @@ def annotate_cmd(
         precision=precision,
         split_unknown=split_unknown,
         command_line=command_line(obj),
+        force=force,
+        stem=stem,
     )
-    report = annotate(opts, progress_enabled=(not quiet) and sys.stderr.isatty())
+    report = annotate(opts, progress_enabled=(not quiet) and sys.stderr.isatty(), stdout=gff_out)
+    if gff_out is not None:
+        echo_stdout(gff_out.getvalue())
     if not quiet:
         n = sum(r["features"] for r in report["records"])
         bases = sum(r["end_1based"] - r["start_1based"] + 1 for r in report["records"])
+        where = "stdout" if gff_out is not None else f"{out_dir}/"
         click.echo(
-            f"seqstate: {len(report['records'])} record(s), {bases} bases, {n} features "
-            f"-> {out_dir}/",
+            f"seqstate: {len(report['records'])} record(s), {bases} bases, {n} features -> {where}",
             err=True,
         )
 
@@ -273,15 +399,32 @@ def annotate_cmd(
 @click.argument("model")
 @click.option("--length", type=int, required=True, help="Bases per record.")
 @click.option("--records", type=int, default=1, show_default=True)
-@click.option("--seed", type=int, required=True, help="Random seed (same seed, same output).")
-@click.option("-o", "--out", "out_fasta", required=True, help="FASTA file to write.")
-@click.option("--truth", "truth", default=None, help="GFF3 file for the true labelled runs.")
-@click.option("--prefix", default="sim", show_default=True, help="Record ID prefix.")
-def sample_cmd(model, length, records, seed, out_fasta, truth, prefix) -> None:
+@click.option(
+    "--seed", type=int, required=True, help="Random seed, 0 or more (same seed, same output)."
+)
+@click.option(
+    "-o", "--out", "out_fasta", required=True, callback=not_empty, help="FASTA file to write."
+)
+@click.option(
+    "--truth",
+    "truth",
+    default=None,
+    callback=not_empty,
+    help="GFF3 file for the true labelled runs.",
+)
+@click.option(
+    "--prefix",
+    default="sim",
+    show_default=True,
+    help="Record ID prefix (no whitespace or control characters).",
+)
+@force_option
+@quiet_option
+def sample_cmd(model, length, records, seed, out_fasta, truth, prefix, force, quiet) -> None:
     """Draw synthetic records and their true state paths from MODEL."""
     from seqstate.pipeline import SampleOptions, sample
 
-    sample(
+    result = sample(
         SampleOptions(
             model=model,
             length=length,
@@ -290,8 +433,16 @@ def sample_cmd(model, length, records, seed, out_fasta, truth, prefix) -> None:
             out_fasta=out_fasta,
             truth_gff3=truth,
             prefix=prefix,
+            force=force,
         )
     )
+    if not quiet:
+        truth_part = f", {result['features']} true feature(s) -> {truth}" if truth else ""
+        click.echo(
+            f"seqstate: {result['records']} record(s) of {result['length']} bases "
+            f"-> {out_fasta}{truth_part}",
+            err=True,
+        )
 
 
 # ---------------------------------------------------------------- score
@@ -316,12 +467,18 @@ def sample_cmd(model, length, records, seed, out_fasta, truth, prefix) -> None:
     help="Label to score (its states against the rest); default: the model's only label.",
 )
 @click.option(
-    "-o", "--out", "out_tsv", default=None, help="TSV file to write; default: standard output."
+    "-o",
+    "--out",
+    "out_tsv",
+    default=None,
+    callback=not_empty,
+    help="TSV file to write; default: standard output.",
 )
 @click.option(
     "--gff",
     "out_gff",
     default=None,
+    callback=not_empty,
     help="Also write the regions with their scores as GFF3 ('-' for stdout).",
 )
 @click.option(
@@ -342,9 +499,21 @@ def sample_cmd(model, length, records, seed, out_fasta, truth, prefix) -> None:
     "--type", "types", multiple=True, help="GFF3 regions: only features of this type (repeatable)."
 )
 @masked_option
-@click.option("-q", "--quiet", is_flag=True, help="No summary on stderr.")
+@force_option
+@quiet_option
 def score_cmd(
-    fasta, regions, model, label, out_tsv, out_gff, flank, regions_format, types, masked, quiet
+    fasta,
+    regions,
+    model,
+    label,
+    out_tsv,
+    out_gff,
+    flank,
+    regions_format,
+    types,
+    masked,
+    force,
+    quiet,
 ) -> None:
     """Score the --regions on the records of FASTA (plain or gzip; '-' for stdin)."""
     from seqstate.score import ScoreOptions, score
@@ -361,10 +530,11 @@ def score_cmd(
             regions_format=None if regions_format == "auto" else regions_format,
             types=tuple(types),
             masked=masked,
+            force=force,
         )
     )
     if result.stdout is not None:
-        click.echo(result.stdout, nl=False)
+        echo_stdout(result.stdout)
     if not quiet:
         where = out_tsv if out_tsv not in (None, "-") else "stdout"
         click.echo(
@@ -378,7 +548,10 @@ def score_cmd(
 @main.command("plot")
 @click.argument("fasta")
 @click.option(
-    "--region", required=True, help="ID:START-END (1-based, inclusive) or ID for a whole record."
+    "--region",
+    required=True,
+    callback=not_empty,
+    help="ID:START-END (1-based, inclusive) or ID for a whole record.",
 )
 @click.option(
     "-m",
@@ -392,6 +565,7 @@ def score_cmd(
     "--out",
     "out",
     required=True,
+    callback=not_empty,
     help="Figure file: .png, .svg or .pdf (the format follows the name).",
 )
 @click.option("--reference", default=None, help="GFF3 or BED features to show in their own lane.")
@@ -410,10 +584,11 @@ def score_cmd(
     show_default=True,
     help="Dots per inch (PNG pixels = inches x dpi).",
 )
-@click.option("--force", is_flag=True, help="Allow regions over 2,000,000 bases.")
+@click.option("--allow-large", is_flag=True, help="Allow regions over 2,000,000 bases.")
 @decoding_options
 @masked_option
-@click.option("-q", "--quiet", is_flag=True, help="No summary on stderr.")
+@force_option
+@quiet_option
 def plot_cmd(
     fasta,
     region,
@@ -424,11 +599,12 @@ def plot_cmd(
     width,
     height,
     dpi,
-    force,
+    allow_large,
     decode,
     min_posterior,
     min_length,
     masked,
+    force,
     quiet,
 ) -> None:
     """Draw posteriors and features of one region of FASTA (needs the 'plot' extra)."""
@@ -445,6 +621,7 @@ def plot_cmd(
             width=width,
             height=height,
             dpi=dpi,
+            allow_large=allow_large,
             force=force,
             decode=decode,
             min_posterior=min_posterior,
@@ -461,8 +638,9 @@ def plot_cmd(
 
 
 @main.command("fit")
+@click.argument("fasta_arg", metavar="FASTA", required=False)
 @click.option("-m", "--model", required=True, help="Start model: built-in NAME or PATH.")
-@click.option("--fasta", required=True, help="Sequences to fit to (FASTA, plain or gzip).")
+@click.option("--fasta", default=None, hidden=True, help="Same as the FASTA argument.")
 @click.option(
     "--labels",
     default=None,
@@ -508,12 +686,24 @@ def plot_cmd(
     "or fail naming it.",
 )
 @click.option("--name", default=None, help="Name of the fitted model [default: folder name].")
-@click.option("-o", "--out", "out_dir", required=True, help="Model folder to write.")
-@click.option("--force", is_flag=True, help="Replace an existing model folder at --out.")
-@click.option("-q", "--quiet", is_flag=True, help="No progress lines on stderr.")
+@click.option(
+    "-o",
+    "--out",
+    "out_dir",
+    required=True,
+    callback=not_empty,
+    help="Model folder to write (created if absent; other files in it are kept).",
+)
+@click.option(
+    "--force",
+    is_flag=True,
+    help="Replace the model files (manifest, tables) in --out; other files are kept.",
+)
+@quiet_option
 @click.pass_obj
 def fit_cmd(
     obj,
+    fasta_arg,
     model,
     fasta,
     labels,
@@ -530,8 +720,16 @@ def fit_cmd(
     force,
     quiet,
 ) -> None:
-    """Fit a model's tables to sequences: count from known features and/or Baum-Welch."""
+    """Fit a model's tables to the sequences of FASTA: count from known features and/or
+    Baum-Welch."""
+    from seqstate.errors import UsageError
     from seqstate.fit import FitOptions, fit, stderr_log
+
+    if fasta_arg is not None and fasta is not None and fasta_arg != fasta:
+        raise UsageError(f"two FASTA inputs given ('{fasta_arg}' and --fasta '{fasta}'): give one")
+    fasta = fasta_arg if fasta_arg is not None else fasta
+    if fasta is None:
+        raise UsageError("missing the FASTA argument: seqstate fit FASTA -m MODEL ... -o OUT")
 
     opts = FitOptions(
         model=model,
@@ -565,14 +763,16 @@ def fit_cmd(
 @click.argument("reference")
 @click.option(
     "--type",
-    "feature_type",
-    default=None,
-    help="Feature type to compare (CDS, exon, CpG_island, ...); default: CDS if either "
-    "file has CDS, else the only type both files have.",
+    "feature_types",
+    multiple=True,
+    callback=not_empty,
+    help="Feature type to compare (CDS, exon, CpG_island, ...), repeatable: one report "
+    "per type; default: CDS if either file has CDS, else the only type both files have.",
 )
 @click.option(
     "--region",
     default=None,
+    callback=not_empty,
     help="Only ID:START-END (1-based, inclusive) or ID; also gives the span of a sequence "
     "without a ##sequence-region line.",
 )
@@ -581,29 +781,41 @@ def fit_cmd(
     "--out",
     "out",
     default=None,
+    callback=not_empty,
     help="Report file, .tsv or .json (the format follows the name); default: a table on "
     "standard output.",
 )
-@click.option("-q", "--quiet", is_flag=True, help="No summary on stderr when writing -o.")
-def compare_cmd(predicted, reference, feature_type, region, out, quiet) -> None:
+@force_option
+@quiet_option
+def compare_cmd(predicted, reference, feature_types, region, out, force, quiet) -> None:
     """Accuracy of PREDICTED features against REFERENCE features (both GFF3)."""
     from seqstate.compare import compare_files, report_format, report_table, write_report
+    from seqstate.io.atomic import check_outputs
 
     if out is not None:
         report_format(out)
-    result = compare_files(predicted, reference, feature_type=feature_type, region=region)
+        check_outputs([out], [predicted, reference], force=force)
+    results = [
+        compare_files(predicted, reference, feature_type=t, region=region)
+        for t in (list(dict.fromkeys(feature_types)) or [None])
+    ]
     if out is None:
-        click.echo(report_table(result), nl=False)
-        return
-    write_report(result, out)
-    if not quiet:
-        sn = result["nucleotide"]["strand_aware"]["sensitivity"]
-        sp = result["nucleotide"]["strand_aware"]["specificity"]
-        shown = "NA" if sn is None else f"{sn:.4f}", "NA" if sp is None else f"{sp:.4f}"
-        click.echo(
-            f"seqstate: {result['type']}, strand-aware base Sn {shown[0]} Sp {shown[1]} -> {out}",
-            err=True,
+        echo_stdout("\n".join(report_table(result) for result in results))
+    else:
+        write_report(
+            results[0] if len(results) == 1 else results,
+            out,
+            force=force,
+            inputs=[predicted, reference],
         )
+    if not quiet:
+        parts = []
+        for result in results:
+            sn = result["nucleotide"]["strand_aware"]["sensitivity"]
+            sp = result["nucleotide"]["strand_aware"]["specificity"]
+            shown = "NA" if sn is None else f"{sn:.4f}", "NA" if sp is None else f"{sp:.4f}"
+            parts.append(f"{result['type']}, strand-aware base Sn {shown[0]} Sp {shown[1]}")
+        click.echo(f"seqstate: {'; '.join(parts)} -> {out or 'stdout'}", err=True)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -776,8 +776,29 @@ def report_format(path: str | Path) -> str:
     return REPORT_FORMATS[suffix]
 
 
-def write_report(result: dict, path: str | Path) -> None:
-    """Write the report as TSV or JSON (by the name's ending), all-or-nothing."""
-    text = report_tsv(result) if report_format(path) == "tsv" else report_json(result)
-    with atomic_text(path) as handle:
+def write_report(
+    result: dict | list[dict],
+    path: str | Path,
+    *,
+    force: bool = False,
+    inputs: tuple | list = (),
+) -> None:
+    """Write the report as TSV or JSON (by the name's ending), all-or-nothing.
+
+    Several results (one per ``--type``): JSON holds a list of them; TSV puts a
+    ``type`` column first.  The overwrite rule of :mod:`seqstate.io.atomic`
+    applies (``force``, ``inputs``).
+    """
+    tsv = report_format(path) == "tsv"
+    if isinstance(result, list):
+        if tsv:
+            rows = ["type\tmetric\tvalue"]
+            for one in result:
+                rows += [f"{one['type']}\t{row}" for row in report_tsv(one).splitlines()[1:]]
+            text = "\n".join(rows) + "\n"
+        else:
+            text = json.dumps(result, indent=2, ensure_ascii=False) + "\n"
+    else:
+        text = report_tsv(result) if tsv else report_json(result)
+    with atomic_text(path, force=force, inputs=inputs) as handle:
         handle.write(text)

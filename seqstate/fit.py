@@ -77,7 +77,6 @@ from __future__ import annotations
 import hashlib
 import math
 import os
-import shutil
 import sys
 import time
 from collections.abc import Callable, Sequence
@@ -95,7 +94,8 @@ from seqstate.errors import (
     SequenceFormatError,
     UsageError,
 )
-from seqstate.io.tables import MANIFEST, load_model, model_sha256, save_model
+from seqstate.io.atomic import OutputSet, check_outputs
+from seqstate.io.tables import MANIFEST, TABLE_FILES, load_model, model_sha256, render_tables
 from seqstate.model import Model, make_model, validate
 
 #: State rules that are implemented (see :func:`assign_states`).
@@ -1110,49 +1110,54 @@ def file_sha256(path: str | os.PathLike) -> str:
     return h.hexdigest()
 
 
-def _check_output(out: Path, force: bool) -> None:
-    if out.exists() or out.is_symlink():
-        if not force:
-            raise UsageError(
-                f"output '{out}' already exists (use --force to replace a model folder)"
-            )
-        if not (out.is_dir() and (out / MANIFEST).is_file()):
-            raise UsageError(f"output '{out}' exists and is not a model folder: not replaced")
+def _model_file_names() -> list[str]:
+    """The files a model folder of ours consists of: manifest and tables."""
+    return [MANIFEST, *TABLE_FILES.values()]
 
 
-def write_model_folder(model: Model, out: str | os.PathLike, *, force: bool = False) -> Path:
-    """Write ``model`` to the folder ``out`` atomically: into a temporary folder beside
-    it, read back and checked, then renamed.  With ``force`` an existing model folder
-    is replaced.  Returns the folder."""
-    out = Path(out)
-    _check_output(out, force)
-    parent = out.parent
-    try:
-        parent.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
+def _check_output(out: Path, force: bool, inputs: Sequence[str | os.PathLike | None] = ()) -> None:
+    """The overwrite rule for a model folder: its own files (manifest and tables) are
+    the outputs; the folder may exist and hold other files, which are never touched."""
+    if not str(out):
+        raise UsageError("-o/--out is empty: expected a model folder name")
+    if (out.exists() or out.is_symlink()) and not out.is_dir():
+        raise UsageError(f"output '{out}' exists and is not a folder: not replaced")
+    files = [out / name for name in _model_file_names()]
+    check_outputs(files, inputs, force=True)  # an input among them: always refused
+    present = [f.name for f in files if f.exists() or f.is_symlink()]
+    if present and not force:
         raise UsageError(
-            f"output folder '{parent}' cannot be created: {exc.strerror or exc}"
-        ) from None
-    tmp = parent / f".{out.name}.tmp-{os.getpid()}"
-    old = parent / f".{out.name}.old-{os.getpid()}"
-    try:
-        if tmp.exists():
-            shutil.rmtree(tmp)
-        save_model(model, tmp)
-        back = load_model(tmp)
+            f"output '{out}' already exists as a model ({', '.join(present)}): use --force "
+            "to replace the model's files (other files in the folder are kept)"
+        )
+
+
+def write_model_folder(
+    model: Model,
+    out: str | os.PathLike,
+    *,
+    force: bool = False,
+    inputs: Sequence[str | os.PathLike | None] = (),
+) -> Path:
+    """Write ``model``'s manifest and tables into the folder ``out`` all-or-nothing.
+
+    The files are staged inside ``out``, read back and checked, then committed
+    together (see :mod:`seqstate.io.atomic`).  Only the model's own files are
+    written; with ``force`` existing ones are replaced, and any other file in
+    the folder is left as it is.  ``inputs`` are never overwritten.  Returns the
+    folder.
+    """
+    out = Path(out)
+    _check_output(out, force, inputs)
+    with OutputSet(out, force=force, inputs=inputs) as outs:
+        stage = None
+        for name, text in render_tables(model):
+            with outs.open_text(name) as fh:
+                fh.write(text)
+                stage = Path(fh.name).parent
+        back = load_model(stage)
         if not back.equals(model):
             raise RuntimeError("the written model does not read back identically")
-        if out.exists():
-            os.replace(out, old)
-            os.replace(tmp, out)
-            shutil.rmtree(old, ignore_errors=True)
-        else:
-            os.replace(tmp, out)
-    except OSError as exc:
-        raise UsageError(f"output '{out}' cannot be written: {exc.strerror or exc}") from None
-    finally:
-        if tmp.exists():
-            shutil.rmtree(tmp, ignore_errors=True)
     return out
 
 
@@ -1173,6 +1178,12 @@ def _read_sequences(path: str, model: Model) -> list:
                     where=f"record '{rec.id}'",
                 )
     return records
+
+
+def _fit_inputs(opts: FitOptions) -> list:
+    from seqstate.pipeline import model_inputs
+
+    return [opts.fasta, opts.labels, *model_inputs(opts.model)]
 
 
 def fit(opts: FitOptions, *, log: Log = _quiet) -> FitReport:
@@ -1197,7 +1208,8 @@ def fit(opts: FitOptions, *, log: Log = _quiet) -> FitReport:
     if opts.em and not opts.tol >= 0:
         raise UsageError(f"--tol {opts.tol} must be a number >= 0")
     out = Path(opts.out)
-    _check_output(out, opts.force)
+    inputs = _fit_inputs(opts)
+    _check_output(out, opts.force, inputs)
     start_model = load_model(opts.model)
     frozen = parse_freeze(start_model, opts.freeze)
     rule = resolve_state_rule(start_model) if opts.labels else None
@@ -1404,7 +1416,7 @@ def fit(opts: FitOptions, *, log: Log = _quiet) -> FitReport:
             f"the fitted model is not valid ({exc.message}); a --pseudocount above 0 keeps "
             "every allowed move possible"
         ) from None
-    write_model_folder(final, out, force=opts.force)
+    write_model_folder(final, out, force=opts.force, inputs=inputs)
     return FitReport(final, out, final_ll, prov["method"], iterations, stop_reason)
 
 

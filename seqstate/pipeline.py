@@ -7,6 +7,8 @@ Nothing here parses options or prints to the terminal except through the
 
 from __future__ import annotations
 
+import contextlib
+import io
 import json
 import math
 import re
@@ -14,6 +16,7 @@ import sys
 import time
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
+from typing import TextIO
 
 import numpy as np
 
@@ -32,7 +35,7 @@ from seqstate.decode import (
 from seqstate.engine import api
 from seqstate.errors import ImpossibleSequenceError, SequenceFormatError, UsageError
 from seqstate.io import tracks
-from seqstate.io.atomic import OutputSet
+from seqstate.io.atomic import OutputSet, check_outputs
 from seqstate.io.fasta import Record, read_fasta
 from seqstate.io.gff3 import Feature, GFF3Writer
 from seqstate.io.regions import Region, check_region, parse_region
@@ -89,16 +92,59 @@ class AnnotateOptions:
     precision: int = 4
     split_unknown: int = 10
     command_line: list[str] = field(default_factory=list)
+    force: bool = False
+    stem: str | None = None
 
 
-def input_stem(path: str) -> str:
-    """File-name stem used for outputs: ``asm.fa.gz`` -> ``asm``; stdin -> ``stdin``."""
+#: ``out_dir`` that sends the GFF3 to standard output (no tracks, no other files).
+STDOUT = "-"
+
+
+def input_stem(path: str, region: Region | None = None) -> str:
+    """File-name stem used for outputs: ``asm.fa.gz`` -> ``asm``; stdin -> ``stdin``.
+
+    With a region the stem carries it, 1-based inclusive: ``asm.chr4_1001-2000``
+    (characters of the record ID outside ``A-Z a-z 0-9 . _ + -`` become ``_``),
+    so runs on different regions write different files.
+    """
     if path == "-":
-        return "stdin"
-    name = Path(path).name
-    name = re.sub(r"\.(gz|bgz)$", "", name)
-    name = re.sub(r"\.(fa|fasta|fna|fas|seq|txt)$", "", name, flags=re.IGNORECASE)
-    return name or "input"
+        name = "stdin"
+    else:
+        name = Path(path).name
+        name = re.sub(r"\.(gz|bgz)$", "", name)
+        name = re.sub(r"\.(fa|fasta|fna|fas|seq|txt)$", "", name, flags=re.IGNORECASE)
+        name = name or "input"
+    if region is not None:
+        seqid = re.sub(r"[^A-Za-z0-9._+-]", "_", region.seqid)
+        name += f".{seqid}_{region.start0 + 1}-{region.end0}"
+    return name
+
+
+def check_stem(stem: str) -> str:
+    """A ``--stem`` value: a plain file-name part, no folder, no whitespace or control chars."""
+    if (
+        not stem
+        or stem in (".", "..")
+        or "/" in stem
+        or "\\" in stem
+        or any(ch.isspace() or ord(ch) < 0x20 or ord(ch) == 0x7F for ch in stem)
+    ):
+        raise UsageError(
+            f"--stem {stem!r} must be a plain file-name part (no folder, no spaces or "
+            "control characters)"
+        )
+    return stem
+
+
+def output_names(stem: str, groups: list[Group], want_bedgraph: bool, want_bigwig: bool) -> list:
+    """Every file name an annotate run writes into its output folder, in writing order."""
+    names = [f"{stem}.gff3", f"{stem}.features.tsv"]
+    for grp in groups:
+        if want_bedgraph:
+            names.append(f"{stem}.{grp.track_name}.bedgraph")
+        if want_bigwig:
+            names.append(f"{stem}.{grp.track_name}.bw")
+    return names + [f"{stem}.run.json"]
 
 
 def read_records(path: str, model: Model) -> list[Record]:
@@ -207,8 +253,27 @@ def feature_of(seqid: str, offset0: int, grp: Group, seg: Segment, number: int) 
     )
 
 
-def annotate(opts: AnnotateOptions, *, progress_enabled: bool = False) -> dict:
-    """Run the main job; returns the run report (also written as JSON)."""
+def annotate(
+    opts: AnnotateOptions, *, progress_enabled: bool = False, stdout: TextIO | None = None
+) -> dict:
+    """Run the main job; returns the run report (also written as JSON).
+
+    ``opts.out_dir`` ``"-"`` writes only the GFF3, to ``stdout`` (default
+    ``sys.stdout``), once every record is done; otherwise the outputs go into the
+    folder and follow :func:`seqstate.io.atomic.check_outputs` (``opts.force``).
+    """
+    if not opts.out_dir:
+        raise UsageError("-o/--out is empty: expected a folder name, or '-' for stdout")
+    if opts.region is not None and not opts.region.strip():
+        raise UsageError("--region is empty: expected ID:START-END or ID")
+    to_stdout = opts.out_dir == STDOUT
+    if to_stdout and opts.tracks != "none":
+        raise UsageError(
+            f"-o - writes only the GFF3 to standard output; --tracks {opts.tracks} needs an "
+            "output folder"
+        )
+    if opts.stem is not None:
+        check_stem(opts.stem)
     model = load_model(opts.model)
     decode = opts.decode or model.decode
     if decode not in ("posterior", "viterbi"):
@@ -229,7 +294,7 @@ def annotate(opts: AnnotateOptions, *, progress_enabled: bool = False) -> dict:
         _check_symbols(records, model, opts.input)
     lengths = {r.id: len(r.seq) for r in records}
     region: Region | None = None
-    if opts.region:
+    if opts.region is not None:
         region = check_region(parse_region(opts.region), lengths)
         records = [r for r in records if r.id == region.seqid]
     spans = []
@@ -238,11 +303,14 @@ def annotate(opts: AnnotateOptions, *, progress_enabled: bool = False) -> dict:
             spans.append((rec, region.start0, region.end0))
         else:
             spans.append((rec, 0, len(rec.seq)))
-    stem = input_stem(opts.input)
+    stem = opts.stem if opts.stem is not None else input_stem(opts.input, region)
     want_bedgraph = opts.tracks in ("bedgraph", "both")
     want_bigwig = opts.tracks in ("bigwig", "both")
     if want_bigwig:
         tracks.require_bigwig()
+    if not to_stdout:
+        names = output_names(stem, groups, want_bedgraph, want_bigwig)
+        check_outputs([Path(opts.out_dir) / n for n in names], [opts.input], force=opts.force)
     sha = model_sha256(model)
     report: dict = {
         "schema": REPORT_SCHEMA,
@@ -283,6 +351,7 @@ def annotate(opts: AnnotateOptions, *, progress_enabled: bool = False) -> dict:
             want_bigwig,
             report,
             progress,
+            stdout,
         )
     except ImpossibleSequenceError as exc:
         raise ImpossibleSequenceError(exc.message, path=opts.input) from None
@@ -301,13 +370,21 @@ def _annotate_into(
     want_bigwig,
     report,
     progress,
+    stdout=None,
 ) -> dict:
-    with OutputSet(opts.out_dir) as outs:
+    to_stdout = opts.out_dir == STDOUT
+    out_dir = None if to_stdout else opts.out_dir  # nothing is staged with -o -
+    with OutputSet(out_dir, force=opts.force, inputs=[opts.input]) as outs:
         gff_name = f"{stem}.gff3"
         tsv_name = f"{stem}.features.tsv"
-        gff = GFF3Writer(outs.open_text(gff_name))
+        if to_stdout:
+            gff_text = io.StringIO()
+            gff = GFF3Writer(gff_text)
+            tsv = io.StringIO()  # the feature table is not written with -o -
+        else:
+            gff = GFF3Writer(outs.open_text(gff_name))
+            tsv = outs.open_text(tsv_name)
         gff.header([(rec.id, s + 1, e) for rec, s, e in spans])
-        tsv = outs.open_text(tsv_name)
         gene_mode = is_gene_model(model)
         columns = ["seqid", "start_1based", "end_1based", "strand", "type", "id"] + BASE_COLUMNS
         if gene_mode:
@@ -370,12 +447,12 @@ def _annotate_into(
                 feat = feature_of(rec.id, s0, groups[seg.group], seg, counters[seg.group])
                 gff.write(feat)
                 row = [
-                    rec.id,
+                    tracks.escape_text(rec.id),
                     str(feat.start0 + 1),
                     str(feat.end0),
                     feat.strand,
                     feat.type,
-                    feat.get("ID") or "",
+                    tracks.escape_text(feat.get("ID") or ""),
                 ]
                 row += [
                     _fmt(seg.scores[c], SCORE_FORMATS[c]) if c in seg.scores else ""
@@ -403,12 +480,17 @@ def _annotate_into(
             del post, codes
         for bw in bigwigs:
             bw.close()
-        report["outputs"] = sorted(names + [f"{stem}.run.json"])
-        report_name = f"{stem}.run.json"
-        with outs.open_text(report_name) as fh:
-            json.dump(report, fh, indent=2, sort_keys=False)
-            fh.write("\n")
+        if to_stdout:
+            report["outputs"] = []
+        else:
+            report["outputs"] = sorted(names + [f"{stem}.run.json"])
+            report_name = f"{stem}.run.json"
+            with outs.open_text(report_name) as fh:
+                json.dump(report, fh, indent=2, sort_keys=False)
+                fh.write("\n")
     progress.finish()
+    if to_stdout:
+        (stdout or sys.stdout).write(gff_text.getvalue())
     return report
 
 
@@ -581,18 +663,51 @@ class SampleOptions:
     truth_gff3: str | None = None
     prefix: str = "sim"
     width: int = 60
+    force: bool = False
+
+
+def model_inputs(spec: str) -> list[Path]:
+    """The files of a model (manifest and tables) an output must never replace."""
+    from seqstate.io.tables import TABLE_FILES, resolve_model_path
+
+    manifest = resolve_model_path(spec)
+    return [manifest] + [manifest.parent / name for name in TABLE_FILES.values()]
+
+
+def check_prefix(prefix: str) -> str:
+    """A record ID prefix: no whitespace or control characters (FASTA IDs end at a space)."""
+    bad = [ch for ch in prefix if ch.isspace() or ord(ch) < 0x20 or ord(ch) == 0x7F]
+    if bad:
+        raise UsageError(
+            f"--prefix {prefix!r} holds {bad[0]!r}: record IDs cannot contain whitespace or "
+            "control characters"
+        )
+    return prefix
 
 
 def sample(opts: SampleOptions) -> dict:
-    """Draw records and their true paths; write FASTA and the truth as GFF3."""
+    """Draw records and their true paths; write FASTA and the truth as GFF3.
+
+    Both files are checked by :func:`seqstate.io.atomic.check_outputs` before
+    anything is drawn and committed together.
+    """
     from seqstate.engine.sampling import sample_record
-    from seqstate.io.atomic import atomic_text
     from seqstate.io.fasta import write_fasta
 
     if opts.length < 1:
         raise UsageError(f"--length {opts.length} must be at least 1")
     if opts.records < 1:
         raise UsageError(f"--records {opts.records} must be at least 1")
+    if opts.seed < 0:
+        raise UsageError(f"--seed {opts.seed} must be 0 or more")
+    check_prefix(opts.prefix)
+    if not opts.out_fasta:
+        raise UsageError("-o/--out is empty: expected a FASTA file name")
+    if opts.truth_gff3 is not None and not opts.truth_gff3:
+        raise UsageError("--truth is empty: expected a GFF3 file name")
+    if "-" in (opts.out_fasta, opts.truth_gff3):
+        raise UsageError("sample writes files: '-' (standard output) is not accepted")
+    check_outputs([opts.out_fasta, opts.truth_gff3], model_inputs(opts.model), force=opts.force)
     model = load_model(opts.model)
     tables = api.prepare(model)
     groups = track_groups(model)
@@ -617,11 +732,10 @@ def sample(opts: SampleOptions) -> dict:
             truths.append((rid, genes_from_path(path, model)))
         else:
             truths.append((rid, segments_from_path(path, state_group)))
-    with atomic_text(opts.out_fasta) as fh:
-        write_fasta(fh, records, width=opts.width)
     n_features = 0
+    truth_text = io.StringIO()  # written with the FASTA below, as one output set
     if opts.truth_gff3:
-        with atomic_text(opts.truth_gff3) as fh:
+        with contextlib.nullcontext(truth_text) as fh:
             gff = GFF3Writer(fh)
             gff.header([(rec.id, 1, len(rec.seq)) for rec in records])
             for rid, segs in truths:
@@ -639,4 +753,8 @@ def sample(opts: SampleOptions) -> dict:
                     feat.score = None
                     gff.write(feat)
                     n_features += 1
+    with OutputSet(force=opts.force, inputs=model_inputs(opts.model)) as outs:
+        write_fasta(outs.open_text(opts.out_fasta), records, width=opts.width)
+        if opts.truth_gff3:
+            outs.open_text(opts.truth_gff3).write(truth_text.getvalue())
     return {"records": opts.records, "length": opts.length, "features": n_features}

@@ -36,7 +36,7 @@ from seqstate.decode import (
 )
 from seqstate.engine import api
 from seqstate.errors import ImpossibleSequenceError, OptionalDependencyError, UsageError
-from seqstate.io.atomic import OutputSet
+from seqstate.io.atomic import OutputSet, check_outputs
 from seqstate.io.fasta import display_name
 from seqstate.io.regions import check_region, parse_region
 from seqstate.io.tables import load_model
@@ -128,7 +128,8 @@ class PlotOptions:
     width: float = 10.0
     height: float = 4.0
     dpi: int = 100
-    force: bool = False
+    force: bool = False  # replace an existing figure file
+    allow_large: bool = False  # regions over MAX_REGION bases
     decode: str | None = None
     min_posterior: float = 0.5
     min_length: int = 1
@@ -147,8 +148,7 @@ def figure_format(out: str) -> str:
 
 def _check_options(opts: PlotOptions) -> None:
     figure_format(opts.out)
-    if Path(opts.out).is_dir():
-        raise UsageError(f"output file '{opts.out}' is a directory, expected a file name")
+    check_outputs([opts.out], _inputs(opts), force=opts.force)
     if not (opts.width > 0 and opts.height > 0):
         raise UsageError(f"--width {opts.width} and --height {opts.height} must be positive")
     if opts.dpi < 10:
@@ -167,12 +167,18 @@ def _check_options(opts: PlotOptions) -> None:
         raise UsageError("FASTA and --reference cannot both be standard input ('-')")
 
 
+def _inputs(opts: PlotOptions) -> list:
+    from seqstate.pipeline import model_inputs
+
+    return [opts.input, opts.reference, *model_inputs(opts.model)]
+
+
 def plot_data(opts: PlotOptions) -> PlotData:
     """Read, check and compute everything :func:`draw` needs (no matplotlib here).
 
     The region is 1-based inclusive as typed (``ID:START-END``, or ``ID`` for a
     whole record); regions longer than :data:`MAX_REGION` bases need
-    ``opts.force``.  Decoded features are those of the whole record (or the
+    ``opts.allow_large``.  Decoded features are those of the whole record (or the
     flank window) that overlap the region, decoded as annotate does (split at
     runs of unknown bases, unknown ends trimmed).
     """
@@ -190,10 +196,10 @@ def plot_data(opts: PlotOptions) -> PlotData:
         _check_symbols(records, model, opts.input)
     region = check_region(region, {r.id: len(r.seq) for r in records})
     size = region.end0 - region.start0
-    if size > MAX_REGION and not opts.force:
+    if size > MAX_REGION and not opts.allow_large:
         raise UsageError(
             f"region {region.to_text()} is {size:,} bases, more than the "
-            f"{MAX_REGION:,} plotted without --force"
+            f"{MAX_REGION:,} plotted without --allow-large"
         )
     ref = read_regions(opts.reference) if opts.reference is not None else None
     rec = next(r for r in records if r.id == region.seqid)
@@ -418,14 +424,18 @@ def _metadata(fmt: str) -> dict:
     return {"Creator": creator, "Producer": creator, "CreationDate": None}
 
 
-def save(fig: Figure, out: str, dpi: int) -> None:
-    """Write ``fig`` to ``out`` (format from its extension) all-or-nothing, no timestamp."""
+def save(
+    fig: Figure, out: str, dpi: int, *, force: bool = False, inputs: list | tuple = ()
+) -> None:
+    """Write ``fig`` to ``out`` (format from its extension) all-or-nothing, no timestamp.
+
+    The overwrite rule of :mod:`seqstate.io.atomic` applies (``force``, ``inputs``).
+    """
     matplotlib = require_matplotlib()
     fmt = figure_format(out)
-    target = Path(out)
     with matplotlib.rc_context({"svg.hashsalt": "seqstate", "svg.fonttype": "path"}):
-        with OutputSet(target.parent) as outs:
-            tmp = outs.path(target.name)
+        with OutputSet(force=force, inputs=inputs) as outs:
+            tmp = outs.path(out)
             try:
                 fig.savefig(str(tmp), format=fmt, dpi=dpi, metadata=_metadata(fmt))
             except OSError as exc:
@@ -450,7 +460,7 @@ def plot(opts: PlotOptions) -> PlotResult:
     require_matplotlib()
     data = plot_data(opts)
     fig = draw(data, opts.width, opts.height, opts.dpi)
-    save(fig, opts.out, opts.dpi)
+    save(fig, opts.out, opts.dpi, force=opts.force, inputs=_inputs(opts))
     return PlotResult(
         opts.out,
         len(data.decoded),

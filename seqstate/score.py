@@ -33,13 +33,20 @@ import numpy as np
 from seqstate.decode import LOG2E, cpg_statistics, score_segment
 from seqstate.engine import api
 from seqstate.errors import FeatureFormatError, ImpossibleSequenceError, UsageError
-from seqstate.io.atomic import atomic_text
+from seqstate.io.atomic import OutputSet, check_outputs
 from seqstate.io.bed import read_bed
 from seqstate.io.fasta import Record, display_name, iter_lines, open_input
 from seqstate.io.gff3 import Feature, GFF3Writer, iter_gff3
 from seqstate.io.tables import load_model
 from seqstate.model import Model
-from seqstate.pipeline import DNA, SCORE_FORMATS, _check_symbols, _fmt, read_records
+from seqstate.pipeline import (
+    DNA,
+    SCORE_FORMATS,
+    _check_symbols,
+    _fmt,
+    model_inputs,
+    read_records,
+)
 
 __all__ = [
     "REGION_FORMATS",
@@ -480,6 +487,7 @@ class ScoreOptions:
     regions_format: str | None = None
     types: tuple[str, ...] = ()
     masked: str = "base"
+    force: bool = False
 
 
 @dataclass
@@ -511,16 +519,13 @@ def score(opts: ScoreOptions) -> ScoreResult:
         raise UsageError("FASTA and --regions cannot both be standard input ('-')")
     if opts.masked not in ("base", "unknown"):
         raise UsageError(f"--masked {opts.masked!r} is not base or unknown")
-    for out in (opts.out_tsv, opts.out_gff):
-        if out is not None and out != "-" and Path(out).is_dir():
-            raise UsageError(f"output file '{out}' is a directory, expected a file name")
     tsv_file = None if opts.out_tsv in (None, "-") else opts.out_tsv
     if opts.out_gff == "-" and tsv_file is None:
         raise UsageError(
             "the table and --gff cannot both go to standard output: give -o a file name"
         )
-    if tsv_file is not None and tsv_file == opts.out_gff:
-        raise UsageError(f"-o and --gff name the same file '{tsv_file}'")
+    inputs = [opts.input, opts.regions, *model_inputs(opts.model)]
+    check_outputs([tsv_file, opts.out_gff], inputs, force=opts.force)
     model = load_model(opts.model)
     label = choose_label(model, opts.label)
     if opts.flank is not None and opts.flank < 0:
@@ -549,7 +554,9 @@ def score(opts: ScoreOptions) -> ScoreResult:
         for path, text in ((tsv_file, table), (opts.out_gff, gff_text))
         if path is not None and path != "-" and text is not None
     ]
-    _write_all(files)
+    with OutputSet(force=opts.force, inputs=inputs) as outs:
+        for path, text in files:
+            outs.open_text(path).write(text)
     return ScoreResult(
         table=table,
         label=label,
@@ -557,13 +564,3 @@ def score(opts: ScoreOptions) -> ScoreResult:
         format=rf.format,
         stdout=table if tsv_file is None else gff_text if opts.out_gff == "-" else None,
     )
-
-
-def _write_all(files: list[tuple[str, str]]) -> None:
-    """Write each (path, text) atomically; nested so that a failure leaves none of them."""
-    if not files:
-        return
-    (path, text), rest = files[0], files[1:]
-    with atomic_text(path) as fh:
-        fh.write(text)
-        _write_all(rest)

@@ -681,9 +681,21 @@ def test_viterbi_features_are_the_label_runs_of_the_path(tmp_path, sampled, mode
 
 
 # ---------------------------------------------------------------- regions
-@pytest.mark.parametrize("rid,start,end", [("chr1", 2001, 8000), ("u;v=w&x,y%1", 1001, 6000)])
-def test_region_keeps_record_coordinates(tmp_path, rid, start, end):
+@pytest.mark.parametrize(
+    "rid,start,end,stem",
+    [
+        ("chr1", 2001, 8000, "small.chr1_2001-8000"),
+        # characters outside A-Z a-z 0-9 . _ + - become '_' in the file name
+        ("u;v=w&x,y%1", 1001, 6000, "small.u_v_w_x_y_1_1001-6000"),
+    ],
+)
+def test_region_keeps_record_coordinates(tmp_path, rid, start, end, stem):
     out = annotate_ok(GOLDEN_FASTA, tmp_path / "out", "--region", f"{rid}:{start}-{end}")
+    assert sorted(p.name for p in out.iterdir()) == sorted(
+        f"{stem}.{x}" for x in ("gff3", "features.tsv", "CpG_island.bedgraph", "run.json")
+    )
+    for suffix in ("gff3", "features.tsv", "CpG_island.bedgraph", "run.json"):
+        (out / f"{stem}.{suffix}").rename(out / f"small.{suffix}")
     gff_text = (out / "small.gff3").read_text(encoding="utf-8").splitlines()
     escaped = urllib.parse.quote(rid, safe=SEQID_SAFE)  # GFF3 1.26 column 1 escaping
     # GFF3 1.26: "##sequence-region seqid start end", 1-based closed
@@ -719,11 +731,12 @@ def test_region_keeps_record_coordinates(tmp_path, rid, start, end):
 def test_region_as_id_alone_or_with_commas(tmp_path, region, rid, start, end):
     # README "annotate options": an ID alone is the whole record; commas are allowed
     out = annotate_ok(GOLDEN_FASTA, tmp_path / "out", "--region", region)
-    report = json.loads((out / "small.run.json").read_text(encoding="utf-8"))
+    stem = f"small.{rid}_{start}-{end}"
+    report = json.loads((out / f"{stem}.run.json").read_text(encoding="utf-8"))
     assert [(r["id"], r["start_1based"], r["end_1based"]) for r in report["records"]] == [
         (rid, start, end)
     ]
-    lines = (out / "small.gff3").read_text(encoding="utf-8").splitlines()
+    lines = (out / f"{stem}.gff3").read_text(encoding="utf-8").splitlines()
     assert f"##sequence-region {rid} {start} {end}" in lines
 
 

@@ -140,8 +140,16 @@ def test_force_replaces_a_model_folder_only(tmp_path):
     (tmp_path / "other").mkdir()
     (tmp_path / "other" / "keep.txt").write_text("x")
     res = _run([*args[:-3], "-o", str(tmp_path / "other"), "--force", "-q"])
-    assert res.exit_code == 2 and "not a model folder" in res.stderr
+    # a folder may hold other files: the model's files go in beside them, which stay
+    assert res.exit_code == 0, res.stderr
     assert (tmp_path / "other" / "keep.txt").read_text() == "x"
+    assert _leftovers(tmp_path / "other") == [
+        "emissions.tsv",
+        "keep.txt",
+        "model.toml",
+        "start.tsv",
+        "transitions.tsv",
+    ]
     assert _leftovers(tmp_path) == ["m", "other"]
 
 

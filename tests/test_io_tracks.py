@@ -258,3 +258,15 @@ def test_bigwig_without_pybigwig(tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 
 def test_require_bigwig_passes_when_installed() -> None:
     assert require_bigwig() is None
+
+
+def test_record_ids_with_control_characters_are_escaped_on_bedgraph_lines() -> None:
+    from seqstate.io.tracks import escape_text
+
+    handle = io.StringIO()
+    track = BedGraphTrack(handle, "t", "d", 1)
+    track.add("a\tb\nc\x01%", np.array([0.5, 0.5], dtype=np.float32))
+    lines = handle.getvalue().splitlines()
+    # GFF3 1.26 percent-encoding (uppercase %XX) of the control characters; '%' itself stays
+    assert lines[1:] == ["a%09b%0Ac%01%\t0\t2\t0.5"]
+    assert escape_text("chr1") == "chr1" and escape_text("u;v=w&x,y%") == "u;v=w&x,y%"

@@ -271,7 +271,7 @@ def _bad(args, out: Path):
     return res.exit_code, lines[0]
 
 
-def test_region_over_the_maximum_needs_force(tmp_path):
+def test_region_over_the_maximum_needs_allow_large(tmp_path):
     rng = np.random.default_rng(5)
     fasta = tmp_path / "big.fa"
     seq = np.frombuffer(b"ACGT", np.uint8)[rng.integers(4, size=MAX_REGION + 100)].tobytes()
@@ -282,7 +282,7 @@ def test_region_over_the_maximum_needs_force(tmp_path):
     assert code == 2
     assert line == (
         f"error: region {region} is 2,000,001 bases, more than the 2,000,000 "
-        "plotted without --force"
+        "plotted without --allow-large"
     )
     assert MAX_REGION == 2_000_000  # the maximum the docs state
     res = run(
@@ -293,7 +293,7 @@ def test_region_over_the_maximum_needs_force(tmp_path):
             region,
             "-o",
             str(out),
-            "--force",
+            "--allow-large",
             "-q",
             "--width",
             "4",

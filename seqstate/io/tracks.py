@@ -7,6 +7,10 @@ decimals and adjacent bases whose rounded values are equal are merged into one
 line or entry, written 0-based half-open (``start0``, ``end0``) as bedGraph and
 bigWig both use.
 
+Record IDs are written through :func:`escape_text`: tab, newline, carriage
+return and other control characters (0x00-0x1F, 0x7F) become ``%XX`` (as GFF3
+escapes them), so one base run is always one line.
+
 Rounding is exact: a value is shown as Python's ``f"{v:.{precision}f}"`` shows
 it (round half to even on the exact binary value), except that a value that
 rounds to zero is never written with a minus sign.
@@ -14,6 +18,9 @@ rounds to zero is never written with a minus sign.
 
 from __future__ import annotations
 
+import errno
+import os
+import shutil
 from collections.abc import Iterable
 from pathlib import Path
 from typing import TextIO
@@ -25,6 +32,7 @@ from seqstate.errors import OptionalDependencyError
 __all__ = [
     "BedGraphTrack",
     "BigWigTrack",
+    "escape_text",
     "format_scaled",
     "require_bigwig",
     "runs_of_rounded",
@@ -37,6 +45,24 @@ _BLOCK = 1 << 18  # bases scaled at once, to bound memory on long records
 _LINES = 1 << 16  # bedGraph lines formatted per write
 _ENTRIES = 1 << 20  # bigWig entries per addEntries call
 _TIE_TOLERANCE = 1e-6
+#: bigWig size estimate (bytes): a fixed part, then per merged run the data
+#: record (12 bytes: start, end, value, uncompressed) plus room for the zoom levels
+#: and index written at close, which the writer library keeps in memory and flushes
+#: without checking for a full disk.
+BIGWIG_FIXED_BYTES = 1 << 20
+BIGWIG_BYTES_PER_RUN = 32
+_CONTROL = frozenset(chr(c) for c in range(0x20)) | {"\x7f"}
+
+
+def escape_text(value: str) -> str:
+    """``value`` with control characters (tab, newline, CR, 0x00-0x1F, 0x7F) as ``%XX``.
+
+    The same uppercase percent codes as GFF3 uses; other characters, '%'
+    included, are kept, so ordinary IDs are written as they are.
+    """
+    if not any(ch in _CONTROL for ch in value):
+        return value
+    return "".join(f"%{ord(ch):02X}" if ch in _CONTROL else ch for ch in value)
 
 
 def _check_precision(precision: int) -> None:
@@ -156,6 +182,7 @@ class BedGraphTrack:
         starts, ends, scaled = runs_of_rounded(values, self._precision)
         texts: dict[int, str] = {}
         write = self._handle.write
+        seqid = escape_text(seqid)
         for lo in range(0, starts.shape[0], _LINES):
             hi = lo + _LINES
             block_scaled = scaled[lo:hi].tolist()
@@ -226,11 +253,15 @@ class BigWigTrack:
         self._scale = 10.0**precision
         self._order = {seqid: (i, int(n)) for i, (seqid, n) in enumerate(chrom_sizes)}
         self._last = -1
+        self._path = Path(path)
+        self._runs = 0
+        self._bw = None
+        self._check_space(0)
         self._bw = module.open(str(path), "w")
         if self._bw is None:
             raise OSError(f"pyBigWig could not open {str(path)!r} for writing")
         try:
-            self._bw.addHeader([(seqid, int(n)) for seqid, n in chrom_sizes])
+            self._bw.addHeader([(escape_text(seqid), int(n)) for seqid, n in chrom_sizes])
         except BaseException:
             self.close()
             raise
@@ -252,27 +283,58 @@ class BigWigTrack:
             )
         self._last = index
         starts, ends, scaled = runs_of_rounded(values, self._precision)
+        self._check_space(starts.shape[0])
+        self._runs += starts.shape[0]
+        name = escape_text(seqid)
         for lo in range(0, starts.shape[0], _ENTRIES):
             hi = lo + _ENTRIES
             block_starts = starts[lo:hi] + offset0
             self._bw.addEntries(
-                [seqid] * block_starts.shape[0],
+                [name] * block_starts.shape[0],
                 block_starts,
                 ends=ends[lo:hi] + offset0,
                 values=scaled[lo:hi] / self._scale,
             )
 
+    def _check_space(self, new_runs: int) -> None:
+        """Raise OSError(ENOSPC) unless the disk has room for the file with ``new_runs`` more.
+
+        The writer library crashes the process on a full disk instead of
+        reporting it, so room is checked before any data is handed to it.
+        """
+        written = 0
+        try:
+            if self._path.exists():
+                written = self._path.stat().st_size
+            free = shutil.disk_usage(self._path.parent).free
+        except OSError:
+            return
+        need = BIGWIG_FIXED_BYTES + BIGWIG_BYTES_PER_RUN * (self._runs + new_runs) - written
+        if free < need:
+            raise OSError(
+                errno.ENOSPC,
+                f"{os.strerror(errno.ENOSPC)} (bigWig needs about {need:,} bytes, {free:,} free)",
+            )
+
     def close(self) -> None:
         """Finish and close the file (safe to call twice)."""
         if self._bw is not None:
+            self._check_space(0)
             bw, self._bw = self._bw, None
             bw.close()
+            if not self._path.is_file() or self._path.stat().st_size == 0:
+                raise OSError(errno.EIO, f"the bigWig {str(self._path)!r} was not written")
 
     def __enter__(self) -> BigWigTrack:
         return self
 
-    def __exit__(self, *exc_info: object) -> None:
-        self.close()
+    def __exit__(self, exc_type: object, *exc_info: object) -> None:
+        if exc_type is None:
+            self.close()
+        elif self._bw is not None:
+            # Only data already checked to fit was handed over: finishing it is safe.
+            bw, self._bw = self._bw, None
+            bw.close()
 
 
 def write_bigwig(
