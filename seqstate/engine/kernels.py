@@ -30,6 +30,7 @@ import math
 import numpy as np
 from numba import njit, uintp
 
+from seqstate.engine import jitcache
 from seqstate.engine.buffers import work_buffer
 
 #: Rescale a running vector when its sum falls below this value (the default ``lim``
@@ -57,7 +58,7 @@ def rescale_limit(smallest_factor: float) -> float:
     return max(RESCALE_BELOW, SAFE_FLOOR / smallest_factor)
 
 
-_JIT = {"cache": True, "nogil": True, "error_model": "numpy"}
+_JIT = {"cache": jitcache.CACHE, "nogil": True, "error_model": "numpy"}
 
 
 # ----------------------------------------------------------------- work arrays

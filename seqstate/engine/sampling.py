@@ -13,13 +13,14 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from seqstate.engine import jitcache
 from seqstate.engine.api import EngineTables
 from seqstate.engine.buffers import work_buffer
 
 _CHUNK = 1 << 20
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=jitcache.CACHE, nogil=True)
 def _sample_chunk(
     u,
     pos0,

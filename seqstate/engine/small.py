@@ -43,10 +43,11 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit
 
+from seqstate.engine import jitcache
 from seqstate.engine.buffers import work_buffer
 from seqstate.engine.kernels import RESCALE_BELOW, rescale_limit
 
-_JIT = {"cache": True, "nogil": True, "error_model": "numpy"}
+_JIT = {"cache": jitcache.CACHE, "nogil": True, "error_model": "numpy"}
 
 #: Largest number of states for which the two-state kernels are used.
 MAX_STATES = 16

@@ -61,10 +61,11 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit, uintp
 
+from seqstate.engine import jitcache
 from seqstate.engine.buffers import work_buffer
 from seqstate.engine.kernels import RESCALE_BELOW
 
-_JIT = {"cache": True, "nogil": True, "error_model": "numpy"}
+_JIT = {"cache": jitcache.CACHE, "nogil": True, "error_model": "numpy"}
 
 #: Use these kernels when at least this share of the states has at most one predecessor.
 MIN_CHAIN_SHARE = 0.5
