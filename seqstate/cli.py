@@ -575,14 +575,21 @@ def fit_cmd(
     help="Report file, .tsv or .json (the format follows the name); default: a table on "
     "standard output.",
 )
+@click.option(
+    "--all-sequences",
+    is_flag=True,
+    help="Compare every sequence either file declares, not only those of PREDICTED.",
+)
 @click.option("-q", "--quiet", is_flag=True, help="No summary on stderr when writing -o.")
-def compare_cmd(predicted, reference, feature_type, region, out, quiet) -> None:
+def compare_cmd(predicted, reference, feature_type, region, out, all_sequences, quiet) -> None:
     """Accuracy of PREDICTED features against REFERENCE features (both GFF3)."""
     from seqstate.compare import compare_files, report_format, report_table, write_report
 
     if out is not None:
         report_format(out)
-    result = compare_files(predicted, reference, feature_type=feature_type, region=region)
+    result = compare_files(
+        predicted, reference, feature_type=feature_type, region=region, all_sequences=all_sequences
+    )
     if out is None:
         click.echo(report_table(result), nl=False)
         return
