@@ -12,7 +12,7 @@ reference (Rabiner 1989, section V.A scaled forward-backward, as implemented in
 :mod:`seqstate.engine.reference`).
 
 CI also runs every ``tests/test_engine_*.py`` module with
-``SEQSTATE_POISON_BUFFERS=1`` (see DEVELOPERS.md).
+``SEQSTATE_POISON_BUFFERS=1``, so that every other engine test runs poisoned too.
 """
 
 from __future__ import annotations
