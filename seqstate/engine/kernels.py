@@ -70,7 +70,10 @@ def posterior_scratch(n: int, m: int, block: int) -> tuple[np.ndarray, np.ndarra
 
 
 def restricted_scratch(m: int, nnz: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Work arrays ``(ms, fsrc, fp)`` of :func:`restricted_forward` (``nnz`` allowed moves)."""
+    """Work arrays ``(ms, fsrc, fp)`` of :func:`restricted_forward` (``nnz`` allowed moves);
+    empty below :data:`RESTRICTED_MASKED_MIN` states, where they are not used."""
+    if m < RESTRICTED_MASKED_MIN:
+        m = nnz = 0
     return work_buffer(m, np.int64), work_buffer(nnz, np.int64), work_buffer(nnz)
 
 
