@@ -785,9 +785,16 @@ def fit_cmd(
     help="Report file, .tsv or .json (the format follows the name); default: a table on "
     "standard output.",
 )
+@click.option(
+    "--all-sequences",
+    is_flag=True,
+    help="Compare every sequence either file declares, not only those of PREDICTED.",
+)
 @force_option
 @quiet_option
-def compare_cmd(predicted, reference, feature_types, region, out, force, quiet) -> None:
+def compare_cmd(
+    predicted, reference, feature_types, region, out, all_sequences, force, quiet
+) -> None:
     """Accuracy of PREDICTED features against REFERENCE features (both GFF3)."""
     from seqstate.compare import compare_files, report_format, report_table, write_report
     from seqstate.io.atomic import check_outputs
@@ -796,7 +803,9 @@ def compare_cmd(predicted, reference, feature_types, region, out, force, quiet) 
         report_format(out)
         check_outputs([out], [predicted, reference], force=force)
     results = [
-        compare_files(predicted, reference, feature_type=t, region=region)
+        compare_files(
+            predicted, reference, feature_type=t, region=region, all_sequences=all_sequences
+        )
         for t in (list(dict.fromkeys(feature_types)) or [None])
     ]
     if out is None:

@@ -48,10 +48,16 @@ Identical features (same seqid, start, end and strand), such as an exon
 shared by several isoforms, are counted once, in both files; nucleotide
 coverage is the union of the features anyway.
 
-The compared sequences are every seqid with a known span, that is a
-``##sequence-region`` line in either file (the reference's line wins), each
-from its first to its last base as that line says.  A seqid that carries a
-compared feature but has no known span is an error.  With a region, only that
+The compared sequences are, by default, those of the predicted file: every
+seqid named by its ``##sequence-region`` lines or carrying one of its features
+(of any type), each from its first to its last base as the ``##sequence-region``
+line of either file says (the reference's line wins).  Reference features on
+other sequences are ignored, and the bases of those sequences count as
+nothing: a prediction made on one chromosome is not credited with true
+negatives on every other sequence the reference declares.  With
+``all_sequences`` (``--all-sequences``) every seqid with a known span in either
+file is compared.  A compared seqid that carries a compared feature but has no
+known span is an error.  With a region, only that
 stretch is compared: at the nucleotide level features are clipped to it; at the
 feature level every feature that overlaps it is counted with its own ends.
 Features on other seqids are ignored.
@@ -68,7 +74,7 @@ from pathlib import Path
 from seqstate.errors import FeatureFormatError, UsageError
 from seqstate.io.atomic import atomic_text
 from seqstate.io.fasta import display_name, iter_lines, open_input
-from seqstate.io.gff3 import Feature, read_gff3, unescape
+from seqstate.io.gff3 import Feature, escape_column9, read_gff3, unescape
 from seqstate.io.regions import TO_END, Region, parse_region
 
 __all__ = [
@@ -384,6 +390,8 @@ def _compare(
     region: Region | str | None,
     pred_name: str | None,
     ref_name: str | None,
+    only: set[str] | None = None,
+    scope: str = "given",
 ) -> dict:
     reg = _resolve_region(region, spans)
     p_items = _select(pred, feature_type)
@@ -391,6 +399,10 @@ def _compare(
     exact = feature_type in EXON_TYPES
     if reg is None:
         universe: dict[str, Span] = dict(spans)
+        if only is not None:
+            universe = {seqid: span for seqid, span in spans.items() if seqid in only}
+            p_items = [i for i in p_items if i.seqid in only]
+            r_items = [i for i in r_items if i.seqid in only]
         _check_inside(p_items, spans, "predicted", pred_name, need=True)
         _check_inside(r_items, spans, "reference", ref_name, need=True)
     else:
@@ -424,6 +436,8 @@ def _compare(
         "type": feature_type,
         "rule": "exon" if exact else "overlap",
         "region": None if reg is None else reg.text(),
+        "sequence_scope": "region" if reg is not None else scope,
+        "sequences_not_compared": len(set(spans) - set(universe)),
         "inputs": {"predicted": pred_name, "reference": ref_name},
         "sequences": [
             {
@@ -474,6 +488,9 @@ def compare_features(
 
     Returns a dict: ``type``, ``rule`` (``"exon"`` for CDS and exon, else
     ``"overlap"``), ``region`` (``ID:START-END`` 1-based inclusive, or None),
+    ``sequence_scope`` (how the compared sequences were chosen: ``"given"``
+    here; ``"predicted"`` or ``"all"`` from :func:`compare_files`; ``"region"``),
+    ``sequences_not_compared`` (sequences with a known span left out),
     ``inputs``, ``sequences`` (the compared spans, 1-based inclusive),
     ``nucleotide`` (``strand_aware`` and ``strand_agnostic``, each with
     ``sensitivity``, ``specificity`` and ``approximate_correlation``),
@@ -605,13 +622,19 @@ def compare_files(
     reference: str | Path,
     feature_type: str | None = None,
     region: str | None = None,
+    *,
+    all_sequences: bool = False,
 ) -> dict:
     """Read two GFF3 files (plain or gzip) and compare them; see :func:`compare_features`.
 
     The type is chosen by :func:`choose_type`.  Sequence spans come from the
     ``##sequence-region`` lines of the reference, then of the prediction for
-    seqids the reference does not declare.  Standard input is not accepted
-    (each file is read twice: its directives, then its features).
+    seqids the reference does not declare.  Only the predicted file's
+    sequences (its ``##sequence-region`` lines and the seqids of its features)
+    are compared (``sequence_scope`` ``"predicted"``), or, with
+    ``all_sequences``, every sequence with a known span (``"all"``).  Standard
+    input is not accepted (each file is read twice: its directives, then its
+    features).
     """
     for path in (predicted, reference):
         if str(path) == "-":
@@ -624,14 +647,20 @@ def compare_files(
         {f.type for f in pred}, {f.type for f in ref}, feature_type, pred_name, ref_name
     )
     spans: dict[str, Span] = {}
+    declared: dict[str, set[str]] = {}
     for source, name, path in (
         ("reference", ref_name, reference),
         ("predicted", pred_name, predicted),
     ):
-        for seqid, (start0, end0, line0) in read_sequence_regions(path).items():
+        regions = read_sequence_regions(path)
+        declared[source] = set(regions)
+        for seqid, (start0, end0, line0) in regions.items():
             if seqid not in spans:
                 spans[seqid] = Span(seqid, start0, end0, source, f"{name} line {line0 + 1}")
-    return _compare(pred, ref, spans, chosen, reg, pred_name, ref_name)
+    if all_sequences:
+        return _compare(pred, ref, spans, chosen, reg, pred_name, ref_name, None, "all")
+    only = declared["predicted"] | {f.seqid for f in pred}
+    return _compare(pred, ref, spans, chosen, reg, pred_name, ref_name, only, "predicted")
 
 
 # ---------------------------------------------------------------- reports
@@ -657,12 +686,17 @@ def _flatten(prefix: str, value: object) -> list[tuple[str, object]]:
 def report_tsv(result: dict) -> str:
     """``metric<TAB>value`` rows after a header: the result flattened with dotted names.
 
-    Every key of :func:`compare_features`'s result except ``sequences``, in
-    order (``nucleotide.strand_aware.sensitivity`` ... ``counts.feature.wrong_predicted``).
-    Ratios have 6 decimals; an undefined value is ``NA``.
+    Every key of :func:`compare_features`'s result, in order
+    (``type`` ... ``counts.feature.wrong_predicted``); ``sequences`` is one row, the
+    compared seqids joined by commas (each escaped as a GFF3 column-9 value, so a
+    comma in a seqid reads ``%2C``).  Ratios have 6 decimals; an undefined value
+    is ``NA``.
     """
     rows = ["metric\tvalue"]
-    for key, value in _flatten("", {k: v for k, v in result.items() if k != "sequences"}):
+    flat = dict(result)
+    if "sequences" in flat:
+        flat["sequences"] = ",".join(escape_column9(s["seqid"]) for s in result["sequences"])
+    for key, value in _flatten("", flat):
         rows.append(f"{key}\t{_value(value, 6)}")
     return "\n".join(rows) + "\n"
 
@@ -689,6 +723,16 @@ def report_table(result: dict) -> str:
     )
     n_seq = len(result["sequences"])
     where = result["region"] or f"{n_seq} sequence{'s' if n_seq != 1 else ''}"
+    names = [s["seqid"] for s in result["sequences"]]
+    used = ", ".join(names[:_LISTED]) + (f", ... ({n_seq} in all)" if n_seq > _LISTED else "")
+    left = result.get("sequences_not_compared", 0)
+    scope = {
+        "predicted": "the predicted file's"
+        + (f"; {left} more declared, not compared (--all-sequences counts them)" if left else ""),
+        "all": "every sequence either file declares",
+        "region": "the region",
+        "given": "as given",
+    }.get(result.get("sequence_scope", "given"), "")
 
     def dropped(n: int) -> str:
         return f" ({n} duplicate{'s' if n != 1 else ''} counted once)" if n else ""
@@ -698,6 +742,7 @@ def report_table(result: dict) -> str:
     head = [
         ("type", f"{result['type']}: {rule}"),
         ("compared", f"{where}, {counts['bases']} bases"),
+        ("sequences", f"{used or 'none'} ({scope})"),
         (
             "predicted",
             f"{inputs['predicted'] or '-'}: {fc['predicted']} {n_pred}"

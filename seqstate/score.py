@@ -10,7 +10,13 @@ column names: ``start_0based``/``end_exclusive`` for BED, ``start_1based``/
 Scores are those annotate gives its features (mean and minimum posterior, the
 exact segment probability, log-odds in natural log and bits, CpG statistics),
 plus the maximum posterior, for one label of the model: the label's states
-against all the other states.  Posteriors are computed on the whole record, so
+against all the other states.  When the label's states carry a strand (the CDS
+states of a gene model on ``+`` and ``-``), a region's strand chooses them: a
+region on ``+`` is scored with the label's ``+`` states (and any of its states
+without a strand) against every other state, one on ``-`` with its ``-``
+states, and a region on ``.`` or ``?`` (or a BED line without a strand) with
+both.  The ``scored_strand`` column says which: ``+``, ``-``, ``both``, or ``.``
+for a label whose states have no strand.  Posteriors are computed on the whole record, so
 sequence outside a region counts; with ``flank=N`` each region is computed on
 its own window (region plus N bases each side, cut at the record ends), which
 is treated as a record of its own.
@@ -61,6 +67,7 @@ __all__ = [
     "score",
     "score_columns",
     "score_regions",
+    "strand_mask",
     "table_text",
     "write_scored_gff3",
 ]
@@ -310,6 +317,24 @@ def choose_label(model: Model, label: str | None) -> str:
     return label
 
 
+def strand_mask(model: Model, label: str, strand: str) -> tuple[np.ndarray, str]:
+    """The states scored for a region on ``strand`` and the ``scored_strand`` value.
+
+    For a label with stranded states and a region on ``+`` or ``-``: the label's
+    states on that strand or without a strand, and the strand itself; for a
+    region on ``.`` or ``?``: every state of the label, ``"both"``.  For a label
+    whose states have no strand: every state of the label, ``"."``.
+    """
+    in_label = [s.label == label for s in model.states]
+    stranded = any(s.strand in ("+", "-") for s, keep in zip(model.states, in_label) if keep)
+    if not stranded:
+        return np.array(in_label, dtype=np.bool_), "."
+    if strand in ("+", "-"):
+        keep = [k and s.strand in (strand, None) for s, k in zip(model.states, in_label)]
+        return np.array(keep, dtype=np.bool_), strand
+    return np.array(in_label, dtype=np.bool_), "both"
+
+
 def score_columns(label: str) -> list[str]:
     """The score keys of each result for ``label``, in table order."""
     return ["length", *POSTERIOR_COLUMNS] + (CPG_COLUMNS if label == CPG_LABEL else [])
@@ -352,9 +377,11 @@ def score_regions(
 ) -> list[dict]:
     """Scores of every region (0-based half-open, already checked), in the order given.
 
-    For each region: ``length`` (bases); ``mean_posterior``, ``min_posterior``
-    and ``max_posterior`` of the label's per-base posterior (the sum over the
-    label's states, both strands); ``segment_probability``, the exact
+    For each region: ``scored_strand`` (see :func:`strand_mask`: the label's
+    states on the region's strand are scored when the label is stranded);
+    ``length`` (bases); ``mean_posterior``, ``min_posterior`` and
+    ``max_posterior`` of the label's per-base posterior (the sum over the
+    scored states); ``segment_probability``, the exact
     P(every base of the region is in a state of the label | sequence);
     ``log_odds_nat``/``log_odds_bits``, the region's log-odds under the label's
     states against the other states (natural log, base 2); and for the label
@@ -372,10 +399,13 @@ def score_regions(
     if flank is not None and flank < 0:
         raise UsageError(f"--flank {flank} must be 0 or more")
     tables = api.prepare(model)
-    mask = np.array([s.label == label for s in model.states], dtype=np.bool_)
-    group = np.where(mask, 0, -1).astype(np.int64)
     unknown = masked == "unknown"
     cpg = label == CPG_LABEL
+    masks = {strand: strand_mask(model, label, strand) for strand in {r.strand for r in regions}}
+
+    def group_of(mask: np.ndarray) -> np.ndarray:
+        return np.where(mask, 0, -1).astype(np.int64)
+
     by_record: dict[str, list[int]] = {}
     for i, reg in enumerate(regions):
         by_record.setdefault(reg.seqid, []).append(i)
@@ -386,16 +416,25 @@ def score_regions(
             continue
         if flank is None:
             codes = api.encode(tables, rec.seq, masked_unknown=unknown)
-            post = api.posterior(tables, codes, group=group, n_groups=1, record=rec.id)
+            by_scored: dict[str, list[int]] = {}  # one posterior pass per set of scored states
             for i in idx:
-                reg = regions[i]
-                results[i] = _score_one(
-                    tables, codes, post, mask, reg.start0, reg.end0, rec.seq, cpg
-                )
-            del post, codes
+                by_scored.setdefault(masks[regions[i].strand][1], []).append(i)
+            for scored, group_idx in by_scored.items():
+                mask = masks[regions[group_idx[0]].strand][0]
+                post = api.posterior(tables, codes, group=group_of(mask), n_groups=1, record=rec.id)
+                for i in group_idx:
+                    reg = regions[i]
+                    results[i] = {
+                        "scored_strand": scored,
+                        **_score_one(tables, codes, post, mask, reg.start0, reg.end0, rec.seq, cpg),
+                    }
+                del post
+            del codes
             continue
         for i in idx:
             reg = regions[i]
+            mask, scored = masks[reg.strand]
+            group = group_of(mask)
             w0 = max(0, reg.start0 - flank)
             w1 = min(len(rec.seq), reg.end0 + flank)
             window = rec.seq[w0:w1]
@@ -403,9 +442,12 @@ def score_regions(
             post = api.posterior(
                 tables, codes, group=group, n_groups=1, record=f"{rec.id}:{w0 + 1}-{w1}"
             )
-            results[i] = _score_one(
-                tables, codes, post, mask, reg.start0 - w0, reg.end0 - w0, window, cpg
-            )
+            results[i] = {
+                "scored_strand": scored,
+                **_score_one(
+                    tables, codes, post, mask, reg.start0 - w0, reg.end0 - w0, window, cpg
+                ),
+            }
     missing = [regions[i].seqid for i, r in enumerate(results) if r is None]
     if missing:
         raise ValueError(f"regions on records not given: {sorted(set(missing))}")
@@ -419,12 +461,12 @@ def table_text(rf: RegionFile, label: str, scores: list[dict]) -> str:
     """The TSV: a header row, then one row per region in input order."""
     start_col, end_col = COORDINATE_COLUMNS[rf.format]
     keys = score_columns(label)
-    header = ["seqid", start_col, end_col, "name", "label", *keys]
+    header = ["seqid", start_col, end_col, "name", "label", "scored_strand", *keys]
     lines = ["\t".join(header)]
     for reg, sc in zip(rf.regions, scores):
         start = reg.start0 if rf.format == "bed" else reg.start0 + 1
         name = " ".join(reg.name.replace("\t", " ").split())
-        row = [reg.seqid, str(start), str(reg.end0), name, label]
+        row = [reg.seqid, str(start), str(reg.end0), name, label, sc["scored_strand"]]
         row += [_fmt(sc[k], FORMATS[k]) for k in keys]
         lines.append("\t".join(row))
     return "\n".join(lines) + "\n"
@@ -440,7 +482,7 @@ def write_scored_gff3(
     as ``Name``.  Column 6 is the mean posterior, as in annotate's GFF3.
     """
     keys = score_columns(label)
-    ours = {"scored_label", *keys}
+    ours = {"scored_label", "scored_strand", *keys}
     used = {reg.seqid for reg in rf.regions}
     gff = GFF3Writer(handle)
     gff.header([(rec.id, len(rec.seq)) for rec in records if rec.id in used])
@@ -452,6 +494,7 @@ def write_scored_gff3(
             attrs = [("Name", reg.name)] if reg.name else []
             ftype = BED_FEATURE_TYPE
         attrs.append(("scored_label", label))
+        attrs.append(("scored_strand", sc["scored_strand"]))
         attrs += [(k, _fmt(sc[k], FORMATS[k])) for k in keys]
         mean = sc["mean_posterior"]
         gff.write(

@@ -290,6 +290,100 @@ def test_lengths_come_from_either_file_reference_first(tmp_path) -> None:
     assert result["counts"]["nucleotide"]["strand_agnostic"]["tn"] == 53
 
 
+def _ref_with_other_sequence(tmp_path) -> Path:
+    """CDS_REF plus a sequence the prediction never mentions: ctgB 1-50 with a reference
+    CDS at 5-14 (+)."""
+    ref = tmp_path / "ref_ab.gff3"
+    text = CDS_REF.read_text().replace(
+        "##sequence-region ctgA 1 100\n",
+        "##sequence-region ctgA 1 100\n##sequence-region ctgB 1 50\n",
+    )
+    ref.write_text(text + "ctgB\tref\tCDS\t5\t14\t.\t+\t0\tID=cdsB\n")
+    return ref
+
+
+def test_only_the_predicted_files_sequences_count_by_default(tmp_path) -> None:
+    ref = _ref_with_other_sequence(tmp_path)
+    result = compare_files(CDS_PRED, ref)
+    # the prediction names ctgA only (its features; it has no ##sequence-region line):
+    # ctgB, its 50 bases and its CDS are left out, so every count is that of
+    # test_cds_example_counts_by_hand (100 bases; TN 53 agnostic, 143 aware)
+    assert result["sequence_scope"] == "predicted"
+    assert result["sequences_not_compared"] == 1
+    assert [s["seqid"] for s in result["sequences"]] == ["ctgA"]
+    assert result["counts"]["bases"] == 100
+    ag = result["counts"]["nucleotide"]["strand_agnostic"]
+    aw = result["counts"]["nucleotide"]["strand_aware"]
+    assert (ag["tp"], ag["fp"], ag["fn"], ag["tn"]) == (30, 7, 10, 53)
+    assert (aw["tp"], aw["fp"], aw["fn"], aw["tn"]) == (20, 17, 20, 143)
+    assert result["nucleotide"]["strand_agnostic"]["approximate_correlation"] == pytest.approx(
+        ac_by_hand(30, 7, 10, 53)  # Burset & Guigó 1996, from memory
+    )
+    assert result["counts"]["feature"]["reference"] == 4
+    assert result["counts"]["feature"]["missed_reference"] == 2  # 51-60+ and 71-80-
+
+
+def test_all_sequences_counts_every_declared_sequence(tmp_path) -> None:
+    ref = _ref_with_other_sequence(tmp_path)
+    result = compare_files(CDS_PRED, ref, all_sequences=True)
+    assert result["sequence_scope"] == "all" and result["sequences_not_compared"] == 0
+    assert [s["seqid"] for s in result["sequences"]] == ["ctgA", "ctgB"]
+    assert result["counts"]["bases"] == 150  # 100 + 50
+    ag = result["counts"]["nucleotide"]["strand_agnostic"]
+    # ctgB adds 10 reference-only bases (5-14) and 40 bases covered by neither file:
+    # TP 30, FP 7, FN 10 + 10 = 20, TN = 150 - 30 - 7 - 20 = 93
+    assert (ag["tp"], ag["fp"], ag["fn"], ag["tn"]) == (30, 7, 20, 93)
+    # AC by hand: ACP = (30/50 + 30/37 + 93/100 + 93/113) / 4 (Burset & Guigó 1996,
+    # from memory) = (0.6 + 0.810811 + 0.93 + 0.823009) / 4 = 0.790955, AC = 0.581910
+    acp = (30 / 50 + 30 / 37 + 93 / 100 + 93 / 113) / 4
+    ac = result["nucleotide"]["strand_agnostic"]["approximate_correlation"]
+    assert ac == pytest.approx(2 * acp - 1) and ac == pytest.approx(0.581910, abs=1e-6)
+    # against the default (100 bases): AC = 2 * (30/40 + 30/37 + 53/60 + 53/63) / 4 - 1
+    default = compare_files(CDS_PRED, ref)["nucleotide"]["strand_agnostic"]
+    assert default["approximate_correlation"] == pytest.approx(
+        2 * (30 / 40 + 30 / 37 + 53 / 60 + 53 / 63) / 4 - 1
+    )
+    aw = result["counts"]["nucleotide"]["strand_aware"]
+    # strand-aware, tracks + and -: 2 x 150 = 300 positions; ctgB's CDS is FN on +:
+    # TP 20, FP 17, FN 20 + 10 = 30, TN = 300 - 67 = 233
+    assert aw["positions"] == 300 and (aw["tp"], aw["fp"], aw["fn"], aw["tn"]) == (20, 17, 30, 233)
+    fc = result["counts"]["feature"]
+    assert (fc["reference"], fc["matched_reference"], fc["missed_reference"]) == (5, 1, 3)
+
+
+def test_prediction_sequence_regions_name_compared_sequences(tmp_path) -> None:
+    # a ##sequence-region line of the prediction counts its sequence even without features
+    ref = _ref_with_other_sequence(tmp_path)
+    pred = tmp_path / "pred.gff3"
+    lines = CDS_PRED.read_text().splitlines(keepends=True)
+    pred.write_text(lines[0] + "##sequence-region ctgB 1 50\n" + "".join(lines[1:]))
+    result = compare_files(pred, ref)
+    assert [s["seqid"] for s in result["sequences"]] == ["ctgA", "ctgB"]
+    assert result["counts"]["nucleotide"]["strand_agnostic"]["tn"] == 93  # as with all
+
+
+def test_cli_says_which_sequences_were_compared(tmp_path) -> None:
+    ref = _ref_with_other_sequence(tmp_path)
+    code, out, _ = run(["compare", CDS_PRED, ref])
+    assert code == 0
+    assert "sequences  ctgA (the predicted file's; 1 more declared, not compared" in out
+    assert "TP 30, FP 7, FN 10, TN 53" in out
+    code, out, _ = run(["compare", CDS_PRED, ref, "--all-sequences"])
+    assert code == 0
+    assert "sequences  ctgA, ctgB (every sequence either file declares)" in out
+    assert "TP 30, FP 7, FN 20, TN 93" in out
+    tsv = tmp_path / "r.tsv"
+    code, _, _ = run(["compare", CDS_PRED, ref, "-o", tsv])
+    rows = dict(line.split("\t") for line in tsv.read_text().splitlines()[1:])
+    assert rows["sequences"] == "ctgA" and rows["sequence_scope"] == "predicted"
+    assert rows["sequences_not_compared"] == "1"
+    js = tmp_path / "r.json"
+    run(["compare", CDS_PRED, ref, "--all-sequences", "-o", js])
+    data = json.loads(js.read_text())
+    assert [s["seqid"] for s in data["sequences"]] == ["ctgA", "ctgB"]
+    assert data["sequence_scope"] == "all"
+
+
 def test_partial_sequence_region_is_the_compared_span(tmp_path) -> None:
     # ##sequence-region ctgA 11 90 (as annotate --region writes it): 80 bases compared
     ref = tmp_path / "ref.gff3"

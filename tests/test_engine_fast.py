@@ -23,6 +23,7 @@ import numpy as np
 import pytest
 
 from seqstate.engine import api, kernels, reference, small, sparse
+from seqstate.engine.buffers import work_buffer
 from seqstate.errors import ImpossibleSequenceError
 from seqstate.io.tables import load_model
 from seqstate.model import State, make_model
@@ -181,13 +182,14 @@ def _generic_posterior(t, codes, group, n_groups, block):
         alog,
         bck,
         blog,
+        *kernels.posterior_scratch(n, m, block),
         _limit(t),
     )
     return ll, pos, out, ack, alog, bck, blog
 
 
 def _generic_viterbi(t, codes, block):
-    path = np.empty(codes.shape[0], dtype=np.int16)
+    path = work_buffer(codes.shape[0], np.int16)
     lp, pos = kernels.viterbi_checkpointed(
         codes,
         t.log_start,
@@ -200,6 +202,7 @@ def _generic_viterbi(t, codes, block):
         t.pred_logp,
         block,
         path,
+        *kernels.viterbi_scratch(codes.shape[0], t.n_states, block),
     )
     return path, lp, pos
 
@@ -779,8 +782,7 @@ def test_chain_sparse_impossible_record_reports_the_generic_positions(specialise
         == _generic_loglik(t, bad)[1]
     )
     for block in (1, 5, 1000):
-        path = np.empty(bad.shape[0], dtype=np.int16)
-        bps = np.empty((min(block, bad.shape[0]), sp.n_multi + 1), dtype=sp.bp_dtype)
+        path = work_buffer(bad.shape[0], np.int16)
         got = sparse.viterbi_checkpointed(
             bad,
             sp.log_start,
@@ -802,7 +804,7 @@ def test_chain_sparse_impossible_record_reports_the_generic_positions(specialise
             sp.p_src,
             sp.p_lp,
             block,
-            bps,
+            *sparse.viterbi_scratch(sp, bad.shape[0], block),
             path,
         )
         assert got[1] == _generic_viterbi(t, bad, block)[2] == 57
@@ -878,7 +880,7 @@ def test_restricted_forward_masked_path_matches_plain_and_oracle(name):
             is_start = False
         for mask in (labels == 0, labels != 0, np.ones(t.n_states, dtype=bool)):
             for use_e in (True, False):
-                got = np.empty(t.n_states)
+                got = work_buffer(t.n_states)
                 lg = kernels.restricted_forward(
                     codes,
                     s0,
@@ -894,8 +896,9 @@ def test_restricted_forward_masked_path_matches_plain_and_oracle(name):
                     t.pred_src,
                     t.pred_p,
                     got,
+                    *kernels.restricted_scratch(t.n_states, t.pred_src.shape[0]),
                 )
-                plain = np.empty(t.n_states)
+                plain = work_buffer(t.n_states)
                 lp = kernels._restricted_plain(
                     codes,
                     s0,
@@ -1037,7 +1040,7 @@ def test_chain_sparse_restricted_equals_generic_kernel(specialised):
         for mask in (labels == 0, labels != 0, np.ones(t.n_states, dtype=bool)):
             for use_e in (True, False):
                 got, lg = api._restricted(t, codes, s0, e0, init, is_start, mask, use_e)
-                ref = np.empty(t.n_states)
+                ref = work_buffer(t.n_states)
                 rl = kernels.restricted_forward(
                     codes,
                     s0,
@@ -1053,6 +1056,7 @@ def test_chain_sparse_restricted_equals_generic_kernel(specialised):
                     t.pred_src,
                     t.pred_p,
                     ref,
+                    *kernels.restricted_scratch(t.n_states, t.pred_src.shape[0]),
                 )
                 if rl == -np.inf:
                     assert lg == -np.inf

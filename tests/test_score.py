@@ -275,6 +275,7 @@ def test_no_cpg_columns_for_other_labels(tiny, tmp_path):
         "end_exclusive",
         "name",
         "label",
+        "scored_strand",
         "length",
         "mean_posterior",
         "min_posterior",
@@ -283,7 +284,8 @@ def test_no_cpg_columns_for_other_labels(tiny, tmp_path):
         "log_odds_nat",
         "log_odds_bits",
     ]
-    assert rows == [rows[0]] and rows[0][:6] == ["r1", "0", "3", "", "alpha", "3"]
+    # alpha has a '+' state (a2): a BED line without a strand scores both strands
+    assert rows == [rows[0]] and rows[0][:7] == ["r1", "0", "3", "", "alpha", "both", "3"]
 
 
 # ---------------------------------------------------------------- formats on the demo
@@ -584,3 +586,110 @@ def test_scores_do_not_depend_on_other_regions(tiny):
         "alpha",
     )
     assert one[0] == two[1]
+
+
+# ---------------------------------------------------------------- stranded labels
+@pytest.fixture(scope="module")
+def stranded(tmp_path_factory):
+    """A random 3-state order-0 model: background, 'CDS' on '+', 'CDS' on '-' (the
+    shape of a gene model's coding states), saved, with a FASTA of one record."""
+    rng = np.random.default_rng(977)
+    end = rng.uniform(0.1, 0.4, size=3)
+    model = make_model(
+        name="stranded",
+        alphabet="ACGT",
+        states=[State("bg", None), State("cds_f", "CDS", "+"), State("cds_r", "CDS", "-")],
+        start=_rows(rng, (3,)),
+        transitions=_rows(rng, (3, 3), 1.0 - end),
+        emissions=_rows(rng, (3, 4)),
+        end=end,
+    )
+    root = tmp_path_factory.mktemp("stranded")
+    manifest = save_model(model, root / "model")
+    fasta = root / "one.fa"
+    fasta.write_text(">s1\nGATTACAGC\n")
+    return load_model(manifest), manifest, fasta
+
+
+def test_region_strand_chooses_the_labels_states(stranded, tmp_path):
+    model, _, fasta = stranded
+    bed = "s1\t2\t6\tfwd\t0\t+\ns1\t2\t6\trev\t0\t-\ns1\t2\t6\tany\t0\t.\ns1\t2\t6\tnone\n"
+    rf, recs = _tiny_regions(model, fasta, tmp_path, bed)
+    got = score_regions(model, list(recs.values()), rf.regions, "CDS")
+    seq = recs["s1"].seq
+    paths, p, total = _enumerate(model, seq)
+    # the states each region is scored with: cds_f on '+', cds_r on '-', both otherwise
+    want_states = {"fwd": [1], "rev": [2], "any": [1, 2], "none": [1, 2]}
+    want_scored = {"fwd": "+", "rev": "-", "any": "both", "none": "both"}
+    for reg, sc in zip(rf.regions, got):
+        mask = np.isin(np.arange(3), want_states[reg.name])
+        inside = mask[paths[:, reg.start0 : reg.end0]].all(axis=1)
+        # P(every base of the region in a scored state | x), by enumeration (HMM definition)
+        assert abs(sc["segment_probability"] - p[inside].sum() / total) <= TOL, reg.name
+        per_base = np.array(
+            [p[mask[paths[:, i]]].sum() / total for i in range(reg.start0, reg.end0)]
+        )
+        assert abs(sc["mean_posterior"] - per_base.mean()) <= F32, reg.name
+        assert abs(sc["min_posterior"] - per_base.min()) <= F32, reg.name
+        assert sc["scored_strand"] == want_scored[reg.name]
+    # the two strands are different evidence: '+' and '-' scores differ, and their
+    # per-base posteriors add up to the unstranded one
+    by = {reg.name: sc for reg, sc in zip(rf.regions, got)}
+    assert by["fwd"]["mean_posterior"] != by["rev"]["mean_posterior"]
+    total_mean = by["fwd"]["mean_posterior"] + by["rev"]["mean_posterior"]
+    assert abs(total_mean - by["any"]["mean_posterior"]) <= 4 * F32
+
+
+def test_scored_strand_in_the_table_and_gff(stranded, tmp_path):
+    _, manifest, fasta = stranded
+    bed = tmp_path / "r.bed"
+    bed.write_text("s1\t0\t4\ta\t0\t-\ns1\t3\t9\tb\t0\t+\ns1\t1\t2\tc\n")
+    gff = tmp_path / "scored.gff3"
+    out = tmp_path / "scores.tsv"
+    res = run(
+        ["score", str(fasta), "--regions", str(bed), "-m", str(manifest), "-o", str(out)]
+        + ["--gff", str(gff), "-q"]
+    )
+    assert res.exit_code == 0, res.stderr
+    header, rows = rows_of(out.read_text())
+    assert header[4:6] == ["label", "scored_strand"]
+    assert [r[5] for r in rows] == ["-", "+", "both"]
+    assert [f.get("scored_strand") for f in read_gff3(gff)] == ["-", "+", "both"]
+
+
+def test_unstranded_label_ignores_the_region_strand():
+    # the cpg-island label has no stranded state: '+', '-' and '.' give the same
+    # numbers, and scored_strand says '.'
+    model = load_model("cpg-island")
+    records = [Record("r", "", b"ACGCGCGTATACGCGAT")]
+    regs = [InputRegion("r", 2, 12, "", s, i) for i, s in enumerate("+-.")]
+    got = score_regions(model, records, regs, "CpG_island")
+    assert [g.pop("scored_strand") for g in got] == [".", ".", "."]
+    assert got[0] == got[1] == got[2]
+
+
+def test_gene_segment_cds_on_each_strand():
+    """The shipped gene model: a region on '+' is scored with the CDS '+' states only,
+    on '-' with the '-' ones; the per-base posteriors of the two add up to the
+    unstranded region's (a sampled record, the sampler's own output)."""
+    from seqstate.engine import api as engine_api
+    from seqstate.engine.sampling import sample_record
+
+    model = load_model("gene-segment")
+    tables = engine_api.prepare(model)
+    _, sym = sample_record(tables, 6000, np.random.default_rng(5))
+    seq = np.frombuffer(model.alphabet.encode(), np.uint8)[sym].tobytes()
+    records = [Record("g", "", seq)]
+    regs = [InputRegion("g", 1000, 1600, "", s, i) for i, s in enumerate("+-.")]
+    plus, minus, both = score_regions(model, records, regs, "CDS")
+    assert (plus["scored_strand"], minus["scored_strand"], both["scored_strand"]) == (
+        "+",
+        "-",
+        "both",
+    )
+    assert plus["mean_posterior"] != minus["mean_posterior"]
+    total = plus["mean_posterior"] + minus["mean_posterior"]
+    assert abs(total - both["mean_posterior"]) <= 1e-4  # float32 per-base posteriors
+    assert both["segment_probability"] >= max(
+        plus["segment_probability"], minus["segment_probability"]
+    )

@@ -30,6 +30,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from seqstate.engine import kernels
+from seqstate.engine.buffers import work_buffer
 from seqstate.errors import ImpossibleSequenceError
 from seqstate.model import Model
 
@@ -97,7 +98,7 @@ def backoff_rows(model: Model) -> dict[int, np.ndarray]:
     out: dict[int, np.ndarray] = {}
     if k == 0:
         return out
-    weights = np.empty((m, a**k))
+    weights = work_buffer((m, a**k))
     for s in range(m):
         weights[s] = stationary_kmers(model.emissions[s], a, k)
     for j in range(k):
@@ -224,7 +225,7 @@ def encode_symbols(tables: EngineTables, sym: np.ndarray) -> np.ndarray:
     """Emission codes from symbol indices (int8, -1 unknown) as :func:`symbols_of` gives."""
     n_codes = tables.unknown_code + 1
     dtype = np.uint8 if n_codes <= 256 else np.uint16 if n_codes <= 65536 else np.int32
-    out = np.empty(sym.shape[0], dtype=dtype)
+    out = work_buffer(sym.shape[0], dtype)
     kernels.encode_codes(
         sym, tables.order, tables.n_symbols, tables.offsets, tables.unknown_code, out
     )
@@ -376,6 +377,7 @@ def posterior(
             alpha_log,
             beta_ck,
             beta_log,
+            work_buffer(m),
             sm.lim,
         )
     elif sp is not None:
@@ -428,6 +430,7 @@ def posterior(
             alpha_log,
             beta_ck,
             beta_log,
+            *kernels.posterior_scratch(n, m, block),
             _limit_of(tables),
         )
     if pos >= 0:
@@ -453,9 +456,8 @@ def viterbi(
         block = n if bp_bytes <= _sparse.BACKPOINTER_BUDGET else None
     block = default_block(n) if block is None else max(1, min(int(block), n))
     dtype = np.int16 if tables.n_states < 32768 else np.int32
-    path = np.empty(n, dtype=dtype)
+    path = work_buffer(n, dtype)
     if sp is not None:
-        bps = np.empty((min(block, n), sp.n_multi + 1), dtype=sp.bp_dtype)
         lp, pos = _sparse.viterbi_checkpointed(
             codes,
             sp.log_start,
@@ -477,7 +479,7 @@ def viterbi(
             sp.p_src,
             sp.p_lp,
             block,
-            bps,
+            *_sparse.viterbi_scratch(sp, n, block),
             path,
         )
     elif sm is not None:
@@ -495,6 +497,7 @@ def viterbi(
             sm.logE,
             block,
             path,
+            *_small.viterbi_scratch(sm, n, block),
         )
     else:
         lp, pos = kernels.viterbi_checkpointed(
@@ -509,6 +512,7 @@ def viterbi(
             tables.pred_logp,
             block,
             path,
+            *kernels.viterbi_scratch(n, tables.n_states, block),
         )
     if pos >= 0:
         _raise_impossible(tables, codes, record)
@@ -519,7 +523,7 @@ def forward_vector(
     tables: EngineTables, codes: np.ndarray, post: Posterior, pos: int
 ) -> tuple[np.ndarray, float]:
     """Scaled forward vector at ``pos`` and its natural-log scale."""
-    out = np.empty(tables.n_states)
+    out = work_buffer(tables.n_states)
     cur = _cursor_of(tables, codes, post)
     if cur is not None:
         row, lg = cur.forward(pos)
@@ -547,7 +551,7 @@ def backward_vector(
     tables: EngineTables, codes: np.ndarray, post: Posterior, pos: int
 ) -> tuple[np.ndarray, float]:
     """Scaled backward vector at ``pos`` and its natural-log scale."""
-    out = np.empty(tables.n_states)
+    out = work_buffer(tables.n_states)
     cur = _cursor_of(tables, codes, post)
     if cur is not None:
         row, lg = cur.backward(pos)
@@ -566,6 +570,7 @@ def backward_vector(
         post.beta_ck,
         post.beta_ck_log,
         out,
+        work_buffer(tables.n_states),
     )
     return out, lg
 
@@ -577,7 +582,7 @@ def _restricted(tables, codes, start0, end0, init, init_is_start, mask, use_emis
         row = np.zeros((1, m + 2))
         if not init_is_start:
             _sparse.to_slots(np.asarray(init, dtype=np.float64), sp.perm, row, 0)
-        work = np.empty((2, m + 2))
+        work = work_buffer((2, m + 2))
         lg = _sparse_restricted(
             tables,
             sp,
@@ -594,7 +599,7 @@ def _restricted(tables, codes, start0, end0, init, init_is_start, mask, use_emis
         if lg > -np.inf:
             _sparse.from_slots(work, 0, sp.perm, out)
         return out, lg
-    out = np.empty(tables.n_states)
+    out = work_buffer(tables.n_states)
     lg = kernels.restricted_forward(
         codes,
         start0,
@@ -610,6 +615,7 @@ def _restricted(tables, codes, start0, end0, init, init_is_start, mask, use_emis
         tables.pred_src,
         tables.pred_p,
         out,
+        *kernels.restricted_scratch(tables.n_states, tables.pred_src.shape[0]),
     )
     return out, lg
 

@@ -30,6 +30,9 @@ import math
 import numpy as np
 from numba import njit, uintp
 
+from seqstate.engine import jitcache
+from seqstate.engine.buffers import work_buffer
+
 #: Rescale a running vector when its sum falls below this value (the default ``lim``
 #: of the kernels; see :func:`rescale_limit` for models with tiny factors).
 RESCALE_BELOW = 1e-100
@@ -55,7 +58,36 @@ def rescale_limit(smallest_factor: float) -> float:
     return max(RESCALE_BELOW, SAFE_FLOOR / smallest_factor)
 
 
-_JIT = {"cache": True, "nogil": True, "error_model": "numpy"}
+_JIT = {"cache": jitcache.CACHE, "nogil": True, "error_model": "numpy"}
+
+
+# ----------------------------------------------------------------- work arrays
+# The kernels allocate no uninitialised memory: their work arrays come from
+# :func:`seqstate.engine.buffers.work_buffer` (poisoned in tests) through these.
+def posterior_scratch(n: int, m: int, block: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Work arrays ``(w, buf, gamma)`` of :func:`posterior_checkpointed` (N = ``n``, M = ``m``)."""
+    return work_buffer(m), work_buffer((min(block, n), m)), work_buffer(m)
+
+
+def restricted_scratch(m: int, nnz: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Work arrays ``(ms, fsrc, fp)`` of :func:`restricted_forward` (``nnz`` allowed moves);
+    empty below :data:`RESTRICTED_MASKED_MIN` states, where they are not used."""
+    if m < RESTRICTED_MASKED_MIN:
+        m = nnz = 0
+    return work_buffer(m, np.int64), work_buffer(nnz, np.int64), work_buffer(nnz)
+
+
+def viterbi_scratch(
+    n: int, m: int, block: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Work arrays ``(ck, rows, bp1, bps)`` of :func:`viterbi_checkpointed`."""
+    nblocks = (n + block - 1) // block
+    return (
+        work_buffer((nblocks, m)),
+        work_buffer((2, m)),
+        work_buffer((1, m), np.int32),
+        work_buffer((min(block, n), m), np.int32),
+    )
 
 
 # ----------------------------------------------------------------- helpers
@@ -275,6 +307,9 @@ def posterior_checkpointed(
     alpha_ck_log,
     beta_ck,
     beta_ck_log,
+    w,
+    buf,
+    gamma,
     lim=RESCALE_BELOW,
 ):
     """Posterior P(z_i = s | x) summed into ``out[i, group[s]]`` (group -1 = not written).
@@ -287,12 +322,12 @@ def posterior_checkpointed(
     block is kept in ``alpha_ck``/``alpha_ck_log`` for later segment queries.
     ``block = N`` is the plain full-matrix algorithm.
 
+    ``w``, ``buf`` and ``gamma`` are work arrays (see :func:`posterior_scratch`).
     Returns (loglik, fail_position); ``out`` must be zero on entry.
     """
     n = codes.shape[0]
     m = start.shape[0]
     nblocks = (n + block - 1) // block
-    w = np.empty(m)
     scatter = _scatter_codes(nz_ptr, nz_state, pred_ptr, pred_src.shape[0])
     # ---- pass 1: backward, checkpoint at each block's last position
     rows = np.zeros((2, m))
@@ -336,10 +371,8 @@ def posterior_checkpointed(
                 beta_ck[bk, s] = rows[dst, s]
             beta_ck_log[bk] = logscale
     # ---- pass 2: forward with per-block backward recomputation
-    buf = np.empty((min(block, n), m))
     fw = np.zeros((2, m))
     fsrc = 0
-    gamma = np.empty(m)
     flog = 0.0
     for bk in range(nblocks):
         b0 = bk * block
@@ -457,9 +490,12 @@ def vector_at(
 
 @njit(**_JIT)
 def backward_vector_at(
-    codes, pos, E, nz_ptr, nz_state, succ_ptr, succ_dst, succ_p, block, beta_ck, beta_ck_log, out
+    codes, pos, E, nz_ptr, nz_state, succ_ptr, succ_dst, succ_p, block, beta_ck, beta_ck_log, out, w
 ):
-    """Backward vector at ``pos`` recomputed from its block's checkpoint; returns its log scale."""
+    """Backward vector at ``pos`` recomputed from its block's checkpoint; returns its log scale.
+
+    ``w`` is a work array of M entries.
+    """
     n = codes.shape[0]
     m = out.shape[0]
     bk = pos // block
@@ -468,7 +504,6 @@ def backward_vector_at(
     for s in range(m):
         rows[0, s] = beta_ck[bk, s]
     logscale = beta_ck_log[bk]
-    w = np.empty(m)
     src = 0
     wide = m >= RESTRICTED_MASKED_MIN
     for i in range(b1 - 2, pos - 1, -1):
@@ -503,7 +538,21 @@ def backward_vector_at(
 
 @njit(**_JIT)
 def _restricted_masked(
-    codes, s0, e0, init, init_is_start, mask, use_emissions, E, pred_ptr, pred_src, pred_p, out
+    codes,
+    s0,
+    e0,
+    init,
+    init_is_start,
+    mask,
+    use_emissions,
+    E,
+    pred_ptr,
+    pred_src,
+    pred_p,
+    out,
+    ms,
+    fsrc,
+    fp,
 ):
     """:func:`restricted_forward` for large models: the same values up to rounding.
 
@@ -511,14 +560,15 @@ def _restricted_masked(
     call (an unmasked predecessor holds 0 after the first position, so leaving it
     out adds nothing).  Every masked state is written at every position (0 where
     it cannot emit), so no row is reset, and the rescaling total is summed by
-    four interleaved partial sums rather than one running sum.
+    four interleaved partial sums rather than one running sum.  Work arrays: ``ms``
+    (int64, M entries), ``fsrc`` (int64) and ``fp`` (float64), both as long as
+    ``pred_src``; only their first entries are used.
     """
     m = init.shape[0]
     nm = 0
     for t in range(m):
         if mask[t]:
             nm += 1
-    ms = np.empty(nm, dtype=np.int64)
     fptr = np.zeros(nm + 1, dtype=np.int64)
     j = 0
     for t in range(m):
@@ -530,8 +580,6 @@ def _restricted_masked(
                     cnt += 1
             fptr[j + 1] = fptr[j] + cnt
             j += 1
-    fsrc = np.empty(fptr[nm], dtype=np.int64)
-    fp = np.empty(fptr[nm])
     for j in range(nm):
         t = ms[j]
         k = fptr[j]
@@ -609,6 +657,9 @@ def restricted_forward(
     pred_src,
     pred_p,
     out,
+    ms,
+    fsrc,
+    fp,
 ):
     """Forward over positions s0..e0-1 through the states with ``mask[s]`` only.
 
@@ -617,7 +668,8 @@ def restricted_forward(
     which gives the prior probability of staying inside the mask.  Writes the
     final scaled vector to ``out`` and returns its natural-log scale, or -inf if
     no allowed path stays inside the mask.  Models of at least
-    :data:`RESTRICTED_MASKED_MIN` states run :func:`_restricted_masked`.
+    :data:`RESTRICTED_MASKED_MIN` states run :func:`_restricted_masked`, which uses
+    the work arrays ``ms``, ``fsrc`` and ``fp`` (see :func:`restricted_scratch`).
     """
     if init.shape[0] >= RESTRICTED_MASKED_MIN:
         return _restricted_masked(
@@ -633,6 +685,9 @@ def restricted_forward(
             pred_src,
             pred_p,
             out,
+            ms,
+            fsrc,
+            fp,
         )
     return _restricted_plain(
         codes,
@@ -738,7 +793,21 @@ def _viterbi_step(X, xr, Y, yr, B, br, code, logE, nz_ptr, nz_state, pred_ptr, p
 
 @njit(**_JIT)
 def viterbi_checkpointed(
-    codes, log_start, log_end, logE, nz_ptr, nz_state, pred_ptr, pred_src, pred_logp, block, path
+    codes,
+    log_start,
+    log_end,
+    logE,
+    nz_ptr,
+    nz_state,
+    pred_ptr,
+    pred_src,
+    pred_logp,
+    block,
+    path,
+    ck,
+    rows,
+    bp1,
+    bps,
 ):
     """Most probable state path into ``path``; returns (log probability, fail_position).
 
@@ -746,13 +815,11 @@ def viterbi_checkpointed(
     the lowest index wins, and at the end the lowest-index final state.  The
     delta vector is kept at the first position of each block; during traceback
     each block is recomputed with its back-pointers (O(block * M) memory).
+    ``ck``, ``rows``, ``bp1`` and ``bps`` are work arrays (see :func:`viterbi_scratch`).
     """
     n = codes.shape[0]
     m = log_start.shape[0]
     nblocks = (n + block - 1) // block
-    ck = np.empty((nblocks, m))
-    rows = np.empty((2, m))
-    bp1 = np.empty((1, m), dtype=np.int32)
     c = uintp(codes[0])
     for s in range(m):
         rows[0, s] = -np.inf
@@ -803,7 +870,6 @@ def viterbi_checkpointed(
     if state < 0:
         return -np.inf, n
     # ---- traceback, one block at a time from the end
-    bps = np.empty((min(block, n), m), dtype=np.int32)
     for bk in range(nblocks - 1, -1, -1):
         b0 = bk * block
         b1 = min(n, b0 + block)

@@ -12,6 +12,8 @@ import itertools
 
 import numpy as np
 
+from seqstate.engine.buffers import work_buffer
+
 
 def forward_backward(
     start: np.ndarray, trans: np.ndarray, end: np.ndarray, lattice: np.ndarray
@@ -100,7 +102,7 @@ def encode_codes(
     sym: np.ndarray, order: int, n_symbols: int, offsets: np.ndarray, unknown_code: int
 ) -> np.ndarray:
     """Pure-Python twin of :func:`seqstate.engine.kernels.encode_codes`."""
-    out = np.empty(len(sym), dtype=np.int64)
+    out = work_buffer(len(sym), np.int64)
     for i, x in enumerate(sym):
         if x < 0:
             out[i] = unknown_code

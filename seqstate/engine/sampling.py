@@ -13,12 +13,14 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from seqstate.engine import jitcache
 from seqstate.engine.api import EngineTables
+from seqstate.engine.buffers import work_buffer
 
 _CHUNK = 1 << 20
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=jitcache.CACHE, nogil=True)
 def _sample_chunk(
     u,
     pos0,
@@ -81,8 +83,8 @@ def sample_record(
         emit_cdf[lo:hi] = (np.cumsum(block, axis=1) / block.sum(axis=1, keepdims=True)).reshape(
             -1, m
         )
-    path = np.empty(length, dtype=np.int32)
-    sym = np.empty(length, dtype=np.int8)
+    path = work_buffer(length, np.int32)
+    sym = work_buffer(length, np.int8)
     state, ctx = 0, 0
     for lo in range(0, length, _CHUNK):
         hi = min(length, lo + _CHUNK)

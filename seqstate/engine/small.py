@@ -43,9 +43,11 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit
 
+from seqstate.engine import jitcache
+from seqstate.engine.buffers import work_buffer
 from seqstate.engine.kernels import RESCALE_BELOW, rescale_limit
 
-_JIT = {"cache": True, "nogil": True, "error_model": "numpy"}
+_JIT = {"cache": jitcache.CACHE, "nogil": True, "error_model": "numpy"}
 
 #: Largest number of states for which the two-state kernels are used.
 MAX_STATES = 16
@@ -187,6 +189,18 @@ def group_table(small: SmallTables, group: np.ndarray) -> np.ndarray:
         for j in range(small.K[c]):
             gc[c, j] = group[small.st[c, j]]
     return gc
+
+
+def viterbi_scratch(
+    small: SmallTables, n: int, block: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Work arrays ``(ck, da, va)`` of :func:`viterbi_checkpointed` for N = ``n``."""
+    nblocks = (n + block - 1) // block
+    return (
+        work_buffer((nblocks, small.kmax)),
+        work_buffer(small.kmax),
+        work_buffer(small.kmax),
+    )
 
 
 # ----------------------------------------------------------------- wide steps
@@ -356,6 +370,7 @@ def posterior_checkpointed(
     alpha_ck_log,
     beta_ck,
     beta_ck_log,
+    full,
     lim=RESCALE_BELOW,
 ):
     """Posteriors summed into ``out[i, gc[codes[i], j]]``; same contract as the generic kernel.
@@ -365,13 +380,13 @@ def posterior_checkpointed(
     pass 2 runs forward block by block, recomputes the block's compact backward
     vectors from its checkpoint and writes the posteriors, keeping the full
     forward vector at the first position of every block.  Working memory is
-    O(block * K) plus the checkpoints.  Returns (loglik, fail_position).
+    O(block * K) plus the checkpoints; ``full`` is a work array of M entries.
+    Returns (loglik, fail_position).
     """
     n = codes.shape[0]
     m = start.shape[0]
     kmax = st.shape[1]
     nblocks = (n + block - 1) // block
-    full = np.empty(m)
     ba = np.zeros(kmax)
     bb = np.zeros(kmax)
     # ---- pass 1: backward
@@ -607,19 +622,17 @@ def posterior_checkpointed(
 # ----------------------------------------------------------------- Viterbi
 @njit(**_JIT)
 def viterbi_checkpointed(
-    codes, log_start, log_end, K, st, wide, cls, LT, LE, logT, logE, block, path
+    codes, log_start, log_end, K, st, wide, cls, LT, LE, logT, logE, block, path, ck, da, va
 ):
     """Most probable path into ``path``; (log probability, fail_position), generic tie rule.
 
     The compact delta vector is kept at the first position of every block; the
     traceback recomputes each block with its back-pointers (compact indices).
+    ``ck``, ``da`` and ``va`` are work arrays (see :func:`viterbi_scratch`).
     """
     n = codes.shape[0]
     kmax = st.shape[1]
     nblocks = (n + block - 1) // block
-    ck = np.empty((nblocks, kmax))
-    da = np.empty(kmax)
-    va = np.empty(kmax)
     bpa = np.zeros(kmax, dtype=np.int8)
     c = codes[0]
     anyv = -np.inf

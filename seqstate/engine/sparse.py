@@ -61,9 +61,11 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit, uintp
 
+from seqstate.engine import jitcache
+from seqstate.engine.buffers import work_buffer
 from seqstate.engine.kernels import RESCALE_BELOW
 
-_JIT = {"cache": True, "nogil": True, "error_model": "numpy"}
+_JIT = {"cache": jitcache.CACHE, "nogil": True, "error_model": "numpy"}
 
 #: Use these kernels when at least this share of the states has at most one predecessor.
 MIN_CHAIN_SHARE = 0.5
@@ -218,7 +220,7 @@ def build(tables, key=None) -> SparseTables:
     """
     m = tables.n_states
     perm = chain_order(tables, key)
-    inv = np.empty(m, dtype=np.int64)
+    inv = work_buffer(m, np.int64)
     inv[perm] = np.arange(m)
     pp, ps, pl, pv = tables.pred_ptr, tables.pred_src, tables.pred_logp, tables.pred_p
     sp, sd, sv = tables.succ_ptr, tables.succ_dst, tables.succ_p
@@ -435,6 +437,26 @@ def _dot(F, fr, B, br, lo, hi):
         s7 += F[fr, i + uintp(7)] * B[br, i + uintp(7)]
     for i in range(lo + 8 * nch, hi):
         s0 += F[fr, i] * B[br, i]
+    return ((s0 + s1) + (s2 + s3)) + ((s4 + s5) + (s6 + s7))
+
+
+@njit(**_JIT)
+def _dot_scaled(F, fr, sf, B, br, sb, n):
+    """:func:`_dot` of the rows ``F[fr] * sf`` and ``B[br] * sb`` over [0, n), same order."""
+    s0 = s1 = s2 = s3 = s4 = s5 = s6 = s7 = 0.0
+    nch = n // 8
+    for b in range(nch):
+        i = uintp(8 * b)
+        s0 += (F[fr, i] * sf) * (B[br, i] * sb)
+        s1 += (F[fr, i + _ONE] * sf) * (B[br, i + _ONE] * sb)
+        s2 += (F[fr, i + uintp(2)] * sf) * (B[br, i + uintp(2)] * sb)
+        s3 += (F[fr, i + uintp(3)] * sf) * (B[br, i + uintp(3)] * sb)
+        s4 += (F[fr, i + uintp(4)] * sf) * (B[br, i + uintp(4)] * sb)
+        s5 += (F[fr, i + uintp(5)] * sf) * (B[br, i + uintp(5)] * sb)
+        s6 += (F[fr, i + uintp(6)] * sf) * (B[br, i + uintp(6)] * sb)
+        s7 += (F[fr, i + uintp(7)] * sf) * (B[br, i + uintp(7)] * sb)
+    for i in range(8 * nch, n):
+        s0 += (F[fr, i] * sf) * (B[br, i] * sb)
     return ((s0 + s1) + (s2 + s3)) + ((s4 + s5) + (s6 + s7))
 
 
@@ -689,19 +711,20 @@ def viterbi_checkpointed(
     p_lp,
     block,
     bps,
+    ck,
     path,
 ):
     """Most probable path (original state indices) into ``path``; (log probability, fail).
 
     Same values, paths and tie rule as :func:`seqstate.engine.kernels.viterbi_checkpointed`.
     ``bps`` is scratch of shape (min(block, N), n_multi + 1) for the back-pointer
-    ranks (the last column takes the writes of single-predecessor states).  With
-    ``block >= N`` the record is decoded in one pass.
+    ranks (the last column takes the writes of single-predecessor states), ``ck``
+    scratch of shape (ceil(N / block), M + 2) for the checkpoints (see
+    :func:`viterbi_scratch`).  With ``block >= N`` the record is decoded in one pass.
     """
     n = codes.shape[0]
     m = log_start.shape[0]
     nblocks = (n + block - 1) // block
-    ck = np.empty((nblocks, m + 2))
     rows = np.full((2, m + 2), -np.inf)
     c = uintp(codes[0])
     for t in range(m):
@@ -836,6 +859,15 @@ def viterbi_checkpointed(
     return bestv, -1
 
 
+def viterbi_scratch(sp: SparseTables, n: int, block: int) -> tuple[np.ndarray, np.ndarray]:
+    """Work arrays ``(bps, ck)`` of :func:`viterbi_checkpointed` for N = ``n``."""
+    nblocks = (n + block - 1) // block
+    return (
+        work_buffer((min(block, n), sp.n_multi + 1), sp.bp_dtype),
+        work_buffer((nblocks, sp.n_states + 2)),
+    )
+
+
 # ----------------------------------------------------------------- segment queries
 # Forward and backward vectors recomputed from the posterior's checkpoints, and
 # forward passes restricted to a set of states, in the renumbered slots.  The
@@ -942,7 +974,8 @@ def restricted_forward(
     ``code`` >= 0 replaces every position's code (the unknown code, whose
     emission factors are all 1, gives the prior probability of staying inside the
     mask); -1 reads ``codes``.  ``maskf`` has M + 2 entries, 0 or 1, 0 in the
-    dummy slots.  The final scaled vector lands in row 0 of ``W`` (2, M + 2).
+    dummy slots.  The final scaled vector lands in row 0 of ``W`` (2, M + 2), whose
+    contents on entry are never read (its dummy slots are set to 0 first).
     Returns its binary exponent as a float, or -inf if no allowed path stays
     inside the mask.
     """
@@ -951,6 +984,10 @@ def restricted_forward(
     tmpi = np.zeros(1, dtype=np.int64)
     tmpf = tmpi.view(np.float64)
     limbits = _bits_of(lim, tmpi, tmpf)
+    # the steps read the dummy slots of both rows: they must hold 0 whatever W held
+    for r in range(2):
+        W[r, 0] = 0.0
+        W[r, m + 1] = 0.0
     ex = 0
     src = 0
     for i in range(s0, e0):
@@ -960,8 +997,6 @@ def restricted_forward(
             dst = 0
             if init_is_start:
                 _first(W, 0, c, m, start, E)
-                W[0, 0] = 0.0
-                W[0, m + 1] = 0.0
             else:
                 _step(init, 0, W, 0, c, m, 0, w1, f_ptr, f_n0, f_dst, f_src, f_w)
         else:
@@ -993,14 +1028,9 @@ def log_dot(F, fr, B, br):
         return -np.inf
     _, ef = math.frexp(mf)
     _, eb = math.frexp(mb)
-    x = np.empty((1, n))
-    y = np.empty((1, n))
     sf = math.ldexp(1.0, -ef)
     sb = math.ldexp(1.0, -eb)
-    for s in range(n):
-        x[0, s] = F[fr, s] * sf
-        y[0, s] = B[br, s] * sb
-    d = _dot(x, 0, y, 0, 0, n)
+    d = _dot_scaled(F, fr, sf, B, br, sb, n)
     if d <= 0.0:
         return -np.inf
     return math.log(d) + (ef + eb) * _LN2

@@ -47,9 +47,10 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit
 
+from seqstate.engine import jitcache
 from seqstate.model import Model
 
-_JIT = {"cache": True, "nogil": True, "error_model": "numpy"}
+_JIT = {"cache": jitcache.CACHE, "nogil": True, "error_model": "numpy"}
 
 #: Rescale a running vector when its sum falls below this value (as the engine kernels do).
 RESCALE_BELOW = 1e-100
