@@ -74,16 +74,15 @@ def decoding_options(command):
     command = click.option(
         "--min-length",
         type=int,
-        default=1,
-        show_default=True,
-        help="Shortest feature, in bases.",
+        default=None,
+        help="Shortest feature, in bases; default: the model's (cpg-island: 200, else 1).",
     )(command)
     command = click.option(
         "--min-posterior",
         type=float,
-        default=0.5,
-        show_default=True,
-        help="Posterior decoding: smallest per-base label posterior inside a feature.",
+        default=None,
+        help="Posterior decoding: smallest per-base label posterior inside a feature; "
+        "default: the model's (0.5 unless it says otherwise).",
     )(command)
     return click.option(
         "--decode",
@@ -216,6 +215,13 @@ def summary(m, path: str, sha: str) -> str:
     show_default=True,
     help="Decimals of the posterior values in tracks.",
 )
+@click.option(
+    "--empty-records",
+    type=click.Choice(["skip", "error"]),
+    default="skip",
+    show_default=True,
+    help="A FASTA record with no sequence: skip it with a warning, or stop with an error.",
+)
 @click.option("-q", "--quiet", is_flag=True, help="No progress or summary on stderr.")
 @click.pass_obj
 def annotate_cmd(
@@ -230,6 +236,7 @@ def annotate_cmd(
     masked,
     tracks,
     precision,
+    empty_records,
     quiet,
 ) -> None:
     """Annotate the records of FASTA (plain or gzip; '-' for stdin) with a model."""
@@ -246,15 +253,37 @@ def annotate_cmd(
         masked=masked,
         tracks=tracks,
         precision=precision,
+        empty_records=empty_records,
         command_line=command_line(obj),
     )
     report = annotate(opts, progress_enabled=(not quiet) and sys.stderr.isatty())
+    _warn_skipped(fasta, report["skipped_records"])
     if not quiet:
         n = sum(r["features"] for r in report["records"])
         bases = sum(r["end_1based"] - r["start_1based"] + 1 for r in report["records"])
         click.echo(
             f"seqstate: {len(report['records'])} record(s), {bases} bases, {n} features "
             f"-> {out_dir}/",
+            err=True,
+        )
+
+
+def _warn_skipped(fasta: str, skipped: list[dict], shown: int = 5) -> None:
+    """One warning line per skipped record (the first ``shown``; the run report has all)."""
+    from seqstate.errors import escape_text
+    from seqstate.io.fasta import display_name
+
+    for sk in skipped[:shown]:
+        text = f"{display_name(fasta)} line {sk['line']}, record '{sk['id']}'"
+        click.echo(
+            f"warning: {escape_text(text)}: a header with no sequence, skipped "
+            "(--empty-records error refuses such records)",
+            err=True,
+        )
+    if len(skipped) > shown:
+        click.echo(
+            f"warning: {len(skipped) - shown} more record(s) with no sequence skipped "
+            "(all are listed in the run report)",
             err=True,
         )
 
