@@ -792,3 +792,14 @@ def test_defaults_survive_a_round_trip(tmp_path):
     back = load_model(tmp_path / "again")
     assert back.equals(model)
     assert back.extra["defaults"] == {"min_length": 30, "min_posterior": 0.8}
+
+
+def test_a_huge_file_given_as_manifest_is_refused_unread(tmp_path):
+    from seqstate.io.tables import MAX_MANIFEST_BYTES
+
+    big = tmp_path / "genome.toml"
+    with open(big, "wb") as fh:  # sparse: no disk space used
+        fh.truncate(MAX_MANIFEST_BYTES + 1)
+    with pytest.raises(ModelFormatError) as info:
+        load_model(big)
+    assert "more than a manifest may be" in str(info.value), str(info.value)

@@ -58,6 +58,9 @@ TABLE_FILES = {
     "emissions": "emissions.tsv",
     "end": "end.tsv",
 }
+#: Largest manifest read (16 MiB): a model.toml is a few kilobytes; a bigger file given
+#: as a manifest by mistake (a genome, say) is refused before it is read.
+MAX_MANIFEST_BYTES = 16 * 2**20
 _KNOWN_KEYS = {
     "format",
     "name",
@@ -196,6 +199,16 @@ def _kind(value) -> str:
 
 
 def _load_manifest(manifest: Path) -> Model:
+    try:
+        size = manifest.stat().st_size
+    except OSError:
+        size = 0  # _read_text names the problem
+    if size > MAX_MANIFEST_BYTES:
+        raise ModelFormatError(
+            f"is {size:,} bytes, more than a manifest may be ({MAX_MANIFEST_BYTES:,}); "
+            "expected a TOML manifest (model.toml)",
+            path=manifest,
+        )
     data = _read_text(manifest, ModelFormatError, "TOML manifest")
     try:
         text = data.decode("utf-8")
@@ -393,7 +406,7 @@ def _inside(
     :class:`~seqstate.errors.ModelFormatError` (nothing outside the folder is read).
     """
     rule = "table paths must be relative to the model folder and stay inside it"
-    if Path(shown).is_absolute() or shown.startswith("~"):
+    if Path(shown).is_absolute():
         raise ModelFormatError(
             f"[tables] {key} = {shown!r} is an absolute path; {rule}", path=manifest, line0=line0
         )
