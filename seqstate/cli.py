@@ -179,16 +179,15 @@ def decoding_options(command):
     command = click.option(
         "--min-length",
         type=int,
-        default=1,
-        show_default=True,
-        help="Shortest feature, in bases.",
+        default=None,
+        help="Shortest feature, in bases; default: the model's (cpg-island: 200, else 1).",
     )(command)
     command = click.option(
         "--min-posterior",
         type=float,
-        default=0.5,
-        show_default=True,
-        help="Posterior decoding: smallest per-base label posterior inside a feature.",
+        default=None,
+        help="Posterior decoding: smallest per-base label posterior inside a feature; "
+        "default: the model's (0.5 unless it says otherwise).",
     )(command)
     return click.option(
         "--decode",
@@ -340,6 +339,13 @@ def summary(m, path: str, sha: str) -> str:
     show_default=True,
     help="No feature (gene or segment) spans a run of this many unknown bases: it is cut there.",
 )
+@click.option(
+    "--empty-records",
+    type=click.Choice(["skip", "error"]),
+    default="skip",
+    show_default=True,
+    help="A FASTA record with no sequence: skip it with a warning, or stop with an error.",
+)
 @click.option("-q", "--quiet", is_flag=True, help="No progress or summary on stderr.")
 @click.pass_obj
 def annotate_cmd(
@@ -357,6 +363,7 @@ def annotate_cmd(
     force,
     precision,
     split_unknown,
+    empty_records,
     quiet,
 ) -> None:
     """Annotate the records of FASTA (plain or gzip; '-' for stdin) with a model."""
@@ -377,11 +384,13 @@ def annotate_cmd(
         tracks=tracks,
         precision=precision,
         split_unknown=split_unknown,
+        empty_records=empty_records,
         command_line=command_line(obj),
         force=force,
         stem=stem,
     )
     report = annotate(opts, progress_enabled=(not quiet) and sys.stderr.isatty(), stdout=gff_out)
+    _warn_skipped(fasta, report["skipped_records"])
     if gff_out is not None:
         echo_stdout(gff_out.getvalue())
     if not quiet:
@@ -390,6 +399,26 @@ def annotate_cmd(
         where = "stdout" if gff_out is not None else f"{out_dir}/"
         click.echo(
             f"seqstate: {len(report['records'])} record(s), {bases} bases, {n} features -> {where}",
+            err=True,
+        )
+
+
+def _warn_skipped(fasta: str, skipped: list[dict], shown: int = 5) -> None:
+    """One warning line per skipped record (the first ``shown``; the run report has all)."""
+    from seqstate.errors import escape_text
+    from seqstate.io.fasta import display_name
+
+    for sk in skipped[:shown]:
+        text = f"{display_name(fasta)} line {sk['line']}, record '{sk['id']}'"
+        click.echo(
+            f"warning: {escape_text(text)}: a header with no sequence, skipped "
+            "(--empty-records error refuses such records)",
+            err=True,
+        )
+    if len(skipped) > shown:
+        click.echo(
+            f"warning: {len(skipped) - shown} more record(s) with no sequence skipped "
+            "(all are listed in the run report)",
             err=True,
         )
 

@@ -8,7 +8,43 @@ exit codes; any other exception is a bug and keeps its traceback.
 
 from __future__ import annotations
 
+import unicodedata
 from pathlib import Path
+
+#: Unicode categories escaped in messages: controls, format characters (such as
+#: bidirectional overrides), lone surrogates, and line/paragraph separators.
+_ESCAPED_CATEGORIES = frozenset({"Cc", "Cf", "Cs", "Zl", "Zp"})
+_NAMED_ESCAPES = {"\t": "\\t", "\n": "\\n", "\r": "\\r"}
+
+
+def escape_text(text: str) -> str:
+    """``text`` with every character that could break a one-line message escaped.
+
+    Tab, newline and carriage return become ``\\t``, ``\\n``, ``\\r``; other
+    control and invisible format characters become ``\\xNN`` / ``\\uNNNN`` /
+    ``\\UNNNNNNNN`` (as Python writes them); a lone surrogate that stands for an
+    undecodable byte of a file name (``surrogateescape``) becomes ``\\xNN`` of that
+    byte.  Printable text, including non-ASCII letters, is kept as it is.
+    """
+    if text.isprintable():
+        return text
+    out = []
+    for ch in text:
+        code = ord(ch)
+        if ch in _NAMED_ESCAPES:
+            out.append(_NAMED_ESCAPES[ch])
+        elif 0xDC80 <= code <= 0xDCFF:
+            out.append(f"\\x{code - 0xDC00:02x}")
+        elif unicodedata.category(ch) in _ESCAPED_CATEGORIES:
+            if code <= 0xFF:
+                out.append(f"\\x{code:02x}")
+            elif code <= 0xFFFF:
+                out.append(f"\\u{code:04x}")
+            else:
+                out.append(f"\\U{code:08x}")
+        else:
+            out.append(ch)
+    return "".join(out)
 
 
 class SeqstateError(Exception):
@@ -34,7 +70,11 @@ class SeqstateError(Exception):
         super().__init__(self.format())
 
     def format(self) -> str:
-        """The one-line message, without the ``error:`` prefix."""
+        """The one-line message, without the ``error:`` prefix.
+
+        Control characters (from a file name, a record ID, a cell of a file) are
+        escaped by :func:`escape_text`, so the message is always one line.
+        """
         parts = []
         if self.path is not None:
             loc = self.path
@@ -47,7 +87,7 @@ class SeqstateError(Exception):
             parts.append(self.where)
         prefix = ", ".join(parts)
         text = f"{prefix}: {self.message}" if prefix else self.message
-        return " ".join(text.split("\n"))
+        return escape_text(text)
 
 
 class ModelFormatError(SeqstateError):

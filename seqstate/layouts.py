@@ -18,7 +18,8 @@ def expand_to_symbol_states(
     ``a((s, x), (t, y)) = a(s, t) * P(y | x; t)`` and ``end(s, x) = end(s)``.
     On sequences without unknown bases both layouts give the same likelihood and
     the same per-label posteriors.  New state names are ``<state>_<symbol>``;
-    states are ordered by original state, then by symbol.
+    states are ordered by original state, then by symbol.  The decoding
+    thresholds of ``[defaults]`` are kept (the labels mean the same).
     """
     if model.order != 1:
         raise ValueError("expand_to_symbol_states needs an order-1 model")
@@ -52,4 +53,5 @@ def expand_to_symbol_states(
         order=0,
         decode=model.decode,
         background_label=model.background_label,
+        extra={"defaults": dict(model.extra["defaults"])} if "defaults" in model.extra else None,
     )

@@ -24,6 +24,8 @@ sequences; :func:`validate` checks the semantic rules every model must meet.
 from __future__ import annotations
 
 import hashlib
+import math
+import re
 from collections import deque
 from dataclasses import dataclass, field
 
@@ -37,6 +39,20 @@ SUM_TOLERANCE = 1e-6
 MAX_ORDER = 8
 DECODINGS = ("posterior", "viterbi")
 STRANDS = ("+", "-")
+#: Largest emission table a model may declare: states x symbols**(order + 1)
+#: probabilities, 2**24 (128 MiB as float64).  Checked before anything is allocated.
+MAX_EMISSION_CELLS = 2**24
+#: A label (the feature type a state reports): a letter, then letters, digits, '_' or
+#: '-', at most 64 characters in all.  Labels become GFF3 column 3 values, parts of
+#: feature IDs, TSV cells and track file names, so nothing that breaks a file name or
+#: a column (space, tab, newline, control characters, '/', '\\', ';', '=', ',', '.', ...)
+#: is allowed.  Sequence Ontology term names (``CpG_island``, ``CDS``,
+#: ``five_prime_cis_splice_site``) all fit.
+LABEL_PATTERN = re.compile(r"[A-Za-z][A-Za-z0-9_-]{0,63}")
+#: Decoding thresholds a manifest's ``[defaults]`` table may set, and the values used
+#: when it does not: the smallest per-base posterior inside a feature (0..1) and the
+#: shortest feature in bases (at least 1).  Options given on the command line win.
+DEFAULT_THRESHOLDS: dict[str, float | int] = {"min_posterior": 0.5, "min_length": 1}
 
 #: Sequence Ontology accessions of labels the built-in models use.
 SO_ACCESSIONS = {
@@ -166,6 +182,89 @@ class Model:
         return "".join(reversed(chars))
 
 
+def label_problem(label: str) -> str | None:
+    """Why ``label`` is not allowed as a label (see :data:`LABEL_PATTERN`), or None."""
+    if LABEL_PATTERN.fullmatch(label):
+        return None
+    rule = (
+        "a label is a Sequence Ontology-like name: a letter, then letters, digits, '_' or "
+        "'-', at most 64 characters (labels become GFF3 types and track file names)"
+    )
+    if len(label) > 64:
+        return f"label of {len(label)} characters is too long; {rule}"
+    if not label[:1].isascii() or not label[:1].isalpha():
+        return f"label {label!r} does not start with a letter; {rule}"
+    bad = next(ch for ch in label if not (ch.isascii() and (ch.isalnum() or ch in "_-")))
+    return f"label {label!r} has the character {bad!r}, which is not allowed; {rule}"
+
+
+def emission_size_problem(n_states: int, n_symbols: int, order: int) -> str | None:
+    """Why an emission table of this shape is refused (over :data:`MAX_EMISSION_CELLS`)."""
+    cells = n_states * n_symbols ** (order + 1)
+    if cells <= MAX_EMISSION_CELLS:
+        return None
+    return (
+        f"the emission table would hold {cells:,} probabilities ({n_states} states x "
+        f"{n_symbols} symbols^{order + 1} for order {order}), {_bytes(cells * 8)} as float64; "
+        f"the limit is {MAX_EMISSION_CELLS:,} ({_bytes(MAX_EMISSION_CELLS * 8)}): use a lower "
+        "order, fewer symbols or fewer states"
+    )
+
+
+def _bytes(n: int) -> str:
+    for unit in ("bytes", "KiB", "MiB", "GiB", "TiB", "PiB"):
+        if n < 1024 or unit == "PiB":
+            return f"{n} bytes" if unit == "bytes" else f"{n:.3g} {unit}"
+        n /= 1024
+    return f"{n:.3g} PiB"  # pragma: no cover
+
+
+def thresholds_problem(table) -> str | None:
+    """Why a ``[defaults]`` table is not valid (see :data:`DEFAULT_THRESHOLDS`), or None."""
+    if not isinstance(table, dict):
+        return "[defaults] must be a table of decoding thresholds (min_posterior, min_length)"
+    for key, value in table.items():
+        if key not in DEFAULT_THRESHOLDS:
+            return f"[defaults] has unknown key {key!r}; known: {', '.join(DEFAULT_THRESHOLDS)}"
+        number = isinstance(value, (int, float)) and not isinstance(value, bool)
+        if key == "min_posterior" and not (number and math.isfinite(value) and 0 <= value <= 1):
+            return f"[defaults] min_posterior = {value!r} must be a number from 0 to 1"
+        if key == "min_length" and not (
+            isinstance(value, int) and not isinstance(value, bool) and value >= 1
+        ):
+            return f"[defaults] min_length = {value!r} must be a whole number of bases, at least 1"
+    return None
+
+
+def default_thresholds(model: Model) -> dict[str, float | int]:
+    """The model's decoding thresholds: its ``[defaults]`` over :data:`DEFAULT_THRESHOLDS`."""
+    out = dict(DEFAULT_THRESHOLDS)
+    table = model.extra.get("defaults", {})
+    if isinstance(table, dict):
+        out.update({k: v for k, v in table.items() if k in out})
+    out["min_posterior"] = float(out["min_posterior"])
+    out["min_length"] = int(out["min_length"])
+    return out
+
+
+def resolve_thresholds(
+    model: Model, min_posterior: float | None, min_length: int | None
+) -> tuple[float, int, dict[str, str]]:
+    """Thresholds to decode with: a given value wins, None takes the model's default.
+
+    Returns ``(min_posterior, min_length, source)`` where ``source`` maps each name to
+    ``"option"`` or ``"model"``.
+    """
+    defaults = default_thresholds(model)
+    source = {
+        "min_posterior": "model" if min_posterior is None else "option",
+        "min_length": "model" if min_length is None else "option",
+    }
+    mp = defaults["min_posterior"] if min_posterior is None else min_posterior
+    ml = defaults["min_length"] if min_length is None else min_length
+    return float(mp), int(ml), source
+
+
 def make_model(
     *,
     name: str,
@@ -239,6 +338,9 @@ def validate(model: Model, *, path: str | None = None) -> None:
         fail(f"alphabet symbol {bad[0]!r} is not allowed (printable ASCII other than '#' and '.')")
     if not 0 <= model.order <= MAX_ORDER:
         fail(f"emission order {model.order} is outside 0..{MAX_ORDER}")
+    size = emission_size_problem(model.n_states, len(alphabet), model.order)
+    if size:
+        fail(size)
     if model.decode not in DECODINGS:
         fail(f"decode {model.decode!r} is not one of {', '.join(DECODINGS)}")
     m = model.n_states
@@ -247,14 +349,21 @@ def validate(model: Model, *, path: str | None = None) -> None:
     names = model.state_names
     seen: set[str] = set()
     for n in names:
-        if not n or any(c.isspace() for c in n):
-            fail(f"state name {n!r} is empty or contains white space")
+        if not isinstance(n, str) or not n or not n.isprintable() or any(c.isspace() for c in n):
+            fail(f"state name {n!r} is empty or contains white space or control characters")
         if n in seen:
             fail(f"duplicate state name {n!r}")
         seen.add(n)
     for s in model.states:
+        if s.label is not None:
+            problem = label_problem(s.label) if isinstance(s.label, str) else "not a string"
+            if problem:
+                fail(f"state {s.name!r}: {problem}")
         if s.strand is not None and s.strand not in STRANDS:
             fail(f"state {s.name!r} has strand {s.strand!r}, expected '+', '-' or none")
+    problem = thresholds_problem(model.extra.get("defaults", {}))
+    if problem:
+        fail(problem)
     a = len(alphabet)
     k = model.order
     shapes = {
@@ -341,9 +450,15 @@ def normalize_rows(model: Model) -> None:
     """Turn raw counts into probabilities in place (``normalize = true`` in a manifest)."""
 
     def norm(v: np.ndarray, what: str) -> np.ndarray:
-        total = v.sum(axis=-1, keepdims=True)
+        with np.errstate(over="ignore"):
+            total = v.sum(axis=-1, keepdims=True)
         if np.any(total <= 0):
             raise ModelFormatError(f"{what}: a row sums to 0 and cannot be normalised")
+        if not np.all(np.isfinite(total)):
+            raise ModelFormatError(
+                f"{what}: a row sums to more than the largest number (overflow); "
+                "scale the counts down"
+            )
         return v / total
 
     model.start = norm(model.start, "start probabilities")

@@ -14,7 +14,7 @@ import math
 import re
 import sys
 import time
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from typing import TextIO
 
@@ -36,11 +36,11 @@ from seqstate.engine import api
 from seqstate.errors import ImpossibleSequenceError, SequenceFormatError, UsageError
 from seqstate.io import tracks
 from seqstate.io.atomic import OutputSet, check_outputs
-from seqstate.io.fasta import Record, read_fasta
+from seqstate.io.fasta import Record, SkippedRecord, read_fasta
 from seqstate.io.gff3 import Feature, GFF3Writer
 from seqstate.io.regions import Region, check_region, parse_region
 from seqstate.io.tables import load_model, model_sha256
-from seqstate.model import Model
+from seqstate.model import Model, resolve_thresholds
 
 REPORT_SCHEMA = "seqstate-run-report/1"
 SOURCE = "seqstate"
@@ -84,13 +84,17 @@ class AnnotateOptions:
     model: str = "cpg-island"
     out_dir: str = "."
     decode: str | None = None
-    min_posterior: float = 0.5
-    min_length: int = 1
+    #: None: the model's default (its ``[defaults]`` table, else 0.5 and 1)
+    min_posterior: float | None = None
+    min_length: int | None = None
     region: str | None = None
     masked: str = "base"
     tracks: str = "bedgraph"
     precision: int = 4
     split_unknown: int = 10
+    #: a FASTA record with a header and no sequence: "skip" (warn, list it in the
+    #: run report) or "error"
+    empty_records: str = "skip"
     command_line: list[str] = field(default_factory=list)
     force: bool = False
     stem: str | None = None
@@ -147,10 +151,19 @@ def output_names(stem: str, groups: list[Group], want_bedgraph: bool, want_bigwi
     return names + [f"{stem}.run.json"]
 
 
-def read_records(path: str, model: Model) -> list[Record]:
-    """All FASTA records of ``path``, validated for the model's alphabet."""
+def read_records(
+    path: str,
+    model: Model,
+    *,
+    empty_records: str = "error",
+    skipped: list[SkippedRecord] | None = None,
+) -> list[Record]:
+    """All FASTA records of ``path``, validated for the model's alphabet.
+
+    ``empty_records`` and ``skipped``: as :func:`seqstate.io.fasta.iter_fasta`.
+    """
     check = "dna" if set(model.alphabet) <= set(DNA) else None
-    return read_fasta(path, alphabet_check=check)
+    return read_fasta(path, alphabet_check=check, empty_records=empty_records, skipped=skipped)
 
 
 def _check_symbols(records: list[Record], model: Model, path: str) -> None:
@@ -278,6 +291,11 @@ def annotate(
     decode = opts.decode or model.decode
     if decode not in ("posterior", "viterbi"):
         raise UsageError(f"decode '{decode}' is not posterior or viterbi")
+    given = opts
+    min_posterior, min_length, source = resolve_thresholds(
+        model, opts.min_posterior, opts.min_length
+    )
+    opts = replace(opts, min_posterior=min_posterior, min_length=min_length)
     if not 0.0 <= opts.min_posterior <= 1.0:
         raise UsageError(f"--min-posterior {opts.min_posterior} is outside 0..1")
     if opts.min_length < 1:
@@ -289,7 +307,8 @@ def annotate(
     if not groups:
         raise UsageError(f"model '{model.name}' has no labelled states: nothing to annotate")
     state_group = group_index(model, groups)
-    records = read_records(opts.input, model)
+    skipped: list[SkippedRecord] = []
+    records = read_records(opts.input, model, empty_records=opts.empty_records, skipped=skipped)
     if not set(model.alphabet) <= set(DNA):
         _check_symbols(records, model, opts.input)
     lengths = {r.id: len(r.seq) for r in records}
@@ -324,8 +343,13 @@ def annotate(
             "order": model.order,
             "states": model.n_states,
         },
-        "options": {k: v for k, v in asdict(opts).items() if k != "command_line"},
+        "options": {k: v for k, v in asdict(given).items() if k != "command_line"},
         "decode": decode,
+        "thresholds": {
+            "min_posterior": opts.min_posterior,
+            "min_length": opts.min_length,
+            "from": source,
+        },
         "log_base": "natural log (ln)",
         "coordinates": {
             "gff3": "1-based closed",
@@ -333,6 +357,9 @@ def annotate(
             "tsv": "1-based closed (start_1based, end_1based)",
         },
         "records": [],
+        "skipped_records": [
+            {"id": sk.id, "line": sk.line0 + 1, "reason": sk.reason} for sk in skipped
+        ],
         "outputs": [],
     }
     report["options"]["decode"] = decode
@@ -651,6 +678,13 @@ def decode_genes(
 
 
 # ---------------------------------------------------------------- sampling
+#: Largest sample run: records x length, in bases (each base costs about 6 bytes of
+#: memory while it is drawn: the state path, the symbol and the FASTA text).
+MAX_SAMPLE_BASES = 250_000_000
+#: Most records one sample run draws.
+MAX_SAMPLE_RECORDS = 1_000_000
+
+
 @dataclass
 class SampleOptions:
     """Everything ``seqstate sample`` was asked to do."""
@@ -707,6 +741,17 @@ def sample(opts: SampleOptions) -> dict:
         raise UsageError("--truth is empty: expected a GFF3 file name")
     if "-" in (opts.out_fasta, opts.truth_gff3):
         raise UsageError("sample writes files: '-' (standard output) is not accepted")
+    if opts.records > MAX_SAMPLE_RECORDS:
+        raise UsageError(
+            f"--records {opts.records:,} is more than the limit of {MAX_SAMPLE_RECORDS:,} records"
+        )
+    if opts.length * opts.records > MAX_SAMPLE_BASES:
+        raise UsageError(
+            f"--records {opts.records:,} x --length {opts.length:,} = "
+            f"{opts.length * opts.records:,} bases is more than the limit of "
+            f"{MAX_SAMPLE_BASES:,} bases per sample run (about "
+            f"{MAX_SAMPLE_BASES * 6 / 2**30:.1f} GiB of memory); draw fewer or shorter records"
+        )
     check_outputs([opts.out_fasta, opts.truth_gff3], model_inputs(opts.model), force=opts.force)
     model = load_model(opts.model)
     tables = api.prepare(model)

@@ -20,7 +20,7 @@ PDF by matplotlib's own writers for those formats.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -40,6 +40,7 @@ from seqstate.io.atomic import OutputSet, check_outputs
 from seqstate.io.fasta import display_name
 from seqstate.io.regions import check_region, parse_region
 from seqstate.io.tables import load_model
+from seqstate.model import resolve_thresholds
 from seqstate.pipeline import DNA, _check_symbols, read_records
 from seqstate.score import read_regions
 
@@ -131,8 +132,8 @@ class PlotOptions:
     force: bool = False  # replace an existing figure file
     allow_large: bool = False  # regions over MAX_REGION bases
     decode: str | None = None
-    min_posterior: float = 0.5
-    min_length: int = 1
+    min_posterior: float | None = None  # None: the model's default
+    min_length: int | None = None  # None: the model's default
     masked: str = "base"
 
 
@@ -157,9 +158,9 @@ def _check_options(opts: PlotOptions) -> None:
         raise UsageError("the figure would be more than 20000 pixels wide or high")
     if opts.flank is not None and opts.flank < 0:
         raise UsageError(f"--flank {opts.flank} must be 0 or more")
-    if not 0.0 <= opts.min_posterior <= 1.0:
+    if opts.min_posterior is not None and not 0.0 <= opts.min_posterior <= 1.0:
         raise UsageError(f"--min-posterior {opts.min_posterior} is outside 0..1")
-    if opts.min_length < 1:
+    if opts.min_length is not None and opts.min_length < 1:
         raise UsageError(f"--min-length {opts.min_length} must be at least 1")
     if opts.masked not in ("base", "unknown"):
         raise UsageError(f"--masked {opts.masked!r} is not base or unknown")
@@ -184,6 +185,8 @@ def plot_data(opts: PlotOptions) -> PlotData:
     """
     _check_options(opts)
     model = load_model(opts.model)
+    min_posterior, min_length, _ = resolve_thresholds(model, opts.min_posterior, opts.min_length)
+    opts = replace(opts, min_posterior=min_posterior, min_length=min_length)
     decode = opts.decode or model.decode
     if decode not in ("posterior", "viterbi"):
         raise UsageError(f"decode '{decode}' is not posterior or viterbi")

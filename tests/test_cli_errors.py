@@ -73,7 +73,11 @@ def test_file_that_is_not_fasta(tmp_path, out):
 
 def test_record_with_empty_sequence(tmp_path, out):
     f = write(tmp_path / "hole.fa", ">a\nACGT\n>b\n\n>c\nACGT\n")
-    check_error(["annotate", f, "-o", out], 1, out, str(f), "line 3", "'b'", "empty sequence")
+    # skipped with a warning by default; an error with --empty-records error
+    check_error(
+        ["annotate", f, "-o", out, "--empty-records", "error"],
+        *(1, out, str(f), "line 3", "'b'", "empty sequence"),
+    )
 
 
 def test_duplicate_record_ids(tmp_path, out):

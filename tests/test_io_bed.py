@@ -97,3 +97,32 @@ def test_bad_strand(tmp_path: Path) -> None:
     # BED strand is '+', '-' or '.' (common practice: UCSC BED definition, from memory).
     err = bed_error(tmp_path, "c\t1\t10\tn\t0\tforward")
     assert "column 6 (strand) 'forward' is not one of + - ." in str(err)
+
+
+# ---------------------------------------------------------------- what the first bytes say
+@pytest.mark.parametrize("compress", [False, True], ids=["plain", "gzip"])
+def test_utf8_byte_order_mark_is_not_part_of_the_first_chrom(tmp_path: Path, compress) -> None:
+    # a UTF-8 byte-order mark (The Unicode Standard, 23.8) must not end up in the seqid
+    data = b"\xef\xbb\xbfchr1\t0\t10\tfirst\n"
+    path = tmp_path / "bom.bed"
+    path.write_bytes(gzip.compress(data) if compress else data)
+    assert read_bed(path) == [BedInterval("chr1", 0, 10, "first", None, None, 0)]
+
+
+def test_cr_only_line_endings_are_named(tmp_path: Path) -> None:
+    path = tmp_path / "mac.bed"
+    path.write_bytes(b"chr1\t0\t10\rchr1\t20\t30\r")
+    with pytest.raises(FeatureFormatError) as info:
+        read_bed(path)
+    msg = info.value.format()
+    assert msg.startswith(f"{path} line 1: ") and "CR-only line endings" in msg, msg
+
+
+def test_bzip2_compressed_bed_is_named(tmp_path: Path) -> None:
+    import bz2
+
+    path = tmp_path / "x.bed.bz2"
+    path.write_bytes(bz2.compress(b"chr1\t0\t10\n"))
+    with pytest.raises(FeatureFormatError) as info:
+        read_bed(path)
+    assert info.value.format() == f"{path}: compressed with bzip2; only plain and gzip are read"

@@ -352,3 +352,89 @@ def test_check_region_unknown_record_lists_five() -> None:
     assert "no record 'chrX'" in message
     assert "c0, c1, c2, c3, c4, ... (7 records in all)" in message
     assert "c5" not in message
+
+
+# ---------------------------------------------------------------- what the first bytes say
+
+BOM = b"\xef\xbb\xbf"  # UTF-8 byte-order mark (The Unicode Standard, section 23.8)
+
+
+@pytest.mark.parametrize("compress", [False, True], ids=["plain", "gzip"])
+def test_utf8_byte_order_mark_is_accepted(tmp_path: Path, compress: bool) -> None:
+    data = BOM + b">a desc\nACGT\n>b\nGG\n"
+    path = write_bytes(tmp_path, "bom.fa", gzip.compress(data) if compress else data)
+    records = read_fasta(path)
+    assert [(r.id, r.description, r.seq) for r in records] == [
+        ("a", "desc", b"ACGT"),
+        ("b", "", b"GG"),
+    ]
+
+
+def test_utf8_byte_order_mark_on_stdin(monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(sys, "stdin", FakeStdin(BOM + b">s\nAC\n"))
+    assert read_fasta("-") == [Record("s", "", b"AC")]
+
+
+# Magic numbers (common practice): bzip2 "BZh", xz fd 37 7a 58 5a 00, Zstandard
+# 28 b5 2f fd (RFC 8878, section 3.1.1), zip "PK\x03\x04".
+_ZSTD_FRAME = b"\x28\xb5\x2f\xfd\x20\x05\x29\x00\x00>a\nAC\n"
+
+
+@pytest.mark.parametrize(
+    "name, make, found",
+    [
+        ("x.fa.bz2", lambda d: __import__("bz2").compress(d), "compressed with bzip2"),
+        ("x.fa.xz", lambda d: __import__("lzma").compress(d), "compressed with xz"),
+        ("x.fa.zst", lambda d: _ZSTD_FRAME, "compressed with zstd"),
+        ("x.zip", lambda d: b"PK\x03\x04" + d, "is a zip archive"),
+        ("x.fa.gz.gz", lambda d: gzip.compress(gzip.compress(d)), "compressed twice with gzip"),
+        ("x.fa.gz", lambda d: gzip.compress(__import__("bz2").compress(d)), "bzip2 inside gzip"),
+        ("u16.fa", lambda d: d.decode().encode("utf-16"), "is UTF-16 text"),
+    ],
+)
+def test_other_compressions_and_encodings_are_named(
+    tmp_path: Path, name: str, make, found: str
+) -> None:
+    path = write_bytes(tmp_path, name, make(b">a\nACGT\n"))
+    with pytest.raises(SequenceFormatError) as info:
+        read_fasta(path)
+    msg = info.value.format()
+    assert msg.startswith(f"{path}: "), msg
+    assert found in msg, msg
+    if "UTF" not in found:
+        assert "only plain and gzip are read" in msg, msg
+
+
+def test_cr_only_line_endings_are_named(tmp_path: Path) -> None:
+    # classic Mac OS line ends: every line break is a lone CR (common practice)
+    path = write_bytes(tmp_path, "mac.fa", b">a\rACGT\r>b\rGG\r")
+    with pytest.raises(SequenceFormatError) as info:
+        read_fasta(path)
+    msg = info.value.format()
+    assert msg.startswith(f"{path} line 1: "), msg
+    assert "CR-only line endings" in msg, msg
+
+
+def test_crlf_line_endings_are_still_read(tmp_path: Path) -> None:
+    path = write_bytes(tmp_path, "dos.fa", b">a\r\nACGT\r\nAA\r\n")
+    assert read_fasta(path) == [Record("a", "", b"ACGTAA")]
+
+
+# ---------------------------------------------------------------- empty records
+
+
+def test_empty_records_are_skipped_and_listed(tmp_path: Path) -> None:
+    from seqstate.io.fasta import SkippedRecord
+
+    path = write_bytes(tmp_path, "x.fa", b">a\nAC\n>gap one\n\n>c\nG\n>end\n")
+    skipped: list[SkippedRecord] = []
+    records = read_fasta(path, empty_records="skip", skipped=skipped)
+    assert [r.id for r in records] == ["a", "c"]
+    assert skipped == [SkippedRecord("gap", 2, "empty"), SkippedRecord("end", 6, "empty")]
+
+
+def test_only_empty_records_is_an_error_even_when_skipping(tmp_path: Path) -> None:
+    path = write_bytes(tmp_path, "x.fa", b">a\n>b\n\n")
+    with pytest.raises(SequenceFormatError, match="every record is empty") as info:
+        read_fasta(path, empty_records="skip")
+    assert info.value.line0 == 0

@@ -376,3 +376,36 @@ def test_attribute_with_empty_tag(tmp_path: Path) -> None:
 def test_bad_utf8_escape(tmp_path: Path) -> None:
     err = error_for(tmp_path, GOOD[:8] + ["Name=%FF"])
     assert "do not decode as UTF-8" in str(err)
+
+
+# ---------------------------------------------------------------- what the first bytes say
+_GFF_TEXT = b"##gff-version 3\nchr1\tsrc\tgene\t1\t10\t.\t+\t.\tID=g1\n"
+
+
+@pytest.mark.parametrize("compress", [False, True], ids=["plain", "gzip"])
+def test_utf8_byte_order_mark_is_accepted(tmp_path: Path, compress: bool) -> None:
+    # a UTF-8 byte-order mark before '##gff-version 3' (The Unicode Standard, 23.8)
+    data = b"\xef\xbb\xbf" + _GFF_TEXT
+    path = tmp_path / "bom.gff3"
+    path.write_bytes(gzip.compress(data) if compress else data)
+    (feature,) = read_gff3(path)
+    assert (feature.seqid, feature.type, feature.start0, feature.end0) == ("chr1", "gene", 0, 10)
+
+
+def test_cr_only_line_endings_are_named(tmp_path: Path) -> None:
+    path = tmp_path / "mac.gff3"
+    path.write_bytes(_GFF_TEXT.replace(b"\n", b"\r"))
+    with pytest.raises(FeatureFormatError) as info:
+        read_gff3(path)
+    msg = info.value.format()
+    assert msg.startswith(f"{path} line 1: ") and "CR-only line endings" in msg, msg
+
+
+def test_xz_compressed_gff3_is_named(tmp_path: Path) -> None:
+    import lzma
+
+    path = tmp_path / "x.gff3.xz"
+    path.write_bytes(lzma.compress(_GFF_TEXT))
+    with pytest.raises(FeatureFormatError) as info:
+        read_gff3(path)
+    assert info.value.format() == f"{path}: compressed with xz; only plain and gzip are read"

@@ -237,6 +237,16 @@ def _edit(folder: Path, fname: str, old: str, new: str | None) -> int:
     return hits[0] + 1
 
 
+def _edit_first(folder: Path, fname: str, old: str, new: str) -> int:
+    """Replace the first line that starts with ``old``; its 1-based number."""
+    path = folder / fname
+    lines = path.read_text(encoding="utf-8").split("\n")
+    i = next(i for i, ln in enumerate(lines) if ln.startswith(old))
+    lines[i] = new
+    path.write_text("\n".join(lines), encoding="utf-8")
+    return i + 1
+
+
 def _append(folder: Path, fname: str, text: str) -> int:
     """Append one line; its 1-based number."""
     path = folder / fname
@@ -448,3 +458,348 @@ def test_make_model_rejects_the_same_cases():
     for change in bad:
         with pytest.raises(ModelFormatError):
             make_model(**{**good, **change})
+
+
+# ------------------------------------------------------------------ manifest values
+def _manifest_line(folder: Path, text: str) -> int:
+    """1-based line of model.toml that equals ``text``."""
+    lines = (folder / "model.toml").read_text(encoding="utf-8").split("\n")
+    return lines.index(text) + 1
+
+
+def _one_line(msg: str) -> None:
+    # errors.py contract: one printable line
+    assert "\n" not in msg and msg.isprintable(), repr(msg)
+
+
+@pytest.mark.parametrize(
+    "value, found",
+    [
+        ("5", "label is a number (5)"),
+        ('["a", "b"]', 'label is a list (["a", "b"])'),
+        ("true", "label is true/false"),
+    ],
+    ids=["number", "list", "boolean"],
+)
+def test_label_that_is_not_a_string(tmp_path, value, found):
+    folder = _copy(tmp_path)
+    # the second [[states]] entry ('up') is the one changed
+    line = _edit_first(folder, "model.toml", 'label = "feature"', f"label = {value}")
+    msg = _error(folder)
+    _one_line(msg)
+    assert _names_line(msg, "model.toml", line), msg
+    assert "[[states]] entry 2" in msg and found in msg, msg
+
+
+@pytest.mark.parametrize(
+    "label, shown",
+    [
+        ("CpG/island", "'/'"),
+        ("CpG island", "' '"),
+        ("a\\tb", "'\\t'"),
+        ("a\\nb", "'\\n'"),
+        ("x\\u0001y", "'\\x01'"),
+        ("a;b", "';'"),
+        ("..", "does not start with a letter"),
+        ("_x", "does not start with a letter"),
+        ("island.plus", "'.'"),
+        ("a" * 65, "too long"),
+    ],
+)
+def test_label_that_would_break_a_file_name_or_column(tmp_path, label, shown):
+    # labels become GFF3 types, TSV cells and track file names (seqstate.model.LABEL_PATTERN)
+    folder = _copy(tmp_path)
+    line = _edit_first(folder, "model.toml", 'label = "feature"', f'label = "{label}"')
+    msg = _error(folder)
+    _one_line(msg)
+    assert _names_line(msg, "model.toml", line), msg
+    assert shown in msg and "Sequence Ontology-like name" in msg, msg
+
+
+def test_sequence_ontology_names_are_valid_labels(tmp_path):
+    # Sequence Ontology term names (SO, from memory): underscores, digits, mixed case
+    folder = _copy(tmp_path)
+    _edit_first(folder, "model.toml", 'label = "feature"', 'label = "five_prime_cis_splice_site"')
+    _edit_first(folder, "model.toml", 'label = "feature"', 'label = "U2-type_intron3"')
+    model = load_model(folder)
+    assert model.labels == ["five_prime_cis_splice_site", "U2-type_intron3"]
+
+
+@pytest.mark.parametrize("value", ["5", "[]", '""', "{ file = 'x' }"])
+def test_table_path_that_is_not_a_file_name(tmp_path, value):
+    folder = _copy(tmp_path)
+    line = _edit(folder, "model.toml", "start = ", f"start = {value}")
+    msg = _error(folder)
+    _one_line(msg)
+    assert _names_line(msg, "model.toml", line), msg
+    assert "[tables] start is" in msg and "expected a file name" in msg, msg
+
+
+def test_unknown_table_key(tmp_path):
+    folder = _copy(tmp_path)
+    line = _edit(folder, "model.toml", "start = ", 'starts = "start.tsv"')
+    msg = _error(folder)
+    assert _names_line(msg, "model.toml", line) and "'starts'" in msg, msg
+
+
+def test_table_path_that_is_a_directory(tmp_path):
+    folder = _copy(tmp_path)
+    (folder / "tables").mkdir()
+    _edit(folder, "model.toml", "emissions = ", 'emissions = "tables"')
+    msg = _error(folder)
+    _one_line(msg)
+    assert msg == f"{folder / 'tables'}: is a directory, expected a TSV table file", msg
+
+
+SECRET = "root:x:0:0:secret-first-line:/root:/bin/sh"
+
+
+@pytest.mark.parametrize(
+    "make_path, found",
+    [
+        (lambda folder, outside: str(outside), "is an absolute path"),
+        (lambda folder, outside: "../outside.tsv", "leads outside the model folder (by '..')"),
+        (lambda folder, outside: "sub/../../outside.tsv", "leads outside the model folder"),
+    ],
+    ids=["absolute", "dotdot", "nested-dotdot"],
+)
+def test_table_paths_are_confined_to_the_model_folder(tmp_path, make_path, found):
+    folder = _copy(tmp_path)
+    (folder / "sub").mkdir()
+    outside = tmp_path / "outside.tsv"
+    outside.write_text(SECRET + "\n", encoding="utf-8")
+    line = _edit(folder, "model.toml", "start = ", f'start = "{make_path(folder, outside)}"')
+    msg = _error(folder)
+    _one_line(msg)
+    assert _names_line(msg, "model.toml", line), msg
+    assert found in msg and "stay inside it" in msg, msg
+    assert "secret" not in msg, msg
+
+
+def test_etc_passwd_as_a_table_is_refused_unread(tmp_path):
+    folder = _copy(tmp_path)
+    _edit(folder, "model.toml", "start = ", 'start = "/etc/passwd"')
+    msg = _error(folder)
+    assert "is an absolute path" in msg and "root:x" not in msg and "/bin/" not in msg, msg
+
+
+@pytest.mark.parametrize("which", ["named", "default"])
+def test_symbolic_link_out_of_the_model_folder_is_refused(tmp_path, which):
+    folder = _copy(tmp_path)
+    outside = tmp_path / "outside.tsv"
+    outside.write_text(SECRET + "\n", encoding="utf-8")
+    if which == "named":
+        (folder / "link.tsv").symlink_to(outside)
+        _edit(folder, "model.toml", "start = ", 'start = "link.tsv"')
+    else:
+        # no [tables] entry: the default start.tsv is itself the link
+        _edit(folder, "model.toml", "start = ", None)
+        (folder / "start.tsv").unlink()
+        (folder / "start.tsv").symlink_to(outside)
+    msg = _error(folder)
+    _one_line(msg)
+    assert "through a symbolic link" in msg and "secret" not in msg, msg
+
+
+def test_symbolic_link_inside_the_model_folder_is_read(tmp_path):
+    folder = _copy(tmp_path)
+    (folder / "start.tsv").rename(folder / "real_start.tsv")
+    (folder / "start.tsv").symlink_to(folder / "real_start.tsv")
+    assert load_model(folder).equals(load_model(CORPUS / "base"))
+
+
+def test_a_foreign_first_line_is_not_echoed(tmp_path):
+    # a file that is not a table, inside the folder: described, never printed
+    folder = _copy(tmp_path)
+    (folder / "start.tsv").write_text(SECRET + "\nbg\t1\n", encoding="utf-8")
+    msg = _error(folder)
+    assert _names_line(msg, "start.tsv", 1), msg
+    assert "secret" not in msg and "root:x" not in msg, msg
+    assert "expected 'state<TAB>start'" in msg, msg
+
+
+@pytest.mark.parametrize(
+    "fname, old, new",
+    [
+        ("transitions.tsv", "p\t", "p\t1e308\t1e308"),
+        ("start.tsv", "p\t", "p\t1.7e308"),
+        ("emissions.tsv", "p\t", "p\t.\t1e308\t1e308\t1\t1"),
+    ],
+    ids=["transitions", "start", "emissions"],
+)
+def test_normalize_counts_that_overflow_when_summed(tmp_path, fname, old, new):
+    # 1e308 + 1e308 is inf in IEEE 754 double precision (common practice)
+    folder = _copy(tmp_path, "counts")
+    if fname == "start.tsv":
+        _edit(folder, fname, "q\t", "q\t1.7e308")
+    line = _edit(folder, fname, old, new)
+    msg = _error(folder)
+    _one_line(msg)
+    assert fname in msg and "overflow" in msg, msg
+    if fname != "start.tsv":
+        assert _names_line(msg, fname, line), msg
+    else:
+        assert re.search(r"start\.tsv line \d+", msg), msg
+
+
+def test_manifest_that_is_not_utf8(tmp_path):
+    folder = _copy(tmp_path)
+    path = folder / "model.toml"
+    lines = path.read_bytes().split(b"\n")
+    line = lines.index(b'name = "corpus-base"') + 1
+    lines[line - 1] = b'name = "corpus-\xff-base"'
+    path.write_bytes(b"\n".join(lines))
+    msg = _error(folder)
+    _one_line(msg)
+    assert _names_line(msg, "model.toml", line), msg
+    assert "not UTF-8 text" in msg and "0xFF" in msg and "column 16" in msg, msg
+
+
+def test_table_that_is_not_utf8_names_the_line(tmp_path):
+    folder = _copy(tmp_path)
+    path = folder / "start.tsv"
+    body = path.read_bytes()
+    path.write_bytes(body.replace(b"up\t", b"u\xe9p\t"))
+    line = body.split(b"\n").index(next(x for x in body.split(b"\n") if x.startswith(b"up\t")))
+    msg = _error(folder)
+    assert _names_line(msg, "start.tsv", line + 1) and "0xE9" in msg, msg
+
+
+def test_byte_order_mark_in_manifest_and_tables_is_accepted(tmp_path):
+    # a UTF-8 byte-order mark (The Unicode Standard, section 23.8), as some spreadsheet
+    # programs write it, must not change what is read
+    folder = _copy(tmp_path)
+    for name in ("model.toml", "start.tsv", "transitions.tsv", "emissions.tsv", "end.tsv"):
+        path = folder / name
+        path.write_bytes(b"\xef\xbb\xbf" + path.read_bytes())
+    assert load_model(folder).equals(load_model(CORPUS / "base"))
+
+
+def test_manifest_with_cr_only_line_ends(tmp_path):
+    folder = _copy(tmp_path)
+    path = folder / "model.toml"
+    path.write_bytes(path.read_bytes().replace(b"\n", b"\r"))
+    msg = _error(folder)
+    assert "CR-only line endings" in msg and _names_line(msg, "model.toml", 1), msg
+
+
+def test_compressed_table_is_named(tmp_path):
+    import gzip
+
+    folder = _copy(tmp_path)
+    path = folder / "start.tsv"
+    path.write_bytes(gzip.compress(path.read_bytes()))
+    msg = _error(folder)
+    assert msg.startswith(f"{path}: compressed with gzip"), msg
+
+
+# ------------------------------------------------------------------ bombs
+def test_emission_table_over_the_limit_is_refused_before_reading(tmp_path):
+    # 2 states x 8 symbols^9 (order 8): the corpus folder has no tables, so an error
+    # about their size (not about a missing file) shows nothing was read or allocated
+    msg = _error(CORPUS / "bomb-order8")
+    _one_line(msg)
+    manifest = CORPUS / "bomb-order8" / "model.toml"
+    line = manifest.read_text(encoding="utf-8").split("\n").index("order = 8") + 1
+    assert _names_line(msg, "model.toml", line), msg
+    assert "268,435,456 probabilities" in msg and "2 GiB" in msg, msg
+    assert "limit is 16,777,216 (128 MiB)" in msg, msg
+
+
+def test_order_8_with_20_symbols_is_refused(tmp_path):
+    folder = _copy(tmp_path)
+    _edit(folder, "model.toml", "alphabet = ", 'alphabet = "ACDEFGHIKLMNPQRSTVWY"')
+    _edit(folder, "model.toml", "order = ", "order = 8")
+    msg = _error(folder)
+    # 3 states x 20^9 = 1.536e12 probabilities, 11.2 TiB as float64
+    assert "1,536,000,000,000 probabilities" in msg and "11.2 TiB" in msg, msg
+
+
+def test_model_check_refuses_the_bomb_at_once():
+    from click.testing import CliRunner
+
+    from seqstate.cli import main
+
+    result = CliRunner().invoke(main, ["model", "check", str(CORPUS / "bomb-order8")])
+    assert result.exit_code == 1, result.output
+    lines = result.output.strip().split("\n")
+    assert len(lines) == 1 and lines[0].startswith("error: ") and "limit" in lines[0], lines
+
+
+def test_make_model_refuses_an_emission_table_over_the_limit():
+    from seqstate.model import emission_size_problem
+
+    assert emission_size_problem(64, 4, 8) is None  # 64 x 4^9 = 2^24, the limit itself
+    assert "17,039,360 probabilities" in emission_size_problem(65, 4, 8)  # 65 x 4^9
+    states = [State(f"s{i}") for i in range(65)]
+    with pytest.raises(ModelFormatError, match="limit is 16,777,216"):
+        make_model(
+            name="big",
+            alphabet="ACGT",
+            states=states,
+            start=np.full(65, 1 / 65),
+            transitions=np.full((65, 65), 1 / 65),
+            emissions=np.full((65, 1, 4), 0.25),  # the size is refused before shapes
+            order=8,
+        )
+
+
+# ------------------------------------------------------------------ [defaults]
+def test_builtin_cpg_models_default_to_200_bases():
+    from seqstate.model import default_thresholds
+
+    # Gardiner-Garden & Frommer 1987, J. Mol. Biol. 196:261: islands are at least 200 bp
+    for name in ("cpg-island", "cpg-island-8"):
+        assert default_thresholds(load_model(name)) == {"min_posterior": 0.5, "min_length": 200}
+    # a model without [defaults] keeps the built-in values
+    assert default_thresholds(load_model(CORPUS / "base")) == {
+        "min_posterior": 0.5,
+        "min_length": 1,
+    }
+
+
+@pytest.mark.parametrize(
+    "entry, found",
+    [
+        ("min_length = 0", "min_length = 0 must be a whole number of bases, at least 1"),
+        ("min_length = 2.5", "min_length = 2.5 must be a whole number"),
+        ('min_length = "200"', "min_length = '200' must be"),
+        ("min_posterior = 1.5", "min_posterior = 1.5 must be a number from 0 to 1"),
+        ("min_posterior = nan", "min_posterior = nan must be"),
+        ("min_lenght = 200", "unknown key 'min_lenght'"),
+    ],
+)
+def test_defaults_table_is_validated(tmp_path, entry, found):
+    folder = _copy(tmp_path)
+    path = folder / "model.toml"
+    text = path.read_text(encoding="utf-8")
+    path.write_text(text.replace("[tables]", f"[defaults]\n{entry}\n\n[tables]"), encoding="utf-8")
+    msg = _error(folder)
+    assert found in msg, msg
+    assert _names_line(msg, "model.toml", _manifest_line(folder, entry)), msg
+
+
+def test_defaults_survive_a_round_trip(tmp_path):
+    folder = _copy(tmp_path)
+    path = folder / "model.toml"
+    text = path.read_text(encoding="utf-8")
+    path.write_text(
+        text.replace("[tables]", "[defaults]\nmin_length = 30\nmin_posterior = 0.8\n\n[tables]"),
+        encoding="utf-8",
+    )
+    model = load_model(folder)
+    save_model(model, tmp_path / "again")
+    back = load_model(tmp_path / "again")
+    assert back.equals(model)
+    assert back.extra["defaults"] == {"min_length": 30, "min_posterior": 0.8}
+
+
+def test_a_huge_file_given_as_manifest_is_refused_unread(tmp_path):
+    from seqstate.io.tables import MAX_MANIFEST_BYTES
+
+    big = tmp_path / "genome.toml"
+    with open(big, "wb") as fh:  # sparse: no disk space used
+        fh.truncate(MAX_MANIFEST_BYTES + 1)
+    with pytest.raises(ModelFormatError) as info:
+        load_model(big)
+    assert "more than a manifest may be" in str(info.value), str(info.value)

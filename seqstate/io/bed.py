@@ -13,6 +13,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from seqstate.errors import FeatureFormatError
+from seqstate.io import files
 from seqstate.io.fasta import display_name, iter_lines, open_input
 
 __all__ = ["BedInterval", "read_bed"]
@@ -80,6 +81,8 @@ def read_bed(path: str | Path) -> list[BedInterval]:
                 raise FeatureFormatError(
                     "line is not valid UTF-8 text", path=shown, line0=line0
                 ) from None
+            if "\r" in line:
+                raise FeatureFormatError(files.CR_ONLY, path=shown, line0=line0)
             if _skip(line):
                 continue
             fields = line.split("\t") if "\t" in line else line.split()

@@ -26,10 +26,13 @@ from pathlib import Path
 from typing import BinaryIO, TextIO
 
 from seqstate.errors import SeqstateError, SequenceFormatError
+from seqstate.io import files
 
 __all__ = [
     "DNA_ALPHABET",
+    "EMPTY_RECORD_CHOICES",
     "Record",
+    "SkippedRecord",
     "display_name",
     "iter_fasta",
     "iter_lines",
@@ -45,7 +48,6 @@ DNA_ALPHABET = "ACGTURYSWKMBDHVN-"
 
 _DNA_BYTES = (DNA_ALPHABET + DNA_ALPHABET.lower()).encode("ascii")
 _WHITESPACE = b" \t\r\n\v\f"
-_GZIP_MAGIC = b"\x1f\x8b"
 _STDIN_NAME = "<stdin>"
 _SNIPPET = 40
 
@@ -98,6 +100,17 @@ class _PrefixedReader(io.RawIOBase):
         return n
 
 
+def _read_head(stream: BinaryIO, n: int) -> bytes:
+    """Up to ``n`` first bytes of ``stream`` (fewer only at the end of the data)."""
+    head = b""
+    while len(head) < n:
+        chunk = stream.read(n - len(head))
+        if not chunk:
+            break
+        head += chunk
+    return head
+
+
 @contextmanager
 def open_input(
     path: str | Path,
@@ -107,9 +120,12 @@ def open_input(
     """Open an input file for reading bytes, decompressing gzip transparently.
 
     ``path`` is a file name or ``"-"`` for standard input.  Gzip is recognised
-    by its first two bytes (1f 8b), whatever the file name.  A missing or
-    unreadable file raises ``error_cls`` naming the file; ``what`` names the
-    expected format in the message.  Shared by the FASTA, GFF3 and BED readers.
+    by its first two bytes (1f 8b), whatever the file name.  A UTF-8 byte-order
+    mark at the start of the (decompressed) text is dropped.  A missing or
+    unreadable file, another compression (bzip2, xz, zstd, zip, gzip inside
+    gzip) or a UTF-16/UTF-32 text raises ``error_cls`` naming the file and what
+    was found (:mod:`seqstate.io.files`); ``what`` names the expected format in
+    the message.  Shared by the FASTA, GFF3 and BED readers.
     """
     shown = display_name(path)
     if str(path) == "-":
@@ -127,15 +143,22 @@ def open_input(
         close_inner = True
     try:
         try:
-            magic = inner.read(2)
+            magic = _read_head(inner, files.SNIFF_BYTES)
         except OSError as exc:
             raise error_cls(f"cannot be read: {exc.strerror or exc}", path=shown) from None
+        kind = files.sniff(magic)
+        if kind is not None and kind != "gzip":
+            raise error_cls(files.unsupported_message(kind), path=shown)
+        if kind is None and magic.startswith(files.UTF8_BOM):
+            magic = magic[len(files.UTF8_BOM) :]
         base: BinaryIO = io.BufferedReader(_PrefixedReader(magic, inner))  # type: ignore[arg-type]
-        if magic == _GZIP_MAGIC:
+        if kind == "gzip":
             handle: BinaryIO = gzip.GzipFile(fileobj=base, mode="rb")  # type: ignore[assignment]
         else:
             handle = base
         try:
+            if kind == "gzip":
+                _check_inside_gzip(handle, shown, error_cls)
             yield handle
         finally:
             handle.close()
@@ -143,6 +166,22 @@ def open_input(
     finally:
         if close_inner:
             inner.close()
+
+
+def _check_inside_gzip(handle: BinaryIO, shown: str, error_cls: type[SeqstateError]) -> None:
+    """Refuse a second compression inside gzip; drop a UTF-8 byte-order mark there."""
+    try:
+        head = handle.peek(files.SNIFF_BYTES)[: files.SNIFF_BYTES]  # type: ignore[attr-defined]
+    except (OSError, EOFError, zlib.error) as exc:
+        reason = getattr(exc, "strerror", None) or str(exc) or type(exc).__name__
+        raise error_cls(
+            f"cannot be read (corrupt or truncated file?): {reason}", path=shown
+        ) from None
+    kind = files.sniff(head)
+    if kind is not None:
+        raise error_cls(files.unsupported_message(kind, inside_gzip=True), path=shown)
+    if head.startswith(files.UTF8_BOM):
+        handle.read(len(files.UTF8_BOM))
 
 
 def iter_lines(
@@ -187,21 +226,46 @@ def _describe_byte(value: int) -> str:
 # ---------------------------------------------------------------- reading
 
 
-def iter_fasta(path: str | Path, *, alphabet_check: str | None = "dna") -> Iterator[Record]:
+@dataclass(frozen=True)
+class SkippedRecord:
+    """A record left out by the reader: its ID, the 0-based line of its header, why."""
+
+    id: str
+    line0: int
+    reason: str
+
+
+#: What the readers do with a record that has a header and no sequence.
+EMPTY_RECORD_CHOICES = ("skip", "error")
+
+
+def iter_fasta(
+    path: str | Path,
+    *,
+    alphabet_check: str | None = "dna",
+    empty_records: str = "error",
+    skipped: list[SkippedRecord] | None = None,
+) -> Iterator[Record]:
     """Yield the records of a FASTA file one at a time, checking as it goes.
 
     ``path`` is a file name or ``"-"`` for standard input; plain or gzip.
     With ``alphabet_check="dna"`` every sequence character must be one of
     :data:`DNA_ALPHABET` (either case); with ``None`` no character is checked
-    (the caller validates other alphabets).  Raises
+    (the caller validates other alphabets).  A record with a header and no
+    sequence is an error with ``empty_records="error"``; with ``"skip"`` it is
+    left out and, when ``skipped`` is a list, appended to it as a
+    :class:`SkippedRecord` with reason ``"empty"`` (a file whose every record is
+    empty is still an error).  Raises
     :class:`~seqstate.errors.SequenceFormatError` for a missing or unreadable
-    file, an empty file, text that is not FASTA, a header without an ID, a
-    record with an empty sequence, a repeated record ID or a character outside
-    the alphabet.  Errors are raised when the generator reaches them, so
-    records before the problem may already have been yielded.
+    file, an empty file, text that is not FASTA, CR-only line endings, a header
+    without an ID, a repeated record ID or a character outside the alphabet.
+    Errors are raised when the generator reaches them, so records before the
+    problem may already have been yielded.
     """
     if alphabet_check not in ("dna", None):
         raise ValueError(f"alphabet_check must be 'dna' or None, not {alphabet_check!r}")
+    if empty_records not in EMPTY_RECORD_CHOICES:
+        raise ValueError(f"empty_records must be 'skip' or 'error', not {empty_records!r}")
     check = alphabet_check == "dna"
     shown = display_name(path)
     seen: dict[str, int] = {}
@@ -213,15 +277,41 @@ def iter_fasta(path: str | Path, *, alphabet_check: str | None = "dna") -> Itera
             raise SequenceFormatError(
                 f"cannot be read (corrupt or truncated file?): {reason}", path=shown
             ) from None
-    yield from _records_of(data, shown, check, seen)
+    left_out: list[SkippedRecord] = []
+    n = 0
+    for record in _records_of(data, shown, check, seen):
+        if isinstance(record, SkippedRecord):
+            if empty_records == "error":
+                raise SequenceFormatError(
+                    f"record '{record.id}' has an empty sequence (expected at least one base)",
+                    path=shown,
+                    line0=record.line0,
+                    where=f"record '{record.id}'",
+                )
+            left_out.append(record)
+            if skipped is not None:
+                skipped.append(record)
+            continue
+        n += 1
+        yield record
+    if n == 0 and left_out:
+        raise SequenceFormatError(
+            f"every record is empty ({len(left_out)} header line(s) with no sequence); "
+            "expected at least one record with bases",
+            path=shown,
+            line0=left_out[0].line0,
+        )
 
 
-def _records_of(data: bytes, shown: str, check: bool, seen: dict[str, int]) -> Iterator[Record]:
+def _records_of(
+    data: bytes, shown: str, check: bool, seen: dict[str, int]
+) -> Iterator[Record | SkippedRecord]:
     """Split a whole FASTA text into records, with the checks of :func:`iter_fasta`.
 
     Works on whole sequence blocks (one ``translate`` per record, not per line);
     only when a block holds a bad character is it scanned line by line to name
-    the line and position.
+    the line and position.  A record without bases comes out as a
+    :class:`SkippedRecord`.
     """
     first = re.search(rb"\S", data)
     if first is None:
@@ -245,6 +335,12 @@ def _records_of(data: bytes, shown: str, check: bool, seen: dict[str, int]) -> I
             path=shown,
             line0=line0,
         )
+    if b"\r" in data:
+        lone = re.search(rb"\r(?!\n)", data)
+        if lone is not None:
+            raise SequenceFormatError(
+                files.CR_ONLY, path=shown, line0=data.count(b"\n", 0, lone.start())
+            )
     line0 = data.count(b"\n", 0, starts[0])
     for k, h in enumerate(starts):
         nl = data.find(b"\n", h)
@@ -264,7 +360,10 @@ def _records_of(data: bytes, shown: str, check: bool, seen: dict[str, int]) -> I
         seq = block.translate(None, _WHITESPACE)
         if check and seq.translate(None, _DNA_BYTES):
             _raise_bad_character(block, shown, rid, header0 + 1)
-        yield _finish(shown, rid, desc, header0, bytearray(seq))
+        if seq:
+            yield Record(id=rid, description=desc, seq=seq)
+        else:
+            yield SkippedRecord(id=rid, line0=header0, reason="empty")
         line0 = header0 + 1 + block.count(b"\n")
 
 
@@ -302,20 +401,19 @@ def _parse_header(raw: bytes, shown: str, line0: int) -> tuple[str, str]:
     return rid, desc
 
 
-def _finish(shown: str, rid: str, desc: str, header0: int, buf: bytearray) -> Record:
-    if not buf:
-        raise SequenceFormatError(
-            f"record '{rid}' has an empty sequence (expected at least one base)",
-            path=shown,
-            line0=header0,
-            where=f"record '{rid}'",
+def read_fasta(
+    path: str | Path,
+    *,
+    alphabet_check: str | None = "dna",
+    empty_records: str = "error",
+    skipped: list[SkippedRecord] | None = None,
+) -> list[Record]:
+    """Read every record of a FASTA file; same input, checks and options as :func:`iter_fasta`."""
+    return list(
+        iter_fasta(
+            path, alphabet_check=alphabet_check, empty_records=empty_records, skipped=skipped
         )
-    return Record(id=rid, description=desc, seq=bytes(buf))
-
-
-def read_fasta(path: str | Path, *, alphabet_check: str | None = "dna") -> list[Record]:
-    """Read every record of a FASTA file; same input and checks as :func:`iter_fasta`."""
-    return list(iter_fasta(path, alphabet_check=alphabet_check))
+    )
 
 
 # ---------------------------------------------------------------- writing

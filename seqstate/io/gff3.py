@@ -23,6 +23,7 @@ from pathlib import Path
 from typing import TextIO
 
 from seqstate.errors import FeatureFormatError
+from seqstate.io import files
 from seqstate.io.fasta import display_name, iter_lines, open_input
 
 __all__ = [
@@ -321,6 +322,8 @@ def iter_gff3(path: str | Path, *, types: set[str] | None = None) -> Iterator[Fe
             except UnicodeDecodeError:
                 raise _error("line is not valid UTF-8 text", shown, line0) from None
             line = line.rstrip("\r\n")
+            if "\r" in line:
+                raise _error(files.CR_ONLY, shown, line0)
             if not line.strip():
                 continue
             if line.startswith("##FASTA") or line.startswith(">"):

@@ -23,18 +23,24 @@ from __future__ import annotations
 
 import math
 import os
+import re
 import sys
 from pathlib import Path
 
 import numpy as np
 
 from seqstate.errors import ModelFormatError, TableFormatError, UsageError
+from seqstate.io import files
 from seqstate.model import (
+    STRANDS,
     SUM_TOLERANCE,
     Model,
     State,
+    emission_size_problem,
+    label_problem,
     normalize_rows,
     sha256_of_text,
+    thresholds_problem,
     validate,
 )
 
@@ -52,6 +58,9 @@ TABLE_FILES = {
     "emissions": "emissions.tsv",
     "end": "end.tsv",
 }
+#: Largest manifest read (16 MiB): a model.toml is a few kilobytes; a bigger file given
+#: as a manifest by mistake (a genome, say) is refused before it is read.
+MAX_MANIFEST_BYTES = 16 * 2**20
 _KNOWN_KEYS = {
     "format",
     "name",
@@ -110,15 +119,112 @@ def load_model(spec: str | os.PathLike) -> Model:
 
 
 # ---------------------------------------------------------------- reading
+def _read_text(path: Path, error_cls: type[ModelFormatError], what: str) -> bytes:
+    """The bytes of a manifest or table, after the checks every model file gets."""
+    try:
+        data = path.read_bytes()
+    except FileNotFoundError:
+        raise error_cls(f"{what} file not found", path=path) from None
+    except IsADirectoryError:
+        raise error_cls(f"is a directory, expected a {what} file", path=path) from None
+    except OSError as exc:
+        raise error_cls(f"cannot be read: {exc.strerror or exc}", path=path) from None
+    kind = files.sniff(data[: files.SNIFF_BYTES])
+    if kind in ("UTF-16", "UTF-32"):
+        raise error_cls(files.unsupported_message(kind), path=path)
+    if kind is not None:
+        found = f"compressed with {kind}" if kind != "zip" else "is a zip archive"
+        raise error_cls(
+            f"{found}; a model's manifest and tables are read as plain text only", path=path
+        )
+    if data.startswith(files.UTF8_BOM):
+        data = data[len(files.UTF8_BOM) :]
+    return data
+
+
+def _decode_error(data: bytes, exc: UnicodeDecodeError, what: str) -> tuple[str, int]:
+    """Message and 0-based line of the first byte of ``data`` that is not UTF-8."""
+    line0 = data.count(b"\n", 0, exc.start)
+    column = exc.start - (data.rfind(b"\n", 0, exc.start) + 1) + 1
+    return (
+        f"is not UTF-8 text: byte 0x{data[exc.start]:02X} at column {column} cannot be "
+        f"decoded; expected a UTF-8 {what}",
+        line0,
+    )
+
+
+def _key_line(lines: list[str], header: str | None, index: int, key: str | None) -> int | None:
+    """0-based line of ``key = ...`` in the ``index``-th ``header`` section (None: top level).
+
+    ``header`` is ``[[states]]`` or ``[tables]``; ``key`` None gives the header line.
+    Falls back to the section header, then to None, when the text does not show it.
+    """
+    if header is None:
+        start, stop = 0, len(lines)
+        for i, ln in enumerate(lines):
+            if ln.strip().startswith("["):
+                stop = i
+                break
+    else:
+        heads = [i for i, ln in enumerate(lines) if ln.strip().startswith(header)]
+        if index >= len(heads):
+            return None
+        start = heads[index]
+        stop = next(
+            (i for i in range(start + 1, len(lines)) if lines[i].strip().startswith("[")),
+            len(lines),
+        )
+        if key is None:
+            return start
+    pattern = re.compile(rf"\s*[\"']?{re.escape(key or '')}[\"']?\s*=")
+    for i in range(start, stop):
+        if pattern.match(lines[i]):
+            return i
+    return start if header is not None else None
+
+
+def _kind(value) -> str:
+    """A TOML value's kind in words, for messages."""
+    if isinstance(value, bool):
+        return "true/false"
+    if isinstance(value, (int, float)):
+        return "a number"
+    if isinstance(value, list):
+        return "a list"
+    if isinstance(value, dict):
+        return "a table"
+    if isinstance(value, str):
+        return "a string"
+    return f"a {type(value).__name__} value"
+
+
 def _load_manifest(manifest: Path) -> Model:
     try:
-        text = manifest.read_text(encoding="utf-8")
-    except OSError as exc:
-        raise ModelFormatError(f"cannot read manifest: {exc.strerror}", path=manifest) from None
+        size = manifest.stat().st_size
+    except OSError:
+        size = 0  # _read_text names the problem
+    if size > MAX_MANIFEST_BYTES:
+        raise ModelFormatError(
+            f"is {size:,} bytes, more than a manifest may be ({MAX_MANIFEST_BYTES:,}); "
+            "expected a TOML manifest (model.toml)",
+            path=manifest,
+        )
+    data = _read_text(manifest, ModelFormatError, "TOML manifest")
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        msg, line0 = _decode_error(data, exc, "TOML manifest")
+        raise ModelFormatError(msg, path=manifest, line0=line0) from None
+    lone_cr = re.search(r"\r(?!\n)", text)
+    if lone_cr is not None:
+        raise ModelFormatError(
+            files.CR_ONLY, path=manifest, line0=text.count("\n", 0, lone_cr.start())
+        )
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ModelFormatError(f"not valid TOML: {exc}", path=manifest) from None
+    lines = text.splitlines()
 
     def need(key: str, kind: type | tuple[type, ...]):
         if key not in doc:
@@ -126,7 +232,9 @@ def _load_manifest(manifest: Path) -> Model:
         value = doc[key]
         if not isinstance(value, kind) or isinstance(value, bool) and kind is int:
             raise ModelFormatError(
-                f"key '{key}' has the wrong type ({type(value).__name__})", path=manifest
+                f"key '{key}' has the wrong type ({type(value).__name__})",
+                path=manifest,
+                line0=_key_line(lines, None, 0, key),
             )
         return value
 
@@ -146,45 +254,109 @@ def _load_manifest(manifest: Path) -> Model:
     normalize = doc.get("normalize", False)
     if not isinstance(normalize, bool):
         raise ModelFormatError("key 'normalize' must be true or false", path=manifest)
+    background = doc.get("background_label", "")
+    if not isinstance(background, str):
+        raise ModelFormatError(
+            f"key 'background_label' is {_kind(background)}, expected a string",
+            path=manifest,
+            line0=_key_line(lines, None, 0, "background_label"),
+        )
     states_doc = need("states", list)
     states: list[State] = []
     for i, sd in enumerate(states_doc):
+        entry = f"[[states]] entry {i + 1}"
         if not isinstance(sd, dict) or "name" not in sd:
-            raise ModelFormatError(f"states entry {i + 1} has no name", path=manifest)
-        label = sd.get("label") or None
+            raise ModelFormatError(
+                f"{entry} has no name", path=manifest, line0=_key_line(lines, "[[states]]", i, None)
+            )
+        for key, default in (("name", None), ("label", ""), ("strand", ".")):
+            value = sd.get(key, default)
+            if not isinstance(value, str):
+                hint = {
+                    "name": "a state name in quotes",
+                    "label": 'a label in quotes such as "CpG_island", or "" for none',
+                    "strand": '"+", "-" or "."',
+                }[key]
+                shown = _toml_value_safe(value)
+                raise ModelFormatError(
+                    f"{entry}: {key} is {_kind(value)} ({shown}), expected {hint}",
+                    path=manifest,
+                    line0=_key_line(lines, "[[states]]", i, key),
+                )
+        label = sd.get("label", "")
+        if label:
+            problem = label_problem(label)
+            if problem:
+                raise ModelFormatError(
+                    f"{entry}: {problem}",
+                    path=manifest,
+                    line0=_key_line(lines, "[[states]]", i, "label"),
+                )
         strand = sd.get("strand", ".")
-        strand = None if strand in (".", "", None) else strand
-        states.append(State(str(sd["name"]), label, strand))
+        if strand not in ("", ".", *STRANDS):
+            raise ModelFormatError(
+                f"{entry}: strand {strand!r} is not '+', '-' or '.'",
+                path=manifest,
+                line0=_key_line(lines, "[[states]]", i, "strand"),
+            )
+        strand = None if strand in (".", "") else strand
+        states.append(State(sd["name"], label or None, strand))
     tables = doc.get("tables", {})
     if not isinstance(tables, dict):
         raise ModelFormatError("[tables] must be a table", path=manifest)
+    for key, rel in tables.items():
+        line0 = _key_line(lines, "[tables]", 0, key)
+        if key not in TABLE_FILES:
+            raise ModelFormatError(
+                f"[tables] has unknown key {key!r}; known: {', '.join(TABLE_FILES)}",
+                path=manifest,
+                line0=line0,
+            )
+        if not isinstance(rel, str) or not rel.strip():
+            raise ModelFormatError(
+                f"[tables] {key} is {_kind(rel)} ({_toml_value_safe(rel)}), expected a file "
+                "name in quotes, relative to the model folder",
+                path=manifest,
+                line0=line0,
+            )
+    defaults = doc.get("defaults", {})
+    problem = thresholds_problem(defaults)
+    if problem:
+        key = next(
+            (k for k in defaults if problem.startswith(f"[defaults] {k} ") or f"'{k}'" in problem),
+            None,
+        )
+        line0 = _key_line(lines, "[defaults]", 0, key) if isinstance(defaults, dict) else None
+        raise ModelFormatError(problem, path=manifest, line0=line0)
     base = manifest.parent
     names = [s.name for s in states]
     # names are checked before tables so that a table error can trust them
     seen: set[str] = set()
-    headers = [
-        i for i, line in enumerate(text.splitlines()) if line.strip().startswith("[[states]]")
-    ]
     for i, n in enumerate(names):
         if n in seen:
-            line0 = headers[i] if i < len(headers) else None
             raise ModelFormatError(
-                f"[[states]] entry {i + 1}: duplicate state name '{n}'", path=manifest, line0=line0
+                f"[[states]] entry {i + 1}: duplicate state name '{n}'",
+                path=manifest,
+                line0=_key_line(lines, "[[states]]", i, None),
             )
         seen.add(n)
     if order < 0 or order > 8:
         raise ModelFormatError(f"emission order {order} is outside 0..8", path=manifest)
     if len(set(alphabet)) != len(alphabet) or not alphabet:
         raise ModelFormatError(f"alphabet {alphabet!r} must list distinct symbols", path=manifest)
+    # refuse a bomb before any table is read or allocated
+    size = emission_size_problem(len(states), len(alphabet), order)
+    if size:
+        raise ModelFormatError(size, path=manifest, line0=_key_line(lines, None, 0, "order"))
 
     def table_path(key: str, required: bool) -> Path | None:
         rel = tables.get(key)
         if rel is None:
             default = base / TABLE_FILES[key]
-            if required:
-                return default
-            return default if default.is_file() else None
-        return base / rel
+            if not required and not default.is_file() and not default.is_symlink():
+                return None
+            return _inside(base, default, TABLE_FILES[key], key, manifest, None)
+        return _inside(base, base / rel, rel, key, manifest, _key_line(lines, "[tables]", 0, key))
 
     strict = not normalize
     start = _read_vector(table_path("start", True), names, "start", strict)
@@ -210,7 +382,7 @@ def _load_manifest(manifest: Path) -> Model:
         end=end,
         decode=decode,
         lower_emissions=lower,
-        background_label=doc.get("background_label") or None,
+        background_label=background or None,
         provenance=provenance,
         extra=extra,
     )
@@ -224,19 +396,104 @@ def _load_manifest(manifest: Path) -> Model:
     return model
 
 
-def _lines(path: Path):
-    """Yield (line0, fields) for non-blank, non-comment lines of a TSV file."""
+def _inside(
+    base: Path, target: Path, shown: str, key: str, manifest: Path, line0: int | None
+) -> Path:
+    """``target`` if it lies inside the model folder ``base`` (symbolic links followed).
+
+    Table paths are relative to the manifest's folder and must stay in it: an
+    absolute path, a ``..`` that climbs out, or a symbolic link that leads out is a
+    :class:`~seqstate.errors.ModelFormatError` (nothing outside the folder is read).
+    """
+    rule = "table paths must be relative to the model folder and stay inside it"
+    if Path(shown).is_absolute():
+        raise ModelFormatError(
+            f"[tables] {key} = {shown!r} is an absolute path; {rule}", path=manifest, line0=line0
+        )
     try:
-        with open(path, encoding="utf-8", newline="") as fh:
-            for line0, raw in enumerate(fh):
-                line = raw.rstrip("\r\n")
-                if not line.strip() or line.lstrip().startswith("#"):
-                    continue
-                yield line0, line.split("\t")
-    except FileNotFoundError:
-        raise TableFormatError("table file not found", path=path) from None
-    except UnicodeDecodeError:
-        raise TableFormatError("table is not UTF-8 text", path=path) from None
+        root = base.resolve()
+        resolved = target.resolve()
+    except (OSError, RuntimeError) as exc:
+        raise ModelFormatError(
+            f"[tables] {key} = {shown!r} cannot be resolved ({exc}); {rule}",
+            path=manifest,
+            line0=line0,
+        ) from None
+    if not resolved.is_relative_to(root):
+        how = "through a symbolic link" if target.is_symlink() or ".." not in shown else "by '..'"
+        raise ModelFormatError(
+            f"[tables] {key} = {shown!r} leads outside the model folder ({how}); {rule}",
+            path=manifest,
+            line0=line0,
+        )
+    return target
+
+
+def _toml_value_safe(value) -> str:
+    """A short TOML-like rendering of a manifest value for a message."""
+    try:
+        text = _toml_value(value)
+    except TypeError:
+        text = type(value).__name__
+    return text if len(text) <= 40 else text[:37] + "..."
+
+
+def _lines(path: Path):
+    """Yield (line0, fields) for non-blank, non-comment lines of a TSV file.
+
+    LF, CRLF and CR line ends are all read; a UTF-8 byte-order mark is dropped.
+    """
+    data = _read_text(path, TableFormatError, "TSV table")
+    for line0, raw in enumerate(data.splitlines()):
+        try:
+            line = raw.decode("utf-8")
+        except UnicodeDecodeError as exc:
+            start = exc.start
+            raise TableFormatError(
+                f"is not UTF-8 text: byte 0x{raw[start]:02X} at column {start + 1} cannot be "
+                "decoded; expected a UTF-8 TSV table",
+                path=path,
+                line0=line0,
+            ) from None
+        if not line.strip() or line.lstrip().startswith("#"):
+            continue
+        yield line0, line.split("\t")
+
+
+_WORD = re.compile(r"[A-Za-z0-9_.+-]{1,30}")
+
+
+def _shown_cells(fields: list[str], limit: int = 4) -> str:
+    """Header cells for a message: word-like cells as written, anything else described.
+
+    A file that is not a table (say, a system file named by mistake) is never echoed.
+    """
+    out = []
+    for cell in fields[:limit]:
+        cell = cell.strip()
+        word = _WORD.fullmatch(cell) or (len(cell) <= 2 and cell.isascii() and cell.isprintable())
+        out.append(repr(cell) if word else f"<{len(cell)} other characters>")
+    if len(fields) > limit:
+        out.append(f"... ({len(fields)} cells)")
+    return ", ".join(out) or "nothing"
+
+
+def _total(values) -> float:
+    """Exact sum of non-negative values; inf when it overflows the float range."""
+    try:
+        return math.fsum(values)
+    except OverflowError:
+        return math.inf
+
+
+def _check_total(total: float, what: str, path: Path, line0: int | None) -> None:
+    if not math.isfinite(total):
+        raise TableFormatError(
+            f"{what} sums to more than {sys.float_info.max:.4g}, the largest number "
+            "(overflow); scale the counts down",
+            path=path,
+            line0=line0,
+        )
 
 
 def _number(cell: str, path: Path, line0: int, what: str) -> float:
@@ -285,7 +542,9 @@ def _read_vector(path: Path, names: list[str], column: str, strict: bool) -> np.
             header_seen = True
             if [f.strip() for f in fields] != ["state", column]:
                 raise TableFormatError(
-                    f"header is {fields!r}, expected 'state<TAB>{column}'", path=path, line0=line0
+                    f"header is {_shown_cells(fields)}, expected 'state<TAB>{column}'",
+                    path=path,
+                    line0=line0,
                 )
             continue
         if len(fields) != 2:
@@ -299,12 +558,14 @@ def _read_vector(path: Path, names: list[str], column: str, strict: bool) -> np.
         values[s] = _number(fields[1], path, line0, f"state '{names[s]}'")
     if not header_seen:
         raise TableFormatError("table is empty", path=path)
-    if column == "start" and not strict and values.sum() <= 0:
+    total = _total(values)
+    _check_total(total, f"{column} values (all rows)", path, last_line0)
+    if column == "start" and not strict and total <= 0:
         raise TableFormatError(
             "start probabilities sum to 0 and cannot be normalised", path=path, line0=last_line0
         )
     if column == "start" and strict:
-        _check_sum(float(values.sum()), "start probabilities (all rows)", path, last_line0)
+        _check_sum(total, "start probabilities (all rows)", path, last_line0)
     return values
 
 
@@ -320,8 +581,8 @@ def _read_transitions(
         if columns is None:
             if fields[0].strip() != "from":
                 raise TableFormatError(
-                    f"first header cell is '{fields[0]}', expected 'from' followed by the "
-                    "to-state names",
+                    f"first header cell is {_shown_cells(fields, 1)}, expected 'from' followed "
+                    "by the to-state names",
                     path=path,
                     line0=line0,
                 )
@@ -346,8 +607,9 @@ def _read_transitions(
         given[s] = True
         for c, cell in zip(columns, fields[1:]):
             table[s, c] = _number(cell, path, line0, f"row '{names[s]}' column '{names[c]}'")
-        total = table[s].sum() + (end[s] if end is not None else 0.0)
+        total = _total([*table[s], end[s] if end is not None else 0.0])
         what = f"row '{names[s]}'" + (" (transitions plus end)" if end is not None else "")
+        _check_total(total, what, path, line0)
         if strict:
             _check_sum(float(total), what, path, line0)
         elif total <= 0:
@@ -378,14 +640,15 @@ def _read_emissions(
             head = [f.strip() for f in fields]
             if head[:2] != ["state", "context"]:
                 raise TableFormatError(
-                    f"header starts {head[:2]!r}, expected 'state<TAB>context' then one column "
-                    "per symbol",
+                    f"header starts {_shown_cells(head, 2)}, expected 'state<TAB>context' then "
+                    "one column per symbol",
                     path=path,
                     line0=line0,
                 )
             if sorted(head[2:]) != sorted(alphabet) or len(head[2:]) != a:
                 raise TableFormatError(
-                    f"symbol columns {' '.join(head[2:])!r} do not match the alphabet {alphabet!r}",
+                    f"symbol columns {_shown_cells(head[2:], a + 1)} do not match the alphabet "
+                    f"{alphabet!r}",
                     path=path,
                     line0=line0,
                 )
@@ -429,7 +692,10 @@ def _read_emissions(
             row[col] = _number(
                 cell, path, line0, f"state '{names[s]}' context '{ctx or EMPTY_CONTEXT}'"
             )
-        total = math.fsum(row)
+        total = _total(row)
+        _check_total(
+            total, f"row for state '{names[s]}' context '{ctx or EMPTY_CONTEXT}'", path, line0
+        )
         if strict:
             if abs(total - 1.0) > SUM_TOLERANCE:
                 what = f"row for state '{names[s]}' context '{ctx or EMPTY_CONTEXT}'"
