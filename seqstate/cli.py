@@ -175,7 +175,15 @@ def command_line(obj: dict | None) -> list[str]:
 
 
 def decoding_options(command):
-    """--decode, --min-posterior and --min-length, shared by annotate and plot."""
+    """--decode, --min-posterior, --min-length and --split-unknown, shared by annotate and plot."""
+    command = click.option(
+        "--split-unknown",
+        type=click.IntRange(min=1),
+        default=10,
+        show_default=True,
+        help="No feature (gene or segment) spans a run of this many unknown bases: it is cut "
+        "there.",
+    )(command)
     command = click.option(
         "--min-length",
         type=int,
@@ -239,12 +247,19 @@ def model_check(model: str) -> None:
 
 def summary(m, path: str, sha: str) -> str:
     """Readable summary of a model: states, labels, strands, transitions, stay lengths."""
+    from seqstate.model import default_thresholds
+
     lines = [f"model     {m.name}", f"manifest  {path}"]
     if m.description:
         lines.append(f"about     {m.description}")
     lines.append(f"alphabet  {m.alphabet} ({len(m.alphabet)} symbols)")
     lines.append(f"order     {m.order} (emission depends on the previous {m.order} symbols)")
     lines.append(f"decode    {m.decode} (default)")
+    thresholds = default_thresholds(m)
+    lines.append(
+        f"features  min_posterior {thresholds['min_posterior']:g}, min_length "
+        f"{thresholds['min_length']} bases (defaults of annotate and plot)"
+    )
     if m.end is None:
         lines.append("end       none given: any state may end a record")
     else:
@@ -331,13 +346,6 @@ def summary(m, path: str, sha: str) -> str:
     default=4,
     show_default=True,
     help="Decimals of the posterior values in tracks.",
-)
-@click.option(
-    "--split-unknown",
-    type=click.IntRange(min=1),
-    default=10,
-    show_default=True,
-    help="No feature (gene or segment) spans a run of this many unknown bases: it is cut there.",
 )
 @click.option(
     "--empty-records",
@@ -632,6 +640,7 @@ def plot_cmd(
     decode,
     min_posterior,
     min_length,
+    split_unknown,
     masked,
     force,
     quiet,
@@ -655,6 +664,7 @@ def plot_cmd(
             decode=decode,
             min_posterior=min_posterior,
             min_length=min_length,
+            split_unknown=split_unknown,
             masked=masked,
         )
     )

@@ -134,6 +134,7 @@ class PlotOptions:
     decode: str | None = None
     min_posterior: float | None = None  # None: the model's default
     min_length: int | None = None  # None: the model's default
+    split_unknown: int = 10  # no feature spans a run of this many unknown bases
     masked: str = "base"
 
 
@@ -162,6 +163,8 @@ def _check_options(opts: PlotOptions) -> None:
         raise UsageError(f"--min-posterior {opts.min_posterior} is outside 0..1")
     if opts.min_length is not None and opts.min_length < 1:
         raise UsageError(f"--min-length {opts.min_length} must be at least 1")
+    if opts.split_unknown < 1:
+        raise UsageError(f"--split-unknown {opts.split_unknown} must be at least 1")
     if opts.masked not in ("base", "unknown"):
         raise UsageError(f"--masked {opts.masked!r} is not base or unknown")
     if opts.reference == "-" and opts.input == "-":
@@ -230,7 +233,7 @@ def plot_data(opts: PlotOptions) -> PlotData:
         raise ImpossibleSequenceError(exc.message, path=display_name(opts.input)) from None
     # as annotate: features never claim long runs of unknown bases, nor unknown ends
     unknown = api.symbols_of(tables, window, masked_unknown=unknown_masked) < 0
-    segs = split_at_unknown(segs, unknown, opts.min_length)
+    segs = split_at_unknown(segs, unknown, opts.min_length, opts.split_unknown)
     if decode == "viterbi":
         note = "Viterbi path"
     else:

@@ -878,3 +878,13 @@ def test_model_check_prints_states_and_expected_stays():
     # run length, common practice), for the stays 0.999 and 0.99999 of models/cpg-island
     assert table["island"][1] == "CpG_island" and table["island"][-1] == "1000"
     assert table["background"][-1] == "1e+05"
+
+
+def test_model_check_prints_the_default_thresholds():
+    # cpg-island's [defaults]: a 200-base minimum (Gardiner-Garden & Frommer 1987,
+    # J. Mol. Biol. 196:261); casino has no [defaults], so the built-in 0.5 and 1 apply
+    for name, expected in (("cpg-island", "min_length 200 bases"), ("casino", "min_length 1 ")):
+        result = invoke(["model", "check", name])
+        assert result.exit_code == 0, result.stderr
+        line = next(ln for ln in result.stdout.splitlines() if ln.startswith("features "))
+        assert "min_posterior 0.5" in line and expected in line

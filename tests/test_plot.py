@@ -343,3 +343,31 @@ def test_missing_matplotlib_is_a_clear_error(tmp_path, monkeypatch):
     code, line = _bad(["plot", str(DEMO), "--region", "cex_ctg1:1-100", "-o", str(out)], out)
     assert code == 3
     assert line == "error: plotting needs the optional extra: pip install 'seqstate[plot]'"
+
+
+def test_plot_cuts_features_at_unknown_runs_like_annotate(tmp_path):
+    # An island-like run interrupted by 20 unknown bases: with the default threshold (10)
+    # the decoded feature is cut in two, as annotate cuts it; --split-unknown 21 keeps one.
+    fasta = tmp_path / "n.fa"
+    island = "CG" * 150
+    fasta.write_text(">r\n" + "AT" * 300 + island + "N" * 20 + island + "AT" * 300 + "\n")
+    counts = {}
+    for threshold in (10, 21):
+        data = plot_data(
+            PlotOptions(
+                input=str(fasta),
+                region="r",
+                out=str(tmp_path / "f.png"),
+                min_length=1,
+                split_unknown=threshold,
+            )
+        )
+        counts[threshold] = len(data.decoded)
+        out = tmp_path / f"a{threshold}"
+        annotate(
+            AnnotateOptions(
+                input=str(fasta), out_dir=str(out), min_length=1, split_unknown=threshold
+            )
+        )
+        assert counts[threshold] == len(read_gff3(out / "n.gff3"))
+    assert counts == {10: 2, 21: 1}
