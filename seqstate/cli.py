@@ -17,7 +17,7 @@ import click
 
 from seqstate import __version__
 from seqstate.errors import SeqstateError
-from seqstate.io.atomic import note_stop
+from seqstate.io.atomic import note_stop, stop_requested
 
 EXIT_INTERRUPTED = 130
 #: Signals that stop a run: outputs are discarded, one ``error: interrupted`` line, exit 130.
@@ -118,9 +118,19 @@ class _Group(click.Group):
         try:
             kwargs.setdefault("obj", {"argv": list(args)})
             with _signal_handlers():
-                value = super().main(
-                    args=args, prog_name=prog_name or "seqstate", standalone_mode=False, **kwargs
-                )
+                try:
+                    value = super().main(
+                        args=args,
+                        prog_name=prog_name or "seqstate",
+                        standalone_mode=False,
+                        **kwargs,
+                    )
+                except Exception as exc:
+                    if stop_requested():  # the signal's exception was wrapped on its way
+                        raise Interrupted(0) from exc
+                    raise
+                if stop_requested():  # the signal's exception was swallowed on its way
+                    raise Interrupted(0)
                 sys.stdout.flush()
             return value
         except click.exceptions.Exit as exc:

@@ -1,0 +1,60 @@
+"""A stop signal ends the run as interrupted even when its exception is lost on the way.
+
+Python runs a signal handler between bytecodes of whatever is executing; when that is
+compiled code (numba's dispatcher) or a callback whose exceptions are ignored, the
+handler's exception arrives wrapped (SystemError) or not at all.  The CLI notes every stop
+signal, so such a run still prints one ``error: interrupted`` line, exits 130 and commits no
+output.
+"""
+
+from __future__ import annotations
+
+import signal
+
+import pytest
+from click.testing import CliRunner
+
+from seqstate.cli import main
+from seqstate.io import atomic
+from seqstate.io.atomic import OutputSet
+
+
+@pytest.fixture(autouse=True)
+def _no_stop_left_behind(monkeypatch):
+    monkeypatch.setattr(atomic, "_STOPS", [])
+
+
+def _annotate_with(monkeypatch, body):
+    import seqstate.pipeline
+
+    monkeypatch.setattr(seqstate.pipeline, "annotate", body)
+    return CliRunner().invoke(main, ["annotate", "in.fa", "-o", "out", "-q"])
+
+
+def test_signal_whose_exception_was_wrapped_is_an_interrupt(monkeypatch):
+    def body(opts, **kwargs):
+        atomic.note_stop(signal.SIGTERM)
+        raise SystemError("a compiled function returned a result with an exception set")
+
+    result = _annotate_with(monkeypatch, body)
+    assert result.exit_code == 130
+    assert result.stderr.splitlines() == ["error: interrupted"]
+
+
+def test_signal_whose_exception_was_swallowed_is_an_interrupt(monkeypatch):
+    def body(opts, **kwargs):
+        atomic.note_stop(signal.SIGHUP)  # the raise was ignored: the command went on
+        return {"records": [], "skipped_records": []}
+
+    result = _annotate_with(monkeypatch, body)
+    assert result.exit_code == 130
+    assert result.stderr.splitlines() == ["error: interrupted"]
+
+
+def test_output_set_never_commits_after_a_stop_signal(tmp_path):
+    (tmp_path / "a.txt").write_text("old\n")
+    atomic.note_stop(signal.SIGINT)
+    with pytest.raises(KeyboardInterrupt), OutputSet(tmp_path, force=True) as outs:
+        outs.open_text("a.txt").write("new\n")
+    assert (tmp_path / "a.txt").read_text() == "old\n"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["a.txt"]
