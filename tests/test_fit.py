@@ -17,7 +17,7 @@ import pytest
 from hypothesis import assume, given
 from hypothesis import strategies as st
 
-from seqstate import fit
+from seqstate.commands import fit
 from seqstate.engine import api, reference, training
 from seqstate.engine.sampling import sample_record
 from seqstate.errors import FeatureFormatError, ImpossibleSequenceError, ModelFormatError
