@@ -137,6 +137,29 @@ class EMResult:
     kept_rows: list[str] = field(default_factory=list)
 
 
+def _log_iteration(
+    log: Log,
+    it: int,
+    ll: float,
+    obj: float,
+    prev_obj: float | None,
+    pseudocount: float,
+    t0: float,
+) -> float:
+    """Print the progress line of iteration ``it``; returns its relative gain (inf at 0)."""
+    extra = f"  objective {obj:.6f}" if pseudocount else ""
+    if prev_obj is None:
+        log(f"em: iteration {it:3d}  loglik {ll:.6f}{extra}  (start model)")
+        return math.inf
+    delta = obj - prev_obj
+    gain = delta / abs(prev_obj) if prev_obj != 0 else 0.0
+    log(
+        f"em: iteration {it:3d}  loglik {ll:.6f}{extra}  change {delta:+.6g}  "
+        f"relative {gain:+.3e}  ({time.perf_counter() - t0:.2f} s)"
+    )
+    return gain
+
+
 def baum_welch(
     model: Model,
     codes_list: Sequence[np.ndarray],
@@ -168,8 +191,8 @@ def baum_welch(
     current = with_backoff(model, lower) if lower else model
     history: list[tuple[int, float, float]] = []
     kept: list[str] = []
-    prev_obj = None
-    prev_model = None
+    prev_obj: float | None = None
+    prev_model: Model | None = None
     prev_ll = math.nan
     it = 0
     while True:
@@ -180,17 +203,7 @@ def baum_welch(
         ll = counts.loglik
         obj = objective(current, ll, pseudocount=pseudocount, frozen=frozen)
         history.append((it, ll, obj))
-        extra = f"  objective {obj:.6f}" if pseudocount else ""
-        if prev_obj is None:
-            log(f"em: iteration {it:3d}  loglik {ll:.6f}{extra}  (start model)")
-            gain = math.inf
-        else:
-            delta = obj - prev_obj
-            gain = delta / abs(prev_obj) if prev_obj != 0 else 0.0
-            log(
-                f"em: iteration {it:3d}  loglik {ll:.6f}{extra}  change {delta:+.6g}  "
-                f"relative {gain:+.3e}  ({time.perf_counter() - t0:.2f} s)"
-            )
+        gain = _log_iteration(log, it, ll, obj, prev_obj, pseudocount, t0)
         what = "objective" if pseudocount else "log-likelihood"
         if prev_obj is not None and gain < 0 and prev_model is not None:
             reason = (

@@ -24,6 +24,8 @@ per-base rules live.
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
 
 from seqstate.commands.fit.labels import STRAND_CODE, STRAND_TEXT, LabelTrack, label_groups
@@ -95,7 +97,7 @@ def assign_states(
 ) -> np.ndarray:
     """The state of every base of one record (int32; -1 where it cannot be told).
 
-    The one place the state rules live:
+    The one place the per-base state rules live (:data:`PER_BASE_RULES`):
 
     * ``label``: the group's only state;
     * ``label_and_base``: the state of the group that emits the observed base
@@ -108,69 +110,20 @@ def assign_states(
     ``sym`` holds the symbol indices (-1 unknown).  Raises FeatureFormatError
     (with the feature's line) where the group has no fitting state.
     """
-    names, groups, _ = label_groups(model)
-    n_groups = len(names)
-    g = track.group
-    if rule == "label":
-        table = np.full(n_groups, -1, dtype=np.int32)
-        for k, st in enumerate(groups):
-            if st.size == 1:
-                table[k] = st[0]
-            elif st.size > 1:
-                raise ModelFormatError(
-                    f"state rule 'label' needs one state per label, but {names[k]} has {st.size}"
-                )
-        states = table[g]
-        bad = states < 0
-        need = "state"
-    elif rule == "label_and_base":
-        a = len(model.alphabet)
-        table = np.full((n_groups, a + 1), -1, dtype=np.int32)  # column a: unknown base
-        for k, st in enumerate(groups):
-            if st.size == 1:
-                table[k, :] = st[0]
-            elif st.size > 1:
-                bt = _base_table(model, st)
-                if bt is None:
-                    raise ModelFormatError(
-                        f"state rule 'label_and_base' needs the states of {names[k]} to emit "
-                        "one distinct symbol each with probability 1 (order 0)"
-                    )
-                table[k, :a] = bt
-                table[k, a] = -2  # undetermined, not an error
-        col = np.where(sym < 0, a, sym)
-        states = table[g, col]
-        bad = states == -1
-        states[states == -2] = -1
-        need = "state that emits the base"
-    elif rule == "label_and_strand":
-        table = np.full((n_groups, 3), -1, dtype=np.int32)
-        for k, st in enumerate(groups):
-            if st.size == 1:
-                table[k, :] = st[0]
-                continue
-            for s in st:
-                code = STRAND_CODE[model.states[s].strand]
-                if table[k, code] >= 0:
-                    raise ModelFormatError(
-                        f"state rule 'label_and_strand' needs one state per strand, but "
-                        f"{names[k]} has two on strand {STRAND_TEXT[code]}"
-                    )
-                table[k, code] = s
-        states = table[g, track.strand]
-        bad = states < 0
-        need = "state on the feature's strand"
-    else:
+    if rule not in PER_BASE_RULES:
         raise ModelFormatError(f"unknown state rule '{rule}'")
+    pick, need = PER_BASE_RULES[rule]
+    names, groups, _ = label_groups(model)
+    states, bad = pick(model, names, groups, track, sym)
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
-        k = int(g[i])
+        k = int(track.group[i])
         detail = ""
         if rule == "label_and_base":
             detail = f" (base {model.alphabet[int(sym[i])]!r})"
         elif rule == "label_and_strand":
             detail = f" (strand {STRAND_TEXT[int(track.strand[i])]})"
-        what = "no label" if k == n_groups - 1 else f"label {names[k]}"
+        what = "no label" if k == len(names) - 1 else f"label {names[k]}"
         raise FeatureFormatError(
             f"position {i + 1} (1-based) has {what}{detail} but the model has no {need} for "
             f"it under state rule '{rule}'",
@@ -179,3 +132,76 @@ def assign_states(
             where=f"record '{record}'",
         )
     return states.astype(np.int32, copy=False)
+
+
+def _by_label(
+    model: Model, names: list[str], groups: list[np.ndarray], track: LabelTrack, sym: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Rule ``label``: (state per base, where no state fits)."""
+    table = np.full(len(names), -1, dtype=np.int32)
+    for k, st in enumerate(groups):
+        if st.size == 1:
+            table[k] = st[0]
+        elif st.size > 1:
+            raise ModelFormatError(
+                f"state rule 'label' needs one state per label, but {names[k]} has {st.size}"
+            )
+    states = table[track.group]
+    return states, states < 0
+
+
+def _by_label_and_base(
+    model: Model, names: list[str], groups: list[np.ndarray], track: LabelTrack, sym: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Rule ``label_and_base``: (state per base, where no state fits); -1 at unknown bases."""
+    a = len(model.alphabet)
+    table = np.full((len(names), a + 1), -1, dtype=np.int32)  # column a: unknown base
+    for k, st in enumerate(groups):
+        if st.size == 1:
+            table[k, :] = st[0]
+        elif st.size > 1:
+            bt = _base_table(model, st)
+            if bt is None:
+                raise ModelFormatError(
+                    f"state rule 'label_and_base' needs the states of {names[k]} to emit "
+                    "one distinct symbol each with probability 1 (order 0)"
+                )
+            table[k, :a] = bt
+            table[k, a] = -2  # undetermined, not an error
+    col = np.where(sym < 0, a, sym)
+    states = table[track.group, col]
+    bad = states == -1
+    states[states == -2] = -1
+    return states, bad
+
+
+def _by_label_and_strand(
+    model: Model, names: list[str], groups: list[np.ndarray], track: LabelTrack, sym: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Rule ``label_and_strand``: (state per base, where no state fits)."""
+    table = np.full((len(names), 3), -1, dtype=np.int32)
+    for k, st in enumerate(groups):
+        if st.size == 1:
+            table[k, :] = st[0]
+            continue
+        for s in st:
+            code = STRAND_CODE[model.states[s].strand]
+            if table[k, code] >= 0:
+                raise ModelFormatError(
+                    f"state rule 'label_and_strand' needs one state per strand, but "
+                    f"{names[k]} has two on strand {STRAND_TEXT[code]}"
+                )
+            table[k, code] = s
+    states = table[track.group, track.strand]
+    return states, states < 0
+
+
+_Pick = Callable[
+    [Model, list[str], list[np.ndarray], LabelTrack, np.ndarray], tuple[np.ndarray, np.ndarray]
+]
+#: Per-base state rules: name -> (state picker, what a message says is missing).
+PER_BASE_RULES: dict[str, tuple[_Pick, str]] = {
+    "label": (_by_label, "state"),
+    "label_and_base": (_by_label_and_base, "state that emits the base"),
+    "label_and_strand": (_by_label_and_strand, "state on the feature's strand"),
+}
