@@ -557,6 +557,7 @@ def _two_state_truth():
     )
 
 
+@pytest.mark.slow
 def test_em_recovers_a_two_state_order1_model_from_1_mbp():
     truth = _two_state_truth()
     tables = api.prepare(truth)
@@ -685,6 +686,7 @@ def test_demo_counting_gives_the_counts_of_the_planted_islands(tmp_path):
     assert got.transitions[1, 0] == pytest.approx(1.109e-5, abs=0.001e-5)
 
 
+@pytest.mark.slow
 def test_larger_sample_recovers_the_switching_within_20_percent(tmp_path):
     """20 Mbp drawn with the demo's own model (built-in cpg-island), seed 77, counted."""
     from seqstate.pipeline import SampleOptions, sample
