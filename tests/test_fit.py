@@ -18,6 +18,7 @@ from hypothesis import assume, given
 from hypothesis import strategies as st
 
 from seqstate.commands import fit
+from seqstate.commands.fit import rules
 from seqstate.engine import api, reference, training
 from seqstate.engine.sampling import sample_record
 from seqstate.errors import FeatureFormatError, ImpossibleSequenceError, ModelFormatError
@@ -218,6 +219,20 @@ def test_state_rule_inference_and_declaration(tmp_path):
     two.extra = {"fit": {"state_rule": "label_and_strand"}}
     save_model(two, tmp_path / "two")
     assert fit.resolve_state_rule(load_model(tmp_path / "two")) == "label_and_strand"
+
+
+def test_default_state_rule_ignores_the_declaration_and_every_rule_has_a_home():
+    # the rule a model gets without a [fit] declaration is the inferred one, whatever the
+    # manifest says: cpg-island-8 declares nothing and infers label_and_base
+    model = load_model("cpg-island-8")
+    model.extra = {"fit": {"state_rule": "label_and_strand"}}
+    assert fit.resolve_state_rule(model) == "label_and_strand"
+    assert fit.default_state_rule(model) == "label_and_base"
+    # every implemented rule is either a per-base picker or the gene layout's labelling
+    assert set(rules.PER_BASE_RULES) | {"gene_structure"} == set(fit.STATE_RULES)
+    with pytest.raises(ModelFormatError, match="unknown state rule 'gene_structure'"):
+        track = fit.LabelTrack(np.zeros(3, np.int16), np.zeros(3, np.int8), [])
+        fit.assign_states(model, "gene_structure", track, np.zeros(3), record="r", path="p")
 
 
 # ---------------------------------------------------------------- counting
