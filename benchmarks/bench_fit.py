@@ -4,7 +4,7 @@ Samples one record (default 3 Mbp, fixed seed) from the built-in eight-state mod
 ``cpg-island-8``, then times one EM iteration (expected counts over the record plus the
 update) in a fresh child process per implementation and repeat:
 
-* seqstate: ``seqstate.fit.em_step`` (checkpointed forward-backward kernel);
+* seqstate: ``seqstate.commands.fit.em_step`` (checkpointed forward-backward kernel);
 * hmmlearn: ``CategoricalHMM(n_components=8, n_iter=1, implementation="scaling",
   init_params="", params="ste")`` with the same start, transition and emission tables.
 
@@ -40,7 +40,7 @@ def child(impl: str, data: Path, out: Path) -> None:
     model = load_model(MODEL)
     sym = np.load(data)
     if impl == "seqstate":
-        from seqstate import fit
+        from seqstate.commands import fit
         from seqstate.engine import api
 
         tables = api.prepare(model)

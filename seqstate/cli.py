@@ -771,8 +771,8 @@ def fit_cmd(
 ) -> None:
     """Fit a model's tables to the sequences of FASTA: count from known features and/or
     Baum-Welch."""
+    from seqstate.commands.fit import FitOptions, fit, stderr_log
     from seqstate.errors import UsageError
-    from seqstate.fit import FitOptions, fit, stderr_log
 
     if fasta_arg is not None and fasta is not None and fasta_arg != fasta:
         raise UsageError(f"two FASTA inputs given ('{fasta_arg}' and --fasta '{fasta}'): give one")

@@ -17,7 +17,8 @@ import pytest
 from hypothesis import assume, given
 from hypothesis import strategies as st
 
-from seqstate import fit
+from seqstate.commands import fit
+from seqstate.commands.fit import rules
 from seqstate.engine import api, reference, training
 from seqstate.engine.sampling import sample_record
 from seqstate.errors import FeatureFormatError, ImpossibleSequenceError, ModelFormatError
@@ -218,6 +219,20 @@ def test_state_rule_inference_and_declaration(tmp_path):
     two.extra = {"fit": {"state_rule": "label_and_strand"}}
     save_model(two, tmp_path / "two")
     assert fit.resolve_state_rule(load_model(tmp_path / "two")) == "label_and_strand"
+
+
+def test_default_state_rule_ignores_the_declaration_and_every_rule_has_a_home():
+    # the rule a model gets without a [fit] declaration is the inferred one, whatever the
+    # manifest says: cpg-island-8 declares nothing and infers label_and_base
+    model = load_model("cpg-island-8")
+    model.extra = {"fit": {"state_rule": "label_and_strand"}}
+    assert fit.resolve_state_rule(model) == "label_and_strand"
+    assert fit.default_state_rule(model) == "label_and_base"
+    # every implemented rule is either a per-base picker or the gene layout's labelling
+    assert set(rules.PER_BASE_RULES) | {"gene_structure"} == set(fit.STATE_RULES)
+    with pytest.raises(ModelFormatError, match="unknown state rule 'gene_structure'"):
+        track = fit.LabelTrack(np.zeros(3, np.int16), np.zeros(3, np.int8), [])
+        fit.assign_states(model, "gene_structure", track, np.zeros(3), record="r", path="p")
 
 
 # ---------------------------------------------------------------- counting
@@ -557,6 +572,7 @@ def _two_state_truth():
     )
 
 
+@pytest.mark.slow
 def test_em_recovers_a_two_state_order1_model_from_1_mbp():
     truth = _two_state_truth()
     tables = api.prepare(truth)
@@ -685,6 +701,7 @@ def test_demo_counting_gives_the_counts_of_the_planted_islands(tmp_path):
     assert got.transitions[1, 0] == pytest.approx(1.109e-5, abs=0.001e-5)
 
 
+@pytest.mark.slow
 def test_larger_sample_recovers_the_switching_within_20_percent(tmp_path):
     """20 Mbp drawn with the demo's own model (built-in cpg-island), seed 77, counted."""
     from seqstate.pipeline import SampleOptions, sample

@@ -373,6 +373,7 @@ def split_runs(chr4, tmp_path_factory):
     return cut, runs
 
 
+@pytest.mark.slow
 def test_accuracy_on_held_out_halves_of_chromosome_4(split_runs):
     # Targets from the issue: mean over the two splits, strand-agnostic nucleotide level
     # Sn >= 0.88 and Sp >= 0.68, exon-level exact-match Sn >= 0.45 (definitions: Burset &
@@ -395,6 +396,7 @@ def test_accuracy_on_held_out_halves_of_chromosome_4(split_runs):
     assert mean[2] >= 0.45, figures
 
 
+@pytest.mark.slow
 def test_decoded_genes_are_valid_gene_structures(split_runs):
     # No decoded CDS has an in-frame stop (NCBI table 1, translated with Biopython);
     # every intron is GT..AG on its strand; the hierarchy parses in gffutils with every
@@ -445,6 +447,7 @@ def test_decoded_genes_are_valid_gene_structures(split_runs):
         assert genes_seen == n_mrna
 
 
+@pytest.mark.slow
 def test_gff3_cds_phases_match_their_lengths(split_runs):
     # GFF3 1.26: the first CDS of an mRNA (5' end on its strand) has phase 0 and each next
     # piece (3 - coding bases so far % 3) % 3
@@ -470,6 +473,7 @@ def test_gff3_cds_phases_match_their_lengths(split_runs):
         assert checked >= 20
 
 
+@pytest.mark.slow
 def test_annotate_gene_model_writes_tsv_rows_per_feature(split_runs):
     _, runs = split_runs
     (_, _), pred_gff = runs["right"]
@@ -497,6 +501,7 @@ def test_annotate_gene_model_writes_tsv_rows_per_feature(split_runs):
         assert seg <= lo + 5e-4
 
 
+@pytest.mark.slow
 def test_gff3_hierarchy_round_trips_through_io(split_runs):
     _, runs = split_runs
     (_, _), pred_gff = runs["left"]

@@ -1,0 +1,1 @@
+"""The commands of seqstate as library calls: options object in, report dataclass out."""
