@@ -9,7 +9,7 @@ model's :class:`TrainingTables` give, pooled into :class:`Accumulators`:
 * ``emit[c, s]`` -- sum over the positions i with code c of P(z_i = s | x).
 
 The caller maps codes to emission-table cells (only full-order codes count
-towards the order-k table; see :mod:`seqstate.fit`).
+towards the order-k table; see :mod:`seqstate.commands.fit`).
 
 Algorithm (our own arrangement of the scaled forward–backward of Rabiner 1989,
 section V.A): pass 1 runs forward over the record, keeps the forward vector at
@@ -116,7 +116,7 @@ def training_tables(
 
     ``lower[j]`` (shape ``(M, A**j, A)``, complete, for every ``j < order``) are
     the emission rows of positions with a context of only j symbols: EM holds
-    them fixed (see :mod:`seqstate.fit`).  ``mode`` forces a loop layout
+    them fixed (see :mod:`seqstate.commands.fit`).  ``mode`` forces a loop layout
     (:data:`MODE_PAIRS` or :data:`MODE_LISTS`); by default the cheaper one.
     """
     m, a, k = model.n_states, len(model.alphabet), model.order
