@@ -414,7 +414,7 @@ def annotate_cmd(
 def _warn_skipped(fasta: str, skipped: list[dict], shown: int = 5) -> None:
     """One warning line per skipped record (the first ``shown``; the run report has all)."""
     from seqstate.errors import escape_text
-    from seqstate.io.fasta import display_name
+    from seqstate.io.files import display_name
 
     for sk in skipped[:shown]:
         text = f"{display_name(fasta)} line {sk['line']}, record '{sk['id']}'"

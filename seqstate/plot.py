@@ -37,7 +37,7 @@ from seqstate.decode import (
 from seqstate.engine import api
 from seqstate.errors import ImpossibleSequenceError, OptionalDependencyError, UsageError
 from seqstate.io.atomic import OutputSet, check_outputs
-from seqstate.io.fasta import display_name
+from seqstate.io.files import display_name
 from seqstate.io.regions import check_region, parse_region
 from seqstate.io.tables import load_model
 from seqstate.model import resolve_thresholds

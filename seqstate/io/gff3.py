@@ -20,11 +20,10 @@ import urllib.parse
 from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import TextIO
+from typing import BinaryIO, TextIO
 
 from seqstate.errors import FeatureFormatError
-from seqstate.io import files
-from seqstate.io.fasta import display_name, iter_lines, open_input
+from seqstate.io.files import display_name, iter_lines, open_input, text_lines
 
 __all__ = [
     "STRANDS",
@@ -34,7 +33,10 @@ __all__ = [
     "escape_column9",
     "escape_seqid",
     "iter_gff3",
+    "parse_gff3",
+    "parse_sequence_regions",
     "read_gff3",
+    "read_sequence_regions",
     "unescape",
 ]
 
@@ -182,7 +184,7 @@ class GFF3Writer:
             if len(item) == 2:
                 seqid, start, end = item[0], 1, item[1]
             else:
-                seqid, start, end = item  # type: ignore[misc]
+                seqid, start, end = item
             if not 1 <= start <= end:
                 raise ValueError(
                     f"sequence region {seqid!r} {start}-{end} is not 1-based with 1 <= start <= end"
@@ -305,34 +307,33 @@ def _parse_attributes(text: str, shown: str, line0: int) -> list[tuple[str, str 
 def iter_gff3(path: str | Path, *, types: set[str] | None = None) -> Iterator[Feature]:
     """Yield the features of a GFF3 file, converted to 0-based half-open.
 
-    ``path`` is a file name or ``"-"``; plain or gzip.  Blank lines, comments
-    and directives are skipped; reading stops at ``##FASTA`` or at a line
-    starting with '>' (an implied ``##FASTA``, as the specification allows).
-    With ``types``, only features whose column 3 is in the set are returned.
-    Raises :class:`~seqstate.errors.FeatureFormatError` naming the file and
-    line for a wrong column count, a start or end that is not a whole number
-    >= 1, start > end, a bad score, strand or phase, or a column 9 piece
-    without '='.
+    ``path`` is a file name or ``"-"``; plain or gzip.  See :func:`parse_gff3`.
     """
-    shown = display_name(path)
     with open_input(path, FeatureFormatError, "GFF3") as handle:
-        for line0, raw in iter_lines(handle, shown, FeatureFormatError):
-            try:
-                line = raw.decode("utf-8")
-            except UnicodeDecodeError:
-                raise _error("line is not valid UTF-8 text", shown, line0) from None
-            line = line.rstrip("\r\n")
-            if "\r" in line:
-                raise _error(files.CR_ONLY, shown, line0)
-            if not line.strip():
-                continue
-            if line.startswith("##FASTA") or line.startswith(">"):
-                return
-            if line.startswith("#"):
-                continue
-            feature = _parse_line(line, shown, line0)
-            if types is None or feature.type in types:
-                yield feature
+        yield from parse_gff3(handle, display_name(path), types=types)
+
+
+def parse_gff3(handle: BinaryIO, shown: str, *, types: set[str] | None = None) -> Iterator[Feature]:
+    """The features of an open binary ``handle``, named ``shown`` in messages.
+
+    Blank lines, comments and directives are skipped; reading stops at
+    ``##FASTA`` or at a line starting with '>' (an implied ``##FASTA``, as the
+    specification allows).  With ``types``, only features whose column 3 is in
+    the set are returned.  Raises :class:`~seqstate.errors.FeatureFormatError`
+    naming the file and line for a wrong column count, a start or end that is
+    not a whole number >= 1, start > end, a bad score, strand or phase, or a
+    column 9 piece without '='.
+    """
+    for line0, line in text_lines(handle, shown, FeatureFormatError):
+        if not line.strip():
+            continue
+        if line.startswith("##FASTA") or line.startswith(">"):
+            return
+        if line.startswith("#"):
+            continue
+        feature = _parse_line(line, shown, line0)
+        if types is None or feature.type in types:
+            yield feature
 
 
 def _parse_line(line: str, shown: str, line0: int) -> Feature:
@@ -392,3 +393,62 @@ def _parse_line(line: str, shown: str, line0: int) -> Feature:
 def read_gff3(path: str | Path, *, types: set[str] | None = None) -> list[Feature]:
     """Read every feature of a GFF3 file; see :func:`iter_gff3`."""
     return list(iter_gff3(path, types=types))
+
+
+# ---------------------------------------------------------------- directives
+
+
+def read_sequence_regions(path: str | Path) -> dict[str, tuple[int, int, int]]:
+    """The ``##sequence-region`` lines of a GFF3 file; see :func:`parse_sequence_regions`."""
+    with open_input(path, FeatureFormatError, "GFF3") as handle:
+        return parse_sequence_regions(handle, display_name(path))
+
+
+def parse_sequence_regions(handle: BinaryIO, shown: str) -> dict[str, tuple[int, int, int]]:
+    """The ``##sequence-region seqid start end`` lines of an open GFF3 ``handle``.
+
+    Returns ``{seqid: (start0, end0, line0)}`` (0-based half-open; ``line0``
+    the 0-based line), in file order.  Reading stops at ``##FASTA`` or a line
+    starting with '>'.  Raises :class:`~seqstate.errors.FeatureFormatError`
+    naming the file (``shown``) and line for a malformed line or a seqid given
+    twice with different bounds.
+    """
+    out: dict[str, tuple[int, int, int]] = {}
+    for line0, raw in iter_lines(handle, shown, FeatureFormatError):
+        if raw.startswith(b"##FASTA") or raw.startswith(b">"):
+            break
+        if not raw.startswith(b"##sequence-region"):
+            continue
+        text = raw.decode("utf-8", errors="replace")
+        fields = text.split()
+        numbers = fields[2:4] if len(fields) == 4 else []
+        if (
+            fields[0] != "##sequence-region"
+            or not all(n.isdigit() for n in numbers)
+            or (len(numbers) != 2 or not 1 <= int(numbers[0]) <= int(numbers[1]))
+        ):
+            raise FeatureFormatError(
+                f"{text.strip()!r}: expected '##sequence-region SEQID START END' with "
+                "1-based START <= END",
+                path=shown,
+                line0=line0,
+            )
+        try:
+            seqid = unescape(fields[1])
+        except UnicodeDecodeError:
+            raise FeatureFormatError(
+                f"seqid {fields[1]!r} has %-escapes that do not decode as UTF-8",
+                path=shown,
+                line0=line0,
+            ) from None
+        bounds = (int(numbers[0]) - 1, int(numbers[1]))
+        if seqid in out and out[seqid][:2] != bounds:
+            first = out[seqid]
+            raise FeatureFormatError(
+                f"##sequence-region {seqid} {bounds[0] + 1} {bounds[1]} differs from "
+                f"line {first[2] + 1} ({first[0] + 1} {first[1]})",
+                path=shown,
+                line0=line0,
+            )
+        out.setdefault(seqid, (*bounds, line0))
+    return out
