@@ -835,7 +835,7 @@ def compare_cmd(
     predicted, reference, feature_types, region, out, all_sequences, force, quiet
 ) -> None:
     """Accuracy of PREDICTED features against REFERENCE features (both GFF3)."""
-    from seqstate.compare import compare_files, report_format, report_table, write_report
+    from seqstate.commands.compare import compare_files, report_format, report_table, write_report
     from seqstate.io.atomic import check_outputs
 
     if out is not None:

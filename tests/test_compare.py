@@ -28,7 +28,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from seqstate.cli import main
-from seqstate.compare import (
+from seqstate.commands.compare import (
     approximate_correlation,
     choose_type,
     compare_features,

@@ -42,6 +42,7 @@ __all__ = [
     "parse_gtf_attributes",
     "read_interval_file",
     "read_intervals",
+    "sniff_file",
     "sniff_interval_format",
 ]
 
@@ -151,6 +152,20 @@ def sniff_interval_format(name: str | Path | None, first_lines: Sequence[bytes])
     (:func:`detect_interval_format`)."""
     by_name = format_by_name(name) if name is not None and str(name) != "-" else None
     return by_name or detect_interval_format(first_lines)
+
+
+def sniff_file(path: str | Path, what: str = "BED, GFF3 or GTF") -> str:
+    """The format of the file ``path``: by its name, else by its first lines (the
+    file is opened for them).  ``what`` names the expected formats in the message
+    for a file that cannot be opened.  Not for standard input, which is read once
+    by :func:`read_interval_file`."""
+    by_name = format_by_name(path)
+    if by_name is not None:
+        return by_name
+    shown = display_name(path)
+    with open_input(path, FeatureFormatError, what) as handle:
+        head, _ = peek_lines(handle, shown, FeatureFormatError, most=SNIFF_LINES)
+    return detect_interval_format(head)
 
 
 # ---------------------------------------------------------------- reading
