@@ -44,8 +44,8 @@ import signal
 from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
-from types import TracebackType
-from typing import TextIO
+from types import FrameType, TracebackType
+from typing import Literal, TextIO, TypeGuard
 
 from seqstate.errors import UsageError
 
@@ -97,7 +97,7 @@ def same_file(a: str | os.PathLike, b: str | os.PathLike) -> bool:
     return _key(pa) == _key(pb)
 
 
-def _usable(path: str | os.PathLike | None) -> bool:
+def _usable(path: str | os.PathLike | None) -> TypeGuard[str | os.PathLike[str]]:
     return path is not None and str(path) != "-"
 
 
@@ -140,7 +140,7 @@ def write_failure(exc: OSError, what: str) -> UsageError | None:
     """The one-line error for an OSError that means ``what`` cannot be written, else None."""
     if exc.errno not in WRITE_ERRNOS:
         return None
-    reason = exc.strerror or os.strerror(exc.errno)
+    reason = exc.strerror or os.strerror(exc.errno or 0)  # errno is one of WRITE_ERRNOS
     return UsageError(f"{what} cannot be written: {reason}")
 
 
@@ -175,7 +175,7 @@ def held_signals() -> Iterator[None]:
     """
     pending: list[int] = []
 
-    def note(signum, frame):  # type: ignore[no-untyped-def]
+    def note(signum: int, frame: FrameType | None) -> None:
         pending.append(signum)
 
     saved = {}
@@ -415,7 +415,7 @@ class OutputSet:
         exc_type: type[BaseException] | None,
         exc: BaseException | None,
         tb: TracebackType | None,
-    ) -> bool:
+    ) -> Literal[False]:
         self._entered = False
         what = self._what()
         if exc_type is not None:
