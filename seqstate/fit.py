@@ -94,7 +94,7 @@ from seqstate.errors import (
     SequenceFormatError,
     UsageError,
 )
-from seqstate.io.atomic import OutputSet, check_outputs
+from seqstate.io.atomic import atomic_folder, check_outputs
 from seqstate.io.tables import MANIFEST, TABLE_FILES, load_model, model_sha256, render_tables
 from seqstate.model import Model, make_model, validate
 
@@ -1129,16 +1129,12 @@ def write_model_folder(
     """
     out = Path(out)
     _check_output(out, force, inputs)
-    with OutputSet(out, force=force, inputs=inputs) as outs:
-        stage = None
-        for name, text in render_tables(model):
-            with outs.open_text(name) as fh:
-                fh.write(text)
-                stage = Path(fh.name).parent
-        back = load_model(stage)
-        if not back.equals(model):
+
+    def reads_back(stage: Path) -> None:
+        if not load_model(stage).equals(model):
             raise RuntimeError("the written model does not read back identically")
-    return out
+
+    return atomic_folder(out, render_tables(model), force=force, inputs=inputs, check=reads_back)
 
 
 def _read_sequences(path: str, model: Model) -> list:

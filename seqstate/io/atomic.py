@@ -41,7 +41,7 @@ import os
 import re
 import shutil
 import signal
-from collections.abc import Iterable, Iterator
+from collections.abc import Callable, Iterable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
 from types import FrameType, TracebackType
@@ -52,6 +52,7 @@ from seqstate.errors import UsageError
 __all__ = [
     "STAGE_PREFIX",
     "OutputSet",
+    "atomic_folder",
     "atomic_text",
     "check_outputs",
     "recover_folder",
@@ -538,3 +539,30 @@ def atomic_text(
         raise UsageError(f"output file '{path}' is a directory, expected a file name")
     with OutputSet(force=force, inputs=inputs) as outputs:
         yield outputs.open_text(target)
+
+
+def atomic_folder(
+    folder: str | os.PathLike,
+    texts: Iterable[tuple[str, str]],
+    *,
+    force: bool = False,
+    inputs: Iterable[str | os.PathLike | None] = (),
+    check: Callable[[Path], None] | None = None,
+) -> Path:
+    """Write text files into ``folder`` all-or-nothing; returns the folder.
+
+    ``texts`` are ``(file name, text)`` pairs (plain names inside ``folder``,
+    which is created if absent).  ``check``, if given, is called with the
+    staging folder once every file is written there and before any is
+    committed, so it can read the files back; an exception from it leaves the
+    folder as it was.  The overwrite rule applies (``force``, ``inputs``); other
+    files of the folder are never touched.  See :class:`OutputSet`.
+    """
+    with OutputSet(folder, force=force, inputs=inputs) as outputs:
+        for name, text in texts:
+            with outputs.open_text(name) as handle:
+                handle.write(text)
+        if check is not None:
+            assert outputs.out_dir is not None
+            check(outputs._stage_of(outputs.out_dir))
+    return Path(folder)

@@ -27,6 +27,7 @@ from pathlib import Path
 import numpy as np
 
 from seqstate.errors import UsageError
+from seqstate.io.atomic import atomic_folder
 from seqstate.io.manifest import (
     FORMAT,
     MANIFEST,
@@ -147,11 +148,7 @@ def model_sha256(model: Model) -> str:
 
 
 def save_model(model: Model, folder: str | os.PathLike) -> Path:
-    """Write ``model`` as a model folder (created if absent); returns the manifest path."""
-    folder = Path(folder)
-    folder.mkdir(parents=True, exist_ok=True)
-    for name, text in render_tables(model):
-        tmp = folder / f".{name}.tmp-{os.getpid()}"
-        tmp.write_text(text, encoding="utf-8", newline="\n")
-        os.replace(tmp, folder / name)
+    """Write ``model`` as a model folder (created if absent), its files replaced together
+    (:func:`~seqstate.io.atomic.atomic_folder`); returns the manifest path."""
+    folder = atomic_folder(folder, render_tables(model), force=True)
     return folder / MANIFEST
