@@ -26,13 +26,17 @@ from seqstate.errors import FeatureFormatError
 from seqstate.io.files import display_name, iter_lines, open_input, text_lines
 
 __all__ = [
+    "GFF3_COLUMNS",
+    "GTF_COLUMNS",
     "STRANDS",
+    "Dialect",
     "Feature",
     "GFF3Writer",
     "escape_column",
     "escape_column9",
     "escape_seqid",
     "iter_gff3",
+    "parse_columns",
     "parse_gff3",
     "parse_sequence_regions",
     "read_gff3",
@@ -266,13 +270,15 @@ def _unescape_field(text: str, what: str, shown: str, line0: int) -> str:
         ) from None
 
 
-def _parse_position(text: str, column: int, name: str, shown: str, line0: int) -> int:
+def _parse_position(
+    text: str, column: int, name: str, shown: str, line0: int, fmt: str = "GFF3"
+) -> int:
     if not _WHOLE_NUMBER.fullmatch(text):
         raise _error(f"column {column} ({name}) {text!r} is not a whole number", shown, line0)
     value = int(text)
     if value < 1:
         raise _error(
-            f"column {column} ({name}) is {value}; GFF3 positions are 1-based, expected >= 1",
+            f"column {column} ({name}) is {value}; {fmt} positions are 1-based, expected >= 1",
             shown,
             line0,
         )
@@ -336,26 +342,57 @@ def parse_gff3(handle: BinaryIO, shown: str, *, types: set[str] | None = None) -
             yield feature
 
 
-def _parse_line(line: str, shown: str, line0: int) -> Feature:
-    cols = line.split("\t")
-    if len(cols) != 9:
-        hint = ""
-        if len(cols) < 9 and len(line.split()) >= 9:
-            hint = " (columns must be separated by tabs, not spaces)"
-        raise _error(f"found {len(cols)} tab-separated columns, expected 9{hint}", shown, line0)
-    seqid = _unescape_field(cols[0], "column 1 (seqid)", shown, line0)
+@dataclass(frozen=True)
+class Dialect:
+    """How columns 1-8 of a GFF-like line are named and checked: GFF3, or GTF.
+
+    ``name`` is used in messages; ``seqid``, ``type`` and ``phase`` are what
+    columns 1, 3 and 8 are called; ``strands`` the values of column 7;
+    ``escaped`` whether %-escapes are decoded (GFF3) or the text kept (GTF).
+    """
+
+    name: str
+    seqid: str
+    type: str
+    phase: str
+    strands: tuple[str, ...]
+    escaped: bool
+
+
+#: GFF3 (Sequence Ontology specification 1.26) columns 1-8.
+GFF3_COLUMNS = Dialect("GFF3", "seqid", "type", "phase", STRANDS, True)
+#: GTF 2.2 columns 1-8: the same layout, named seqname, feature and frame; no '?'.
+GTF_COLUMNS = Dialect("GTF", "seqname", "feature", "frame", ("+", "-", "."), False)
+
+
+def parse_columns(
+    cols: Sequence[str], shown: str, line0: int, dialect: Dialect = GFF3_COLUMNS
+) -> tuple[str, str, str, int, int, float | None, str, int | None]:
+    """Columns 1-8 of a GFF3 or GTF line, checked: ``(seqid, source, type, start0,
+    end0, score, strand, phase)``, 0-based half-open.  Raises
+    :class:`~seqstate.errors.FeatureFormatError` naming the file and line."""
+    d = dialect
+
+    def text(i: int, name: str) -> str:
+        return (
+            _unescape_field(cols[i], f"column {i + 1} ({name})", shown, line0)
+            if d.escaped
+            else cols[i]
+        )
+
+    seqid = text(0, d.seqid)
     if not seqid or seqid == ".":
-        raise _error(f"column 1 (seqid) {cols[0]!r} is empty", shown, line0)
-    source = _unescape_field(cols[1], "column 2 (source)", shown, line0)
-    ftype = _unescape_field(cols[2], "column 3 (type)", shown, line0)
+        raise _error(f"column 1 ({d.seqid}) {cols[0]!r} is empty", shown, line0)
+    source = text(1, "source")
+    ftype = text(2, d.type)
     if not ftype or ftype == ".":
-        raise _error(f"column 3 (type) {cols[2]!r} is empty", shown, line0)
-    start = _parse_position(cols[3], 4, "start", shown, line0)
-    end = _parse_position(cols[4], 5, "end", shown, line0)
+        raise _error(f"column 3 ({d.type}) {cols[2]!r} is empty", shown, line0)
+    start = _parse_position(cols[3], 4, "start", shown, line0, d.name)
+    end = _parse_position(cols[4], 5, "end", shown, line0, d.name)
     if start > end:
         raise _error(
             f"start {start} is greater than end {end} "
-            "(GFF3 positions are 1-based inclusive with start <= end)",
+            f"({d.name} positions are 1-based inclusive with start <= end)",
             shown,
             line0,
         )
@@ -368,19 +405,32 @@ def _parse_line(line: str, shown: str, line0: int) -> Feature:
         if not math.isfinite(score):
             raise _error(f"column 6 (score) {cols[5]!r} is not a number or '.'", shown, line0)
     strand = cols[6]
-    if strand not in STRANDS:
-        raise _error(f"column 7 (strand) {strand!r} is not one of + - . ?", shown, line0)
+    if strand not in d.strands:
+        raise _error(
+            f"column 7 (strand) {strand!r} is not one of {' '.join(d.strands)}", shown, line0
+        )
     if cols[7] == ".":
         phase = None
     elif cols[7] in _PHASES:
         phase = _PHASES[cols[7]]
     else:
-        raise _error(f"column 8 (phase) {cols[7]!r} is not one of 0 1 2 .", shown, line0)
+        raise _error(f"column 8 ({d.phase}) {cols[7]!r} is not one of 0 1 2 .", shown, line0)
+    return seqid, source, ftype, start - 1, end, score, strand, phase
+
+
+def _parse_line(line: str, shown: str, line0: int) -> Feature:
+    cols = line.split("\t")
+    if len(cols) != 9:
+        hint = ""
+        if len(cols) < 9 and len(line.split()) >= 9:
+            hint = " (columns must be separated by tabs, not spaces)"
+        raise _error(f"found {len(cols)} tab-separated columns, expected 9{hint}", shown, line0)
+    seqid, source, ftype, start, end, score, strand, phase = parse_columns(cols, shown, line0)
     return Feature(
         seqid=seqid,
         source=source,
         type=ftype,
-        start0=start - 1,
+        start0=start,
         end0=end,
         score=score,
         strand=strand,

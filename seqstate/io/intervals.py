@@ -19,7 +19,6 @@ by the first lines of the content.
 
 from __future__ import annotations
 
-import math
 import re
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, field
@@ -29,7 +28,7 @@ from typing import BinaryIO
 from seqstate.errors import FeatureFormatError, UsageError
 from seqstate.io.bed import parse_bed
 from seqstate.io.files import display_name, open_input, peek_lines, text_lines
-from seqstate.io.gff3 import STRANDS, parse_gff3
+from seqstate.io.gff3 import GTF_COLUMNS, STRANDS, parse_columns, parse_gff3
 
 __all__ = [
     "FORMAT_NAMES",
@@ -54,8 +53,6 @@ FORMAT_NAMES = {"bed": "BED", "gff3": "GFF3", "gtf": "GTF"}
 SNIFF_LINES = 1000
 
 _NAME_ENDINGS = ((".bed", "bed"), (".gff3", "gff3"), (".gff", "gff3"), (".gtf", "gtf"))
-_PHASES = {"0": 0, "1": 1, "2": 2}
-_WHOLE_NUMBER = re.compile(r"[0-9]+")
 #: A GTF attribute column starts ``key "value"`` or ``key value;`` (no '=').
 _GTF_START = re.compile(r'\s*[A-Za-z_][A-Za-z0-9_.\-]*\s+("|[^\s=;"]+\s*(;|$))')
 
@@ -301,19 +298,6 @@ def parse_gtf_attributes(text: str, shown: str = "", line0: int = 0) -> list[tup
     return out
 
 
-def _position(text: str, column: int, name: str, shown: str, line0: int) -> int:
-    if not _WHOLE_NUMBER.fullmatch(text):
-        raise _error(f"column {column} ({name}) {text!r} is not a whole number", shown, line0)
-    value = int(text)
-    if value < 1:
-        raise _error(
-            f"column {column} ({name}) is {value}; GTF positions are 1-based, expected >= 1",
-            shown,
-            line0,
-        )
-    return value
-
-
 def _gtf_line(line: str, shown: str, line0: int) -> Interval:
     cols = line.split("\t")
     if len(cols) == 10 and cols[9].lstrip().startswith("#"):
@@ -323,41 +307,14 @@ def _gtf_line(line: str, shown: str, line0: int) -> Interval:
         if len(cols) < 8 and len(line.split()) >= 8:
             hint = " (columns must be separated by tabs, not spaces)"
         raise _error(f"found {len(cols)} tab-separated columns, expected 9{hint}", shown, line0)
-    seqid, source, ftype = cols[0], cols[1], cols[2]
-    if not seqid or seqid == ".":
-        raise _error(f"column 1 (seqname) {seqid!r} is empty", shown, line0)
-    if not ftype or ftype == ".":
-        raise _error(f"column 3 (feature) {ftype!r} is empty", shown, line0)
-    start = _position(cols[3], 4, "start", shown, line0)
-    end = _position(cols[4], 5, "end", shown, line0)
-    if start > end:
-        raise _error(
-            f"start {start} is greater than end {end} "
-            "(GTF positions are 1-based inclusive with start <= end)",
-            shown,
-            line0,
-        )
-    if cols[5] != ".":
-        try:
-            score = float(cols[5])
-        except ValueError:
-            score = math.nan
-        if not math.isfinite(score):
-            raise _error(f"column 6 (score) {cols[5]!r} is not a number or '.'", shown, line0)
-    strand = cols[6]
-    if strand not in ("+", "-", "."):
-        raise _error(f"column 7 (strand) {strand!r} is not one of + - .", shown, line0)
-    if cols[7] == ".":
-        phase = None
-    elif cols[7] in _PHASES:
-        phase = _PHASES[cols[7]]
-    else:
-        raise _error(f"column 8 (frame) {cols[7]!r} is not one of 0 1 2 .", shown, line0)
+    seqid, source, ftype, start0, end0, _, strand, phase = parse_columns(
+        cols, shown, line0, GTF_COLUMNS
+    )
     pairs = parse_gtf_attributes(_split_comment(cols[8]), shown, line0) if len(cols) == 9 else []
     attributes: list[tuple[str, str | list[str]]] = list(pairs)
     values = dict(reversed(pairs))  # the first value of each key
     name = values.get("transcript_id") or values.get("gene_id")
-    return Interval(seqid, start - 1, end, strand, ftype, name, phase, line0, attributes, source)
+    return Interval(seqid, start0, end0, strand, ftype, name, phase, line0, attributes, source)
 
 
 def parse_gtf(handle: BinaryIO, shown: str, *, types: set[str] | None = None) -> Iterator[Interval]:
