@@ -17,11 +17,11 @@ from __future__ import annotations
 
 import gzip
 import io
+import os
 import sys
 import zlib
 from collections.abc import Iterator
 from contextlib import contextmanager
-from pathlib import Path
 from typing import Any, BinaryIO
 
 from seqstate.errors import SeqstateError, SequenceFormatError
@@ -102,7 +102,7 @@ def unsupported_message(kind: str, *, inside_gzip: bool = False) -> str:
 # ---------------------------------------------------------------- opening
 
 
-def display_name(path: str | Path) -> str:
+def display_name(path: str | os.PathLike[str]) -> str:
     """The name used for ``path`` in messages: ``<stdin>`` for ``"-"``."""
     return STDIN_NAME if str(path) == "-" else str(path)
 
@@ -145,7 +145,7 @@ def _read_head(stream: BinaryIO, n: int) -> bytes:
 
 @contextmanager
 def open_input(
-    path: str | Path,
+    path: str | os.PathLike[str],
     error_cls: type[SeqstateError] = SequenceFormatError,
     what: str = "FASTA",
 ) -> Iterator[BinaryIO]:

@@ -19,6 +19,7 @@ by the first lines of the content.
 
 from __future__ import annotations
 
+import os
 import re
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, field
@@ -93,7 +94,7 @@ class Interval:
 # ---------------------------------------------------------------- telling the format
 
 
-def format_by_name(path: str | Path) -> str | None:
+def format_by_name(path: str | os.PathLike[str]) -> str | None:
     """``bed``, ``gff3`` or ``gtf`` from a name ending ``.bed``, ``.gff3``, ``.gff`` or
     ``.gtf``, optionally followed by ``.gz`` or ``.bgz`` (any case); else None."""
     name = Path(str(path)).name.lower()
@@ -151,7 +152,7 @@ def sniff_interval_format(name: str | Path | None, first_lines: Sequence[bytes])
     return by_name or detect_interval_format(first_lines)
 
 
-def sniff_file(path: str | Path, what: str = "BED, GFF3 or GTF") -> str:
+def sniff_file(path: str | os.PathLike[str], what: str = "BED, GFF3 or GTF") -> str:
     """The format of the file ``path``: by its name, else by its first lines (the
     file is opened for them).  ``what`` names the expected formats in the message
     for a file that cannot be opened.  Not for standard input, which is read once
@@ -203,7 +204,7 @@ def read_intervals(
 
 
 def read_interval_file(
-    path: str | Path,
+    path: str | os.PathLike[str],
     fmt: str | None = None,
     *,
     types: set[str] | None = None,
