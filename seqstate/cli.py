@@ -424,7 +424,7 @@ def annotate_cmd(
 def _warn_skipped(fasta: str, skipped: list[dict], shown: int = 5) -> None:
     """One warning line per skipped record (the first ``shown``; the run report has all)."""
     from seqstate.errors import escape_text
-    from seqstate.io.fasta import display_name
+    from seqstate.io.files import display_name
 
     for sk in skipped[:shown]:
         text = f"{display_name(fasta)} line {sk['line']}, record '{sk['id']}'"
@@ -845,7 +845,7 @@ def compare_cmd(
     predicted, reference, feature_types, region, out, all_sequences, force, quiet
 ) -> None:
     """Accuracy of PREDICTED features against REFERENCE features (both GFF3)."""
-    from seqstate.compare import compare_files, report_format, report_table, write_report
+    from seqstate.commands.compare import compare_files, report_format, report_table, write_report
     from seqstate.io.atomic import check_outputs
 
     if out is not None:

@@ -37,7 +37,7 @@ from seqstate.decode import (
 from seqstate.engine import api
 from seqstate.errors import ImpossibleSequenceError, OptionalDependencyError, UsageError
 from seqstate.io.atomic import OutputSet, check_outputs
-from seqstate.io.fasta import display_name
+from seqstate.io.files import display_name
 from seqstate.io.regions import check_region, parse_region
 from seqstate.io.tables import load_model
 from seqstate.model import resolve_thresholds
@@ -264,7 +264,7 @@ def plot_data(opts: PlotOptions) -> PlotData:
         for reg in ref.regions:
             if reg.seqid != rec.id or reg.end0 <= region.start0 or reg.start0 >= region.end0:
                 continue
-            kind = reg.type if ref.format == "gff3" and reg.type else "interval"
+            kind = reg.type if ref.format != "bed" and reg.type else "interval"
             if kind not in rows:
                 rows.append(kind)
             data.reference.append(LaneFeature(rows.index(kind), reg.start0, reg.end0, reg.name))

@@ -26,12 +26,7 @@ from __future__ import annotations
 
 import io
 import math
-import re
-import sys
-from collections.abc import Iterator
-from contextlib import contextmanager
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import TextIO
 
 import numpy as np
@@ -40,9 +35,10 @@ from seqstate.decode import LOG2E, cpg_statistics, score_segment
 from seqstate.engine import api
 from seqstate.errors import FeatureFormatError, ImpossibleSequenceError, UsageError
 from seqstate.io.atomic import OutputSet, check_outputs
-from seqstate.io.bed import read_bed
-from seqstate.io.fasta import Record, display_name, iter_lines, open_input
-from seqstate.io.gff3 import Feature, GFF3Writer, iter_gff3
+from seqstate.io.fasta import Record
+from seqstate.io.files import display_name
+from seqstate.io.gff3 import Feature, GFF3Writer
+from seqstate.io.intervals import INTERVAL_FORMATS, read_interval_file
 from seqstate.io.tables import load_model
 from seqstate.model import Model
 from seqstate.pipeline import (
@@ -61,7 +57,6 @@ __all__ = [
     "ScoreOptions",
     "ScoreResult",
     "choose_label",
-    "detect_region_format",
     "check_regions",
     "read_regions",
     "score",
@@ -73,12 +68,13 @@ __all__ = [
 ]
 
 #: Formats of a regions file.
-REGION_FORMATS = ("bed", "gff3")
+REGION_FORMATS = INTERVAL_FORMATS
 
 #: Column names of the two coordinates, by input format (the convention is in the name).
 COORDINATE_COLUMNS = {
     "bed": ("start_0based", "end_exclusive"),
     "gff3": ("start_1based", "end_1based"),
+    "gtf": ("start_1based", "end_1based"),
 }
 #: Score columns every row has, in order (after seqid, the coordinates, name, length, label).
 POSTERIOR_COLUMNS = [
@@ -96,7 +92,6 @@ FORMATS = {**SCORE_FORMATS, "max_posterior": ".4f"}
 BED_FEATURE_TYPE = "region"
 CPG_LABEL = "CpG_island"
 
-_SNIFF_LINES = 1000
 _KNOWN_SHOWN = 5
 
 
@@ -140,122 +135,29 @@ class RegionFile:
         """The region's bounds as written in its file, with the convention named."""
         if self.format == "bed":
             return f"interval {region.start0}-{region.end0} (BED, 0-based half-open)"
-        return f"feature {region.start0 + 1}-{region.end0} (GFF3, 1-based closed)"
-
-
-def _format_by_name(path: str) -> str | None:
-    name = Path(path).name.lower()
-    name = re.sub(r"\.(gz|bgz)$", "", name)
-    if name.endswith(".bed"):
-        return "bed"
-    if name.endswith((".gff3", ".gff")):
-        return "gff3"
-    return None
-
-
-def detect_region_format(lines: list[bytes]) -> str:
-    """``"gff3"`` or ``"bed"`` from the first lines of a file (decompressed bytes).
-
-    A ``##gff-version`` line, or a first data line with nine tab-separated
-    columns whose 4th and 5th are whole numbers, 7th a GFF3 strand and 8th a
-    phase, means GFF3; anything else (``track``/``browser`` lines, three or
-    more BED columns, an empty file) means BED.
-    """
-    for raw in lines:
-        line = raw.decode("utf-8", errors="replace").rstrip("\r\n")
-        if not line.strip():
-            continue
-        if line.startswith("##gff-version"):
-            return "gff3"
-        if line.startswith("#"):
-            continue
-        cols = line.split("\t")
-        if (
-            len(cols) == 9
-            and cols[3].isdigit()
-            and cols[4].isdigit()
-            and cols[6] in ("+", "-", ".", "?")
-            and cols[7] in ("0", "1", "2", ".")
-        ):
-            return "gff3"
-        return "bed"
-    return "bed"
-
-
-@contextmanager
-def _stdin_from(data: bytes) -> Iterator[None]:
-    """Standard input replaced by ``data`` (already read and decompressed) for a reader."""
-    saved = sys.stdin
-    sys.stdin = io.TextIOWrapper(io.BytesIO(data), encoding="utf-8")
-    try:
-        yield
-    finally:
-        sys.stdin = saved
-
-
-def _read_stdin_bytes(shown: str) -> bytes:
-    with open_input("-", FeatureFormatError, "BED or GFF3") as handle:
-        return b"".join(raw for _, raw in iter_lines(handle, shown, FeatureFormatError))
-
-
-def _sniff_file(path: str, shown: str) -> str:
-    head: list[bytes] = []
-    with open_input(path, FeatureFormatError, "BED or GFF3") as handle:
-        for line0, raw in iter_lines(handle, shown, FeatureFormatError):
-            head.append(raw)
-            stripped = raw.strip()
-            if line0 >= _SNIFF_LINES or (stripped and not stripped.startswith(b"#")):
-                break
-    return detect_region_format(head)
-
-
-def _parse(path: str, fmt: str, types: set[str] | None) -> list[InputRegion]:
-    out: list[InputRegion] = []
-    if fmt == "bed":
-        for iv in read_bed(path):
-            out.append(
-                InputRegion(iv.seqid, iv.start0, iv.end0, iv.name or "", iv.strand or ".", iv.line0)
-            )
-        return out
-    for feat in iter_gff3(path, types=types):
-        name = feat.get("ID") or feat.get("Name") or ""
-        out.append(
-            InputRegion(
-                feat.seqid,
-                feat.start0,
-                feat.end0,
-                name,
-                feat.strand,
-                feat.line0 if feat.line0 is not None else -1,
-                feat.type,
-                feat.phase,
-                list(feat.attributes),
-            )
-        )
-    return out
+        return f"feature {region.start0 + 1}-{region.end0} ({self.format.upper()}, 1-based closed)"
 
 
 def read_regions(path: str, fmt: str | None = None, types: set[str] | None = None) -> RegionFile:
-    """Read a regions file: BED or GFF3, plain or gzip, ``"-"`` for standard input.
+    """Read a regions file: BED, GFF3 or GTF, plain or gzip, ``"-"`` for standard input.
 
-    ``fmt`` is ``"bed"``, ``"gff3"`` or None (detect: by the name ending ``.bed``,
-    ``.gff3`` or ``.gff``, optionally followed by ``.gz``; otherwise by content,
-    see :func:`detect_region_format`).  ``types`` keeps only GFF3 features of
-    those column-3 types (ignored for BED).  Regions are 0-based half-open, in
-    file order.  Malformed lines raise
+    ``fmt`` is ``"bed"``, ``"gff3"``, ``"gtf"`` or None (detect: by the name, else by
+    content; see :func:`seqstate.io.intervals.sniff_interval_format`).  ``types``
+    keeps only GFF3 or GTF features of those column-3 types (ignored for BED).
+    Regions are 0-based half-open, in file order.  Malformed lines raise
     :class:`~seqstate.errors.FeatureFormatError` with the file and line.
     """
     if fmt is not None and fmt not in REGION_FORMATS:
         raise UsageError(f"regions format {fmt!r} is not one of {', '.join(REGION_FORMATS)}")
-    shown = display_name(path)
-    if str(path) == "-":
-        data = _read_stdin_bytes(shown)
-        fmt = fmt or detect_region_format(data.splitlines(keepends=True)[:_SNIFF_LINES])
-        with _stdin_from(data):
-            regions = _parse("-", fmt, types)
-        return RegionFile(shown, fmt, regions)
-    fmt = fmt or _format_by_name(str(path)) or _sniff_file(str(path), shown)
-    return RegionFile(shown, fmt, _parse(str(path), fmt, types))
+    fmt, found = read_interval_file(path, fmt, types=types, what="BED or GFF3")
+    regions = [  # one region per interval; BED lines have no type, phase or attributes
+        InputRegion(
+            *(iv.seqid, iv.start0, iv.end0, iv.name or "", iv.strand, iv.line0),
+            *(iv.type, iv.phase, list(iv.attributes)),
+        )
+        for iv in found
+    ]
+    return RegionFile(display_name(path), fmt, regions)
 
 
 def check_regions(rf: RegionFile, lengths: dict[str, int], fasta_shown: str) -> None:
@@ -487,7 +389,7 @@ def write_scored_gff3(
     gff = GFF3Writer(handle)
     gff.header([(rec.id, len(rec.seq)) for rec in records if rec.id in used])
     for reg, sc in zip(rf.regions, scores):
-        if rf.format == "gff3":
+        if rf.format != "bed":
             attrs = [(k, v) for k, v in reg.attributes if k not in ours]
             ftype = reg.type or BED_FEATURE_TYPE
         else:

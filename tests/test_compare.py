@@ -28,7 +28,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from seqstate.cli import main
-from seqstate.compare import (
+from seqstate.commands.compare import (
     approximate_correlation,
     choose_type,
     compare_features,
@@ -513,6 +513,42 @@ def test_read_sequence_regions() -> None:
     # 1-based closed in the file, 0-based half-open returned (GFF3 1.26, from memory)
     assert read_sequence_regions(CDS_REF) == {"ctgA": (0, 100, 3)}
     assert read_sequence_regions(CDS_PRED) == {}
+
+
+def _as_gtf(src: Path, dest: Path) -> Path:
+    """The features of a GFF3 file as GTF 2.2 lines (columns 1-8 kept; column 9 as
+    ``key "value";`` pairs, GTF 2.2 specification, from memory)."""
+    out = []
+    for line in src.read_text().splitlines():
+        if line.startswith("#"):
+            continue
+        cols = line.split("\t")
+        ident = cols[8].split(";")[0].split("=")[1]
+        out.append("\t".join(cols[:8]) + f'\tgene_id "{ident}"; transcript_id "{ident}";')
+    dest.write_text("\n".join(out) + "\n")
+    return dest
+
+
+def test_gtf_files_compare_as_their_gff3_twins(tmp_path: Path) -> None:
+    want = compare_files(CDS_PRED, CDS_REF)
+    # by name ...
+    pred = _as_gtf(CDS_PRED, tmp_path / "pred.gtf")
+    got = compare_files(pred, CDS_REF)
+    assert got["inputs"]["predicted"] == str(pred)
+    got["inputs"] = want["inputs"]
+    assert got == want
+    # ... and by content; a GTF reference has no ##sequence-region line, so the
+    # length of ctgA must come from --region or the other file
+    ref = _as_gtf(CDS_REF, tmp_path / "ref.annotation")
+    with pytest.raises(FeatureFormatError, match="length of 'ctgA' is not known"):
+        compare_files(pred, ref)
+    got = compare_files(CDS_PRED, ref, region="ctgA:1-100")
+    want = compare_files(CDS_PRED, CDS_REF, region="ctgA:1-100")
+    got["inputs"] = want["inputs"]
+    assert got["sequences"] == [
+        {"seqid": "ctgA", "start_1based": 1, "end_1based": 100, "from": "region"}
+    ]
+    assert got == want
 
 
 # ---------------------------------------------------------------- CLI outputs

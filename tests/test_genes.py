@@ -20,7 +20,7 @@ from click.testing import CliRunner
 
 from seqstate import genes
 from seqstate.cli import main
-from seqstate.compare import compare_features
+from seqstate.commands.compare import compare_features
 from seqstate.engine import api
 from seqstate.errors import FeatureFormatError
 from seqstate.io.fasta import Record, read_fasta, write_fasta

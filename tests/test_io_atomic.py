@@ -15,7 +15,13 @@ import pytest
 
 from seqstate.errors import UsageError
 from seqstate.io import atomic
-from seqstate.io.atomic import OutputSet, atomic_text, check_outputs, recover_folder
+from seqstate.io.atomic import (
+    OutputSet,
+    atomic_folder,
+    atomic_text,
+    check_outputs,
+    recover_folder,
+)
 
 
 def listing(root: Path) -> list[str]:
@@ -347,3 +353,34 @@ def test_next_run_finishes_a_commit_whose_journal_was_written(tmp_path: Path) ->
     assert recover_folder(tmp_path) == [stage.name]
     assert _contents(tmp_path) == {"a.txt": "new a", "b.txt": "new b"}
     assert listing(tmp_path) == ["a.txt", "b.txt"]
+
+
+def test_atomic_folder_checks_the_staged_files_before_committing(tmp_path: Path) -> None:
+    out = tmp_path / "model"
+    seen: list[list[str]] = []
+
+    def check(stage: Path) -> None:
+        # every file is staged, nothing is in place yet
+        assert stage.parent == out and stage.name == f".seqstate-stage-{os.getpid()}"
+        seen.append(listing(stage))
+        assert (stage / "b.tsv").read_text() == "two\n"
+        assert listing(out) == [stage.name, f"{stage.name}/a.toml", f"{stage.name}/b.tsv"]
+
+    got = atomic_folder(out, [("a.toml", "one\n"), ("b.tsv", "two\n")], check=check)
+    assert got == out and seen == [["a.toml", "b.tsv"]]
+    assert listing(out) == ["a.toml", "b.tsv"]
+    # an existing output needs force; another file of the folder is never touched
+    (out / "notes.txt").write_text("mine\n")
+    with pytest.raises(UsageError, match="already exists"):
+        atomic_folder(out, [("a.toml", "new\n")])
+
+    def refuse(stage: Path) -> None:
+        raise RuntimeError("does not read back")
+
+    with pytest.raises(RuntimeError, match="does not read back"):
+        atomic_folder(out, [("a.toml", "new\n"), ("b.tsv", "new\n")], force=True, check=refuse)
+    # a failing check leaves every file as it was, and no staging folder
+    assert listing(out) == ["a.toml", "b.tsv", "notes.txt"]
+    assert (out / "a.toml").read_text() == "one\n"
+    atomic_folder(out, [("a.toml", "new\n")], force=True)
+    assert (out / "a.toml").read_text() == "new\n" and (out / "b.tsv").read_text() == "two\n"

@@ -28,13 +28,13 @@ from seqstate.engine import reference
 from seqstate.errors import UsageError
 from seqstate.io.fasta import Record
 from seqstate.io.gff3 import read_gff3
+from seqstate.io.intervals import detect_interval_format as detect_region_format
 from seqstate.io.tables import load_model, save_model
 from seqstate.model import State, make_model
 from seqstate.pipeline import read_records
 from seqstate.score import (
     InputRegion,
     choose_label,
-    detect_region_format,
     read_regions,
     score_regions,
 )

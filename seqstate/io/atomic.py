@@ -41,17 +41,18 @@ import os
 import re
 import shutil
 import signal
-from collections.abc import Iterable, Iterator
+from collections.abc import Callable, Iterable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
-from types import TracebackType
-from typing import TextIO
+from types import FrameType, TracebackType
+from typing import Literal, TextIO, TypeGuard
 
 from seqstate.errors import UsageError
 
 __all__ = [
     "STAGE_PREFIX",
     "OutputSet",
+    "atomic_folder",
     "atomic_text",
     "check_outputs",
     "recover_folder",
@@ -97,7 +98,7 @@ def same_file(a: str | os.PathLike, b: str | os.PathLike) -> bool:
     return _key(pa) == _key(pb)
 
 
-def _usable(path: str | os.PathLike | None) -> bool:
+def _usable(path: str | os.PathLike | None) -> TypeGuard[str | os.PathLike[str]]:
     return path is not None and str(path) != "-"
 
 
@@ -140,7 +141,7 @@ def write_failure(exc: OSError, what: str) -> UsageError | None:
     """The one-line error for an OSError that means ``what`` cannot be written, else None."""
     if exc.errno not in WRITE_ERRNOS:
         return None
-    reason = exc.strerror or os.strerror(exc.errno)
+    reason = exc.strerror or os.strerror(exc.errno or 0)  # errno is one of WRITE_ERRNOS
     return UsageError(f"{what} cannot be written: {reason}")
 
 
@@ -175,7 +176,7 @@ def held_signals() -> Iterator[None]:
     """
     pending: list[int] = []
 
-    def note(signum, frame):  # type: ignore[no-untyped-def]
+    def note(signum: int, frame: FrameType | None) -> None:
         pending.append(signum)
 
     saved = {}
@@ -415,7 +416,7 @@ class OutputSet:
         exc_type: type[BaseException] | None,
         exc: BaseException | None,
         tb: TracebackType | None,
-    ) -> bool:
+    ) -> Literal[False]:
         self._entered = False
         what = self._what()
         if exc_type is not None:
@@ -538,3 +539,30 @@ def atomic_text(
         raise UsageError(f"output file '{path}' is a directory, expected a file name")
     with OutputSet(force=force, inputs=inputs) as outputs:
         yield outputs.open_text(target)
+
+
+def atomic_folder(
+    folder: str | os.PathLike,
+    texts: Iterable[tuple[str, str]],
+    *,
+    force: bool = False,
+    inputs: Iterable[str | os.PathLike | None] = (),
+    check: Callable[[Path], None] | None = None,
+) -> Path:
+    """Write text files into ``folder`` all-or-nothing; returns the folder.
+
+    ``texts`` are ``(file name, text)`` pairs (plain names inside ``folder``,
+    which is created if absent).  ``check``, if given, is called with the
+    staging folder once every file is written there and before any is
+    committed, so it can read the files back; an exception from it leaves the
+    folder as it was.  The overwrite rule applies (``force``, ``inputs``); other
+    files of the folder are never touched.  See :class:`OutputSet`.
+    """
+    with OutputSet(folder, force=force, inputs=inputs) as outputs:
+        for name, text in texts:
+            with outputs.open_text(name) as handle:
+                handle.write(text)
+        if check is not None:
+            assert outputs.out_dir is not None
+            check(outputs._stage_of(outputs.out_dir))
+    return Path(folder)

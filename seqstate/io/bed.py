@@ -9,14 +9,15 @@ end, name, score, strand); further columns are ignored.
 from __future__ import annotations
 
 import re
+from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
+from typing import BinaryIO
 
 from seqstate.errors import FeatureFormatError
-from seqstate.io import files
-from seqstate.io.fasta import display_name, iter_lines, open_input
+from seqstate.io.files import display_name, open_input, text_lines
 
-__all__ = ["BedInterval", "read_bed"]
+__all__ = ["BedInterval", "parse_bed", "read_bed"]
 
 _INTEGER = re.compile(r"[+-]?[0-9]+")
 _BED_STRANDS = ("+", "-", ".")
@@ -62,7 +63,13 @@ def _coordinate(text: str, column: int, name: str, shown: str, line0: int) -> in
 
 
 def read_bed(path: str | Path) -> list[BedInterval]:
-    """Read a BED file (``"-"`` for standard input; plain or gzip).
+    """Read a BED file (``"-"`` for standard input; plain or gzip); see :func:`parse_bed`."""
+    with open_input(path, FeatureFormatError, "BED") as handle:
+        return list(parse_bed(handle, display_name(path)))
+
+
+def parse_bed(handle: BinaryIO, shown: str) -> Iterator[BedInterval]:
+    """The intervals of an open binary ``handle``, named ``shown`` in messages.
 
     Blank lines, ``#`` comments and ``track`` / ``browser`` lines are skipped.
     Fields are split on tabs when the line has a tab, otherwise on runs of
@@ -71,47 +78,39 @@ def read_bed(path: str | Path) -> list[BedInterval]:
     whole number, a negative position, start > end, or a strand other than
     '+', '-' or '.'.
     """
-    shown = display_name(path)
-    out: list[BedInterval] = []
-    with open_input(path, FeatureFormatError, "BED") as handle:
-        for line0, raw in iter_lines(handle, shown, FeatureFormatError):
-            try:
-                line = raw.decode("utf-8").rstrip("\r\n")
-            except UnicodeDecodeError:
-                raise FeatureFormatError(
-                    "line is not valid UTF-8 text", path=shown, line0=line0
-                ) from None
-            if "\r" in line:
-                raise FeatureFormatError(files.CR_ONLY, path=shown, line0=line0)
-            if _skip(line):
-                continue
-            fields = line.split("\t") if "\t" in line else line.split()
-            if len(fields) < 3:
-                raise FeatureFormatError(
-                    f"found {len(fields)} field{'s' if len(fields) != 1 else ''}, "
-                    "expected at least 3 (chrom, start, end)",
-                    path=shown,
-                    line0=line0,
-                )
-            seqid = fields[0].strip()
-            if not seqid:
-                raise FeatureFormatError("column 1 (chrom) is empty", path=shown, line0=line0)
-            start0 = _coordinate(fields[1].strip(), 2, "start", shown, line0)
-            end0 = _coordinate(fields[2].strip(), 3, "end", shown, line0)
-            if start0 > end0:
-                raise FeatureFormatError(
-                    f"start {start0} is greater than end {end0} "
-                    "(BED intervals are 0-based half-open with start <= end)",
-                    path=shown,
-                    line0=line0,
-                )
-            extra = [f.strip() for f in fields[3:6]] + [None, None, None]
-            strand = extra[2]
-            if strand is not None and strand not in _BED_STRANDS:
-                raise FeatureFormatError(
-                    f"column 6 (strand) {strand!r} is not one of + - .",
-                    path=shown,
-                    line0=line0,
-                )
-            out.append(BedInterval(seqid, start0, end0, extra[0], extra[1], strand, line0))
-    return out
+    for line0, line in text_lines(handle, shown, FeatureFormatError):
+        if _skip(line):
+            continue
+        yield _parse_line(line, shown, line0)
+
+
+def _parse_line(line: str, shown: str, line0: int) -> BedInterval:
+    fields = line.split("\t") if "\t" in line else line.split()
+    if len(fields) < 3:
+        raise FeatureFormatError(
+            f"found {len(fields)} field{'s' if len(fields) != 1 else ''}, "
+            "expected at least 3 (chrom, start, end)",
+            path=shown,
+            line0=line0,
+        )
+    seqid = fields[0].strip()
+    if not seqid:
+        raise FeatureFormatError("column 1 (chrom) is empty", path=shown, line0=line0)
+    start0 = _coordinate(fields[1].strip(), 2, "start", shown, line0)
+    end0 = _coordinate(fields[2].strip(), 3, "end", shown, line0)
+    if start0 > end0:
+        raise FeatureFormatError(
+            f"start {start0} is greater than end {end0} "
+            "(BED intervals are 0-based half-open with start <= end)",
+            path=shown,
+            line0=line0,
+        )
+    extra = [f.strip() for f in fields[3:6]] + [None, None, None]
+    strand = extra[2]
+    if strand is not None and strand not in _BED_STRANDS:
+        raise FeatureFormatError(
+            f"column 6 (strand) {strand!r} is not one of + - .",
+            path=shown,
+            line0=line0,
+        )
+    return BedInterval(seqid, start0, end0, extra[0], extra[1], strand, line0)

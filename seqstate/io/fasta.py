@@ -1,4 +1,4 @@
-"""FASTA input and output, plus the input opener the other readers share.
+"""FASTA input and output.
 
 A record's sequence is kept as the raw ASCII bytes of the file, case kept and
 every whitespace character removed.  Positions in messages are 1-based (the
@@ -14,29 +14,23 @@ does not repeat the ID.
 
 from __future__ import annotations
 
-import gzip
-import io
 import re
-import sys
-import zlib
 from collections.abc import Iterable, Iterator
-from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import BinaryIO, TextIO
 
-from seqstate.errors import SeqstateError, SequenceFormatError
+from seqstate.errors import SequenceFormatError
 from seqstate.io import files
+from seqstate.io.files import display_name, open_input
 
 __all__ = [
     "DNA_ALPHABET",
     "EMPTY_RECORD_CHOICES",
     "Record",
     "SkippedRecord",
-    "display_name",
     "iter_fasta",
-    "iter_lines",
-    "open_input",
+    "parse_fasta",
     "read_fasta",
     "write_fasta",
 ]
@@ -48,7 +42,6 @@ DNA_ALPHABET = "ACGTURYSWKMBDHVN-"
 
 _DNA_BYTES = (DNA_ALPHABET + DNA_ALPHABET.lower()).encode("ascii")
 _WHITESPACE = b" \t\r\n\v\f"
-_STDIN_NAME = "<stdin>"
 _SNIPPET = 40
 
 
@@ -65,149 +58,6 @@ class Record:
     id: str
     description: str
     seq: bytes
-
-
-# ---------------------------------------------------------------- input opener
-
-
-def display_name(path: str | Path) -> str:
-    """The name used for ``path`` in messages: ``<stdin>`` for ``"-"``."""
-    return _STDIN_NAME if str(path) == "-" else str(path)
-
-
-class _PrefixedReader(io.RawIOBase):
-    """A raw reader that returns ``prefix`` and then the rest of ``inner``."""
-
-    def __init__(self, prefix: bytes, inner: BinaryIO) -> None:
-        super().__init__()
-        self._prefix = prefix
-        self._inner = inner
-
-    def readable(self) -> bool:
-        return True
-
-    def readinto(self, buffer) -> int:  # type: ignore[no-untyped-def]
-        view = memoryview(buffer).cast("B")
-        if self._prefix:
-            n = min(len(view), len(self._prefix))
-            view[:n] = self._prefix[:n]
-            self._prefix = self._prefix[n:]
-            return n
-        read1 = getattr(self._inner, "read1", None)
-        data = read1(len(view)) if read1 is not None else self._inner.read(len(view))
-        n = len(data)
-        view[:n] = data
-        return n
-
-
-def _read_head(stream: BinaryIO, n: int) -> bytes:
-    """Up to ``n`` first bytes of ``stream`` (fewer only at the end of the data)."""
-    head = b""
-    while len(head) < n:
-        chunk = stream.read(n - len(head))
-        if not chunk:
-            break
-        head += chunk
-    return head
-
-
-@contextmanager
-def open_input(
-    path: str | Path,
-    error_cls: type[SeqstateError] = SequenceFormatError,
-    what: str = "FASTA",
-) -> Iterator[BinaryIO]:
-    """Open an input file for reading bytes, decompressing gzip transparently.
-
-    ``path`` is a file name or ``"-"`` for standard input.  Gzip is recognised
-    by its first two bytes (1f 8b), whatever the file name.  A UTF-8 byte-order
-    mark at the start of the (decompressed) text is dropped.  A missing or
-    unreadable file, another compression (bzip2, xz, zstd, zip, gzip inside
-    gzip) or a UTF-16/UTF-32 text raises ``error_cls`` naming the file and what
-    was found (:mod:`seqstate.io.files`); ``what`` names the expected format in
-    the message.  Shared by the FASTA, GFF3 and BED readers.
-    """
-    shown = display_name(path)
-    if str(path) == "-":
-        inner: BinaryIO = sys.stdin.buffer
-        close_inner = False
-    else:
-        try:
-            inner = open(path, "rb")
-        except FileNotFoundError:
-            raise error_cls("file not found", path=shown) from None
-        except IsADirectoryError:
-            raise error_cls(f"is a directory, expected a {what} file", path=shown) from None
-        except OSError as exc:
-            raise error_cls(f"cannot be read: {exc.strerror or exc}", path=shown) from None
-        close_inner = True
-    try:
-        try:
-            magic = _read_head(inner, files.SNIFF_BYTES)
-        except OSError as exc:
-            raise error_cls(f"cannot be read: {exc.strerror or exc}", path=shown) from None
-        kind = files.sniff(magic)
-        if kind is not None and kind != "gzip":
-            raise error_cls(files.unsupported_message(kind), path=shown)
-        if kind is None and magic.startswith(files.UTF8_BOM):
-            magic = magic[len(files.UTF8_BOM) :]
-        base: BinaryIO = io.BufferedReader(_PrefixedReader(magic, inner))  # type: ignore[arg-type]
-        if kind == "gzip":
-            handle: BinaryIO = gzip.GzipFile(fileobj=base, mode="rb")  # type: ignore[assignment]
-        else:
-            handle = base
-        try:
-            if kind == "gzip":
-                _check_inside_gzip(handle, shown, error_cls)
-            yield handle
-        finally:
-            handle.close()
-            base.close()
-    finally:
-        if close_inner:
-            inner.close()
-
-
-def _check_inside_gzip(handle: BinaryIO, shown: str, error_cls: type[SeqstateError]) -> None:
-    """Refuse a second compression inside gzip; drop a UTF-8 byte-order mark there."""
-    try:
-        head = handle.peek(files.SNIFF_BYTES)[: files.SNIFF_BYTES]  # type: ignore[attr-defined]
-    except (OSError, EOFError, zlib.error) as exc:
-        reason = getattr(exc, "strerror", None) or str(exc) or type(exc).__name__
-        raise error_cls(
-            f"cannot be read (corrupt or truncated file?): {reason}", path=shown
-        ) from None
-    kind = files.sniff(head)
-    if kind is not None:
-        raise error_cls(files.unsupported_message(kind, inside_gzip=True), path=shown)
-    if head.startswith(files.UTF8_BOM):
-        handle.read(len(files.UTF8_BOM))
-
-
-def iter_lines(
-    handle: BinaryIO, shown: str, error_cls: type[SeqstateError]
-) -> Iterator[tuple[int, bytes]]:
-    """Yield ``(line0, line)`` pairs (0-based line index, raw bytes with EOL).
-
-    A read failure (for example a truncated or corrupt gzip stream) raises
-    ``error_cls`` naming the file and the line reached.
-    """
-    line0 = -1
-    iterator = iter(handle)
-    while True:
-        try:
-            line = next(iterator)
-        except StopIteration:
-            return
-        except (OSError, EOFError, zlib.error) as exc:
-            reason = getattr(exc, "strerror", None) or str(exc) or type(exc).__name__
-            raise error_cls(
-                f"cannot be read (corrupt or truncated file?): {reason}",
-                path=shown,
-                line0=line0 + 1,
-            ) from None
-        line0 += 1
-        yield line0, line
 
 
 def _snippet(raw: bytes) -> str:
@@ -262,21 +112,52 @@ def iter_fasta(
     Errors are raised when the generator reaches them, so records before the
     problem may already have been yielded.
     """
+    shown = display_name(path)
+    _check_options(alphabet_check, empty_records)
+    with open_input(path, SequenceFormatError, "FASTA") as handle:
+        data = _read_all(handle, shown)
+    yield from _checked_records(data, shown, alphabet_check, empty_records, skipped)
+
+
+def parse_fasta(
+    handle: BinaryIO,
+    shown: str,
+    *,
+    alphabet_check: str | None = "dna",
+    empty_records: str = "error",
+    skipped: list[SkippedRecord] | None = None,
+) -> Iterator[Record]:
+    """The records of an open binary ``handle`` (decompressed bytes, e.g. from
+    :func:`~seqstate.io.files.open_input`), named ``shown`` in messages; same
+    checks and options as :func:`iter_fasta`."""
+    _check_options(alphabet_check, empty_records)
+    data = _read_all(handle, shown)
+    yield from _checked_records(data, shown, alphabet_check, empty_records, skipped)
+
+
+def _check_options(alphabet_check: str | None, empty_records: str) -> None:
     if alphabet_check not in ("dna", None):
         raise ValueError(f"alphabet_check must be 'dna' or None, not {alphabet_check!r}")
     if empty_records not in EMPTY_RECORD_CHOICES:
         raise ValueError(f"empty_records must be 'skip' or 'error', not {empty_records!r}")
+
+
+def _read_all(handle: BinaryIO, shown: str) -> bytes:
+    try:
+        return handle.read()
+    except files.READ_ERRORS as exc:
+        raise files.read_error(exc, shown, SequenceFormatError) from None
+
+
+def _checked_records(
+    data: bytes,
+    shown: str,
+    alphabet_check: str | None,
+    empty_records: str,
+    skipped: list[SkippedRecord] | None,
+) -> Iterator[Record]:
     check = alphabet_check == "dna"
-    shown = display_name(path)
     seen: dict[str, int] = {}
-    with open_input(path, SequenceFormatError, "FASTA") as handle:
-        try:
-            data = handle.read()
-        except (OSError, EOFError, zlib.error) as exc:
-            reason = getattr(exc, "strerror", None) or str(exc) or type(exc).__name__
-            raise SequenceFormatError(
-                f"cannot be read (corrupt or truncated file?): {reason}", path=shown
-            ) from None
     left_out: list[SkippedRecord] = []
     n = 0
     for record in _records_of(data, shown, check, seen):

@@ -20,21 +20,27 @@ import urllib.parse
 from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import TextIO
+from typing import BinaryIO, TextIO
 
 from seqstate.errors import FeatureFormatError
-from seqstate.io import files
-from seqstate.io.fasta import display_name, iter_lines, open_input
+from seqstate.io.files import display_name, iter_lines, open_input, text_lines
 
 __all__ = [
+    "GFF3_COLUMNS",
+    "GTF_COLUMNS",
     "STRANDS",
+    "Dialect",
     "Feature",
     "GFF3Writer",
     "escape_column",
     "escape_column9",
     "escape_seqid",
     "iter_gff3",
+    "parse_columns",
+    "parse_gff3",
+    "parse_sequence_regions",
     "read_gff3",
+    "read_sequence_regions",
     "unescape",
 ]
 
@@ -182,7 +188,7 @@ class GFF3Writer:
             if len(item) == 2:
                 seqid, start, end = item[0], 1, item[1]
             else:
-                seqid, start, end = item  # type: ignore[misc]
+                seqid, start, end = item
             if not 1 <= start <= end:
                 raise ValueError(
                     f"sequence region {seqid!r} {start}-{end} is not 1-based with 1 <= start <= end"
@@ -264,13 +270,15 @@ def _unescape_field(text: str, what: str, shown: str, line0: int) -> str:
         ) from None
 
 
-def _parse_position(text: str, column: int, name: str, shown: str, line0: int) -> int:
+def _parse_position(
+    text: str, column: int, name: str, shown: str, line0: int, fmt: str = "GFF3"
+) -> int:
     if not _WHOLE_NUMBER.fullmatch(text):
         raise _error(f"column {column} ({name}) {text!r} is not a whole number", shown, line0)
     value = int(text)
     if value < 1:
         raise _error(
-            f"column {column} ({name}) is {value}; GFF3 positions are 1-based, expected >= 1",
+            f"column {column} ({name}) is {value}; {fmt} positions are 1-based, expected >= 1",
             shown,
             line0,
         )
@@ -305,56 +313,86 @@ def _parse_attributes(text: str, shown: str, line0: int) -> list[tuple[str, str 
 def iter_gff3(path: str | Path, *, types: set[str] | None = None) -> Iterator[Feature]:
     """Yield the features of a GFF3 file, converted to 0-based half-open.
 
-    ``path`` is a file name or ``"-"``; plain or gzip.  Blank lines, comments
-    and directives are skipped; reading stops at ``##FASTA`` or at a line
-    starting with '>' (an implied ``##FASTA``, as the specification allows).
-    With ``types``, only features whose column 3 is in the set are returned.
-    Raises :class:`~seqstate.errors.FeatureFormatError` naming the file and
-    line for a wrong column count, a start or end that is not a whole number
-    >= 1, start > end, a bad score, strand or phase, or a column 9 piece
-    without '='.
+    ``path`` is a file name or ``"-"``; plain or gzip.  See :func:`parse_gff3`.
     """
-    shown = display_name(path)
     with open_input(path, FeatureFormatError, "GFF3") as handle:
-        for line0, raw in iter_lines(handle, shown, FeatureFormatError):
-            try:
-                line = raw.decode("utf-8")
-            except UnicodeDecodeError:
-                raise _error("line is not valid UTF-8 text", shown, line0) from None
-            line = line.rstrip("\r\n")
-            if "\r" in line:
-                raise _error(files.CR_ONLY, shown, line0)
-            if not line.strip():
-                continue
-            if line.startswith("##FASTA") or line.startswith(">"):
-                return
-            if line.startswith("#"):
-                continue
-            feature = _parse_line(line, shown, line0)
-            if types is None or feature.type in types:
-                yield feature
+        yield from parse_gff3(handle, display_name(path), types=types)
 
 
-def _parse_line(line: str, shown: str, line0: int) -> Feature:
-    cols = line.split("\t")
-    if len(cols) != 9:
-        hint = ""
-        if len(cols) < 9 and len(line.split()) >= 9:
-            hint = " (columns must be separated by tabs, not spaces)"
-        raise _error(f"found {len(cols)} tab-separated columns, expected 9{hint}", shown, line0)
-    seqid = _unescape_field(cols[0], "column 1 (seqid)", shown, line0)
+def parse_gff3(handle: BinaryIO, shown: str, *, types: set[str] | None = None) -> Iterator[Feature]:
+    """The features of an open binary ``handle``, named ``shown`` in messages.
+
+    Blank lines, comments and directives are skipped; reading stops at
+    ``##FASTA`` or at a line starting with '>' (an implied ``##FASTA``, as the
+    specification allows).  With ``types``, only features whose column 3 is in
+    the set are returned.  Raises :class:`~seqstate.errors.FeatureFormatError`
+    naming the file and line for a wrong column count, a start or end that is
+    not a whole number >= 1, start > end, a bad score, strand or phase, or a
+    column 9 piece without '='.
+    """
+    for line0, line in text_lines(handle, shown, FeatureFormatError):
+        if not line.strip():
+            continue
+        if line.startswith("##FASTA") or line.startswith(">"):
+            return
+        if line.startswith("#"):
+            continue
+        feature = _parse_line(line, shown, line0)
+        if types is None or feature.type in types:
+            yield feature
+
+
+@dataclass(frozen=True)
+class Dialect:
+    """How columns 1-8 of a GFF-like line are named and checked: GFF3, or GTF.
+
+    ``name`` is used in messages; ``seqid``, ``type`` and ``phase`` are what
+    columns 1, 3 and 8 are called; ``strands`` the values of column 7;
+    ``escaped`` whether %-escapes are decoded (GFF3) or the text kept (GTF).
+    """
+
+    name: str
+    seqid: str
+    type: str
+    phase: str
+    strands: tuple[str, ...]
+    escaped: bool
+
+
+#: GFF3 (Sequence Ontology specification 1.26) columns 1-8.
+GFF3_COLUMNS = Dialect("GFF3", "seqid", "type", "phase", STRANDS, True)
+#: GTF 2.2 columns 1-8: the same layout, named seqname, feature and frame; no '?'.
+GTF_COLUMNS = Dialect("GTF", "seqname", "feature", "frame", ("+", "-", "."), False)
+
+
+def parse_columns(
+    cols: Sequence[str], shown: str, line0: int, dialect: Dialect = GFF3_COLUMNS
+) -> tuple[str, str, str, int, int, float | None, str, int | None]:
+    """Columns 1-8 of a GFF3 or GTF line, checked: ``(seqid, source, type, start0,
+    end0, score, strand, phase)``, 0-based half-open.  Raises
+    :class:`~seqstate.errors.FeatureFormatError` naming the file and line."""
+    d = dialect
+
+    def text(i: int, name: str) -> str:
+        return (
+            _unescape_field(cols[i], f"column {i + 1} ({name})", shown, line0)
+            if d.escaped
+            else cols[i]
+        )
+
+    seqid = text(0, d.seqid)
     if not seqid or seqid == ".":
-        raise _error(f"column 1 (seqid) {cols[0]!r} is empty", shown, line0)
-    source = _unescape_field(cols[1], "column 2 (source)", shown, line0)
-    ftype = _unescape_field(cols[2], "column 3 (type)", shown, line0)
+        raise _error(f"column 1 ({d.seqid}) {cols[0]!r} is empty", shown, line0)
+    source = text(1, "source")
+    ftype = text(2, d.type)
     if not ftype or ftype == ".":
-        raise _error(f"column 3 (type) {cols[2]!r} is empty", shown, line0)
-    start = _parse_position(cols[3], 4, "start", shown, line0)
-    end = _parse_position(cols[4], 5, "end", shown, line0)
+        raise _error(f"column 3 ({d.type}) {cols[2]!r} is empty", shown, line0)
+    start = _parse_position(cols[3], 4, "start", shown, line0, d.name)
+    end = _parse_position(cols[4], 5, "end", shown, line0, d.name)
     if start > end:
         raise _error(
             f"start {start} is greater than end {end} "
-            "(GFF3 positions are 1-based inclusive with start <= end)",
+            f"({d.name} positions are 1-based inclusive with start <= end)",
             shown,
             line0,
         )
@@ -367,19 +405,32 @@ def _parse_line(line: str, shown: str, line0: int) -> Feature:
         if not math.isfinite(score):
             raise _error(f"column 6 (score) {cols[5]!r} is not a number or '.'", shown, line0)
     strand = cols[6]
-    if strand not in STRANDS:
-        raise _error(f"column 7 (strand) {strand!r} is not one of + - . ?", shown, line0)
+    if strand not in d.strands:
+        raise _error(
+            f"column 7 (strand) {strand!r} is not one of {' '.join(d.strands)}", shown, line0
+        )
     if cols[7] == ".":
         phase = None
     elif cols[7] in _PHASES:
         phase = _PHASES[cols[7]]
     else:
-        raise _error(f"column 8 (phase) {cols[7]!r} is not one of 0 1 2 .", shown, line0)
+        raise _error(f"column 8 ({d.phase}) {cols[7]!r} is not one of 0 1 2 .", shown, line0)
+    return seqid, source, ftype, start - 1, end, score, strand, phase
+
+
+def _parse_line(line: str, shown: str, line0: int) -> Feature:
+    cols = line.split("\t")
+    if len(cols) != 9:
+        hint = ""
+        if len(cols) < 9 and len(line.split()) >= 9:
+            hint = " (columns must be separated by tabs, not spaces)"
+        raise _error(f"found {len(cols)} tab-separated columns, expected 9{hint}", shown, line0)
+    seqid, source, ftype, start, end, score, strand, phase = parse_columns(cols, shown, line0)
     return Feature(
         seqid=seqid,
         source=source,
         type=ftype,
-        start0=start - 1,
+        start0=start,
         end0=end,
         score=score,
         strand=strand,
@@ -392,3 +443,62 @@ def _parse_line(line: str, shown: str, line0: int) -> Feature:
 def read_gff3(path: str | Path, *, types: set[str] | None = None) -> list[Feature]:
     """Read every feature of a GFF3 file; see :func:`iter_gff3`."""
     return list(iter_gff3(path, types=types))
+
+
+# ---------------------------------------------------------------- directives
+
+
+def read_sequence_regions(path: str | Path) -> dict[str, tuple[int, int, int]]:
+    """The ``##sequence-region`` lines of a GFF3 file; see :func:`parse_sequence_regions`."""
+    with open_input(path, FeatureFormatError, "GFF3") as handle:
+        return parse_sequence_regions(handle, display_name(path))
+
+
+def parse_sequence_regions(handle: BinaryIO, shown: str) -> dict[str, tuple[int, int, int]]:
+    """The ``##sequence-region seqid start end`` lines of an open GFF3 ``handle``.
+
+    Returns ``{seqid: (start0, end0, line0)}`` (0-based half-open; ``line0``
+    the 0-based line), in file order.  Reading stops at ``##FASTA`` or a line
+    starting with '>'.  Raises :class:`~seqstate.errors.FeatureFormatError`
+    naming the file (``shown``) and line for a malformed line or a seqid given
+    twice with different bounds.
+    """
+    out: dict[str, tuple[int, int, int]] = {}
+    for line0, raw in iter_lines(handle, shown, FeatureFormatError):
+        if raw.startswith(b"##FASTA") or raw.startswith(b">"):
+            break
+        if not raw.startswith(b"##sequence-region"):
+            continue
+        text = raw.decode("utf-8", errors="replace")
+        fields = text.split()
+        numbers = fields[2:4] if len(fields) == 4 else []
+        if (
+            fields[0] != "##sequence-region"
+            or not all(n.isdigit() for n in numbers)
+            or (len(numbers) != 2 or not 1 <= int(numbers[0]) <= int(numbers[1]))
+        ):
+            raise FeatureFormatError(
+                f"{text.strip()!r}: expected '##sequence-region SEQID START END' with "
+                "1-based START <= END",
+                path=shown,
+                line0=line0,
+            )
+        try:
+            seqid = unescape(fields[1])
+        except UnicodeDecodeError:
+            raise FeatureFormatError(
+                f"seqid {fields[1]!r} has %-escapes that do not decode as UTF-8",
+                path=shown,
+                line0=line0,
+            ) from None
+        bounds = (int(numbers[0]) - 1, int(numbers[1]))
+        if seqid in out and out[seqid][:2] != bounds:
+            first = out[seqid]
+            raise FeatureFormatError(
+                f"##sequence-region {seqid} {bounds[0] + 1} {bounds[1]} differs from "
+                f"line {first[2] + 1} ({first[0] + 1} {first[1]})",
+                path=shown,
+                line0=line0,
+            )
+        out.setdefault(seqid, (*bounds, line0))
+    return out

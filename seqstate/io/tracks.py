@@ -23,7 +23,7 @@ import os
 import shutil
 from collections.abc import Iterable
 from pathlib import Path
-from typing import TextIO
+from typing import Any, TextIO
 
 import numpy as np
 
@@ -223,7 +223,7 @@ def require_bigwig() -> None:
     _import_pybigwig()
 
 
-def _import_pybigwig():  # type: ignore[no-untyped-def]
+def _import_pybigwig() -> Any:
     try:
         import pyBigWig
     except ImportError:

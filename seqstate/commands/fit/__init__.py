@@ -64,7 +64,6 @@ from seqstate.commands.fit.estimation import (
 from seqstate.commands.fit.labels import (
     LabelFeature,
     LabelTrack,
-    detect_label_format,
     group_features,
     label_groups,
     paint_labels,
@@ -112,7 +111,6 @@ __all__ = [
     "check_model_folder",
     "count_path",
     "default_state_rule",
-    "detect_label_format",
     "em_step",
     "estimate",
     "expected_counts",

@@ -49,23 +49,6 @@ class LabelFeature:
     line0: int | None
 
 
-def detect_label_format(path: str | Path) -> str:
-    """``"gff3"`` or ``"bed"`` from the file name (``.gff3``/``.gff``/``.bed``, optionally
-    ``.gz``), else from the content (a ``##gff-version`` line means GFF3)."""
-    name = Path(path).name.lower()
-    if name.endswith(".gz"):
-        name = name[:-3]
-    if name.endswith((".gff3", ".gff")):
-        return "gff3"
-    if name.endswith(".bed"):
-        return "bed"
-    from seqstate.io.fasta import open_input
-
-    with open_input(path, FeatureFormatError, "GFF3 or BED") as handle:
-        head = handle.read(4096)
-    return "gff3" if head.lstrip().startswith(b"##gff-version") else "bed"
-
-
 def read_labels(path: str | Path, model: Model, fmt: str = "auto") -> list[LabelFeature]:
     """The features of a GFF3 (1-based closed) or BED (0-based half-open) file.
 
@@ -74,13 +57,13 @@ def read_labels(path: str | Path, model: Model, fmt: str = "auto") -> list[Label
     when it has exactly one.  Empty BED intervals (start = end) cover nothing
     and are dropped.  Raises :class:`FeatureFormatError` naming the line.
     """
-    from seqstate.io.bed import read_bed
-    from seqstate.io.fasta import display_name
-    from seqstate.io.gff3 import iter_gff3
+    from seqstate.io.files import display_name
+    from seqstate.io.intervals import read_interval_file
 
     shown = display_name(path)
-    if fmt == "auto":
-        fmt = detect_label_format(path)
+    if fmt not in ("auto", "gff3", "gtf", "bed"):
+        raise UsageError(f"labels format '{fmt}' is not gff3, gtf, bed or auto")
+    _, found = read_interval_file(path, None if fmt == "auto" else fmt, what="GFF3 or BED")
     labels = model.labels
     known = ", ".join(f"'{x}'" for x in labels) or "none"
     out: list[LabelFeature] = []
@@ -93,30 +76,27 @@ def read_labels(path: str | Path, model: Model, fmt: str = "auto") -> list[Label
                 line0=line0,
             )
 
-    if fmt == "gff3":
-        for f in iter_gff3(path):
-            check(f.type, f.line0, "feature type")
-            strand = f.strand if f.strand in ("+", "-") else None
-            out.append(LabelFeature(f.seqid, f.start0, f.end0, f.type, strand, f.phase, f.line0))
-    elif fmt == "bed":
-        for b in read_bed(path):
-            name = None if b.name in (None, "", ".") else b.name
-            if name is None:
-                if len(labels) != 1:
-                    raise FeatureFormatError(
-                        f"BED line has no name (column 4) and model '{model.name}' has "
-                        f"{len(labels)} labels ({known}): name the label of every line",
-                        path=shown,
-                        line0=b.line0,
-                    )
-                name = labels[0]
-            check(name, b.line0, "BED name")
-            if b.end0 == b.start0:
-                continue
+    for b in found:
+        if b.type is not None:  # GFF3 or GTF: the type is the label
+            check(b.type, b.line0, "feature type")
             strand = b.strand if b.strand in ("+", "-") else None
-            out.append(LabelFeature(b.seqid, b.start0, b.end0, name, strand, None, b.line0))
-    else:
-        raise UsageError(f"labels format '{fmt}' is not gff3, bed or auto")
+            out.append(LabelFeature(b.seqid, b.start0, b.end0, b.type, strand, b.phase, b.line0))
+            continue
+        name = None if b.name in (None, "", ".") else b.name
+        if name is None:
+            if len(labels) != 1:
+                raise FeatureFormatError(
+                    f"BED line has no name (column 4) and model '{model.name}' has "
+                    f"{len(labels)} labels ({known}): name the label of every line",
+                    path=shown,
+                    line0=b.line0,
+                )
+            name = labels[0]
+        check(name, b.line0, "BED name")
+        if b.end0 == b.start0:
+            continue
+        strand = b.strand if b.strand in ("+", "-") else None
+        out.append(LabelFeature(b.seqid, b.start0, b.end0, name, strand, None, b.line0))
     return out
 
 

@@ -16,7 +16,7 @@ from typing import TYPE_CHECKING, Any
 from seqstate import __version__
 from seqstate.commands.fit.estimation import replace_tables
 from seqstate.errors import ModelFormatError, UsageError
-from seqstate.io.atomic import OutputSet, check_outputs
+from seqstate.io.atomic import atomic_folder, check_outputs
 from seqstate.io.tables import MANIFEST, TABLE_FILES, load_model, model_sha256, render_tables
 from seqstate.model import Model, validate
 
@@ -74,17 +74,12 @@ def write_model_folder(
     """
     out = Path(out)
     check_model_folder(out, force, inputs)
-    with OutputSet(out, force=force, inputs=inputs) as outs:
-        stage: Path | None = None
-        for name, text in render_tables(model):
-            with outs.open_text(name) as fh:
-                fh.write(text)
-                stage = Path(fh.name).parent
-        assert stage is not None  # render_tables gives at least the manifest
-        back = load_model(stage)
-        if not back.equals(model):
+
+    def reads_back(stage: Path) -> None:
+        if not load_model(stage).equals(model):
             raise RuntimeError("the written model does not read back identically")
-    return out
+
+    return atomic_folder(out, render_tables(model), force=force, inputs=inputs, check=reads_back)
 
 
 def provenance(opts: FitOptions, run: FitRun) -> dict[str, Any]:

@@ -1,0 +1,336 @@
+"""One reader for interval files: BED, GFF3 and GTF, into one record type.
+
+Every :class:`Interval` is 0-based half-open whatever the file's convention:
+BED columns 2 and 3 are kept as written (0-based half-open); GFF3 and GTF
+columns 4 and 5 (1-based closed) are read as ``start - 1`` and ``end``.
+
+GTF is read as the GTF 2.2 specification describes it: nine tab-separated
+columns ``seqname source feature start end score strand frame attributes``,
+where the attributes are ``key "value";`` pairs separated by ``;`` (a value
+may also be written without quotes, such as a number), and a ``#`` outside a
+quoted value starts a comment that runs to the end of the line.  Column 8 (the
+frame) takes the place of GFF3's phase.  The attributes ``gene_id`` and
+``transcript_id`` that the specification asks for are not required here (a
+``gene`` line of common annotation files has no ``transcript_id``).
+
+Formats are told apart by :func:`sniff_interval_format`: by the file name, else
+by the first lines of the content.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import BinaryIO
+
+from seqstate.errors import FeatureFormatError, UsageError
+from seqstate.io.bed import parse_bed
+from seqstate.io.files import display_name, open_input, peek_lines, text_lines
+from seqstate.io.gff3 import GTF_COLUMNS, STRANDS, parse_columns, parse_gff3
+
+__all__ = [
+    "FORMAT_NAMES",
+    "INTERVAL_FORMATS",
+    "SNIFF_LINES",
+    "Interval",
+    "detect_interval_format",
+    "format_by_name",
+    "parse_gtf",
+    "parse_gtf_attributes",
+    "read_interval_file",
+    "read_intervals",
+    "sniff_file",
+    "sniff_interval_format",
+]
+
+#: The interval formats read, by the name used for them in options and messages.
+INTERVAL_FORMATS = ("bed", "gff3", "gtf")
+#: How each format is named in messages.
+FORMAT_NAMES = {"bed": "BED", "gff3": "GFF3", "gtf": "GTF"}
+#: At most this many first lines are read to tell the format from the content.
+SNIFF_LINES = 1000
+
+_NAME_ENDINGS = ((".bed", "bed"), (".gff3", "gff3"), (".gff", "gff3"), (".gtf", "gtf"))
+#: A GTF attribute column starts ``key "value"`` or ``key value;`` (no '=').
+_GTF_START = re.compile(r'\s*[A-Za-z_][A-Za-z0-9_.\-]*\s+("|[^\s=;"]+\s*(;|$))')
+
+
+@dataclass(frozen=True)
+class Interval:
+    """One interval of a BED, GFF3 or GTF file: bases ``start0 .. end0 - 1`` of ``seqid``.
+
+    ``strand`` is '+', '-', '.' or '?' (GFF3 only); a BED line without column 6
+    has '.'.  ``type`` is column 3 of GFF3 and GTF (None for BED).  ``name`` is
+    BED column 4 as written, the GFF3 ``ID`` (else ``Name``) attribute, or the
+    GTF ``transcript_id`` (else ``gene_id``); None when there is none.
+    ``phase`` is the GFF3 phase or GTF frame (0, 1, 2) or None.  ``attributes``
+    are the GFF3 or GTF attributes in file order, ``(key, value)`` with a value
+    that is a string or (GFF3, a tag with several values) a list of strings.
+    ``line0`` is the 0-based line of the file, ``source`` column 2 (None for BED).
+    """
+
+    seqid: str
+    start0: int
+    end0: int
+    strand: str
+    type: str | None
+    name: str | None
+    phase: int | None
+    line0: int
+    attributes: list[tuple[str, str | list[str]]] = field(default_factory=list)
+    source: str | None = None
+
+    def get(self, key: str) -> str | None:
+        """The first value of attribute ``key``, or None when it is absent."""
+        for k, value in self.attributes:
+            if k == key:
+                return value if isinstance(value, str) else value[0]
+        return None
+
+
+# ---------------------------------------------------------------- telling the format
+
+
+def format_by_name(path: str | os.PathLike[str]) -> str | None:
+    """``bed``, ``gff3`` or ``gtf`` from a name ending ``.bed``, ``.gff3``, ``.gff`` or
+    ``.gtf``, optionally followed by ``.gz`` or ``.bgz`` (any case); else None."""
+    name = Path(str(path)).name.lower()
+    name = re.sub(r"\.(gz|bgz)$", "", name)
+    for ending, fmt in _NAME_ENDINGS:
+        if name.endswith(ending):
+            return fmt
+    return None
+
+
+def _looks_gtf(attributes: str) -> bool:
+    return "=" not in attributes.split('"', 1)[0] and _GTF_START.match(attributes) is not None
+
+
+def detect_interval_format(lines: Sequence[bytes]) -> str:
+    """``gff3``, ``gtf`` or ``bed`` from the first lines of a file (decompressed bytes).
+
+    A ``##gff-version 2`` line means GTF, any other ``##gff-version`` line GFF3.
+    Otherwise the first line that is neither blank nor a ``#`` comment decides:
+    nine (GTF: also ten, the last a ``#`` comment) tab-separated columns whose
+    4th and 5th are whole numbers, 7th a strand and 8th a phase mean GTF when
+    column 9 reads ``key "value"`` (or ``key value;``, without '='), else GFF3.
+    Anything else (``track``/``browser`` lines, BED columns, an empty file) is BED.
+    """
+    for raw in lines:
+        line = raw.decode("utf-8", errors="replace").rstrip("\r\n")
+        if not line.strip():
+            continue
+        if line.startswith("##gff-version"):
+            version = line[len("##gff-version") :].strip()
+            return "gtf" if version.split(".")[0] == "2" else "gff3"
+        if line.startswith("#"):
+            continue
+        cols = line.split("\t")
+        if (
+            len(cols) in (9, 10)
+            and cols[3].isdigit()
+            and cols[4].isdigit()
+            and cols[6] in STRANDS
+            and cols[7] in ("0", "1", "2", ".")
+        ):
+            if _looks_gtf(cols[8]):
+                return "gtf"
+            if len(cols) == 9:
+                return "gff3"
+        return "bed"
+    return "bed"
+
+
+def sniff_interval_format(name: str | Path | None, first_lines: Sequence[bytes]) -> str:
+    """The format of an interval file: by ``name`` (:func:`format_by_name`, not for
+    standard input ``-`` or None), else by its ``first_lines``
+    (:func:`detect_interval_format`)."""
+    by_name = format_by_name(name) if name is not None and str(name) != "-" else None
+    return by_name or detect_interval_format(first_lines)
+
+
+def sniff_file(path: str | os.PathLike[str], what: str = "BED, GFF3 or GTF") -> str:
+    """The format of the file ``path``: by its name, else by its first lines (the
+    file is opened for them).  ``what`` names the expected formats in the message
+    for a file that cannot be opened.  Not for standard input, which is read once
+    by :func:`read_interval_file`."""
+    by_name = format_by_name(path)
+    if by_name is not None:
+        return by_name
+    shown = display_name(path)
+    with open_input(path, FeatureFormatError, what) as handle:
+        head, _ = peek_lines(handle, shown, FeatureFormatError, most=SNIFF_LINES)
+    return detect_interval_format(head)
+
+
+# ---------------------------------------------------------------- reading
+
+
+def read_intervals(
+    handle: BinaryIO, fmt: str, shown: str, *, types: set[str] | None = None
+) -> Iterator[Interval]:
+    """The intervals of an open binary ``handle`` in format ``fmt``, in file order.
+
+    ``shown`` names the file in messages.  ``types`` keeps only GFF3 and GTF
+    features of those column-3 types (ignored for BED).  Malformed lines raise
+    :class:`~seqstate.errors.FeatureFormatError` naming the file and line
+    (:func:`~seqstate.io.bed.parse_bed`, :func:`~seqstate.io.gff3.parse_gff3`,
+    :func:`parse_gtf`).
+    """
+    if fmt == "bed":
+        for b in parse_bed(handle, shown):
+            yield Interval(b.seqid, b.start0, b.end0, b.strand or ".", None, b.name, None, b.line0)
+    elif fmt == "gff3":
+        for f in parse_gff3(handle, shown, types=types):
+            yield Interval(
+                f.seqid,
+                f.start0,
+                f.end0,
+                f.strand,
+                f.type,
+                f.get("ID") or f.get("Name"),
+                f.phase,
+                f.line0 if f.line0 is not None else -1,
+                list(f.attributes),
+                f.source,
+            )
+    elif fmt == "gtf":
+        yield from parse_gtf(handle, shown, types=types)
+    else:
+        raise UsageError(f"interval format {fmt!r} is not one of {', '.join(INTERVAL_FORMATS)}")
+
+
+def read_interval_file(
+    path: str | os.PathLike[str],
+    fmt: str | None = None,
+    *,
+    types: set[str] | None = None,
+    what: str = "BED, GFF3 or GTF",
+) -> tuple[str, list[Interval]]:
+    """Read a BED, GFF3 or GTF file (plain or gzip; ``"-"`` for standard input).
+
+    ``fmt`` is ``bed``, ``gff3``, ``gtf`` or None (told by the name, else by the
+    first lines: :func:`sniff_interval_format`; standard input is read once).
+    ``what`` names the expected formats in the message for a file that cannot
+    be opened when the name does not tell the format.  Returns the format read
+    and the intervals (see :func:`read_intervals`).
+    """
+    if fmt is not None and fmt not in INTERVAL_FORMATS:
+        raise UsageError(f"interval format {fmt!r} is not one of {', '.join(INTERVAL_FORMATS)}")
+    shown = display_name(path)
+    known = fmt or (format_by_name(path) if str(path) != "-" else None)
+    with open_input(path, FeatureFormatError, FORMAT_NAMES[known] if known else what) as handle:
+        if known is None:
+            head, handle = peek_lines(handle, shown, FeatureFormatError, most=SNIFF_LINES)
+            known = detect_interval_format(head)
+        return known, list(read_intervals(handle, known, shown, types=types))
+
+
+# ---------------------------------------------------------------- GTF
+
+
+def _error(message: str, shown: str, line0: int) -> FeatureFormatError:
+    return FeatureFormatError(message, path=shown, line0=line0)
+
+
+def _split_comment(text: str) -> str:
+    """``text`` up to a ``#`` that is outside double quotes (a GTF comment)."""
+    quoted = False
+    for i, ch in enumerate(text):
+        if ch == '"':
+            quoted = not quoted
+        elif ch == "#" and not quoted:
+            return text[:i]
+    return text
+
+
+def parse_gtf_attributes(text: str, shown: str = "", line0: int = 0) -> list[tuple[str, str]]:
+    """The ``key "value";`` pairs of a GTF column 9, in order; a key given twice
+    (``tag "a"; tag "b";``) gives two pairs.  Quotes are removed from a quoted
+    value; an unquoted value (``exon_number 2;``) is kept as written.  Raises
+    :class:`~seqstate.errors.FeatureFormatError` for a pair without a value or
+    with an unclosed quote."""
+    out: list[tuple[str, str]] = []
+    rest = text.strip()
+    if rest == ".":
+        return out
+    while rest:
+        if rest.startswith(";"):
+            rest = rest[1:].lstrip()
+            continue
+        parts = rest.split(None, 1)
+        key = parts[0]
+        after = parts[1].lstrip() if len(parts) > 1 else ""
+        if key.endswith(";") or not after or after.startswith(";"):
+            raise _error(
+                f'column 9 attribute {key.rstrip(";")!r} has no value (expected key "value";)',
+                shown,
+                line0,
+            )
+        if after.startswith('"'):
+            close = after.find('"', 1)
+            if close < 0:
+                raise _error(
+                    f"column 9 attribute {key!r} has a value with no closing '\"'", shown, line0
+                )
+            value = after[1:close]
+            rest = after[close + 1 :].lstrip()
+        else:
+            value, _, rest = after.partition(";")
+            value = value.strip()
+            rest = ";" + rest
+            if " " in value:
+                raise _error(
+                    f"column 9 attribute {key!r} value {value!r} has spaces but no quotes "
+                    '(expected key "value";)',
+                    shown,
+                    line0,
+                )
+        if rest and not rest.startswith(";"):
+            raise _error(
+                f"column 9 attribute {key!r} is not followed by ';' (expected key \"value\";)",
+                shown,
+                line0,
+            )
+        out.append((key, value))
+    return out
+
+
+def _gtf_line(line: str, shown: str, line0: int) -> Interval:
+    cols = line.split("\t")
+    if len(cols) == 10 and cols[9].lstrip().startswith("#"):
+        cols = cols[:9]
+    if len(cols) not in (8, 9):
+        hint = ""
+        if len(cols) < 8 and len(line.split()) >= 8:
+            hint = " (columns must be separated by tabs, not spaces)"
+        raise _error(f"found {len(cols)} tab-separated columns, expected 9{hint}", shown, line0)
+    seqid, source, ftype, start0, end0, _, strand, phase = parse_columns(
+        cols, shown, line0, GTF_COLUMNS
+    )
+    pairs = parse_gtf_attributes(_split_comment(cols[8]), shown, line0) if len(cols) == 9 else []
+    attributes: list[tuple[str, str | list[str]]] = list(pairs)
+    values = dict(reversed(pairs))  # the first value of each key
+    name = values.get("transcript_id") or values.get("gene_id")
+    return Interval(seqid, start0, end0, strand, ftype, name, phase, line0, attributes, source)
+
+
+def parse_gtf(handle: BinaryIO, shown: str, *, types: set[str] | None = None) -> Iterator[Interval]:
+    """The features of an open GTF ``handle``, 0-based half-open, in file order.
+
+    Blank lines and lines starting with ``#`` are skipped.  With ``types``,
+    only features whose column 3 is in the set are returned.  Raises
+    :class:`~seqstate.errors.FeatureFormatError` naming the file (``shown``)
+    and line for a wrong column count, a start or end that is not a whole
+    number >= 1, start > end, a bad score, strand or frame, or a malformed
+    attribute.
+    """
+    for line0, line in text_lines(handle, shown, FeatureFormatError):
+        if not line.strip() or line.startswith("#"):
+            continue
+        interval = _gtf_line(line, shown, line0)
+        if types is None or interval.type in types:
+            yield interval
