@@ -87,13 +87,17 @@ def test_duplicate_record_ids(tmp_path, out):
 
 @pytest.mark.parametrize("char", ["X", "*", ".", "1", "é"])
 def test_character_that_is_not_a_nucleotide(tmp_path, out, char):
-    # IUPAC nucleotide codes (Cornish-Bowden 1985, Nucleic Acids Res. 13:3021, from memory): ACGTU,
-    # RYSWKMBDHVN, and '-' as gap; anything else is not a base.  12th base of record b.
+    # IUPAC nucleotide codes (Cornish-Bowden 1985, Nucleic Acids Res. 13:3021; the letters
+    # checked against Biopython 1.88 Bio.Data.IUPACData.ambiguous_dna_letters
+    # "GATCRYWSMKHBVDN", plus U for RNA): ACGTU, RYSWKMBDHVN, and '-' as gap (common
+    # practice); anything else is not a base.  12th base of record b.
     f = write(tmp_path / "bad.fa", f">a\nACGT\n>b\nACGTACGT\nACG{char}AC\n")
     line = check_error(
         ["annotate", f, "-o", out], 1, out, str(f), "line 5", "record 'b'", "position 12"
     )
-    assert repr(char) in line or f"0x{char.encode('utf-8')[0]:02X}" in line, line
+    # a printable ASCII character is quoted, any other byte is named in hex
+    want = repr(char) if char.isascii() else f"byte 0x{char.encode('utf-8')[0]:02X}"
+    assert f"character {want} at position 12" in line, line
 
 
 def test_record_impossible_under_the_model_leaves_no_partial_output(tmp_path):

@@ -9,7 +9,8 @@ Sources of the expected values:
   exons (WE) by no overlap at all;
 * the island rule of the issue (a match shares at least half the shorter
   feature), common practice for interval features;
-* GFF3 coordinates, 1-based closed (GFF3 specification 1.26, from memory).
+* GFF3 coordinates, 1-based closed (GFF3 specification, The-Sequence-Ontology/
+  Specifications gff3.md: "positive 1-based integer coordinates", start <= end).
 
 Every count below is worked out by hand in the comments beside the assertion;
 the inputs in tests/data/compare are hand-made and synthetic.
@@ -510,7 +511,8 @@ def test_default_type_prefers_cds_then_the_only_shared_type() -> None:
 
 
 def test_read_sequence_regions() -> None:
-    # 1-based closed in the file, 0-based half-open returned (GFF3 1.26, from memory)
+    # 1-based closed in the file (GFF3 specification gff3.md: ##sequence-region seqid
+    # start end, 1-based), 0-based half-open returned
     assert read_sequence_regions(CDS_REF) == {"ctgA": (0, 100, 3)}
     assert read_sequence_regions(CDS_PRED) == {}
 

@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from helpers import kernel_family, random_model, random_rows, sample_record
 
 from seqstate.engine import api, kernels, reference, small, sparse
 from seqstate.engine.buffers import work_buffer
@@ -33,103 +34,38 @@ BLOCKS = (1, 2, 7, None)  # None: one block holding the whole record
 
 
 # ----------------------------------------------------------------- random cases
-def _rows(rng, shape, p_zero):
-    x = rng.uniform(0.05, 1.0, size=shape)
-    if p_zero > 0:
-        x = np.where(rng.random(shape) < p_zero, 0.0, x)
-        flat = x.reshape(-1, shape[-1])
-        for row in flat:
-            if not (row > 0).any():
-                row[rng.integers(shape[-1])] = rng.uniform(0.05, 1.0)
-    return x / x.sum(axis=-1, keepdims=True)
-
-
-def _narrow_emissions(rng, m, order):
-    """Emission tables in which every symbol (in every context) has at most two emitters.
-
-    Needs m <= 8 (4 symbols x 2 emitters); every state emits at least one symbol.
-    """
-    a = len(ALPHABET)
-    e = np.zeros((m, a**order, a))
-    for c in range(a**order):
-        count = np.zeros(a, dtype=int)
-        for s in rng.permutation(m):
-            x = rng.choice(np.flatnonzero(count < 2))
-            e[s, c, x] = rng.uniform(0.05, 1.0)
-            count[x] += 1
-        for s in range(m):  # a second symbol now and then, where there is room
-            free = np.flatnonzero((count < 2) & (e[s, c] == 0))
-            if free.size and rng.random() < 0.5:
-                x = rng.choice(free)
-                e[s, c, x] = rng.uniform(0.05, 1.0)
-                count[x] += 1
-    return e / e.sum(axis=-1, keepdims=True)
-
-
 def _model(seed, m, order, with_end, p_forbid, narrow):
-    rng = np.random.default_rng(seed)
-    trans = _rows(rng, (m, m), p_forbid)
-    if with_end:
-        end = rng.uniform(0.01, 0.2, size=m)
-        trans = trans * (1.0 - end)[:, None]
-    else:
-        end = None
-    if narrow:
-        emissions = _narrow_emissions(rng, m, order)
-    else:
-        emissions = _rows(rng, (m, len(ALPHABET) ** order, len(ALPHABET)), 0.0)
-    states = [State(f"s{i}", "L" if i % 2 == 0 else None) for i in range(m)]
-    return make_model(
-        name="random",
-        alphabet=ALPHABET,
-        states=states,
-        start=_rows(rng, (m,), 0.0),
-        transitions=trans,
-        emissions=emissions,
-        end=end,
+    """A random model (tests/helpers.py); ``narrow``: every symbol, in each context, has
+    at most two emitters (the emitting states drawn anew per context)."""
+    return random_model(
+        np.random.default_rng(seed),
+        n_states=m,
         order=order,
+        with_end=with_end,
+        p_forbid=p_forbid,
+        max_emitters=2 if narrow else None,
+        per_context=True,
+    )
+
+
+def _chain_model(seed, m, order, with_end):
+    """A random chain-like model (tests/helpers.py, ``layout="chains"``)."""
+    return random_model(
+        np.random.default_rng(seed), n_states=m, order=order, with_end=with_end, layout="chains"
     )
 
 
 def _record(rng, n, p_unknown=0.1, n_run=True):
-    seq = rng.choice(np.frombuffer(b"ACGT", dtype=np.uint8), size=n)
-    seq = np.where(rng.random(n) < p_unknown, np.uint8(ord("N")), seq)
-    if n_run and n > 20:
-        lo = int(rng.integers(0, n - 10))
-        seq[lo : lo + 10] = ord("N")
-    return seq.tobytes()
+    """Uniform letters with unknown bases (and one run of 10 N) mixed in (tests/helpers.py)."""
+    return sample_record(rng, n, p_unknown=p_unknown, n_run=10 if n_run else 0).encode("ascii")
 
 
 def _possible(tables, rng, n, p_unknown=0.1):
-    """A record drawn from the model itself (so it is possible), with unknown bases mixed in.
-
-    Path and symbols follow the model's tables; an unknown base (emission factor 1
-    in every state) is written with probability ``p_unknown`` and, when the record
-    is long enough, as one run of 10.  The emission row of each base uses the same
-    context rule as the encoder (longest clean context, at most the order).
-    """
-    m, a, k = tables.n_states, tables.n_symbols, tables.order
-    run_lo = int(rng.integers(0, n - 10)) if n > 20 else -100
-    sym = np.empty(n, dtype=np.int64)
-    state = int(rng.choice(m, p=tables.start / tables.start.sum()))
-    clean = 0
-    for i in range(n):
-        if i:
-            row = tables.transitions[state]
-            state = int(rng.choice(m, p=row / row.sum()))
-        if rng.random() < p_unknown or run_lo <= i < run_lo + 10:
-            sym[i] = -1
-            clean = 0
-            continue
-        j = min(clean, k)
-        ctx = 0
-        for q in range(i - j, i):
-            ctx = ctx * a + int(sym[q])
-        probs = tables.E[tables.offsets[j] + ctx * a : tables.offsets[j] + ctx * a + a, state]
-        sym[i] = int(rng.choice(a, p=probs / probs.sum()))
-        clean += 1
-    seq = np.where(sym < 0, ord("N"), np.frombuffer(b"ACGT", np.uint8)[np.maximum(sym, 0)])
-    codes = api.encode(tables, seq.astype(np.uint8).tobytes())
+    """Codes of a record drawn from the model itself (tests/helpers.py sample_record: the
+    encoder's context rule, never entering a state without successors, one run of 10 N),
+    checked possible by the generic kernel."""
+    seq = sample_record(rng, n, p_unknown=p_unknown, tables=tables, n_run=10)
+    codes = api.encode(tables, seq)
     assert _generic_loglik(tables, codes)[1] == -1
     return codes
 
@@ -247,12 +183,15 @@ CASES = [
 
 
 @pytest.mark.parametrize("seed,m,k,with_end,p_forbid,narrow,n", CASES)
-def test_fast_equals_generic_equals_reference(seed, m, k, with_end, p_forbid, narrow, n):
+def test_fast_equals_generic_equals_reference(
+    seed, m, k, with_end, p_forbid, narrow, n, specialised
+):
     model = _model(seed, m, k, with_end, p_forbid, narrow)
     t = api.prepare(model)
     sm = small.build(t)
     # the case is about the specialised kernels exactly when every symbol has <= 2 emitters
     assert (sm is not None) == (narrow or m <= 2)
+    assert kernel_family(t) == ("small" if sm is not None else "generic")
     rng = np.random.default_rng(1000 + seed)
     codes = _possible(t, rng, n)
     n = codes.shape[0]
@@ -280,10 +219,11 @@ def test_fast_equals_generic_equals_reference(seed, m, k, with_end, p_forbid, na
         _close_logs(_log_vectors(p.alpha_ck, p.alpha_ck_log), _log_vectors(gack, galog))
         _close_logs(_log_vectors(p.beta_ck, p.beta_ck_log), _log_vectors(gbck, gblog))
         # per-label float32 output, as the pipeline asks for it
-        lab = api.posterior(t, codes, group=group, n_groups=1, block=blk)
+        n_labels = max(1, int(group.max()) + 1)  # unlabelled models: one empty column
+        lab = api.posterior(t, codes, group=group, n_groups=n_labels, block=blk)
         assert lab.values.dtype == np.float32
-        want = ref_post[:, group == 0].sum(axis=1)
-        np.testing.assert_allclose(lab.values[:, 0], want, rtol=0, atol=2e-7)
+        want = _group_oracle(ref_post, group, n_labels)
+        np.testing.assert_allclose(lab.values, want, rtol=0, atol=2e-7)
 
         path, lp = api.viterbi(t, codes, block=blk)
         gpath, glp, gvp = _generic_viterbi(t, codes, max(1, min(blk, n)))
@@ -344,12 +284,12 @@ def test_checkpoints_serve_vector_queries(seed, m, k, with_end, p_forbid, narrow
 
 
 @pytest.mark.parametrize("name", ["cpg-island", "cpg-island-8"])
-def test_builtin_models_use_the_fast_kernels(name):
+def test_builtin_models_use_the_fast_kernels(name, specialised):
     """Both CpG layouts fit the two-emitters kernels, N runs included; results match generic."""
     model = load_model(name)
     t = api.prepare(model)
     sm = small.build(t)
-    assert sm is not None
+    assert sm is not None and kernel_family(t) == "small"
     rng = np.random.default_rng(7)
     seq = bytearray(_record(rng, 20000, p_unknown=0.01))
     seq[100:400] = b"N" * 300
@@ -382,7 +322,7 @@ def test_two_layouts_give_the_same_label_posteriors():
     np.testing.assert_allclose(out[0].values, out[1].values, rtol=0, atol=1e-9)
 
 
-def test_viterbi_ties_go_to_the_lowest_state():
+def test_viterbi_ties_go_to_the_lowest_state(specialised):
     """Two identical states tie at every step: the path must stay in state 0 (documented rule)."""
     trans = np.array([[0.45, 0.45, 0.10], [0.45, 0.45, 0.10], [0.3, 0.3, 0.4]])
     em = np.array([[0.5, 0.5, 0.0, 0.0], [0.5, 0.5, 0.0, 0.0], [0.0, 0.0, 0.5, 0.5]])
@@ -395,7 +335,7 @@ def test_viterbi_ties_go_to_the_lowest_state():
         emissions=em,
     )
     t = api.prepare(model)
-    assert small.build(t) is not None
+    assert small.build(t) is not None and kernel_family(t) == "small"
     codes = api.encode(t, b"AACAGTNNACGA")
     for block in (1, 2, 7, 12):
         path, lp = api.viterbi(t, codes, block=block)
@@ -406,7 +346,7 @@ def test_viterbi_ties_go_to_the_lowest_state():
         assert np.array_equal(path, ref_path)
 
 
-def test_impossible_record_is_reported_with_its_position():
+def test_impossible_record_is_reported_with_its_position(specialised):
     """A base no state can emit after a forced state: same error as the generic kernels."""
     trans = np.array([[0.0, 1.0], [1.0, 0.0]])  # strict alternation
     em = np.array([[1.0, 0.0, 0.0, 0.0], [0.0, 1.0, 0.0, 0.0]])  # s0 emits A, s1 emits C
@@ -419,7 +359,7 @@ def test_impossible_record_is_reported_with_its_position():
         emissions=em,
     )
     t = api.prepare(model)
-    assert small.build(t) is not None
+    assert small.build(t) is not None and kernel_family(t) == "small"
     good = api.encode(t, b"ACACNC")
     assert np.isfinite(api.loglik(t, good))
     bad = api.encode(t, b"ACAAC")  # position 4 (1-based) cannot be A
@@ -445,91 +385,6 @@ def test_impossible_record_is_reported_with_its_position():
 # 1e-10.
 
 
-def _chain_model(seed, m, order, with_end):
-    """A random model of ``m`` states: chains of 2..25 states, joined into a ring by
-    their tails, with self-loops, extra branches and skips, a source state with no
-    predecessor, a sink with no successor (when there is an end table), and states
-    that emit only one or two symbols.  State indices are shuffled, so that chains
-    are not numbered consecutively."""
-    rng = np.random.default_rng(seed)
-    a = len(ALPHABET)
-    n_chain = m - 2 if with_end else m - 1
-    lengths = []
-    left = n_chain
-    while left > 0:
-        k = min(left, int(rng.integers(2, 26)))
-        lengths.append(k)
-        left -= k
-    shuffle = rng.permutation(m)  # layout position -> state index
-    chains, pos = [], 0
-    for k in lengths:
-        chains.append([int(shuffle[pos + j]) for j in range(k)])
-        pos += k
-    source = int(shuffle[pos])
-    sink = int(shuffle[pos + 1]) if with_end else None
-    allowed = np.zeros((m, m), dtype=bool)
-    for i, ch in enumerate(chains):
-        for u, v in zip(ch, ch[1:]):
-            allowed[u, v] = True
-        allowed[ch[-1], chains[(i + 1) % len(chains)][0]] = True  # the ring
-        for _ in range(int(rng.integers(0, 3))):  # more branches from the tail
-            allowed[ch[-1], chains[int(rng.integers(len(chains)))][0]] = True
-    chain_states = [s for ch in chains for s in ch]
-    for s in chain_states:
-        if rng.random() < 0.1:
-            allowed[s, s] = True
-    for _ in range(max(1, m // 20)):  # skips: targets with several predecessors
-        u, v = rng.choice(chain_states, size=2, replace=False)
-        allowed[u, v] = True
-    for ch in rng.choice(len(chains), size=min(3, len(chains)), replace=False):
-        allowed[source, chains[ch][0]] = True
-    if sink is not None:
-        for ch in rng.choice(len(chains), size=min(2, len(chains)), replace=False):
-            allowed[chains[ch][-1], sink] = True
-    trans = np.where(allowed, rng.uniform(0.05, 1.0, size=(m, m)), 0.0)
-    trans[allowed.sum(axis=1) > 0] /= trans[allowed.sum(axis=1) > 0].sum(axis=1, keepdims=True)
-    end = None
-    if with_end:
-        end = rng.uniform(0.01, 0.2, size=m)
-        trans *= (1.0 - end)[:, None]
-        end[sink] = 1.0
-    emissions = np.zeros((m, a**order, a))
-    for s in range(m):
-        if rng.random() < 0.35:  # a state that emits one or two symbols only
-            keep = rng.choice(a, size=int(rng.integers(1, 3)), replace=False)
-            emissions[s][:, keep] = rng.uniform(0.05, 1.0, size=(a**order, keep.size))
-        else:
-            emissions[s] = _rows(rng, (a**order, a), 0.15)
-    emissions /= emissions.sum(axis=-1, keepdims=True)
-    start = np.zeros(m)
-    start[source] = 0.5
-    start[chains[0][0]] = 0.5
-    states = [
-        State(f"s{i}", ("L" if i % 3 == 0 else "K" if i % 3 == 1 else None), "+" if i % 2 else "-")
-        for i in range(m)
-    ]
-    return make_model(
-        name="chains",
-        alphabet=ALPHABET,
-        states=states,
-        start=start,
-        transitions=trans,
-        emissions=emissions,
-        end=end,
-        order=order,
-    )
-
-
-def _possible_chain(t, rng, n, **kw):
-    """A record drawn as :func:`_possible` does, never entering a state without successors
-    (the walk would stop there); the record is possible under the full model."""
-    import dataclasses
-
-    trans = t.transitions.copy()
-    trans[:, np.diff(t.succ_ptr) == 0] = 0.0
-    return _possible(dataclasses.replace(t, transitions=trans), rng, n, **kw)
-
-
 @pytest.fixture
 def specialised(monkeypatch):
     """The API's normal dispatch, even when the run sets SEQSTATE_KERNELS=generic."""
@@ -539,7 +394,7 @@ def specialised(monkeypatch):
 def _sparse_kernels_used(t):
     """The API serves ``t`` with the chain-sparse kernels (checked, so that a test cannot
     pass by running the generic kernels twice)."""
-    return api._sparse_of(t) is not None
+    return kernel_family(t) == "sparse"
 
 
 def _group_oracle(ref_post, group, n_groups):
@@ -630,7 +485,7 @@ def test_chain_sparse_equals_generic_equals_reference(seed, m, k, with_end, n, s
     assert (indeg == 0).any() and (indeg > 1).any()  # the dummy slot and searched lists
     if with_end:
         assert (np.diff(t.succ_ptr) == 0).any()
-    codes = _possible_chain(t, np.random.default_rng(3000 + seed), n)
+    codes = _possible(t, np.random.default_rng(3000 + seed), n)
     _check_sparse_against_oracles(model, t, codes, BLOCKS)
 
 
@@ -643,7 +498,7 @@ def test_chain_sparse_checkpoints_serve_vector_queries(specialised):
     model = _chain_model(21, 180, 2, True)
     t = api.prepare(model)
     assert _sparse_kernels_used(t)
-    codes = _possible_chain(t, np.random.default_rng(21), 400)
+    codes = _possible(t, np.random.default_rng(21), 400)
     n = codes.shape[0]
     lattice = t.E[codes]
     fa, fl = np.empty((n, t.n_states)), np.empty(n)
@@ -683,7 +538,7 @@ def _twin_chains_model(length):
     em = np.zeros((m, 4))
     em[hub] = [0.25, 0.25, 0.25, 0.25]
     for j in range(length):
-        row = _rows(rng, (4,), 0.3)
+        row = random_rows(rng, (4,), 0.3)
         em[one[j]] = em[two[j]] = row
         nxt = hub if j == length - 1 else None
         trans[one[j], one[j + 1] if nxt is None else hub] = 1.0
@@ -869,7 +724,7 @@ def test_restricted_forward_masked_path_matches_plain_and_oracle(name):
     t = api.prepare(model)
     assert t.n_states >= kernels.RESTRICTED_MASKED_MIN
     rng = np.random.default_rng(41)
-    codes = _possible_chain(t, rng, 1500, p_unknown=0.01)
+    codes = _possible(t, rng, 1500, p_unknown=0.01)
     post = api.posterior(t, codes)
     labels = model.label_index()
     for s0, e0 in ((0, 40), (100, 900), (700, 701), (1200, 1500)):
@@ -931,7 +786,7 @@ def _generic_segment_scores(monkeypatch, t, codes, queries, block):
     """Segment log probabilities and log-odds by the generic kernels (the oracle), each
     query on a fresh posterior."""
     monkeypatch.setattr(api, "_USE_SMALL", False)
-    assert api._sparse_of(t) is None  # really the generic path
+    assert kernel_family(t) == "generic"  # really the generic path
     post = api.posterior(t, codes, block=block, dtype=np.float64)
     out = [
         (
@@ -990,7 +845,7 @@ def test_chain_sparse_segment_queries_equal_generic(monkeypatch, name, seed, n, 
     t = api.prepare(model)
     assert _sparse_kernels_used(t)
     rng = np.random.default_rng(seed)
-    codes = _possible_chain(t, rng, n, p_unknown=0.01)
+    codes = _possible(t, rng, n, p_unknown=0.01)
     queries = _segment_queries(t, model, rng, n, 60)
     want, want_vecs = _generic_segment_scores(monkeypatch, t, codes, queries, block)
     assert any(np.isfinite(lp) and lp < -1e-3 for lp, _ in want)  # informative cases
@@ -1028,7 +883,7 @@ def test_chain_sparse_restricted_equals_generic_kernel(specialised):
     t = api.prepare(model)
     assert _sparse_kernels_used(t)
     rng = np.random.default_rng(61)
-    codes = _possible_chain(t, rng, 800, p_unknown=0.02)
+    codes = _possible(t, rng, 800, p_unknown=0.02)
     post = api.posterior(t, codes, block=50)
     labels = model.label_index()
     for s0, e0 in ((0, 30), (1, 2), (99, 400), (500, 800)):

@@ -12,62 +12,34 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from helpers import kernel_family, random_model, sample_record
 from hmmlearn import hmm
 
 from seqstate.engine import api, small
-from seqstate.model import State, make_model
 
 N = 10_000
 
 
-def _sample(rng, start, trans, emis, n):
-    """States and symbols of one record drawn from the chain (common practice)."""
-    m, a = emis.shape
-    z = np.empty(n, dtype=np.int64)
-    x = np.empty(n, dtype=np.int64)
-    z[0] = rng.choice(m, p=start)
-    for i in range(1, n):
-        z[i] = rng.choice(m, p=trans[z[i - 1]])
-    u = rng.random(n)
-    cdf = np.cumsum(emis, axis=1)
-    for i in range(n):
-        x[i] = min(int(np.searchsorted(cdf[z[i]], u[i], side="right")), a - 1)
-    return z, x
-
-
 def _pair(m, alphabet, seed, narrow=False):
+    """A random model (tests/helpers.py), the same tables in hmmlearn, and a record drawn
+    from the model (common practice: a draw from the chain)."""
     rng = np.random.default_rng(seed)
-    a = len(alphabet)
-    start = rng.dirichlet(np.ones(m))
-    # sticky chains with real-valued entries: long runs, no ties between paths
-    trans = rng.dirichlet(np.ones(m), size=m) * 0.2 + np.eye(m) * 0.8
-    emis = rng.dirichlet(np.full(a, 0.7), size=m)
-    emis = emis + 1e-3
-    if narrow:
-        # each symbol emitted by at most two states (each state by at least one symbol):
-        # the layout the engine's specialised kernels take
-        allowed = np.zeros((m, a), dtype=bool)
-        allowed[np.arange(m), np.arange(m) % a] = True
-        for x in range(a):
-            free = np.flatnonzero(~allowed[:, x])
-            if allowed[:, x].sum() < 2 and free.size:
-                allowed[rng.choice(free), x] = True
-        emis = emis * allowed
-    emis = emis / emis.sum(axis=1, keepdims=True)
-    model = make_model(
-        name=f"hmmlearn-{m}-{a}",
+    # each symbol emitted by at most two states when narrow: the small kernels' layout;
+    # sticky chains with real-valued entries: long runs, no near-ties between paths
+    model = random_model(
+        rng,
+        n_states=m,
+        sticky=0.8,
         alphabet=alphabet,
-        states=[State(f"s{i}") for i in range(m)],
-        start=start,
-        transitions=trans,
-        emissions=emis,
+        max_emitters=2 if narrow else None,
+        name="hmmlearn-narrow" if narrow else "hmmlearn",
     )
     ref = hmm.CategoricalHMM(n_components=m, init_params="", params="")
-    ref.startprob_ = start
-    ref.transmat_ = trans
-    ref.emissionprob_ = emis
-    _, x = _sample(rng, start, trans, emis, N)
-    seq = "".join(alphabet[i] for i in x)
+    ref.startprob_ = model.start
+    ref.transmat_ = model.transitions
+    ref.emissionprob_ = model.emissions[:, 0, :]
+    seq = sample_record(rng, N, model=model)
+    x = np.array([alphabet.index(ch) for ch in seq], dtype=np.int64)
     return model, ref, seq, x.reshape(-1, 1)
 
 
@@ -88,9 +60,18 @@ def pair(request):
     return model, ref, seq, X
 
 
+def _check_family(kernel, model, tables):
+    """The kernels compared are the ones meant: small for narrow and two-state models
+    under the specialised switch, generic otherwise."""
+    fits = model.n_states <= 2 or "narrow" in model.name
+    want = "small" if kernel == "specialised" and fits else "generic"
+    assert kernel_family(tables) == want
+
+
 def test_loglik_matches_hmmlearn(kernel, pair):
     model, ref, seq, X = pair
     tables = api.prepare(model)
+    _check_family(kernel, model, tables)
     codes = api.encode(tables, seq)
     want = ref.score(X)  # hmmlearn 0.3.3: natural-log likelihood of the sequence
     assert abs(api.loglik(tables, codes) - want) <= 1e-8 * abs(want)
@@ -102,6 +83,7 @@ def test_loglik_matches_hmmlearn(kernel, pair):
 def test_posteriors_match_hmmlearn(kernel, pair, block):
     model, ref, seq, X = pair
     tables = api.prepare(model)
+    _check_family(kernel, model, tables)
     codes = api.encode(tables, seq)
     post = api.posterior(tables, codes, block=block, dtype=np.float64)
     want = ref.predict_proba(X)  # hmmlearn 0.3.3: forward-backward state posteriors
@@ -113,6 +95,7 @@ def test_posteriors_match_hmmlearn(kernel, pair, block):
 def test_viterbi_matches_hmmlearn(kernel, pair, block):
     model, ref, seq, X = pair
     tables = api.prepare(model)
+    _check_family(kernel, model, tables)
     codes = api.encode(tables, seq)
     path, logp = api.viterbi(tables, codes, block=block)
     want_logp, want_path = ref.decode(X, algorithm="viterbi")  # hmmlearn 0.3.3

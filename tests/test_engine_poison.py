@@ -26,6 +26,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from helpers import kernel_family, sample_record
 
 from seqstate.engine import api, buffers, kernels, reference
 from seqstate.engine import sparse as _sparse
@@ -119,15 +120,10 @@ def test_chain_sparse_restricted_forward_never_reads_the_work_array_it_is_given(
 
 # ----------------------------------------------------------------- every family, both modes
 def _record(model, t, n, seed):
-    """A record drawn from the model's own chain (so it is possible), a few N mixed in."""
-    from seqstate.engine.sampling import sample_record
-
+    """A record drawn from the model's own chain (so it is possible), a few N mixed in
+    (tests/helpers.py sample_record)."""
     rng = np.random.default_rng(seed)
-    _, sym = sample_record(t, n, rng)
-    sym = sym.copy()
-    sym[rng.random(n) < 0.01] = -1
-    letters = np.frombuffer(model.alphabet.encode("ascii"), np.uint8)
-    return np.where(sym < 0, np.uint8(ord("N")), letters[np.maximum(sym, 0)]).tobytes()
+    return sample_record(rng, n, p_unknown=0.01, model=model, tables=t).encode("ascii")
 
 
 def _queries(model, n):
@@ -200,16 +196,8 @@ def test_kernels_give_identical_results_with_poisoned_buffers(
     model, kind = _family_case(name, random_model, kernel_switch)
     with kernel_switch(kind):
         t = api.prepare(model)
-        family = (
-            "small"
-            if api._small_of(t) is not None
-            else "sparse"
-            if api._sparse_of(t) is not None
-            else "generic"
-        )
-        assert family == {"gene-segment-sparse": "sparse", "gene-segment-generic": "generic"}.get(
-            name, name
-        )
+        want = {"gene-segment-sparse": "sparse", "gene-segment-generic": "generic"}
+        assert kernel_family(t) == want.get(name, name)
         codes = api.encode(t, _record(model, t, 900, seed=5))
         with buffers.poisoning(False):
             plain, post = _run_all(t, model, codes, block)

@@ -272,7 +272,8 @@ def test_counting_gives_the_ml_counts_of_the_true_path(tmp_path, order, with_end
     got = load_model(tmp_path / "fitted")
     want = _ml_model_tables(model, _ml_counts(model, records))
     # maximum-likelihood estimate of a Markov chain with known states = normalised counts
-    # (common practice; Durbin et al. 1998, ch. 3, from memory): identical floats expected
+    # (common practice; the M-step of hmmlearn 0.3.3 BaseHMM._do_mstep normalises counts
+    # per row the same way): identical floats expected
     np.testing.assert_array_equal(got.start, want[0])
     np.testing.assert_array_equal(got.transitions, want[1])
     if with_end:
@@ -306,7 +307,7 @@ def test_counting_label_and_base_on_the_eight_state_layout(tmp_path):
     got = load_model(tmp_path / "fitted")
     counts = _ml_counts(eight, records)
     want = _ml_model_tables(eight, counts)
-    # normalised counts (common practice, from memory); the label alone names two of the
+    # normalised counts (common practice, as above); the label alone names two of the
     # eight states, the base names the one of them
     np.testing.assert_array_equal(got.transitions, want[1])
     np.testing.assert_array_equal(got.start, want[0])
@@ -338,7 +339,7 @@ def test_counting_label_and_strand(tmp_path):
     )
     got = load_model(tmp_path / "fitted")
     want = _ml_model_tables(model, _ml_counts(model, records))
-    # normalised counts (common practice, from memory); forbidden fwd <-> rev stay zero
+    # normalised counts (common practice, as above); forbidden fwd <-> rev stay zero
     np.testing.assert_array_equal(got.transitions, want[1])
     np.testing.assert_array_equal(got.emissions, want[3])
     assert got.transitions[0, 1] == 0.0 and got.transitions[1, 0] == 0.0
@@ -351,7 +352,8 @@ def test_pseudocount_only_on_allowed_cells():
     counts.transitions[:] = [[8, 0, 2], [1, 5, 0], [3, 4, 20]]
     counts.emissions[:, 0, :] = [[4, 0, 0, 6], [0, 5, 5, 0], [1, 2, 3, 4]]
     new, kept = fit.estimate(model, counts, pseudocount=0.5)
-    # additive smoothing over the allowed cells (common practice, from memory)
+    # additive smoothing over the allowed cells (common practice; hmmlearn 0.3.3
+    # BaseHMM._do_mstep adds prior - 1 to the counts and keeps zero cells zero)
     np.testing.assert_allclose(new.start, np.array([1.5, 0.5, 3.5]) / 5.5, rtol=1e-15)
     np.testing.assert_allclose(new.transitions[0], np.array([8.5, 0.0, 2.5]) / 11.0, rtol=1e-15)
     assert new.transitions[0, 1] == 0.0  # a -> b is forbidden in the start model
@@ -430,8 +432,9 @@ def test_em_never_decreases_the_log_likelihood(seed, random_model):
         assume(False)
     res = fit.baum_welch(model, codes, max_iter=6, tol=0.0)
     lls = [ll for _, ll, _ in res.history]
-    # EM never decreases the likelihood (Baum et al. 1970; Dempster, Laird & Rubin 1977,
-    # from memory); 1e-9 relative allows for rounding
+    # EM never decreases the likelihood (Baum et al. 1970; Dempster, Laird & Rubin 1977;
+    # hmmlearn 0.3.3 ConvergenceMonitor.report warns "Model is not converging" when it
+    # does); 1e-9 relative allows for rounding
     for before, after in zip(lls, lls[1:]):
         assert after >= before - 1e-9 * max(1.0, abs(before))
     # structural zeros stay exactly zero
@@ -493,7 +496,8 @@ def test_em_update_with_end_table_matches_reference_counts(random_model, random_
     start = sum(r["start"] for r in refs)
     emit = sum(r["emit"] for r in refs)[:4].T
     total = trans.sum(axis=1) + end
-    # Baum–Welch re-estimation (Rabiner 1989, eqs. 40a-c, from memory), end as one more exit
+    # Baum–Welch re-estimation: expected counts normalised per row (as hmmlearn 0.3.3
+    # BaseHMM._do_mstep computes it, priors 1), end as one more exit
     np.testing.assert_allclose(new.transitions, trans / total[:, None], rtol=1e-10)
     np.testing.assert_allclose(new.end, end / total, rtol=1e-10)
     np.testing.assert_allclose(new.start, start / start.sum(), rtol=1e-10)
@@ -615,9 +619,10 @@ def test_em_recovers_the_occasionally_dishonest_casino():
     )
     res = fit.baum_welch(start, codes, max_iter=1000, tol=1e-10, frozen=fit.Frozen(start=True))
     assert res.converged
-    # Durbin et al. 1998, ch. 3 (from memory): fair 1/6 each, loaded 1/2 for six and 1/10
-    # otherwise, fair->loaded 0.05, loaded->fair 0.10.  Tolerances: the spread of the
-    # maximum-likelihood estimate itself on 20,000 rolls, which we measured over 20 seeds
+    # Durbin et al. 1998, section 3.2: fair 1/6 each, loaded 1/2 for six and 1/10
+    # otherwise, fair->loaded 0.05, loaded->fair 0.10 (from memory of the book, restated
+    # in public documentation of this example that we read once).  Tolerances:
+    # the spread of the maximum-likelihood estimate itself on 20,000 rolls, measured over 20 seeds
     # (standard deviation 0.006 fair->loaded, 0.010 loaded->fair, 0.016 for the loaded six;
     # largest error 0.019 on transitions, 0.035 on emissions): about 4 standard deviations
     assert res.model.transitions[0, 1] == pytest.approx(0.05, abs=0.025)
@@ -689,7 +694,7 @@ def test_demo_counting_gives_the_counts_of_the_planted_islands(tmp_path):
     island, island_steps, out_steps, in_steps = _truth_switches(gff, lengths)
     assert (island, out_steps, in_steps) == (8266, 11, 11)
     background_steps = sum(lengths.values()) - len(lengths) - island_steps
-    # normalised counts (common practice, from memory), derived from the GFF3 alone
+    # normalised counts (common practice, as above), derived from the GFF3 alone
     assert got.transitions[0, 1] == pytest.approx(out_steps / island_steps, rel=1e-12)
     assert got.transitions[1, 0] == pytest.approx(in_steps / background_steps, rel=1e-12)
     # Against the sampler's island->background 0.001 and background->island 1e-5
@@ -857,7 +862,7 @@ def test_tied_transitions_share_the_stay_probability():
     fit.pool_counts(layout, counts)
     new, _ = fit.estimate(layout, counts, pseudocount=1.0)
     # every intron copy of the strand, shown by a training gene or not, gets the pooled
-    # stay (998 + 1) / (1000 + 2): additive smoothing (common practice, from memory)
+    # stay (998 + 1) / (1000 + 2): additive smoothing (common practice, as above)
     for copy in genes.INTRON_COPIES:
         s = names[f"{copy}_body+"]
         assert new.transitions[s, s] == pytest.approx(999 / 1002, rel=1e-12), copy

@@ -17,8 +17,9 @@ SAMPLE = DATA / "intervals.bed"
 
 
 def test_read_sample() -> None:
-    # BED is 0-based half-open and track/browser/'#' lines are headers
-    # (common practice: UCSC BED format definition, from memory).
+    # BED is 0-based half-open, '#' lines are comments, and track/browser lines precede
+    # the data in track files (BED specification v1, Niu, Denisko & Hoffman 2022,
+    # samtools/hts-specs BEDv1: "0-based, half-open coordinate system", "UCSC track files").
     assert read_bed(SAMPLE) == [
         BedInterval("chr1", 0, 10, "first", "500", "+", 4),
         BedInterval("chr1", 15, 15, None, None, None, 5),
@@ -88,13 +89,13 @@ def test_negative_start(tmp_path: Path) -> None:
 
 
 def test_start_after_end(tmp_path: Path) -> None:
-    # BED requires chromStart <= chromEnd (common practice: UCSC BED definition, from memory).
+    # BED requires chromStart <= chromEnd (BED specification v1, 2022, "Coordinates").
     err = bed_error(tmp_path, "c\t20\t10")
     assert "start 20 is greater than end 10" in str(err)
 
 
 def test_bad_strand(tmp_path: Path) -> None:
-    # BED strand is '+', '-' or '.' (common practice: UCSC BED definition, from memory).
+    # BED strand is '+', '-' or '.' (BED specification v1, 2022, field 6: [-+.]).
     err = bed_error(tmp_path, "c\t1\t10\tn\t0\tforward")
     assert "column 6 (strand) 'forward' is not one of + - ." in str(err)
 

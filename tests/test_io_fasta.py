@@ -62,7 +62,8 @@ def test_sample_content_kept_exactly() -> None:
 def test_gzip_detected_by_magic_not_extension(tmp_path: Path) -> None:
     packed = write_bytes(tmp_path, "sequences.txt", gzip.compress(SAMPLE.read_bytes()))
     plain_named_gz = write_bytes(tmp_path, "plain.fa.gz", SAMPLE.read_bytes())
-    # gzip streams start with bytes 1f 8b (RFC 1952, section 2.3.1, from memory).
+    # gzip streams start with bytes 1f 8b (RFC 1952; checked against CPython's
+    # Lib/gzip.py, which writes and expects the magic b"\037\213").
     assert packed.read_bytes()[:2] == b"\x1f\x8b"
     assert read_fasta(packed) == read_fasta(SAMPLE)
     assert read_fasta(plain_named_gz) == read_fasta(SAMPLE)
@@ -119,8 +120,9 @@ def test_alphabet_check_rejects_unknown_mode() -> None:
 
 
 def test_every_documented_dna_character_is_accepted(tmp_path: Path) -> None:
-    # IUPAC nucleotide codes incl. U and ambiguity codes (NC-IUB 1984
-    # recommendations, from memory); '-' as gap (common practice).
+    # IUPAC nucleotide codes incl. U and ambiguity codes (NC-IUB 1984 recommendations;
+    # checked against Biopython 1.88 Bio.Data.IUPACData: ambiguous_dna_letters
+    # "GATCRYWSMKHBVDN", ambiguous_rna_letters with U); '-' as gap (common practice).
     letters = "ACGTURYSWKMBDHVN-"
     assert DNA_ALPHABET == letters
     body = (letters + letters.lower()).encode("ascii")

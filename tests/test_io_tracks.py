@@ -26,7 +26,8 @@ from seqstate.io.tracks import (
 
 
 def expected_text(value: float, precision: int) -> str:
-    """Oracle: Python's 'f' formatting (correctly rounded, from memory), without '-0'."""
+    """Oracle: Python's 'f' formatting, without '-0' (correctly rounded, ties to even: the
+    Python documentation, string module, Format Specification Mini-Language, gh-99880)."""
     text = f"{float(value):.{precision}f}"
     if text.startswith("-") and float(text) == 0.0:
         text = text[1:]
@@ -96,7 +97,8 @@ def test_track_line_and_exact_lines() -> None:
     values = np.array([0.1, 0.10004, 0.2, -1e-7, 1.0], dtype=np.float64)
     write_bedgraph(buffer, 'CpG "island"', "posterior\tof\nstate", [("chr1", values)])
     # bedGraph: track line with type=bedGraph, then chrom, 0-based start, end,
-    # value (common practice: UCSC bedGraph definition, from memory).
+    # value (UCSC Genome Browser help, "BedGraph Track Format",
+    # genome.ucsc.edu/goldenPath/help/bedgraph.html: a track line, then four-column BED).
     assert buffer.getvalue() == (
         'track type=bedGraph name="CpG \'island\'" description="posterior of state"\n'
         "chr1\t0\t2\t0.1000\n"
@@ -125,7 +127,8 @@ def test_values_near_a_tie_follow_the_exact_binary_value() -> None:
     write_bedgraph(buffer, "t", "d", [("c", values)], precision=1)
     # The doubles nearest 0.15 and 0.35 lie just below the tie, 0.05 and 0.45
     # just above, 0.25 is exact and rounds half to even (IEEE 754 binary64 and
-    # Python's correctly rounded 'f' format, from memory).
+    # Python's correctly rounded 'f' format, Python documentation gh-99880; the doubles'
+    # exact values checked with decimal.Decimal, which converts a float exactly).
     assert [line.split("\t")[3] for line in buffer.getvalue().splitlines()[1:]] == [
         "0.1",
         "0.2",

@@ -18,6 +18,7 @@ import matplotlib.image
 import numpy as np
 import pytest
 from click.testing import CliRunner
+from helpers import sample_record
 
 from seqstate.cli import main
 from seqstate.io.gff3 import read_gff3
@@ -72,7 +73,8 @@ def test_png_has_the_stated_size(tmp_path):
     )
     assert res.exit_code == 0, res.stderr
     img = matplotlib.image.imread(out)
-    # pixels = inches x dots per inch (common practice; matplotlib savefig dpi, from memory)
+    # pixels = inches x dots per inch (matplotlib 3.11 Figure.savefig docstring: dpi is
+    # "The resolution in dots per inch")
     assert img.shape[:2] == (200, 300)
     assert res.stderr.startswith(f"seqstate: {REGION}, 3 decoded, 3 reference feature(s)")
 
@@ -159,7 +161,8 @@ def test_pdf_is_written(tmp_path):
     out = tmp_path / "fig.pdf"
     res = run(["plot", str(DEMO), "--region", "cex_ctg1:186000-187500", "-o", str(out), "-q"])
     assert res.exit_code == 0, res.stderr
-    # a PDF file starts with "%PDF-" (ISO 32000-1, section 7.5.2, from memory)
+    # a PDF file starts with "%PDF-" (ISO 32000-1 file header; checked against matplotlib
+    # 3.11 backends/backend_pdf.py, which writes b"%PDF-1.4" first)
     head = out.read_bytes()[:5]
     assert head == b"%PDF-"
     # no timestamp: the same run gives the same bytes (README: outputs carry no timestamp)
@@ -274,7 +277,7 @@ def _bad(args, out: Path):
 def test_region_over_the_maximum_needs_allow_large(tmp_path):
     rng = np.random.default_rng(5)
     fasta = tmp_path / "big.fa"
-    seq = np.frombuffer(b"ACGT", np.uint8)[rng.integers(4, size=MAX_REGION + 100)].tobytes()
+    seq = sample_record(rng, MAX_REGION + 100).encode("ascii")  # uniform (tests/helpers.py)
     fasta.write_bytes(b">big\n" + seq + b"\n")
     out = tmp_path / "big.png"
     region = f"big:1-{MAX_REGION + 1}"

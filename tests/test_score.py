@@ -6,8 +6,9 @@ end; Rabiner 1989, Proc. IEEE 77:257-286, section III, from memory), through
 ``seqstate.engine.reference.brute_force`` and this file's own enumeration;
 the planted islands of the synthetic demo (examples/cex_draft1.truth.gff3,
 the sampler's true path); and the two coordinate conventions (BED 0-based
-half-open, UCSC BED format definition; GFF3 1-based closed, GFF3
-specification 1.26; both from memory).
+half-open: BED specification v1, Niu, Denisko & Hoffman 2022, samtools/hts-specs;
+GFF3 1-based closed: GFF3 specification, The-Sequence-Ontology/Specifications
+gff3.md).
 """
 
 from __future__ import annotations
@@ -302,7 +303,8 @@ def test_bed_and_gff3_score_identically(demo_scores):
     hb, bed_rows = rows_of(demo_scores)
     hg, gff_rows = rows_of(res.stdout)
     # BED start s (0-based) is GFF3 start s + 1 (1-based); the ends are the same number
-    # (UCSC BED definition and GFF3 specification 1.26, from memory)
+    # (BED specification v1, 2022: 0-based half-open; GFF3 specification, The-Sequence-
+    # Ontology/Specifications gff3.md: "positive 1-based integer coordinates")
     assert hb[1:3] == ["start_0based", "end_exclusive"]
     assert hg[1:3] == ["start_1based", "end_1based"]
     assert hb[3:] == hg[3:]
@@ -364,7 +366,7 @@ def test_detect_region_format():
     assert detect_region_format([b"##gff-version 3\n"]) == "gff3"
     assert detect_region_format([b"# c\n", b"c\t.\tx\t1\t5\t.\t+\t.\tID=a\n"]) == "gff3"
     # a BED9 line has nine columns, but its 7th is thickStart, not a strand
-    # (UCSC BED definition, from memory)
+    # (BED specification v1, 2022: field 7 is thickStart)
     assert detect_region_format([b"c\t0\t5\tn\t0\t+\t0\t5\t0,0,0\n"]) == "bed"
     assert detect_region_format([b"track name=x\n", b"c 0 5\n"]) == "bed"
     assert detect_region_format([]) == "bed"
