@@ -27,8 +27,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from seqstate.engine import api, buffers, kernels, reference
-from seqstate.engine import sparse as _sparse
+from seqstate.engine import api, buffers, kernels_query, reference, sparse_query
 from seqstate.io.tables import load_model
 
 ENGINE = Path(api.__file__).resolve().parent
@@ -66,7 +65,7 @@ def test_poison_flag_is_read_from_the_environment_at_import():
 def test_no_engine_module_allocates_uninitialised_memory_itself():
     """np.empty / np.empty_like / np.ndarray(...) appear only inside buffers.py."""
     bad = []
-    for path in sorted(ENGINE.glob("*.py")):
+    for path in sorted(ENGINE.rglob("*.py")):
         if path.name == "buffers.py":
             continue
         for node in ast.walk(ast.parse(path.read_text())):
@@ -84,8 +83,9 @@ def test_chain_sparse_restricted_forward_never_reads_the_work_array_it_is_given(
     numbers or zeros).  Before the fix the dummy slot 0 of both rows was read."""
     model = load_model("gene-segment")
     t = api.prepare(model)
-    sp = api._sparse_of(t)
-    assert sp is not None
+    assert t.kernels == "sparse"
+    backend = t.backend
+    sp = backend.sp
     codes = api.encode(t, _record(model, t, 1200, seed=7))
     post = api.posterior(t, codes, block=100)
     m = t.n_states
@@ -95,16 +95,14 @@ def test_chain_sparse_restricted_forward_never_reads_the_work_array_it_is_given(
         row = np.zeros((1, m + 2))
         if s0 > 0:
             vec, _ = api.forward_vector(t, codes, post, s0 - 1)
-            _sparse.to_slots(vec, sp.perm, row, 0)
+            sparse_query.to_slots(vec, sp.perm, row, 0)
         for mask in (labels == 0, labels != 0, np.ones(m, dtype=bool)):
-            maskf = api._mask_slots(sp, mask)
+            maskf = backend.mask_slots(mask)
             for use_e in (True, False):
                 got = []
                 for fill in (0.0, np.nan, 1e300, -3.0):
                     work = np.full((2, m + 2), fill)
-                    ex = api._sparse_restricted(
-                        t, sp, codes, s0, e0, row, s0 == 0, maskf, use_e, work
-                    )
+                    ex = backend.restricted_slots(codes, s0, e0, row, s0 == 0, maskf, use_e, work)
                     got.append((ex, work[0].copy()))
                 want_ex, want_row = got[0]
                 if want_ex == -np.inf:
@@ -163,7 +161,7 @@ def _run_all(t, model, codes, block):
             init, _ = api.forward_vector(t, codes, post, s0 - 1)
             is_start = False
         for use_e in (True, False):
-            vec, lg = api._restricted(t, codes, s0, e0, init, is_start, mask, use_e)
+            vec, lg = api.backend_of(t).restricted(codes, s0, e0, init, is_start, mask, use_e)
             out += [vec, lg]
     assert post.values.shape == (n, m)
     return out, post
@@ -200,13 +198,7 @@ def test_kernels_give_identical_results_with_poisoned_buffers(
     model, kind = _family_case(name, random_model, kernel_switch)
     with kernel_switch(kind):
         t = api.prepare(model)
-        family = (
-            "small"
-            if api._small_of(t) is not None
-            else "sparse"
-            if api._sparse_of(t) is not None
-            else "generic"
-        )
+        family = api.backend_of(t).name
         assert family == {"gene-segment-sparse": "sparse", "gene-segment-generic": "generic"}.get(
             name, name
         )
@@ -232,7 +224,7 @@ def test_generic_restricted_forward_masked_path_with_poisoned_scratch():
     nothing."""
     model = load_model("gene-segment")
     t = api.prepare(model)
-    assert t.n_states >= kernels.RESTRICTED_MASKED_MIN
+    assert t.n_states >= kernels_query.RESTRICTED_MASKED_MIN
     codes = api.encode(t, _record(model, t, 600, seed=3))
     labels = model.label_index()
     nnz = t.pred_src.shape[0]
@@ -246,7 +238,7 @@ def test_generic_restricted_forward_masked_path_with_poisoned_scratch():
             results = []
             for fill_i, fill_f, extra in ((0, 0.0, 0), (-7777777, np.nan, 0), (-1, np.nan, 50)):
                 out = np.full(t.n_states, np.nan)
-                lg = kernels.restricted_forward(
+                lg = kernels_query.restricted_forward(
                     codes,
                     s0,
                     e0,
