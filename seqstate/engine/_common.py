@@ -13,6 +13,7 @@ log-likelihoods are exact up to rounding.
 from __future__ import annotations
 
 import math
+from typing import Any
 
 import numpy as np
 
@@ -20,7 +21,7 @@ from seqstate.engine import jitcache
 from seqstate.model import Model
 
 #: Options of every compiled kernel of the engine.
-JIT = {"cache": jitcache.CACHE, "nogil": True, "error_model": "numpy"}
+JIT: dict[str, Any] = {"cache": jitcache.CACHE, "nogil": True, "error_model": "numpy"}
 
 #: Rescale a running vector when it falls below this value (the default ``lim``).
 RESCALE_BELOW = 1e-100

@@ -39,6 +39,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 from numba import njit
@@ -46,6 +47,9 @@ from numba import njit
 from seqstate.engine._common import JIT as _JIT
 from seqstate.engine._common import RESCALE_BELOW, rescale_limit, smallest_factor
 from seqstate.engine.buffers import work_buffer
+
+if TYPE_CHECKING:
+    from seqstate.engine.tables import EngineTables
 
 #: Largest number of states for which the two-state kernels are used.
 MAX_STATES = 16
@@ -79,7 +83,7 @@ class SmallTables:
     lim: float
 
 
-def build(tables) -> SmallTables | None:
+def build(tables: EngineTables) -> SmallTables | None:
     """Two-state-per-code tables of ``tables``, or None when the model does not fit.
 
     It fits when it has at most :data:`MAX_STATES` states and every code of the

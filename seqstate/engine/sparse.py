@@ -57,6 +57,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 from numba import njit, uintp
@@ -65,6 +66,9 @@ from seqstate.engine._common import JIT as _JIT
 from seqstate.engine._common import LN2 as _LN2
 from seqstate.engine._common import RESCALE_BELOW
 from seqstate.engine.buffers import work_buffer
+
+if TYPE_CHECKING:
+    from seqstate.engine.tables import EngineTables
 
 #: Use these kernels when at least this share of the states has at most one predecessor.
 MIN_CHAIN_SHARE = 0.5
@@ -119,7 +123,7 @@ class SparseTables:
     bp_dtype: type
 
 
-def fits(tables) -> bool:
+def fits(tables: EngineTables) -> bool:
     """True when ``tables`` is a model these kernels are meant for (large, mostly chains)."""
     m = tables.n_states
     if m < MIN_STATES:
@@ -128,7 +132,7 @@ def fits(tables) -> bool:
     return float(np.mean(indeg <= 1)) >= MIN_CHAIN_SHARE
 
 
-def chain_order(tables, key=None) -> np.ndarray:
+def chain_order(tables: EngineTables, key: np.ndarray | None = None) -> np.ndarray:
     """New number -> original index: the allowed moves laid out as consecutive paths.
 
     Moves are taken greedily, best first: a move ``p -> t`` scores one point if
@@ -243,7 +247,7 @@ def build(tables, key=None) -> SparseTables:
     n_multi = len(multi)
     col_of = {t: k for k, t in enumerate(multi)}
     f_dst_l, f_src_l, f_rank_l, f_p_l, f_lp_l, f_col_l = [], [], [], [], [], []
-    for t in fix:
+    for t in fix.tolist():
         o = perm[t]
         lo, hi = pp[o], pp[o + 1]
         f_dst_l += [t + 1] * (hi - lo)
@@ -272,7 +276,7 @@ def build(tables, key=None) -> SparseTables:
     Enext = np.concatenate([E[:, 1:], np.zeros((n_codes, 1))], axis=1)
     v1 = np.ascontiguousarray(b1[None, :] * Enext)
     b_dst_l, b_src_l, b_p_l = [], [], []
-    for s in np.flatnonzero(~linked_b):
+    for s in np.flatnonzero(~linked_b).tolist():
         o = perm[s]
         lo, hi = sp[o], sp[o + 1]
         order = np.argsort(inv[sd[lo:hi]], kind="stable")  # terms in increasing target
