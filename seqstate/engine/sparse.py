@@ -122,6 +122,23 @@ class SparseTables:
     log_end: np.ndarray  # original order (the final tie rule reads it so)
     bp_dtype: type
 
+    @property
+    def fwd(self) -> tuple[np.ndarray, ...]:
+        """Arguments of a forward step: the linked moves, then the fix moves per code."""
+        return (self.w1, self.f_ptr, self.f_n0, self.f_dst, self.f_src, self.f_w)
+
+    @property
+    def bwd(self) -> tuple[np.ndarray, ...]:
+        """Arguments of a backward step, as :attr:`fwd`."""
+        return (self.v1, self.b_ptr, self.b_n0, self.b_dst, self.b_src, self.b_w)
+
+    @property
+    def vit(self) -> tuple[np.ndarray, ...]:
+        """Arguments of Viterbi before the block length."""
+        head = (self.log_start, self.log_end, self.logE, self.perm, self.inv, self.la1)
+        fix = (self.f_ptr, self.f_n0, self.f_dst, self.f_src, self.f_lp, self.f_rank, self.f_col)
+        return (*head, *fix, self.tb_prev, self.tb_col, self.p_ptr, self.p_src, self.p_lp)
+
 
 def fits(tables: EngineTables) -> bool:
     """True when ``tables`` is a model these kernels are meant for (large, mostly chains)."""

@@ -15,6 +15,10 @@ if TYPE_CHECKING:
     from seqstate.engine.api import Posterior
     from seqstate.engine.tables import EngineTables
 
+Array = np.ndarray
+#: A posterior's checkpoints: forward vectors, their log scales, backward vectors, theirs.
+Checkpoints = tuple[Array, Array, Array, Array]
+
 
 class GenericBackend:
     """The generic kernels (:mod:`seqstate.engine.kernels`) on one model's tables.
@@ -27,62 +31,31 @@ class GenericBackend:
     name = "generic"
 
     def __init__(self, tables: EngineTables) -> None:
-        self.t = tables
+        t = self.t = tables
         #: the rescaling threshold of these tables (see :func:`_common.rescale_limit`)
-        self.lim = rescale_limit(smallest_factor(tables.pred_p, tables.E))
+        self.lim = rescale_limit(smallest_factor(t.pred_p, t.E))
+        # the kernels' argument lists, written once: emissions and moves into a state
+        # (forward), out of a state (backward), and their logs (Viterbi)
+        self.fwd = (t.E, t.nz_ptr, t.nz_state, t.pred_ptr, t.pred_src, t.pred_p)
+        self.bwd = (t.E, t.nz_ptr, t.nz_state, t.succ_ptr, t.succ_dst, t.succ_p)
+        self.vit = (t.log_start, t.log_end, t.logE, t.nz_ptr, t.nz_state, t.pred_ptr)
+        self.vit += (t.pred_src, t.pred_logp)
 
     # ------------------------------------------------------------- whole-record passes
     def loglik(self, codes: np.ndarray) -> tuple[float, int]:
         """(log-likelihood, fail position or -1) of one record."""
-        t = self.t
-        return kernels.forward_loglik(
-            codes,
-            t.start,
-            t.end,
-            t.E,
-            t.nz_ptr,
-            t.nz_state,
-            t.pred_ptr,
-            t.pred_src,
-            t.pred_p,
-            self.lim,
-        )
+        return kernels.forward_loglik(codes, self.t.start, self.t.end, *self.fwd, self.lim)
 
     def posterior(
-        self,
-        codes: np.ndarray,
-        group: np.ndarray,
-        n_groups: int,
-        block: int,
-        out: np.ndarray,
-        ck: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray],
+        self, codes: Array, group: Array, n_groups: int, block: int, out: Array, ck: Checkpoints
     ) -> tuple[float, int]:
         """Posteriors summed by ``group`` into ``out``; checkpoints into ``ck`` (alpha,
         alpha log, beta, beta log).  Returns (log-likelihood, fail position or -1)."""
         t = self.t
-        alpha_ck, alpha_log, beta_ck, beta_log = ck
+        scratch = kernels.posterior_scratch(codes.shape[0], t.n_states, block)
+        moves = (*self.fwd, *self.bwd[3:])
         return kernels.posterior_checkpointed(
-            codes,
-            t.start,
-            t.end,
-            t.E,
-            t.nz_ptr,
-            t.nz_state,
-            t.pred_ptr,
-            t.pred_src,
-            t.pred_p,
-            t.succ_ptr,
-            t.succ_dst,
-            t.succ_p,
-            block,
-            group,
-            out,
-            alpha_ck,
-            alpha_log,
-            beta_ck,
-            beta_log,
-            *kernels.posterior_scratch(codes.shape[0], t.n_states, block),
-            self.lim,
+            codes, t.start, t.end, *moves, block, group, out, *ck, *scratch, self.lim
         )
 
     def viterbi_block(self, n: int, block: int | None) -> int:
@@ -91,67 +64,27 @@ class GenericBackend:
 
     def viterbi(self, codes: np.ndarray, block: int, path: np.ndarray) -> tuple[float, int]:
         """Most probable path into ``path``; (log probability, fail position or -1)."""
-        t = self.t
-        return kernels.viterbi_checkpointed(
-            codes,
-            t.log_start,
-            t.log_end,
-            t.logE,
-            t.nz_ptr,
-            t.nz_state,
-            t.pred_ptr,
-            t.pred_src,
-            t.pred_logp,
-            block,
-            path,
-            *kernels.viterbi_scratch(codes.shape[0], t.n_states, block),
-        )
+        scratch = kernels.viterbi_scratch(codes.shape[0], self.t.n_states, block)
+        return kernels.viterbi_checkpointed(codes, *self.vit, block, path, *scratch)
 
     # ------------------------------------------------------------- vectors and segments
     def forward_vector(
         self, codes: np.ndarray, post: Posterior, pos: int
     ) -> tuple[np.ndarray, float]:
         """Scaled forward vector at ``pos`` and its natural-log scale."""
-        t = self.t
-        out = work_buffer(t.n_states)
-        lg = kernels_query.vector_at(
-            codes,
-            pos,
-            t.start,
-            t.E,
-            t.nz_ptr,
-            t.nz_state,
-            t.pred_ptr,
-            t.pred_src,
-            t.pred_p,
-            post.block,
-            post.alpha_ck,
-            post.alpha_ck_log,
-            out,
-        )
+        out = work_buffer(self.t.n_states)
+        ck = (post.block, post.alpha_ck, post.alpha_ck_log)
+        lg = kernels_query.vector_at(codes, pos, self.t.start, *self.fwd, *ck, out)
         return out, lg
 
     def backward_vector(
         self, codes: np.ndarray, post: Posterior, pos: int
     ) -> tuple[np.ndarray, float]:
         """Scaled backward vector at ``pos`` and its natural-log scale."""
-        t = self.t
-        out = work_buffer(t.n_states)
-        lg = kernels_query.backward_vector_at(
-            codes,
-            pos,
-            t.E,
-            t.nz_ptr,
-            t.nz_state,
-            t.succ_ptr,
-            t.succ_dst,
-            t.succ_p,
-            post.block,
-            post.beta_ck,
-            post.beta_ck_log,
-            out,
-            work_buffer(t.n_states),
-        )
+        m = self.t.n_states
+        out = work_buffer(m)
+        ck = (post.block, post.beta_ck, post.beta_ck_log)
+        lg = kernels_query.backward_vector_at(codes, pos, *self.bwd, *ck, out, work_buffer(m))
         return out, lg
 
     def restricted(
@@ -168,23 +101,9 @@ class GenericBackend:
         ``init`` (the start factors when ``init_is_start``); (scaled vector, log scale)."""
         t = self.t
         out = work_buffer(t.n_states)
-        lg = kernels_query.restricted_forward(
-            codes,
-            start0,
-            end0,
-            init,
-            init_is_start,
-            mask,
-            use_emissions,
-            t.E,
-            t.nz_ptr,
-            t.nz_state,
-            t.pred_ptr,
-            t.pred_src,
-            t.pred_p,
-            out,
-            *kernels_query.restricted_scratch(t.n_states, t.pred_src.shape[0]),
-        )
+        scratch = kernels_query.restricted_scratch(t.n_states, t.pred_src.shape[0])
+        query = (codes, start0, end0, init, init_is_start, mask, use_emissions)
+        lg = kernels_query.restricted_forward(*query, *self.fwd, out, *scratch)
         return out, lg
 
     def _before(self, codes: np.ndarray, post: Posterior, start0: int) -> tuple:

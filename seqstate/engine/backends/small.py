@@ -7,7 +7,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from seqstate.engine import small, small_posterior
-from seqstate.engine.backends.generic import GenericBackend
+from seqstate.engine.backends.generic import Array, Checkpoints, GenericBackend
 from seqstate.engine.buffers import work_buffer
 
 if TYPE_CHECKING:
@@ -23,6 +23,10 @@ class SmallBackend(GenericBackend):
     def __init__(self, tables: EngineTables, sm: small.SmallTables) -> None:
         super().__init__(tables)
         self.sm = sm
+        # the kernels' argument lists, written once: the compact steps and their logs
+        self.steps = (sm.K, sm.st, sm.wide, sm.cls, sm.W, sm.T, sm.E)
+        self.vit = (sm.log_start, sm.log_end, sm.K, sm.st, sm.wide, sm.cls, sm.LT, sm.LE)
+        self.vit += (sm.logT, sm.logE)
 
     @classmethod
     def fitting(cls, tables: EngineTables) -> SmallBackend | None:
@@ -32,58 +36,18 @@ class SmallBackend(GenericBackend):
 
     def loglik(self, codes: np.ndarray) -> tuple[float, int]:
         sm = self.sm
-        return small.forward_loglik(
-            codes, sm.start, sm.end, sm.K, sm.st, sm.wide, sm.cls, sm.W, sm.T, sm.E, sm.lim
-        )
+        return small.forward_loglik(codes, sm.start, sm.end, *self.steps, sm.lim)
 
     def posterior(
-        self,
-        codes: np.ndarray,
-        group: np.ndarray,
-        n_groups: int,
-        block: int,
-        out: np.ndarray,
-        ck: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray],
+        self, codes: Array, group: Array, n_groups: int, block: int, out: Array, ck: Checkpoints
     ) -> tuple[float, int]:
         sm = self.sm
-        alpha_ck, alpha_log, beta_ck, beta_log = ck
+        gc = small.group_table(sm, group)
+        full = work_buffer(self.t.n_states)
         return small_posterior.posterior_checkpointed(
-            codes,
-            sm.start,
-            sm.end,
-            sm.K,
-            sm.st,
-            sm.wide,
-            sm.cls,
-            sm.W,
-            sm.T,
-            sm.E,
-            block,
-            small.group_table(sm, group),
-            out,
-            alpha_ck,
-            alpha_log,
-            beta_ck,
-            beta_log,
-            work_buffer(self.t.n_states),
-            sm.lim,
+            codes, sm.start, sm.end, *self.steps, block, gc, out, *ck, full, sm.lim
         )
 
     def viterbi(self, codes: np.ndarray, block: int, path: np.ndarray) -> tuple[float, int]:
-        sm = self.sm
-        return small.viterbi_checkpointed(
-            codes,
-            sm.log_start,
-            sm.log_end,
-            sm.K,
-            sm.st,
-            sm.wide,
-            sm.cls,
-            sm.LT,
-            sm.LE,
-            sm.logT,
-            sm.logE,
-            block,
-            path,
-            *small.viterbi_scratch(sm, codes.shape[0], block),
-        )
+        scratch = small.viterbi_scratch(self.sm, codes.shape[0], block)
+        return small.viterbi_checkpointed(codes, *self.vit, block, path, *scratch)

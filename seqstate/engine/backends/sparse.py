@@ -9,7 +9,7 @@ import numpy as np
 
 from seqstate.engine import sparse, sparse_query
 from seqstate.engine._common import LN2
-from seqstate.engine.backends.generic import GenericBackend
+from seqstate.engine.backends.generic import Array, Checkpoints, GenericBackend
 from seqstate.engine.buffers import work_buffer
 
 if TYPE_CHECKING:
@@ -50,49 +50,16 @@ class SparseBackend(GenericBackend):
     # ------------------------------------------------------------- whole-record passes
     def loglik(self, codes: np.ndarray) -> tuple[float, int]:
         sp = self.sp
-        return sparse.forward_loglik(
-            codes, sp.start, sp.end, sp.E, sp.w1, sp.f_ptr, sp.f_n0, sp.f_dst, sp.f_src, sp.f_w,
-            self.lim,
-        )  # fmt: skip
+        return sparse.forward_loglik(codes, sp.start, sp.end, sp.E, *sp.fwd, self.lim)
 
     def posterior(
-        self,
-        codes: np.ndarray,
-        group: np.ndarray,
-        n_groups: int,
-        block: int,
-        out: np.ndarray,
-        ck: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray],
+        self, codes: Array, group: Array, n_groups: int, block: int, out: Array, ck: Checkpoints
     ) -> tuple[float, int]:
         sp = self.keyed(group, n_groups) if n_groups <= sparse.MAX_KEYED_GROUPS else self.sp
-        alpha_ck, alpha_log, beta_ck, beta_log = ck
+        runs = sparse.group_runs(sp, group, n_groups)
+        tabs = (sp.start, sp.end, sp.E, sp.perm, *sp.fwd, *sp.bwd)
         return sparse.posterior_checkpointed(
-            codes,
-            sp.start,
-            sp.end,
-            sp.E,
-            sp.perm,
-            sp.w1,
-            sp.f_ptr,
-            sp.f_n0,
-            sp.f_dst,
-            sp.f_src,
-            sp.f_w,
-            sp.v1,
-            sp.b_ptr,
-            sp.b_n0,
-            sp.b_dst,
-            sp.b_src,
-            sp.b_w,
-            block,
-            sparse.group_runs(sp, group, n_groups),
-            n_groups,
-            out,
-            alpha_ck,
-            alpha_log,
-            beta_ck,
-            beta_log,
-            self.lim,
+            codes, *tabs, block, runs, n_groups, out, *ck, self.lim
         )
 
     def viterbi_block(self, n: int, block: int | None) -> int:
@@ -104,31 +71,8 @@ class SparseBackend(GenericBackend):
         return super().viterbi_block(n, block)
 
     def viterbi(self, codes: np.ndarray, block: int, path: np.ndarray) -> tuple[float, int]:
-        sp = self.sp
-        return sparse_query.viterbi_checkpointed(
-            codes,
-            sp.log_start,
-            sp.log_end,
-            sp.logE,
-            sp.perm,
-            sp.inv,
-            sp.la1,
-            sp.f_ptr,
-            sp.f_n0,
-            sp.f_dst,
-            sp.f_src,
-            sp.f_lp,
-            sp.f_rank,
-            sp.f_col,
-            sp.tb_prev,
-            sp.tb_col,
-            sp.p_ptr,
-            sp.p_src,
-            sp.p_lp,
-            block,
-            *sparse_query.viterbi_scratch(sp, codes.shape[0], block),
-            path,
-        )
+        scratch = sparse_query.viterbi_scratch(self.sp, codes.shape[0], block)
+        return sparse_query.viterbi_checkpointed(codes, *self.sp.vit, block, *scratch, path)
 
     # ------------------------------------------------------------- vectors and segments
     def cursor(self, codes: np.ndarray, post: Posterior) -> Cursor:
@@ -139,19 +83,14 @@ class SparseBackend(GenericBackend):
             post.cursor = cur
         return cur
 
-    def forward_vector(
-        self, codes: np.ndarray, post: Posterior, pos: int
-    ) -> tuple[np.ndarray, float]:
-        out = work_buffer(self.t.n_states)
-        row, lg = self.cursor(codes, post).forward(pos)
-        sparse_query.from_slots(row, 0, self.sp.perm, out)
-        return out, lg
+    def forward_vector(self, codes: Array, post: Posterior, pos: int) -> tuple[Array, float]:
+        return self._unslot(*self.cursor(codes, post).forward(pos))
 
-    def backward_vector(
-        self, codes: np.ndarray, post: Posterior, pos: int
-    ) -> tuple[np.ndarray, float]:
+    def backward_vector(self, codes: Array, post: Posterior, pos: int) -> tuple[Array, float]:
+        return self._unslot(*self.cursor(codes, post).backward(pos))
+
+    def _unslot(self, row: Array, lg: float) -> tuple[Array, float]:
         out = work_buffer(self.t.n_states)
-        row, lg = self.cursor(codes, post).backward(pos)
         sparse_query.from_slots(row, 0, self.sp.perm, out)
         return out, lg
 
@@ -175,25 +114,9 @@ class SparseBackend(GenericBackend):
         """Restricted forward in slots (result in row 0 of ``work``); natural-log scale or
         -inf.  ``init`` is a slot row (ignored when ``init_is_start``)."""
         sp = self.sp
-        ex = sparse_query.restricted_forward(
-            codes,
-            start0,
-            end0,
-            init,
-            init_is_start,
-            maskf,
-            -1 if use_emissions else self.t.unknown_code,
-            sp.start,
-            sp.E,
-            sp.w1,
-            sp.f_ptr,
-            sp.f_n0,
-            sp.f_dst,
-            sp.f_src,
-            sp.f_w,
-            self.lim,
-            work,
-        )
+        skip = -1 if use_emissions else self.t.unknown_code
+        query = (codes, start0, end0, init, init_is_start, maskf, skip)
+        ex = sparse_query.restricted_forward(*query, sp.start, sp.E, *sp.fwd, self.lim, work)
         return ex if ex == -np.inf else ex * LN2
 
     def restricted(
@@ -303,9 +226,8 @@ class Cursor:
             self.f_pos, self.f_log = bk * post.block, float(post.alpha_ck_log[bk])
         if pos > self.f_pos:
             ex = sparse_query.forward_advance(
-                self.codes, self.f_pos, pos, self.f,
-                sp.w1, sp.f_ptr, sp.f_n0, sp.f_dst, sp.f_src, sp.f_w, self.lim,
-            )  # fmt: skip
+                self.codes, self.f_pos, pos, self.f, *sp.fwd, self.lim
+            )
             self.f_pos, self.f_log = pos, self.f_log + ex * LN2
         return self.f, self.f_log
 
@@ -320,8 +242,7 @@ class Cursor:
             self.b_log = float(post.beta_ck_log[bk])
         if pos < self.b_pos:
             ex = sparse_query.backward_advance(
-                self.codes, self.b_pos, pos, self.b,
-                sp.v1, sp.b_ptr, sp.b_n0, sp.b_dst, sp.b_src, sp.b_w, self.lim,
-            )  # fmt: skip
+                self.codes, self.b_pos, pos, self.b, *sp.bwd, self.lim
+            )
             self.b_pos, self.b_log = pos, self.b_log + ex * LN2
         return self.b, self.b_log
