@@ -240,26 +240,25 @@ def _restricted_masked(
     return logscale
 
 
-@njit(**_JIT)
 def restricted_forward(
-    codes,
-    s0,
-    e0,
-    init,
-    init_is_start,
-    mask,
-    use_emissions,
-    E,
-    nz_ptr,
-    nz_state,
-    pred_ptr,
-    pred_src,
-    pred_p,
-    out,
-    ms,
-    fsrc,
-    fp,
-):
+    codes: np.ndarray,
+    s0: int,
+    e0: int,
+    init: np.ndarray,
+    init_is_start: bool,
+    mask: np.ndarray,
+    use_emissions: bool,
+    E: np.ndarray,
+    nz_ptr: np.ndarray,
+    nz_state: np.ndarray,
+    pred_ptr: np.ndarray,
+    pred_src: np.ndarray,
+    pred_p: np.ndarray,
+    out: np.ndarray,
+    ms: np.ndarray,
+    fsrc: np.ndarray,
+    fp: np.ndarray,
+) -> float:
     """Forward over positions s0..e0-1 through the states with ``mask[s]`` only.
 
     ``init`` is the start vector (``init_is_start``) or the unrestricted forward
@@ -270,40 +269,10 @@ def restricted_forward(
     :data:`RESTRICTED_MASKED_MIN` states run :func:`_restricted_masked`, which uses
     the work arrays ``ms``, ``fsrc`` and ``fp`` (see :func:`restricted_scratch`).
     """
+    query = (codes, s0, e0, init, init_is_start, mask, use_emissions, E)
     if init.shape[0] >= RESTRICTED_MASKED_MIN:
-        return _restricted_masked(
-            codes,
-            s0,
-            e0,
-            init,
-            init_is_start,
-            mask,
-            use_emissions,
-            E,
-            pred_ptr,
-            pred_src,
-            pred_p,
-            out,
-            ms,
-            fsrc,
-            fp,
-        )
-    return _restricted_plain(
-        codes,
-        s0,
-        e0,
-        init,
-        init_is_start,
-        mask,
-        use_emissions,
-        E,
-        nz_ptr,
-        nz_state,
-        pred_ptr,
-        pred_src,
-        pred_p,
-        out,
-    )
+        return _restricted_masked(*query, pred_ptr, pred_src, pred_p, out, ms, fsrc, fp)
+    return _restricted_plain(*query, nz_ptr, nz_state, pred_ptr, pred_src, pred_p, out)
 
 
 @njit(**_JIT)

@@ -170,93 +170,18 @@ def accumulate(
         raise ValueError("empty record")
     block = default_block(n) if block is None else max(1, min(int(block), n))
     t = tables
-    return _accumulate(
-        codes,
-        t.start,
-        t.end,
-        t.E,
-        t.T,
-        t.TT,
-        t.nz_ptr,
-        t.nz_state,
-        t.pred_ptr,
-        t.pred_src,
-        t.pred_p,
-        t.succ_ptr,
-        t.succ_dst,
-        t.succ_p,
-        t.mode,
-        block,
-        acc.start,
-        acc.trans,
-        acc.end,
-        acc.emit,
-    )
+    out = (acc.start, acc.trans, acc.end, acc.emit)
+    if t.mode == MODE_PAIRS:
+        dense = (t.E, t.T, t.TT, t.nz_ptr, t.nz_state)
+        return _accumulate_pairs(codes, t.start, t.end, *dense, block, *out)
+    moves = (t.pred_ptr, t.pred_src, t.pred_p, t.succ_ptr, t.succ_dst, t.succ_p)
+    return _accumulate_lists(codes, t.start, t.end, t.E, t.nz_ptr, t.nz_state, *moves, block, *out)
 
 
 # ----------------------------------------------------------------- kernels
 # The two layouts are written out in full (no helper calls in the inner loops: numba
-# does not inline them reliably, and a call per position costs more than the work).
-
-
-@njit(**_JIT)
-def _accumulate(
-    codes,
-    start,
-    end,
-    E,
-    T,
-    TT,
-    nz_ptr,
-    nz_state,
-    pred_ptr,
-    pred_src,
-    pred_p,
-    succ_ptr,
-    succ_dst,
-    succ_p,
-    mode,
-    block,
-    start_acc,
-    trans_acc,
-    end_acc,
-    emit_acc,
-):
-    if mode == MODE_PAIRS:
-        return _accumulate_pairs(
-            codes,
-            start,
-            end,
-            E,
-            T,
-            TT,
-            nz_ptr,
-            nz_state,
-            block,
-            start_acc,
-            trans_acc,
-            end_acc,
-            emit_acc,
-        )
-    return _accumulate_lists(
-        codes,
-        start,
-        end,
-        E,
-        nz_ptr,
-        nz_state,
-        pred_ptr,
-        pred_src,
-        pred_p,
-        succ_ptr,
-        succ_dst,
-        succ_p,
-        block,
-        start_acc,
-        trans_acc,
-        end_acc,
-        emit_acc,
-    )
+# does not inline them reliably, and a call per position costs more than the work; for
+# the two-state kernels a shared step made the forward pass 60x slower, see small.py).
 
 
 @njit(**_JIT)

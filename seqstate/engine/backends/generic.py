@@ -18,6 +18,8 @@ if TYPE_CHECKING:
 Array = np.ndarray
 #: A posterior's checkpoints: forward vectors, their log scales, backward vectors, theirs.
 Checkpoints = tuple[Array, Array, Array, Array]
+#: Emission factors, the states that emit each code, and the moves into (or out of) a state.
+Moves = tuple[Array, Array, Array, Array, Array, Array]
 
 
 class GenericBackend:
@@ -29,6 +31,10 @@ class GenericBackend:
     """
 
     name = "generic"
+    #: argument groups of the kernels (see ``__init__``)
+    fwd: Moves
+    bwd: Moves
+    vit: tuple[np.ndarray, ...]
 
     def __init__(self, tables: EngineTables) -> None:
         t = self.t = tables

@@ -19,6 +19,7 @@ class SmallBackend(GenericBackend):
     have the generic meaning, so the vector and segment queries are the generic ones."""
 
     name = "small"
+    steps: tuple[np.ndarray, ...]
 
     def __init__(self, tables: EngineTables, sm: small.SmallTables) -> None:
         super().__init__(tables)
