@@ -185,6 +185,18 @@ def accumulate(
 
 
 @njit(**_JIT)
+def _first_vector(a, c, start, E, nz_ptr, nz_state):
+    """a[s] = start[s] E[c, s] for the states that emit code ``c``; returns the sum."""
+    total = 0.0
+    for q in range(nz_ptr[c], nz_ptr[c + 1]):
+        s = nz_state[q]
+        v = start[s] * E[c, s]
+        a[s] = v
+        total += v
+    return total
+
+
+@njit(**_JIT)
 def _accumulate_pairs(
     codes, start, end, E, T, TT, nz_ptr, nz_state, block, start_acc, trans_acc, end_acc, emit_acc
 ):
@@ -198,12 +210,7 @@ def _accumulate_pairs(
     b = np.zeros(m)
     logscale = 0.0
     c = codes[0]
-    total = 0.0
-    for q in range(nz_ptr[c], nz_ptr[c + 1]):
-        s = nz_state[q]
-        v = start[s] * E[c, s]
-        a[s] = v
-        total += v
+    total = _first_vector(a, c, start, E, nz_ptr, nz_state)
     if total == 0.0:
         return -np.inf, 0
     if total < RESCALE_BELOW:
@@ -365,12 +372,7 @@ def _accumulate_lists(
     b = np.zeros(m)
     logscale = 0.0
     c = codes[0]
-    total = 0.0
-    for q in range(nz_ptr[c], nz_ptr[c + 1]):
-        s = nz_state[q]
-        v = start[s] * E[c, s]
-        a[s] = v
-        total += v
+    total = _first_vector(a, c, start, E, nz_ptr, nz_state)
     if total == 0.0:
         return -np.inf, 0
     if total < RESCALE_BELOW:
