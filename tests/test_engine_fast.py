@@ -1073,3 +1073,43 @@ def test_chain_sparse_restricted_equals_generic_kernel(specialised):
                     continue
                 # generic restricted_forward as oracle
                 _close_to_row_max(got * np.exp(lg - rl), ref, 1e-10)
+
+
+# ----------------------------------------------------------------- the choice of family
+def test_prepare_chooses_the_family_once_and_names_it(monkeypatch):
+    """prepare(kernels=...) picks the family; tables.kernels names the one that runs."""
+    monkeypatch.delenv("SEQSTATE_KERNELS", raising=False)
+    two, chains = load_model("cpg-island"), _chain_model(71, 150, 2, True)
+    assert api.prepare(two).kernels == "small"
+    assert api.prepare(chains).kernels == "sparse"
+    assert api.prepare(two, kernels="generic").kernels == "generic"
+    assert api.prepare(chains, kernels="sparse").kernels == "sparse"
+    with pytest.raises(ValueError, match="does not fit the sparse kernels"):
+        api.prepare(two, kernels="sparse")
+    with pytest.raises(ValueError, match="does not fit the small kernels"):
+        api.prepare(chains, kernels="small")
+    with pytest.raises(ValueError, match="kernels must be one of"):
+        api.prepare(two, kernels="fast")
+    # the environment variable is only the default of the argument
+    monkeypatch.setenv("SEQSTATE_KERNELS", "generic")
+    assert api.prepare(two).kernels == "generic"
+    assert api.prepare(two, kernels="auto").kernels == "small"
+
+
+@pytest.mark.parametrize("name", ["cpg-island-8", "chains"])
+def test_named_family_agrees_with_generic(specialised, name):
+    """The specialised family chosen by name against the generic family on one record
+    (the generic kernels as oracle)."""
+    model = load_model(name) if name != "chains" else _chain_model(72, 120, 2, True)
+    fast = api.prepare(model, kernels="small" if name != "chains" else "sparse")
+    slow = api.prepare(model, kernels="generic")
+    assert (fast.kernels, slow.kernels) == ("small" if name != "chains" else "sparse", "generic")
+    rng = np.random.default_rng(72)
+    codes = _possible_chain(fast, rng, 1500, p_unknown=0.01)
+    lf, ls = api.loglik(fast, codes), api.loglik(slow, codes)
+    assert abs(lf - ls) <= 1e-10 * abs(ls)
+    pf = api.posterior(fast, codes, dtype=np.float64)
+    ps = api.posterior(slow, codes, dtype=np.float64)
+    np.testing.assert_allclose(pf.values, ps.values, rtol=0, atol=1e-10)
+    (path_f, lp_f), (path_s, lp_s) = api.viterbi(fast, codes), api.viterbi(slow, codes)
+    assert np.array_equal(path_f, path_s) and lp_f == lp_s  # Viterbi is bit-identical
