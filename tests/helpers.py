@@ -31,17 +31,13 @@ __all__ = ["kernel_family", "random_model", "random_rows", "sample_record"]
 def kernel_family(tables) -> str:
     """The kernel family the engine serves ``tables`` with: "small", "sparse" or "generic".
 
-    Asked through the engine's own selection functions, under the current kernel
-    switch (see conftest ``engine_kernels``), so that a test comparing the
+    Asked through the engine's own dispatch (``api.backend_of``), under the current
+    kernel switch (see conftest ``engine_kernels``), so that a test comparing the
     specialised kernels with the generic ones can assert which family really ran.
     """
     from seqstate.engine import api
 
-    if api._small_of(tables) is not None:
-        return "small"
-    if api._sparse_of(tables) is not None:
-        return "sparse"
-    return "generic"
+    return api.backend_of(tables).name
 
 
 # ----------------------------------------------------------------- random models

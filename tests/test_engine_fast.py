@@ -23,7 +23,16 @@ import numpy as np
 import pytest
 from helpers import kernel_family, random_model, random_rows, sample_record
 
-from seqstate.engine import api, kernels, reference, small, sparse
+from seqstate.engine import (
+    _common,
+    api,
+    kernels,
+    kernels_query,
+    reference,
+    small,
+    sparse,
+    sparse_query,
+)
 from seqstate.engine.buffers import work_buffer
 from seqstate.errors import ImpossibleSequenceError
 from seqstate.io.tables import load_model
@@ -73,7 +82,7 @@ def _possible(tables, rng, n, p_unknown=0.1):
 # ----------------------------------------------------------------- generic calls
 def _limit(t):
     """The rescaling threshold the API uses for ``t`` (model-dependent, see kernels)."""
-    return kernels.rescale_limit(small.smallest_factor(t))
+    return _common.rescale_limit(_common.smallest_factor(t.pred_p, t.E))
 
 
 def _generic_loglik(t, codes):
@@ -389,6 +398,7 @@ def test_impossible_record_is_reported_with_its_position(specialised):
 def specialised(monkeypatch):
     """The API's normal dispatch, even when the run sets SEQSTATE_KERNELS=generic."""
     monkeypatch.setattr(api, "_USE_SMALL", True)
+    monkeypatch.delenv("SEQSTATE_KERNELS", raising=False)
 
 
 def _sparse_kernels_used(t):
@@ -628,7 +638,7 @@ def test_chain_sparse_impossible_record_reports_the_generic_positions(specialise
     ):
         with pytest.raises(ImpossibleSequenceError, match="position 58"):
             call()
-    sp = api._sparse_of(t)
+    sp = t.backend.sp
     lim = _limit(t)
     assert (
         sparse.forward_loglik(
@@ -638,7 +648,7 @@ def test_chain_sparse_impossible_record_reports_the_generic_positions(specialise
     )
     for block in (1, 5, 1000):
         path = work_buffer(bad.shape[0], np.int16)
-        got = sparse.viterbi_checkpointed(
+        got = sparse_query.viterbi_checkpointed(
             bad,
             sp.log_start,
             sp.log_end,
@@ -659,7 +669,7 @@ def test_chain_sparse_impossible_record_reports_the_generic_positions(specialise
             sp.p_src,
             sp.p_lp,
             block,
-            *sparse.viterbi_scratch(sp, bad.shape[0], block),
+            *sparse_query.viterbi_scratch(sp, bad.shape[0], block),
             path,
         )
         assert got[1] == _generic_viterbi(t, bad, block)[2] == 57
@@ -722,7 +732,7 @@ def test_restricted_forward_masked_path_matches_plain_and_oracle(name):
     small-model loop (called directly) and as the dense NumPy oracle above."""
     model = load_model(name) if name != "chains" else _chain_model(41, 160, 2, True)
     t = api.prepare(model)
-    assert t.n_states >= kernels.RESTRICTED_MASKED_MIN
+    assert t.n_states >= kernels_query.RESTRICTED_MASKED_MIN
     rng = np.random.default_rng(41)
     codes = _possible(t, rng, 1500, p_unknown=0.01)
     post = api.posterior(t, codes)
@@ -736,7 +746,7 @@ def test_restricted_forward_masked_path_matches_plain_and_oracle(name):
         for mask in (labels == 0, labels != 0, np.ones(t.n_states, dtype=bool)):
             for use_e in (True, False):
                 got = work_buffer(t.n_states)
-                lg = kernels.restricted_forward(
+                lg = kernels_query.restricted_forward(
                     codes,
                     s0,
                     e0,
@@ -751,10 +761,10 @@ def test_restricted_forward_masked_path_matches_plain_and_oracle(name):
                     t.pred_src,
                     t.pred_p,
                     got,
-                    *kernels.restricted_scratch(t.n_states, t.pred_src.shape[0]),
+                    *kernels_query.restricted_scratch(t.n_states, t.pred_src.shape[0]),
                 )
                 plain = work_buffer(t.n_states)
-                lp = kernels._restricted_plain(
+                lp = kernels_query._restricted_plain(
                     codes,
                     s0,
                     e0,
@@ -851,7 +861,7 @@ def test_chain_sparse_segment_queries_equal_generic(monkeypatch, name, seed, n, 
     assert any(np.isfinite(lp) and lp < -1e-3 for lp, _ in want)  # informative cases
     assert any(lp == -np.inf for lp, _ in want)  # and impossible ones
     post = api.posterior(t, codes, block=block, dtype=np.float64)
-    assert "_sparse_cursor" not in post.__dict__
+    assert post.cursor is None
     for order in (
         np.argsort([q[0] for q in queries], kind="stable"),
         np.arange(len(queries))[::-1],
@@ -864,7 +874,7 @@ def test_chain_sparse_segment_queries_equal_generic(monkeypatch, name, seed, n, 
             # generic kernels as oracle
             assert _same_score(lp, want[j][0]), (j, lp, want[j][0])
             assert _same_score(lo, want[j][1]), (j, lo, want[j][1])
-    assert "_sparse_cursor" in post.__dict__  # the chain-sparse path really ran
+    assert post.cursor is not None  # the chain-sparse path really ran
     for k, p in enumerate(range(0, n, 97)):
         (fv, fl), (bv, bl) = (
             api.forward_vector(t, codes, post, p),
@@ -877,7 +887,7 @@ def test_chain_sparse_segment_queries_equal_generic(monkeypatch, name, seed, n, 
 
 
 def test_chain_sparse_restricted_equals_generic_kernel(specialised):
-    """api._restricted on the chain-sparse path against kernels.restricted_forward
+    """The chain-sparse backend's restricted forward against kernels_query.restricted_forward
     (the generic kernel as oracle), with and without emissions."""
     model = _chain_model(61, 140, 1, False)
     t = api.prepare(model)
@@ -894,9 +904,9 @@ def test_chain_sparse_restricted_equals_generic_kernel(specialised):
             is_start = False
         for mask in (labels == 0, labels != 0, np.ones(t.n_states, dtype=bool)):
             for use_e in (True, False):
-                got, lg = api._restricted(t, codes, s0, e0, init, is_start, mask, use_e)
+                got, lg = t.backend.restricted(codes, s0, e0, init, is_start, mask, use_e)
                 ref = work_buffer(t.n_states)
-                rl = kernels.restricted_forward(
+                rl = kernels_query.restricted_forward(
                     codes,
                     s0,
                     e0,
@@ -911,10 +921,50 @@ def test_chain_sparse_restricted_equals_generic_kernel(specialised):
                     t.pred_src,
                     t.pred_p,
                     ref,
-                    *kernels.restricted_scratch(t.n_states, t.pred_src.shape[0]),
+                    *kernels_query.restricted_scratch(t.n_states, t.pred_src.shape[0]),
                 )
                 if rl == -np.inf:
                     assert lg == -np.inf
                     continue
                 # generic restricted_forward as oracle
                 _close_to_row_max(got * np.exp(lg - rl), ref, 1e-10)
+
+
+# ----------------------------------------------------------------- the choice of family
+def test_prepare_chooses_the_family_once_and_names_it(monkeypatch):
+    """prepare(kernels=...) picks the family; tables.kernels names the one that runs."""
+    monkeypatch.delenv("SEQSTATE_KERNELS", raising=False)
+    two, chains = load_model("cpg-island"), _chain_model(71, 150, 2, True)
+    assert api.prepare(two).kernels == "small"
+    assert api.prepare(chains).kernels == "sparse"
+    assert api.prepare(two, kernels="generic").kernels == "generic"
+    assert api.prepare(chains, kernels="sparse").kernels == "sparse"
+    with pytest.raises(ValueError, match="does not fit the sparse kernels"):
+        api.prepare(two, kernels="sparse")
+    with pytest.raises(ValueError, match="does not fit the small kernels"):
+        api.prepare(chains, kernels="small")
+    with pytest.raises(ValueError, match="kernels must be one of"):
+        api.prepare(two, kernels="fast")
+    # the environment variable is only the default of the argument
+    monkeypatch.setenv("SEQSTATE_KERNELS", "generic")
+    assert api.prepare(two).kernels == "generic"
+    assert api.prepare(two, kernels="auto").kernels == "small"
+
+
+@pytest.mark.parametrize("name", ["cpg-island-8", "chains"])
+def test_named_family_agrees_with_generic(specialised, name):
+    """The specialised family chosen by name against the generic family on one record
+    (the generic kernels as oracle)."""
+    model = load_model(name) if name != "chains" else _chain_model(72, 120, 2, True)
+    fast = api.prepare(model, kernels="small" if name != "chains" else "sparse")
+    slow = api.prepare(model, kernels="generic")
+    assert (fast.kernels, slow.kernels) == ("small" if name != "chains" else "sparse", "generic")
+    rng = np.random.default_rng(72)
+    codes = _possible_chain(fast, rng, 1500, p_unknown=0.01)
+    lf, ls = api.loglik(fast, codes), api.loglik(slow, codes)
+    assert abs(lf - ls) <= 1e-10 * abs(ls)
+    pf = api.posterior(fast, codes, dtype=np.float64)
+    ps = api.posterior(slow, codes, dtype=np.float64)
+    np.testing.assert_allclose(pf.values, ps.values, rtol=0, atol=1e-10)
+    (path_f, lp_f), (path_s, lp_s) = api.viterbi(fast, codes), api.viterbi(slow, codes)
+    assert np.array_equal(path_f, path_s) and lp_f == lp_s  # Viterbi is bit-identical

@@ -28,8 +28,7 @@ import numpy as np
 import pytest
 from helpers import kernel_family, sample_record
 
-from seqstate.engine import api, buffers, kernels, reference
-from seqstate.engine import sparse as _sparse
+from seqstate.engine import api, buffers, kernels_query, reference, sparse_query
 from seqstate.io.tables import load_model
 
 ENGINE = Path(api.__file__).resolve().parent
@@ -67,7 +66,7 @@ def test_poison_flag_is_read_from_the_environment_at_import():
 def test_no_engine_module_allocates_uninitialised_memory_itself():
     """np.empty / np.empty_like / np.ndarray(...) appear only inside buffers.py."""
     bad = []
-    for path in sorted(ENGINE.glob("*.py")):
+    for path in sorted(ENGINE.rglob("*.py")):
         if path.name == "buffers.py":
             continue
         for node in ast.walk(ast.parse(path.read_text())):
@@ -85,8 +84,9 @@ def test_chain_sparse_restricted_forward_never_reads_the_work_array_it_is_given(
     numbers or zeros).  Before the fix the dummy slot 0 of both rows was read."""
     model = load_model("gene-segment")
     t = api.prepare(model)
-    sp = api._sparse_of(t)
-    assert sp is not None
+    assert t.kernels == "sparse"
+    backend = t.backend
+    sp = backend.sp
     codes = api.encode(t, _record(model, t, 1200, seed=7))
     post = api.posterior(t, codes, block=100)
     m = t.n_states
@@ -96,16 +96,14 @@ def test_chain_sparse_restricted_forward_never_reads_the_work_array_it_is_given(
         row = np.zeros((1, m + 2))
         if s0 > 0:
             vec, _ = api.forward_vector(t, codes, post, s0 - 1)
-            _sparse.to_slots(vec, sp.perm, row, 0)
+            sparse_query.to_slots(vec, sp.perm, row, 0)
         for mask in (labels == 0, labels != 0, np.ones(m, dtype=bool)):
-            maskf = api._mask_slots(sp, mask)
+            maskf = backend.mask_slots(mask)
             for use_e in (True, False):
                 got = []
                 for fill in (0.0, np.nan, 1e300, -3.0):
                     work = np.full((2, m + 2), fill)
-                    ex = api._sparse_restricted(
-                        t, sp, codes, s0, e0, row, s0 == 0, maskf, use_e, work
-                    )
+                    ex = backend.restricted_slots(codes, s0, e0, row, s0 == 0, maskf, use_e, work)
                     got.append((ex, work[0].copy()))
                 want_ex, want_row = got[0]
                 if want_ex == -np.inf:
@@ -159,7 +157,7 @@ def _run_all(t, model, codes, block):
             init, _ = api.forward_vector(t, codes, post, s0 - 1)
             is_start = False
         for use_e in (True, False):
-            vec, lg = api._restricted(t, codes, s0, e0, init, is_start, mask, use_e)
+            vec, lg = api.backend_of(t).restricted(codes, s0, e0, init, is_start, mask, use_e)
             out += [vec, lg]
     assert post.values.shape == (n, m)
     return out, post
@@ -220,7 +218,7 @@ def test_generic_restricted_forward_masked_path_with_poisoned_scratch():
     nothing."""
     model = load_model("gene-segment")
     t = api.prepare(model)
-    assert t.n_states >= kernels.RESTRICTED_MASKED_MIN
+    assert t.n_states >= kernels_query.RESTRICTED_MASKED_MIN
     codes = api.encode(t, _record(model, t, 600, seed=3))
     labels = model.label_index()
     nnz = t.pred_src.shape[0]
@@ -234,7 +232,7 @@ def test_generic_restricted_forward_masked_path_with_poisoned_scratch():
             results = []
             for fill_i, fill_f, extra in ((0, 0.0, 0), (-7777777, np.nan, 0), (-1, np.nan, 50)):
                 out = np.full(t.n_states, np.nan)
-                lg = kernels.restricted_forward(
+                lg = kernels_query.restricted_forward(
                     codes,
                     s0,
                     e0,

@@ -3,238 +3,70 @@
 Coordinates are 0-based; segment bounds are half-open ``[start0, end0)``.
 Log-likelihoods and log probabilities are natural logs.
 
-Emission codes
---------------
-A record is turned into one integer code per position.  For an order-k model
-over A symbols, the code of position i names the emission row to use:
-``offsets[j] + context * A + symbol`` where ``j`` is the length of the longest
-clean context before i (``j = k`` except within k bases after the record start
-or after an unknown base) and ``context`` reads those j symbols in base A.  The
-last code stands for an unknown symbol (N, IUPAC ambiguity codes, gaps) whose
-emission factor is 1 in every state (the base is marginalised).
-
-Back-off rows (order j < k) come from the model's explicit lower-order rows when
-it has them; otherwise they are derived from the order-k table of each state,
-weighted by the stationary k-mer frequencies of that state's own order-k chain:
-``P_j(x | c') = sum_u pi(u c') P(x | u c') / sum_u pi(u c')`` over the k-mers
-``u c'`` that end in ``c'`` (uniform weights if every such k-mer has zero
-frequency).  The stationary frequencies are found by power iteration of the
-lazy chain ``(I + P) / 2``, which has the same fixed point and always converges.
+The kernel family of a model is chosen once, by :func:`prepare` (see
+:mod:`seqstate.engine.backends`); the functions here check their arguments,
+hand the work to ``tables.backend`` and turn a failing position into an error.
+Emission codes and back-off rows: see :mod:`seqstate.engine.tables`.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
+from numpy.typing import DTypeLike
 
 from seqstate.engine import kernels
+from seqstate.engine._common import MIN_BLOCK, default_block
+from seqstate.engine.backends import Backend
 from seqstate.engine.buffers import work_buffer
+from seqstate.engine.tables import (
+    KERNEL_CHOICES,
+    EngineTables,
+    backoff_rows,
+    default_kernels,
+    encode,
+    encode_symbols,
+    prepare,
+    stationary_kmers,
+    symbols_of,
+)
 from seqstate.errors import ImpossibleSequenceError
-from seqstate.model import Model
 
-#: Default checkpoint block length for records longer than this (about sqrt(N) otherwise).
-MIN_BLOCK = 1024
+__all__ = [
+    "KERNEL_CHOICES",
+    "MIN_BLOCK",
+    "EngineTables",
+    "Posterior",
+    "backoff_rows",
+    "backend_of",
+    "backward_vector",
+    "default_block",
+    "default_kernels",
+    "encode",
+    "encode_symbols",
+    "forward_vector",
+    "loglik",
+    "posterior",
+    "prepare",
+    "segment_log_odds",
+    "segment_log_probability",
+    "stationary_kmers",
+    "symbols_of",
+    "viterbi",
+]
 
-
-@dataclass
-class EngineTables:
-    """Everything a kernel needs for one model, as plain arrays (see kernels module)."""
-
-    n_states: int
-    n_symbols: int
-    order: int
-    start: np.ndarray
-    end: np.ndarray
-    log_start: np.ndarray
-    log_end: np.ndarray
-    pred_ptr: np.ndarray
-    pred_src: np.ndarray
-    pred_p: np.ndarray
-    pred_logp: np.ndarray
-    succ_ptr: np.ndarray
-    succ_dst: np.ndarray
-    succ_p: np.ndarray
-    E: np.ndarray
-    logE: np.ndarray
-    nz_ptr: np.ndarray
-    nz_state: np.ndarray
-    offsets: np.ndarray
-    unknown_code: int
-    symbol_lookup: np.ndarray
-    transitions: np.ndarray
+#: Process-wide switch of the test suite's kernel fixture: when False, every call runs
+#: the generic family whatever the tables chose (``tables.generic``).  It starts False
+#: when the environment variable SEQSTATE_KERNELS is "generic".
+_USE_SMALL = default_kernels() != "generic"
 
 
-def _log(x: np.ndarray) -> np.ndarray:
-    with np.errstate(divide="ignore"):
-        return np.log(x)
-
-
-def stationary_kmers(cond: np.ndarray, n_symbols: int, order: int) -> np.ndarray:
-    """Stationary k-mer frequencies of an order-k chain with rows ``cond[c, x]``.
-
-    ``cond`` has shape (A**k, A).  Returns a vector of length A**k summing to 1.
-    """
-    a, k = n_symbols, order
-    size = a**k
-    pi = np.full(size, 1.0 / size)
-    inner = a ** (k - 1)
-    p3 = cond.reshape(a, inner, a)
-    for _ in range(20000):
-        step = (pi.reshape(a, inner)[:, :, None] * p3).sum(axis=0).reshape(size)
-        new = 0.5 * (pi + step)
-        new /= new.sum()
-        if np.max(np.abs(new - pi)) < 1e-15:
-            pi = new
-            break
-        pi = new
-    return pi
-
-
-def backoff_rows(model: Model) -> dict[int, np.ndarray]:
-    """Emission rows for every order j < k: explicit rows where given, else derived."""
-    a, k, m = len(model.alphabet), model.order, model.n_states
-    out: dict[int, np.ndarray] = {}
-    if k == 0:
-        return out
-    weights = work_buffer((m, a**k))
-    for s in range(m):
-        weights[s] = stationary_kmers(model.emissions[s], a, k)
-    for j in range(k):
-        # group the k-mers by their last j symbols: index = c % a**j
-        w = weights.reshape(m, a ** (k - j), a**j)
-        p = model.emissions.reshape(m, a ** (k - j), a**j, a)
-        num = (w[:, :, :, None] * p).sum(axis=1)
-        den = w.sum(axis=1)
-        uniform = p.mean(axis=1)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            derived = np.where(den[:, :, None] > 0, num / den[:, :, None], uniform)
-        derived /= derived.sum(axis=-1, keepdims=True)
-        given = model.lower_emissions.get(j)
-        if given is not None:
-            have = ~np.all(np.isnan(given), axis=-1)
-            derived[have] = given[have]
-        out[j] = derived
-    return out
-
-
-def prepare(model: Model) -> EngineTables:
-    """Build the kernel arrays of ``model`` (once per model, cheap)."""
-    m = model.n_states
-    a = len(model.alphabet)
-    k = model.order
-    T = np.ascontiguousarray(model.transitions, dtype=np.float64)
-    allowed = T > 0
-    # by to-state (predecessor lists, from-states ascending)
-    pred_ptr = np.zeros(m + 1, dtype=np.int64)
-    pred_src_l, pred_p_l = [], []
-    for t in range(m):
-        src = np.flatnonzero(allowed[:, t])
-        pred_src_l.append(src)
-        pred_p_l.append(T[src, t])
-        pred_ptr[t + 1] = pred_ptr[t] + src.size
-    pred_src = np.concatenate(pred_src_l).astype(np.int64) if m else np.zeros(0, np.int64)
-    pred_p = np.concatenate(pred_p_l).astype(np.float64)
-    succ_ptr = np.zeros(m + 1, dtype=np.int64)
-    succ_dst_l, succ_p_l = [], []
-    for s in range(m):
-        dst = np.flatnonzero(allowed[s])
-        succ_dst_l.append(dst)
-        succ_p_l.append(T[s, dst])
-        succ_ptr[s + 1] = succ_ptr[s] + dst.size
-    succ_dst = np.concatenate(succ_dst_l).astype(np.int64)
-    succ_p = np.concatenate(succ_p_l).astype(np.float64)
-    # emission codes
-    offsets = np.zeros(k + 2, dtype=np.int64)
-    for j in range(k + 1):
-        offsets[j + 1] = offsets[j] + a ** (j + 1)
-    n_codes = int(offsets[k + 1]) + 1
-    E = np.zeros((n_codes, m))
-    lower = backoff_rows(model)
-    for j in range(k + 1):
-        rows = model.emissions if j == k else lower[j]  # (m, a**j, a)
-        block = rows.reshape(m, a ** (j + 1)).T  # code-major
-        E[offsets[j] : offsets[j + 1], :] = block
-    E[n_codes - 1, :] = 1.0
-    nz_ptr = np.zeros(n_codes + 1, dtype=np.int64)
-    nz_list = []
-    for c in range(n_codes):
-        idx = np.flatnonzero(E[c] > 0)
-        nz_list.append(idx)
-        nz_ptr[c + 1] = nz_ptr[c] + idx.size
-    nz_state = np.concatenate(nz_list).astype(np.int64)
-    end = np.ones(m) if model.end is None else np.asarray(model.end, dtype=np.float64)
-    lookup = np.full(256, -1, dtype=np.int8)
-    fold = not any(ch.islower() for ch in model.alphabet)
-    for i, ch in enumerate(model.alphabet):
-        lookup[ord(ch)] = i
-        if fold and ch.isalpha():
-            lookup[ord(ch.lower())] = i
-    return EngineTables(
-        n_states=m,
-        n_symbols=a,
-        order=k,
-        start=np.asarray(model.start, dtype=np.float64),
-        end=end,
-        log_start=_log(model.start),
-        log_end=_log(end),
-        pred_ptr=pred_ptr,
-        pred_src=pred_src,
-        pred_p=pred_p,
-        pred_logp=_log(pred_p),
-        succ_ptr=succ_ptr,
-        succ_dst=succ_dst,
-        succ_p=succ_p,
-        E=np.ascontiguousarray(E),
-        logE=np.ascontiguousarray(_log(E)),
-        nz_ptr=nz_ptr,
-        nz_state=nz_state,
-        offsets=offsets,
-        unknown_code=n_codes - 1,
-        symbol_lookup=lookup,
-        transitions=T,
-    )
-
-
-def symbols_of(
-    tables: EngineTables, seq: bytes | str | np.ndarray, *, masked_unknown: bool = False
-) -> np.ndarray:
-    """Symbol index per position (int8), -1 for anything outside the alphabet.
-
-    Lowercase (soft-masked) bases read as their base unless ``masked_unknown``.
-    """
-    if isinstance(seq, str):
-        seq = seq.encode("ascii")
-    raw = np.frombuffer(seq, dtype=np.uint8) if isinstance(seq, (bytes, bytearray)) else seq
-    sym = tables.symbol_lookup[raw]
-    if masked_unknown:
-        lower = (raw >= ord("a")) & (raw <= ord("z"))
-        sym = np.where(lower, np.int8(-1), sym)
-    return sym
-
-
-def encode(
-    tables: EngineTables, seq: bytes | str | np.ndarray, *, masked_unknown: bool = False
-) -> np.ndarray:
-    """Emission codes of one record (see module docstring); smallest fitting unsigned dtype."""
-    return encode_symbols(tables, symbols_of(tables, seq, masked_unknown=masked_unknown))
-
-
-def encode_symbols(tables: EngineTables, sym: np.ndarray) -> np.ndarray:
-    """Emission codes from symbol indices (int8, -1 unknown) as :func:`symbols_of` gives."""
-    n_codes = tables.unknown_code + 1
-    dtype = np.uint8 if n_codes <= 256 else np.uint16 if n_codes <= 65536 else np.int32
-    out = work_buffer(sym.shape[0], dtype)
-    kernels.encode_codes(
-        sym, tables.order, tables.n_symbols, tables.offsets, tables.unknown_code, out
-    )
-    return out
-
-
-def default_block(n: int) -> int:
-    """Checkpoint block length: about sqrt(N), at least :data:`MIN_BLOCK`."""
-    return max(MIN_BLOCK, int(math.isqrt(max(n, 1))) + 1)
+def backend_of(tables: EngineTables) -> Backend:
+    """The kernel family that serves ``tables`` now: ``tables.backend``, or the generic
+    family while :data:`_USE_SMALL` is off."""
+    return tables.backend if _USE_SMALL else tables.generic
 
 
 def _raise_impossible(tables: EngineTables, codes: np.ndarray, record: str | None) -> None:
@@ -263,39 +95,7 @@ def loglik(tables: EngineTables, codes: np.ndarray, *, record: str | None = None
     """Total log-likelihood (natural log) of one encoded record."""
     if codes.shape[0] == 0:
         raise ValueError("empty record")
-    sm = _small_of(tables)
-    sp = _sparse_of(tables) if sm is None else None
-    if sm is not None:
-        ll, pos = _small.forward_loglik(
-            codes, sm.start, sm.end, sm.K, sm.st, sm.wide, sm.cls, sm.W, sm.T, sm.E, sm.lim
-        )
-    elif sp is not None:
-        ll, pos = _sparse.forward_loglik(
-            codes,
-            sp.start,
-            sp.end,
-            sp.E,
-            sp.w1,
-            sp.f_ptr,
-            sp.f_n0,
-            sp.f_dst,
-            sp.f_src,
-            sp.f_w,
-            _limit_of(tables),
-        )
-    else:
-        ll, pos = kernels.forward_loglik(
-            codes,
-            tables.start,
-            tables.end,
-            tables.E,
-            tables.nz_ptr,
-            tables.nz_state,
-            tables.pred_ptr,
-            tables.pred_src,
-            tables.pred_p,
-            _limit_of(tables),
-        )
+    ll, pos = backend_of(tables).loglik(codes)
     if pos >= 0:
         _raise_impossible(tables, codes, record)
     return ll
@@ -307,7 +107,8 @@ class Posterior:
 
     ``values[i, g]`` is the posterior of group g at 0-based position i (groups are
     states or labels, as requested).  The checkpoints let segment queries
-    recompute forward and backward vectors anywhere in O(block) time.
+    recompute forward and backward vectors anywhere in O(block) time; ``cursor``
+    is the query state a kernel family may keep between such queries.
     """
 
     loglik: float
@@ -317,6 +118,7 @@ class Posterior:
     alpha_ck_log: np.ndarray
     beta_ck: np.ndarray
     beta_ck_log: np.ndarray
+    cursor: object = field(default=None, init=False, repr=False, compare=False)
 
 
 def posterior(
@@ -326,7 +128,7 @@ def posterior(
     group: np.ndarray | None = None,
     n_groups: int | None = None,
     block: int | None = None,
-    dtype=np.float32,
+    dtype: DTypeLike = np.float32,
     record: str | None = None,
 ) -> Posterior:
     """Posteriors summed by ``group`` (state -> column, -1 to drop); per state by default.
@@ -350,92 +152,11 @@ def posterior(
     block = default_block(n) if block is None else max(1, min(int(block), n))
     nblocks = (n + block - 1) // block
     out = np.zeros((n, n_groups), dtype=dtype)
-    alpha_ck = np.zeros((nblocks, m))
-    beta_ck = np.zeros((nblocks, m))
-    alpha_log = np.zeros(nblocks)
-    beta_log = np.zeros(nblocks)
-    sm = _small_of(tables)
-    keyed = n_groups <= _sparse.MAX_KEYED_GROUPS
-    sp = _sparse_of(tables, group if keyed else None, n_groups) if sm is None else None
-    if sm is not None:
-        gc = _small.group_table(sm, group)
-        ll, pos = _small.posterior_checkpointed(
-            codes,
-            sm.start,
-            sm.end,
-            sm.K,
-            sm.st,
-            sm.wide,
-            sm.cls,
-            sm.W,
-            sm.T,
-            sm.E,
-            block,
-            gc,
-            out,
-            alpha_ck,
-            alpha_log,
-            beta_ck,
-            beta_log,
-            work_buffer(m),
-            sm.lim,
-        )
-    elif sp is not None:
-        ll, pos = _sparse.posterior_checkpointed(
-            codes,
-            sp.start,
-            sp.end,
-            sp.E,
-            sp.perm,
-            sp.w1,
-            sp.f_ptr,
-            sp.f_n0,
-            sp.f_dst,
-            sp.f_src,
-            sp.f_w,
-            sp.v1,
-            sp.b_ptr,
-            sp.b_n0,
-            sp.b_dst,
-            sp.b_src,
-            sp.b_w,
-            block,
-            _sparse.group_runs(sp, group, n_groups),
-            n_groups,
-            out,
-            alpha_ck,
-            alpha_log,
-            beta_ck,
-            beta_log,
-            _limit_of(tables),
-        )
-    else:
-        ll, pos = kernels.posterior_checkpointed(
-            codes,
-            tables.start,
-            tables.end,
-            tables.E,
-            tables.nz_ptr,
-            tables.nz_state,
-            tables.pred_ptr,
-            tables.pred_src,
-            tables.pred_p,
-            tables.succ_ptr,
-            tables.succ_dst,
-            tables.succ_p,
-            block,
-            group,
-            out,
-            alpha_ck,
-            alpha_log,
-            beta_ck,
-            beta_log,
-            *kernels.posterior_scratch(n, m, block),
-            _limit_of(tables),
-        )
+    ck = (np.zeros((nblocks, m)), np.zeros(nblocks), np.zeros((nblocks, m)), np.zeros(nblocks))
+    ll, pos = backend_of(tables).posterior(codes, group, n_groups, block, out, ck)
     if pos >= 0:
         _raise_impossible(tables, codes, record)
-    return Posterior(ll, out, block, alpha_ck, alpha_log, beta_ck, beta_log)
+    return Posterior(ll, out, block, ck[0], ck[1], ck[2], ck[3])
 
 
 def viterbi(
@@ -448,72 +169,10 @@ def viterbi(
     n = codes.shape[0]
     if n == 0:
         raise ValueError("empty record")
-    sm = _small_of(tables)
-    sp = _sparse_of(tables) if sm is None else None
-    if sp is not None and block is None:
-        # one pass when the whole record's back-pointers fit the budget
-        bp_bytes = n * (sp.n_multi + 1) * np.dtype(sp.bp_dtype).itemsize
-        block = n if bp_bytes <= _sparse.BACKPOINTER_BUDGET else None
-    block = default_block(n) if block is None else max(1, min(int(block), n))
-    dtype = np.int16 if tables.n_states < 32768 else np.int32
-    path = work_buffer(n, dtype)
-    if sp is not None:
-        lp, pos = _sparse.viterbi_checkpointed(
-            codes,
-            sp.log_start,
-            sp.log_end,
-            sp.logE,
-            sp.perm,
-            sp.inv,
-            sp.la1,
-            sp.f_ptr,
-            sp.f_n0,
-            sp.f_dst,
-            sp.f_src,
-            sp.f_lp,
-            sp.f_rank,
-            sp.f_col,
-            sp.tb_prev,
-            sp.tb_col,
-            sp.p_ptr,
-            sp.p_src,
-            sp.p_lp,
-            block,
-            *_sparse.viterbi_scratch(sp, n, block),
-            path,
-        )
-    elif sm is not None:
-        lp, pos = _small.viterbi_checkpointed(
-            codes,
-            sm.log_start,
-            sm.log_end,
-            sm.K,
-            sm.st,
-            sm.wide,
-            sm.cls,
-            sm.LT,
-            sm.LE,
-            sm.logT,
-            sm.logE,
-            block,
-            path,
-            *_small.viterbi_scratch(sm, n, block),
-        )
-    else:
-        lp, pos = kernels.viterbi_checkpointed(
-            codes,
-            tables.log_start,
-            tables.log_end,
-            tables.logE,
-            tables.nz_ptr,
-            tables.nz_state,
-            tables.pred_ptr,
-            tables.pred_src,
-            tables.pred_logp,
-            block,
-            path,
-            *kernels.viterbi_scratch(n, tables.n_states, block),
-        )
+    backend = backend_of(tables)
+    block = backend.viterbi_block(n, block)
+    path = work_buffer(n, np.int16 if tables.n_states < 32768 else np.int32)
+    lp, pos = backend.viterbi(codes, block, path)
     if pos >= 0:
         _raise_impossible(tables, codes, record)
     return path, lp
@@ -523,101 +182,14 @@ def forward_vector(
     tables: EngineTables, codes: np.ndarray, post: Posterior, pos: int
 ) -> tuple[np.ndarray, float]:
     """Scaled forward vector at ``pos`` and its natural-log scale."""
-    out = work_buffer(tables.n_states)
-    cur = _cursor_of(tables, codes, post)
-    if cur is not None:
-        row, lg = cur.forward(pos)
-        _sparse.from_slots(row, 0, cur.sp.perm, out)
-        return out, lg
-    lg = kernels.vector_at(
-        codes,
-        pos,
-        tables.start,
-        tables.E,
-        tables.nz_ptr,
-        tables.nz_state,
-        tables.pred_ptr,
-        tables.pred_src,
-        tables.pred_p,
-        post.block,
-        post.alpha_ck,
-        post.alpha_ck_log,
-        out,
-    )
-    return out, lg
+    return backend_of(tables).forward_vector(codes, post, pos)
 
 
 def backward_vector(
     tables: EngineTables, codes: np.ndarray, post: Posterior, pos: int
 ) -> tuple[np.ndarray, float]:
     """Scaled backward vector at ``pos`` and its natural-log scale."""
-    out = work_buffer(tables.n_states)
-    cur = _cursor_of(tables, codes, post)
-    if cur is not None:
-        row, lg = cur.backward(pos)
-        _sparse.from_slots(row, 0, cur.sp.perm, out)
-        return out, lg
-    lg = kernels.backward_vector_at(
-        codes,
-        pos,
-        tables.E,
-        tables.nz_ptr,
-        tables.nz_state,
-        tables.succ_ptr,
-        tables.succ_dst,
-        tables.succ_p,
-        post.block,
-        post.beta_ck,
-        post.beta_ck_log,
-        out,
-        work_buffer(tables.n_states),
-    )
-    return out, lg
-
-
-def _restricted(tables, codes, start0, end0, init, init_is_start, mask, use_emissions):
-    sp = _sparse_of(tables)
-    if sp is not None:
-        m = tables.n_states
-        row = np.zeros((1, m + 2))
-        if not init_is_start:
-            _sparse.to_slots(np.asarray(init, dtype=np.float64), sp.perm, row, 0)
-        work = work_buffer((2, m + 2))
-        lg = _sparse_restricted(
-            tables,
-            sp,
-            codes,
-            start0,
-            end0,
-            row,
-            init_is_start,
-            _mask_slots(sp, mask),
-            use_emissions,
-            work,
-        )
-        out = np.zeros(m)
-        if lg > -np.inf:
-            _sparse.from_slots(work, 0, sp.perm, out)
-        return out, lg
-    out = work_buffer(tables.n_states)
-    lg = kernels.restricted_forward(
-        codes,
-        start0,
-        end0,
-        init,
-        init_is_start,
-        mask,
-        use_emissions,
-        tables.E,
-        tables.nz_ptr,
-        tables.nz_state,
-        tables.pred_ptr,
-        tables.pred_src,
-        tables.pred_p,
-        out,
-        *kernels.restricted_scratch(tables.n_states, tables.pred_src.shape[0]),
-    )
-    return out, lg
+    return backend_of(tables).backward_vector(codes, post, pos)
 
 
 def segment_log_probability(
@@ -637,37 +209,7 @@ def segment_log_probability(
     if end0 <= start0:
         return 0.0  # an empty segment: the condition holds for every path
     mask = np.asarray(mask, dtype=np.bool_)
-    cur = _cursor_of(tables, codes, post)
-    if cur is not None:
-        sp = cur.sp
-        if start0 == 0:
-            init, init_log, is_start = cur.work, 0.0, True
-        else:
-            init, init_log = cur.forward(start0 - 1)
-            is_start = False
-        lg = _sparse_restricted(
-            tables, sp, codes, start0, end0, init, is_start, _mask_slots(sp, mask), True, cur.work
-        )
-        if lg == -np.inf:
-            return -np.inf
-        beta, blog = cur.backward(end0 - 1)
-        ld = _sparse.log_dot(cur.work, 0, beta, 0)
-        if ld == -np.inf:
-            return -np.inf
-        return min(0.0, ld + lg + init_log + blog - post.loglik)
-    if start0 == 0:
-        init, init_log, is_start = tables.start, 0.0, True
-    else:
-        init, init_log = forward_vector(tables, codes, post, start0 - 1)
-        is_start = False
-    vec, lg = _restricted(tables, codes, start0, end0, init, is_start, mask, True)
-    if lg == -np.inf:
-        return -np.inf
-    beta, blog = backward_vector(tables, codes, post, end0 - 1)
-    joint = float(np.dot(vec, beta))
-    if joint <= 0.0:
-        return -np.inf
-    return min(0.0, math.log(joint) + lg + init_log + blog - post.loglik)
+    return backend_of(tables).segment_log_probability(codes, post, start0, end0, mask)
 
 
 def segment_log_odds(
@@ -691,247 +233,9 @@ def segment_log_odds(
     if end0 <= start0:
         return 0.0  # an empty segment carries no evidence either way
     mask = np.asarray(mask, dtype=np.bool_)
-    cur = _cursor_of(tables, codes, post)
-    if cur is not None:
-        sp = cur.sp
-        if start0 == 0:
-            init, is_start = cur.work, True
-        else:
-            init, _ = cur.forward(start0 - 1)
-            is_start = False
-        terms = []
-        for msk in (mask, ~mask):
-            mf = _mask_slots(sp, msk)
-            l1 = _sparse_restricted(
-                tables, sp, codes, start0, end0, init, is_start, mf, True, cur.work
-            )
-            s1 = _sparse.log_dot(cur.work, 0, cur.ones, 0) if l1 > -np.inf else -math.inf
-            l0 = _sparse_restricted(
-                tables, sp, codes, start0, end0, init, is_start, mf, False, cur.work
-            )
-            if l0 == -np.inf:
-                terms.append(math.nan)
-                continue
-            if s1 == -math.inf:
-                terms.append(-math.inf)
-                continue
-            terms.append(s1 + l1 - _sparse.log_dot(cur.work, 0, cur.ones, 0) - l0)
-        return _odds_of(*terms)
-    if start0 == 0:
-        init, is_start = tables.start, True
-    else:
-        init, _ = forward_vector(tables, codes, post, start0 - 1)
-        is_start = False
-    terms = []
-    for msk in (mask, ~mask):
-        v1, l1 = _restricted(tables, codes, start0, end0, init, is_start, msk, True)
-        v0, l0 = _restricted(tables, codes, start0, end0, init, is_start, msk, False)
-        if l0 == -np.inf:
-            terms.append(math.nan)
-            continue
-        s1 = float(v1.sum())
-        if l1 == -np.inf or s1 <= 0:
-            terms.append(-math.inf)
-            continue
-        terms.append(math.log(s1) + l1 - math.log(float(v0.sum())) - l0)
-    return _odds_of(*terms)
-
-
-def _odds_of(inside: float, outside: float) -> float:
+    inside, outside = backend_of(tables).segment_log_odds_terms(codes, post, start0, end0, mask)
     if math.isnan(inside) or math.isnan(outside):
         return math.nan
     if inside == -math.inf and outside == -math.inf:
         return math.nan
     return inside - outside
-
-
-# ----------------------------------------------------------------- kernel dispatch
-import os as _os  # noqa: E402
-
-from seqstate.engine import small as _small  # noqa: E402
-from seqstate.engine import sparse as _sparse  # noqa: E402
-
-#: Set the environment variable SEQSTATE_KERNELS=generic to use only the generic kernels
-#: (neither :mod:`seqstate.engine.small` nor :mod:`seqstate.engine.sparse`).
-_USE_SMALL = _os.environ.get("SEQSTATE_KERNELS", "").strip().lower() != "generic"
-
-
-def _small_of(tables: EngineTables):
-    """The two-states-per-code tables of ``tables`` (built once, kept on the object), or None.
-
-    None when the model does not fit :mod:`seqstate.engine.small` or the
-    specialised kernels are switched off; the generic kernels then run.
-    """
-    if not _USE_SMALL:
-        return None
-    cached = tables.__dict__.get("_small_tables")
-    if cached is not None:
-        sm = cached[0]
-        if sm is None or _small.still_valid(sm, tables):
-            return sm
-    sm = _small.build(tables)
-    tables.__dict__["_small_tables"] = (sm,)
-    return sm
-
-
-def _sparse_of(tables: EngineTables, group: np.ndarray | None = None, n_groups: int = 0):
-    """The renumbered chain-sparse tables of ``tables``, or None (kept on the object).
-
-    With ``group`` (a posterior's state -> column array, for few columns) the
-    states of each column are numbered consecutively, so that the per-column sums
-    read contiguous ranges; such tables are kept per distinct ``group`` (a few at
-    most in practice).  None when the model does not fit :mod:`seqstate.engine.sparse`
-    (small, or not mostly chains) or the specialised kernels are switched off.
-    """
-    if not _USE_SMALL:
-        return None
-    key = None if group is None else _sparse.group_key(group, n_groups)
-    cache = tables.__dict__.setdefault("_sparse_tables", {})
-    name = None if key is None else key.tobytes()
-    sp = cache.get(name, False)
-    if sp is not False and (sp is None or _sparse.still_valid(sp, tables)):
-        return sp
-    if len(cache) > 16:
-        cache.clear()
-    sp = _sparse.build(tables, key) if _sparse.fits(tables) else None
-    cache[name] = sp
-    return sp
-
-
-def _limit_of(tables: EngineTables) -> float:
-    """The generic kernels' rescaling threshold for ``tables`` (kept on the object)."""
-    cached = tables.__dict__.get("_rescale_limit")
-    if cached is not None and cached[1] is tables.E and cached[2] is tables.pred_p:
-        return cached[0]
-    lim = kernels.rescale_limit(_small.smallest_factor(tables))
-    tables.__dict__["_rescale_limit"] = (lim, tables.E, tables.pred_p)
-    return lim
-
-
-# ----------------------------------------------------------------- chain-sparse segment queries
-class _Cursor:
-    """Forward and backward vectors of one posterior in the chain-sparse slots, reused.
-
-    Segment queries arrive mostly in position order, so the last forward vector
-    (and the last backward vector) recomputed from a checkpoint is kept: a later
-    query in the same block continues from it instead of from the checkpoint.
-    The steps and the rescaling decisions are those of a pass from the
-    checkpoint, so the result does not depend on the order of the queries.
-    """
-
-    def __init__(self, tables: EngineTables, sp, codes: np.ndarray, post: Posterior):
-        m = tables.n_states
-        self.sp, self.codes, self.post = sp, codes, post
-        self.alpha, self.beta = post.alpha_ck, post.beta_ck
-        self.lim = _limit_of(tables)
-        self.f = np.zeros((2, m + 2))
-        self.b = np.zeros((2, m + 2))
-        self.f_pos = self.b_pos = -1
-        self.f_log = self.b_log = 0.0
-        self.work = np.zeros((2, m + 2))
-        self.ones = np.ones((1, m + 2))
-
-    def forward(self, pos: int) -> tuple[np.ndarray, float]:
-        """Row 0 of the returned array: scaled forward vector at ``pos`` in slots; log scale."""
-        post, sp = self.post, self.sp
-        bk = pos // post.block
-        if not (0 <= self.f_pos <= pos and self.f_pos // post.block == bk):
-            _sparse.to_slots(post.alpha_ck[bk], sp.perm, self.f, 0)
-            self.f_pos, self.f_log = bk * post.block, float(post.alpha_ck_log[bk])
-        if pos > self.f_pos:
-            ex = _sparse.forward_advance(
-                self.codes,
-                self.f_pos,
-                pos,
-                self.f,
-                sp.w1,
-                sp.f_ptr,
-                sp.f_n0,
-                sp.f_dst,
-                sp.f_src,
-                sp.f_w,
-                self.lim,
-            )
-            self.f_pos, self.f_log = pos, self.f_log + ex * _LN2
-        return self.f, self.f_log
-
-    def backward(self, pos: int) -> tuple[np.ndarray, float]:
-        """Row 0 of the returned array: scaled backward vector at ``pos`` in slots; log scale."""
-        post, sp = self.post, self.sp
-        n = self.codes.shape[0]
-        bk = pos // post.block
-        if not (self.b_pos >= pos and self.b_pos // post.block == bk):
-            _sparse.to_slots(post.beta_ck[bk], sp.perm, self.b, 0)
-            self.b_pos = min(n, bk * post.block + post.block) - 1
-            self.b_log = float(post.beta_ck_log[bk])
-        if pos < self.b_pos:
-            ex = _sparse.backward_advance(
-                self.codes,
-                self.b_pos,
-                pos,
-                self.b,
-                sp.v1,
-                sp.b_ptr,
-                sp.b_n0,
-                sp.b_dst,
-                sp.b_src,
-                sp.b_w,
-                self.lim,
-            )
-            self.b_pos, self.b_log = pos, self.b_log + ex * _LN2
-        return self.b, self.b_log
-
-
-_LN2 = math.log(2.0)
-
-
-def _cursor_of(tables: EngineTables, codes: np.ndarray, post: Posterior):
-    """The chain-sparse query state of ``post`` (kept on it), or None for the generic path."""
-    sp = _sparse_of(tables)
-    if sp is None:
-        return None
-    cur = post.__dict__.get("_sparse_cursor")
-    if (
-        cur is None
-        or cur.sp is not sp
-        or cur.codes is not codes
-        or cur.post is not post
-        or cur.alpha is not post.alpha_ck
-        or cur.beta is not post.beta_ck
-    ):
-        cur = _Cursor(tables, sp, codes, post)
-        post.__dict__["_sparse_cursor"] = cur
-    return cur
-
-
-def _mask_slots(sp, mask: np.ndarray) -> np.ndarray:
-    """``mask`` (original order) as 0/1 factors per slot (dummy slots 0)."""
-    out = np.zeros(sp.n_states + 2)
-    out[1:-1] = np.asarray(mask, dtype=np.bool_)[sp.perm]
-    return out
-
-
-def _sparse_restricted(
-    tables, sp, codes, start0, end0, init, init_is_start, maskf, use_emissions, work
-) -> float:
-    """Restricted forward in slots (result in row 0 of ``work``); natural-log scale or -inf."""
-    ex = _sparse.restricted_forward(
-        codes,
-        start0,
-        end0,
-        init,
-        init_is_start,
-        maskf,
-        -1 if use_emissions else tables.unknown_code,
-        sp.start,
-        sp.E,
-        sp.w1,
-        sp.f_ptr,
-        sp.f_n0,
-        sp.f_dst,
-        sp.f_src,
-        sp.f_w,
-        _limit_of(tables),
-        work,
-    )
-    return ex if ex == -np.inf else ex * _LN2

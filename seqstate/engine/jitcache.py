@@ -75,7 +75,7 @@ def _probe() -> int:  # pragma: no cover - never called, only decorated
 
 def _set_cache_dir(folder: str) -> None:
     os.environ["NUMBA_CACHE_DIR"] = folder
-    numba.config.CACHE_DIR = folder
+    numba.config.CACHE_DIR = folder  # type: ignore[attr-defined]
 
 
 def _numba_can_cache(folder: str | None) -> bool:
@@ -109,7 +109,7 @@ def configure(
         _set_cache_dir(old)
     else:  # a fallback that was tried and failed leaves no trace
         os.environ.pop("NUMBA_CACHE_DIR", None)
-        numba.config.CACHE_DIR = ""
+        numba.config.CACHE_DIR = ""  # type: ignore[attr-defined]
     if plan.warning:
         print(plan.warning, file=sys.stderr)
     return plan

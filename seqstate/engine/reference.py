@@ -15,10 +15,10 @@ import numpy as np
 from seqstate.engine.buffers import work_buffer
 
 
-def forward_backward(
+def _scaled_forward(
     start: np.ndarray, trans: np.ndarray, end: np.ndarray, lattice: np.ndarray
-) -> tuple[float, np.ndarray]:
-    """Scaled forward-backward (Rabiner 1989, section V.A): (loglik, posterior N x M)."""
+) -> tuple[np.ndarray, np.ndarray, float, float]:
+    """Forward vectors normalised at every position, their sums, the final sum, loglik."""
     n, m = lattice.shape
     alpha = np.zeros((n, m))
     scale = np.zeros(n)
@@ -30,7 +30,15 @@ def forward_backward(
         scale[i] = a.sum()
         alpha[i] = a / scale[i]
     final = float(alpha[-1] @ end)
-    loglik = float(np.log(scale).sum() + np.log(final))
+    return alpha, scale, final, float(np.log(scale).sum() + np.log(final))
+
+
+def forward_backward(
+    start: np.ndarray, trans: np.ndarray, end: np.ndarray, lattice: np.ndarray
+) -> tuple[float, np.ndarray]:
+    """Scaled forward-backward (Rabiner 1989, section V.A): (loglik, posterior N x M)."""
+    n, m = lattice.shape
+    alpha, scale, final, loglik = _scaled_forward(start, trans, end, lattice)
     beta = np.zeros((n, m))
     beta[-1] = end / final
     for i in range(n - 2, -1, -1):
@@ -134,17 +142,7 @@ def expected_counts(
     posteriors, P(z_last = s | x) and the posteriors summed by emission code.
     """
     n, m = lattice.shape
-    alpha = np.zeros((n, m))
-    scale = np.zeros(n)
-    a = start * lattice[0]
-    scale[0] = a.sum()
-    alpha[0] = a / scale[0]
-    for i in range(1, n):
-        a = (alpha[i - 1] @ trans) * lattice[i]
-        scale[i] = a.sum()
-        alpha[i] = a / scale[i]
-    final = float(alpha[-1] @ end)
-    loglik = float(np.log(scale).sum() + np.log(final))
+    alpha, scale, final, loglik = _scaled_forward(start, trans, end, lattice)
     beta = np.zeros((n, m))
     beta[-1] = end
     for i in range(n - 2, -1, -1):

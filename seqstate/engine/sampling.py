@@ -14,8 +14,8 @@ import numpy as np
 from numba import njit
 
 from seqstate.engine import jitcache
-from seqstate.engine.api import EngineTables
 from seqstate.engine.buffers import work_buffer
+from seqstate.engine.tables import EngineTables
 
 _CHUNK = 1 << 20
 

@@ -1,6 +1,6 @@
 """Expected counts for Baum–Welch: a checkpointed forward–backward that accumulates them.
 
-One record, encoded as emission codes (see :mod:`seqstate.engine.api`), and one
+One record, encoded as emission codes (see :mod:`seqstate.engine.tables`), and one
 model's :class:`TrainingTables` give, pooled into :class:`Accumulators`:
 
 * ``start[s]`` -- P(z_0 = s | x);
@@ -47,13 +47,10 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit
 
-from seqstate.engine import jitcache
+from seqstate.engine import _common
+from seqstate.engine._common import JIT as _JIT
+from seqstate.engine._common import RESCALE_BELOW, code_table, transition_lists
 from seqstate.model import Model
-
-_JIT = {"cache": jitcache.CACHE, "nogil": True, "error_model": "numpy"}
-
-#: Rescale a running vector when its sum falls below this value (as the engine kernels do).
-RESCALE_BELOW = 1e-100
 
 MODE_PAIRS = 0
 MODE_LISTS = 1
@@ -64,7 +61,7 @@ class TrainingTables:
     """Arrays of :func:`accumulate` for one model (plain float64/int64 arrays).
 
     ``E[c, s]`` is the emission factor of code ``c`` in state ``s`` with the
-    code layout of :mod:`seqstate.engine.api` (``offsets``; the last code is the
+    code layout of :mod:`seqstate.engine.tables` (``offsets``; the last code is the
     unknown symbol, factor 1).  ``T``/``TT`` are the dense transition matrix
     and its transpose; ``pred_*``/``succ_*`` the allowed transitions by to-state
     and by from-state; ``nz_*`` the states with a non-zero factor per code.
@@ -119,48 +116,27 @@ def training_tables(
     them fixed (see :mod:`seqstate.commands.fit`).  ``mode`` forces a loop layout
     (:data:`MODE_PAIRS` or :data:`MODE_LISTS`); by default the cheaper one.
     """
-    m, a, k = model.n_states, len(model.alphabet), model.order
-    offsets = np.zeros(k + 2, dtype=np.int64)
-    for j in range(k + 1):
-        offsets[j + 1] = offsets[j] + a ** (j + 1)
-    n_codes = int(offsets[k + 1]) + 1
-    E = np.zeros((n_codes, m))
-    for j in range(k + 1):
-        rows = model.emissions if j == k else lower[j]
-        E[offsets[j] : offsets[j + 1], :] = rows.reshape(m, a ** (j + 1)).T
-    E[n_codes - 1, :] = 1.0
-    nz = [np.flatnonzero(E[c] > 0) for c in range(n_codes)]
-    nz_ptr = np.zeros(n_codes + 1, dtype=np.int64)
-    nz_ptr[1:] = np.cumsum([len(v) for v in nz])
-    nz_state = np.concatenate(nz).astype(np.int64)
+    m = model.n_states
+    offsets, E, nz_ptr, nz_state = code_table(model, lower)
     T = np.ascontiguousarray(model.transitions, dtype=np.float64)
-    allowed = T > 0
-    pred = [np.flatnonzero(allowed[:, t]) for t in range(m)]
-    succ = [np.flatnonzero(allowed[s]) for s in range(m)]
-    pred_ptr = np.zeros(m + 1, dtype=np.int64)
-    pred_ptr[1:] = np.cumsum([len(v) for v in pred])
-    succ_ptr = np.zeros(m + 1, dtype=np.int64)
-    succ_ptr[1:] = np.cumsum([len(v) for v in succ])
-    pred_src = np.concatenate(pred).astype(np.int64)
-    succ_dst = np.concatenate(succ).astype(np.int64)
-    pred_p = np.concatenate([T[p, t] for t, p in enumerate(pred)]).astype(np.float64)
-    succ_p = np.concatenate([T[s, d] for s, d in enumerate(succ)]).astype(np.float64)
+    pred_ptr, pred_src, pred_p, succ_ptr, succ_dst, succ_p = transition_lists(T)
     if mode is None:
-        width = np.array([len(v) for v in nz], dtype=float)
-        n_pred = np.array([len(v) for v in pred], dtype=float)
+        width = np.diff(nz_ptr).astype(float)
+        n_pred = np.diff(pred_ptr).astype(float)
         pair_cost = float(np.mean(width**2))
+        nz = [nz_state[nz_ptr[c] : nz_ptr[c + 1]] for c in range(E.shape[0])]
         list_cost = float(np.mean([n_pred[v].sum() for v in nz])) + m
         mode = MODE_PAIRS if pair_cost <= list_cost else MODE_LISTS
     end = np.ones(m) if model.end is None else np.asarray(model.end, dtype=np.float64)
     return TrainingTables(
         n_states=m,
-        n_symbols=a,
-        order=k,
+        n_symbols=len(model.alphabet),
+        order=model.order,
         start=np.asarray(model.start, dtype=np.float64).copy(),
         end=end.copy(),
         T=T,
         TT=np.ascontiguousarray(T.T),
-        E=np.ascontiguousarray(E),
+        E=E,
         nz_ptr=nz_ptr,
         nz_state=nz_state,
         pred_ptr=pred_ptr,
@@ -175,8 +151,8 @@ def training_tables(
 
 
 def default_block(n: int) -> int:
-    """Checkpoint block length: about sqrt(N), at least 256 positions."""
-    return max(256, int(math.isqrt(max(n, 1))) + 1)
+    """Checkpoint block length of training: about sqrt(N), at least 256 positions."""
+    return _common.default_block(n, _common.TRAINING_MIN_BLOCK)
 
 
 def accumulate(
@@ -194,93 +170,30 @@ def accumulate(
         raise ValueError("empty record")
     block = default_block(n) if block is None else max(1, min(int(block), n))
     t = tables
-    return _accumulate(
-        codes,
-        t.start,
-        t.end,
-        t.E,
-        t.T,
-        t.TT,
-        t.nz_ptr,
-        t.nz_state,
-        t.pred_ptr,
-        t.pred_src,
-        t.pred_p,
-        t.succ_ptr,
-        t.succ_dst,
-        t.succ_p,
-        t.mode,
-        block,
-        acc.start,
-        acc.trans,
-        acc.end,
-        acc.emit,
-    )
+    out = (acc.start, acc.trans, acc.end, acc.emit)
+    if t.mode == MODE_PAIRS:
+        dense = (t.E, t.T, t.TT, t.nz_ptr, t.nz_state)
+        return _accumulate_pairs(codes, t.start, t.end, *dense, block, *out)
+    moves = (t.pred_ptr, t.pred_src, t.pred_p, t.succ_ptr, t.succ_dst, t.succ_p)
+    return _accumulate_lists(codes, t.start, t.end, t.E, t.nz_ptr, t.nz_state, *moves, block, *out)
 
 
 # ----------------------------------------------------------------- kernels
 # The two layouts are written out in full (no helper calls in the inner loops: numba
-# does not inline them reliably, and a call per position costs more than the work).
+# does not inline them reliably, and a call per position costs more than the work; for
+# the two-state kernels a shared step made the forward pass 60x slower, see small.py).
 
 
 @njit(**_JIT)
-def _accumulate(
-    codes,
-    start,
-    end,
-    E,
-    T,
-    TT,
-    nz_ptr,
-    nz_state,
-    pred_ptr,
-    pred_src,
-    pred_p,
-    succ_ptr,
-    succ_dst,
-    succ_p,
-    mode,
-    block,
-    start_acc,
-    trans_acc,
-    end_acc,
-    emit_acc,
-):
-    if mode == MODE_PAIRS:
-        return _accumulate_pairs(
-            codes,
-            start,
-            end,
-            E,
-            T,
-            TT,
-            nz_ptr,
-            nz_state,
-            block,
-            start_acc,
-            trans_acc,
-            end_acc,
-            emit_acc,
-        )
-    return _accumulate_lists(
-        codes,
-        start,
-        end,
-        E,
-        nz_ptr,
-        nz_state,
-        pred_ptr,
-        pred_src,
-        pred_p,
-        succ_ptr,
-        succ_dst,
-        succ_p,
-        block,
-        start_acc,
-        trans_acc,
-        end_acc,
-        emit_acc,
-    )
+def _first_vector(a, c, start, E, nz_ptr, nz_state):
+    """a[s] = start[s] E[c, s] for the states that emit code ``c``; returns the sum."""
+    total = 0.0
+    for q in range(nz_ptr[c], nz_ptr[c + 1]):
+        s = nz_state[q]
+        v = start[s] * E[c, s]
+        a[s] = v
+        total += v
+    return total
 
 
 @njit(**_JIT)
@@ -297,12 +210,7 @@ def _accumulate_pairs(
     b = np.zeros(m)
     logscale = 0.0
     c = codes[0]
-    total = 0.0
-    for q in range(nz_ptr[c], nz_ptr[c + 1]):
-        s = nz_state[q]
-        v = start[s] * E[c, s]
-        a[s] = v
-        total += v
+    total = _first_vector(a, c, start, E, nz_ptr, nz_state)
     if total == 0.0:
         return -np.inf, 0
     if total < RESCALE_BELOW:
@@ -464,12 +372,7 @@ def _accumulate_lists(
     b = np.zeros(m)
     logscale = 0.0
     c = codes[0]
-    total = 0.0
-    for q in range(nz_ptr[c], nz_ptr[c + 1]):
-        s = nz_state[q]
-        v = start[s] * E[c, s]
-        a[s] = v
-        total += v
+    total = _first_vector(a, c, start, E, nz_ptr, nz_state)
     if total == 0.0:
         return -np.inf, 0
     if total < RESCALE_BELOW:

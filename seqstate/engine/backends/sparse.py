@@ -1,0 +1,248 @@
+"""The chain-sparse kernel family: large models made mostly of chains (see engine.sparse)."""
+
+from __future__ import annotations
+
+import math
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from seqstate.engine import sparse, sparse_query
+from seqstate.engine._common import LN2
+from seqstate.engine.backends.generic import Array, Checkpoints, GenericBackend
+from seqstate.engine.buffers import work_buffer
+
+if TYPE_CHECKING:
+    from seqstate.engine.api import Posterior
+    from seqstate.engine.tables import EngineTables
+
+#: Renumbered tables kept per distinct posterior grouping (a few at most in practice).
+MAX_KEYED_TABLES = 16
+
+
+class SparseBackend(GenericBackend):
+    """Every query in the renumbered slots of :mod:`seqstate.engine.sparse`."""
+
+    name = "sparse"
+
+    def __init__(self, tables: EngineTables) -> None:
+        super().__init__(tables)
+        self.sp = sparse.build(tables)
+        self._keyed: dict[bytes, sparse.SparseTables] = {}
+
+    @classmethod
+    def fitting(cls, tables: EngineTables) -> SparseBackend | None:
+        """The backend of ``tables``, or None when the model does not fit these kernels."""
+        return cls(tables) if sparse.fits(tables) else None
+
+    def keyed(self, group: np.ndarray, n_groups: int) -> sparse.SparseTables:
+        """Tables numbered so that each of the ``n_groups`` columns' states are consecutive
+        (the per-column sums then read contiguous ranges); kept per distinct ``group``."""
+        key = sparse.group_key(group, n_groups)
+        name = key.tobytes()
+        sp = self._keyed.get(name)
+        if sp is None:
+            if len(self._keyed) > MAX_KEYED_TABLES:
+                self._keyed.clear()
+            sp = self._keyed[name] = sparse.build(self.t, key)
+        return sp
+
+    # ------------------------------------------------------------- whole-record passes
+    def loglik(self, codes: np.ndarray) -> tuple[float, int]:
+        sp = self.sp
+        return sparse.forward_loglik(codes, sp.start, sp.end, sp.E, *sp.fwd, self.lim)
+
+    def posterior(
+        self, codes: Array, group: Array, n_groups: int, block: int, out: Array, ck: Checkpoints
+    ) -> tuple[float, int]:
+        sp = self.keyed(group, n_groups) if n_groups <= sparse.MAX_KEYED_GROUPS else self.sp
+        runs = sparse.group_runs(sp, group, n_groups)
+        tabs = (sp.start, sp.end, sp.E, sp.perm, *sp.fwd, *sp.bwd)
+        return sparse.posterior_checkpointed(
+            codes, *tabs, block, runs, n_groups, out, *ck, self.lim
+        )
+
+    def viterbi_block(self, n: int, block: int | None) -> int:
+        if block is None:
+            # one pass when the whole record's back-pointers fit the budget
+            sp = self.sp
+            bp_bytes = n * (sp.n_multi + 1) * np.dtype(sp.bp_dtype).itemsize
+            block = n if bp_bytes <= sparse.BACKPOINTER_BUDGET else None
+        return super().viterbi_block(n, block)
+
+    def viterbi(self, codes: np.ndarray, block: int, path: np.ndarray) -> tuple[float, int]:
+        scratch = sparse_query.viterbi_scratch(self.sp, codes.shape[0], block)
+        return sparse_query.viterbi_checkpointed(codes, *self.sp.vit, block, *scratch, path)
+
+    # ------------------------------------------------------------- vectors and segments
+    def cursor(self, codes: np.ndarray, post: Posterior) -> Cursor:
+        """The query state of ``post`` (kept on it while it serves the same record)."""
+        cur = post.cursor
+        if not (isinstance(cur, Cursor) and cur.serves(self, codes, post)):
+            cur = Cursor(self, codes, post)
+            post.cursor = cur
+        return cur
+
+    def forward_vector(self, codes: Array, post: Posterior, pos: int) -> tuple[Array, float]:
+        return self._unslot(*self.cursor(codes, post).forward(pos))
+
+    def backward_vector(self, codes: Array, post: Posterior, pos: int) -> tuple[Array, float]:
+        return self._unslot(*self.cursor(codes, post).backward(pos))
+
+    def _unslot(self, row: Array, lg: float) -> tuple[Array, float]:
+        out = work_buffer(self.t.n_states)
+        sparse_query.from_slots(row, 0, self.sp.perm, out)
+        return out, lg
+
+    def mask_slots(self, mask: np.ndarray) -> np.ndarray:
+        """``mask`` (original order) as 0/1 factors per slot (dummy slots 0)."""
+        out = np.zeros(self.sp.n_states + 2)
+        out[1:-1] = np.asarray(mask, dtype=np.bool_)[self.sp.perm]
+        return out
+
+    def restricted_slots(
+        self,
+        codes: np.ndarray,
+        start0: int,
+        end0: int,
+        init: np.ndarray,
+        init_is_start: bool,
+        maskf: np.ndarray,
+        use_emissions: bool,
+        work: np.ndarray,
+    ) -> float:
+        """Restricted forward in slots (result in row 0 of ``work``); natural-log scale or
+        -inf.  ``init`` is a slot row (ignored when ``init_is_start``)."""
+        sp = self.sp
+        skip = -1 if use_emissions else self.t.unknown_code
+        query = (codes, start0, end0, init, init_is_start, maskf, skip)
+        ex = sparse_query.restricted_forward(*query, sp.start, sp.E, *sp.fwd, self.lim, work)
+        return ex if ex == -np.inf else ex * LN2
+
+    def restricted(
+        self,
+        codes: np.ndarray,
+        start0: int,
+        end0: int,
+        init: np.ndarray,
+        init_is_start: bool,
+        mask: np.ndarray,
+        use_emissions: bool,
+    ) -> tuple[np.ndarray, float]:
+        m = self.t.n_states
+        row = np.zeros((1, m + 2))
+        if not init_is_start:
+            sparse_query.to_slots(np.asarray(init, dtype=np.float64), self.sp.perm, row, 0)
+        work = work_buffer((2, m + 2))
+        maskf = self.mask_slots(mask)
+        lg = self.restricted_slots(
+            codes, start0, end0, row, init_is_start, maskf, use_emissions, work
+        )
+        out = np.zeros(m)
+        if lg > -np.inf:
+            sparse_query.from_slots(work, 0, self.sp.perm, out)
+        return out, lg
+
+    def _slot_before(self, cur: Cursor, start0: int) -> tuple[np.ndarray, float, bool]:
+        if start0 == 0:
+            return cur.work, 0.0, True
+        init, init_log = cur.forward(start0 - 1)
+        return init, init_log, False
+
+    def segment_log_probability(
+        self, codes: np.ndarray, post: Posterior, start0: int, end0: int, mask: np.ndarray
+    ) -> float:
+        cur = self.cursor(codes, post)
+        init, init_log, is_start = self._slot_before(cur, start0)
+        maskf = self.mask_slots(mask)
+        lg = self.restricted_slots(codes, start0, end0, init, is_start, maskf, True, cur.work)
+        if lg == -np.inf:
+            return -np.inf
+        beta, blog = cur.backward(end0 - 1)
+        ld = sparse_query.log_dot(cur.work, 0, beta, 0)
+        if ld == -np.inf:
+            return -np.inf
+        return min(0.0, ld + lg + init_log + blog - post.loglik)
+
+    def segment_log_odds_terms(
+        self, codes: np.ndarray, post: Posterior, start0: int, end0: int, mask: np.ndarray
+    ) -> list[float]:
+        cur = self.cursor(codes, post)
+        init, _, is_start = self._slot_before(cur, start0)
+        terms = []
+        for msk in (mask, ~mask):
+            mf = self.mask_slots(msk)
+            l1 = self.restricted_slots(codes, start0, end0, init, is_start, mf, True, cur.work)
+            s1 = sparse_query.log_dot(cur.work, 0, cur.ones, 0) if l1 > -np.inf else -math.inf
+            l0 = self.restricted_slots(codes, start0, end0, init, is_start, mf, False, cur.work)
+            if l0 == -np.inf:
+                terms.append(math.nan)
+                continue
+            if s1 == -math.inf:
+                terms.append(-math.inf)
+                continue
+            terms.append(s1 + l1 - sparse_query.log_dot(cur.work, 0, cur.ones, 0) - l0)
+        return terms
+
+
+class Cursor:
+    """Forward and backward vectors of one posterior in the chain-sparse slots, reused.
+
+    Segment queries arrive mostly in position order, so the last forward vector
+    (and the last backward vector) recomputed from a checkpoint is kept: a later
+    query in the same block continues from it instead of from the checkpoint.
+    The steps and the rescaling decisions are those of a pass from the
+    checkpoint, so the result does not depend on the order of the queries.
+    """
+
+    def __init__(self, backend: SparseBackend, codes: np.ndarray, post: Posterior) -> None:
+        m = backend.t.n_states
+        self.backend, self.sp, self.codes, self.post = backend, backend.sp, codes, post
+        self.alpha, self.beta = post.alpha_ck, post.beta_ck
+        self.lim = backend.lim
+        self.f = np.zeros((2, m + 2))
+        self.b = np.zeros((2, m + 2))
+        self.f_pos = self.b_pos = -1
+        self.f_log = self.b_log = 0.0
+        self.work = np.zeros((2, m + 2))
+        self.ones = np.ones((1, m + 2))
+
+    def serves(self, backend: SparseBackend, codes: np.ndarray, post: Posterior) -> bool:
+        """True while this cursor was made for these very tables, record and checkpoints."""
+        return (
+            self.backend is backend
+            and self.codes is codes
+            and self.post is post
+            and self.alpha is post.alpha_ck
+            and self.beta is post.beta_ck
+        )
+
+    def forward(self, pos: int) -> tuple[np.ndarray, float]:
+        """Row 0 of the returned array: scaled forward vector at ``pos`` in slots; log scale."""
+        post, sp = self.post, self.sp
+        bk = pos // post.block
+        if not (0 <= self.f_pos <= pos and self.f_pos // post.block == bk):
+            sparse_query.to_slots(post.alpha_ck[bk], sp.perm, self.f, 0)
+            self.f_pos, self.f_log = bk * post.block, float(post.alpha_ck_log[bk])
+        if pos > self.f_pos:
+            ex = sparse_query.forward_advance(
+                self.codes, self.f_pos, pos, self.f, *sp.fwd, self.lim
+            )
+            self.f_pos, self.f_log = pos, self.f_log + ex * LN2
+        return self.f, self.f_log
+
+    def backward(self, pos: int) -> tuple[np.ndarray, float]:
+        """Row 0 of the returned array: scaled backward vector at ``pos`` in slots; log scale."""
+        post, sp = self.post, self.sp
+        n = self.codes.shape[0]
+        bk = pos // post.block
+        if not (self.b_pos >= pos and self.b_pos // post.block == bk):
+            sparse_query.to_slots(post.beta_ck[bk], sp.perm, self.b, 0)
+            self.b_pos = min(n, bk * post.block + post.block) - 1
+            self.b_log = float(post.beta_ck_log[bk])
+        if pos < self.b_pos:
+            ex = sparse_query.backward_advance(
+                self.codes, self.b_pos, pos, self.b, *sp.bwd, self.lim
+            )
+            self.b_pos, self.b_log = pos, self.b_log + ex * LN2
+        return self.b, self.b_log

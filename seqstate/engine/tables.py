@@ -1,0 +1,229 @@
+"""A model's kernel arrays (:func:`prepare`, once per model) and the encoding of records.
+
+Emission codes
+--------------
+A record is turned into one integer code per position.  For an order-k model
+over A symbols, the code of position i names the emission row to use:
+``offsets[j] + context * A + symbol`` where ``j`` is the length of the longest
+clean context before i (``j = k`` except within k bases after the record start
+or after an unknown base) and ``context`` reads those j symbols in base A.  The
+last code stands for an unknown symbol (N, IUPAC ambiguity codes, gaps) whose
+emission factor is 1 in every state (the base is marginalised).
+
+Back-off rows (order j < k) come from the model's explicit lower-order rows when
+it has them; otherwise they are derived from the order-k table of each state,
+weighted by the stationary k-mer frequencies of that state's own order-k chain:
+``P_j(x | c') = sum_u pi(u c') P(x | u c') / sum_u pi(u c')`` over the k-mers
+``u c'`` that end in ``c'`` (uniform weights if every such k-mer has zero
+frequency).  The stationary frequencies are found by power iteration of the
+lazy chain ``(I + P) / 2``, which has the same fixed point and always converges.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from seqstate.engine import kernels
+from seqstate.engine._common import code_table, log0, transition_lists
+from seqstate.engine.buffers import work_buffer
+from seqstate.model import Model
+
+if TYPE_CHECKING:
+    from seqstate.engine.backends import Backend
+
+#: The kernel families :func:`prepare` may be asked for ("auto": the fastest that fits).
+KERNEL_CHOICES = ("auto", "generic", "small", "sparse")
+#: The environment variable that gives the default of :func:`prepare`'s ``kernels``.
+KERNELS_ENV = "SEQSTATE_KERNELS"
+
+
+def default_kernels() -> str:
+    """The kernel family asked for by ``SEQSTATE_KERNELS`` ("auto" when unset or unknown)."""
+    value = os.environ.get(KERNELS_ENV, "").strip().lower()
+    return value if value in KERNEL_CHOICES else "auto"
+
+
+@dataclass(frozen=True, eq=False)
+class EngineTables:
+    """Everything a kernel needs for one model, as plain arrays (see kernels module).
+
+    ``choice`` is the kernel family asked for (one of :data:`KERNEL_CHOICES`);
+    ``backend`` serves the queries with the family chosen from it, once, when the
+    tables are made, and ``kernels`` names that family ("generic", "small" or
+    "sparse").  ``generic`` is the generic family for the same tables (the
+    reference the specialised families are tested against).
+    """
+
+    n_states: int
+    n_symbols: int
+    order: int
+    start: np.ndarray
+    end: np.ndarray
+    log_start: np.ndarray
+    log_end: np.ndarray
+    pred_ptr: np.ndarray
+    pred_src: np.ndarray
+    pred_p: np.ndarray
+    pred_logp: np.ndarray
+    succ_ptr: np.ndarray
+    succ_dst: np.ndarray
+    succ_p: np.ndarray
+    E: np.ndarray
+    logE: np.ndarray
+    nz_ptr: np.ndarray
+    nz_state: np.ndarray
+    offsets: np.ndarray
+    unknown_code: int
+    symbol_lookup: np.ndarray
+    transitions: np.ndarray
+    choice: str = "auto"
+    generic: Backend = field(init=False, repr=False, compare=False)
+    backend: Backend = field(init=False, repr=False, compare=False)
+
+    def __post_init__(self) -> None:
+        from seqstate.engine import backends
+
+        generic = backends.GenericBackend(self)
+        object.__setattr__(self, "generic", generic)
+        object.__setattr__(self, "backend", backends.choose(self, self.choice, generic))
+
+    @property
+    def kernels(self) -> str:
+        """The kernel family that serves these tables: "generic", "small" or "sparse"."""
+        return self.backend.name
+
+
+def stationary_kmers(cond: np.ndarray, n_symbols: int, order: int) -> np.ndarray:
+    """Stationary k-mer frequencies of an order-k chain with rows ``cond[c, x]``.
+
+    ``cond`` has shape (A**k, A).  Returns a vector of length A**k summing to 1.
+    """
+    a, k = n_symbols, order
+    size = a**k
+    pi = np.full(size, 1.0 / size)
+    inner = a ** (k - 1)
+    p3 = cond.reshape(a, inner, a)
+    for _ in range(20000):
+        step = (pi.reshape(a, inner)[:, :, None] * p3).sum(axis=0).reshape(size)
+        new = 0.5 * (pi + step)
+        new /= new.sum()
+        if np.max(np.abs(new - pi)) < 1e-15:
+            pi = new
+            break
+        pi = new
+    return pi
+
+
+def backoff_rows(model: Model) -> dict[int, np.ndarray]:
+    """Emission rows for every order j < k: explicit rows where given, else derived."""
+    a, k, m = len(model.alphabet), model.order, model.n_states
+    out: dict[int, np.ndarray] = {}
+    if k == 0:
+        return out
+    weights = work_buffer((m, a**k))
+    for s in range(m):
+        weights[s] = stationary_kmers(model.emissions[s], a, k)
+    for j in range(k):
+        # group the k-mers by their last j symbols: index = c % a**j
+        w = weights.reshape(m, a ** (k - j), a**j)
+        p = model.emissions.reshape(m, a ** (k - j), a**j, a)
+        num = (w[:, :, :, None] * p).sum(axis=1)
+        den = w.sum(axis=1)
+        uniform = p.mean(axis=1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            derived = np.where(den[:, :, None] > 0, num / den[:, :, None], uniform)
+        derived /= derived.sum(axis=-1, keepdims=True)
+        given = model.lower_emissions.get(j)
+        if given is not None:
+            have = ~np.all(np.isnan(given), axis=-1)
+            derived[have] = given[have]
+        out[j] = derived
+    return out
+
+
+def prepare(model: Model, *, kernels: str | None = None) -> EngineTables:
+    """Build the kernel arrays of ``model`` (once per model, cheap) and choose its kernels.
+
+    ``kernels`` is one of :data:`KERNEL_CHOICES`: "auto" (the default, unless the
+    environment variable ``SEQSTATE_KERNELS`` says otherwise) takes the two-state
+    kernels when the model fits them, else the chain-sparse kernels when it fits
+    those, else the generic ones; a named family must fit (ValueError otherwise).
+    """
+    choice = default_kernels() if kernels is None else kernels
+    if choice not in KERNEL_CHOICES:
+        raise ValueError(f"kernels must be one of {', '.join(KERNEL_CHOICES)}, not {choice!r}")
+    m = model.n_states
+    T = np.ascontiguousarray(model.transitions, dtype=np.float64)
+    pred_ptr, pred_src, pred_p, succ_ptr, succ_dst, succ_p = transition_lists(T)
+    offsets, E, nz_ptr, nz_state = code_table(model, backoff_rows(model))
+    end = np.ones(m) if model.end is None else np.asarray(model.end, dtype=np.float64)
+    lookup = np.full(256, -1, dtype=np.int8)
+    fold = not any(ch.islower() for ch in model.alphabet)
+    for i, ch in enumerate(model.alphabet):
+        lookup[ord(ch)] = i
+        if fold and ch.isalpha():
+            lookup[ord(ch.lower())] = i
+    return EngineTables(
+        n_states=m,
+        n_symbols=len(model.alphabet),
+        order=model.order,
+        start=np.asarray(model.start, dtype=np.float64),
+        end=end,
+        log_start=log0(model.start),
+        log_end=log0(end),
+        pred_ptr=pred_ptr,
+        pred_src=pred_src,
+        pred_p=pred_p,
+        pred_logp=log0(pred_p),
+        succ_ptr=succ_ptr,
+        succ_dst=succ_dst,
+        succ_p=succ_p,
+        E=E,
+        logE=np.ascontiguousarray(log0(E)),
+        nz_ptr=nz_ptr,
+        nz_state=nz_state,
+        offsets=offsets,
+        unknown_code=E.shape[0] - 1,
+        symbol_lookup=lookup,
+        transitions=T,
+        choice=choice,
+    )
+
+
+def symbols_of(
+    tables: EngineTables, seq: bytes | str | np.ndarray, *, masked_unknown: bool = False
+) -> np.ndarray:
+    """Symbol index per position (int8), -1 for anything outside the alphabet.
+
+    Lowercase (soft-masked) bases read as their base unless ``masked_unknown``.
+    """
+    if isinstance(seq, str):
+        seq = seq.encode("ascii")
+    raw = np.frombuffer(seq, dtype=np.uint8) if isinstance(seq, (bytes, bytearray)) else seq
+    sym = tables.symbol_lookup[raw]
+    if masked_unknown:
+        lower = (raw >= ord("a")) & (raw <= ord("z"))
+        sym = np.where(lower, np.int8(-1), sym)
+    return sym
+
+
+def encode(
+    tables: EngineTables, seq: bytes | str | np.ndarray, *, masked_unknown: bool = False
+) -> np.ndarray:
+    """Emission codes of one record (see module docstring); smallest fitting unsigned dtype."""
+    return encode_symbols(tables, symbols_of(tables, seq, masked_unknown=masked_unknown))
+
+
+def encode_symbols(tables: EngineTables, sym: np.ndarray) -> np.ndarray:
+    """Emission codes from symbol indices (int8, -1 unknown) as :func:`symbols_of` gives."""
+    n_codes = tables.unknown_code + 1
+    dtype = np.uint8 if n_codes <= 256 else np.uint16 if n_codes <= 65536 else np.int32
+    out = work_buffer(sym.shape[0], dtype)
+    kernels.encode_codes(
+        sym, tables.order, tables.n_symbols, tables.offsets, tables.unknown_code, out
+    )
+    return out
