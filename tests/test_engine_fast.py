@@ -960,7 +960,7 @@ def test_named_family_agrees_with_generic(specialised, name):
     slow = api.prepare(model, kernels="generic")
     assert (fast.kernels, slow.kernels) == ("small" if name != "chains" else "sparse", "generic")
     rng = np.random.default_rng(72)
-    codes = _possible_chain(fast, rng, 1500, p_unknown=0.01)
+    codes = _possible(fast, rng, 1500, p_unknown=0.01)
     lf, ls = api.loglik(fast, codes), api.loglik(slow, codes)
     assert abs(lf - ls) <= 1e-10 * abs(ls)
     pf = api.posterior(fast, codes, dtype=np.float64)
