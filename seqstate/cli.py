@@ -15,7 +15,7 @@ import sys
 
 import click
 
-from seqstate import __version__
+from seqstate import __version__, log
 from seqstate.errors import SeqstateError
 from seqstate.io.atomic import note_stop
 
@@ -93,7 +93,7 @@ def not_empty(ctx, param, value):  # type: ignore[no-untyped-def]
     return value
 
 
-def force_option(command):
+def force_option(command):  # type: ignore[no-untyped-def]
     """--force, the same on every command that writes files."""
     return click.option(
         "--force",
@@ -102,11 +102,24 @@ def force_option(command):
     )(command)
 
 
-def quiet_option(command):
+def quiet_option(command):  # type: ignore[no-untyped-def]
     """-q/--quiet, the same on every command."""
     return click.option("-q", "--quiet", is_flag=True, help="No progress or summary on stderr.")(
         command
     )
+
+
+def model_option(required: bool = False, help: str = "Built-in model NAME or model PATH."):  # type: ignore[no-untyped-def]
+    """-m/--model: the built-in ``cpg-island`` by default, or ``required``."""
+    if required:
+        return click.option("-m", "--model", required=True, help=help)
+    return click.option("-m", "--model", default="cpg-island", show_default=True, help=help)
+
+
+def say(quiet: bool, text: str) -> None:
+    """The summary line of a command, unless ``-q``."""
+    if not quiet:
+        log.summary(text)
 
 
 class _Group(click.Group):
@@ -225,91 +238,25 @@ def model_group() -> None:
 @model_group.command("list")
 def model_list() -> None:
     """The built-in models, one line each."""
-    from seqstate.io.tables import list_builtin, load_model
+    from seqstate.commands.model import list_lines
 
-    for name in list_builtin():
-        m = load_model(name)
-        labels = ", ".join(m.labels) or "no labels"
-        about = m.description if len(m.description) <= 70 else m.description[:69] + "…"
-        click.echo(f"{name}\t{m.n_states} states, order {m.order}, {labels}: {about}")
+    for line in list_lines():
+        click.echo(line)
 
 
 @model_group.command("check")
 @click.argument("model")
 def model_check(model: str) -> None:
     """Validate MODEL (a built-in NAME or a PATH) and print a summary."""
-    from seqstate.io.tables import load_model, model_sha256, resolve_model_path
+    from seqstate.commands.model import check
 
-    path = resolve_model_path(model)
-    m = load_model(model)
-    click.echo(summary(m, str(path), model_sha256(m)))
-
-
-def summary(m, path: str, sha: str) -> str:
-    """Readable summary of a model: states, labels, strands, transitions, stay lengths."""
-    from seqstate.model import default_thresholds
-
-    lines = [f"model     {m.name}", f"manifest  {path}"]
-    if m.description:
-        lines.append(f"about     {m.description}")
-    lines.append(f"alphabet  {m.alphabet} ({len(m.alphabet)} symbols)")
-    lines.append(f"order     {m.order} (emission depends on the previous {m.order} symbols)")
-    lines.append(f"decode    {m.decode} (default)")
-    thresholds = default_thresholds(m)
-    lines.append(
-        f"features  min_posterior {thresholds['min_posterior']:g}, min_length "
-        f"{thresholds['min_length']} bases (defaults of annotate and plot)"
-    )
-    if m.end is None:
-        lines.append("end       none given: any state may end a record")
-    else:
-        lines.append("end       P(record ends | state) given per state")
-    lines.append(f"sha256    {sha}")
-    lines.append("")
-    stay = m.expected_stay()
-    names = m.state_names
-    w = max(5, max(len(n) for n in names))
-    labels = [s.label or "-" for s in m.states]
-    lw = max(5, max(len(x) for x in labels))
-    lines.append(
-        f"{'state':<{w}}  {'label':<{lw}}  strand  {'start':>10}  {'end':>10}  "
-        f"expected stay (bases)"
-    )
-    for i, s in enumerate(m.states):
-        end = "-" if m.end is None else f"{m.end[i]:.4g}"
-        st = "inf" if stay[i] == float("inf") else f"{stay[i]:.4g}"
-        lines.append(
-            f"{s.name:<{w}}  {labels[i]:<{lw}}  {s.strand or '.':<6}  "
-            f"{m.start[i]:>10.4g}  {end:>10}  {st}"
-        )
-    allowed = m.allowed_transitions()
-    lines.append("")
-    lines.append(f"allowed transitions: {len(allowed)} of {m.n_states**2}")
-    for i, n in enumerate(names):
-        succ = [
-            f"{names[j]} {m.transitions[i, j]:.6g}"
-            for j in range(m.n_states)
-            if m.transitions[i, j] > 0
-        ]
-        lines.append(f"  {n:<{w}} -> " + (", ".join(succ) if succ else "(none)"))
-    if m.provenance:
-        lines.append("")
-        lines.append("provenance")
-        for key, value in m.provenance.items():
-            lines.append(f"  {key}: {value}")
-    return "\n".join(lines)
+    click.echo(check(model))
 
 
 # ---------------------------------------------------------------- annotate
 @main.command("annotate")
 @click.argument("fasta")
-@click.option(
-    "-m",
-    "--model",
-    default="cpg-island",
-    show_default=True,
-    help="Built-in model NAME or model PATH.",
-)
+@model_option()
 @click.option(
     "-o",
     "--out",
@@ -354,7 +301,7 @@ def summary(m, path: str, sha: str) -> str:
     show_default=True,
     help="A FASTA record with no sequence: skip it with a warning, or stop with an error.",
 )
-@click.option("-q", "--quiet", is_flag=True, help="No progress or summary on stderr.")
+@quiet_option
 @click.pass_obj
 def annotate_cmd(
     obj,
@@ -375,7 +322,7 @@ def annotate_cmd(
     quiet,
 ) -> None:
     """Annotate the records of FASTA (plain or gzip; '-' for stdin) with a model."""
-    from seqstate.pipeline import STDOUT, AnnotateOptions, annotate
+    from seqstate.commands.annotate import STDOUT, AnnotateOptions, annotate, warn_skipped
 
     if tracks is None:
         tracks = "none" if out_dir == STDOUT else "bedgraph"
@@ -397,38 +344,11 @@ def annotate_cmd(
         force=force,
         stem=stem,
     )
-    report = annotate(opts, progress_enabled=(not quiet) and sys.stderr.isatty(), stdout=gff_out)
-    _warn_skipped(fasta, report["skipped_records"])
+    report = annotate(opts, progress=log.progress_for(quiet), stdout=gff_out)
+    warn_skipped(fasta, report.skipped_records)
     if gff_out is not None:
         echo_stdout(gff_out.getvalue())
-    if not quiet:
-        n = sum(r["features"] for r in report["records"])
-        bases = sum(r["end_1based"] - r["start_1based"] + 1 for r in report["records"])
-        where = "stdout" if gff_out is not None else f"{out_dir}/"
-        click.echo(
-            f"seqstate: {len(report['records'])} record(s), {bases} bases, {n} features -> {where}",
-            err=True,
-        )
-
-
-def _warn_skipped(fasta: str, skipped: list[dict], shown: int = 5) -> None:
-    """One warning line per skipped record (the first ``shown``; the run report has all)."""
-    from seqstate.errors import escape_text
-    from seqstate.io.fasta import display_name
-
-    for sk in skipped[:shown]:
-        text = f"{display_name(fasta)} line {sk['line']}, record '{sk['id']}'"
-        click.echo(
-            f"warning: {escape_text(text)}: a header with no sequence, skipped "
-            "(--empty-records error refuses such records)",
-            err=True,
-        )
-    if len(skipped) > shown:
-        click.echo(
-            f"warning: {len(skipped) - shown} more record(s) with no sequence skipped "
-            "(all are listed in the run report)",
-            err=True,
-        )
+    say(quiet, report.summary("stdout" if gff_out is not None else f"{out_dir}/"))
 
 
 # ---------------------------------------------------------------- sample
@@ -459,27 +379,10 @@ def _warn_skipped(fasta: str, skipped: list[dict], shown: int = 5) -> None:
 @quiet_option
 def sample_cmd(model, length, records, seed, out_fasta, truth, prefix, force, quiet) -> None:
     """Draw synthetic records and their true state paths from MODEL."""
-    from seqstate.pipeline import SampleOptions, sample
+    from seqstate.commands.sample import SampleOptions, sample
 
-    result = sample(
-        SampleOptions(
-            model=model,
-            length=length,
-            records=records,
-            seed=seed,
-            out_fasta=out_fasta,
-            truth_gff3=truth,
-            prefix=prefix,
-            force=force,
-        )
-    )
-    if not quiet:
-        truth_part = f", {result['features']} true feature(s) -> {truth}" if truth else ""
-        click.echo(
-            f"seqstate: {result['records']} record(s) of {result['length']} bases "
-            f"-> {out_fasta}{truth_part}",
-            err=True,
-        )
+    options = SampleOptions(model, length, records, seed, out_fasta, truth, prefix, force=force)
+    say(quiet, sample(options).summary())
 
 
 # ---------------------------------------------------------------- score
@@ -491,13 +394,7 @@ def sample_cmd(model, length, records, seed, out_fasta, truth, prefix, force, qu
     help="Regions to score: BED (0-based half-open) or GFF3 (1-based closed), "
     "plain or gzip; '-' for stdin.",
 )
-@click.option(
-    "-m",
-    "--model",
-    default="cpg-island",
-    show_default=True,
-    help="Built-in model NAME or model PATH.",
-)
+@model_option()
 @click.option(
     "--label",
     default=None,
@@ -553,7 +450,7 @@ def score_cmd(
     quiet,
 ) -> None:
     """Score the --regions on the records of FASTA (plain or gzip; '-' for stdin)."""
-    from seqstate.score import ScoreOptions, score
+    from seqstate.commands.score import ScoreOptions, score
 
     result = score(
         ScoreOptions(
@@ -572,13 +469,7 @@ def score_cmd(
     )
     if result.stdout is not None:
         echo_stdout(result.stdout)
-    if not quiet:
-        where = out_tsv if out_tsv not in (None, "-") else "stdout"
-        click.echo(
-            f"seqstate: {result.regions} region(s) ({result.format}) scored for "
-            f"{result.label} -> {where}",
-            err=True,
-        )
+    say(quiet, result.summary())
 
 
 # ---------------------------------------------------------------- plot
@@ -590,13 +481,7 @@ def score_cmd(
     callback=not_empty,
     help="ID:START-END (1-based, inclusive) or ID for a whole record.",
 )
-@click.option(
-    "-m",
-    "--model",
-    default="cpg-island",
-    show_default=True,
-    help="Built-in model NAME or model PATH.",
-)
+@model_option()
 @click.option(
     "-o",
     "--out",
@@ -646,7 +531,7 @@ def plot_cmd(
     quiet,
 ) -> None:
     """Draw posteriors and features of one region of FASTA (needs the 'plot' extra)."""
-    from seqstate.plot import PlotOptions, plot
+    from seqstate.commands.plot import PlotOptions, plot
 
     result = plot(
         PlotOptions(
@@ -668,17 +553,12 @@ def plot_cmd(
             masked=masked,
         )
     )
-    if not quiet:
-        ref = f", {result.reference} reference" if reference is not None else ""
-        click.echo(
-            f"seqstate: {result.region}, {result.decoded} decoded{ref} feature(s) -> {out}",
-            err=True,
-        )
+    say(quiet, result.summary())
 
 
 @main.command("fit")
 @click.argument("fasta_arg", metavar="FASTA", required=False)
-@click.option("-m", "--model", required=True, help="Start model: built-in NAME or PATH.")
+@model_option(required=True, help="Start model: built-in NAME or PATH.")
 @click.option("--fasta", default=None, hidden=True, help="Same as the FASTA argument.")
 @click.option(
     "--labels",

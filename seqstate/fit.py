@@ -1162,7 +1162,7 @@ def write_model_folder(
 
 
 def _read_sequences(path: str, model: Model) -> list:
-    from seqstate.pipeline import read_records
+    from seqstate.commands.inputs import read_records
 
     records = read_records(path, model)
     if not set(model.alphabet) <= set("ACGT"):
@@ -1181,7 +1181,7 @@ def _read_sequences(path: str, model: Model) -> list:
 
 
 def _fit_inputs(opts: FitOptions) -> list:
-    from seqstate.pipeline import model_inputs
+    from seqstate.commands.inputs import model_inputs
 
     return [opts.fasta, opts.labels, *model_inputs(opts.model)]
 
@@ -1234,8 +1234,8 @@ def fit(opts: FitOptions, *, log: Log = _quiet) -> FitReport:
     unseen: list[str] = []
     codes_list = []
     if opts.labels and rule == "gene_structure":
-        from seqstate import genes
         from seqstate.io.gff3 import read_gff3
+        from seqstate.kinds import gene_labels as genes
 
         features = read_gff3(opts.labels)
         n_features = len(features)

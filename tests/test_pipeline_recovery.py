@@ -18,7 +18,8 @@ from __future__ import annotations
 from pathlib import Path
 
 from seqstate.io.gff3 import read_gff3
-from seqstate.pipeline import AnnotateOptions, SampleOptions, annotate, sample
+from seqstate.commands.annotate import AnnotateOptions, annotate
+from seqstate.commands.sample import SampleOptions, sample
 
 SEED = 2024
 RECORDS = 4

@@ -1,4 +1,4 @@
-"""``seqstate score`` (seqstate.score and its CLI command).
+"""``seqstate score`` (seqstate.commands.score and its CLI command).
 
 Oracles: exhaustive enumeration of every state path of a tiny model (the HMM
 definition: a path's joint probability is start * emissions * transitions *
@@ -30,8 +30,8 @@ from seqstate.io.fasta import Record
 from seqstate.io.gff3 import read_gff3
 from seqstate.io.tables import load_model, save_model
 from seqstate.model import State, make_model
-from seqstate.pipeline import read_records
-from seqstate.score import (
+from seqstate.commands.inputs import read_records
+from seqstate.commands.score import (
     InputRegion,
     choose_label,
     detect_region_format,
