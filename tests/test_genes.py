@@ -18,7 +18,6 @@ from Bio import SeqIO
 from Bio.Seq import Seq
 from click.testing import CliRunner
 
-from seqstate.kinds import gene_labels, gene_layout, genes
 from seqstate.cli import main
 from seqstate.compare import compare_features
 from seqstate.engine import api
@@ -26,6 +25,7 @@ from seqstate.errors import FeatureFormatError
 from seqstate.io.fasta import Record, read_fasta, write_fasta
 from seqstate.io.gff3 import read_gff3
 from seqstate.io.tables import load_model, render_tables
+from seqstate.kinds import gene_labels, gene_layout, genes
 
 FASTA_NAME = "DmelanDM6_4_GCF_000001215.4_Release_6_plus_ISO1_MT_genomic.fna.gz"
 GFF_NAME = "DmelanDM6_4.gff.gz"

@@ -17,9 +17,9 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from seqstate.io.gff3 import read_gff3
 from seqstate.commands.annotate import AnnotateOptions, annotate
 from seqstate.commands.sample import SampleOptions, sample
+from seqstate.io.gff3 import read_gff3
 
 SEED = 2024
 RECORDS = 4

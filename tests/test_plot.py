@@ -20,11 +20,11 @@ import pytest
 from click.testing import CliRunner
 
 from seqstate.cli import main
+from seqstate.commands.annotate import AnnotateOptions, annotate
+from seqstate.commands.plot import MAX_REGION, PlotOptions, draw, plot_data
 from seqstate.io.gff3 import read_gff3
 from seqstate.io.tables import save_model
 from seqstate.model import State, make_model
-from seqstate.commands.annotate import AnnotateOptions, annotate
-from seqstate.commands.plot import MAX_REGION, PlotOptions, draw, plot_data
 
 REPO = Path(__file__).resolve().parent.parent
 DEMO = REPO / "examples" / "cex_draft1.fa.gz"
@@ -136,8 +136,8 @@ def test_boxes_and_curve_match_annotate(annotated, r0, r1):
 
 
 def test_features_split_at_unknown_runs_as_annotate(tmp_path):
-    from seqstate.io.tables import load_model
     from seqstate.commands.inputs import read_records
+    from seqstate.io.tables import load_model
 
     rec = next(r for r in read_records(str(DEMO), load_model("cpg-island")) if r.id == "cex_ctg3")
     seq = bytearray(rec.seq)

@@ -24,12 +24,6 @@ from click.testing import CliRunner
 from scipy.stats import mannwhitneyu
 
 from seqstate.cli import main
-from seqstate.engine import reference
-from seqstate.errors import UsageError
-from seqstate.io.fasta import Record
-from seqstate.io.gff3 import read_gff3
-from seqstate.io.tables import load_model, save_model
-from seqstate.model import State, make_model
 from seqstate.commands.inputs import read_records
 from seqstate.commands.score import (
     InputRegion,
@@ -38,6 +32,12 @@ from seqstate.commands.score import (
     read_regions,
     score_regions,
 )
+from seqstate.engine import reference
+from seqstate.errors import UsageError
+from seqstate.io.fasta import Record
+from seqstate.io.gff3 import read_gff3
+from seqstate.io.tables import load_model, save_model
+from seqstate.model import State, make_model
 
 HERE = Path(__file__).resolve().parent
 REPO = HERE.parent

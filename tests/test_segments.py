@@ -1,4 +1,5 @@
-"""seqstate.kinds.segments: track groups, segments from posteriors and paths, scores, CpG statistics.
+"""seqstate.kinds.segments: track groups, segments from paths and posteriors, scores, CpG
+statistics.
 
 Expected values are worked out by hand in the comments, taken from published
 definitions, from Biopython, or from brute-force enumeration of every state path of
@@ -18,6 +19,8 @@ from golden_util import DATA, GOLDEN_FASTA, run_golden_annotate
 from hypothesis import given
 from hypothesis import strategies as st
 
+from seqstate.engine import api
+from seqstate.io.tables import builtin_dir, load_model
 from seqstate.kinds.segments import (
     cpg_statistics,
     group_index,
@@ -27,8 +30,6 @@ from seqstate.kinds.segments import (
     segments_from_posterior,
     track_groups,
 )
-from seqstate.engine import api
-from seqstate.io.tables import builtin_dir, load_model
 from seqstate.model import State, make_model
 
 REPO = Path(__file__).resolve().parent.parent
