@@ -7,84 +7,38 @@ unwritable output); 3 an optional extra is missing; 130 interrupted.
 
 from __future__ import annotations
 
-import contextlib
 import io
-import os
-import signal
 import sys
+from collections.abc import Callable, Sequence
+from typing import Any, TypeVar
 
 import click
 
 from seqstate import __version__, log
-from seqstate.errors import SeqstateError
-from seqstate.io.atomic import note_stop
-
-EXIT_INTERRUPTED = 130
-#: Signals that stop a run: outputs are discarded, one ``error: interrupted`` line, exit 130.
-STOP_SIGNALS = tuple(
-    getattr(signal, n) for n in ("SIGINT", "SIGTERM", "SIGHUP") if hasattr(signal, n)
+from seqstate.commands.process import (
+    EXIT_INTERRUPTED,
+    Interrupted,
+    raise_stdout_failure,
+    signal_handlers,
+    silence_stdout,
 )
+from seqstate.errors import SeqstateError
 
-
-class Interrupted(BaseException):
-    """Raised by the handler of a stop signal (not an Exception: nothing swallows it)."""
-
-
-def _interrupt(signum, frame):  # type: ignore[no-untyped-def]
-    note_stop(signum)  # sticky: no output set commits, even if this raise is swallowed
-    raise Interrupted(signum)
-
-
-@contextlib.contextmanager
-def _signal_handlers():
-    """SIGINT, SIGTERM and SIGHUP raise :class:`Interrupted`; SIGXFSZ is ignored, so a
-    file-size limit is a write error (OSError EFBIG), not a kill.  Restored afterwards."""
-    saved = {}
-    wanted = {s: _interrupt for s in STOP_SIGNALS}
-    if hasattr(signal, "SIGXFSZ"):
-        wanted[signal.SIGXFSZ] = signal.SIG_IGN
-    for signum, handler in wanted.items():
-        try:
-            saved[signum] = signal.signal(signum, handler)
-        except (ValueError, OSError):  # not the main thread
-            pass
-    try:
-        yield
-    finally:
-        for signum, handler in saved.items():
-            with contextlib.suppress(ValueError, OSError, TypeError):
-                signal.signal(signum, handler)
-
-
-def _silence_stdout() -> None:
-    """After a failed write to standard output, keep the exit flush from failing again."""
-    try:
-        devnull = os.open(os.devnull, os.O_WRONLY)
-        os.dup2(devnull, sys.stdout.fileno())
-        os.close(devnull)
-    except (OSError, ValueError, AttributeError, io.UnsupportedOperation):
-        pass
+F = TypeVar("F", bound=Callable[..., Any])
 
 
 def echo_stdout(text: str) -> None:
     """Write ``text`` to standard output; a full device is one ``error:`` line (exit 2)."""
-    from seqstate.errors import UsageError
-    from seqstate.io.atomic import write_failure
-
     try:
         click.echo(text, nl=False)
         sys.stdout.flush()
     except BrokenPipeError:
         raise
     except OSError as exc:
-        failure = write_failure(exc, "standard output")
-        if failure is None:
-            raise
-        _silence_stdout()
-        raise UsageError(failure.message) from None
+        raise_stdout_failure(exc)
 
 
-def not_empty(ctx, param, value):  # type: ignore[no-untyped-def]
+def not_empty(ctx: click.Context, param: click.Parameter, value: Any) -> Any:
     """Click callback: an option given as '' is a usage error, not 'no value'."""
     if value is not None and not isinstance(value, tuple) and not str(value).strip():
         raise click.BadParameter("is empty", ctx=ctx, param=param)
@@ -93,7 +47,7 @@ def not_empty(ctx, param, value):  # type: ignore[no-untyped-def]
     return value
 
 
-def force_option(command):  # type: ignore[no-untyped-def]
+def force_option(command: F) -> F:
     """--force, the same on every command that writes files."""
     return click.option(
         "--force",
@@ -102,14 +56,16 @@ def force_option(command):  # type: ignore[no-untyped-def]
     )(command)
 
 
-def quiet_option(command):  # type: ignore[no-untyped-def]
+def quiet_option(command: F) -> F:
     """-q/--quiet, the same on every command."""
     return click.option("-q", "--quiet", is_flag=True, help="No progress or summary on stderr.")(
         command
     )
 
 
-def model_option(required: bool = False, help: str = "Built-in model NAME or model PATH."):  # type: ignore[no-untyped-def]
+def model_option(
+    required: bool = False, help: str = "Built-in model NAME or model PATH."
+) -> Callable[[F], F]:
     """-m/--model: the built-in ``cpg-island`` by default, or ``required``."""
     if required:
         return click.option("-m", "--model", required=True, help=help)
@@ -125,12 +81,14 @@ def say(quiet: bool, text: str) -> None:
 class _Group(click.Group):
     """A click group whose usage errors are one ``error:`` line, like our own errors."""
 
-    def main(self, args=None, prog_name=None, **kwargs):  # type: ignore[override]
+    def main(  # type: ignore[override]
+        self, args: Sequence[str] | None = None, prog_name: str | None = None, **kwargs: Any
+    ) -> Any:
         args = list(sys.argv[1:] if args is None else args)
         debug = "--debug" in args
         try:
             kwargs.setdefault("obj", {"argv": list(args)})
-            with _signal_handlers():
+            with signal_handlers():
                 value = super().main(
                     args=args, prog_name=prog_name or "seqstate", standalone_mode=False, **kwargs
                 )
@@ -158,7 +116,7 @@ class _Group(click.Group):
             click.echo("error: interrupted", err=True)
             sys.exit(EXIT_INTERRUPTED)
         except BrokenPipeError:
-            _silence_stdout()
+            silence_stdout()
             sys.exit(1)
         except OSError as exc:
             from seqstate.io.atomic import write_failure
@@ -166,7 +124,7 @@ class _Group(click.Group):
             failure = write_failure(exc, "output")
             if debug or failure is None:
                 raise
-            _silence_stdout()
+            silence_stdout()
             click.echo(f"error: {failure.format()}", err=True)
             sys.exit(failure.exit_code)
 

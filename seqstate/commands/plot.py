@@ -233,9 +233,9 @@ def plot_data(opts: PlotOptions) -> PlotData:
     if decode == "viterbi":
         note = "Viterbi path"
     else:
-        note = f"posterior at least {opts.min_posterior:g}"
-    if opts.min_length > 1:
-        note += f", at least {opts.min_length} bases"
+        note = f"posterior at least {min_posterior:g}"
+    if min_length > 1:
+        note += f", at least {min_length} bases"
     decoded = [
         LaneFeature(s.group, s.start0 + w0, s.end0 + w0)
         for s in segs

@@ -32,7 +32,7 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import TextIO
+from typing import Any, TextIO
 
 import numpy as np
 
@@ -347,7 +347,7 @@ def _score_one(
     label: str,
 ) -> dict:
     sc = score_segment(tables, codes, post, post.values[:, 0], mask, start0, end0)
-    out = {"length": end0 - start0}
+    out: dict[str, Any] = {"length": end0 - start0}
     for key in POSTERIOR_COLUMNS:
         if key == "max_posterior":
             out[key] = float(np.max(post.values[start0:end0, 0]))
@@ -574,7 +574,7 @@ def score(opts: ScoreOptions) -> ScoreResult:
         raise UsageError(
             "the table and --gff cannot both go to standard output: give -o a file name"
         )
-    inputs = [opts.input, opts.regions, *model_inputs(opts.model)]
+    inputs: list[str | Path] = [opts.input, opts.regions, *model_inputs(opts.model)]
     check_outputs([tsv_file, opts.out_gff], inputs, force=opts.force)
     model = load_model(opts.model)
     label = choose_label(model, opts.label)

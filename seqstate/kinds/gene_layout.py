@@ -230,8 +230,8 @@ def build_layout(order: int = 3, *, name: str = "gene-segment-layout") -> Model:
         for c in range(a**order):
             ctx = "".join(DNA[(c // a ** (order - 1 - q)) % a] for q in range(order))
             allowed = _allowed(st.name, bases[st.name], ctx)
-            for b in allowed:
-                emis[s, c, DNA.index(b)] = 1.0
+            for base in allowed:
+                emis[s, c, DNA.index(base)] = 1.0
             emis[s, c] /= emis[s, c].sum()
     start = np.zeros(m)
     start[0] = 1.0

@@ -322,7 +322,7 @@ def write_genes(
         for ln in gene_lines(gp, seqid, number):
             a, b = ln.start0, ln.end0
             sc = None
-            if post is not None:
+            if post is not None and tables is not None and codes is not None:
                 k = 0 if ln.type in ("gene", "mRNA") else 1
                 sc = score_segment(
                     tables, codes, post, values[strand][k], masks[strand][k], a, b, log_odds=False
