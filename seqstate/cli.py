@@ -72,6 +72,11 @@ def model_option(
     return click.option("-m", "--model", default="cpg-island", show_default=True, help=help)
 
 
+def fasta_argument(command: F) -> F:
+    """The FASTA input, first argument of every command that reads sequences."""
+    return click.argument("input", metavar="FASTA")(command)
+
+
 def say(quiet: bool, text: str) -> None:
     """The summary line of a command, unless ``-q``."""
     if not quiet:
@@ -213,7 +218,7 @@ def model_check(model: str) -> None:
 
 # ---------------------------------------------------------------- annotate
 @main.command("annotate")
-@click.argument("fasta")
+@fasta_argument
 @model_option()
 @click.option(
     "-o",
@@ -261,52 +266,19 @@ def model_check(model: str) -> None:
 )
 @quiet_option
 @click.pass_obj
-def annotate_cmd(
-    obj,
-    fasta,
-    model,
-    out_dir,
-    decode,
-    min_posterior,
-    min_length,
-    region,
-    masked,
-    tracks,
-    stem,
-    force,
-    precision,
-    split_unknown,
-    empty_records,
-    quiet,
-) -> None:
+def annotate_cmd(obj: dict | None, tracks: str | None, quiet: bool, **options: Any) -> None:
     """Annotate the records of FASTA (plain or gzip; '-' for stdin) with a model."""
     from seqstate.commands.annotate import STDOUT, AnnotateOptions, annotate, warn_skipped
 
-    if tracks is None:
-        tracks = "none" if out_dir == STDOUT else "bedgraph"
-    gff_out = io.StringIO() if out_dir == STDOUT else None
-    opts = AnnotateOptions(
-        input=fasta,
-        model=model,
-        out_dir=out_dir,
-        decode=decode,
-        min_posterior=min_posterior,
-        min_length=min_length,
-        region=region,
-        masked=masked,
-        tracks=tracks,
-        precision=precision,
-        split_unknown=split_unknown,
-        empty_records=empty_records,
-        command_line=command_line(obj),
-        force=force,
-        stem=stem,
-    )
+    to_stdout = options["out_dir"] == STDOUT
+    tracks = tracks or ("none" if to_stdout else "bedgraph")
+    opts = AnnotateOptions(tracks=tracks, command_line=command_line(obj), **options)
+    gff_out = io.StringIO() if to_stdout else None
     report = annotate(opts, progress=log.progress_for(quiet), stdout=gff_out)
-    warn_skipped(fasta, report.skipped_records)
+    warn_skipped(opts.input, report.skipped_records)
     if gff_out is not None:
         echo_stdout(gff_out.getvalue())
-    say(quiet, report.summary("stdout" if gff_out is not None else f"{out_dir}/"))
+    say(quiet, report.summary("stdout" if to_stdout else f"{opts.out_dir}/"))
 
 
 # ---------------------------------------------------------------- sample
@@ -322,7 +294,7 @@ def annotate_cmd(
 )
 @click.option(
     "--truth",
-    "truth",
+    "truth_gff3",
     default=None,
     callback=not_empty,
     help="GFF3 file for the true labelled runs.",
@@ -335,17 +307,16 @@ def annotate_cmd(
 )
 @force_option
 @quiet_option
-def sample_cmd(model, length, records, seed, out_fasta, truth, prefix, force, quiet) -> None:
+def sample_cmd(quiet: bool, **options: Any) -> None:
     """Draw synthetic records and their true state paths from MODEL."""
     from seqstate.commands.sample import SampleOptions, sample
 
-    options = SampleOptions(model, length, records, seed, out_fasta, truth, prefix, force=force)
-    say(quiet, sample(options).summary())
+    say(quiet, sample(SampleOptions(**options)).summary())
 
 
 # ---------------------------------------------------------------- score
 @main.command("score")
-@click.argument("fasta")
+@fasta_argument
 @click.option(
     "--regions",
     required=True,
@@ -393,38 +364,12 @@ def sample_cmd(model, length, records, seed, out_fasta, truth, prefix, force, qu
 @masked_option
 @force_option
 @quiet_option
-def score_cmd(
-    fasta,
-    regions,
-    model,
-    label,
-    out_tsv,
-    out_gff,
-    flank,
-    regions_format,
-    types,
-    masked,
-    force,
-    quiet,
-) -> None:
+def score_cmd(regions_format: str, types: tuple[str, ...], quiet: bool, **options: Any) -> None:
     """Score the --regions on the records of FASTA (plain or gzip; '-' for stdin)."""
     from seqstate.commands.score import ScoreOptions, score
 
-    result = score(
-        ScoreOptions(
-            input=fasta,
-            regions=regions,
-            model=model,
-            label=label,
-            out_tsv=out_tsv,
-            out_gff=out_gff,
-            flank=flank,
-            regions_format=None if regions_format == "auto" else regions_format,
-            types=tuple(types),
-            masked=masked,
-            force=force,
-        )
-    )
+    fmt = None if regions_format == "auto" else regions_format
+    result = score(ScoreOptions(regions_format=fmt, types=tuple(types), **options))
     if result.stdout is not None:
         echo_stdout(result.stdout)
     say(quiet, result.summary())
@@ -432,7 +377,7 @@ def score_cmd(
 
 # ---------------------------------------------------------------- plot
 @main.command("plot")
-@click.argument("fasta")
+@fasta_argument
 @click.option(
     "--region",
     required=True,
@@ -469,49 +414,11 @@ def score_cmd(
 @masked_option
 @force_option
 @quiet_option
-def plot_cmd(
-    fasta,
-    region,
-    model,
-    out,
-    reference,
-    flank,
-    width,
-    height,
-    dpi,
-    allow_large,
-    decode,
-    min_posterior,
-    min_length,
-    split_unknown,
-    masked,
-    force,
-    quiet,
-) -> None:
+def plot_cmd(quiet: bool, **options: Any) -> None:
     """Draw posteriors and features of one region of FASTA (needs the 'plot' extra)."""
     from seqstate.commands.plot import PlotOptions, plot
 
-    result = plot(
-        PlotOptions(
-            input=fasta,
-            region=region,
-            out=out,
-            model=model,
-            reference=reference,
-            flank=flank,
-            width=width,
-            height=height,
-            dpi=dpi,
-            allow_large=allow_large,
-            force=force,
-            decode=decode,
-            min_posterior=min_posterior,
-            min_length=min_length,
-            split_unknown=split_unknown,
-            masked=masked,
-        )
-    )
-    say(quiet, result.summary())
+    say(quiet, plot(PlotOptions(**options)).summary())
 
 
 @main.command("fit")
