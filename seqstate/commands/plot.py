@@ -447,7 +447,7 @@ def save(
 
 
 @dataclass
-class PlotResult:
+class PlotReport:
     """What a plot run drew: counts of decoded and reference boxes, and the file."""
 
     out: str
@@ -463,14 +463,14 @@ class PlotResult:
         return f"{self.region}, {self.decoded} decoded{ref} feature(s) -> {self.out}"
 
 
-def plot(opts: PlotOptions) -> PlotResult:
+def plot(opts: PlotOptions) -> PlotReport:
     """Run ``seqstate plot``: compute, draw and write the figure (nothing left on error)."""
     _check_options(opts)
     require_matplotlib()
     data = plot_data(opts)
     fig = draw(data, opts.width, opts.height, opts.dpi)
     save(fig, opts.out, opts.dpi, force=opts.force, inputs=_inputs(opts))
-    return PlotResult(
+    return PlotReport(
         opts.out,
         len(data.decoded),
         len(data.reference),

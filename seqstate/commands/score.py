@@ -53,7 +53,7 @@ __all__ = [
     "InputRegion",
     "RegionFile",
     "ScoreOptions",
-    "ScoreResult",
+    "ScoreReport",
     "choose_label",
     "detect_region_format",
     "check_regions",
@@ -535,7 +535,7 @@ class ScoreOptions:
 
 
 @dataclass
-class ScoreResult:
+class ScoreReport:
     """What a score run produced: the TSV text, counts, the label, and what to print.
 
     ``stdout`` is the text the caller must print on standard output (the table
@@ -555,7 +555,7 @@ class ScoreResult:
         return f"{self.regions} region(s) ({self.format}) scored for {self.label} -> {self.where}"
 
 
-def score(opts: ScoreOptions) -> ScoreResult:
+def score(opts: ScoreOptions) -> ScoreReport:
     """Run ``seqstate score``: read, check, score, then write every output at once.
 
     Every input is read and checked before anything is computed, and outputs
@@ -605,7 +605,7 @@ def score(opts: ScoreOptions) -> ScoreResult:
     with OutputSet(force=opts.force, inputs=inputs) as outs:
         for path, text in files:
             outs.open_text(path).write(text)
-    return ScoreResult(
+    return ScoreReport(
         table=table,
         label=label,
         regions=len(rf.regions),
