@@ -150,7 +150,7 @@ def command_line(obj: dict | None) -> list[str]:
     return ["seqstate", *(sys.argv[1:] if argv is None else argv)]
 
 
-def decoding_options(command):
+def decoding_options(command: F) -> F:
     """--decode, --min-posterior, --min-length and --split-unknown, shared by annotate and plot."""
     command = click.option(
         "--split-unknown",
@@ -181,7 +181,7 @@ def decoding_options(command):
     )(command)
 
 
-def masked_option(command):
+def masked_option(command: F) -> F:
     """--masked, shared by every command that reads sequences."""
     return click.option(
         "--masked",

@@ -30,6 +30,7 @@ from collections import deque
 from dataclasses import dataclass, field
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from seqstate.errors import ModelFormatError
 
@@ -220,7 +221,7 @@ def _bytes(n: int) -> str:
     return f"{size:.3g} PiB"  # pragma: no cover
 
 
-def thresholds_problem(table) -> str | None:
+def thresholds_problem(table: object) -> str | None:
     """Why a ``[defaults]`` table is not valid (see :data:`DEFAULT_THRESHOLDS`), or None."""
     if not isinstance(table, dict):
         return "[defaults] must be a table of decoding thresholds (min_posterior, min_length)"
@@ -271,10 +272,10 @@ def make_model(
     name: str,
     alphabet: str,
     states: list[State] | tuple[State, ...],
-    start,
-    transitions,
-    emissions,
-    end=None,
+    start: ArrayLike,
+    transitions: ArrayLike,
+    emissions: ArrayLike,
+    end: ArrayLike | None = None,
     order: int | None = None,
     description: str = "",
     decode: str = "posterior",
