@@ -424,7 +424,7 @@ class _Run:
             offset0=s0,
             seq=seq,
             codes=codes,
-            unknown=sym < 0,
+            symbols=sym,
             post=post,
             decode=self.decode,
             min_posterior=self.min_posterior,

@@ -212,16 +212,16 @@ def plot_data(opts: PlotOptions) -> PlotData:
     window = rec.seq[w0:w1]
     unknown_masked = opts.masked == "unknown"
     codes = api.encode(tables, window, masked_unknown=unknown_masked)
-    # as annotate: features never claim long runs of unknown bases, nor unknown ends
-    unknown = api.symbols_of(tables, window, masked_unknown=unknown_masked) < 0
     try:
         post = api.posterior(tables, codes, group=state_group, n_groups=len(groups), record=name)
+        # as annotate: features never claim long runs of unknown bases, nor unknown ends
+        symbols = api.symbols_of(tables, window, masked_unknown=unknown_masked)
         segs = decode_segments(
             tables,
             codes,
             post,
             state_group,
-            unknown,
+            symbols,
             decode=decode,
             min_posterior=min_posterior,
             min_length=min_length,

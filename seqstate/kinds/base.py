@@ -81,7 +81,8 @@ class RecordData:
     """One record (or region of it) after the posterior pass, as a kind decodes it.
 
     ``seq`` is the annotated stretch (``offset0`` bases into record ``seqid``),
-    ``codes`` its emission codes, ``unknown`` a boolean per base, ``post`` the
+    ``codes`` its emission codes, ``symbols`` its symbol indices (negative for an
+    unknown base; :attr:`unknown` is made from them when asked for), ``post`` the
     per-group posterior of ``groups`` (``state_group`` per state).  ``decode``,
     ``min_posterior``, ``min_length`` and ``split_unknown`` are annotate's options.
     """
@@ -94,12 +95,17 @@ class RecordData:
     offset0: int
     seq: bytes
     codes: np.ndarray
-    unknown: np.ndarray
+    symbols: np.ndarray
     post: api.Posterior
     decode: str
     min_posterior: float
     min_length: int
     split_unknown: int
+
+    @property
+    def unknown(self) -> np.ndarray:
+        """A boolean per base: unknown (N, ambiguity codes, masked with ``--masked unknown``)."""
+        return self.symbols < 0
 
 
 class Kind(ABC):

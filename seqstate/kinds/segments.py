@@ -279,7 +279,7 @@ def decode_segments(
     codes: np.ndarray,
     post: api.Posterior,
     state_group: np.ndarray,
-    unknown: np.ndarray,
+    symbols: np.ndarray,
     *,
     decode: str,
     min_posterior: float,
@@ -291,7 +291,8 @@ def decode_segments(
 
     Viterbi: runs of one group along the most probable path; posterior: runs at or
     above ``min_posterior``.  Both keep runs of at least ``min_length`` bases, then
-    cut them at runs of ``split_unknown`` unknown bases (:func:`split_at_unknown`).
+    cut them at runs of ``split_unknown`` unknown bases (:func:`split_at_unknown`;
+    ``symbols`` are the symbol indices, negative for an unknown base).
     """
     if decode == "viterbi":
         path, _ = api.viterbi(tables, codes, record=record)
@@ -299,7 +300,7 @@ def decode_segments(
         del path
     else:
         segs = segments_from_posterior(post.values, min_posterior, min_length)
-    return split_at_unknown(segs, unknown, min_length, split_unknown)
+    return split_at_unknown(segs, symbols < 0, min_length, split_unknown)
 
 
 def score_segments(
@@ -365,7 +366,7 @@ class SegmentKind(Kind):
             rec.codes,
             rec.post,
             rec.state_group,
-            rec.unknown,
+            rec.symbols,
             decode=rec.decode,
             min_posterior=rec.min_posterior,
             min_length=rec.min_length,
