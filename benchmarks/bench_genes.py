@@ -63,10 +63,10 @@ def default_fasta() -> Path | None:
 # ----------------------------------------------------------------- child side
 def _child(spec: dict) -> dict:
     """One engine measurement: times (s) of ``spec['op']`` on the first FASTA record."""
-    from seqstate.decode import group_index, track_groups
     from seqstate.engine import api
     from seqstate.io.fasta import read_fasta
     from seqstate.io.tables import load_model
+    from seqstate.kinds import group_index, track_groups
 
     model = load_model(MODEL)
     tables = api.prepare(model)

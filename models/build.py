@@ -9,7 +9,7 @@ models/gene-segment, see models/README.md).
 from pathlib import Path
 
 from seqstate.io.tables import load_model, save_model
-from seqstate.layouts import expand_to_symbol_states
+from seqstate.kinds.layouts import expand_to_symbol_states
 
 HERE = Path(__file__).resolve().parent
 
@@ -34,7 +34,7 @@ def build_cpg8():
 
 
 def build_gene_layout():
-    from seqstate.genes import build_layout
+    from seqstate.kinds.gene_layout import build_layout
 
     layout = build_layout(3)
     layout.provenance = {

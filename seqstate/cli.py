@@ -7,84 +7,39 @@ unwritable output); 3 an optional extra is missing; 130 interrupted.
 
 from __future__ import annotations
 
-import contextlib
 import io
-import os
-import signal
 import sys
+from collections.abc import Callable, Sequence
+from typing import Any, TypeVar
 
 import click
 
-from seqstate import __version__
-from seqstate.errors import SeqstateError
-from seqstate.io.atomic import note_stop, stop_requested
-
-EXIT_INTERRUPTED = 130
-#: Signals that stop a run: outputs are discarded, one ``error: interrupted`` line, exit 130.
-STOP_SIGNALS = tuple(
-    getattr(signal, n) for n in ("SIGINT", "SIGTERM", "SIGHUP") if hasattr(signal, n)
+from seqstate import __version__, log
+from seqstate.commands.process import (
+    EXIT_INTERRUPTED,
+    Interrupted,
+    raise_stdout_failure,
+    signal_handlers,
+    silence_stdout,
 )
+from seqstate.errors import SeqstateError
+from seqstate.io.atomic import stop_requested
 
-
-class Interrupted(BaseException):
-    """Raised by the handler of a stop signal (not an Exception: nothing swallows it)."""
-
-
-def _interrupt(signum, frame):  # type: ignore[no-untyped-def]
-    note_stop(signum)  # sticky: no output set commits, even if this raise is swallowed
-    raise Interrupted(signum)
-
-
-@contextlib.contextmanager
-def _signal_handlers():
-    """SIGINT, SIGTERM and SIGHUP raise :class:`Interrupted`; SIGXFSZ is ignored, so a
-    file-size limit is a write error (OSError EFBIG), not a kill.  Restored afterwards."""
-    saved = {}
-    wanted = {s: _interrupt for s in STOP_SIGNALS}
-    if hasattr(signal, "SIGXFSZ"):
-        wanted[signal.SIGXFSZ] = signal.SIG_IGN
-    for signum, handler in wanted.items():
-        try:
-            saved[signum] = signal.signal(signum, handler)
-        except (ValueError, OSError):  # not the main thread
-            pass
-    try:
-        yield
-    finally:
-        for signum, handler in saved.items():
-            with contextlib.suppress(ValueError, OSError, TypeError):
-                signal.signal(signum, handler)
-
-
-def _silence_stdout() -> None:
-    """After a failed write to standard output, keep the exit flush from failing again."""
-    try:
-        devnull = os.open(os.devnull, os.O_WRONLY)
-        os.dup2(devnull, sys.stdout.fileno())
-        os.close(devnull)
-    except (OSError, ValueError, AttributeError, io.UnsupportedOperation):
-        pass
+F = TypeVar("F", bound=Callable[..., Any])
 
 
 def echo_stdout(text: str) -> None:
     """Write ``text`` to standard output; a full device is one ``error:`` line (exit 2)."""
-    from seqstate.errors import UsageError
-    from seqstate.io.atomic import write_failure
-
     try:
         click.echo(text, nl=False)
         sys.stdout.flush()
     except BrokenPipeError:
         raise
     except OSError as exc:
-        failure = write_failure(exc, "standard output")
-        if failure is None:
-            raise
-        _silence_stdout()
-        raise UsageError(failure.message) from None
+        raise_stdout_failure(exc)
 
 
-def not_empty(ctx, param, value):  # type: ignore[no-untyped-def]
+def not_empty(ctx: click.Context, param: click.Parameter, value: Any) -> Any:
     """Click callback: an option given as '' is a usage error, not 'no value'."""
     if value is not None and not isinstance(value, tuple) and not str(value).strip():
         raise click.BadParameter("is empty", ctx=ctx, param=param)
@@ -93,7 +48,7 @@ def not_empty(ctx, param, value):  # type: ignore[no-untyped-def]
     return value
 
 
-def force_option(command):
+def force_option(command: F) -> F:
     """--force, the same on every command that writes files."""
     return click.option(
         "--force",
@@ -102,22 +57,44 @@ def force_option(command):
     )(command)
 
 
-def quiet_option(command):
+def quiet_option(command: F) -> F:
     """-q/--quiet, the same on every command."""
     return click.option("-q", "--quiet", is_flag=True, help="No progress or summary on stderr.")(
         command
     )
 
 
+def model_option(
+    required: bool = False, help: str = "Built-in model NAME or model PATH."
+) -> Callable[[F], F]:
+    """-m/--model: the built-in ``cpg-island`` by default, or ``required``."""
+    if required:
+        return click.option("-m", "--model", required=True, help=help)
+    return click.option("-m", "--model", default="cpg-island", show_default=True, help=help)
+
+
+def fasta_argument(command: F) -> F:
+    """The FASTA input, first argument of every command that reads sequences."""
+    return click.argument("input", metavar="FASTA")(command)
+
+
+def say(quiet: bool, text: str) -> None:
+    """The summary line of a command, unless ``-q``."""
+    if not quiet:
+        log.summary(text)
+
+
 class _Group(click.Group):
     """A click group whose usage errors are one ``error:`` line, like our own errors."""
 
-    def main(self, args=None, prog_name=None, **kwargs):  # type: ignore[override]
+    def main(  # type: ignore[override]
+        self, args: Sequence[str] | None = None, prog_name: str | None = None, **kwargs: Any
+    ) -> Any:
         args = list(sys.argv[1:] if args is None else args)
         debug = "--debug" in args
         try:
             kwargs.setdefault("obj", {"argv": list(args)})
-            with _signal_handlers():
+            with signal_handlers():
                 try:
                     value = super().main(
                         args=args,
@@ -155,7 +132,7 @@ class _Group(click.Group):
             click.echo("error: interrupted", err=True)
             sys.exit(EXIT_INTERRUPTED)
         except BrokenPipeError:
-            _silence_stdout()
+            silence_stdout()
             sys.exit(1)
         except OSError as exc:
             from seqstate.io.atomic import write_failure
@@ -163,7 +140,7 @@ class _Group(click.Group):
             failure = write_failure(exc, "output")
             if debug or failure is None:
                 raise
-            _silence_stdout()
+            silence_stdout()
             click.echo(f"error: {failure.format()}", err=True)
             sys.exit(failure.exit_code)
 
@@ -184,7 +161,7 @@ def command_line(obj: dict | None) -> list[str]:
     return ["seqstate", *(sys.argv[1:] if argv is None else argv)]
 
 
-def decoding_options(command):
+def decoding_options(command: F) -> F:
     """--decode, --min-posterior, --min-length and --split-unknown, shared by annotate and plot."""
     command = click.option(
         "--split-unknown",
@@ -215,7 +192,7 @@ def decoding_options(command):
     )(command)
 
 
-def masked_option(command):
+def masked_option(command: F) -> F:
     """--masked, shared by every command that reads sequences."""
     return click.option(
         "--masked",
@@ -235,91 +212,25 @@ def model_group() -> None:
 @model_group.command("list")
 def model_list() -> None:
     """The built-in models, one line each."""
-    from seqstate.io.tables import list_builtin, load_model
+    from seqstate.commands.model import list_lines
 
-    for name in list_builtin():
-        m = load_model(name)
-        labels = ", ".join(m.labels) or "no labels"
-        about = m.description if len(m.description) <= 70 else m.description[:69] + "…"
-        click.echo(f"{name}\t{m.n_states} states, order {m.order}, {labels}: {about}")
+    for line in list_lines():
+        click.echo(line)
 
 
 @model_group.command("check")
 @click.argument("model")
 def model_check(model: str) -> None:
     """Validate MODEL (a built-in NAME or a PATH) and print a summary."""
-    from seqstate.io.tables import load_model, model_sha256, resolve_model_path
+    from seqstate.commands.model import check
 
-    path = resolve_model_path(model)
-    m = load_model(model)
-    click.echo(summary(m, str(path), model_sha256(m)))
-
-
-def summary(m, path: str, sha: str) -> str:
-    """Readable summary of a model: states, labels, strands, transitions, stay lengths."""
-    from seqstate.model import default_thresholds
-
-    lines = [f"model     {m.name}", f"manifest  {path}"]
-    if m.description:
-        lines.append(f"about     {m.description}")
-    lines.append(f"alphabet  {m.alphabet} ({len(m.alphabet)} symbols)")
-    lines.append(f"order     {m.order} (emission depends on the previous {m.order} symbols)")
-    lines.append(f"decode    {m.decode} (default)")
-    thresholds = default_thresholds(m)
-    lines.append(
-        f"features  min_posterior {thresholds['min_posterior']:g}, min_length "
-        f"{thresholds['min_length']} bases (defaults of annotate and plot)"
-    )
-    if m.end is None:
-        lines.append("end       none given: any state may end a record")
-    else:
-        lines.append("end       P(record ends | state) given per state")
-    lines.append(f"sha256    {sha}")
-    lines.append("")
-    stay = m.expected_stay()
-    names = m.state_names
-    w = max(5, max(len(n) for n in names))
-    labels = [s.label or "-" for s in m.states]
-    lw = max(5, max(len(x) for x in labels))
-    lines.append(
-        f"{'state':<{w}}  {'label':<{lw}}  strand  {'start':>10}  {'end':>10}  "
-        f"expected stay (bases)"
-    )
-    for i, s in enumerate(m.states):
-        end = "-" if m.end is None else f"{m.end[i]:.4g}"
-        st = "inf" if stay[i] == float("inf") else f"{stay[i]:.4g}"
-        lines.append(
-            f"{s.name:<{w}}  {labels[i]:<{lw}}  {s.strand or '.':<6}  "
-            f"{m.start[i]:>10.4g}  {end:>10}  {st}"
-        )
-    allowed = m.allowed_transitions()
-    lines.append("")
-    lines.append(f"allowed transitions: {len(allowed)} of {m.n_states**2}")
-    for i, n in enumerate(names):
-        succ = [
-            f"{names[j]} {m.transitions[i, j]:.6g}"
-            for j in range(m.n_states)
-            if m.transitions[i, j] > 0
-        ]
-        lines.append(f"  {n:<{w}} -> " + (", ".join(succ) if succ else "(none)"))
-    if m.provenance:
-        lines.append("")
-        lines.append("provenance")
-        for key, value in m.provenance.items():
-            lines.append(f"  {key}: {value}")
-    return "\n".join(lines)
+    click.echo(check(model))
 
 
 # ---------------------------------------------------------------- annotate
 @main.command("annotate")
-@click.argument("fasta")
-@click.option(
-    "-m",
-    "--model",
-    default="cpg-island",
-    show_default=True,
-    help="Built-in model NAME or model PATH.",
-)
+@fasta_argument
+@model_option()
 @click.option(
     "-o",
     "--out",
@@ -364,81 +275,21 @@ def summary(m, path: str, sha: str) -> str:
     show_default=True,
     help="A FASTA record with no sequence: skip it with a warning, or stop with an error.",
 )
-@click.option("-q", "--quiet", is_flag=True, help="No progress or summary on stderr.")
+@quiet_option
 @click.pass_obj
-def annotate_cmd(
-    obj,
-    fasta,
-    model,
-    out_dir,
-    decode,
-    min_posterior,
-    min_length,
-    region,
-    masked,
-    tracks,
-    stem,
-    force,
-    precision,
-    split_unknown,
-    empty_records,
-    quiet,
-) -> None:
+def annotate_cmd(obj: dict | None, tracks: str | None, quiet: bool, **options: Any) -> None:
     """Annotate the records of FASTA (plain or gzip; '-' for stdin) with a model."""
-    from seqstate.pipeline import STDOUT, AnnotateOptions, annotate
+    from seqstate.commands.annotate import STDOUT, AnnotateOptions, annotate, warn_skipped
 
-    if tracks is None:
-        tracks = "none" if out_dir == STDOUT else "bedgraph"
-    gff_out = io.StringIO() if out_dir == STDOUT else None
-    opts = AnnotateOptions(
-        input=fasta,
-        model=model,
-        out_dir=out_dir,
-        decode=decode,
-        min_posterior=min_posterior,
-        min_length=min_length,
-        region=region,
-        masked=masked,
-        tracks=tracks,
-        precision=precision,
-        split_unknown=split_unknown,
-        empty_records=empty_records,
-        command_line=command_line(obj),
-        force=force,
-        stem=stem,
-    )
-    report = annotate(opts, progress_enabled=(not quiet) and sys.stderr.isatty(), stdout=gff_out)
-    _warn_skipped(fasta, report["skipped_records"])
+    to_stdout = options["out_dir"] == STDOUT
+    tracks = tracks or ("none" if to_stdout else "bedgraph")
+    opts = AnnotateOptions(tracks=tracks, command_line=command_line(obj), **options)
+    gff_out = io.StringIO() if to_stdout else None
+    report = annotate(opts, progress=log.progress_for(quiet), stdout=gff_out)
+    warn_skipped(opts.input, report.skipped_records)
     if gff_out is not None:
         echo_stdout(gff_out.getvalue())
-    if not quiet:
-        n = sum(r["features"] for r in report["records"])
-        bases = sum(r["end_1based"] - r["start_1based"] + 1 for r in report["records"])
-        where = "stdout" if gff_out is not None else f"{out_dir}/"
-        click.echo(
-            f"seqstate: {len(report['records'])} record(s), {bases} bases, {n} features -> {where}",
-            err=True,
-        )
-
-
-def _warn_skipped(fasta: str, skipped: list[dict], shown: int = 5) -> None:
-    """One warning line per skipped record (the first ``shown``; the run report has all)."""
-    from seqstate.errors import escape_text
-    from seqstate.io.files import display_name
-
-    for sk in skipped[:shown]:
-        text = f"{display_name(fasta)} line {sk['line']}, record '{sk['id']}'"
-        click.echo(
-            f"warning: {escape_text(text)}: a header with no sequence, skipped "
-            "(--empty-records error refuses such records)",
-            err=True,
-        )
-    if len(skipped) > shown:
-        click.echo(
-            f"warning: {len(skipped) - shown} more record(s) with no sequence skipped "
-            "(all are listed in the run report)",
-            err=True,
-        )
+    say(quiet, report.summary("stdout" if to_stdout else f"{opts.out_dir}/"))
 
 
 # ---------------------------------------------------------------- sample
@@ -454,7 +305,7 @@ def _warn_skipped(fasta: str, skipped: list[dict], shown: int = 5) -> None:
 )
 @click.option(
     "--truth",
-    "truth",
+    "truth_gff3",
     default=None,
     callback=not_empty,
     help="GFF3 file for the true labelled runs.",
@@ -467,47 +318,23 @@ def _warn_skipped(fasta: str, skipped: list[dict], shown: int = 5) -> None:
 )
 @force_option
 @quiet_option
-def sample_cmd(model, length, records, seed, out_fasta, truth, prefix, force, quiet) -> None:
+def sample_cmd(quiet: bool, **options: Any) -> None:
     """Draw synthetic records and their true state paths from MODEL."""
-    from seqstate.pipeline import SampleOptions, sample
+    from seqstate.commands.sample import SampleOptions, sample
 
-    result = sample(
-        SampleOptions(
-            model=model,
-            length=length,
-            records=records,
-            seed=seed,
-            out_fasta=out_fasta,
-            truth_gff3=truth,
-            prefix=prefix,
-            force=force,
-        )
-    )
-    if not quiet:
-        truth_part = f", {result['features']} true feature(s) -> {truth}" if truth else ""
-        click.echo(
-            f"seqstate: {result['records']} record(s) of {result['length']} bases "
-            f"-> {out_fasta}{truth_part}",
-            err=True,
-        )
+    say(quiet, sample(SampleOptions(**options)).summary())
 
 
 # ---------------------------------------------------------------- score
 @main.command("score")
-@click.argument("fasta")
+@fasta_argument
 @click.option(
     "--regions",
     required=True,
     help="Regions to score: BED (0-based half-open) or GFF3 (1-based closed), "
     "plain or gzip; '-' for stdin.",
 )
-@click.option(
-    "-m",
-    "--model",
-    default="cpg-island",
-    show_default=True,
-    help="Built-in model NAME or model PATH.",
-)
+@model_option()
 @click.option(
     "--label",
     default=None,
@@ -548,65 +375,27 @@ def sample_cmd(model, length, records, seed, out_fasta, truth, prefix, force, qu
 @masked_option
 @force_option
 @quiet_option
-def score_cmd(
-    fasta,
-    regions,
-    model,
-    label,
-    out_tsv,
-    out_gff,
-    flank,
-    regions_format,
-    types,
-    masked,
-    force,
-    quiet,
-) -> None:
+def score_cmd(regions_format: str, types: tuple[str, ...], quiet: bool, **options: Any) -> None:
     """Score the --regions on the records of FASTA (plain or gzip; '-' for stdin)."""
-    from seqstate.score import ScoreOptions, score
+    from seqstate.commands.score import ScoreOptions, score
 
-    result = score(
-        ScoreOptions(
-            input=fasta,
-            regions=regions,
-            model=model,
-            label=label,
-            out_tsv=out_tsv,
-            out_gff=out_gff,
-            flank=flank,
-            regions_format=None if regions_format == "auto" else regions_format,
-            types=tuple(types),
-            masked=masked,
-            force=force,
-        )
-    )
+    fmt = None if regions_format == "auto" else regions_format
+    result = score(ScoreOptions(regions_format=fmt, types=tuple(types), **options))
     if result.stdout is not None:
         echo_stdout(result.stdout)
-    if not quiet:
-        where = out_tsv if out_tsv not in (None, "-") else "stdout"
-        click.echo(
-            f"seqstate: {result.regions} region(s) ({result.format}) scored for "
-            f"{result.label} -> {where}",
-            err=True,
-        )
+    say(quiet, result.summary())
 
 
 # ---------------------------------------------------------------- plot
 @main.command("plot")
-@click.argument("fasta")
+@fasta_argument
 @click.option(
     "--region",
     required=True,
     callback=not_empty,
     help="ID:START-END (1-based, inclusive) or ID for a whole record.",
 )
-@click.option(
-    "-m",
-    "--model",
-    default="cpg-island",
-    show_default=True,
-    help="Built-in model NAME or model PATH.",
-)
+@model_option()
 @click.option(
     "-o",
     "--out",
@@ -636,59 +425,16 @@ def score_cmd(
 @masked_option
 @force_option
 @quiet_option
-def plot_cmd(
-    fasta,
-    region,
-    model,
-    out,
-    reference,
-    flank,
-    width,
-    height,
-    dpi,
-    allow_large,
-    decode,
-    min_posterior,
-    min_length,
-    split_unknown,
-    masked,
-    force,
-    quiet,
-) -> None:
+def plot_cmd(quiet: bool, **options: Any) -> None:
     """Draw posteriors and features of one region of FASTA (needs the 'plot' extra)."""
-    from seqstate.plot import PlotOptions, plot
+    from seqstate.commands.plot import PlotOptions, plot
 
-    result = plot(
-        PlotOptions(
-            input=fasta,
-            region=region,
-            out=out,
-            model=model,
-            reference=reference,
-            flank=flank,
-            width=width,
-            height=height,
-            dpi=dpi,
-            allow_large=allow_large,
-            force=force,
-            decode=decode,
-            min_posterior=min_posterior,
-            min_length=min_length,
-            split_unknown=split_unknown,
-            masked=masked,
-        )
-    )
-    if not quiet:
-        ref = f", {result.reference} reference" if reference is not None else ""
-        click.echo(
-            f"seqstate: {result.region}, {result.decoded} decoded{ref} feature(s) -> {out}",
-            err=True,
-        )
+    say(quiet, plot(PlotOptions(**options)).summary())
 
 
 @main.command("fit")
 @click.argument("fasta_arg", metavar="FASTA", required=False)
-@click.option("-m", "--model", required=True, help="Start model: built-in NAME or PATH.")
+@model_option(required=True, help="Start model: built-in NAME or PATH.")
 @click.option("--fasta", default=None, hidden=True, help="Same as the FASTA argument.")
 @click.option(
     "--labels",

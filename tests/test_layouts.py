@@ -16,7 +16,7 @@ import pytest
 
 from seqstate.engine import api
 from seqstate.io.tables import load_model, render_tables
-from seqstate.layouts import expand_to_symbol_states
+from seqstate.kinds.layouts import expand_to_symbol_states
 
 REPO = Path(__file__).resolve().parent.parent
 

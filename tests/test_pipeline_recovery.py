@@ -17,8 +17,9 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from seqstate.commands.annotate import AnnotateOptions, annotate
+from seqstate.commands.sample import SampleOptions, sample
 from seqstate.io.gff3 import read_gff3
-from seqstate.pipeline import AnnotateOptions, SampleOptions, annotate, sample
 
 SEED = 2024
 RECORDS = 4

@@ -1,4 +1,4 @@
-"""``seqstate plot`` (seqstate.plot and its CLI command).
+"""``seqstate plot`` (seqstate.commands.plot and its CLI command).
 
 The figure is checked against annotate's own outputs on the synthetic demo
 (its decoded features and its posterior track), against the image formats'
@@ -21,11 +21,11 @@ from click.testing import CliRunner
 from helpers import sample_record
 
 from seqstate.cli import main
+from seqstate.commands.annotate import AnnotateOptions, annotate
+from seqstate.commands.plot import MAX_REGION, PlotOptions, draw, plot_data
 from seqstate.io.gff3 import read_gff3
 from seqstate.io.tables import save_model
 from seqstate.model import State, make_model
-from seqstate.pipeline import AnnotateOptions, annotate
-from seqstate.plot import MAX_REGION, PlotOptions, draw, plot_data
 
 REPO = Path(__file__).resolve().parent.parent
 DEMO = REPO / "examples" / "cex_draft1.fa.gz"
@@ -138,8 +138,8 @@ def test_boxes_and_curve_match_annotate(annotated, r0, r1):
 
 
 def test_features_split_at_unknown_runs_as_annotate(tmp_path):
+    from seqstate.commands.inputs import read_records
     from seqstate.io.tables import load_model
-    from seqstate.pipeline import read_records
 
     rec = next(r for r in read_records(str(DEMO), load_model("cpg-island")) if r.id == "cex_ctg3")
     seq = bytearray(rec.seq)

@@ -1,4 +1,4 @@
-"""``seqstate score`` (seqstate.score and its CLI command).
+"""``seqstate score`` (seqstate.commands.score and its CLI command).
 
 Oracles: exhaustive enumeration of every state path of a tiny model (the HMM
 definition: a path's joint probability is start * emissions * transitions *
@@ -25,6 +25,13 @@ from click.testing import CliRunner
 from scipy.stats import mannwhitneyu
 
 from seqstate.cli import main
+from seqstate.commands.inputs import read_records
+from seqstate.commands.score import (
+    InputRegion,
+    choose_label,
+    read_regions,
+    score_regions,
+)
 from seqstate.engine import reference
 from seqstate.errors import UsageError
 from seqstate.io.fasta import Record
@@ -32,13 +39,6 @@ from seqstate.io.gff3 import read_gff3
 from seqstate.io.intervals import detect_interval_format as detect_region_format
 from seqstate.io.tables import load_model, save_model
 from seqstate.model import State, make_model
-from seqstate.pipeline import read_records
-from seqstate.score import (
-    InputRegion,
-    choose_label,
-    read_regions,
-    score_regions,
-)
 
 HERE = Path(__file__).resolve().parent
 REPO = HERE.parent

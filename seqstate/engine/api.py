@@ -24,15 +24,14 @@ from seqstate.engine.buffers import work_buffer
 from seqstate.engine.tables import (
     KERNEL_CHOICES,
     EngineTables,
-    backoff_rows,
     default_kernels,
     encode,
     encode_symbols,
     prepare,
-    stationary_kmers,
     symbols_of,
 )
 from seqstate.errors import ImpossibleSequenceError
+from seqstate.model.emissions import backoff_rows, stationary_kmers
 
 __all__ = [
     "KERNEL_CHOICES",

@@ -31,6 +31,7 @@ from seqstate.engine import kernels
 from seqstate.engine._common import code_table, log0, transition_lists
 from seqstate.engine.buffers import work_buffer
 from seqstate.model import Model
+from seqstate.model.emissions import backoff_rows
 
 if TYPE_CHECKING:
     from seqstate.engine.backends import Backend
@@ -95,54 +96,6 @@ class EngineTables:
     def kernels(self) -> str:
         """The kernel family that serves these tables: "generic", "small" or "sparse"."""
         return self.backend.name
-
-
-def stationary_kmers(cond: np.ndarray, n_symbols: int, order: int) -> np.ndarray:
-    """Stationary k-mer frequencies of an order-k chain with rows ``cond[c, x]``.
-
-    ``cond`` has shape (A**k, A).  Returns a vector of length A**k summing to 1.
-    """
-    a, k = n_symbols, order
-    size = a**k
-    pi = np.full(size, 1.0 / size)
-    inner = a ** (k - 1)
-    p3 = cond.reshape(a, inner, a)
-    for _ in range(20000):
-        step = (pi.reshape(a, inner)[:, :, None] * p3).sum(axis=0).reshape(size)
-        new = 0.5 * (pi + step)
-        new /= new.sum()
-        if np.max(np.abs(new - pi)) < 1e-15:
-            pi = new
-            break
-        pi = new
-    return pi
-
-
-def backoff_rows(model: Model) -> dict[int, np.ndarray]:
-    """Emission rows for every order j < k: explicit rows where given, else derived."""
-    a, k, m = len(model.alphabet), model.order, model.n_states
-    out: dict[int, np.ndarray] = {}
-    if k == 0:
-        return out
-    weights = work_buffer((m, a**k))
-    for s in range(m):
-        weights[s] = stationary_kmers(model.emissions[s], a, k)
-    for j in range(k):
-        # group the k-mers by their last j symbols: index = c % a**j
-        w = weights.reshape(m, a ** (k - j), a**j)
-        p = model.emissions.reshape(m, a ** (k - j), a**j, a)
-        num = (w[:, :, :, None] * p).sum(axis=1)
-        den = w.sum(axis=1)
-        uniform = p.mean(axis=1)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            derived = np.where(den[:, :, None] > 0, num / den[:, :, None], uniform)
-        derived /= derived.sum(axis=-1, keepdims=True)
-        given = model.lower_emissions.get(j)
-        if given is not None:
-            have = ~np.all(np.isnan(given), axis=-1)
-            derived[have] = given[have]
-        out[j] = derived
-    return out
 
 
 def prepare(model: Model, *, kernels: str | None = None) -> EngineTables:

@@ -195,7 +195,7 @@ class FitRun:
 
 
 def _read_sequences(path: str, model: Model) -> list:
-    from seqstate.pipeline import read_records
+    from seqstate.commands.inputs import read_records
 
     records = read_records(path, model)
     if not set(model.alphabet) <= set("ACGT"):
@@ -214,7 +214,7 @@ def _read_sequences(path: str, model: Model) -> list:
 
 
 def _fit_inputs(opts: FitOptions) -> list[str | os.PathLike | None]:
-    from seqstate.pipeline import model_inputs
+    from seqstate.commands.inputs import model_inputs
 
     return [opts.fasta, opts.labels, *model_inputs(opts.model)]
 

@@ -23,8 +23,8 @@ from seqstate.errors import FeatureFormatError, UsageError
 from seqstate.model import Model
 
 if TYPE_CHECKING:
-    from seqstate.genes import LabelReport
     from seqstate.io.gff3 import Feature
+    from seqstate.kinds.gene_labels import LabelReport
 
 #: Strand of a feature or state -> the code a :class:`LabelTrack` stores per base.
 STRAND_CODE = {None: 0, "+": 1, "-": 2}
@@ -284,12 +284,12 @@ def read_gene_labels(
     """A GFF3 gene annotation -> (number of features, state path per record and its
     reverse-complement mirror, labelling report).
 
-    The labelling rule is the gene layout's own (:func:`seqstate.genes.label_records`:
+    The labelling rule is the gene layout's own (:func:`seqstate.kinds.gene_labels.label_records`:
     gene -> mRNA -> CDS with phase); the annotation must give a usable gene and an
     example of every label (see :func:`require_gene_units`).
     """
-    from seqstate import genes
     from seqstate.io.gff3 import read_gff3
+    from seqstate.kinds import gene_labels as genes
 
     features = read_gff3(path)
     pairs, report = genes.label_records(model, records, features, path=path, bad_genes=bad_genes)

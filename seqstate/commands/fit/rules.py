@@ -16,7 +16,7 @@ unlabelled group) has exactly one state, else ``label_and_base`` when the model
 is order 0 and each state of a multi-state label emits one distinct symbol with
 probability 1, else an error asks for a declaration.  ``gene_structure`` reads a
 GFF3 gene annotation (gene -> mRNA -> CDS with phase) through
-:func:`seqstate.genes.label_records`, the labelling rule of the gene-segment
+:func:`seqstate.kinds.gene_labels.label_records`, the labelling rule of the gene-segment
 layout (codon positions, intron copies and splice chains, both strands); see
 :func:`.labels.read_gene_labels`.  :func:`assign_states` is the one place the
 per-base rules live.

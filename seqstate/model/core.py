@@ -30,6 +30,7 @@ from collections import deque
 from dataclasses import dataclass, field
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from seqstate.errors import ModelFormatError
 
@@ -164,7 +165,7 @@ class Model:
             return False
         arrays = [(self.start, other.start), (self.transitions, other.transitions)]
         arrays.append((self.emissions, other.emissions))
-        if self.end is not None:
+        if self.end is not None and other.end is not None:
             arrays.append((self.end, other.end))
         if set(self.lower_emissions) != set(other.lower_emissions):
             return False
@@ -212,14 +213,15 @@ def emission_size_problem(n_states: int, n_symbols: int, order: int) -> str | No
 
 
 def _bytes(n: int) -> str:
+    size: float = n
     for unit in ("bytes", "KiB", "MiB", "GiB", "TiB", "PiB"):
-        if n < 1024 or unit == "PiB":
-            return f"{n} bytes" if unit == "bytes" else f"{n:.3g} {unit}"
-        n /= 1024
-    return f"{n:.3g} PiB"  # pragma: no cover
+        if size < 1024 or unit == "PiB":
+            return f"{size} bytes" if unit == "bytes" else f"{size:.3g} {unit}"
+        size /= 1024
+    return f"{size:.3g} PiB"  # pragma: no cover
 
 
-def thresholds_problem(table) -> str | None:
+def thresholds_problem(table: object) -> str | None:
     """Why a ``[defaults]`` table is not valid (see :data:`DEFAULT_THRESHOLDS`), or None."""
     if not isinstance(table, dict):
         return "[defaults] must be a table of decoding thresholds (min_posterior, min_length)"
@@ -270,10 +272,10 @@ def make_model(
     name: str,
     alphabet: str,
     states: list[State] | tuple[State, ...],
-    start,
-    transitions,
-    emissions,
-    end=None,
+    start: ArrayLike,
+    transitions: ArrayLike,
+    emissions: ArrayLike,
+    end: ArrayLike | None = None,
     order: int | None = None,
     description: str = "",
     decode: str = "posterior",

@@ -27,11 +27,12 @@ from __future__ import annotations
 import io
 import math
 from dataclasses import dataclass, field
-from typing import TextIO
+from pathlib import Path
+from typing import Any, TextIO
 
 import numpy as np
 
-from seqstate.decode import LOG2E, cpg_statistics, score_segment
+from seqstate.commands.inputs import model_inputs, read_model_records
 from seqstate.engine import api
 from seqstate.errors import FeatureFormatError, ImpossibleSequenceError, UsageError
 from seqstate.io.atomic import OutputSet, check_outputs
@@ -40,22 +41,16 @@ from seqstate.io.files import display_name
 from seqstate.io.gff3 import Feature, GFF3Writer
 from seqstate.io.intervals import INTERVAL_FORMATS, read_interval_file
 from seqstate.io.tables import load_model
+from seqstate.kinds import Kind, kind_of
+from seqstate.kinds.segments import LOG2E, SCORE_FORMATS, format_value, score_segment
 from seqstate.model import Model
-from seqstate.pipeline import (
-    DNA,
-    SCORE_FORMATS,
-    _check_symbols,
-    _fmt,
-    model_inputs,
-    read_records,
-)
 
 __all__ = [
     "REGION_FORMATS",
     "InputRegion",
     "RegionFile",
     "ScoreOptions",
-    "ScoreResult",
+    "ScoreReport",
     "choose_label",
     "check_regions",
     "read_regions",
@@ -85,12 +80,9 @@ POSTERIOR_COLUMNS = [
     "log_odds_nat",
     "log_odds_bits",
 ]
-#: Further columns when the label is ``CpG_island``.
-CPG_COLUMNS = ["gc_fraction", "cpg_count", "cpg_oe", "meets_ggf1987", "meets_tj2002"]
 FORMATS = {**SCORE_FORMATS, "max_posterior": ".4f"}
 #: Type written to ``--gff`` for regions read from BED (Sequence Ontology SO:0000001).
 BED_FEATURE_TYPE = "region"
-CPG_LABEL = "CpG_island"
 
 _KNOWN_SHOWN = 5
 
@@ -237,9 +229,13 @@ def strand_mask(model: Model, label: str, strand: str) -> tuple[np.ndarray, str]
     return np.array(in_label, dtype=np.bool_), "both"
 
 
-def score_columns(label: str) -> list[str]:
-    """The score keys of each result for ``label``, in table order."""
-    return ["length", *POSTERIOR_COLUMNS] + (CPG_COLUMNS if label == CPG_LABEL else [])
+def score_columns(model: Model, label: str) -> list[str]:
+    """The score keys of each result for ``label``, in table order.
+
+    After the posterior scores come the extra columns the model's kind gives the
+    label (the CpG statistics of ``CpG_island``).
+    """
+    return ["length", *POSTERIOR_COLUMNS, *kind_of(model).extra_columns(label)]
 
 
 def _score_one(
@@ -250,10 +246,11 @@ def _score_one(
     start0: int,
     end0: int,
     seq: bytes,
-    cpg: bool,
+    kind: Kind,
+    label: str,
 ) -> dict:
     sc = score_segment(tables, codes, post, post.values[:, 0], mask, start0, end0)
-    out = {"length": end0 - start0}
+    out: dict[str, Any] = {"length": end0 - start0}
     for key in POSTERIOR_COLUMNS:
         if key == "max_posterior":
             out[key] = float(np.max(post.values[start0:end0, 0]))
@@ -261,10 +258,7 @@ def _score_one(
             out[key] = sc[key]
     lo = out["log_odds_nat"]
     out["log_odds_bits"] = lo * LOG2E if math.isfinite(lo) else lo
-    if cpg:
-        stats = cpg_statistics(seq[start0:end0])
-        for key in CPG_COLUMNS:
-            out[key] = stats[key]
+    out.update(kind.extra_scores(label, seq[start0:end0]))
     return out
 
 
@@ -288,7 +282,8 @@ def score_regions(
     ``log_odds_nat``/``log_odds_bits``, the region's log-odds under the label's
     states against the other states (natural log, base 2); and for the label
     ``CpG_island`` the G+C fraction, CpG count, O/E ratio and the two published
-    criteria flags (see :func:`seqstate.decode.cpg_statistics`).
+    criteria flags (the model's kind's extra scores, see
+    :func:`seqstate.kinds.segments.cpg_statistics`).
 
     With ``flank=None`` the posteriors come from the whole record (one pass per
     record that has regions).  With ``flank=N`` each region is computed on the
@@ -302,7 +297,7 @@ def score_regions(
         raise UsageError(f"--flank {flank} must be 0 or more")
     tables = api.prepare(model)
     unknown = masked == "unknown"
-    cpg = label == CPG_LABEL
+    kind = kind_of(model)
     masks = {strand: strand_mask(model, label, strand) for strand in {r.strand for r in regions}}
 
     def group_of(mask: np.ndarray) -> np.ndarray:
@@ -328,7 +323,9 @@ def score_regions(
                     reg = regions[i]
                     results[i] = {
                         "scored_strand": scored,
-                        **_score_one(tables, codes, post, mask, reg.start0, reg.end0, rec.seq, cpg),
+                        **_score_one(
+                            tables, codes, post, mask, reg.start0, reg.end0, rec.seq, kind, label
+                        ),
                     }
                 del post
             del codes
@@ -347,7 +344,7 @@ def score_regions(
             results[i] = {
                 "scored_strand": scored,
                 **_score_one(
-                    tables, codes, post, mask, reg.start0 - w0, reg.end0 - w0, window, cpg
+                    tables, codes, post, mask, reg.start0 - w0, reg.end0 - w0, window, kind, label
                 ),
             }
     missing = [regions[i].seqid for i, r in enumerate(results) if r is None]
@@ -359,23 +356,28 @@ def score_regions(
 # ---------------------------------------------------------------- writing
 
 
-def table_text(rf: RegionFile, label: str, scores: list[dict]) -> str:
+def table_text(rf: RegionFile, model: Model, label: str, scores: list[dict]) -> str:
     """The TSV: a header row, then one row per region in input order."""
     start_col, end_col = COORDINATE_COLUMNS[rf.format]
-    keys = score_columns(label)
+    keys = score_columns(model, label)
     header = ["seqid", start_col, end_col, "name", "label", "scored_strand", *keys]
     lines = ["\t".join(header)]
     for reg, sc in zip(rf.regions, scores):
         start = reg.start0 if rf.format == "bed" else reg.start0 + 1
         name = " ".join(reg.name.replace("\t", " ").split())
         row = [reg.seqid, str(start), str(reg.end0), name, label, sc["scored_strand"]]
-        row += [_fmt(sc[k], FORMATS[k]) for k in keys]
+        row += [format_value(sc[k], FORMATS[k]) for k in keys]
         lines.append("\t".join(row))
     return "\n".join(lines) + "\n"
 
 
 def write_scored_gff3(
-    handle: TextIO, rf: RegionFile, label: str, scores: list[dict], records: list[Record]
+    handle: TextIO,
+    rf: RegionFile,
+    model: Model,
+    label: str,
+    scores: list[dict],
+    records: list[Record],
 ) -> None:
     """The regions as GFF3 features (1-based closed) carrying their scores.
 
@@ -383,7 +385,7 @@ def write_scored_gff3(
     of our scores are replaced); BED regions get type ``region`` and their name
     as ``Name``.  Column 6 is the mean posterior, as in annotate's GFF3.
     """
-    keys = score_columns(label)
+    keys = score_columns(model, label)
     ours = {"scored_label", "scored_strand", *keys}
     used = {reg.seqid for reg in rf.regions}
     gff = GFF3Writer(handle)
@@ -397,7 +399,7 @@ def write_scored_gff3(
             ftype = BED_FEATURE_TYPE
         attrs.append(("scored_label", label))
         attrs.append(("scored_strand", sc["scored_strand"]))
-        attrs += [(k, _fmt(sc[k], FORMATS[k])) for k in keys]
+        attrs += [(k, format_value(sc[k], FORMATS[k])) for k in keys]
         mean = sc["mean_posterior"]
         gff.write(
             Feature(
@@ -436,7 +438,7 @@ class ScoreOptions:
 
 
 @dataclass
-class ScoreResult:
+class ScoreReport:
     """What a score run produced: the TSV text, counts, the label, and what to print.
 
     ``stdout`` is the text the caller must print on standard output (the table
@@ -448,9 +450,15 @@ class ScoreResult:
     regions: int
     format: str
     stdout: str | None = None
+    #: where the table went: its file name, or "stdout"
+    where: str = "stdout"
+
+    def summary(self) -> str:
+        """The summary line (after ``seqstate: ``)."""
+        return f"{self.regions} region(s) ({self.format}) scored for {self.label} -> {self.where}"
 
 
-def score(opts: ScoreOptions) -> ScoreResult:
+def score(opts: ScoreOptions) -> ScoreReport:
     """Run ``seqstate score``: read, check, score, then write every output at once.
 
     Every input is read and checked before anything is computed, and outputs
@@ -469,7 +477,7 @@ def score(opts: ScoreOptions) -> ScoreResult:
         raise UsageError(
             "the table and --gff cannot both go to standard output: give -o a file name"
         )
-    inputs = [opts.input, opts.regions, *model_inputs(opts.model)]
+    inputs: list[str | Path] = [opts.input, opts.regions, *model_inputs(opts.model)]
     check_outputs([tsv_file, opts.out_gff], inputs, force=opts.force)
     model = load_model(opts.model)
     label = choose_label(model, opts.label)
@@ -478,9 +486,7 @@ def score(opts: ScoreOptions) -> ScoreResult:
     rf = read_regions(opts.regions, opts.regions_format, set(opts.types) or None)
     if opts.types and rf.format == "bed":
         raise UsageError(f"--type selects GFF3 features, but {rf.path} was read as BED")
-    records = read_records(opts.input, model)
-    if not set(model.alphabet) <= set(DNA):
-        _check_symbols(records, model, opts.input)
+    records = read_model_records(opts.input, model)
     check_regions(rf, {r.id: len(r.seq) for r in records}, display_name(opts.input))
     try:
         scores = score_regions(
@@ -488,11 +494,11 @@ def score(opts: ScoreOptions) -> ScoreResult:
         )
     except ImpossibleSequenceError as exc:
         raise ImpossibleSequenceError(exc.message, path=display_name(opts.input)) from None
-    table = table_text(rf, label, scores)
+    table = table_text(rf, model, label, scores)
     gff_text = None
     if opts.out_gff is not None:
         buf = io.StringIO()
-        write_scored_gff3(buf, rf, label, scores, records)
+        write_scored_gff3(buf, rf, model, label, scores, records)
         gff_text = buf.getvalue()
     files = [
         (path, text)
@@ -502,10 +508,11 @@ def score(opts: ScoreOptions) -> ScoreResult:
     with OutputSet(force=opts.force, inputs=inputs) as outs:
         for path, text in files:
             outs.open_text(path).write(text)
-    return ScoreResult(
+    return ScoreReport(
         table=table,
         label=label,
         regions=len(rf.regions),
         format=rf.format,
         stdout=table if tsv_file is None else gff_text if opts.out_gff == "-" else None,
+        where=tsv_file or "stdout",
     )

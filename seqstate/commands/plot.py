@@ -11,7 +11,7 @@ line style and hatching, not by colour: everything is black, white or grey.
 
 Posteriors and decoding run on the whole record, so the curves and boxes match
 annotate on the whole file; with a flank they run on the region plus that many
-bases each side, treated as a record of its own (see :mod:`seqstate.score`).
+bases each side, treated as a record of its own (see :mod:`seqstate.commands.score`).
 
 matplotlib is an optional extra, imported only inside the functions that draw;
 the figure is drawn without pyplot on an Agg canvas (PNG), and saved as SVG or
@@ -27,22 +27,17 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from seqstate import __version__
-from seqstate.decode import (
-    group_index,
-    segments_from_path,
-    segments_from_posterior,
-    split_at_unknown,
-    track_groups,
-)
+from seqstate.commands.inputs import model_inputs, read_model_records
+from seqstate.commands.score import read_regions
 from seqstate.engine import api
 from seqstate.errors import ImpossibleSequenceError, OptionalDependencyError, UsageError
 from seqstate.io.atomic import OutputSet, check_outputs
 from seqstate.io.files import display_name
 from seqstate.io.regions import check_region, parse_region
 from seqstate.io.tables import load_model
+from seqstate.kinds import group_index, track_groups
+from seqstate.kinds.segments import decode_segments
 from seqstate.model import resolve_thresholds
-from seqstate.pipeline import DNA, _check_symbols, read_records
-from seqstate.score import read_regions
 
 if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.figure import Figure
@@ -172,8 +167,6 @@ def _check_options(opts: PlotOptions) -> None:
 
 
 def _inputs(opts: PlotOptions) -> list:
-    from seqstate.pipeline import model_inputs
-
     return [opts.input, opts.reference, *model_inputs(opts.model)]
 
 
@@ -197,9 +190,7 @@ def plot_data(opts: PlotOptions) -> PlotData:
     if not groups:
         raise UsageError(f"model '{model.name}' has no labelled states: nothing to plot")
     region = parse_region(opts.region)
-    records = read_records(opts.input, model)
-    if not set(model.alphabet) <= set(DNA):
-        _check_symbols(records, model, opts.input)
+    records = read_model_records(opts.input, model)
     region = check_region(region, {r.id: len(r.seq) for r in records})
     size = region.end0 - region.start0
     if size > MAX_REGION and not opts.allow_large:
@@ -223,23 +214,28 @@ def plot_data(opts: PlotOptions) -> PlotData:
     codes = api.encode(tables, window, masked_unknown=unknown_masked)
     try:
         post = api.posterior(tables, codes, group=state_group, n_groups=len(groups), record=name)
-        if decode == "viterbi":
-            path, _ = api.viterbi(tables, codes, record=name)
-            segs = segments_from_path(path, state_group, opts.min_length)
-            del path
-        else:
-            segs = segments_from_posterior(post.values, opts.min_posterior, opts.min_length)
+        # as annotate: features never claim long runs of unknown bases, nor unknown ends
+        symbols = api.symbols_of(tables, window, masked_unknown=unknown_masked)
+        segs = decode_segments(
+            tables,
+            codes,
+            post,
+            state_group,
+            symbols,
+            decode=decode,
+            min_posterior=min_posterior,
+            min_length=min_length,
+            split_unknown=opts.split_unknown,
+            record=name,
+        )
     except ImpossibleSequenceError as exc:
         raise ImpossibleSequenceError(exc.message, path=display_name(opts.input)) from None
-    # as annotate: features never claim long runs of unknown bases, nor unknown ends
-    unknown = api.symbols_of(tables, window, masked_unknown=unknown_masked) < 0
-    segs = split_at_unknown(segs, unknown, opts.min_length, opts.split_unknown)
     if decode == "viterbi":
         note = "Viterbi path"
     else:
-        note = f"posterior at least {opts.min_posterior:g}"
-    if opts.min_length > 1:
-        note += f", at least {opts.min_length} bases"
+        note = f"posterior at least {min_posterior:g}"
+    if min_length > 1:
+        note += f", at least {min_length} bases"
     decoded = [
         LaneFeature(s.group, s.start0 + w0, s.end0 + w0)
         for s in segs
@@ -451,25 +447,33 @@ def save(
 
 
 @dataclass
-class PlotResult:
+class PlotReport:
     """What a plot run drew: counts of decoded and reference boxes, and the file."""
 
     out: str
     decoded: int
     reference: int
     region: str
+    #: whether a reference file was given (its count is then in the summary)
+    with_reference: bool = False
+
+    def summary(self) -> str:
+        """The summary line (after ``seqstate: ``)."""
+        ref = f", {self.reference} reference" if self.with_reference else ""
+        return f"{self.region}, {self.decoded} decoded{ref} feature(s) -> {self.out}"
 
 
-def plot(opts: PlotOptions) -> PlotResult:
+def plot(opts: PlotOptions) -> PlotReport:
     """Run ``seqstate plot``: compute, draw and write the figure (nothing left on error)."""
     _check_options(opts)
     require_matplotlib()
     data = plot_data(opts)
     fig = draw(data, opts.width, opts.height, opts.dpi)
     save(fig, opts.out, opts.dpi, force=opts.force, inputs=_inputs(opts))
-    return PlotResult(
+    return PlotReport(
         opts.out,
         len(data.decoded),
         len(data.reference),
         f"{data.seqid}:{data.start0 + 1}-{data.end0}",
+        opts.reference is not None,
     )

@@ -1,4 +1,5 @@
-"""seqstate.decode: track groups, segments from posteriors and paths, scores, CpG statistics.
+"""seqstate.kinds.segments: track groups, segments from paths and posteriors, scores, CpG
+statistics.
 
 Expected values are worked out by hand in the comments, taken from published
 definitions, from Biopython, or from brute-force enumeration of every state path of
@@ -18,7 +19,9 @@ from golden_util import DATA, GOLDEN_FASTA, run_golden_annotate
 from hypothesis import given
 from hypothesis import strategies as st
 
-from seqstate.decode import (
+from seqstate.engine import api
+from seqstate.io.tables import builtin_dir, load_model
+from seqstate.kinds.segments import (
     cpg_statistics,
     group_index,
     runs_above,
@@ -27,8 +30,6 @@ from seqstate.decode import (
     segments_from_posterior,
     track_groups,
 )
-from seqstate.engine import api
-from seqstate.io.tables import builtin_dir, load_model
 from seqstate.model import State, make_model
 
 REPO = Path(__file__).resolve().parent.parent
@@ -228,7 +229,7 @@ def test_cpg_log_odds_is_the_dinucleotide_log_ratio_sum(tmp_path):
 
 # ---------------------------------------------------------------- unknown runs
 def test_split_at_unknown_takes_a_threshold_and_returns_start_order():
-    from seqstate.decode import Segment, split_at_unknown
+    from seqstate.kinds.segments import Segment, split_at_unknown
 
     unknown = np.zeros(120, dtype=bool)
     unknown[40:55] = True  # 15 unknown bases

@@ -4,8 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from seqstate.engine.api import backoff_rows
-from seqstate.model import Model, State, make_model
+from seqstate.model import Model, State, backoff_rows, make_model
 
 
 def expand_to_symbol_states(

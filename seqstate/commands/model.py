@@ -1,0 +1,77 @@
+"""``seqstate model list`` and ``seqstate model check``: the built-in models, a model's summary."""
+
+from __future__ import annotations
+
+from seqstate.io.tables import list_builtin, load_model, model_sha256, resolve_model_path
+from seqstate.model import Model, default_thresholds
+
+
+def list_lines() -> list[str]:
+    """One line per built-in model: name, states, order, labels and description."""
+    lines = []
+    for name in list_builtin():
+        m = load_model(name)
+        labels = ", ".join(m.labels) or "no labels"
+        about = m.description if len(m.description) <= 70 else m.description[:69] + "…"
+        lines.append(f"{name}\t{m.n_states} states, order {m.order}, {labels}: {about}")
+    return lines
+
+
+def check(spec: str) -> str:
+    """Load and validate the model ``spec`` (a built-in NAME or a PATH); its summary."""
+    path = resolve_model_path(spec)
+    m = load_model(spec)
+    return summary(m, str(path), model_sha256(m))
+
+
+def summary(m: Model, path: str, sha: str) -> str:
+    """Readable summary of a model: states, labels, strands, transitions, stay lengths."""
+    lines = [f"model     {m.name}", f"manifest  {path}"]
+    if m.description:
+        lines.append(f"about     {m.description}")
+    lines.append(f"alphabet  {m.alphabet} ({len(m.alphabet)} symbols)")
+    lines.append(f"order     {m.order} (emission depends on the previous {m.order} symbols)")
+    lines.append(f"decode    {m.decode} (default)")
+    thresholds = default_thresholds(m)
+    lines.append(
+        f"features  min_posterior {thresholds['min_posterior']:g}, min_length "
+        f"{thresholds['min_length']} bases (defaults of annotate and plot)"
+    )
+    if m.end is None:
+        lines.append("end       none given: any state may end a record")
+    else:
+        lines.append("end       P(record ends | state) given per state")
+    lines.append(f"sha256    {sha}")
+    lines.append("")
+    stay = m.expected_stay()
+    names = m.state_names
+    w = max(5, max(len(n) for n in names))
+    labels = [s.label or "-" for s in m.states]
+    lw = max(5, max(len(x) for x in labels))
+    lines.append(
+        f"{'state':<{w}}  {'label':<{lw}}  strand  {'start':>10}  {'end':>10}  "
+        f"expected stay (bases)"
+    )
+    for i, s in enumerate(m.states):
+        end = "-" if m.end is None else f"{m.end[i]:.4g}"
+        st = "inf" if stay[i] == float("inf") else f"{stay[i]:.4g}"
+        lines.append(
+            f"{s.name:<{w}}  {labels[i]:<{lw}}  {s.strand or '.':<6}  "
+            f"{m.start[i]:>10.4g}  {end:>10}  {st}"
+        )
+    allowed = m.allowed_transitions()
+    lines.append("")
+    lines.append(f"allowed transitions: {len(allowed)} of {m.n_states**2}")
+    for i, n in enumerate(names):
+        succ = [
+            f"{names[j]} {m.transitions[i, j]:.6g}"
+            for j in range(m.n_states)
+            if m.transitions[i, j] > 0
+        ]
+        lines.append(f"  {n:<{w}} -> " + (", ".join(succ) if succ else "(none)"))
+    if m.provenance:
+        lines.append("")
+        lines.append("provenance")
+        for key, value in m.provenance.items():
+            lines.append(f"  {key}: {value}")
+    return "\n".join(lines)

@@ -1,0 +1,287 @@
+"""The gene-segment layout: coding exons with codon phase, introns and intergenic DNA.
+
+This module knows the layout of the built-in ``gene-segment`` model (our own
+design): :func:`build_layout` gives the states, the allowed moves and the
+emission zeros (a model skeleton with uniform probabilities over what is
+allowed).  The two conversions fit and annotate need live beside it:
+
+* :func:`seqstate.kinds.gene_labels.label_records` -- a GFF3 gene annotation
+  (gene -> mRNA -> CDS with phase) -> one state path per record (the labelling
+  rule used by ``fit``);
+* :func:`seqstate.kinds.genes.genes_from_path` -- a decoded path -> GFF3
+  ``gene``/``mRNA``/``exon``/``CDS`` features with their CDS phase (used by
+  ``annotate``).
+
+Layout, plus strand, read 5' to 3' (the minus strand is the reverse-complement
+mirror: every plus state ``x+`` has a twin ``x-``, every move ``x+ -> y+`` a move
+``y- -> x-``, and ``x-`` emits on the plus strand what ``x+`` emits on the minus
+strand):
+
+``intergenic`` -> ``up1..up6`` (the six bases before the start codon) ->
+``start_A start_T start_G`` (ATG) -> codons ``cds1 cds2 cds3`` ... ->
+``stop_T`` then ``stop_A stop_AR`` (TAA, TAG) or ``stop_G stop_GA`` (TGA) ->
+``intergenic``.
+
+Introns come in six copies so that the reading frame, and the bases of a codon
+split by the intron, survive it: ``i0`` (between codons), ``i1T``/``i1V`` (after
+the first base of a codon, which was T / not T), ``i2TA``/``i2TG``/``i2N`` (after
+the first two bases, which were TA / TG / anything else).  Each copy is a
+donor chain ``d1 d2`` (GT) and ``d3..d6``, an intron body with a self-loop, and
+an acceptor chain ``a1..a10`` (branch point and pyrimidine tract) and ``a11
+a12`` (AG).  Short coding states before and after the intron (``cds1_T_i1``,
+``cds2_A_j1T``, ``cds3_Y`` ...) emit only the bases that keep the memory true,
+so that a stop codon is impossible inside a coding exon, whether the codon is
+split by an intron or not.  Within a codon, ``cds3`` (plus strand) and
+``cds1-`` (minus strand) have zero probability for the bases that would
+complete TAA, TAG or TGA after their context (NCBI translation table 1).
+
+GFF3 coordinates are 1-based closed in files, 0-based half-open inside.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from seqstate.model import Model, State, make_model
+
+DNA = "ACGT"
+COMPLEMENT = {"A": "T", "C": "G", "G": "C", "T": "A"}
+STOPS = ("TAA", "TAG", "TGA")
+UP_FLANK = 6
+DONOR_FLANK = 4  # d3..d6
+ACCEPTOR_FLANK = 10  # a1..a10
+INTRON_COPIES = ("i0", "i1T", "i1V", "i2TA", "i2TG", "i2N")
+MIN_INTRON = 2 + DONOR_FLANK + 1 + ACCEPTOR_FLANK + 2
+
+ANY = "ACGT"
+
+
+@dataclass
+class _Plus:
+    """The plus-strand half of the layout: names, labels, allowed bases, moves."""
+
+    names: list[str] = field(default_factory=list)
+    labels: dict[str, str | None] = field(default_factory=dict)
+    bases: dict[str, str] = field(default_factory=dict)
+    moves: list[tuple[str, str]] = field(default_factory=list)
+
+    def add(self, name: str, label: str | None, bases: str = ANY) -> None:
+        self.names.append(name)
+        self.labels[name] = label
+        self.bases[name] = bases
+
+    def move(self, a: str, *targets: str) -> None:
+        for b in targets:
+            self.moves.append((a, b))
+
+
+def _plus_layout() -> _Plus:
+    p = _Plus()
+    for i in range(1, UP_FLANK + 1):
+        p.add(f"up{i}", None)
+    p.add("start_A", "CDS", "A")
+    p.add("start_T", "CDS", "T")
+    p.add("start_G", "CDS", "G")
+    for name in ("cds1", "cds2", "cds3"):
+        p.add(name, "CDS")
+    # codons split by an intron: states that remember the bases before it
+    p.add("cds1_T_i1", "CDS", "T")
+    p.add("cds1_V_i1", "CDS", "ACG")
+    p.add("cds1_T_i2", "CDS", "T")
+    p.add("cds1_V_i2", "CDS", "ACG")
+    p.add("cds2_A_i2", "CDS", "A")
+    p.add("cds2_G_i2", "CDS", "G")
+    p.add("cds2_Y_i2", "CDS", "CT")
+    p.add("cds2_N_i2", "CDS")
+    p.add("cds2_A_j1T", "CDS", "A")
+    p.add("cds2_G_j1T", "CDS", "G")
+    p.add("cds2_Y_j1T", "CDS", "CT")
+    p.add("cds3_Y", "CDS", "CT")  # after TA: not A, not G
+    p.add("cds3_B", "CDS", "CGT")  # after TG: not A
+    p.add("stop_T", "CDS", "T")
+    p.add("stop_A", "CDS", "A")
+    p.add("stop_G", "CDS", "G")
+    p.add("stop_AR", "CDS", "AG")
+    p.add("stop_GA", "CDS", "A")
+    for c in INTRON_COPIES:
+        p.add(f"{c}_d1", "intron", "G")
+        p.add(f"{c}_d2", "intron", "T")
+        for i in range(3, 3 + DONOR_FLANK):
+            p.add(f"{c}_d{i}", "intron")
+        p.add(f"{c}_body", "intron")
+        for i in range(1, ACCEPTOR_FLANK + 1):
+            p.add(f"{c}_a{i}", "intron")
+        p.add(f"{c}_a{ACCEPTOR_FLANK + 1}", "intron", "A")
+        p.add(f"{c}_a{ACCEPTOR_FLANK + 2}", "intron", "G")
+    # moves
+    chain = [f"up{i}" for i in range(1, UP_FLANK + 1)] + ["start_A", "start_T", "start_G"]
+    for a, b in zip(chain, chain[1:]):
+        p.move(a, b)
+    codon_next = ["cds1", "cds1_T_i1", "cds1_V_i1", "cds1_T_i2", "cds1_V_i2", "i0_d1", "stop_T"]
+    for end in ("start_G", "cds3", "cds3_Y", "cds3_B"):
+        p.move(end, *codon_next)
+    p.move("cds1", "cds2")
+    p.move("cds2", "cds3")
+    p.move("cds1_T_i1", "i1T_d1")
+    p.move("cds1_V_i1", "i1V_d1")
+    p.move("cds1_T_i2", "cds2_A_i2", "cds2_G_i2", "cds2_Y_i2")
+    p.move("cds1_V_i2", "cds2_N_i2")
+    p.move("cds2_A_i2", "i2TA_d1")
+    p.move("cds2_G_i2", "i2TG_d1")
+    p.move("cds2_Y_i2", "i2N_d1")
+    p.move("cds2_N_i2", "i2N_d1")
+    for c in INTRON_COPIES:
+        chain = [f"{c}_d{i}" for i in range(1, 3 + DONOR_FLANK)] + [f"{c}_body"]
+        chain += [f"{c}_a{i}" for i in range(1, ACCEPTOR_FLANK + 3)]
+        for a, b in zip(chain, chain[1:]):
+            p.move(a, b)
+        p.move(f"{c}_body", f"{c}_body")
+    last = f"_a{ACCEPTOR_FLANK + 2}"
+    p.move("i0" + last, *[t for t in codon_next if t != "i0_d1"])
+    p.move("i1T" + last, "cds2_A_j1T", "cds2_G_j1T", "cds2_Y_j1T")
+    p.move("cds2_A_j1T", "cds3_Y")
+    p.move("cds2_G_j1T", "cds3_B")
+    p.move("cds2_Y_j1T", "cds3")
+    p.move("i1V" + last, "cds2")
+    p.move("i2TA" + last, "cds3_Y")
+    p.move("i2TG" + last, "cds3_B")
+    p.move("i2N" + last, "cds3")
+    p.move("stop_T", "stop_A", "stop_G")
+    p.move("stop_A", "stop_AR")
+    p.move("stop_G", "stop_GA")
+    return p
+
+
+def _comp(bases: str) -> str:
+    return "".join(sorted(COMPLEMENT[b] for b in bases))
+
+
+def layout_states() -> tuple[list[State], list[tuple[int, int]], dict[str, str]]:
+    """States (intergenic, then plus, then minus), allowed moves and allowed bases."""
+    p = _plus_layout()
+    states = [State("intergenic", None, None)]
+    bases = {"intergenic": ANY}
+    for n in p.names:
+        states.append(State(f"{n}+", p.labels[n], "+"))
+        bases[f"{n}+"] = p.bases[n]
+    for n in p.names:
+        states.append(State(f"{n}-", p.labels[n], "-"))
+        bases[f"{n}-"] = _comp(p.bases[n])
+    index = {s.name: i for i, s in enumerate(states)}
+    moves = [(index["intergenic"], index["intergenic"])]
+    for a, b in p.moves:
+        moves.append((index[f"{a}+"], index[f"{b}+"]))
+        moves.append((index[f"{b}-"], index[f"{a}-"]))
+    # the plus gene enters at up1 and leaves after the stop codon; the minus mirror
+    # enters at the reversed stop codon and leaves after the reversed flank
+    moves.append((index["intergenic"], index["up1+"]))
+    for s in ("stop_AR+", "stop_GA+"):
+        moves.append((index[s], index["intergenic"]))
+    moves.append((index["intergenic"], index["stop_AR-"]))
+    moves.append((index["intergenic"], index["stop_GA-"]))
+    moves.append((index["up1-"], index["intergenic"]))
+    return states, moves, bases
+
+
+def mirror_index(states: list[State]) -> np.ndarray:
+    """For each state, the index of its other-strand twin (intergenic is its own)."""
+    index = {s.name: i for i, s in enumerate(states)}
+    out = np.arange(len(states), dtype=np.int64)
+    for i, s in enumerate(states):
+        if s.name.endswith("+"):
+            out[i] = index[s.name[:-1] + "-"]
+        elif s.name.endswith("-"):
+            out[i] = index[s.name[:-1] + "+"]
+    return out
+
+
+def _allowed(name: str, bases: str, context: str) -> str:
+    """Bases a state may emit after ``context`` (stop codons impossible inside exons)."""
+    if name == "cds3+":
+        last2 = context[-2:]
+        if last2 == "TA":
+            return "".join(b for b in bases if b not in "AG")
+        if last2 == "TG":
+            return "".join(b for b in bases if b != "A")
+    if name == "cds1-":
+        # reading the plus strand, a minus codon ends here: its reverse complement is
+        # x y z = comp(third) comp(second) comp(first); stops TAA TAG TGA read TTA CTA TCA
+        last2 = context[-2:]
+        if last2 in ("TT", "CT", "TC"):
+            return "".join(b for b in bases if b != "A")
+    return bases
+
+
+def build_layout(order: int = 3, *, name: str = "gene-segment-layout") -> Model:
+    """The gene-segment skeleton: allowed moves and emissions, uniform over what is allowed."""
+    if order < 2:
+        raise ValueError("the gene-segment layout needs emission order >= 2 (stop codons)")
+    states, moves, bases = layout_states()
+    m = len(states)
+    trans = np.zeros((m, m))
+    for a, b in moves:
+        trans[a, b] = 1.0
+    trans /= trans.sum(axis=1, keepdims=True)
+    a = len(DNA)
+    emis = np.zeros((m, a**order, a))
+    for s, st in enumerate(states):
+        for c in range(a**order):
+            ctx = "".join(DNA[(c // a ** (order - 1 - q)) % a] for q in range(order))
+            allowed = _allowed(st.name, bases[st.name], ctx)
+            for base in allowed:
+                emis[s, c, DNA.index(base)] = 1.0
+            emis[s, c] /= emis[s, c].sum()
+    start = np.zeros(m)
+    start[0] = 1.0
+    ties, orders = fit_rules(states)
+    return make_model(
+        name=name,
+        description=(
+            "Gene-segment model (layout: seqstate's own): intergenic, a six-base start "
+            "flank, start codon, three codon positions, six intron copies that keep the "
+            "reading frame and the bases of a split codon, splice donor (GT + 4) and "
+            "acceptor (10 + AG) chains, stop codons of NCBI translation table 1 (no "
+            "in-frame stop inside a coding exon); the minus strand is the "
+            "reverse-complement mirror. Probabilities: see [provenance] (the layout itself "
+            "is uniform over the allowed moves and bases)."
+        ),
+        alphabet=DNA,
+        states=states,
+        start=start,
+        transitions=trans,
+        emissions=emis,
+        order=order,
+        decode="viterbi",
+        extra={
+            "fit": {
+                "state_rule": "gene_structure",
+                "both_strands": True,
+                "tie": ties,
+                "tie_transitions": [[f"{c}_body{st}" for c in INTRON_COPIES] for st in "+-"],
+                "emission_order": orders,
+            },
+            "annotate": {"features": "gene_structure"},
+        },
+    )
+
+
+def fit_rules(states: list[State]) -> tuple[list[list[str]], dict[str, int]]:
+    """Emission tying (groups pooled in fit) and per-state effective orders."""
+    ties: list[list[str]] = []
+    orders: dict[str, int] = {}
+    for strand in "+-":
+        ties.append([f"{c}_body{strand}" for c in INTRON_COPIES])
+        for i in list(range(3, 3 + DONOR_FLANK)):
+            ties.append([f"{c}_d{i}{strand}" for c in INTRON_COPIES])
+        for i in range(1, ACCEPTOR_FLANK + 1):
+            ties.append([f"{c}_a{i}{strand}" for c in INTRON_COPIES])
+        for i in range(1, UP_FLANK + 1):
+            orders[f"up{i}{strand}"] = 0
+        for c in INTRON_COPIES:
+            for i in range(3, 3 + DONOR_FLANK):
+                orders[f"{c}_d{i}{strand}"] = 0
+            for i in range(1, ACCEPTOR_FLANK + 1):
+                orders[f"{c}_a{i}{strand}"] = 0
+    return ties, orders

@@ -1,0 +1,451 @@
+"""The gene kind: decoded paths -> gene -> mRNA -> exon + CDS features, and their writer.
+
+A model is of this kind when its manifest says ``[annotate] features =
+"gene_structure"`` (the built-in ``gene-segment`` model).  Its layout is in
+:mod:`seqstate.kinds.gene_layout`, its fit labelling rule in
+:mod:`seqstate.kinds.gene_labels`.  GFF3 coordinates are 1-based closed in
+files, 0-based half-open inside.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any, TextIO
+
+import numpy as np
+
+from seqstate.engine import api, mea
+from seqstate.io.gff3 import Feature, GFF3Writer
+from seqstate.kinds.base import SOURCE, Group, Kind, RecordData
+from seqstate.kinds.segments import (
+    SCORE_FORMATS,
+    format_value,
+    label_columns,
+    label_scores,
+    score_segment,
+)
+from seqstate.model import Model
+
+#: ``[annotate] features`` value of a manifest whose model is of this kind.
+FEATURES = "gene_structure"
+
+#: ``partial_reason`` values: the gene reaches the end of the annotated stretch, or it
+#: was cut at a run of unknown bases (``annotate --split-unknown``).
+PARTIAL_RECORD_END = "record_end"
+PARTIAL_UNKNOWN_RUN = "unknown_run"
+
+
+@dataclass
+class GenePrediction:
+    """One decoded gene: strand and CDS pieces (plus-strand coordinates, 0-based).
+
+    ``phases`` (genomic order) come from the codon position of each piece's 5'-most
+    base on the path, so they are right even for a gene that lacks its start or
+    stop codon.  ``partial_reasons`` says why a gene is incomplete (empty for a
+    complete one): :data:`PARTIAL_RECORD_END` (it runs into an end of the annotated
+    stretch) and/or :data:`PARTIAL_UNKNOWN_RUN` (cut at a long run of unknown bases).
+    """
+
+    strand: str
+    pieces: list[tuple[int, int]]  # in genomic order
+    phases: list[int] | None = None
+    partial_reasons: tuple[str, ...] = ()
+
+    @property
+    def partial(self) -> bool:
+        return bool(self.partial_reasons)
+
+    @property
+    def span(self) -> tuple[int, int]:
+        return self.pieces[0][0], self.pieces[-1][1]
+
+
+def unknown_runs(unknown: np.ndarray, threshold: int) -> list[tuple[int, int]]:
+    """Maximal runs (0-based half-open) of at least ``threshold`` unknown bases."""
+    u = np.asarray(unknown, dtype=bool)
+    if not u.any():
+        return []
+    padded = np.concatenate([[False], u, [False]])
+    edges = np.flatnonzero(padded[1:] != padded[:-1])
+    return [
+        (int(a), int(b)) for a, b in zip(edges[0::2], edges[1::2]) if int(b) - int(a) >= threshold
+    ]
+
+
+def genes_from_path(
+    path: np.ndarray,
+    model: Model,
+    unknown: np.ndarray | None = None,
+    split_unknown: int | None = None,
+) -> list[GenePrediction]:
+    """Runs of one strand's gene states (CDS and intron) along a path -> genes.
+
+    A gene is a maximal run of CDS and intron states of one strand; its CDS pieces
+    are the maximal runs of CDS states inside it.  With ``unknown`` (a boolean per
+    base) and ``split_unknown`` (a length), every run of at least ``split_unknown``
+    unknown bases inside a gene cuts it: the parts on either side become genes of
+    their own, marked partial (:data:`PARTIAL_UNKNOWN_RUN`), and unknown bases are
+    trimmed from the outer ends of every part.  A gene touching the first or last
+    base of the path is partial (:data:`PARTIAL_RECORD_END`).  Parts without a
+    coding base are dropped.  Genes come in genomic order.
+    """
+    m = model.n_states
+    strand_of = np.zeros(m, dtype=np.int8)  # 1 plus gene state, 2 minus, 0 other
+    is_cds = np.zeros(m, dtype=bool)
+    for i, s in enumerate(model.states):
+        if s.label in ("CDS", "intron"):
+            strand_of[i] = 1 if s.strand == "+" else 2
+        is_cds[i] = s.label == "CDS"
+    p = np.asarray(path, dtype=np.int64)
+    frame = codon_positions(model)
+    g = strand_of[p]
+    c = is_cds[p]
+    n = p.shape[0]
+    if unknown is None:
+        unknown = np.zeros(n, dtype=bool)
+    unknown = np.asarray(unknown, dtype=bool)
+    gaps = unknown_runs(unknown, split_unknown) if split_unknown else []
+    change = np.flatnonzero(g[1:] != g[:-1]) + 1
+    starts = np.concatenate([[0], change])
+    ends = np.concatenate([change, [n]])
+    genes = []
+    for s0, e0 in zip(starts.tolist(), ends.tolist()):
+        if g[s0] == 0:
+            continue
+        strand = "+" if g[s0] == 1 else "-"
+        # the run minus the long unknown runs inside it: (lo, hi, cut_left, cut_right)
+        parts = []
+        lo, cut_left = s0, False
+        for a, b in gaps:
+            if b <= s0 or a >= e0:
+                continue
+            if a > lo:
+                parts.append((lo, a, cut_left, True))
+            lo, cut_left = max(b, lo), True
+        if lo < e0:
+            parts.append((lo, e0, cut_left, False))
+        for lo, hi, cut_l, cut_r in parts:
+            while lo < hi and unknown[lo]:
+                lo += 1
+            while hi > lo and unknown[hi - 1]:
+                hi -= 1
+            cc = c[lo:hi]
+            padded = np.concatenate([[False], cc, [False]])
+            edges = np.flatnonzero(padded[1:] != padded[:-1])
+            pieces = [(lo + int(a), lo + int(b)) for a, b in zip(edges[0::2], edges[1::2])]
+            if not pieces:
+                continue
+            # outer ends of the part are trimmed of unknown bases (inner ones stay)
+            a0, b0 = pieces[0]
+            while a0 < b0 and unknown[a0]:
+                a0 += 1
+            pieces[0] = (a0, b0)
+            a1, b1 = pieces[-1]
+            while b1 > a1 and unknown[b1 - 1]:
+                b1 -= 1
+            pieces[-1] = (a1, b1)
+            pieces = [(a, b) for a, b in pieces if b > a]
+            if not pieces:
+                continue
+            five = [a if strand == "+" else b - 1 for a, b in pieces]
+            phases = [(3 - int(frame[p[q]])) % 3 for q in five]
+            reasons = []
+            if s0 == 0 or e0 == n:
+                reasons.append(PARTIAL_RECORD_END)
+            if cut_l or cut_r:
+                reasons.append(PARTIAL_UNKNOWN_RUN)
+            genes.append(GenePrediction(strand, pieces, phases, tuple(reasons)))
+    return genes
+
+
+def codon_positions(model: Model) -> np.ndarray:
+    """Per state, the codon position (0, 1, 2) of the base it emits, in the transcript's
+    own orientation; -1 for non-coding states."""
+    out = np.full(model.n_states, -1, dtype=np.int64)
+    for i, s in enumerate(model.states):
+        base = s.name[:-1] if s.name[-1:] in "+-" else s.name
+        if base in ("start_A", "stop_T") or base.startswith("cds1"):
+            out[i] = 0
+        elif base in ("start_T", "stop_A", "stop_G") or base.startswith("cds2"):
+            out[i] = 1
+        elif base in ("start_G", "stop_AR", "stop_GA") or base.startswith("cds3"):
+            out[i] = 2
+    return out
+
+
+def decoding_classes(model: Model) -> tuple[np.ndarray, int]:
+    """Per state, its class for posterior decoding of gene structures; and the count.
+
+    Class 0 is every non-gene state (intergenic and start flanks).  Per strand
+    (plus first): three CDS classes, one per codon position, then three intron
+    classes, one per intron phase (``i0``, ``i1*``, ``i2*`` copies).  The classes
+    carry the reading frame, so a path that maximises the expected number of bases
+    in their right class keeps the frame the posterior supports.
+    """
+    frame = codon_positions(model)
+    out = np.zeros(model.n_states, dtype=np.int64)
+    for i, s in enumerate(model.states):
+        if s.label not in ("CDS", "intron"):
+            continue
+        base = 1 if s.strand == "+" else 7
+        if s.label == "CDS":
+            out[i] = base + int(frame[i])
+        else:
+            phase = int(s.name[1]) if s.name[:1] == "i" and s.name[1:2].isdigit() else 0
+            out[i] = base + 3 + phase
+    return out, 13
+
+
+def cds_phases(gene: GenePrediction) -> list[int]:
+    """GFF3 phase of each CDS piece, in genomic order.
+
+    GFF3 1.26: the phase is the number of bases to remove from the 5' end of the
+    piece (on its strand) to reach the first base of the next codon.  Taken from
+    the path when the gene has them, else from the lengths (a complete gene).
+    """
+    if gene.phases is not None:
+        return list(gene.phases)
+    order = gene.pieces if gene.strand == "+" else gene.pieces[::-1]
+    phases = []
+    done = 0
+    for a, b in order:
+        phases.append((3 - done % 3) % 3)
+        done += b - a
+    return phases if gene.strand == "+" else phases[::-1]
+
+
+@dataclass(frozen=True)
+class GeneLine:
+    """One GFF3 line of a gene hierarchy (0-based half-open, plus-strand coordinates).
+
+    ``piece`` is the index of the CDS piece in genomic order (None for gene and mRNA).
+    """
+
+    type: str
+    start0: int
+    end0: int
+    id: str
+    parent: str | None
+    phase: int | None
+    piece: int | None
+
+
+_TYPE_RANK = {"gene": 0, "mRNA": 1, "exon": 2, "CDS": 3}
+
+
+def gene_lines(gene: GenePrediction, seqid: str, number: int) -> list[GeneLine]:
+    """The gene -> mRNA -> exon + CDS lines of one gene, in file order.
+
+    IDs: ``SEQID.gene.N``, ``SEQID.mRNA.N``, ``SEQID.mRNA.N.exon.K`` and
+    ``SEQID.mRNA.N.CDS.K`` with K counted from the 5' end on the gene's strand.
+    File order is by start (then parent before child: gene, mRNA, exon, CDS), the
+    order index tools need (common practice), whatever the strand.
+    """
+    g0, g1 = gene.span
+    gid = f"{seqid}.gene.{number}"
+    mid = f"{seqid}.mRNA.{number}"
+    lines = [GeneLine("gene", g0, g1, gid, None, None, None)]
+    lines.append(GeneLine("mRNA", g0, g1, mid, gid, None, None))
+    phases = cds_phases(gene)
+    k_of = range(len(gene.pieces)) if gene.strand == "+" else range(len(gene.pieces) - 1, -1, -1)
+    for k, i in enumerate(k_of, start=1):
+        a, b = gene.pieces[i]
+        lines.append(GeneLine("exon", a, b, f"{mid}.exon.{k}", mid, None, i))
+        lines.append(GeneLine("CDS", a, b, f"{mid}.CDS.{k}", mid, phases[i], i))
+    lines.sort(key=lambda ln: (ln.start0, _TYPE_RANK[ln.type]))
+    return lines
+
+
+# ---------------------------------------------------------------- writing
+GENE_COLUMNS = [
+    "seqid",
+    "start_1based",
+    "end_1based",
+    "strand",
+    "type",
+    "id",
+    "parent",
+    "phase",
+    "mean_posterior",
+    "min_posterior",
+    "segment_probability",
+    "length",
+]
+
+
+def write_genes(
+    gff: GFF3Writer,
+    tsv: TextIO | None,
+    model: Model,
+    tables: api.EngineTables | None,
+    codes: np.ndarray | None,
+    post: api.Posterior | None,
+    groups: list[Group],
+    predictions: list[GenePrediction],
+    seqid: str,
+    offset0: int,
+) -> int:
+    """Write decoded genes as GFF3 gene -> mRNA -> exon + CDS lines; returns the line count.
+
+    ``predictions`` are :class:`GenePrediction` in genomic order
+    (0-based, relative to ``offset0``).  gene and mRNA span the coding part (start
+    codon to stop codon; the model has no untranslated regions), exon and CDS lines
+    share coordinates, CDS phase as GFF3 1.26 defines it; lines in start order,
+    parents first (:func:`gene_lines`).  A partial gene has
+    ``partial=true`` and ``partial_reason`` (``record_end``, ``unknown_run``) on its
+    gene and mRNA lines.  Scores (when ``post`` is given): the posterior of the
+    strand's gene states (CDS and intron) on gene and mRNA, of the strand's CDS
+    states on exon and CDS, and the exact probability that every base of the
+    feature is in those states; without ``post`` (a sampled truth) the score
+    column is ``.`` and only ``length`` is written.  ``tsv`` may be None.
+    """
+    col = {(g.label, g.strand): i for i, g in enumerate(groups)}
+    masks = {}
+    values = {}
+    for strand in "+-":
+        cds = np.zeros(model.n_states, dtype=np.bool_)
+        gene = np.zeros(model.n_states, dtype=np.bool_)
+        for i, st in enumerate(model.states):
+            if st.strand == strand and st.label in ("CDS", "intron"):
+                gene[i] = True
+                cds[i] = st.label == "CDS"
+        masks[strand] = (gene, cds)
+        if post is not None:
+            cols = [col[k] for k in (("CDS", strand), ("intron", strand)) if k in col]
+            values[strand] = (
+                post.values[:, cols].sum(axis=1, dtype=np.float64),
+                post.values[:, col[("CDS", strand)]],
+            )
+    count = 0
+    for number, gp in enumerate(predictions, start=1):
+        strand = gp.strand
+        for ln in gene_lines(gp, seqid, number):
+            a, b = ln.start0, ln.end0
+            sc = None
+            if post is not None and tables is not None and codes is not None:
+                k = 0 if ln.type in ("gene", "mRNA") else 1
+                sc = score_segment(
+                    tables, codes, post, values[strand][k], masks[strand][k], a, b, log_odds=False
+                )
+            attrs: list[tuple[str, str | list[str]]] = [("ID", ln.id)]
+            if ln.parent:
+                attrs.append(("Parent", ln.parent))
+            if sc is not None:
+                for key in ("mean_posterior", "min_posterior", "segment_probability"):
+                    attrs.append((key, format_value(sc[key], SCORE_FORMATS[key])))
+            attrs.append(("length", str(b - a)))
+            if gp.partial and ln.type in ("gene", "mRNA"):
+                attrs.append(("partial", "true"))
+                attrs.append(("partial_reason", list(gp.partial_reasons)))
+            gff.write(
+                Feature(
+                    seqid=seqid,
+                    source=SOURCE,
+                    type=ln.type,
+                    start0=a + offset0,
+                    end0=b + offset0,
+                    score=None if sc is None else sc["mean_posterior"],
+                    strand=strand,
+                    phase=ln.phase,
+                    attributes=attrs,
+                )
+            )
+            if tsv is not None:
+                tsv.write(
+                    "\t".join(
+                        [
+                            seqid,
+                            str(a + offset0 + 1),
+                            str(b + offset0),
+                            strand,
+                            ln.type,
+                            ln.id,
+                            ln.parent or "",
+                            "." if ln.phase is None else str(ln.phase),
+                            format_value(sc["mean_posterior"], ".4f") if sc else "",
+                            format_value(sc["min_posterior"], ".4f") if sc else "",
+                            format_value(sc["segment_probability"], ".4g") if sc else "",
+                            str(b - a),
+                        ]
+                    )
+                    + "\n"
+                )
+            count += 1
+    return count
+
+
+def decode_genes(
+    model: Model,
+    tables: api.EngineTables,
+    codes: np.ndarray,
+    unknown: np.ndarray,
+    decode: str,
+    split_unknown: int,
+    record: str,
+) -> list[GenePrediction]:
+    """Gene structures of one encoded record, by Viterbi or by posterior decoding.
+
+    Viterbi: the most probable path.  Posterior: the maximum expected accuracy
+    path over the model's allowed moves (:func:`seqstate.engine.mea.mea`), whose
+    gain at each base is the posterior of the state's class (non-gene; per strand,
+    CDS by codon position and intron by phase: :func:`decoding_classes`).
+    Genes are then cut at runs of at least ``split_unknown`` unknown bases.
+    """
+    if decode == "viterbi":
+        path, _ = api.viterbi(tables, codes, record=record)
+    else:
+        cls, n_cls = decoding_classes(model)
+        fine = api.posterior(tables, codes, group=cls, n_groups=n_cls, record=record)
+        path = mea.mea(tables, codes, fine.values, cls)
+        del fine
+    return genes_from_path(path, model, unknown, split_unknown)
+
+
+class GeneKind(Kind):
+    """Gene structures: decoded paths written as gene -> mRNA -> exon + CDS hierarchies."""
+
+    name = "genes"
+    state_rule = "gene_structure"
+
+    def claims(self, model: Model) -> bool:
+        table = model.extra.get("annotate", {})
+        return isinstance(table, dict) and table.get("features") == FEATURES
+
+    def feature_columns(self, groups: list[Group]) -> list[str]:
+        return list(GENE_COLUMNS)
+
+    def write_record(self, rec: RecordData, gff: GFF3Writer, tsv: TextIO) -> int:
+        predictions = decode_genes(
+            rec.model, rec.tables, rec.codes, rec.unknown, rec.decode, rec.split_unknown, rec.seqid
+        )
+        return write_genes(
+            gff,
+            tsv,
+            rec.model,
+            rec.tables,
+            rec.codes,
+            rec.post,
+            rec.groups,
+            predictions,
+            rec.seqid,
+            rec.offset0,
+        )
+
+    def truth_of(self, path: np.ndarray, model: Model, state_group: np.ndarray) -> list[Any]:
+        return genes_from_path(path, model)
+
+    def write_truth(
+        self, gff: GFF3Writer, model: Model, groups: list[Group], truth: list[Any], seqid: str
+    ) -> int:
+        # the true genes as a gene -> mRNA -> exon + CDS hierarchy, unscored
+        return write_genes(gff, None, model, None, None, None, groups, truth, seqid, 0)
+
+    def extra_columns(self, label: str) -> list[str]:
+        return label_columns(label)
+
+    def extra_scores(self, label: str, seq: bytes) -> dict[str, Any]:
+        return label_scores(label, seq)
+
+
+#: The gene kind.
+GENES = GeneKind()
