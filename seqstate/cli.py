@@ -275,6 +275,13 @@ def model_check(model: str) -> None:
     show_default=True,
     help="A FASTA record with no sequence: skip it with a warning, or stop with an error.",
 )
+@click.option(
+    "-j",
+    "--jobs",
+    type=int,
+    default=None,
+    help="Threads to use [default: every core this process may use].",
+)
 @quiet_option
 @click.pass_obj
 def annotate_cmd(obj: dict | None, tracks: str | None, quiet: bool, **options: Any) -> None:

@@ -10,6 +10,7 @@ Standard output carries only the data a command was asked to write there.
 from __future__ import annotations
 
 import sys
+import threading
 import time
 from typing import TextIO
 
@@ -36,54 +37,146 @@ def summary(text: str) -> None:
 
 
 class Progress:
-    """Bases done, rate and time left, rewritten in place on stderr.
+    """Bases done, rate and time left on stderr, for long runs.
 
-    :meth:`start` sets the total; :meth:`advance` adds bases and redraws;
-    :meth:`finish` ends the line.
+    On a terminal (``live=True``) one line is rewritten in place at least once a
+    second (a background ticker redraws it even while a long kernel runs): the
+    record being worked on, its bases done, the bases of the run, the rate and the
+    time left.  In a log (``live=False``) a plain line is written once every
+    ``interval`` seconds (a minute by default), so cluster logs show life without
+    filling up.  :meth:`start` sets the total; :meth:`advance` adds bases (from any
+    thread); :meth:`finish` ends the line and stops the ticker.
     """
 
-    def __init__(self, stream: TextIO | None = None) -> None:
+    def __init__(
+        self, stream: TextIO | None = None, *, live: bool = True, interval: float | None = None
+    ) -> None:
         self.stream = stream
+        self.live = live
+        self.interval = interval if interval is not None else (1.0 if live else 60.0)
         self.total = 1
         self.done = 0
+        self.what = ""
         self.t0 = time.perf_counter()
+        self._lock = threading.Lock()
+        self._ticker: threading.Thread | None = None
+        self._stop = threading.Event()
+        self._last_draw = 0.0
+        self._drawn = False
 
     def start(self, total_bases: int) -> None:
-        """Begin counting towards ``total_bases``."""
-        self.total = max(1, total_bases)
-        self.done = 0
-        self.t0 = time.perf_counter()
+        """Begin counting towards ``total_bases`` (0 or less: not known yet)."""
+        with self._lock:
+            self.total = max(0, total_bases)
+            self.done = 0
+            self.t0 = time.perf_counter()
+            self._last_draw = self.t0
+        if self._ticker is None:
+            self._stop.clear()
+            self._ticker = threading.Thread(
+                target=self._tick, name="seqstate-progress", daemon=True
+            )
+            self._ticker.start()
+
+    def set_total(self, total_bases: int) -> None:
+        """The run's total became known (or grew): bases of every record seen so far."""
+        with self._lock:
+            self.total = max(0, total_bases)
 
     def advance(self, bases: int, what: str) -> None:
         """``bases`` more are done (``what``: the record being worked on)."""
-        self.done += bases
-        dt = max(time.perf_counter() - self.t0, 1e-9)
-        rate = self.done / dt
-        left = (self.total - self.done) / rate if rate > 0 else 0.0
+        with self._lock:
+            self.done += bases
+            self.what = what
+            now = time.perf_counter()
+            due = self.live and now - self._last_draw >= 0.2
+        if due:
+            self._draw()
+
+    def line(self) -> str:
+        """The progress text as it is now (no line end)."""
+        with self._lock:
+            done, total, what = self.done, self.total, self.what
+            dt = max(time.perf_counter() - self.t0, 1e-9)
+        rate = done / dt
+        text = f"{what}: {done / 1e6:.2f}"
+        if total > 0:
+            text += f"/{total / 1e6:.2f} Mbp ({100.0 * min(done, total) / total:.0f}%)"
+        else:
+            text += " Mbp"
+        text += f", {rate / 1e6:.2f} Mbp/s"
+        if total > 0 and rate > 0 and done < total:
+            text += f", {_duration((total - done) / rate)} left"
+        return text
+
+    def _draw(self) -> None:
         stream = self.stream or _stderr()
-        stream.write(
-            f"\r{what}: {self.done / 1e6:.2f}/{self.total / 1e6:.2f} Mbp, "
-            f"{rate / 1e6:.2f} Mbp/s, {left:.0f} s left   "
-        )
-        stream.flush()
+        text = self.line()
+        with self._lock:
+            self._last_draw = time.perf_counter()
+            self._drawn = True
+        try:
+            if self.live:
+                stream.write(f"\r{text}   ")
+            else:
+                stream.write(f"progress: {text}\n")
+            stream.flush()
+        except (OSError, ValueError):
+            pass
+
+    def _tick(self) -> None:
+        while not self._stop.wait(min(self.interval, 1.0)):
+            with self._lock:
+                due = time.perf_counter() - self._last_draw >= self.interval
+            if due:
+                self._draw()
 
     def finish(self) -> None:
-        """End the progress line."""
-        stream = self.stream or _stderr()
-        stream.write("\n")
-        stream.flush()
+        """End the progress line and stop the ticker."""
+        self._stop.set()
+        ticker, self._ticker = self._ticker, None
+        if ticker is not None:
+            ticker.join(timeout=2.0)
+        if self.live and self._drawn:
+            stream = self.stream or _stderr()
+            try:
+                stream.write("\n")
+                stream.flush()
+            except (OSError, ValueError):
+                pass
+
+
+def _duration(seconds: float) -> str:
+    """``42 s``, ``3 min 5 s``, ``2 h 10 min``."""
+    s = int(round(seconds))
+    if s < 60:
+        return f"{s} s"
+    if s < 3600:
+        return f"{s // 60} min {s % 60} s"
+    return f"{s // 3600} h {(s % 3600) // 60} min"
 
 
 class QuietProgress(Progress):
-    """The silent twin of :class:`Progress`: counts, writes nothing."""
+    """The silent twin of :class:`Progress`: counts, writes nothing, runs no ticker."""
+
+    def start(self, total_bases: int) -> None:
+        with self._lock:
+            self.total = max(0, total_bases)
+            self.done = 0
+            self.t0 = time.perf_counter()
 
     def advance(self, bases: int, what: str) -> None:
-        self.done += bases
+        with self._lock:
+            self.done += bases
+            self.what = what
 
     def finish(self) -> None:
         pass
 
 
 def progress_for(quiet: bool) -> Progress:
-    """A :class:`Progress` when a person watches stderr (a terminal, not ``-q``), else quiet."""
-    return QuietProgress() if quiet or not _stderr().isatty() else Progress()
+    """The progress a run shows: none with ``-q``; a live line on a terminal; else a plain
+    ``progress:`` line a minute (logs of batch jobs)."""
+    if quiet:
+        return QuietProgress()
+    return Progress(live=_stderr().isatty())

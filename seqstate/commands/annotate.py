@@ -13,23 +13,22 @@ import io
 import json
 import re
 import sys
+from collections.abc import Iterator
 from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from typing import Any, TextIO
 
-import numpy as np
-
 from seqstate import __version__, log
-from seqstate.commands.inputs import read_model_records
-from seqstate.engine import api
+from seqstate.commands import annotate_run
+from seqstate.commands.annotate_run import Item, OutputWriter, Runner
+from seqstate.engine import api, jitcache
 from seqstate.errors import ImpossibleSequenceError, UsageError, escape_text
 from seqstate.io import tracks
 from seqstate.io.atomic import OutputSet, check_outputs
-from seqstate.io.fasta import Record, SkippedRecord, display_name
-from seqstate.io.gff3 import GFF3Writer
+from seqstate.io.fasta import SkippedRecord, display_name, iter_sequences
 from seqstate.io.regions import Region, check_region, parse_region
 from seqstate.io.tables import load_model, model_sha256
-from seqstate.kinds import Group, Kind, RecordData, group_index, kind_of, track_groups
+from seqstate.kinds import Group, group_index, kind_of, track_groups
 from seqstate.log import Progress, QuietProgress
 from seqstate.model import Model, resolve_thresholds
 
@@ -58,6 +57,8 @@ class AnnotateOptions:
     command_line: list[str] = field(default_factory=list)
     force: bool = False
     stem: str | None = None
+    #: threads: None = every core this process may use (clamped to 1 .. cores)
+    jobs: int | None = None
 
 
 @dataclass
@@ -220,7 +221,8 @@ def annotate(
     ``opts.out_dir`` ``"-"`` writes only the GFF3, to ``stdout`` (default
     ``sys.stdout``), once every record is done; otherwise the outputs go into the
     folder and follow :func:`seqstate.io.atomic.check_outputs` (``opts.force``).
-    ``progress`` (default: quiet) is told the bases done.
+    ``progress`` (default: quiet) is told the bases done.  Records are streamed
+    (:mod:`seqstate.commands.annotate_run`); ``opts.jobs`` threads share the work.
     """
     if not opts.out_dir:
         raise UsageError("-o/--out is empty: expected a folder name, or '-' for stdout")
@@ -234,6 +236,7 @@ def annotate(
         )
     if opts.stem is not None:
         check_stem(opts.stem)
+    jobs, jobs_note = annotate_run.resolve_jobs(opts.jobs)
     model = load_model(opts.model)
     decode = opts.decode or model.decode
     if decode not in ("posterior", "viterbi"):
@@ -253,30 +256,24 @@ def annotate(
     groups = track_groups(model)
     if not groups:
         raise UsageError(f"model '{model.name}' has no labelled states: nothing to annotate")
-    skipped: list[SkippedRecord] = []
-    records = read_model_records(
-        opts.input, model, empty_records=opts.empty_records, skipped=skipped
-    )
-    lengths = {r.id: len(r.seq) for r in records}
-    region: Region | None = None
-    if opts.region is not None:
-        region = check_region(parse_region(opts.region), lengths)
-        records = [r for r in records if r.id == region.seqid]
-    spans = []
-    for rec in records:
-        if region is not None:
-            spans.append((rec, region.start0, region.end0))
-        else:
-            spans.append((rec, 0, len(rec.seq)))
-    stem = opts.stem if opts.stem is not None else input_stem(opts.input, region)
+    kind = kind_of(model)
     want_bedgraph = opts.tracks in ("bedgraph", "both")
     want_bigwig = opts.tracks in ("bigwig", "both")
     if want_bigwig:
         tracks.require_bigwig()
+    skipped: list[SkippedRecord] = []
+    long_above = annotate_run.long_threshold(model, kind, groups)
+    region: Region | None = None
+    region_item: Item | None = None
+    if opts.region is not None:
+        region, region_item = _region_item(opts, model, parse_region(opts.region), long_above)
+    stem = opts.stem if opts.stem is not None else input_stem(opts.input, region)
     if not to_stdout:
         names = output_names(stem, groups, want_bedgraph, want_bigwig)
         check_outputs([Path(opts.out_dir) / n for n in names], [opts.input], force=opts.force)
-    options = {k: v for k, v in asdict(given).items() if k != "command_line"}
+    if jobs_note:
+        log.note(jobs_note)
+    options = {k: v for k, v in asdict(given).items() if k not in ("command_line", "jobs")}
     options["decode"] = decode
     report = AnnotateReport(
         schema=REPORT_SCHEMA,
@@ -291,153 +288,208 @@ def annotate(
         thresholds={"min_posterior": min_posterior, "min_length": min_length, "from": source},
         log_base="natural log (ln)",
         coordinates=dict(COORDINATES),
-        skipped_records=[SkippedReport(sk.id, sk.line0 + 1, sk.reason) for sk in skipped],
     )
     progress = progress or QuietProgress()
-    progress.start(sum(e - s for _, s, e in spans))
-    run = _Run(
-        opts,
-        model,
-        kind_of(model),
-        decode,
-        min_posterior,
-        min_length,
-        tables,
-        groups,
-        group_index(model, groups),
-        spans,
-        stem,
-        progress,
+    if not isinstance(progress, QuietProgress) and not jitcache.kernels_cached(
+        ("kernels", tables.kernels)
+    ):
+        log.note(
+            "note: compiling the engine's kernels for this machine (first run only, up to a "
+            "minute; later runs reuse them)"
+        )
+    runner = Runner(
+        model=model,
+        kind=kind,
+        tables=tables,
+        groups=groups,
+        state_group=group_index(model, groups),
+        decode=decode,
+        min_posterior=min_posterior,
+        min_length=min_length,
+        split_unknown=opts.split_unknown,
+        masked_unknown=opts.masked == "unknown",
+        precision=opts.precision,
+        jobs=jobs,
+        progress=progress,
+        check_symbols=annotate_run.symbol_checker(model, opts.input),
+        want_bedgraph=want_bedgraph,
+        want_bigwig=want_bigwig,
     )
     try:
-        return run.write(report, want_bedgraph, want_bigwig, stdout)
+        _write(opts, model, runner, report, stem, region_item, skipped, long_above, stdout)
     except ImpossibleSequenceError as exc:
         raise ImpossibleSequenceError(exc.message, path=opts.input) from None
+    report.skipped_records = [SkippedReport(sk.id, sk.line0 + 1, sk.reason) for sk in skipped]
+    return report
 
 
-@dataclass
-class _Run:
-    """One annotate run after its checks: what the record loop needs."""
+def _region_item(
+    opts: AnnotateOptions, model: Model, region: Region, long_above: int
+) -> tuple[Region, Item | None]:
+    """The region resolved and its bases read through the FASTA index when the file has
+    one (or can be given one); (region, None) when the records must be streamed."""
+    from seqstate.io import faidx
 
-    opts: AnnotateOptions
-    model: Model
-    kind: Kind
-    decode: str
-    min_posterior: float
-    min_length: int
-    tables: api.EngineTables
-    groups: list[Group]
-    state_group: np.ndarray
-    spans: list[tuple[Record, int, int]]
-    stem: str
-    progress: Progress
+    lengths = faidx.record_lengths(opts.input)
+    if lengths is None:
+        return region, None
+    region = check_region(region, lengths)
+    check = "dna" if set(model.alphabet) <= set("ACGT") else None
+    rec = faidx.region_record(opts.input, region, alphabet_check=check)
+    if rec is None:
+        return region, None
+    seq = rec.seq
+    start0 = region.start0
 
-    def write(
-        self,
-        report: AnnotateReport,
-        want_bedgraph: bool,
-        want_bigwig: bool,
-        stdout: TextIO | None = None,
-    ) -> AnnotateReport:
-        """Every record through the engine and the kind, into one output set."""
-        opts, model, groups, stem, spans = self.opts, self.model, self.groups, self.stem, self.spans
-        to_stdout = opts.out_dir == STDOUT
-        out_dir = None if to_stdout else opts.out_dir  # nothing is staged with -o -
-        with OutputSet(out_dir, force=opts.force, inputs=[opts.input]) as outs:
-            gff_name = f"{stem}.gff3"
-            tsv_name = f"{stem}.features.tsv"
-            tsv: TextIO
-            if to_stdout:
-                gff_text = io.StringIO()
-                gff = GFF3Writer(gff_text)
-                tsv = io.StringIO()  # the feature table is not written with -o -
+    def read(a: int, b: int) -> bytes:
+        return seq[a - start0 : b - start0]
+
+    item = Item(
+        rec.id,
+        lengths[region.seqid],
+        region.start0,
+        region.end0,
+        read,
+        lambda: None,
+        region.end0 - region.start0 > long_above,
+    )
+    return region, item
+
+
+def _stream_items(
+    opts: AnnotateOptions,
+    model: Model,
+    region: Region | None,
+    skipped: list[SkippedRecord],
+    long_above: int,
+    scratch: Path | None,
+) -> Iterator[Item]:
+    """The records of the FASTA, one at a time (only the region's record with
+    ``--region``), as items to annotate."""
+    check = "dna" if set(model.alphabet) <= set("ACGT") else None
+    seen: dict[str, int] = {}
+    found = False
+    records = iter_sequences(
+        opts.input,
+        alphabet_check=check,
+        empty_records=opts.empty_records,
+        skipped=skipped,
+        spill_above=long_above,
+        spill_dir=scratch,
+    )
+    try:
+        for rec in records:
+            seen[rec.id] = rec.length
+            if region is not None:
+                if rec.id != region.seqid or found:
+                    rec.source.close()
+                    continue
+                found = True
+                checked = check_region(region, {rec.id: rec.length})
+                s0, e0 = checked.start0, checked.end0
             else:
-                gff = GFF3Writer(outs.open_text(gff_name))
-                tsv = outs.open_text(tsv_name)
-            gff.header([(rec.id, s + 1, e) for rec, s, e in spans])
-            tsv.write("\t".join(self.kind.feature_columns(groups)) + "\n")
-            bedgraphs = []
-            bigwigs = []
-            names = [gff_name, tsv_name]
-            for grp in groups:
-                desc = f"posterior of {grp.label}" + (
-                    f" ({grp.strand} strand)" if grp.strand else ""
-                )
-                desc += f" under model {model.name}"
-                if want_bedgraph:
-                    name = f"{stem}.{grp.track_name}.bedgraph"
-                    names.append(name)
-                    bedgraphs.append(
-                        tracks.BedGraphTrack(
-                            outs.open_text(name), grp.track_name, desc, opts.precision
-                        )
-                    )
-                if want_bigwig:
-                    name = f"{stem}.{grp.track_name}.bw"
-                    names.append(name)
-                    bigwigs.append(
-                        tracks.BigWigTrack(
-                            outs.path(name),
-                            [(rec.id, len(rec.seq)) for rec, _, _ in spans],
-                            opts.precision,
-                        )
-                    )
-            for rec, s0, e0 in spans:
-                report.records.append(self.record(rec, s0, e0, gff, tsv, bedgraphs, bigwigs))
-            for bw in bigwigs:
-                bw.close()
-            if not to_stdout:
-                report.outputs = sorted(names + [f"{stem}.run.json"])
-                with outs.open_text(f"{stem}.run.json") as fh:
-                    json.dump(report.to_dict(), fh, indent=2, sort_keys=False)
-                    fh.write("\n")
-        self.progress.finish()
-        if to_stdout:
-            (stdout or sys.stdout).write(gff_text.getvalue())
-        return report
+                s0, e0 = 0, rec.length
+            yield Item(rec.id, rec.length, s0, e0, rec.read, rec.source.close, e0 - s0 > long_above)
+    finally:
+        records.close()
+    if region is not None and not found:
+        check_region(region, seen)  # raises: no such record (listing the known ones)
 
-    def record(
-        self,
-        rec: Record,
-        s0: int,
-        e0: int,
-        gff: GFF3Writer,
-        tsv: TextIO,
-        bedgraphs: list[tracks.BedGraphTrack],
-        bigwigs: list[tracks.BigWigTrack],
-    ) -> RecordReport:
-        """One record (bases ``s0 .. e0-1``): posterior, the kind's features, tracks."""
-        opts, tables, groups = self.opts, self.tables, self.groups
-        seq = rec.seq[s0:e0]
-        sym = api.symbols_of(tables, seq, masked_unknown=(opts.masked == "unknown"))
-        codes = api.encode_symbols(tables, sym)
-        unknown = int(np.count_nonzero(sym < 0))
-        state_group = self.state_group
-        post = api.posterior(tables, codes, group=state_group, n_groups=len(groups), record=rec.id)
-        self.progress.advance((e0 - s0) // 2, rec.id)
-        data = RecordData(
-            model=self.model,
-            tables=tables,
-            groups=groups,
-            state_group=state_group,
-            seqid=rec.id,
-            offset0=s0,
-            seq=seq,
-            codes=codes,
-            symbols=sym,
-            post=post,
-            decode=self.decode,
-            min_posterior=self.min_posterior,
-            min_length=self.min_length,
-            split_unknown=opts.split_unknown,
+
+def _write(
+    opts: AnnotateOptions,
+    model: Model,
+    runner: Runner,
+    report: AnnotateReport,
+    stem: str,
+    region_item: Item | None,
+    skipped: list[SkippedRecord],
+    long_above: int,
+    stdout: TextIO | None,
+) -> None:
+    """The output set of the run: every record through the runner, then the run report."""
+    to_stdout = opts.out_dir == STDOUT
+    groups = runner.groups
+    out_dir = None if to_stdout else opts.out_dir  # nothing is staged with -o -
+    region = None
+    if opts.region is not None and region_item is None:
+        region = parse_region(opts.region)
+    runner.progress.start(_known_total(opts.input, region_item))
+    with OutputSet(out_dir, force=opts.force, inputs=[opts.input]) as outs:
+        scratch = None if to_stdout else outs.scratch_dir()
+        gff_name = f"{stem}.gff3"
+        tsv_name = f"{stem}.features.tsv"
+        names = [gff_name, tsv_name]
+        if to_stdout:
+            gff_target: TextIO = sys.stdout
+            tsv: TextIO = io.StringIO()  # the feature table is not written with -o -
+        else:
+            gff_target = outs.open_text(gff_name)
+            tsv = outs.open_text(tsv_name)
+        tsv.write("\t".join(runner.kind.feature_columns(groups)) + "\n")
+        bedgraphs = []
+        handles = []
+        bigwig_paths = []
+        for grp in groups:
+            desc = f"posterior of {grp.label}" + (f" ({grp.strand} strand)" if grp.strand else "")
+            desc += f" under model {model.name}"
+            if runner.want_bedgraph:
+                name = f"{stem}.{grp.track_name}.bedgraph"
+                names.append(name)
+                handle = outs.open_text(name)
+                handles.append(handle)
+                bedgraphs.append(tracks.BedGraphTrack(handle, grp.track_name, desc, opts.precision))
+            if runner.want_bigwig:
+                name = f"{stem}.{grp.track_name}.bw"
+                names.append(name)
+                bigwig_paths.append(outs.path(name))
+        writer = OutputWriter(
+            gff_target, scratch, tsv, bedgraphs, handles, bigwig_paths, opts.precision
         )
-        n_feat = self.kind.write_record(data, gff, tsv)
-        del data
-        for g in range(len(groups)):
-            values = post.values[:, g]
-            if bedgraphs:
-                bedgraphs[g].add(rec.id, values, s0)
-            if bigwigs:
-                bigwigs[g].add(rec.id, values, s0)
-        self.progress.advance((e0 - s0) - (e0 - s0) // 2, rec.id)
-        return RecordReport(rec.id, len(rec.seq), s0 + 1, e0, unknown, post.loglik, n_feat)
+        try:
+            if region_item is not None:
+                items: Iterator[Item] = iter([region_item])
+            else:
+                items = _stream_items(opts, model, region, skipped, long_above, scratch)
+            done = runner.run(items, writer)
+            text = writer.finish()
+        except BaseException:
+            writer.abandon()
+            raise
+        for out in done:
+            report.records.append(
+                RecordReport(
+                    out.id,
+                    out.length,
+                    out.start0 + 1,
+                    out.end0,
+                    out.unknown,
+                    out.loglik,
+                    out.features,
+                )
+            )
+        report.skipped_records = [SkippedReport(sk.id, sk.line0 + 1, sk.reason) for sk in skipped]
+        if not to_stdout:
+            report.outputs = sorted(names + [f"{stem}.run.json"])
+            with outs.open_text(f"{stem}.run.json") as fh:
+                json.dump(report.to_dict(), fh, indent=2, sort_keys=False)
+                fh.write("\n")
+    runner.progress.finish()
+    if to_stdout and text is not None:
+        (stdout or sys.stdout).write(text)
+
+
+def _known_total(path: str, region_item: Item | None) -> int:
+    """Bases the run will annotate when known before reading (a region, or an existing
+    FASTA index); 0 when not."""
+    if region_item is not None:
+        return region_item.bases
+    if path == "-" or not Path(path + ".fai").is_file():
+        return 0
+    try:
+        from seqstate.io import faidx
+
+        lengths = faidx.record_lengths(path)
+    except Exception:  # the index is checked properly when it is used
+        return 0
+    return sum(lengths.values()) if lengths else 0

@@ -119,3 +119,33 @@ def configure(
 PLAN = configure()
 #: Whether kernels are cached on disk (the ``cache`` option of every kernel).
 CACHE = PLAN.enabled
+
+
+def kernels_cached(modules: Sequence[str] = ("kernels",)) -> bool:
+    """Whether compiled kernels of the engine modules ``modules`` (``"kernels"``,
+    ``"sparse"``, ...) are found in the on-disk cache, i.e. whether a run starts without
+    compiling them.  A guess from the cache's index files (``MODULE.FUNCTION-LINE.pyXY.nbi``),
+    for the message a command shows before the first, slow compile; never raises."""
+    if not CACHE:
+        return False
+    here = os.path.dirname(os.path.abspath(__file__))
+    folders = [os.path.join(here, "__pycache__")]
+    custom = os.environ.get("NUMBA_CACHE_DIR")
+    if custom:
+        folders.append(custom)
+    tag = f".py{sys.version_info.major}{sys.version_info.minor}.nbi"
+    for module in modules:
+        found = False
+        for folder in folders:
+            try:
+                for _root, _dirs, names in os.walk(folder):
+                    if any(n.startswith(module + ".") and n.endswith(tag) for n in names):
+                        found = True
+                        break
+            except OSError:
+                continue
+            if found:
+                break
+        if not found:
+            return False
+    return True

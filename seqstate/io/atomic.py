@@ -405,6 +405,21 @@ class OutputSet:
         """
         return self._register(name)
 
+    def scratch_dir(self) -> Path:
+        """A folder for the run's own temporary files (spilled sequence, deferred output
+        parts) inside the staging folder of ``out_dir``: never committed, removed with the
+        staging folder on success, error or stop signal."""
+        if not self._entered:
+            raise RuntimeError("OutputSet must be used as a context manager ('with')")
+        if self.out_dir is None:
+            raise RuntimeError("scratch_dir needs an output folder")
+        scratch = self._stage_of(self.out_dir) / "scratch"
+        try:
+            scratch.mkdir(exist_ok=True)
+        except OSError as exc:
+            raise self._fail(self._reason(exc)) from None
+        return scratch
+
     def __enter__(self) -> OutputSet:
         if self.out_dir is not None:
             self._make_folder(self.out_dir)

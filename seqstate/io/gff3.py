@@ -160,6 +160,23 @@ def _format_attributes(attributes: list[tuple[str, str | list[str]]]) -> str:
     return ";".join(parts)
 
 
+def header_text(sequence_regions: Sequence[tuple[str, int] | tuple[str, int, int]]) -> str:
+    """``##gff-version 3`` and one ``##sequence-region`` line per item (see
+    :meth:`GFF3Writer.header`), as one string."""
+    lines = ["##gff-version 3\n"]
+    for item in sequence_regions:
+        if len(item) == 2:
+            seqid, start, end = item[0], 1, item[1]
+        else:
+            seqid, start, end = item
+        if not 1 <= start <= end:
+            raise ValueError(
+                f"sequence region {seqid!r} {start}-{end} is not 1-based with 1 <= start <= end"
+            )
+        lines.append(f"##sequence-region {escape_seqid(seqid)} {start} {end}\n")
+    return "".join(lines)
+
+
 class GFF3Writer:
     """Write GFF3 lines to a text handle.
 
@@ -168,10 +185,14 @@ class GFF3Writer:
     values must already be strings (the caller formats numbers).
     """
 
-    def __init__(self, handle: TextIO, score_format: str = "{:.4f}") -> None:
+    def __init__(
+        self, handle: TextIO, score_format: str = "{:.4f}", *, body_only: bool = False
+    ) -> None:
+        """``body_only``: write feature lines only (no ``##gff-version`` line), for a part
+        of a file whose header is written elsewhere (see :func:`header_text`)."""
         self._handle = handle
         self._score_format = score_format
-        self._started = False
+        self._started = body_only
 
     def header(self, sequence_regions: Sequence[tuple[str, int] | tuple[str, int, int]]) -> None:
         """Write ``##gff-version 3`` then one ``##sequence-region`` line per record.
@@ -183,18 +204,7 @@ class GFF3Writer:
         if self._started:
             raise RuntimeError("GFF3Writer.header() must be called before any feature")
         self._started = True
-        lines = ["##gff-version 3\n"]
-        for item in sequence_regions:
-            if len(item) == 2:
-                seqid, start, end = item[0], 1, item[1]
-            else:
-                seqid, start, end = item
-            if not 1 <= start <= end:
-                raise ValueError(
-                    f"sequence region {seqid!r} {start}-{end} is not 1-based with 1 <= start <= end"
-                )
-            lines.append(f"##sequence-region {escape_seqid(seqid)} {start} {end}\n")
-        self._handle.write("".join(lines))
+        self._handle.write(header_text(sequence_regions))
 
     def format_score(self, score: float | None) -> str:
         """Column 6 text for ``score``: '.' for None, else ``score_format``."""

@@ -296,6 +296,35 @@ class BigWigTrack:
                 values=scaled[lo:hi] / self._scale,
             )
 
+    def add_runs(
+        self, seqid: str, starts0: np.ndarray, ends0: np.ndarray, scaled: np.ndarray
+    ) -> None:
+        """Add merged runs already rounded (``scaled / 10**precision``, record coordinates,
+        0-based half-open), in order; several calls may carry one record's runs."""
+        if self._bw is None:
+            raise RuntimeError("BigWigTrack is closed")
+        if seqid not in self._order:
+            raise ValueError(f"record {seqid!r} is not in chrom_sizes")
+        index, length = self._order[seqid]
+        if index < self._last:
+            raise ValueError(f"record {seqid!r} comes out of chrom_sizes order")
+        k = int(np.shape(starts0)[0])
+        if k and (int(starts0[0]) < 0 or int(ends0[-1]) > length):
+            raise ValueError(f"record {seqid!r}: runs do not fit a length of {length}")
+        self._last = index
+        self._check_space(k)
+        self._runs += k
+        name = escape_text(seqid)
+        for lo in range(0, k, _ENTRIES):
+            hi = lo + _ENTRIES
+            block_starts = np.ascontiguousarray(starts0[lo:hi], dtype=np.int64)
+            self._bw.addEntries(
+                [name] * block_starts.shape[0],
+                block_starts,
+                ends=np.ascontiguousarray(ends0[lo:hi], dtype=np.int64),
+                values=np.asarray(scaled[lo:hi], dtype=np.float64) / self._scale,
+            )
+
     def _check_space(self, new_runs: int) -> None:
         """Raise OSError(ENOSPC) unless the disk has room for the file with ``new_runs`` more.
 

@@ -1,0 +1,461 @@
+"""The record loop of ``seqstate annotate``: records streamed, run in parallel, written in order.
+
+Records are read one at a time (:func:`seqstate.io.fasta.iter_sequences`; a long
+record's bases are spilled to a scratch file and read back by range), so memory
+never holds the whole input.  With ``jobs > 1`` the short records run on a pool
+of threads (the kernels release the GIL), at most ``jobs + 1`` in flight, and
+their outputs are written in input order; a long record runs alone, window by
+window (:mod:`seqstate.kinds.stream`), with the engine's forward and backward
+passes and its per-block recombination spread over ``jobs`` threads.  Either
+way the bytes written are those of ``jobs = 1``.
+
+Coordinates: 0-based half-open inside; the GFF3 writer turns them 1-based closed.
+"""
+
+from __future__ import annotations
+
+import io
+import os
+from collections import deque
+from collections.abc import Callable, Iterator
+from concurrent.futures import Future, ThreadPoolExecutor
+from concurrent.futures import TimeoutError as FutureTimeout
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TextIO
+
+import numpy as np
+
+from seqstate import log
+from seqstate.engine import api
+from seqstate.errors import SequenceFormatError, UsageError
+from seqstate.io import tracks
+from seqstate.io.atomic import stop_requested
+from seqstate.io.deferred import DeferredBigWig, DeferredGFF3, RunCarry
+from seqstate.io.gff3 import GFF3Writer, header_text
+from seqstate.kinds import Group, Kind, RecordData
+from seqstate.model import Model
+
+__all__ = [
+    "LONG_RECORD_BUDGET",
+    "Item",
+    "RecordOutput",
+    "Runner",
+    "available_cores",
+    "long_threshold",
+    "resolve_jobs",
+    "window_length",
+]
+
+#: Bytes of per-base working arrays one record may use on the whole-record path; longer
+#: records go window by window (and are spilled to scratch while they are read).
+LONG_RECORD_BUDGET = 256 << 20
+#: Bytes of posterior values one window of a long record may hold.
+WINDOW_BUDGET = 96 << 20
+#: Bytes of working arrays per base on the whole-record path, beyond the posterior columns
+#: (the bases, symbols, emission codes and decoding scratch).
+_FIXED_BYTES_PER_BASE = 16
+
+
+def available_cores() -> int:
+    """The cores this process may run on (its CPU affinity where the system tells it)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))  # type: ignore[attr-defined]
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)
+
+
+def resolve_jobs(requested: int | None) -> tuple[int, str | None]:
+    """``--jobs``: None -> every available core; below 1 or above the cores -> clamped,
+    with the note to show."""
+    cores = available_cores()
+    if requested is None:
+        return cores, None
+    if requested < 1:
+        return 1, f"note: --jobs {requested} is below 1; using 1 job"
+    if requested > cores:
+        return cores, (
+            f"note: --jobs {requested} is more than the {cores} core(s) this process may use; "
+            f"using {cores}"
+        )
+    return requested, None
+
+
+def _columns(model: Model, kind: Kind, groups: list[Group]) -> int:
+    """Posterior columns a record of this model keeps per base (track groups, and the
+    kind's own decoding columns)."""
+    extra = 0
+    decoding = getattr(kind, "decoding_columns", None)
+    if decoding is not None:
+        extra = int(decoding(model))
+    return len(groups) + extra
+
+
+def long_threshold(model: Model, kind: Kind, groups: list[Group]) -> int:
+    """Records longer than this (bases) run window by window, with bounded memory."""
+    per_base = 4 * _columns(model, kind, groups) + _FIXED_BYTES_PER_BASE
+    return int(min(16 << 20, max(1 << 20, LONG_RECORD_BUDGET // per_base)))
+
+
+def window_length(model: Model, kind: Kind, groups: list[Group]) -> int:
+    """Bases per window of a long record (the kind rounds it to whole checkpoint blocks)."""
+    per_base = 4 * _columns(model, kind, groups) + _FIXED_BYTES_PER_BASE
+    return int(min(8 << 20, max(1 << 18, WINDOW_BUDGET // per_base)))
+
+
+@dataclass
+class Item:
+    """One stretch to annotate: bases ``start0 .. end0-1`` of record ``id`` (``length``
+    bases in all), read through ``read(a, b)`` in record coordinates."""
+
+    id: str
+    length: int
+    start0: int
+    end0: int
+    read: Callable[[int, int], bytes]
+    close: Callable[[], None]
+    long: bool
+
+    @property
+    def bases(self) -> int:
+        return self.end0 - self.start0
+
+
+@dataclass
+class RecordOutput:
+    """What one record gives: the report fields and its output text, to write in order."""
+
+    id: str
+    length: int
+    start0: int
+    end0: int
+    unknown: int
+    loglik: float
+    features: int
+    gff: str = ""
+    tsv: str = ""
+    bedgraph: list[str] = field(default_factory=list)
+    bigwig: list[tuple[np.ndarray, np.ndarray, np.ndarray]] = field(default_factory=list)
+
+
+def bedgraph_text(seqid: str, values: np.ndarray, offset0: int, precision: int) -> str:
+    """The bedGraph lines :class:`~seqstate.io.tracks.BedGraphTrack` writes for one whole
+    record's values (without the track line)."""
+    buf = io.StringIO()
+    track = tracks.BedGraphTrack(buf, "x", "", precision)
+    start = buf.tell()
+    track.add(seqid, values, offset0)
+    end_record = getattr(track, "end_record", None)
+    if end_record is not None:
+        end_record(seqid)
+    return buf.getvalue()[start:]
+
+
+@dataclass
+class Runner:
+    """Everything the record loop needs, set up by :func:`seqstate.commands.annotate.annotate`."""
+
+    model: Model
+    kind: Kind
+    tables: api.EngineTables
+    groups: list[Group]
+    state_group: np.ndarray
+    decode: str
+    min_posterior: float
+    min_length: int
+    split_unknown: int
+    masked_unknown: bool
+    precision: int
+    jobs: int
+    progress: log.Progress
+    check_symbols: Callable[[str, bytes, int], None] | None = None
+    want_bedgraph: bool = False
+    want_bigwig: bool = False
+
+    # ------------------------------------------------------------ one record
+    def short_record(self, item: Item) -> RecordOutput:
+        """The whole-record path (as before streaming): posterior, the kind's features,
+        tracks; outputs kept as text for the writer thread."""
+        tables, groups = self.tables, self.groups
+        seq = item.read(item.start0, item.end0)
+        item.close()
+        if self.check_symbols is not None:
+            self.check_symbols(item.id, seq, item.start0)
+        sym = api.symbols_of(tables, seq, masked_unknown=self.masked_unknown)
+        codes = api.encode_symbols(tables, sym)
+        unknown = int(np.count_nonzero(sym < 0))
+        n = item.bases
+        post = api.posterior(
+            tables, codes, group=self.state_group, n_groups=len(groups), record=item.id
+        )
+        self.progress.advance(n // 2, item.id)
+        data = RecordData(
+            model=self.model,
+            tables=tables,
+            groups=groups,
+            state_group=self.state_group,
+            seqid=item.id,
+            offset0=item.start0,
+            seq=seq,
+            codes=codes,
+            symbols=sym,
+            post=post,
+            decode=self.decode,
+            min_posterior=self.min_posterior,
+            min_length=self.min_length,
+            split_unknown=self.split_unknown,
+        )
+        gff_text = io.StringIO()
+        tsv_text = io.StringIO()
+        n_feat = self.kind.write_record(data, GFF3Writer(gff_text, body_only=True), tsv_text)
+        del data
+        out = RecordOutput(
+            item.id,
+            item.length,
+            item.start0,
+            item.end0,
+            unknown,
+            post.loglik,
+            n_feat,
+            gff_text.getvalue(),
+            tsv_text.getvalue(),
+        )
+        for g in range(len(groups)):
+            values = post.values[:, g]
+            if self.want_bedgraph:
+                out.bedgraph.append(bedgraph_text(item.id, values, item.start0, self.precision))
+            if self.want_bigwig:
+                carry = RunCarry(self.precision)
+                body = carry.add(values, item.start0)
+                tail = carry.close()
+                out.bigwig.append(tuple(np.concatenate([a, b]) for a, b in zip(body, tail)))
+        self.progress.advance(n - n // 2, item.id)
+        return out
+
+    def long_record(self, item: Item, writer: OutputWriter) -> RecordOutput:
+        """The window-by-window path of a long record, written straight to the outputs."""
+        from seqstate.kinds.stream import StreamRecord, write_stream_record
+
+        tables = self.tables
+        order = tables.order
+        start0 = item.start0
+        n = item.bases
+
+        def read_bases(a: int, b: int) -> bytes:
+            return item.read(start0 + a, start0 + b)
+
+        def read_symbols(a: int, b: int) -> np.ndarray:
+            return api.symbols_of(tables, read_bases(a, b), masked_unknown=self.masked_unknown)
+
+        def read_codes(a: int, b: int) -> np.ndarray:
+            lo = max(0, a - order)
+            codes = api.encode_symbols(tables, read_symbols(lo, b))
+            return codes[a - lo :]
+
+        if self.check_symbols is not None:
+            step = 1 << 22
+            for a in range(0, n, step):
+                self.check_symbols(item.id, read_bases(a, min(n, a + step)), start0 + a)
+        rec = StreamRecord(
+            model=self.model,
+            tables=tables,
+            groups=self.groups,
+            state_group=self.state_group,
+            seqid=item.id,
+            n=n,
+            offset0=start0,
+            read_bases=read_bases,
+            read_codes=read_codes,
+            read_symbols=read_symbols,
+            decode=self.decode,
+            min_posterior=self.min_posterior,
+            min_length=self.min_length,
+            split_unknown=self.split_unknown,
+            threads=self.jobs,
+            window=window_length(self.model, self.kind, self.groups),
+        )
+
+        def track_sink(g: int, a: int, values: np.ndarray) -> None:
+            writer.track_piece(g, item.id, start0 + a, values)
+            if g == 0:
+                self.progress.advance(int(values.shape[0]), item.id)
+
+        try:
+            n_feat, loglik, unknown = write_stream_record(
+                self.kind, rec, writer.gff_writer, writer.tsv, track_sink
+            )
+        finally:
+            item.close()
+        writer.end_track_record(item.id, item.length)
+        return RecordOutput(item.id, item.length, start0, item.end0, unknown, loglik, n_feat)
+
+    # ------------------------------------------------------------ the loop
+    def run(self, items: Iterator[Item], writer: OutputWriter) -> list[RecordOutput]:
+        """Every item through the engine, outputs written in input order."""
+        done: list[RecordOutput] = []
+        if self.jobs <= 1:
+            for item in items:
+                _stop_check()
+                if item.long:
+                    done.append(self.long_record(item, writer))
+                else:
+                    done.append(writer.put(self.short_record(item)))
+            return done
+        pool = ThreadPoolExecutor(max_workers=self.jobs, thread_name_prefix="seqstate-record")
+        pending: deque[tuple[Item, Future[RecordOutput]]] = deque()
+        try:
+            for item in items:
+                _stop_check()
+                if item.long:
+                    while pending:
+                        done.append(writer.put(_result(pending.popleft()[1], pending)))
+                    done.append(self.long_record(item, writer))
+                    continue
+                pending.append((item, pool.submit(self.short_record, item)))
+                while len(pending) > self.jobs:
+                    done.append(writer.put(_result(pending.popleft()[1], pending)))
+            while pending:
+                done.append(writer.put(_result(pending.popleft()[1], pending)))
+        finally:
+            for item, fut in pending:
+                fut.cancel()
+                item.close()
+            pool.shutdown(wait=False, cancel_futures=True)
+        return done
+
+
+def _stop_check() -> None:
+    if stop_requested():
+        raise KeyboardInterrupt
+
+
+def _result(
+    fut: Future[RecordOutput], others: deque[tuple[Item, Future[RecordOutput]]]
+) -> RecordOutput:
+    """The result of ``fut``, waiting in short steps so a stop signal is seen at once; a
+    failure of any record still running stops the run now, not when its turn comes."""
+    while True:
+        try:
+            return fut.result(timeout=0.25)
+        except FutureTimeout:
+            _stop_check()
+            for _, other in others:
+                if other.done() and not other.cancelled():
+                    failure = other.exception()
+                    if failure is not None:
+                        raise failure from None
+
+
+class OutputWriter:
+    """The outputs of one run, written in input order (GFF3 header and bigWig at the end)."""
+
+    def __init__(
+        self,
+        gff_target: TextIO,
+        scratch: Path | None,
+        tsv: TextIO,
+        bedgraphs: list[tracks.BedGraphTrack],
+        bedgraph_handles: list[TextIO],
+        bigwig_paths: list[Path],
+        precision: int,
+    ) -> None:
+        self._gff_target = gff_target
+        if scratch is not None:
+            self._gff: DeferredGFF3 | None = DeferredGFF3(gff_target, scratch / "features.gff3")
+            self.gff_writer = self._gff.writer
+            self._gff_body: TextIO | None = None
+        else:  # standard output: the text is kept in memory and written at the end
+            self._gff = None
+            self._gff_body = io.StringIO()
+            self.gff_writer = GFF3Writer(self._gff_body, body_only=True)
+        self.tsv = tsv
+        self.bedgraphs = bedgraphs
+        self._bedgraph_handles = bedgraph_handles
+        self.bigwigs = [
+            DeferredBigWig(p, _scratch_file(scratch, f"track{i}.runs"), precision)
+            for i, p in enumerate(bigwig_paths)
+        ]
+        self.regions: list[tuple[str, int, int]] = []
+
+    def put(self, out: RecordOutput) -> RecordOutput:
+        """Write one record's outputs (from the whole-record path)."""
+        if out.gff:
+            if self._gff is not None:
+                self._gff.write_text(out.gff)
+            elif self._gff_body is not None:
+                self._gff_body.write(out.gff)
+        if out.tsv:
+            self.tsv.write(out.tsv)
+        for g, text in enumerate(out.bedgraph):
+            self._bedgraph_handles[g].write(text)
+        for g, runs in enumerate(out.bigwig):
+            self.bigwigs[g].add_runs(runs)
+            self.bigwigs[g].end_record(out.id, out.length)
+        self.regions.append((out.id, out.start0 + 1, out.end0))
+        return out
+
+    def track_piece(self, g: int, seqid: str, offset0: int, values: np.ndarray) -> None:
+        """Consecutive values of a long record's track group ``g`` (record coordinates)."""
+        if self.bedgraphs:
+            self.bedgraphs[g].add(seqid, values, offset0)
+        if self.bigwigs:
+            self.bigwigs[g].add(seqid, values, offset0)
+
+    def end_track_record(self, seqid: str, length: int) -> None:
+        for track in self.bedgraphs:
+            end_record = getattr(track, "end_record", None)
+            if end_record is not None:
+                end_record(seqid)
+        for bw in self.bigwigs:
+            bw.end_record(seqid, length)
+
+    def note_region(self, seqid: str, start0: int, end0: int) -> None:
+        self.regions.append((seqid, start0 + 1, end0))
+
+    def finish(self) -> str | None:
+        """Write the GFF3 header and lines, and the bigWig files; with standard output,
+        return the GFF3 text instead."""
+        for bw in self.bigwigs:
+            bw.finish()
+        if self._gff is not None:
+            self._gff.finish(self.regions)
+            return None
+        assert self._gff_body is not None
+        return header_text(self.regions) + self._gff_body.getvalue()
+
+    def abandon(self) -> None:
+        if self._gff is not None:
+            self._gff.abandon()
+        for bw in self.bigwigs:
+            bw.abandon()
+
+
+def _scratch_file(scratch: Path | None, name: str) -> Path:
+    if scratch is None:
+        raise UsageError("bigWig tracks need an output folder")
+    return scratch / name
+
+
+def symbol_checker(model: Model, path: str) -> Callable[[str, bytes, int], None] | None:
+    """For a model whose alphabet is not DNA: a check that every character is one of its
+    symbols (either case), naming the record and the 1-based position."""
+    if set(model.alphabet) <= set("ACGT"):
+        return None
+    allowed = set(model.alphabet) | set(model.alphabet.lower()) | set(model.alphabet.upper())
+    ok = np.zeros(256, dtype=np.bool_)
+    for ch in allowed:
+        ok[ord(ch)] = True
+
+    def check(record: str, seq: bytes, offset0: int) -> None:
+        raw = np.frombuffer(seq, dtype=np.uint8)
+        bad = np.flatnonzero(~ok[raw])
+        if bad.size:
+            i = int(bad[0])
+            raise SequenceFormatError(
+                f"position {offset0 + i + 1} has character {chr(raw[i])!r}, expected one of the "
+                f"model's symbols {model.alphabet!r}",
+                path=path,
+                where=f"record '{record}'",
+            )
+
+    return check
