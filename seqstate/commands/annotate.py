@@ -266,7 +266,9 @@ def annotate(
     region: Region | None = None
     region_item: Item | None = None
     if opts.region is not None:
-        region, region_item = _region_item(opts, model, parse_region(opts.region), long_above)
+        region, region_item = _region_item(
+            opts, model, parse_region(opts.region), long_above, skipped
+        )
     stem = opts.stem if opts.stem is not None else input_stem(opts.input, region)
     if not to_stdout:
         names = output_names(stem, groups, want_bedgraph, want_bigwig)
@@ -324,34 +326,67 @@ def annotate(
 
 
 def _region_item(
-    opts: AnnotateOptions, model: Model, region: Region, long_above: int
-) -> tuple[Region, Item | None]:
-    """The region resolved and its bases read through the FASTA index when the file has
-    one (or can be given one); (region, None) when the records must be streamed."""
+    opts: AnnotateOptions,
+    model: Model,
+    region: Region,
+    long_above: int,
+    skipped: list[SkippedRecord],
+) -> tuple[Region, Item]:
+    """The region resolved, and its bases: read through the FASTA index when the file has
+    one (or can be given one), else found by streaming the records (every record is still
+    read and checked; only the region's record is kept)."""
     from seqstate.io import faidx
 
-    lengths = faidx.record_lengths(opts.input)
-    if lengths is None:
-        return region, None
-    region = check_region(region, lengths)
     check = "dna" if set(model.alphabet) <= set("ACGT") else None
-    rec = faidx.region_record(opts.input, region, alphabet_check=check)
-    if rec is None:
-        return region, None
-    seq = rec.seq
-    start0 = region.start0
+    lengths = faidx.record_lengths(opts.input)
+    if lengths is not None:
+        region = check_region(region, lengths)
+        rec = faidx.region_record(opts.input, region, alphabet_check=check)
+        if rec is not None:
+            seq = rec.seq
+            start0 = region.start0
 
-    def read(a: int, b: int) -> bytes:
-        return seq[a - start0 : b - start0]
+            def read(a: int, b: int) -> bytes:
+                return seq[a - start0 : b - start0]
 
+            bases = region.end0 - region.start0
+            length = lengths[region.seqid]
+            return region, Item(
+                rec.id, length, start0, region.end0, read, lambda: None, bases > long_above
+            )
+    seen: dict[str, int] = {}
+    kept = None
+    records = iter_sequences(
+        opts.input,
+        alphabet_check=check,
+        empty_records=opts.empty_records,
+        skipped=skipped,
+        spill_above=long_above,
+    )
+    try:
+        for rec in records:
+            seen[rec.id] = rec.length
+            if rec.id == region.seqid and kept is None:
+                kept = rec
+            else:
+                rec.source.close()
+    except BaseException:
+        if kept is not None:
+            kept.source.close()
+        raise
+    finally:
+        records.close()
+    region = check_region(region, seen)  # no such record / outside it: the usual errors
+    assert kept is not None
+    bases = region.end0 - region.start0
     item = Item(
-        rec.id,
-        lengths[region.seqid],
+        kept.id,
+        kept.length,
         region.start0,
         region.end0,
-        read,
-        lambda: None,
-        region.end0 - region.start0 > long_above,
+        kept.read,
+        kept.source.close,
+        bases > long_above,
     )
     return region, item
 
@@ -359,16 +394,13 @@ def _region_item(
 def _stream_items(
     opts: AnnotateOptions,
     model: Model,
-    region: Region | None,
     skipped: list[SkippedRecord],
     long_above: int,
     scratch: Path | None,
 ) -> Iterator[Item]:
-    """The records of the FASTA, one at a time (only the region's record with
-    ``--region``), as items to annotate."""
+    """The records of the FASTA, one at a time, as items to annotate (a long record's
+    bases spilled into ``scratch`` while it is read)."""
     check = "dna" if set(model.alphabet) <= set("ACGT") else None
-    seen: dict[str, int] = {}
-    found = False
     records = iter_sequences(
         opts.input,
         alphabet_check=check,
@@ -379,21 +411,10 @@ def _stream_items(
     )
     try:
         for rec in records:
-            seen[rec.id] = rec.length
-            if region is not None:
-                if rec.id != region.seqid or found:
-                    rec.source.close()
-                    continue
-                found = True
-                checked = check_region(region, {rec.id: rec.length})
-                s0, e0 = checked.start0, checked.end0
-            else:
-                s0, e0 = 0, rec.length
-            yield Item(rec.id, rec.length, s0, e0, rec.read, rec.source.close, e0 - s0 > long_above)
+            long = rec.length > long_above
+            yield Item(rec.id, rec.length, 0, rec.length, rec.read, rec.source.close, long)
     finally:
         records.close()
-    if region is not None and not found:
-        check_region(region, seen)  # raises: no such record (listing the known ones)
 
 
 def _write(
@@ -411,9 +432,6 @@ def _write(
     to_stdout = opts.out_dir == STDOUT
     groups = runner.groups
     out_dir = None if to_stdout else opts.out_dir  # nothing is staged with -o -
-    region = None
-    if opts.region is not None and region_item is None:
-        region = parse_region(opts.region)
     runner.progress.start(_known_total(opts.input, region_item))
     with OutputSet(out_dir, force=opts.force, inputs=[opts.input]) as outs:
         scratch = None if to_stdout else outs.scratch_dir()
@@ -450,7 +468,7 @@ def _write(
             if region_item is not None:
                 items: Iterator[Item] = iter([region_item])
             else:
-                items = _stream_items(opts, model, region, skipped, long_above, scratch)
+                items = _stream_items(opts, model, skipped, long_above, scratch)
             done = runner.run(items, writer)
             text = writer.finish()
         except BaseException:
