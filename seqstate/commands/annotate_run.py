@@ -49,7 +49,7 @@ __all__ = [
 
 #: Bytes of per-base working arrays one record may use on the whole-record path; longer
 #: records go window by window (and are spilled to scratch while they are read).
-LONG_RECORD_BUDGET = 256 << 20
+LONG_RECORD_BUDGET = 128 << 20
 #: Bytes of posterior values one window of a long record may hold.
 WINDOW_BUDGET = 96 << 20
 #: Bytes of working arrays per base on the whole-record path, beyond the posterior columns
@@ -82,12 +82,13 @@ def resolve_jobs(requested: int | None) -> tuple[int, str | None]:
 
 
 def _columns(model: Model, kind: Kind, groups: list[Group]) -> int:
-    """Posterior columns a record of this model keeps per base (track groups, and the
-    kind's own decoding columns)."""
+    """Posterior columns a record of this model keeps per base: its track groups, plus the
+    decoding classes of a gene model (its posterior decoding keeps both)."""
     extra = 0
-    decoding = getattr(kind, "decoding_columns", None)
-    if decoding is not None:
-        extra = int(decoding(model))
+    if kind.name == "genes":
+        from seqstate.kinds.genes import decoding_classes
+
+        extra = int(decoding_classes(model)[1])
     return len(groups) + extra
 
 
