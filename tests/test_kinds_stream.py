@@ -1,0 +1,275 @@
+"""Windowed record decoding (kinds/stream.py) against the whole-record path.
+
+Every comparison here is against the project's own code: the whole-record path of
+seqstate (``Kind.write_record`` on a :class:`RecordData`, with ``api.posterior``
+values as the tracks).  The windowed path must give the same GFF3 and TSV text and
+the same track values, byte for byte, for both model kinds and both decodings.
+Records are drawn from the models' own chains (tests/helpers.sample_record,
+``seqstate.engine.sampling``); runs of N are written into them to exercise
+``--split-unknown``.  Blocks and windows are made small (a few hundred to a few
+thousand bases) so that a record of 30-120 kb has many windows.
+"""
+
+from __future__ import annotations
+
+import io
+import re
+
+import numpy as np
+import pytest
+
+from seqstate.engine import api, sampling
+from seqstate.errors import ImpossibleSequenceError
+from seqstate.io.gff3 import GFF3Writer
+from seqstate.io.tables import load_model
+from seqstate.kinds import GENES, SEGMENTS, RecordData, group_index, kind_of, track_groups
+from seqstate.kinds import genes as gene_kind
+from seqstate.kinds.stream import StreamRecord, write_stream_record
+from tests.helpers import sample_record
+
+
+class _Tables:
+    """Prepared tables with more frequent label switches, to sample from (only)."""
+
+    def __init__(self, tables, switch: float) -> None:
+        self.__dict__.update(
+            {k: getattr(tables, k) for k in ("start", "E", "offsets", "order", "n_symbols")}
+        )
+        self.n_states = tables.n_states
+        t = np.array(tables.transitions, dtype=np.float64)
+        t = t + switch * (t.sum(axis=1, keepdims=True) / t.shape[0])
+        self.transitions = t
+
+
+def _insert_unknown(seq: bytearray, rng: np.random.Generator, runs: int, n_max: int) -> None:
+    for _ in range(runs):
+        length = int(rng.integers(1, n_max))
+        a = int(rng.integers(0, len(seq) - length))
+        seq[a : a + length] = b"N" * length
+
+
+def _cpg_record(model_name: str, n: int, seed: int, unknown: int = 0) -> tuple:
+    model = load_model(model_name)
+    tables = api.prepare(model)
+    rng = np.random.default_rng(seed)
+    # islands about every 5 kb instead of every 100 kb (sampling only; decoding uses the model)
+    _, sym = sampling.sample_record(_Tables(tables, 2e-4), n, rng)
+    seq = bytearray(np.frombuffer(model.alphabet.encode(), dtype=np.uint8)[sym].tobytes())
+    _insert_unknown(seq, rng, unknown, 40)
+    return model, tables, bytes(seq)
+
+
+def _gene_record(n: int, seed: int, unknown: int = 0) -> tuple:
+    model = load_model("gene-segment")
+    tables = api.prepare(model)
+    rng = np.random.default_rng(seed)
+    text = sample_record(rng, n, model=model, tables=tables)
+    seq = bytearray(text.encode())
+    _insert_unknown(seq, rng, unknown, 40)
+    return model, tables, bytes(seq)
+
+
+def _whole(kind, model, tables, seq, decode, min_posterior, min_length, split, offset0=0):
+    groups = track_groups(model)
+    sg = group_index(model, groups)
+    sym = api.symbols_of(tables, seq)
+    codes = api.encode_symbols(tables, sym)
+    post = api.posterior(tables, codes, group=sg, n_groups=len(groups), record="chrS")
+    data = RecordData(
+        model=model,
+        tables=tables,
+        groups=groups,
+        state_group=sg,
+        seqid="chrS",
+        offset0=offset0,
+        seq=seq,
+        codes=codes,
+        symbols=sym,
+        post=post,
+        decode=decode,
+        min_posterior=min_posterior,
+        min_length=min_length,
+        split_unknown=split,
+    )
+    gff_text, tsv = io.StringIO(), io.StringIO()
+    gff = GFF3Writer(gff_text)
+    count = kind.write_record(data, gff, tsv)
+    tracks = [post.values[:, g].copy() for g in range(len(groups))]
+    return gff_text.getvalue(), tsv.getvalue(), tracks, count, post.loglik, int((sym < 0).sum())
+
+
+def _streamed(kind, model, tables, seq, decode, min_posterior, min_length, split, block, window,
+              offset0=0):
+    groups = track_groups(model)
+    sg = group_index(model, groups)
+    sym = api.symbols_of(tables, seq)
+    codes = api.encode_symbols(tables, sym)
+    n = len(seq)
+    asked = []
+
+    def read_codes(a: int, b: int) -> np.ndarray:
+        assert 0 <= a < b <= n
+        asked.append(b - a)
+        return codes[a:b].copy()
+
+    rec = StreamRecord(
+        model=model,
+        tables=tables,
+        groups=groups,
+        state_group=sg,
+        seqid="chrS",
+        n=n,
+        offset0=offset0,
+        read_bases=lambda a, b: seq[a:b],
+        read_codes=read_codes,
+        read_symbols=lambda a, b: sym[a:b].copy(),
+        decode=decode,
+        min_posterior=min_posterior,
+        min_length=min_length,
+        split_unknown=split,
+        window=window,
+        block=block,
+    )
+    pieces: list[list[tuple[int, np.ndarray]]] = [[] for _ in groups]
+
+    def sink(g: int, start0: int, values: np.ndarray) -> None:
+        pieces[g].append((start0, np.array(values)))
+
+    gff_text, tsv = io.StringIO(), io.StringIO()
+    gff = GFF3Writer(gff_text)
+    count, ll, unknown = write_stream_record(kind, rec, gff, tsv, sink)
+    tracks = []
+    for g in range(len(groups)):
+        pos = offset0
+        for start0, vals in pieces[g]:
+            assert start0 == pos  # pieces in order, without gaps
+            pos += vals.shape[0]
+        assert pos == offset0 + n
+        tracks.append(np.concatenate([v for _, v in pieces[g]]))
+    return gff_text.getvalue(), tsv.getvalue(), tracks, count, ll, unknown
+
+
+def _features(gff_text: str) -> list[tuple[int, int]]:
+    out = []
+    for line in gff_text.splitlines():
+        if line and not line.startswith("#"):
+            cols = line.split("\t")
+            out.append((int(cols[3]) - 1, int(cols[4])))
+    return out
+
+
+def _crossing(feats, n: int, edge: int) -> int:
+    edges = range(edge, n, edge)
+    return sum(1 for s0, e0 in feats if any(s0 < x < e0 for x in edges))
+
+
+def _compare(kind, model, tables, seq, decode, mp, ml, split, block, window, offset0=0):
+    want = _whole(kind, model, tables, seq, decode, mp, ml, split, offset0)
+    got = _streamed(kind, model, tables, seq, decode, mp, ml, split, block, window, offset0)
+    assert got[0] == want[0]  # GFF3 text, byte for byte
+    assert got[1] == want[1]  # feature table
+    for g_want, g_got in zip(want[2], got[2], strict=True):
+        assert g_got.dtype == g_want.dtype and g_got.tobytes() == g_want.tobytes()
+    assert got[3:] == want[3:]  # count, log-likelihood, unknown bases
+    return _features(want[0])
+
+
+# ----------------------------------------------------------------- segments
+@pytest.mark.parametrize("decode", ["posterior", "viterbi"])
+@pytest.mark.parametrize("model_name", ["cpg-island", "cpg-island-8"])
+def test_segments_windowed_equal_whole_record(model_name, decode):
+    model, tables, seq = _cpg_record(model_name, 120_000, seed=11)
+    block, window = 700, 2100
+    feats = _compare(SEGMENTS, model, tables, seq, decode, 0.5, 200, 10, block, window)
+    assert len(feats) >= 5
+    assert _crossing(feats, len(seq), window) >= 2  # features across window edges
+
+
+@pytest.mark.parametrize("decode", ["posterior", "viterbi"])
+@pytest.mark.parametrize("model_name", ["cpg-island", "cpg-island-8"])
+def test_segments_windowed_with_unknown_runs(model_name, decode):
+    model, tables, seq = _cpg_record(model_name, 60_000, seed=5, unknown=60)
+    block, window = 500, 1500
+    for split in (3, 10):
+        feats = _compare(
+            SEGMENTS, model, tables, seq, decode, 0.3, 20, split, block, window, offset0=1234
+        )
+        assert _crossing(feats, len(seq), window) >= 1
+    assert seq.count(b"N") > 500
+
+
+def test_segments_windowed_overlapping_groups():
+    # the segments kind on a multi-group model: runs of different groups overlap at a
+    # low threshold, so the file order (start, end, group) mixes groups across windows
+    model, tables, seq = _gene_record(40_000, seed=3, unknown=20)
+    feats = _compare(SEGMENTS, model, tables, seq, "posterior", 0.2, 1, 5, 300, 900)
+    assert any(b0 < a1 for (a0, b0), (a1, b1) in zip(feats, feats[1:]))  # overlaps exist
+    assert _crossing(feats, len(seq), 900) >= 5
+
+
+def test_segments_window_of_one_block_and_of_the_whole_record():
+    model, tables, seq = _cpg_record("cpg-island", 30_000, seed=2, unknown=10)
+    for block, window in ((400, 1), (400, 400), (30_000, 1 << 22), (997, 5000)):
+        _compare(SEGMENTS, model, tables, seq, "posterior", 0.5, 50, 10, block, window)
+
+
+# ----------------------------------------------------------------- genes
+@pytest.mark.parametrize("decode", ["posterior", "viterbi"])
+def test_genes_windowed_equal_whole_record(decode):
+    model, tables, seq = _gene_record(60_000, seed=7)
+    assert kind_of(model) is GENES
+    block, window = 600, 1800
+    feats = _compare(GENES, model, tables, seq, decode, 0.5, 1, 10, block, window)
+    assert len(feats) >= 20
+    assert _crossing(feats, len(seq), window) >= 2
+
+
+@pytest.mark.parametrize("decode", ["posterior", "viterbi"])
+def test_genes_windowed_with_unknown_runs(decode):
+    model, tables, seq = _gene_record(60_000, seed=8, unknown=40)
+    for split in (2, 10):
+        feats = _compare(GENES, model, tables, seq, decode, 0.5, 1, split, 500, 1500, 777)
+        assert _crossing(feats, len(seq), 1500) >= 1
+
+
+def test_genes_from_runs_equal_genes_from_path():
+    model, tables, seq = _gene_record(50_000, seed=9, unknown=60)
+    sym = api.symbols_of(tables, seq)
+    codes = api.encode_symbols(tables, sym)
+    path, _ = api.viterbi(tables, codes)
+    path = path.astype(np.int64)
+    key = gene_kind.run_key(model)
+    k = key[path]
+    change = np.flatnonzero(k[1:] != k[:-1]) + 1
+    starts = np.concatenate([[0], change]).tolist()
+    ends = np.concatenate([change, [len(path)]]).tolist()
+    runs = [(a, b, int(k[a]), int(path[a]), int(path[b - 1])) for a, b in zip(starts, ends)]
+    unknown = sym < 0
+    for split in (None, 1, 3, 10):
+        want = gene_kind.genes_from_path(path, model, unknown, split)
+        got = gene_kind.genes_from_runs(
+            runs,
+            model,
+            len(path),
+            lambda a, b: unknown[a:b],
+            split,
+            lambda q: int(path[q]),
+        )
+        assert got == want
+        assert len(want) >= 5
+
+
+def test_impossible_record_names_the_record_and_writes_nothing():
+    model = load_model("gene-segment")
+    tables = api.prepare(model)
+    seq = b"ACGT" * 50
+    sym = api.symbols_of(tables, seq)
+    codes = api.encode_symbols(tables, sym)
+    with pytest.raises(ImpossibleSequenceError) as whole:
+        api.posterior(tables, codes, record="chrS")
+    gff_text = io.StringIO()
+    with pytest.raises(ImpossibleSequenceError) as got:
+        _streamed(GENES, model, tables, seq, "posterior", 0.5, 1, 10, 50, 100)
+    assert str(got.value) == str(whole.value)
+    assert re.search("chrS", str(got.value))
+    assert gff_text.getvalue() == ""
