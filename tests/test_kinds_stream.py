@@ -98,8 +98,9 @@ def _whole(kind, model, tables, seq, decode, min_posterior, min_length, split, o
     return gff_text.getvalue(), tsv.getvalue(), tracks, count, post.loglik, int((sym < 0).sum())
 
 
-def _streamed(kind, model, tables, seq, decode, min_posterior, min_length, split, block, window,
-              offset0=0):
+def _streamed(
+    kind, model, tables, seq, decode, min_posterior, min_length, split, block, window, offset0=0
+):
     groups = track_groups(model)
     sg = group_index(model, groups)
     sym = api.symbols_of(tables, seq)
@@ -233,30 +234,40 @@ def test_genes_windowed_with_unknown_runs(decode):
 
 
 def test_genes_from_runs_equal_genes_from_path():
-    model, tables, seq = _gene_record(50_000, seed=9, unknown=60)
-    sym = api.symbols_of(tables, seq)
-    codes = api.encode_symbols(tables, sym)
-    path, _ = api.viterbi(tables, codes)
-    path = path.astype(np.int64)
-    key = gene_kind.run_key(model)
-    k = key[path]
-    change = np.flatnonzero(k[1:] != k[:-1]) + 1
-    starts = np.concatenate([[0], change]).tolist()
-    ends = np.concatenate([change, [len(path)]]).tolist()
-    runs = [(a, b, int(k[a]), int(path[a]), int(path[b - 1])) for a, b in zip(starts, ends)]
+    model = load_model("gene-segment")
+    tables = api.prepare(model)
+    rng = np.random.default_rng(9)
+    text, true_path = sample_record(rng, 150_000, model=model, tables=tables, with_path=True)
+    seq = bytearray(text.encode())
+    _insert_unknown(seq, rng, 300, 30)
+    sym = api.symbols_of(tables, bytes(seq))
     unknown = sym < 0
-    for split in (None, 1, 3, 10):
-        want = gene_kind.genes_from_path(path, model, unknown, split)
-        got = gene_kind.genes_from_runs(
-            runs,
-            model,
-            len(path),
-            lambda a, b: unknown[a:b],
-            split,
-            lambda q: int(path[q]),
-        )
-        assert got == want
-        assert len(want) >= 5
+    key = gene_kind.run_key(model)
+    viterbi_path, _ = api.viterbi(tables, api.encode_symbols(tables, sym))
+    probed = 0
+    for path in (np.asarray(true_path, dtype=np.int64), viterbi_path.astype(np.int64)):
+        k = key[path]
+        change = np.flatnonzero(k[1:] != k[:-1]) + 1
+        starts = np.concatenate([[0], change]).tolist()
+        ends = np.concatenate([change, [len(path)]]).tolist()
+        runs = [(a, b, int(k[a]), int(path[a]), int(path[b - 1])) for a, b in zip(starts, ends)]
+
+        def state_at(q: int, path=path) -> int:
+            nonlocal probed
+            # only asked next to an unknown base (what the windowed path records)
+            assert not unknown[q] and (unknown[max(0, q - 1)] or unknown[min(len(path) - 1, q + 1)])
+            probed += 1
+            return int(path[q])
+
+        for split in (None, 1, 3, 10):
+            want = gene_kind.genes_from_path(path, model, unknown, split)
+            got = gene_kind.genes_from_runs(
+                runs, model, len(path), lambda a, b: unknown[a:b], split, state_at
+            )
+            assert got == want
+            assert len(want) >= 5
+            assert any(g.partial for g in want)
+    assert probed > 0
 
 
 def test_impossible_record_names_the_record_and_writes_nothing():

@@ -44,10 +44,17 @@ def posterior_blocks(
     b = min(ck.n, stop_block * ck.block)
     assert codes.shape[0] == b - a
     assert np.array_equal(codes, ck.all_codes[a:b])
-    p = api.posterior(
-        tables, ck.all_codes, group=group, n_groups=n_groups, block=ck.block, dtype=dtype
-    )
-    return np.ascontiguousarray(p.values[a:b])
+    key = (np.asarray(group).tobytes(), n_groups, np.dtype(dtype).str)
+    cache = _CACHE.get(id(ck))
+    if cache is None or cache[0] is not ck or cache[1] != key:
+        p = api.posterior(
+            tables, ck.all_codes, group=group, n_groups=n_groups, block=ck.block, dtype=dtype
+        )
+        cache = _CACHE[id(ck)] = (ck, key, p.values)
+    return np.ascontiguousarray(cache[2][a:b])
+
+
+_CACHE: dict = {}
 
 
 def view(tables, ck, codes, first_block, stop_block, values):
