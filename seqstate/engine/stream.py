@@ -41,8 +41,10 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import DTypeLike
 
-from seqstate.engine import api
+from seqstate.engine import api, small, sparse
 from seqstate.engine import stream_generic as sg
+from seqstate.engine import stream_small as ss
+from seqstate.engine import stream_sparse as sst
 from seqstate.engine._common import RESCALE_BELOW, default_block
 from seqstate.engine.tables import EngineTables
 from seqstate.errors import ImpossibleSequenceError
@@ -230,13 +232,117 @@ class _Generic:
         )  # fmt: skip
 
 
-def _family(tables: EngineTables, *, span: bool = False):
+class _Small:
+    """The streaming passes of the two-state-per-code family (:mod:`.stream_small`)."""
+
+    def __init__(self, tables: EngineTables, backend) -> None:
+        self.t = tables
+        sm = self.sm = backend.sm
+        self.lim = sm.lim
+        self.steps = (sm.K, sm.st, sm.wide, sm.cls, sm.W, sm.T, sm.E)
+
+    def forward(self, read, n, block, chunk, alpha_ck, alpha_ck_log):
+        sm = self.sm
+        kmax = sm.kmax
+        ua, va = np.zeros(kmax), np.zeros(kmax)
+        fc = np.zeros(3)
+        ic = np.zeros(1, dtype=np.int64)
+        for a, b in _chunks_forward(n, chunk):
+            pos = ss.forward_chunk(
+                read(a, b), a, ua, va, fc, ic, block, alpha_ck, alpha_ck_log, sm.start,
+                *self.steps, self.lim,
+            )  # fmt: skip
+            if pos >= 0:
+                return -np.inf, pos
+        ll, ok = ss.forward_final(ua, fc, ic, sm.K, sm.st, sm.wide, sm.end)
+        return (ll, -1) if ok else (-np.inf, n)
+
+    def backward(self, read, n, block, chunk, beta_ck, beta_ck_log):
+        sm = self.sm
+        kmax = sm.kmax
+        full = np.zeros(self.t.n_states)
+        ba, bb = np.zeros(kmax), np.zeros(kmax)
+        fc = np.zeros(3)
+        ic = np.zeros(1, dtype=np.int64)
+        for a, b in _chunks_backward(n, chunk):
+            pos = ss.backward_chunk(
+                read(a, b), a, b, n, full, ba, bb, fc, ic, block, beta_ck, beta_ck_log,
+                sm.end, *self.steps, self.lim,
+            )  # fmt: skip
+            if pos >= 0:
+                return pos
+        return -1
+
+    def span(self, codes, base, ck, first_block, stop_block, group, n_groups, out):
+        sm = self.sm
+        gc = small.group_table(sm, group)
+        scratch = ss.span_scratch(sm.kmax, min(ck.block, ck.n))
+        return ss.span(
+            codes, base, ck.n, first_block, stop_block, ck.block, *self.steps, gc, out,
+            ck.alpha_ck, ck.beta_ck, *scratch, self.lim,
+        )  # fmt: skip
+
+
+class _Sparse:
+    """The streaming passes of the chain-sparse family (:mod:`.stream_sparse`), in the
+    numbering the whole-record posterior uses for ``group``."""
+
+    def __init__(self, tables: EngineTables, backend, group, n_groups) -> None:
+        self.t = tables
+        self.lim = backend.lim
+        if n_groups <= sparse.MAX_KEYED_GROUPS:
+            self.sp = backend.keyed(group, n_groups)
+            self.key = sparse.group_key(group, n_groups).tobytes()
+        else:
+            self.sp, self.key = backend.sp, b""
+
+    def forward(self, read, n, block, chunk, alpha_ck, alpha_ck_log):
+        sp = self.sp
+        rows = np.zeros((2, sp.n_states + 2))
+        ic = np.zeros(2, dtype=np.int64)
+        for a, b in _chunks_forward(n, chunk):
+            pos = sst.forward_chunk(
+                read(a, b), a, rows, ic, block, alpha_ck, alpha_ck_log, sp.start, sp.E,
+                sp.perm, *sp.fwd, self.lim,
+            )  # fmt: skip
+            if pos >= 0:
+                return -np.inf, pos
+        ll, ok = sst.forward_final(rows, ic, sp.end)
+        return (ll, -1) if ok else (-np.inf, n)
+
+    def backward(self, read, n, block, chunk, beta_ck, beta_ck_log):
+        sp = self.sp
+        rows = np.zeros((2, sp.n_states + 2))
+        ic = np.zeros(2, dtype=np.int64)
+        if not sst.backward_init(rows, ic, sp.end, sp.perm, beta_ck, beta_ck_log, self.lim):
+            return n
+        for a, b in _chunks_backward(n, chunk):
+            pos = sst.backward_chunk(
+                read(a, b), a, b - 1, rows, ic, block, beta_ck, beta_ck_log, sp.perm,
+                *sp.bwd, self.lim,
+            )  # fmt: skip
+            if pos >= 0:
+                return pos
+        return -1
+
+    def span(self, codes, base, ck, first_block, stop_block, group, n_groups, out):
+        sp = self.sp
+        runs = sparse.group_runs(sp, group, n_groups)
+        scratch = sst.span_scratch(sp.n_states, min(ck.block, ck.n), n_groups)
+        return sst.span(
+            codes, base, ck.n, first_block, stop_block, ck.block, sp.perm, *sp.fwd, *sp.bwd,
+            runs, n_groups, out, ck.alpha_ck, ck.beta_ck, *scratch, self.lim,
+        )  # fmt: skip
+
+
+def _family(tables: EngineTables, group: np.ndarray, n_groups: int):
+    """The streaming passes of the family that serves ``tables`` now (``api.backend_of``)."""
     backend = api.backend_of(tables)
-    if backend.name == "generic":
-        return _Generic(tables, backend)
-    # interim: the specialised families' checkpoints come from their whole-record kernels
-    # and their spans from the generic kernels (equal to rounding only)
-    return _Generic(tables, tables.generic) if span else None
+    if backend.name == "small":
+        return _Small(tables, backend)
+    if backend.name == "sparse":
+        return _Sparse(tables, backend, group, n_groups)
+    return _Generic(tables, backend)
 
 
 def _first_failure(tables: EngineTables, read, n: int, chunk: int) -> int:
@@ -289,15 +395,7 @@ def checkpoints(
     block = default_block(n) if block is None else max(1, min(int(block), n))
     nblocks = (n + block - 1) // block
     read = _Reader(codes, n)
-    fam = _family(tables)
-    if fam is None:  # interim: the whole-record kernels of the family
-        post = api.posterior(
-            tables, read(0, n), group=group, n_groups=n_groups, block=block, record=record
-        )
-        return RecordCheckpoints(
-            n, block, post.loglik, post.alpha_ck, post.alpha_ck_log, post.beta_ck,
-            post.beta_ck_log,
-        )  # fmt: skip
+    fam = _family(tables, group, n_groups)
     alpha_ck, alpha_ck_log = np.zeros((nblocks, m)), np.zeros(nblocks)
     beta_ck, beta_ck_log = np.zeros((nblocks, m)), np.zeros(nblocks)
     if threads == 2:
@@ -317,7 +415,8 @@ def checkpoints(
     if bpos >= 0 or fpos >= 0:
         pos = _first_failure(tables, read, n, chunk)
         raise ImpossibleSequenceError(_impossible_message(record, pos, n))
-    return RecordCheckpoints(n, block, float(ll), alpha_ck, alpha_ck_log, beta_ck, beta_ck_log)
+    key = getattr(fam, "key", b"")
+    return RecordCheckpoints(n, block, float(ll), alpha_ck, alpha_ck_log, beta_ck, beta_ck_log, key)
 
 
 def posterior_blocks(
@@ -357,7 +456,7 @@ def posterior_blocks(
         )
     group, n_groups = _check_group(tables.n_states, group, n_groups)
     out = np.zeros((end0 - start0, n_groups), dtype=dtype)
-    fam = _family(tables, span=True)
+    fam = _family(tables, group, n_groups)
     if threads == 2 and stop_block - first_block >= 2:
         mid = (first_block + stop_block) // 2
         with ThreadPoolExecutor(max_workers=1, thread_name_prefix="seqstate-span") as pool:
