@@ -28,6 +28,17 @@ def specialised(monkeypatch):
     monkeypatch.setattr(api, "_USE_SMALL", True)
 
 
+#: Back-pointer budgets: none kept (every block recomputed from its checkpoint), a few
+#: blocks kept (both kinds of traceback and the hand-over between them), all kept.
+BUDGETS = (0, 1500, 1 << 30)
+
+
+@pytest.fixture(params=BUDGETS, ids=["recompute", "mixed", "one-pass"])
+def budget(request, monkeypatch):
+    monkeypatch.setattr(stream_paths, "BACKPOINTER_BUDGET", request.param)
+    return request.param
+
+
 # ----------------------------------------------------------------- models and records
 def _family_model(family: str, seed: int, order: int = 1, with_end: bool = True):
     rng = np.random.default_rng(seed)
@@ -99,7 +110,7 @@ LENGTHS = (1, 2, B - 1, B, B + 1, 7 * B + 3, 23 * B)
 
 @pytest.mark.parametrize("family", ["generic", "small", "sparse"])
 @pytest.mark.parametrize("n", LENGTHS)
-def test_viterbi_pieces_equal_the_whole_record_kernel(family, n):
+def test_viterbi_pieces_equal_the_whole_record_kernel(family, n, budget):
     """Pieces joined = api.viterbi's path, and the same log probability, exactly."""
     t = _tables(family, 11 + n)
     codes = _codes(t, 100 + n, n)
@@ -114,7 +125,7 @@ def test_viterbi_pieces_equal_the_whole_record_kernel(family, n):
 
 @pytest.mark.parametrize("family", ["generic", "small", "sparse"])
 @pytest.mark.parametrize("order", [0, 2])
-def test_viterbi_pieces_any_block_and_default(family, order):
+def test_viterbi_pieces_any_block_and_default(family, order, budget):
     """Blocks 1, 2, 7 and the default; orders 0 and 2 (back-off codes at the start)."""
     t = _tables(family, 40 + order, order=order)
     n = 601
@@ -127,7 +138,7 @@ def test_viterbi_pieces_any_block_and_default(family, order):
 
 
 @pytest.mark.parametrize("family", ["generic", "small", "sparse"])
-def test_viterbi_pieces_read_codes_in_bounded_windows(family):
+def test_viterbi_pieces_read_codes_in_bounded_windows(family, budget):
     """The forward pass reads chunks of at most ``chunk`` codes, each piece at most a block."""
     t = _tables(family, 7)
     n = 5000
@@ -145,7 +156,7 @@ def test_viterbi_pieces_read_codes_in_bounded_windows(family):
     assert np.array_equal(_joined(got, n), want_path)
 
 
-def test_viterbi_pieces_without_end_table():
+def test_viterbi_pieces_without_end_table(budget):
     for family in ("generic", "small", "sparse"):
         t = _tables(family, 5, with_end=False)
         codes = _codes(t, 6, 333)
@@ -169,7 +180,7 @@ def _ties_model():
     )
 
 
-def test_viterbi_pieces_keep_the_tie_rule():
+def test_viterbi_pieces_keep_the_tie_rule(budget):
     t = api.prepare(_ties_model())
     assert kernel_family(t) == "small"
     codes = api.encode(t, b"AACAGTNNACGA" * 9)
@@ -232,14 +243,14 @@ def _ring_model(m: int = 40, with_end: bool = False):
     )
 
 
-def _message(call) -> str:
+def _message(call, *args, **kw) -> str:
     with pytest.raises(ImpossibleSequenceError) as exc:
-        call()
+        call(*args, **kw)
     return str(exc.value)
 
 
 @pytest.mark.parametrize("generic", [False, True])
-def test_impossible_records_raise_as_api_viterbi(generic):
+def test_impossible_records_raise_as_api_viterbi(generic, budget):
     """The same error (class and text) as api.viterbi, at the first impossible base, for a
     base in the first chunk, a later chunk, the very first base, and an unreachable end."""
     alt = api.prepare(_alternating_model())
@@ -260,12 +271,10 @@ def test_impossible_records_raise_as_api_viterbi(generic):
         for t, seq in cases:
             codes = api.encode(t, seq)
             n = codes.shape[0]
-            want = _message(lambda: api.viterbi(t, codes, record="chrZ"))
+            want = _message(api.viterbi, t, codes, record="chrZ")
             for block, chunk in ((4, 10), (1, 3), (1000, 1 << 20)):
                 got = _message(
-                    lambda: viterbi_pieces(
-                        t, n, Reader(codes), block=block, chunk=chunk, record="chrZ"
-                    )
+                    viterbi_pieces, t, n, Reader(codes), block=block, chunk=chunk, record="chrZ"
                 )
                 assert got == want
 
@@ -296,7 +305,7 @@ def test_empty_record_is_refused():
 
 # ----------------------------------------------------------------- built-in models
 @pytest.mark.parametrize("name,family", [("cpg-island", "small"), ("gene-segment", "sparse")])
-def test_builtin_models_on_sampled_records(name, family):
+def test_builtin_models_on_sampled_records(name, family, budget):
     t = api.prepare(load_model(name))
     assert kernel_family(t) == family
     n = 30_011
@@ -408,7 +417,7 @@ def test_runs_of_against_plain_run_length_encoding():
 
 
 @pytest.mark.parametrize("family", ["small", "sparse"])
-def test_runs_of_a_streamed_viterbi_path(family):
+def test_runs_of_a_streamed_viterbi_path(family, budget):
     t = _tables(family, 61)
     n = 3000
     codes = _codes(t, 62, n)

@@ -7,6 +7,13 @@ runs (:func:`runs_of`) without ever holding one state per base for the whole rec
 Coordinates are 0-based half-open ``[start0, end0)``; log probabilities are natural logs.
 Codes and gain rows are read through callables (``codes(a, b)`` returns the emission codes
 of positions ``[a, b)``), so the record itself need not be in memory either.
+
+Memory of :func:`viterbi_pieces`: the checkpoints (one delta row per block, O(N / block * M)
+floats), one chunk of codes, one block of back-pointers, and the back-pointers of the last
+positions of the record up to :data:`BACKPOINTER_BUDGET` bytes (those blocks need no second
+pass: a record whose back-pointers fit is decoded in one pass, as the chain-sparse
+whole-record kernel does).  Paths, log probabilities, tie rules and errors are those of
+:func:`seqstate.engine.api.viterbi` and :func:`seqstate.engine.mea.mea` exactly.
 """
 
 from __future__ import annotations
@@ -16,14 +23,27 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from seqstate.engine import api, mea
+from seqstate.engine import api, mea, stream_viterbi
+from seqstate.engine.buffers import work_buffer
+from seqstate.errors import ImpossibleSequenceError
 
-__all__ = ["CodeReader", "GainReader", "PathPiece", "mea_pieces", "runs_of", "viterbi_pieces"]
+__all__ = [
+    "BACKPOINTER_BUDGET",
+    "CodeReader",
+    "GainReader",
+    "PathPiece",
+    "mea_pieces",
+    "runs_of",
+    "viterbi_pieces",
+]
 
 #: Emission codes of the 0-based positions ``[a, b)`` of the record.
 CodeReader = Callable[[int, int], np.ndarray]
 #: Gain rows (float32/64, K columns) of the 0-based positions ``[a, b)`` of the record.
 GainReader = Callable[[int, int], np.ndarray]
+
+#: Bytes of back-pointers kept from the forward pass for the last blocks of a record.
+BACKPOINTER_BUDGET = 64 << 20
 
 
 @dataclass(frozen=True)
@@ -42,13 +62,171 @@ def _block_of(n: int, block: int | None) -> int:
 
 def _split(path: np.ndarray, block: int) -> Iterator[PathPiece]:
     n = path.shape[0]
-    nblocks = (n + block - 1) // block
-    for bk in range(nblocks - 1, -1, -1):
+    for bk in range((n + block - 1) // block - 1, -1, -1):
         b0 = bk * block
         b1 = min(n, b0 + block)
         yield PathPiece(b0, b1, np.ascontiguousarray(path[b0:b1], dtype=np.int32))
 
 
+def _read(reader: Callable[[int, int], np.ndarray], a: int, b: int, what: str) -> np.ndarray:
+    arr = np.ascontiguousarray(reader(a, b))
+    if arr.shape[0] != b - a:
+        raise ValueError(f"the {what} reader gave {arr.shape[0]} rows for [{a}, {b})")
+    return arr
+
+
+def _impossible(record: str | None, pos: int, n: int) -> ImpossibleSequenceError:
+    """The error of :func:`seqstate.engine.api.viterbi` for a failing position (0-based)."""
+    name = f"record '{record}'" if record else "the record"
+    if pos >= n or pos < 0:
+        msg = "no state that may end the sequence can be reached at its last base"
+    else:
+        msg = (
+            f"has probability zero under the model: every state is impossible at position {pos + 1}"
+        )
+    return ImpossibleSequenceError(f"{name} {msg}" if pos < n else f"{name}: {msg}")
+
+
+# ----------------------------------------------------------------- the kernel families
+class _Generic:
+    """The generic kernels' steps (original state numbers)."""
+
+    def __init__(self, t: api.EngineTables, n: int, block: int) -> None:
+        m = t.n_states
+        self.t = t
+        self.steps = (t.logE, t.nz_ptr, t.nz_state, t.pred_ptr, t.pred_src, t.pred_logp)
+        self.rows = work_buffer((2, m))
+        self.carry = np.zeros(1, dtype=np.int64)
+        self.ck = work_buffer(((n + block - 1) // block, m))
+        self.width, self.bp_dtype = m, np.dtype(np.int32)
+        self.bps = work_buffer((block, m), np.int32)
+
+    def set_tail(self, tail0: int, rows: int) -> None:
+        self.tail0 = tail0
+        self.tail = work_buffer((rows, self.width), self.bp_dtype)
+
+    def forward(self, codes: np.ndarray, i0: int, block: int) -> int:
+        t = self.t
+        args = (self.rows, self.carry, self.ck, self.tail, t.log_start, *self.steps)
+        return stream_viterbi.generic_forward(codes, i0, block, self.tail0, *args)
+
+    def locate(self, fail: int, reader: CodeReader, block: int) -> int:
+        return fail
+
+    def final(self) -> tuple[float, int]:
+        return stream_viterbi.generic_final(self.rows, self.carry, self.t.log_end)
+
+    def block_path(self, codes, bk: int, known: int, nxt: int, out: np.ndarray) -> None:
+        stream_viterbi.generic_block_path(
+            codes, self.ck, bk, known, nxt, self.rows, self.bps, out, *self.steps
+        )
+
+    def tail_path(self, reader, b0: int, b1: int, known: int, out: np.ndarray) -> int:
+        return stream_viterbi.generic_tail_path(b0, b1, self.tail0, self.tail, known, out)
+
+    def native(self, state: int) -> int:
+        return state
+
+
+class _Small(_Generic):
+    """The two-states-per-code steps (compact indices into each position's emitters)."""
+
+    def __init__(self, t: api.EngineTables, n: int, block: int) -> None:
+        sm = t.backend.sm if t.backend.name == "small" else None
+        assert sm is not None
+        self.t, self.sm = t, sm
+        kmax = sm.kmax
+        self.steps = (sm.K, sm.st, sm.wide, sm.cls, sm.LT, sm.LE, sm.logT, sm.logE)
+        self.da, self.va = work_buffer(kmax), work_buffer(kmax)
+        self.bpa = np.zeros(kmax, dtype=np.int8)
+        self.carry = np.zeros(1, dtype=np.int64)
+        self.ck = work_buffer(((n + block - 1) // block, kmax))
+        self.width, self.bp_dtype = kmax, np.dtype(np.int8)
+        self.bps = work_buffer((block, kmax), np.int8)
+
+    def forward(self, codes: np.ndarray, i0: int, block: int) -> int:
+        sm = self.sm
+        args = (self.da, self.va, self.bpa, self.carry, self.ck, self.tail, sm.log_start)
+        return stream_viterbi.small_forward(codes, i0, block, self.tail0, *args, *self.steps)
+
+    def final(self) -> tuple[float, int]:
+        sm = self.sm
+        return stream_viterbi.small_final(self.da, self.carry, sm.K, sm.st, sm.log_end)
+
+    def block_path(self, codes, bk: int, known: int, nxt: int, out: np.ndarray) -> None:
+        work = (self.da, self.va, self.bpa, self.bps, out)
+        stream_viterbi.small_block_path(codes, self.ck, bk, known, nxt, *work, *self.steps)
+
+    def tail_path(self, reader, b0: int, b1: int, known: int, out: np.ndarray) -> int:
+        codes = _read(reader, b0, b1, "codes")
+        return stream_viterbi.small_tail_path(
+            codes, b0, self.tail0, self.tail, known, self.sm.st, out
+        )
+
+
+class _Sparse(_Generic):
+    """The chain-sparse steps (renumbered states, slot rows of M + 2)."""
+
+    def __init__(self, t: api.EngineTables, n: int, block: int) -> None:
+        sp = t.backend.sp
+        self.t, self.sp = t, sp
+        m = sp.n_states
+        self.fix = (sp.la1, sp.logE, sp.f_ptr, sp.f_n0, sp.f_dst, sp.f_src, sp.f_lp)
+        self.fix += (sp.f_rank, sp.f_col)
+        self.tb = (sp.tb_prev, sp.tb_col, sp.p_ptr, sp.p_src)
+        self.rows = work_buffer((2, m + 2))
+        self.carry = np.zeros(1, dtype=np.int64)
+        self.ck = work_buffer(((n + block - 1) // block, m + 2))
+        self.width, self.bp_dtype = sp.n_multi + 1, np.dtype(sp.bp_dtype)
+        self.bps = work_buffer((block, self.width), self.bp_dtype)
+
+    def forward(self, codes: np.ndarray, i0: int, block: int) -> int:
+        sp = self.sp
+        args = (self.rows, self.carry, self.ck, self.tail, sp.log_start, sp.logE, *self.fix[:1])
+        return stream_viterbi.sparse_forward(codes, i0, block, self.tail0, *args, *self.fix[2:])
+
+    def locate(self, fail: int, reader: CodeReader, block: int) -> int:
+        if fail == 0:
+            return 0
+        k = fail // block
+        while k > 0 and not np.any(self.ck[k, 1:-1] > -np.inf):
+            k -= 1
+        codes = _read(reader, k * block, fail + 1, "codes")
+        work = work_buffer((2, self.sp.n_states + 2))
+        pos = stream_viterbi.sparse_locate(codes, k * block, self.ck[k], work, self.bps, *self.fix)
+        return fail if pos < 0 else pos
+
+    def final(self) -> tuple[float, int]:
+        sp = self.sp
+        return stream_viterbi.sparse_final(self.rows, self.carry, sp.inv, sp.log_end)
+
+    def block_path(self, codes, bk: int, known: int, nxt: int, out: np.ndarray) -> None:
+        sp = self.sp
+        stream_viterbi.sparse_block_path(
+            codes, self.ck, bk, known, nxt, self.rows, self.bps, out, sp.perm, *self.fix,
+            *self.tb, sp.p_lp,
+        )  # fmt: skip
+
+    def tail_path(self, reader, b0: int, b1: int, known: int, out: np.ndarray) -> int:
+        sp = self.sp
+        return stream_viterbi.sparse_tail_path(
+            b0, b1, self.tail0, self.tail, known, out, sp.perm, *self.tb
+        )
+
+    def native(self, state: int) -> int:
+        return int(self.sp.inv[state])
+
+
+def _family(tables: api.EngineTables, n: int, block: int) -> _Generic:
+    name = api.backend_of(tables).name
+    if name == "small":
+        return _Small(tables, n, block)
+    if name == "sparse":
+        return _Sparse(tables, n, block)
+    return _Generic(tables, n, block)  # any other family: the generic steps, same paths
+
+
+# ----------------------------------------------------------------- Viterbi
 def viterbi_pieces(
     tables: api.EngineTables,
     n: int,
@@ -65,9 +243,43 @@ def viterbi_pieces(
     Raises ImpossibleSequenceError as api.viterbi does."""
     if n <= 0:
         raise ValueError("empty record")
+    if chunk < 1:
+        raise ValueError(f"chunk must be a positive number of positions, got {chunk}")
     block = _block_of(n, block)
-    path, lp = api.viterbi(tables, np.ascontiguousarray(codes(0, n)), record=record)
-    return lp, _split(path, block)
+    nblocks = (n + block - 1) // block
+    fam = _family(tables, n, block)
+    per_block = block * fam.width * fam.bp_dtype.itemsize
+    kept = min(nblocks, BACKPOINTER_BUDGET // max(per_block, 1))
+    tail0 = (nblocks - kept) * block
+    fam.set_tail(tail0, max(0, n - tail0) + 1)
+    a = 0
+    while a < n:
+        b = min(n, a + chunk)
+        fail = fam.forward(_read(codes, a, b, "codes"), a, block)
+        if fail >= 0:
+            raise _impossible(record, fam.locate(fail, codes, block), n)
+        a = b
+    lp, last = fam.final()
+    if last < 0:
+        raise _impossible(record, n, n)
+    return float(lp), _viterbi_traceback(fam, n, block, tail0, codes, int(last))
+
+
+def _viterbi_traceback(
+    fam: _Generic, n: int, block: int, tail0: int, codes: CodeReader, last: int
+) -> Iterator[PathPiece]:
+    known, nxt = last, -1
+    for bk in range((n + block - 1) // block - 1, -1, -1):
+        b0 = bk * block
+        b1 = min(n, b0 + block)
+        out = work_buffer(b1 - b0, np.int32)
+        if b0 >= tail0:
+            known = int(fam.tail_path(codes, b0, b1, known, out))
+        else:
+            fam.block_path(_read(codes, b0, b1, "codes"), bk, known, nxt, out)
+            known = -1
+        nxt = fam.native(int(out[0]))
+        yield PathPiece(b0, b1, out)
 
 
 def mea_pieces(
