@@ -91,6 +91,20 @@ def _joined(pieces, n: int) -> np.ndarray:
     return np.concatenate([p.states for p in reversed(got)]) if got else np.zeros(0, np.int32)
 
 
+def _old_mea(t, codes, gain, cls, block=None):
+    """The first whole-record MEA kernel of seqstate (mea.mea_path), called as mea.mea did."""
+    n = codes.shape[0]
+    block = api.default_block(n) if block is None else block
+    ptr, src = mea.predecessors(t.transitions)
+    path = np.zeros(n, dtype=np.int32)
+    _, failed = mea.mea_path(
+        codes, np.ascontiguousarray(gain), np.asarray(cls, dtype=np.int64), t.E,
+        np.asarray(t.start) > 0, np.asarray(t.end) > 0, ptr, src, block, path,
+    )  # fmt: skip
+    assert failed == -1
+    return path
+
+
 def _rle(path: np.ndarray, key: np.ndarray) -> list[tuple[int, int, int, int, int]]:
     """Plain run-length encoding of key[path] (the oracle of runs_of)."""
     k = key[path]
@@ -326,21 +340,42 @@ def _gain(t, codes, seed, k):
     return cls, post.values
 
 
+@pytest.fixture(params=BUDGETS, ids=["recompute", "mixed", "one-pass"])
+def mea_budget(request, monkeypatch):
+    monkeypatch.setattr(mea, "BACKPOINTER_BUDGET", request.param)
+    return request.param
+
+
 @pytest.mark.parametrize("family", ["generic", "small", "sparse"])
 @pytest.mark.parametrize("n", LENGTHS)
-def test_mea_pieces_equal_the_whole_record_kernel(family, n):
+def test_mea_pieces_equal_the_whole_record_kernel(family, n, mea_budget):
+    """Pieces joined = the first whole-record MEA kernel of seqstate (mea.mea_path) = mea.mea."""
     t = _tables(family, 21 + n)
     codes = _codes(t, 200 + n, n)
     cls, gain = _gain(t, codes, n, 3)
-    want = mea.mea(t, codes, gain, cls)
+    want = _old_mea(t, codes, gain, cls)
+    assert np.array_equal(mea.mea(t, codes, gain, cls), want)
     for block in (B, 5, None):
         greader = Reader(gain)
         got = _joined(mea_pieces(t, n, Reader(codes), greader, cls, block=block), n)
         assert np.array_equal(got, want)
 
 
-def test_mea_pieces_ties_and_float64_gain():
-    """Integer-valued gains tie often: ties must go as in mea.mea (lowest index)."""
+@pytest.mark.parametrize("family", ["generic", "small", "sparse"])
+def test_mea_kernels_equal_the_numpy_reference(family):
+    """The streaming kernels against mea.mea_reference (plain NumPy, full tables)."""
+    t = _tables(family, 77)
+    n = 300
+    codes = _codes(t, 78, n)
+    cls, gain = _gain(t, codes, 79, 4)
+    ref, _ = mea.mea_reference(codes, gain, cls, t.E, t.transitions, t.start, t.end)
+    assert np.array_equal(_old_mea(t, codes, gain, cls), ref)
+    got = _joined(mea_pieces(t, n, Reader(codes), Reader(gain), cls, block=13), n)
+    assert np.array_equal(got, ref)
+
+
+def test_mea_pieces_ties_and_float64_gain(mea_budget):
+    """Integer-valued gains tie often: ties must go as in the whole-record kernel."""
     t = _tables("sparse", 3)
     n = 2000
     codes = _codes(t, 4, n)
@@ -351,25 +386,31 @@ def test_mea_pieces_ties_and_float64_gain():
         rng.integers(0, 2, size=(n, 4)).astype(np.float64),
         rng.integers(0, 3, size=(n, 4)).astype(np.float32),
     ):
-        want = mea.mea(t, codes, gain, cls)
+        want = _old_mea(t, codes, gain, cls)
+        if n <= 2000:
+            ref, _ = mea.mea_reference(codes, gain, cls, t.E, t.transitions, t.start, t.end)
+            assert np.array_equal(ref, want)
         for block in (1, 37, 500):
             got = _joined(mea_pieces(t, n, Reader(codes), Reader(gain), cls, block=block), n)
             assert np.array_equal(got, want)
 
 
-def test_mea_pieces_read_gain_in_bounded_windows():
+def test_mea_pieces_read_gain_in_bounded_windows(monkeypatch):
+    monkeypatch.setattr(mea, "WINDOW", 1000)
     t = _tables("sparse", 9)
     n = 12_000
     codes = _codes(t, 10, n)
     cls, gain = _gain(t, codes, 11, 5)
-    want = mea.mea(t, codes, gain, cls)
+    want = _old_mea(t, codes, gain, cls)
     creader, greader = Reader(codes), Reader(gain)
-    got = _joined(mea_pieces(t, n, creader, greader, cls, block=100), n)
+    pieces = mea_pieces(t, n, creader, greader, cls, block=100)
+    assert greader.longest <= 1000 and creader.longest <= 1000
+    got = _joined(pieces, n)
     assert np.array_equal(got, want)
-    assert greader.longest <= 4096 and creader.longest <= 4096
+    assert greader.longest <= 1000 and creader.longest <= 1000
 
 
-def test_mea_pieces_gene_segment():
+def test_mea_pieces_gene_segment(mea_budget):
     """The gene model's posterior decoding (kinds.genes decoding classes) on a sampled record."""
     from seqstate.kinds.genes import decoding_classes
 
@@ -379,22 +420,38 @@ def test_mea_pieces_gene_segment():
     codes = _codes(t, 31, n, p_unknown=0.001)
     cls, n_cls = decoding_classes(model)
     gain = api.posterior(t, codes, group=cls, n_groups=n_cls).values
-    want = mea.mea(t, codes, gain, cls)
+    want = _old_mea(t, codes, gain, cls)
+    assert np.array_equal(mea.mea(t, codes, gain, cls), want)
     got = _joined(mea_pieces(t, n, Reader(codes), Reader(gain), cls, block=777), n)
     assert np.array_equal(got, want)
 
 
 def test_mea_pieces_impossible_record():
-    """No allowed path: the same error as mea.mea (ValueError naming the position)."""
+    """No allowed path: the same error as the whole-record kernel (ValueError, position)."""
     t = api.prepare(_alternating_model())
-    codes = api.encode(t, b"ACAAC")
-    gain = np.ones((5, 2))
     cls = np.array([0, 1])
-    with pytest.raises(ValueError) as want:
-        mea.mea(t, codes, gain, cls)
-    with pytest.raises(ValueError) as got:
-        list(mea_pieces(t, 5, Reader(codes), Reader(gain), cls, block=2))
-    assert str(got.value) == str(want.value)
+    for seq, pos in ((b"ACAAC", 4), (b"CA", 1), (b"ACACACACACAAC", 12)):
+        codes = api.encode(t, seq)
+        n = codes.shape[0]
+        gain = np.ones((n, 2))
+        ptr, src = mea.predecessors(t.transitions)
+        path = np.zeros(n, dtype=np.int32)
+        _, failed = mea.mea_path(codes, gain, cls, t.E, t.start > 0, t.end > 0, ptr, src, 4, path)
+        assert failed == pos - 1
+        with pytest.raises(ValueError, match=f"reaches position {pos}$"):
+            mea.mea(t, codes, gain, cls)
+        with pytest.raises(ValueError, match=f"reaches position {pos}$"):
+            mea_pieces(t, n, Reader(codes), Reader(gain), cls, block=2)
+    # an end no state may take
+    ring = api.prepare(_ring_model(with_end=True))
+    seq = "".join(ALPHABET[s % 4] for s in range(100))
+    codes = api.encode(ring, seq)
+    gain = np.ones((100, 1))
+    cls = np.zeros(ring.n_states, dtype=np.int64)
+    with pytest.raises(ValueError, match="reaches position 100$"):
+        mea_pieces(ring, 100, Reader(codes), Reader(gain), cls, block=7)
+    with pytest.raises(ValueError, match="reaches position 100$"):
+        mea.mea(ring, codes, gain, cls)
 
 
 # ----------------------------------------------------------------- runs

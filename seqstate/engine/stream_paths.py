@@ -60,14 +60,6 @@ def _block_of(n: int, block: int | None) -> int:
     return api.default_block(n) if block is None else max(1, min(int(block), n))
 
 
-def _split(path: np.ndarray, block: int) -> Iterator[PathPiece]:
-    n = path.shape[0]
-    for bk in range((n + block - 1) // block - 1, -1, -1):
-        b0 = bk * block
-        b1 = min(n, b0 + block)
-        yield PathPiece(b0, b1, np.ascontiguousarray(path[b0:b1], dtype=np.int32))
-
-
 def _read(reader: Callable[[int, int], np.ndarray], a: int, b: int, what: str) -> np.ndarray:
     arr = np.ascontiguousarray(reader(a, b))
     if arr.shape[0] != b - a:
@@ -295,11 +287,8 @@ def mea_pieces(
     gain rows in order (in windows), keeps the score vector every `block` positions; each piece
     recomputes its block from the checkpoint, reading that block's gain again through `gain`.
     Equal to mea.mea's path exactly (same ties)."""
-    if n <= 0:
-        raise ValueError("empty record")
-    block = _block_of(n, block)
-    path = mea.mea(tables, np.ascontiguousarray(codes(0, n)), gain(0, n), state_class)
-    return _split(path, block)
+    blocks = mea.path_blocks(tables, n, codes, gain, state_class, block=block)
+    return (PathPiece(b0, b1, states) for b0, b1, states in blocks)
 
 
 def runs_of(pieces: Iterable[PathPiece], key: np.ndarray) -> list[tuple[int, int, int, int, int]]:
