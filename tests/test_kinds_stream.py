@@ -23,6 +23,7 @@ from seqstate.io.gff3 import GFF3Writer
 from seqstate.io.tables import load_model
 from seqstate.kinds import GENES, SEGMENTS, RecordData, group_index, kind_of, track_groups
 from seqstate.kinds import genes as gene_kind
+from seqstate.kinds import stream as stream_kind
 from seqstate.kinds.stream import StreamRecord, write_stream_record
 from seqstate.model import State, make_model
 from tests.helpers import sample_record
@@ -313,3 +314,55 @@ def test_impossible_record_names_the_record_and_writes_nothing(decode):
     # the same model on a possible record: streamed equals whole
     feats = _compare(SEGMENTS, model, tables, b"AC" * 2000, decode, 0.5, 1, 10, 50, 100)
     assert len(feats) == 2000
+
+
+def test_genes_mea_traceback_reads_gain_windows(monkeypatch):
+    # the MEA pass reading gain in short chunks and tracing back through every block
+    # (no kept back-pointers): the gain reader serves both directions; same output
+    from seqstate.engine import mea
+
+    monkeypatch.setattr(mea, "WINDOW", 1000)
+    monkeypatch.setattr(mea, "BACKPOINTER_BUDGET", 0)
+    monkeypatch.setattr(gene_kind, "GAIN_WINDOW", 1500)
+    model, tables, seq = _gene_record(30_000, seed=12, unknown=10)
+    feats = _compare(GENES, model, tables, seq, "posterior", 0.5, 1, 10, 400, 2000)
+    assert len(feats) >= 8
+
+
+def test_gain_reader_serves_rows_in_both_directions():
+    model, tables, seq = _gene_record(20_000, seed=4)
+    codes = api.encode(tables, seq)
+    cls, k = gene_kind.decoding_classes(model)
+    whole = api.posterior(tables, codes, group=cls, n_groups=k, block=300).values
+    rec = StreamRecord(
+        model=model,
+        tables=tables,
+        groups=track_groups(model),
+        state_group=group_index(model, track_groups(model)),
+        seqid="chrS",
+        n=len(seq),
+        offset0=0,
+        read_bases=lambda a, b: seq[a:b],
+        read_codes=lambda a, b: codes[a:b],
+        read_symbols=lambda a, b: api.symbols_of(tables, seq[a:b]),
+        decode="posterior",
+        min_posterior=0.5,
+        min_length=1,
+        split_unknown=10,
+        window=1200,
+        block=300,
+    )
+    rp = stream_kind.RecordPass(rec)
+    reader = gene_kind._GainReader(rp, cls, k)
+    computed = []
+    real = rp.values
+    rp.values = lambda *args: computed.append(args[:2]) or real(*args)
+    n = len(seq)
+    forward = [(a, min(n, a + 700)) for a in range(0, n, 700)]
+    backward = [(b0, min(n, b0 + 300)) for b0 in range((n - 1) // 300 * 300, -1, -300)]
+    for a, b in forward + backward:
+        got = reader(a, b)
+        assert got.tobytes() == whole[a:b].tobytes()
+    blocks = sum(stop - first for first, stop in computed)
+    nblocks = (n + 299) // 300
+    assert blocks <= 2 * nblocks + 2 * len(forward)  # each direction about once

@@ -578,27 +578,38 @@ def decode_genes(
     return genes_from_path(path, model, unknown, split_unknown)
 
 
+#: Longest stretch of class posterior the MEA gain reader holds at once (bases).
+GAIN_WINDOW = 1 << 20
+
+
 class _GainReader:
     """Posterior of the decoding classes for the MEA pass, a window at a time.
 
-    Rows asked for are served from the last window computed (window-aligned, so a
-    pass in order and a traceback block by block from the end each compute every
-    window once); float32 as ``api.posterior`` gives them to the whole-record path.
+    Rows asked for are served from the last window computed.  A miss after (or
+    across the end of) that window computes the window starting at the block of the
+    first row asked for; a miss before it computes the window ending at the block of
+    the last row asked for -- so the forward pass in order and the traceback block
+    by block from the end each compute every block about once.  float32, as
+    ``api.posterior`` gives them to the whole-record path.
     """
 
     def __init__(self, rp: RecordPass, state_class: np.ndarray, n_classes: int) -> None:
         self.rp, self.cls, self.k = rp, np.asarray(state_class, dtype=np.int64), n_classes
+        self.blocks = max(1, min(rp.window_blocks, GAIN_WINDOW // rp.block))
         self.lo = self.hi = 0
         self.values = np.zeros((0, n_classes), dtype=np.float32)
 
     def __call__(self, a: int, b: int) -> np.ndarray:
         if not (self.lo <= a and b <= self.hi):
             rp, blk = self.rp, self.rp.block
-            first = (a // blk) // rp.window_blocks * rp.window_blocks
-            stop = max((b + blk - 1) // blk, min(rp.nblocks, first + rp.window_blocks))
+            first, stop = a // blk, (b + blk - 1) // blk
+            if b <= self.lo:
+                first = min(first, max(0, stop - self.blocks))
+            else:
+                stop = max(stop, min(rp.nblocks, first + self.blocks))
             self.values = np.zeros((0, self.k), dtype=np.float32)  # free the old window first
-            win = rp.span(first * blk, min(rp.n, stop * blk), self.cls, self.k)
-            self.lo, self.hi, self.values = win.values0, win.end0, win.values
+            self.lo, self.hi = first * blk, min(rp.n, stop * blk)
+            self.values = rp.values(first, stop, self.cls, self.k)
         return self.values[a - self.lo : b - self.lo]
 
 

@@ -165,6 +165,22 @@ class RecordPass:
         view = engine_stream.view(self.tables, self.ck, codes, vb, stop, None)
         return Window(values0, end0, origin0, values0, codes, values, view)
 
+    def values(self, first: int, stop: int, group: np.ndarray, n_groups: int) -> np.ndarray:
+        """Posterior values of blocks ``[first, stop)`` (rows: positions
+        ``[first * block, min(n, stop * block))``; columns as ``group`` says), no view."""
+        blk = self.block
+        codes = np.ascontiguousarray(self.rec.read_codes(first * blk, min(self.n, stop * blk)))
+        return engine_stream.posterior_blocks(
+            self.tables,
+            self.ck,
+            codes,
+            first,
+            stop,
+            np.asarray(group, dtype=np.int64),
+            n_groups,
+            threads=self.rec.threads,
+        )
+
     def windows(self, group: np.ndarray, n_groups: int) -> Iterator[Window]:
         """Windows of ``window_blocks`` blocks over the record, in order (``group`` as in
         ``api.posterior``: state -> column, -1 to drop), each with one margin block."""
