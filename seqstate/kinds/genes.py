@@ -232,7 +232,7 @@ def _gene_of_runs(
     # whether an unknown run reaching into the gene is at least ``thr`` long
     u0, u1 = max(0, s0 - thr), min(n, e0 + thr)
     unk = np.asarray(read_unknown(u0, u1), dtype=bool)
-    gaps = [(a + u0, b + u0) for a, b in unknown_runs(unk, split_unknown)] if thr else []
+    gaps = [(a + u0, b + u0) for a, b in unknown_runs(unk, thr)] if thr else []
     c = np.zeros(e0 - s0, dtype=bool)
     for a, b, key, _, _ in runs:
         if key % 2 == 0:
