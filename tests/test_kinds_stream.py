@@ -381,3 +381,26 @@ def test_gain_reader_serves_rows_in_both_directions():
     blocks = sum(stop - first for first, stop in computed)
     nblocks = (n + 299) // 300
     assert blocks <= 2 * nblocks + 2 * len(forward)  # each direction about once
+
+
+@pytest.mark.parametrize("decode", ["posterior", "viterbi"])
+def test_short_records_and_block_edges(decode):
+    model, tables, seq = _cpg_record("cpg-island", 3000, seed=31, unknown=3)
+    for n in (1, 2, 99, 100, 101, 250, 3000):
+        for mp in (0.0, 0.5):  # 0.0: one feature over the whole record, across every window
+            _compare(SEGMENTS, model, tables, seq[:n], decode, mp, 1, 10, 100, 200)
+    gmodel, gtables, gseq = _gene_record(3000, seed=32)
+    for n in (1, 99, 100, 101, 3000):
+        _compare(GENES, gmodel, gtables, gseq[:n], decode, 0.5, 1, 10, 100, 200)
+
+
+def test_kind_without_a_windowed_decoder_uses_the_whole_record_path():
+    from seqstate.kinds.base import Kind
+    from seqstate.kinds.segments import SegmentKind
+
+    class Plain(SegmentKind):
+        write_stream = Kind.write_stream
+
+    model, tables, seq = _cpg_record("cpg-island", 20_000, seed=33, unknown=5)
+    feats = _compare(Plain(), model, tables, seq, "posterior", 0.5, 50, 10, 500, 1000, 99)
+    assert len(feats) >= 1
