@@ -12,19 +12,42 @@ Memory: the score vector is checkpointed every ``block`` positions and each bloc
 is recomputed once during the traceback, so memory is O(M * (N / block + block)).
 Ties go to the lowest predecessor index at every step and to the lowest state
 index at the end, as in Viterbi.  Arrays in, arrays out; nothing here prints.
+
+Two implementations of the same path:
+
+* :func:`mea_path` -- the first whole-record kernel (every state's predecessors visited
+  at every position, one back-pointer per state); kept as the compiled twin of the
+  streaming kernels in tests, with :func:`mea_reference` (plain NumPy) as their oracle;
+* the streaming kernels (:func:`stream_forward`, :func:`stream_block_path`,
+  :func:`stream_tail_path`) driven by :func:`path_blocks`: codes and gain rows are read
+  through callables in windows, the score row is checkpointed every ``block`` positions,
+  and the path comes out block by block from the end.  A state with one predecessor needs
+  no search and no back-pointer; the others store the rank of the winner in their
+  predecessor list (one byte), so the back-pointers of the last positions of a record can
+  be kept from the forward pass (up to a budget) and those blocks need no second pass.
+  :func:`mea` runs them over a record held in memory.
 """
 
 from __future__ import annotations
 
 import math
+from collections.abc import Callable, Iterator
 
 import numba as nb
 import numpy as np
+from numba import uintp
+
+from seqstate.engine._common import JIT as _JIT
+from seqstate.engine.buffers import work_buffer
 
 NEG = -math.inf
+#: Positions of codes and gain rows read at a time by the forward pass of :func:`path_blocks`.
+WINDOW = 1 << 16
+#: Bytes of back-pointers kept from the forward pass for the last blocks of a record.
+BACKPOINTER_BUDGET = 64 << 20
 
 
-@nb.njit(cache=True)
+@nb.njit(**_JIT)
 def _step(prev, cur, bp, t, codes, gain, cls, E, p_ptr, p_src, m):
     c = codes[t]
     any_ok = False
@@ -47,7 +70,7 @@ def _step(prev, cur, bp, t, codes, gain, cls, E, p_ptr, p_src, m):
     return any_ok
 
 
-@nb.njit(cache=True)
+@nb.njit(**_JIT)
 def _first(cur, codes, gain, cls, E, start_ok, m):
     c = codes[0]
     any_ok = False
@@ -60,7 +83,7 @@ def _first(cur, codes, gain, cls, E, start_ok, m):
     return any_ok
 
 
-@nb.njit(cache=True)
+@nb.njit(**_JIT)
 def mea_path(codes, gain, cls, E, start_ok, end_ok, p_ptr, p_src, block, path):
     """Fill ``path`` (length N) with the best path; return (total gain, failed position).
 
@@ -111,6 +134,160 @@ def mea_path(codes, gain, cls, E, start_ok, end_ok, p_ptr, p_src, block, path):
     return best, -1
 
 
+# ----------------------------------------------------------------- streaming kernels
+@nb.njit(**_JIT)
+def _mea_step(X, xr, Y, yr, B, br, c, g, cls, emit, p_ptr, p_src, col):
+    """One step X[xr] -> Y[yr] with gain row ``g``; winners' ranks of multi-predecessor states
+    into B[br, col[j]].  The operations and tie rule of :func:`_step`: the best predecessor
+    (strictly greater replaces, so the lowest index wins), then the gain of the state's class.
+    Returns True when some state is reachable."""
+    m = Y.shape[1]
+    c = uintp(c)
+    any_ok = False
+    for j in range(m):
+        if emit[c, j]:
+            lo = uintp(p_ptr[j])
+            hi = uintp(p_ptr[j + 1])
+            if hi - lo == 1:
+                v = X[xr, uintp(p_src[lo])]
+                if v > NEG:
+                    Y[yr, j] = v + g[uintp(cls[j])]
+                    any_ok = True
+                else:
+                    Y[yr, j] = NEG
+            else:
+                best = NEG
+                arg = -1
+                for q in range(lo, hi):
+                    v = X[xr, uintp(p_src[q])]
+                    if v > best:
+                        best = v
+                        arg = q - lo
+                if arg >= 0:
+                    Y[yr, j] = best + g[uintp(cls[j])]
+                    B[br, uintp(col[j])] = arg
+                    any_ok = True
+                else:
+                    Y[yr, j] = NEG
+        else:
+            Y[yr, j] = NEG
+    return any_ok
+
+
+@nb.njit(**_JIT)
+def _pred(state, B, br, p_ptr, p_src, col):
+    """The predecessor of ``state`` recorded in B[br] (one-predecessor states: their only one)."""
+    lo = p_ptr[state]
+    if p_ptr[state + 1] - lo == 1:
+        return p_src[lo]
+    return p_src[lo + B[br, col[state]]]
+
+
+@nb.njit(**_JIT)
+def stream_forward(
+    codes, gain, i0, block, tail0, rows, carry, ck, tail, cls, emit, start_ok, p_ptr, p_src, col
+):
+    """Forward over positions ``[i0, i0 + len(codes))`` (``gain`` their rows); ``rows`` (2, M)
+    holds the score row of ``i0 - 1`` in row ``carry[0]`` (updated on return).  The row at
+    every block start goes to ``ck``; from ``tail0`` on the ranks go to ``tail`` row
+    ``i - tail0 + 1`` (row 0 takes the earlier writes).  Returns -1 or the first position
+    no allowed path reaches."""
+    n1 = codes.shape[0]
+    m = rows.shape[1]
+    src = carry[0]
+    j0 = 0
+    if i0 == 0:
+        c = uintp(codes[0])
+        any_ok = False
+        for j in range(m):
+            if start_ok[j] and emit[c, j]:
+                rows[0, j] = gain[0, cls[j]]
+                any_ok = True
+            else:
+                rows[0, j] = NEG
+        if not any_ok:
+            return 0
+        for j in range(m):
+            ck[0, j] = rows[0, j]
+        src = 0
+        j0 = 1
+    first = i0 if i0 > 1 else 1
+    ckpos = ((first + block - 1) // block) * block
+    for r in range(j0, n1):
+        i = i0 + r
+        dst = 1 - src
+        br = i - tail0 + 1 if i >= tail0 else 0
+        if not _mea_step(rows, src, rows, dst, tail, br, codes[r], gain[r], cls, emit, p_ptr,
+                         p_src, col):  # fmt: skip
+            return i
+        src = dst
+        if i == ckpos:
+            bk = i // block
+            for j in range(m):
+                ck[bk, j] = rows[dst, j]
+            ckpos += block
+    carry[0] = src
+    return -1
+
+
+@nb.njit(**_JIT)
+def stream_final(rows, carry, end_ok):
+    """(total gain, best final state or -1): the lowest index among equal totals."""
+    src = carry[0]
+    best = NEG
+    last = -1
+    for j in range(rows.shape[1]):
+        if end_ok[j] and rows[src, j] > best:
+            best = rows[src, j]
+            last = j
+    return best, last
+
+
+@nb.njit(**_JIT)
+def stream_block_path(
+    codes, gain, ck, bk, known, nxt, rows, bps, out, cls, emit, p_ptr, p_src, col
+):
+    """Block ``bk`` (``codes``/``gain`` its positions) recomputed from ``ck[bk]`` and traced
+    into ``out``: the state at its last position is ``known`` (>= 0) or the best predecessor
+    of ``nxt``, the state at the position after the block."""
+    n1 = codes.shape[0]
+    m = rows.shape[1]
+    for j in range(m):
+        rows[0, j] = ck[bk, j]
+    src = 0
+    for r in range(1, n1):
+        dst = 1 - src
+        _mea_step(rows, src, rows, dst, bps, r, codes[r], gain[r], cls, emit, p_ptr, p_src, col)
+        src = dst
+    state = known
+    if state < 0:
+        lo = p_ptr[nxt]
+        state = p_src[lo]
+        best = NEG
+        for q in range(lo, p_ptr[nxt + 1]):
+            v = rows[src, p_src[q]]
+            if v > best:
+                best = v
+                state = p_src[q]
+    out[n1 - 1] = state
+    for r in range(n1 - 1, 0, -1):
+        state = _pred(state, bps, r, p_ptr, p_src, col)
+        out[r - 1] = state
+
+
+@nb.njit(**_JIT)
+def stream_tail_path(b0, b1, tail0, tail, known, out, p_ptr, p_src, col):
+    """Trace ``[b0, b1)`` through the kept ranks; returns the state at ``b0 - 1`` (-1 at 0)."""
+    state = known
+    out[b1 - b0 - 1] = state
+    for i in range(b1 - 1, b0, -1):
+        state = _pred(state, tail, i - tail0 + 1, p_ptr, p_src, col)
+        out[i - 1 - b0] = state
+    if b0 == 0:
+        return -1
+    return _pred(state, tail, b0 - tail0 + 1, p_ptr, p_src, col)
+
+
 def predecessors(transitions: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """CSR predecessor lists of the allowed moves (sources in increasing index)."""
     allowed = np.asarray(transitions) > 0
@@ -140,26 +317,173 @@ def mea(
     Raises ValueError when no allowed path exists (the posterior run fails first on
     such a record).
     """
-    from seqstate.engine.api import default_block
-
     n = codes.shape[0]
     if n == 0:
         raise ValueError("empty record")
-    block = default_block(n) if block is None else max(1, min(int(block), n))
-    ptr, src = predecessors(tables.transitions)
     path = np.zeros(n, dtype=np.int32)
-    _, failed = mea_path(
-        np.ascontiguousarray(codes),
-        np.ascontiguousarray(gain),
-        np.ascontiguousarray(state_class, dtype=np.int64),
-        tables.E,
-        np.asarray(tables.start) > 0,
-        np.asarray(tables.end) > 0,
-        ptr,
-        src,
-        block,
-        path,
-    )
-    if failed >= 0:
-        raise ValueError(f"no allowed path reaches position {failed + 1}")
+    for b0, b1, states in path_blocks(
+        tables, n, lambda a, b: codes[a:b], lambda a, b: gain[a:b], state_class, block=block
+    ):
+        path[b0:b1] = states
     return path
+
+
+def mea_reference(
+    codes: np.ndarray,
+    gain: np.ndarray,
+    state_class: np.ndarray,
+    E: np.ndarray,
+    transitions: np.ndarray,
+    start: np.ndarray,
+    end: np.ndarray,
+) -> tuple[np.ndarray, float]:
+    """Plain-NumPy twin of the kernels (full N x M tables; small inputs only): (path, gain).
+
+    Same rule: start > 0, allowed moves, E > 0 at every position, end > 0; the lowest
+    predecessor index wins ties (``argmax`` takes the first maximum), and the lowest final
+    state.  Raises ValueError as :func:`mea` does.
+    """
+    n = codes.shape[0]
+    m = state_class.shape[0]
+    allowed = np.asarray(transitions) > 0
+    ok = np.asarray(E)[codes] > 0  # (N, M)
+    g = np.asarray(gain)[:, state_class].astype(np.float64)
+    score = np.full((n, m), NEG)
+    bp = np.zeros((n, m), dtype=np.int64)
+    first = (np.asarray(start) > 0) & ok[0]
+    score[0, first] = g[0, first]
+    if not first.any():
+        raise ValueError("no allowed path reaches position 1")
+    for i in range(1, n):
+        cand = np.where(allowed, score[i - 1][:, None], NEG)  # cand[p, t]
+        best = cand.max(axis=0)
+        arg = cand.argmax(axis=0)
+        reach = ok[i] & (best > NEG)
+        score[i, reach] = best[reach] + g[i, reach]
+        bp[i] = arg
+        if not reach.any():
+            raise ValueError(f"no allowed path reaches position {i + 1}")
+    final = np.where(np.asarray(end) > 0, score[-1], NEG)
+    if not (final > NEG).any():
+        raise ValueError(f"no allowed path reaches position {n}")
+    path = np.zeros(n, dtype=np.int32)
+    path[-1] = int(np.argmax(final))
+    for i in range(n - 1, 0, -1):
+        path[i - 1] = bp[i, path[i]]
+    return path, float(final.max())
+
+
+class Stream:
+    """One record's MEA forward pass: checkpoints, kept ranks and the final state; then
+    :meth:`blocks` traces the path from the end (see :func:`path_blocks`)."""
+
+    def __init__(
+        self,
+        tables,
+        n: int,
+        codes: Callable[[int, int], np.ndarray],
+        gain: Callable[[int, int], np.ndarray],
+        state_class: np.ndarray,
+        block: int,
+        window: int | None = None,
+        budget: int | None = None,
+    ) -> None:
+        window = WINDOW if window is None else window
+        budget = BACKPOINTER_BUDGET if budget is None else budget
+        m = tables.n_states
+        self.n, self.block, self.codes, self.gain = n, block, codes, gain
+        self.p_ptr, self.p_src = predecessors(tables.transitions)
+        indeg = np.diff(self.p_ptr)
+        multi = np.flatnonzero(indeg > 1)
+        self.col = np.full(m, multi.shape[0], dtype=np.int64)
+        self.col[multi] = np.arange(multi.shape[0])
+        top = int(indeg.max()) if m else 0
+        dt = np.uint8 if top <= 256 else np.uint16 if top <= 65536 else np.uint32
+        width = multi.shape[0] + 1
+        self.cls = np.ascontiguousarray(state_class, dtype=np.int64)
+        self.emit = np.ascontiguousarray(np.asarray(tables.E) > 0).view(np.uint8)
+        start_ok = np.ascontiguousarray(np.asarray(tables.start) > 0)
+        self.end_ok = np.ascontiguousarray(np.asarray(tables.end) > 0)
+        nblocks = (n + block - 1) // block
+        self.rows = work_buffer((2, m))
+        self.carry = np.zeros(1, dtype=np.int64)
+        self.ck = work_buffer((nblocks, m))
+        kept = min(nblocks, budget // max(1, block * width * np.dtype(dt).itemsize))
+        self.tail0 = (nblocks - kept) * block
+        self.tail = work_buffer((max(0, n - self.tail0) + 1, width), dt)
+        self.bps = work_buffer((block, width), dt)
+        moves = (self.p_ptr, self.p_src, self.col)
+        a = 0
+        self.failed = -1
+        while a < n:
+            b = min(n, a + window)
+            fail = stream_forward(
+                _rows(codes, a, b, "codes"), _rows(gain, a, b, "gain"), a, block, self.tail0,
+                self.rows, self.carry, self.ck, self.tail, self.cls, self.emit, start_ok, *moves,
+            )  # fmt: skip
+            if fail >= 0:
+                self.failed = int(fail)
+                return
+            a = b
+        self.total, last = stream_final(self.rows, self.carry, self.end_ok)
+        self.last = int(last)
+        if self.last < 0:
+            self.failed = n - 1
+
+    def check(self) -> None:
+        """Raise ValueError (the message of :func:`mea`) when no allowed path exists."""
+        if self.failed >= 0:
+            raise ValueError(f"no allowed path reaches position {self.failed + 1}")
+
+    def blocks(self) -> Iterator[tuple[int, int, np.ndarray]]:
+        """``(b0, b1, states)`` of every block from the last to the first (int32 states)."""
+        self.check()
+        n, block = self.n, self.block
+        moves = (self.p_ptr, self.p_src, self.col)
+        known, nxt = self.last, -1
+        for bk in range((n + block - 1) // block - 1, -1, -1):
+            b0 = bk * block
+            b1 = min(n, b0 + block)
+            out = work_buffer(b1 - b0, np.int32)
+            if b0 >= self.tail0:
+                known = int(stream_tail_path(b0, b1, self.tail0, self.tail, known, out, *moves))
+            else:
+                codes = _rows(self.codes, b0, b1, "codes")
+                gain = _rows(self.gain, b0, b1, "gain")
+                stream_block_path(
+                    codes, gain, self.ck, bk, known, nxt, self.rows, self.bps, out, self.cls,
+                    self.emit, *moves,
+                )  # fmt: skip
+                known = -1
+            nxt = int(out[0])
+            yield b0, b1, out
+
+
+def _rows(reader: Callable[[int, int], np.ndarray], a: int, b: int, what: str) -> np.ndarray:
+    arr = np.ascontiguousarray(reader(a, b))
+    if arr.shape[0] != b - a:
+        raise ValueError(f"the {what} reader gave {arr.shape[0]} rows for [{a}, {b})")
+    return arr
+
+
+def path_blocks(
+    tables,
+    n: int,
+    codes: Callable[[int, int], np.ndarray],
+    gain: Callable[[int, int], np.ndarray],
+    state_class: np.ndarray,
+    *,
+    block: int | None = None,
+) -> Iterator[tuple[int, int, np.ndarray]]:
+    """The MEA path of a record of ``n`` positions as ``(b0, b1, states)`` blocks, from the last
+    block to the first (0-based half-open; int32 states).  ``codes(a, b)`` and ``gain(a, b)``
+    give the codes and gain rows of ``[a, b)``.  The forward pass runs (and raises ValueError
+    when no allowed path exists) before this returns."""
+    from seqstate.engine.api import default_block
+
+    if n <= 0:
+        raise ValueError("empty record")
+    block = default_block(n) if block is None else max(1, min(int(block), n))
+    stream = Stream(tables, n, codes, gain, state_class, block)
+    stream.check()
+    return stream.blocks()

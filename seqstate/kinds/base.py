@@ -15,13 +15,16 @@ from __future__ import annotations
 
 from abc import ABC, abstractmethod
 from dataclasses import dataclass
-from typing import Any, TextIO
+from typing import TYPE_CHECKING, Any, TextIO
 
 import numpy as np
 
 from seqstate.engine import api
 from seqstate.io.gff3 import GFF3Writer
 from seqstate.model import Model
+
+if TYPE_CHECKING:
+    from seqstate.kinds.stream import StreamRecord, TrackSink
 
 #: GFF3 column 2 of every feature seqstate writes.
 SOURCE = "seqstate"
@@ -128,6 +131,21 @@ class Kind(ABC):
     @abstractmethod
     def write_record(self, rec: RecordData, gff: GFF3Writer, tsv: TextIO) -> int:
         """Decode, score and write one record's features (GFF3 and TSV); the count written."""
+
+    def write_stream(
+        self, rec: StreamRecord, gff: GFF3Writer, tsv: TextIO, track_sink: TrackSink
+    ) -> tuple[int, float, int]:
+        """Decode, score and write one long record window by window (bounded memory).
+
+        The lines written and the values given to ``track_sink`` are byte-identical to
+        :meth:`write_record` on the whole record; returns ``(features written,
+        log-likelihood (natural log), unknown bases)``.  See :mod:`seqstate.kinds.stream`.
+        This default reads the whole record and calls :meth:`write_record` (not bounded
+        in memory); kinds override it.
+        """
+        from seqstate.kinds.stream import write_whole
+
+        return write_whole(self, rec, gff, tsv, track_sink)
 
     @abstractmethod
     def truth_of(self, path: np.ndarray, model: Model, state_group: np.ndarray) -> list[Any]:

@@ -9,12 +9,13 @@ files, 0-based half-open inside.
 
 from __future__ import annotations
 
+from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass
 from typing import Any, TextIO
 
 import numpy as np
 
-from seqstate.engine import api, mea
+from seqstate.engine import api, mea, stream_paths
 from seqstate.io.gff3 import Feature, GFF3Writer
 from seqstate.kinds.base import SOURCE, Group, Kind, RecordData
 from seqstate.kinds.segments import (
@@ -23,7 +24,9 @@ from seqstate.kinds.segments import (
     label_columns,
     label_scores,
     score_segment,
+    segment_scores,
 )
+from seqstate.kinds.stream import RecordPass, StreamRecord, TrackSink, Window, unknown_count
 from seqstate.model import Model
 
 #: ``[annotate] features`` value of a manifest whose model is of this kind.
@@ -156,6 +159,137 @@ def genes_from_path(
                 reasons.append(PARTIAL_UNKNOWN_RUN)
             genes.append(GenePrediction(strand, pieces, phases, tuple(reasons)))
     return genes
+
+
+#: A path run as :func:`seqstate.engine.stream_paths.runs_of` gives it:
+#: ``(start0, end0, key, first_state, last_state)``.
+Run = tuple[int, int, int, int, int]
+
+
+def run_key(model: Model) -> np.ndarray:
+    """Per state, the key whose runs along a path carry the gene structure.
+
+    0: not a gene state; 1: plus-strand intron, 2: plus-strand CDS, 3: minus-strand
+    intron, 4: minus-strand CDS.  A gene of :func:`genes_from_path` is a maximal run
+    of keys of one strand (1-2 or 3-4), its CDS pieces the runs of key 2 or 4.
+    """
+    out = np.zeros(model.n_states, dtype=np.int64)
+    for i, s in enumerate(model.states):
+        if s.label in ("CDS", "intron"):
+            out[i] = (1 if s.strand == "+" else 3) + (s.label == "CDS")
+    return out
+
+
+def genes_from_runs(
+    runs: list[Run],
+    model: Model,
+    n: int,
+    read_unknown: Callable[[int, int], np.ndarray],
+    split_unknown: int | None,
+    state_at: Callable[[int], int],
+) -> list[GenePrediction]:
+    """:func:`genes_from_path` from the runs of :func:`run_key` along the path.
+
+    ``runs`` cover ``[0, n)`` in order; ``read_unknown(a, b)`` gives the unknown
+    flags (booleans) of positions ``[a, b)``; ``state_at(q)`` the path's state at a
+    position ``q`` that is neither the first nor the last of its run -- it is only
+    asked for known gene positions next to an unknown base (where an unknown run
+    cuts or trims a piece).  Memory: per gene, O(gene length).  Equal to
+    ``genes_from_path(path, model, unknown, split_unknown)``.
+    """
+    frame = codon_positions(model)
+    genes: list[GenePrediction] = []
+    i = 0
+    while i < len(runs):
+        if runs[i][2] == 0:
+            i += 1
+            continue
+        side = (runs[i][2] + 1) // 2
+        j = i
+        while j + 1 < len(runs) and runs[j + 1][2] != 0 and (runs[j + 1][2] + 1) // 2 == side:
+            j += 1
+        genes += _gene_of_runs(
+            runs[i : j + 1], side, n, read_unknown, split_unknown, state_at, frame
+        )
+        i = j + 1
+    return genes
+
+
+def _gene_of_runs(
+    runs: list[Run],
+    side: int,
+    n: int,
+    read_unknown: Callable[[int, int], np.ndarray],
+    split_unknown: int | None,
+    state_at: Callable[[int], int],
+    frame: np.ndarray,
+) -> list[GenePrediction]:
+    # one maximal run of one strand's gene states: the parts genes_from_path makes of it
+    s0, e0 = runs[0][0], runs[-1][1]
+    strand = "+" if side == 1 else "-"
+    thr = split_unknown or 0
+    # unknown flags of the run and up to ``thr`` bases on each side: enough to tell
+    # whether an unknown run reaching into the gene is at least ``thr`` long
+    u0, u1 = max(0, s0 - thr), min(n, e0 + thr)
+    unk = np.asarray(read_unknown(u0, u1), dtype=bool)
+    gaps = [(a + u0, b + u0) for a, b in unknown_runs(unk, thr)] if thr else []
+    c = np.zeros(e0 - s0, dtype=bool)
+    for a, b, key, _, _ in runs:
+        if key % 2 == 0:
+            c[a - s0 : b - s0] = True
+    ends = {}
+    for a, b, _, first, last in runs:
+        ends[a] = first
+        ends[b - 1] = last
+
+    def unknown(q: int) -> bool:
+        return bool(unk[q - u0])
+
+    def state(q: int) -> int:
+        return ends[q] if q in ends else int(state_at(q))
+
+    parts = []
+    lo, cut_left = s0, False
+    for a, b in gaps:
+        if b <= s0 or a >= e0:
+            continue
+        if a > lo:
+            parts.append((lo, a, cut_left, True))
+        lo, cut_left = max(b, lo), True
+    if lo < e0:
+        parts.append((lo, e0, cut_left, False))
+    out = []
+    for lo, hi, cut_l, cut_r in parts:
+        while lo < hi and unknown(lo):
+            lo += 1
+        while hi > lo and unknown(hi - 1):
+            hi -= 1
+        cc = c[lo - s0 : hi - s0]
+        padded = np.concatenate([[False], cc, [False]])
+        edges = np.flatnonzero(padded[1:] != padded[:-1])
+        pieces = [(lo + int(a), lo + int(b)) for a, b in zip(edges[0::2], edges[1::2])]
+        if not pieces:
+            continue
+        a0, b0 = pieces[0]
+        while a0 < b0 and unknown(a0):
+            a0 += 1
+        pieces[0] = (a0, b0)
+        a1, b1 = pieces[-1]
+        while b1 > a1 and unknown(b1 - 1):
+            b1 -= 1
+        pieces[-1] = (a1, b1)
+        pieces = [(a, b) for a, b in pieces if b > a]
+        if not pieces:
+            continue
+        five = [a if strand == "+" else b - 1 for a, b in pieces]
+        phases = [(3 - int(frame[state(q)])) % 3 for q in five]
+        reasons = []
+        if s0 == 0 or e0 == n:
+            reasons.append(PARTIAL_RECORD_END)
+        if cut_l or cut_r:
+            reasons.append(PARTIAL_UNKNOWN_RUN)
+        out.append(GenePrediction(strand, pieces, phases, tuple(reasons)))
+    return out
 
 
 def codon_positions(model: Model) -> np.ndarray:
@@ -299,9 +433,40 @@ def write_genes(
     feature is in those states; without ``post`` (a sampled truth) the score
     column is ``.`` and only ``length`` is written.  ``tsv`` may be None.
     """
-    col = {(g.label, g.strand): i for i, g in enumerate(groups)}
-    masks = {}
+    masks = gene_masks(model)
     values = {}
+    if post is not None:
+        for strand in "+-":
+            gene_cols, cds_col = strand_columns(groups, strand)
+            values[strand] = (
+                post.values[:, gene_cols].sum(axis=1, dtype=np.float64),
+                post.values[:, cds_col],
+            )
+
+    def score_line(ln: GeneLine, strand: str, k: int) -> dict | None:
+        if post is None or tables is None or codes is None:
+            return None
+        return score_segment(
+            tables,
+            codes,
+            post,
+            values[strand][k],
+            masks[strand][k],
+            ln.start0,
+            ln.end0,
+            log_odds=False,
+        )
+
+    count = 0
+    for number, gp in enumerate(predictions, start=1):
+        count += write_gene(gff, tsv, gp, number, seqid, offset0, score_line)
+    return count
+
+
+def gene_masks(model: Model) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """Per strand, (the strand's gene states (CDS and intron), its CDS states) as
+    booleans per state: the states gene/mRNA and exon/CDS lines are scored on."""
+    masks = {}
     for strand in "+-":
         cds = np.zeros(model.n_states, dtype=np.bool_)
         gene = np.zeros(model.n_states, dtype=np.bool_)
@@ -310,67 +475,79 @@ def write_genes(
                 gene[i] = True
                 cds[i] = st.label == "CDS"
         masks[strand] = (gene, cds)
-        if post is not None:
-            cols = [col[k] for k in (("CDS", strand), ("intron", strand)) if k in col]
-            values[strand] = (
-                post.values[:, cols].sum(axis=1, dtype=np.float64),
-                post.values[:, col[("CDS", strand)]],
-            )
+    return masks
+
+
+def strand_columns(groups: list[Group], strand: str) -> tuple[list[int], int]:
+    """The track-group columns of one strand: (CDS and intron columns, the CDS column)."""
+    col = {(g.label, g.strand): i for i, g in enumerate(groups)}
+    gene_cols = [col[k] for k in (("CDS", strand), ("intron", strand)) if k in col]
+    return gene_cols, col[("CDS", strand)]
+
+
+def write_gene(
+    gff: GFF3Writer,
+    tsv: TextIO | None,
+    gp: GenePrediction,
+    number: int,
+    seqid: str,
+    offset0: int,
+    score_line: Callable[[GeneLine, str, int], dict | None],
+) -> int:
+    """Write one gene's lines (see :func:`write_genes`); the count written.
+
+    ``score_line(line, strand, k)`` gives the scores of one line (``k`` 0: scored on
+    the strand's gene states, 1: on its CDS states), or None for an unscored line.
+    """
+    strand = gp.strand
     count = 0
-    for number, gp in enumerate(predictions, start=1):
-        strand = gp.strand
-        for ln in gene_lines(gp, seqid, number):
-            a, b = ln.start0, ln.end0
-            sc = None
-            if post is not None and tables is not None and codes is not None:
-                k = 0 if ln.type in ("gene", "mRNA") else 1
-                sc = score_segment(
-                    tables, codes, post, values[strand][k], masks[strand][k], a, b, log_odds=False
-                )
-            attrs: list[tuple[str, str | list[str]]] = [("ID", ln.id)]
-            if ln.parent:
-                attrs.append(("Parent", ln.parent))
-            if sc is not None:
-                for key in ("mean_posterior", "min_posterior", "segment_probability"):
-                    attrs.append((key, format_value(sc[key], SCORE_FORMATS[key])))
-            attrs.append(("length", str(b - a)))
-            if gp.partial and ln.type in ("gene", "mRNA"):
-                attrs.append(("partial", "true"))
-                attrs.append(("partial_reason", list(gp.partial_reasons)))
-            gff.write(
-                Feature(
-                    seqid=seqid,
-                    source=SOURCE,
-                    type=ln.type,
-                    start0=a + offset0,
-                    end0=b + offset0,
-                    score=None if sc is None else sc["mean_posterior"],
-                    strand=strand,
-                    phase=ln.phase,
-                    attributes=attrs,
-                )
+    for ln in gene_lines(gp, seqid, number):
+        a, b = ln.start0, ln.end0
+        sc = score_line(ln, strand, 0 if ln.type in ("gene", "mRNA") else 1)
+        attrs: list[tuple[str, str | list[str]]] = [("ID", ln.id)]
+        if ln.parent:
+            attrs.append(("Parent", ln.parent))
+        if sc is not None:
+            for key in ("mean_posterior", "min_posterior", "segment_probability"):
+                attrs.append((key, format_value(sc[key], SCORE_FORMATS[key])))
+        attrs.append(("length", str(b - a)))
+        if gp.partial and ln.type in ("gene", "mRNA"):
+            attrs.append(("partial", "true"))
+            attrs.append(("partial_reason", list(gp.partial_reasons)))
+        gff.write(
+            Feature(
+                seqid=seqid,
+                source=SOURCE,
+                type=ln.type,
+                start0=a + offset0,
+                end0=b + offset0,
+                score=None if sc is None else sc["mean_posterior"],
+                strand=strand,
+                phase=ln.phase,
+                attributes=attrs,
             )
-            if tsv is not None:
-                tsv.write(
-                    "\t".join(
-                        [
-                            seqid,
-                            str(a + offset0 + 1),
-                            str(b + offset0),
-                            strand,
-                            ln.type,
-                            ln.id,
-                            ln.parent or "",
-                            "." if ln.phase is None else str(ln.phase),
-                            format_value(sc["mean_posterior"], ".4f") if sc else "",
-                            format_value(sc["min_posterior"], ".4f") if sc else "",
-                            format_value(sc["segment_probability"], ".4g") if sc else "",
-                            str(b - a),
-                        ]
-                    )
-                    + "\n"
+        )
+        if tsv is not None:
+            tsv.write(
+                "\t".join(
+                    [
+                        seqid,
+                        str(a + offset0 + 1),
+                        str(b + offset0),
+                        strand,
+                        ln.type,
+                        ln.id,
+                        ln.parent or "",
+                        "." if ln.phase is None else str(ln.phase),
+                        format_value(sc["mean_posterior"], ".4f") if sc else "",
+                        format_value(sc["min_posterior"], ".4f") if sc else "",
+                        format_value(sc["segment_probability"], ".4g") if sc else "",
+                        str(b - a),
+                    ]
                 )
-            count += 1
+                + "\n"
+            )
+        count += 1
     return count
 
 
@@ -399,6 +576,144 @@ def decode_genes(
         path = mea.mea(tables, codes, fine.values, cls)
         del fine
     return genes_from_path(path, model, unknown, split_unknown)
+
+
+#: Longest stretch of class posterior the MEA gain reader holds at once (bases).
+GAIN_WINDOW = 1 << 20
+
+
+class _GainReader:
+    """Posterior of the decoding classes for the MEA pass, a window at a time.
+
+    Rows asked for are served from the last window computed.  A miss after (or
+    across the end of) that window computes the window starting at the block of the
+    first row asked for; a miss before it computes the window ending at the block of
+    the last row asked for -- so the forward pass in order and the traceback block
+    by block from the end each compute every block about once.  float32, as
+    ``api.posterior`` gives them to the whole-record path.
+    """
+
+    def __init__(self, rp: RecordPass, state_class: np.ndarray, n_classes: int) -> None:
+        self.rp, self.cls, self.k = rp, np.asarray(state_class, dtype=np.int64), n_classes
+        self.blocks = max(1, min(rp.window_blocks, GAIN_WINDOW // rp.block))
+        self.lo = self.hi = 0
+        self.values = np.zeros((0, n_classes), dtype=np.float32)
+
+    def __call__(self, a: int, b: int) -> np.ndarray:
+        if not (self.lo <= a and b <= self.hi):
+            rp, blk = self.rp, self.rp.block
+            first, stop = a // blk, (b + blk - 1) // blk
+            if b <= self.lo:
+                first = min(first, max(0, stop - self.blocks))
+            else:
+                stop = max(stop, min(rp.nblocks, first + self.blocks))
+            self.values = np.zeros((0, self.k), dtype=np.float32)  # free the old window first
+            self.lo, self.hi = first * blk, min(rp.n, stop * blk)
+            self.values = rp.values(first, stop, self.cls, self.k)
+        return self.values[a - self.lo : b - self.lo]
+
+
+def _probing(
+    pieces: Iterable[stream_paths.PathPiece],
+    key: np.ndarray,
+    rec: StreamRecord,
+    probes: dict[int, int],
+) -> Iterator[stream_paths.PathPiece]:
+    """The pieces, unchanged; on the way, the state at every known gene position next
+    to an unknown base goes into ``probes`` (what :func:`genes_from_runs` may ask)."""
+    n = rec.n
+    for pc in pieces:
+        lo, hi = max(0, pc.start0 - 1), min(n, pc.end0 + 1)
+        u = np.asarray(rec.read_symbols(lo, hi)) < 0
+        if u.any():
+            before = np.concatenate([[False], u[:-1]])
+            after = np.concatenate([u[1:], [False]])
+            near = ~u & (before | after)
+            near = near[pc.start0 - lo : pc.start0 - lo + (pc.end0 - pc.start0)]
+            st = np.asarray(pc.states)
+            hit = np.flatnonzero(near & (key[st] != 0))
+            for q in hit.tolist():
+                probes[pc.start0 + q] = int(st[q])
+        yield pc
+
+
+class _GeneStream:
+    """Windowed decoding of one record into genes (see :mod:`seqstate.kinds.stream`).
+
+    The path (Viterbi, or MEA over the class posterior read a window at a time)
+    comes as pieces from the end; its runs of :func:`run_key` make the genes
+    (:func:`genes_from_runs`).  Then the windows pass gives the track-group
+    posterior: tracks, and the scores of each gene -- on the window when the gene
+    lies inside it, else on a span view of the gene's own blocks.
+    """
+
+    def __init__(self, rec: StreamRecord, gff: GFF3Writer, tsv: TextIO) -> None:
+        self.rec, self.gff, self.tsv = rec, gff, tsv
+
+    def predictions(self, rp: RecordPass) -> list[GenePrediction]:
+        rec = self.rec
+        if rec.decode == "viterbi":
+            _, pieces = stream_paths.viterbi_pieces(
+                rec.tables, rec.n, rec.read_codes, block=rp.block, record=rec.seqid
+            )
+        else:
+            cls, n_cls = decoding_classes(rec.model)
+            gain = _GainReader(rp, cls, n_cls)
+            pieces = stream_paths.mea_pieces(
+                rec.tables, rec.n, rec.read_codes, gain, cls, block=rp.block
+            )
+        key = run_key(rec.model)
+        probes: dict[int, int] = {}
+        runs = stream_paths.runs_of(_probing(pieces, key, rec, probes), key)
+        return genes_from_runs(
+            runs,
+            rec.model,
+            rec.n,
+            lambda a, b: np.asarray(rec.read_symbols(a, b)) < 0,
+            rec.split_unknown,
+            probes.__getitem__,
+        )
+
+    def run(self, track_sink: TrackSink) -> tuple[int, float, int]:
+        rec = self.rec
+        rp = RecordPass(rec)
+        genes = self.predictions(rp)
+        masks = gene_masks(rec.model)
+        cols = {strand: strand_columns(rec.groups, strand) for strand in "+-"}
+        n_groups = len(rec.groups)
+        count = unknown = 0
+        nxt = 0
+        for win in rp.windows(rec.state_group, n_groups):
+            unknown += unknown_count(rec, win.start0, win.end0)
+            for g in range(n_groups):
+                track_sink(g, rec.offset0 + win.values0, win.values[:, g])
+            while nxt < len(genes) and genes[nxt].span[1] <= win.end0:
+                g0, g1 = genes[nxt].span
+                w = win if win.holds(g0, g1) else rp.span(g0, g1, rec.state_group, n_groups)
+
+                def score_line(ln: GeneLine, strand: str, k: int, w: Window = w) -> dict:
+                    gene_cols, cds_col = cols[strand]
+                    rows = w.values[ln.start0 - w.values0 : ln.end0 - w.values0]
+                    if k == 0:
+                        vals = rows[:, gene_cols].sum(axis=1, dtype=np.float64)
+                    else:
+                        vals = rows[:, cds_col]
+                    return segment_scores(
+                        rec.tables,
+                        w.codes,
+                        w.view,
+                        vals,
+                        masks[strand][k],
+                        ln.start0 - w.origin0,
+                        ln.end0 - w.origin0,
+                        log_odds=False,
+                    )
+
+                nxt += 1
+                count += write_gene(
+                    self.gff, self.tsv, genes[nxt - 1], nxt, rec.seqid, rec.offset0, score_line
+                )
+        return count, rp.loglik, unknown
 
 
 class GeneKind(Kind):
@@ -430,6 +745,11 @@ class GeneKind(Kind):
             rec.seqid,
             rec.offset0,
         )
+
+    def write_stream(
+        self, rec: StreamRecord, gff: GFF3Writer, tsv: TextIO, track_sink: TrackSink
+    ) -> tuple[int, float, int]:
+        return _GeneStream(rec, gff, tsv).run(track_sink)
 
     def truth_of(self, path: np.ndarray, model: Model, state_group: np.ndarray) -> list[Any]:
         return genes_from_path(path, model)

@@ -15,10 +15,11 @@ from typing import Any, TextIO
 
 import numpy as np
 
-from seqstate.engine import api
+from seqstate.engine import api, stream_paths
 from seqstate.io import tracks
 from seqstate.io.gff3 import Feature, GFF3Writer
 from seqstate.kinds.base import SOURCE, Group, Kind, RecordData, group_index, track_groups
+from seqstate.kinds.stream import RecordPass, StreamRecord, TrackSink, Window, unknown_count
 from seqstate.model import Model
 
 __all__ = [
@@ -35,11 +36,14 @@ __all__ = [
     "decode_segments",
     "feature_of",
     "format_value",
+    "group_masks",
     "group_index",
     "runs_above",
     "score_segment",
     "score_segments",
+    "write_segment",
     "segments_from_path",
+    "segment_scores",
     "segments_from_posterior",
     "split_at_unknown",
     "track_groups",
@@ -166,7 +170,26 @@ def score_segment(
     states against the other states (natural log and base 2), left out when
     ``log_odds`` is false.
     """
-    vals = np.asarray(group_values[start0:end0], dtype=np.float64)
+    return segment_scores(
+        tables, codes, post, group_values[start0:end0], mask, start0, end0, log_odds=log_odds
+    )
+
+
+def segment_scores(
+    tables: api.EngineTables,
+    codes: np.ndarray,
+    post: api.Posterior,
+    values: np.ndarray,
+    mask: np.ndarray,
+    start0: int,
+    end0: int,
+    *,
+    log_odds: bool = True,
+) -> dict:
+    """:func:`score_segment` given the segment's own posterior values (``values[i]`` is
+    base ``start0 + i``); ``start0``/``end0`` are coordinates of ``codes`` and ``post``
+    (a whole record, or a window's view of it)."""
+    vals = np.asarray(values, dtype=np.float64)
     lp = api.segment_log_probability(tables, codes, post, start0, end0, mask)
     out = {
         "mean_posterior": float(vals.mean()),
@@ -313,11 +336,7 @@ def score_segments(
     seq: bytes,
 ) -> None:
     """Fill ``seg.scores`` for every segment (posterior scores, and CpG statistics)."""
-    masks = []
-    for grp in groups:
-        mask = np.zeros(model.n_states, dtype=np.bool_)
-        mask[list(grp.states)] = True
-        masks.append(mask)
+    masks = group_masks(model, groups)
     for seg in segs:
         grp = groups[seg.group]
         sc = score_segment(
@@ -326,6 +345,16 @@ def score_segments(
         sc["length"] = seg.end0 - seg.start0
         sc.update(label_scores(grp.label, seq[seg.start0 : seg.end0]))
         seg.scores = sc
+
+
+def group_masks(model: Model, groups: list[Group]) -> list[np.ndarray]:
+    """Per track group, a boolean per state: the group's states."""
+    masks = []
+    for grp in groups:
+        mask = np.zeros(model.n_states, dtype=np.bool_)
+        mask[list(grp.states)] = True
+        masks.append(mask)
+    return masks
 
 
 def feature_of(seqid: str, offset0: int, grp: Group, seg: Segment, number: int) -> Feature:
@@ -344,6 +373,166 @@ def feature_of(seqid: str, offset0: int, grp: Group, seg: Segment, number: int) 
         phase=None,
         attributes=attrs,
     )
+
+
+def write_segment(
+    seqid: str,
+    offset0: int,
+    groups: list[Group],
+    seg: Segment,
+    counters: list[int],
+    score_cols: list[str],
+    gff: GFF3Writer,
+    tsv: TextIO,
+) -> None:
+    """Write one scored segment as a GFF3 line and a feature-table row; its number is
+    the next of ``counters[seg.group]`` (counted per group, in file order)."""
+    counters[seg.group] += 1
+    feat = feature_of(seqid, offset0, groups[seg.group], seg, counters[seg.group])
+    gff.write(feat)
+    row = [
+        tracks.escape_text(seqid),
+        str(feat.start0 + 1),
+        str(feat.end0),
+        feat.strand,
+        feat.type,
+        tracks.escape_text(feat.get("ID") or ""),
+    ]
+    row += [
+        format_value(seg.scores[c], SCORE_FORMATS[c]) if c in seg.scores else "" for c in score_cols
+    ]
+    tsv.write("\t".join(row) + "\n")
+
+
+def _order(seg: Segment) -> tuple[int, int, int]:
+    return (seg.start0, seg.end0, seg.group)
+
+
+class _SegmentStream:
+    """Windowed decoding of one record into segment features (see :mod:`kinds.stream`).
+
+    Posterior decoding: maximal runs at or above ``min_posterior`` are followed per
+    group across windows; a run is closed when it ends, kept when at least
+    ``min_length`` long, cut at unknown runs (:func:`split_at_unknown`) and its pieces
+    scored -- on the window when they lie inside it, else on a span view of their own
+    blocks.  Viterbi: the path's runs come first (from the path pieces), then the
+    windows pass scores them.  Scored pieces wait until no open run can still give a
+    piece that sorts before them, then are written in (start, end, group) order with
+    per-group numbers, exactly as the whole-record path writes them.
+    """
+
+    def __init__(self, kind: SegmentKind, rec: StreamRecord, gff: GFF3Writer, tsv: TextIO):
+        self.rec, self.gff, self.tsv = rec, gff, tsv
+        self.score_cols = kind.feature_columns(rec.groups)[len(ID_COLUMNS) :]
+        self.counters = [0] * len(rec.groups)
+        self.masks = group_masks(rec.model, rec.groups)
+        self.pending: list[Segment] = []
+        self.written = 0
+        self.rp: RecordPass | None = None
+
+    def run(self, track_sink: TrackSink) -> tuple[int, float, int]:
+        rec = self.rec
+        rp = self.rp = RecordPass(rec)
+        n_groups = len(rec.groups)
+        unknown = 0
+        todo: list[Segment] = []
+        if rec.decode == "viterbi":
+            _, pieces = stream_paths.viterbi_pieces(
+                rec.tables, rec.n, rec.read_codes, block=rp.block, record=rec.seqid
+            )
+            runs = stream_paths.runs_of(pieces, rec.state_group)
+            todo = [
+                Segment(int(k), s0, e0)
+                for s0, e0, k, _, _ in runs
+                if k >= 0 and e0 - s0 >= rec.min_length
+            ]
+        open_start: list[int | None] = [None] * n_groups
+        next_todo = 0
+        for win in rp.windows(rec.state_group, n_groups):
+            unknown += unknown_count(rec, win.start0, win.end0)
+            for g in range(n_groups):
+                track_sink(g, rec.offset0 + win.values0, win.values[:, g])
+            if rec.decode == "viterbi":
+                while next_todo < len(todo) and todo[next_todo].end0 <= win.end0:
+                    self.finish(todo[next_todo], win)
+                    next_todo += 1
+                limit = todo[next_todo].start0 if next_todo < len(todo) else rec.n
+            else:
+                for seg in self.runs_in(win, open_start):
+                    self.finish(seg, win)
+                starts = [s for s in open_start if s is not None]
+                limit = min(starts) if starts else rec.n
+            self.flush(limit)
+        self.flush(rec.n + 1)
+        return self.written, rp.loglik, unknown
+
+    def runs_in(self, win: Window, open_start: list[int | None]) -> list[Segment]:
+        """Runs of the posterior closed in this window (>= min_length); runs reaching the
+        window end stay open in ``open_start``."""
+        rec = self.rec
+        a, b = win.values0, win.end0
+        closed = []
+        for g in range(len(rec.groups)):
+            runs = runs_above(win.values[:, g], rec.min_posterior, 1)
+            s_open = open_start[g]
+            open_start[g] = None
+            if s_open is not None:
+                if runs and runs[0][0] == 0:
+                    runs[0] = (s_open - a, runs[0][1])
+                elif a - s_open >= rec.min_length:
+                    closed.append(Segment(g, s_open, a))
+            for r0, r1 in runs:
+                s0, e0 = r0 + a, r1 + a
+                if e0 == b and b < rec.n:
+                    open_start[g] = s0
+                elif e0 - s0 >= rec.min_length:
+                    closed.append(Segment(g, s0, e0))
+        return closed
+
+    def finish(self, seg: Segment, win: Window) -> None:
+        """Cut one decoded segment at unknown runs, score its pieces, keep them pending."""
+        rec = self.rec
+        assert self.rp is not None
+        unknown = np.asarray(rec.read_symbols(seg.start0, seg.end0)) < 0
+        local = [Segment(seg.group, 0, seg.end0 - seg.start0)]
+        for piece in split_at_unknown(local, unknown, rec.min_length, rec.split_unknown):
+            s0, e0 = piece.start0 + seg.start0, piece.end0 + seg.start0
+            w = win if win.holds(s0, e0) else self.rp.span(s0, e0, rec.state_group, len(rec.groups))
+            grp = rec.groups[seg.group]
+            sc = segment_scores(
+                rec.tables,
+                w.codes,
+                w.view,
+                w.column(seg.group, s0, e0),
+                self.masks[seg.group],
+                s0 - w.origin0,
+                e0 - w.origin0,
+            )
+            sc["length"] = e0 - s0
+            if label_columns(grp.label):
+                sc.update(label_scores(grp.label, rec.read_bases(s0, e0)))
+            self.pending.append(Segment(seg.group, s0, e0, sc))
+
+    def flush(self, limit: int) -> None:
+        """Write the pending pieces that start before ``limit``, in file order."""
+        self.pending.sort(key=_order)
+        k = 0
+        rec = self.rec
+        while k < len(self.pending) and self.pending[k].start0 < limit:
+            seg = self.pending[k]
+            write_segment(
+                rec.seqid,
+                rec.offset0,
+                rec.groups,
+                seg,
+                self.counters,
+                self.score_cols,
+                self.gff,
+                self.tsv,
+            )
+            k += 1
+        del self.pending[:k]
+        self.written += k
 
 
 class SegmentKind(Kind):
@@ -377,25 +566,13 @@ class SegmentKind(Kind):
         score_cols = self.feature_columns(rec.groups)[len(ID_COLUMNS) :]
         counters = [0] * len(rec.groups)
         for seg in segs:
-            counters[seg.group] += 1
-            feat = feature_of(
-                rec.seqid, rec.offset0, rec.groups[seg.group], seg, counters[seg.group]
-            )
-            gff.write(feat)
-            row = [
-                tracks.escape_text(rec.seqid),
-                str(feat.start0 + 1),
-                str(feat.end0),
-                feat.strand,
-                feat.type,
-                tracks.escape_text(feat.get("ID") or ""),
-            ]
-            row += [
-                format_value(seg.scores[c], SCORE_FORMATS[c]) if c in seg.scores else ""
-                for c in score_cols
-            ]
-            tsv.write("\t".join(row) + "\n")
+            write_segment(rec.seqid, rec.offset0, rec.groups, seg, counters, score_cols, gff, tsv)
         return len(segs)
+
+    def write_stream(
+        self, rec: StreamRecord, gff: GFF3Writer, tsv: TextIO, track_sink: TrackSink
+    ) -> tuple[int, float, int]:
+        return _SegmentStream(self, rec, gff, tsv).run(track_sink)
 
     def truth_of(self, path: np.ndarray, model: Model, state_group: np.ndarray) -> list[Any]:
         return segments_from_path(path, state_group)

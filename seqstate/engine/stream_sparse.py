@@ -1,0 +1,286 @@
+"""Streaming kernels of the chain-sparse family: the passes of
+:func:`seqstate.engine.sparse.posterior_checkpointed`, cut into chunks of codes.
+
+Same split as :mod:`seqstate.engine.stream_generic`, in the renumbered slots of
+:mod:`seqstate.engine.sparse` (state ``t`` in slot ``t + 1``, dummy slots 0 and M + 1
+holding 0), with its rescaling rule (largest entry below the threshold, powers of two,
+an integer binary exponent).  Checkpoints are written in the original state order
+(``alpha_ck[bk, perm[s]] = slot s + 1``), as the whole-record kernel writes them, and
+read back the same way, so the values are bit-identical.
+
+Coordinates are 0-based record positions; kernels return the first failing position
+or -1.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+from seqstate.engine._common import JIT as _JIT
+from seqstate.engine._common import LN2 as _LN2
+from seqstate.engine._common import RESCALE_BELOW
+from seqstate.engine.buffers import work_buffer
+from seqstate.engine.sparse import _bits_of, _dot, _first, _maxbits, _rescale, _step
+
+__all__ = ["backward_chunk", "backward_init", "forward_chunk", "forward_final", "span"]
+
+
+def span_scratch(m: int, block: int, n_groups: int) -> tuple[np.ndarray, ...]:
+    """Work arrays ``(buf, fwd, sums)`` of :func:`span` (M = ``m`` states)."""
+    return work_buffer((block, m + 2)), work_buffer((2, m + 2)), work_buffer(n_groups + 1)
+
+
+@njit(**_JIT)
+def forward_chunk(
+    codes,
+    i0,
+    rows,
+    ic,
+    block,
+    alpha_ck,
+    alpha_ck_log,
+    start,
+    E,
+    perm,
+    w1,
+    f_ptr,
+    f_n0,
+    f_dst,
+    f_src,
+    f_w,
+    lim=RESCALE_BELOW,
+):
+    """Forward recursion over positions ``[i0, i0 + len(codes))``.
+
+    ``rows`` (2, M + 2) holds the running vector in slots, row ``ic[0]``; ``ic[1]`` is
+    its binary exponent (both updated, initialised at position 0; the dummy slots
+    must hold 0).  Returns the failing position or -1.
+    """
+    n = codes.shape[0]
+    m = start.shape[0]
+    tmpi = np.zeros(1, dtype=np.int64)
+    tmpf = tmpi.view(np.float64)
+    limbits = _bits_of(lim, tmpi, tmpf)
+    ri = rows.view(np.int64)
+    fsrc = ic[0]
+    ex = ic[1]
+    fail = -1
+    for j in range(n):
+        i = i0 + j
+        if i == 0:
+            ex = 0
+            _first(rows, 0, codes[0], m, start, E)
+            fsrc = 0
+        else:
+            fdst = 1 - fsrc
+            _step(rows, fsrc, rows, fdst, codes[j], m, 0, w1, f_ptr, f_n0, f_dst, f_src, f_w)
+            fsrc = fdst
+        mx = _maxbits(ri, fsrc, 1, m + 1)
+        if mx < limbits:
+            if mx == 0:
+                fail = i
+                break
+            ex += _rescale(rows, fsrc, 1, m + 1, mx, tmpi, tmpf)
+        if i % block == 0:
+            bk = i // block
+            for s in range(m):
+                alpha_ck[bk, perm[s]] = rows[fsrc, s + 1]
+            alpha_ck_log[bk] = ex * _LN2
+    ic[0] = fsrc
+    ic[1] = ex
+    return fail
+
+
+@njit(**_JIT)
+def forward_final(rows, ic, end):
+    """(log-likelihood, ok) from the carried vector at the last position (natural log)."""
+    m = end.shape[0]
+    src = ic[0]
+    final = 0.0
+    for s in range(m):
+        final += rows[src, s + 1] * end[s]
+    if final == 0.0:
+        return -np.inf, False
+    return math.log(final) + ic[1] * _LN2, True
+
+
+@njit(**_JIT)
+def backward_init(rows, ic, end, perm, beta_ck, beta_ck_log, lim=RESCALE_BELOW):
+    """The backward vector at the last position from the end factors, checkpointed in the
+    record's last block.  Returns False when no state may end the record."""
+    m = end.shape[0]
+    tmpi = np.zeros(1, dtype=np.int64)
+    tmpf = tmpi.view(np.float64)
+    limbits = _bits_of(lim, tmpi, tmpf)
+    ri = rows.view(np.int64)
+    for r in range(2):
+        rows[r, 0] = 0.0
+        rows[r, m + 1] = 0.0
+    for s in range(m):
+        rows[0, s + 1] = end[s]
+    ex = 0
+    mx = _maxbits(ri, 0, 1, m + 1)
+    if mx < limbits:
+        if mx == 0:
+            return False
+        ex += _rescale(rows, 0, 1, m + 1, mx, tmpi, tmpf)
+    last = beta_ck.shape[0] - 1
+    for s in range(m):
+        beta_ck[last, perm[s]] = rows[0, s + 1]
+    beta_ck_log[last] = ex * _LN2
+    ic[0] = 0
+    ic[1] = ex
+    return True
+
+
+@njit(**_JIT)
+def backward_chunk(
+    codes,
+    a,
+    p,
+    rows,
+    ic,
+    block,
+    beta_ck,
+    beta_ck_log,
+    perm,
+    v1,
+    b_ptr,
+    b_n0,
+    b_dst,
+    b_src,
+    b_w,
+    lim=RESCALE_BELOW,
+):
+    """Backward recursion from position ``p`` down to ``max(a - 1, 0)``; ``codes`` are
+    those of positions ``[a, p + 1)`` (the step at ``i`` reads the code at ``i + 1``).
+
+    ``rows[ic[0]]`` is the vector at ``p`` in slots and ``ic[1]`` its binary exponent
+    (updated).  Returns the failing position or -1.
+    """
+    m = perm.shape[0]
+    tmpi = np.zeros(1, dtype=np.int64)
+    tmpf = tmpi.view(np.float64)
+    limbits = _bits_of(lim, tmpi, tmpf)
+    ri = rows.view(np.int64)
+    src = ic[0]
+    ex = ic[1]
+    lo = a - 1 if a > 0 else 0
+    fail = -1
+    for i in range(p - 1, lo - 1, -1):
+        dst = 1 - src
+        _step(rows, src, rows, dst, codes[i + 1 - a], m, 2, v1, b_ptr, b_n0, b_dst, b_src, b_w)
+        src = dst
+        mx = _maxbits(ri, dst, 1, m + 1)
+        if mx < limbits:
+            if mx == 0:
+                fail = i + 1
+                break
+            ex += _rescale(rows, dst, 1, m + 1, mx, tmpi, tmpf)
+        if (i + 1) % block == 0:
+            bk = i // block
+            for s in range(m):
+                beta_ck[bk, perm[s]] = rows[dst, s + 1]
+            beta_ck_log[bk] = ex * _LN2
+    ic[0] = src
+    ic[1] = ex
+    return fail
+
+
+@njit(**_JIT)
+def span(
+    codes,
+    base,
+    n,
+    first_block,
+    stop_block,
+    block,
+    perm,
+    w1,
+    f_ptr,
+    f_n0,
+    f_dst,
+    f_src,
+    f_w,
+    v1,
+    b_ptr,
+    b_n0,
+    b_dst,
+    b_src,
+    b_w,
+    runs,
+    n_groups,
+    out,
+    alpha_ck,
+    beta_ck,
+    buf,
+    fwd,
+    sums,
+    lim=RESCALE_BELOW,
+):
+    """Posteriors of blocks ``[first_block, stop_block)`` into ``out``.
+
+    ``codes[j]`` is the code of record position ``base + j`` and ``out[j]`` its row; ``n``
+    is the record length; ``runs`` from :func:`seqstate.engine.sparse.group_runs`.  Each
+    block runs pass 2 of the whole-record kernel from its checkpoints.  ``buf``,
+    ``fwd``, ``sums``: work arrays (:func:`span_scratch`).  Returns the failing position
+    or -1.
+    """
+    m = perm.shape[0]
+    ng = n_groups
+    tmpi = np.zeros(1, dtype=np.int64)
+    tmpf = tmpi.view(np.float64)
+    limbits = _bits_of(lim, tmpi, tmpf)
+    bufi = buf.view(np.int64)
+    fi = fwd.view(np.int64)
+    for r in range(buf.shape[0]):
+        buf[r, 0] = 0.0
+        buf[r, m + 1] = 0.0
+    for r in range(2):
+        fwd[r, 0] = 0.0
+        fwd[r, m + 1] = 0.0
+    for bk in range(first_block, stop_block):
+        b0 = bk * block
+        b1 = min(n, b0 + block)
+        r = b1 - 1 - b0
+        for s in range(m):
+            buf[r, s + 1] = beta_ck[bk, perm[s]]
+        for i in range(b1 - 2, b0 - 1, -1):
+            r = i - b0
+            _step(buf, r + 1, buf, r, codes[i + 1 - base], m, 2, v1, b_ptr, b_n0, b_dst, b_src, b_w)
+            mx = _maxbits(bufi, r, 1, m + 1)
+            if mx < limbits and mx > 0:
+                _rescale(buf, r, 1, m + 1, mx, tmpi, tmpf)  # a row's scale is irrelevant
+        fsrc = 0
+        for s in range(m):
+            fwd[0, s + 1] = alpha_ck[bk, perm[s]]
+        for i in range(b0, b1):
+            if i > b0:
+                fdst = 1 - fsrc
+                _step(
+                    fwd, fsrc, fwd, fdst, codes[i - base], m, 0, w1, f_ptr, f_n0, f_dst, f_src, f_w
+                )
+                fsrc = fdst
+                mx = _maxbits(fi, fsrc, 1, m + 1)
+                if mx < limbits:
+                    if mx == 0:
+                        return i
+                    _rescale(fwd, fsrc, 1, m + 1, mx, tmpi, tmpf)
+            r = i - b0
+            for k in range(ng + 1):
+                sums[k] = 0.0
+            for j in range(runs.shape[0]):
+                sums[runs[j, 2]] += _dot(fwd, fsrc, buf, r, runs[j, 0], runs[j, 1])
+            norm = 0.0
+            for k in range(ng + 1):
+                norm += sums[k]
+            if norm == 0.0:
+                return i
+            inv = 1.0 / norm
+            row = i - base
+            for k in range(ng):
+                out[row, k] = sums[k] * inv
+    return -1
