@@ -113,6 +113,7 @@ def test_bedgraph_track_with_offset() -> None:
     track = BedGraphTrack(buffer, "t", "d", precision=1)
     track.add("chr1", np.array([0.0, 0.0, 0.9]), offset0=100)
     track.add("chr2", np.array([0.5]))
+    track.close()  # the last run of a record is held until the record ends
     assert buffer.getvalue().splitlines() == [
         'track type=bedGraph name="t" description="d"',
         "chr1\t100\t102\t0.0",
@@ -269,6 +270,7 @@ def test_record_ids_with_control_characters_are_escaped_on_bedgraph_lines() -> N
     handle = io.StringIO()
     track = BedGraphTrack(handle, "t", "d", 1)
     track.add("a\tb\nc\x01%", np.array([0.5, 0.5], dtype=np.float32))
+    track.end_record("a\tb\nc\x01%")
     lines = handle.getvalue().splitlines()
     # GFF3 1.26 percent-encoding (uppercase %XX) of the control characters; '%' itself stays
     assert lines[1:] == ["a%09b%0Ac%01%\t0\t2\t0.5"]

@@ -384,6 +384,8 @@ class _Run:
                     )
             for rec, s0, e0 in spans:
                 report.records.append(self.record(rec, s0, e0, gff, tsv, bedgraphs, bigwigs))
+            for bg in bedgraphs:
+                bg.close()  # writes each track's held last run
             for bw in bigwigs:
                 bw.close()
             if not to_stdout:
