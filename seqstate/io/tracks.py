@@ -312,8 +312,8 @@ class BigWigTrack:
         self._order = {seqid: (i, int(n)) for i, (seqid, n) in enumerate(chrom_sizes)}
         self._last = -1
         self._end = 0  # end0 of the values added for record self._last
-        #: the held run: (escaped seqid, start0, end0, scaled value)
-        self._held: tuple[str, int, int, int] | None = None
+        #: the held run: (escaped seqid, start0, end0, scaled value, record index)
+        self._held: tuple[str, int, int, int, int] | None = None
         self._path = Path(path)
         self._runs = 0
         self._bw = None
@@ -349,29 +349,30 @@ class BigWigTrack:
                 f"record {seqid!r}: values of shape {np.shape(values)} at offset {offset0} "
                 f"do not fit a length of {length}"
             )
-        if index == self._last and offset0 < self._end:
+        end = self._end if index == self._last else 0
+        if offset0 < end:
             raise ValueError(
                 f"record {seqid!r}: values at offset {offset0} go back before the end of "
-                f"the values already added ({self._end})"
+                f"the values already added ({end})"
             )
         starts, ends, scaled = runs_of_rounded(values, self._precision)
         self._last = index
+        self._end = max(end, offset0 + n)
         if starts.shape[0] == 0:
             return
-        self._end = offset0 + n
         starts += offset0
         ends += offset0
         held = self._held
         self._held = None
         name = escape_text(seqid)
         if held is not None:
-            if held[0] == name and held[2] == int(starts[0]) and held[3] == int(scaled[0]):
+            if held[4] == index and held[2] == int(starts[0]) and held[3] == int(scaled[0]):
                 starts[0] = held[1]  # the held run goes on in this piece
             else:
                 self._write(held[0], np.array([held[1]]), np.array([held[2]]), np.array([held[3]]))
         last = starts.shape[0] - 1
         self._write(name, starts[:last], ends[:last], scaled[:last])
-        self._held = (name, int(starts[last]), int(ends[last]), int(scaled[last]))
+        self._held = (name, int(starts[last]), int(ends[last]), int(scaled[last]), index)
 
     def end_record(self, seqid: str | None = None) -> None:
         """Hand over the held run: the record has no more pieces (no-op when none is held)."""
