@@ -4,16 +4,27 @@ from __future__ import annotations
 
 import gzip
 import io
+import os
 import sys
 from pathlib import Path
 
+import fasta_oracle
 import pytest
 from Bio import SeqIO
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from seqstate.errors import SequenceFormatError, UsageError
-from seqstate.io.fasta import DNA_ALPHABET, Record, iter_fasta, read_fasta, write_fasta
+from seqstate.io import fasta as fasta_module
+from seqstate.io.fasta import (
+    DNA_ALPHABET,
+    Record,
+    SkippedRecord,
+    iter_fasta,
+    iter_sequences,
+    read_fasta,
+    write_fasta,
+)
 from seqstate.io.regions import TO_END, Region, check_region, parse_region
 
 DATA = Path(__file__).parent / "data" / "io"
@@ -440,3 +451,356 @@ def test_only_empty_records_is_an_error_even_when_skipping(tmp_path: Path) -> No
     with pytest.raises(SequenceFormatError, match="every record is empty") as info:
         read_fasta(path, empty_records="skip")
     assert info.value.line0 == 0
+
+
+# ---------------------------------------------------------------- streaming in chunks
+# Oracle: the whole-file reader of seqstate before streaming (tests/fasta_oracle.py, the
+# reading half of seqstate/io/fasta.py as it was), which read the file with one read().
+
+
+def outcome(read, path: Path, **options):
+    """Records (id, description, bases) and skipped records, or the error raised."""
+    skipped: list = []
+    try:
+        records = read(path, skipped=skipped, **options)
+    except SequenceFormatError as err:
+        return ("error", str(err), err.line0, err.where)
+    return (
+        [(r.id, r.description, r.seq) for r in records],
+        [(s.id, s.line0, s.reason) for s in skipped],
+    )
+
+
+def read_sequences(path: Path, **options) -> list[Record]:
+    """iter_sequences as Records: every base read back through its source."""
+    out = []
+    for rec in iter_sequences(path, **options):
+        out.append(Record(rec.id, rec.description, rec.read(0, rec.length)))
+        assert len(out[-1].seq) == rec.length
+        rec.source.close()
+    return out
+
+
+_LINES = [
+    b">a desc",
+    b">b",
+    b">a",
+    b">",
+    b">  ",
+    b" >c",
+    b">d\xff",
+    b"ACGT",
+    b"acgtn",
+    b"AC GT",
+    b"",
+    b"  ",
+    b"\t",
+    b"AC!T",
+    b"A\xc3\xa9",
+    b"NNNN-RY",
+    b"x",
+    b"#text",
+]
+_fasta_text = st.tuples(
+    st.lists(st.sampled_from(_LINES), min_size=0, max_size=12),
+    st.sampled_from([b"\n", b"\r\n"]),
+    st.booleans(),
+    st.booleans(),
+).map(lambda t: (b">first\n" if t[3] else b"") + t[1].join(t[0]) + (t[1] if t[2] else b""))
+
+
+@settings(max_examples=200, deadline=None)
+@given(_fasta_text, st.integers(min_value=1, max_value=9), st.sampled_from(["error", "skip"]))
+def test_any_chunk_size_reads_as_the_whole_file_reader(
+    text: bytes, chunk: int, empty_records: str
+) -> None:
+    import tempfile
+
+    with tempfile.TemporaryDirectory() as folder:
+        path = Path(folder) / "x.fa"
+        path.write_bytes(text)
+        expected = outcome(fasta_oracle.read_fasta, path, empty_records=empty_records)
+        saved = fasta_module.CHUNK_BYTES
+        fasta_module.CHUNK_BYTES = chunk
+        try:
+            got = outcome(read_fasta, path, empty_records=empty_records)
+            spilled = outcome(
+                read_sequences, path, empty_records=empty_records, spill_above=2, spill_dir=folder
+            )
+        finally:
+            fasta_module.CHUNK_BYTES = saved
+        assert got == expected
+        assert spilled == expected
+        assert sorted(p.name for p in Path(folder).iterdir()) == ["x.fa"]
+
+
+def test_the_oracle_is_the_old_whole_file_reader() -> None:
+    # The oracle must not be the streaming reader itself.
+    assert not hasattr(fasta_oracle, "CHUNK_BYTES")
+    assert hasattr(fasta_oracle, "_read_all")
+
+
+@pytest.fixture
+def small_chunks(monkeypatch: pytest.MonkeyPatch):
+    def use(n: int) -> None:
+        monkeypatch.setattr(fasta_module, "CHUNK_BYTES", n)
+
+    return use
+
+
+def test_record_spanning_many_chunks(tmp_path: Path, small_chunks) -> None:
+    body = b"".join(b"ACGTNacgtn"[i % 10 : i % 10 + 1] * 61 + b"\n" for i in range(400))
+    path = write_bytes(tmp_path, "long.fa", b">long words here\n" + body + b">next\nGG\n")
+    small_chunks(97)
+    records = read_fasta(path)
+    assert records == [
+        Record("long", "words here", body.replace(b"\n", b"")),
+        Record("next", "", b"GG"),
+    ]
+    assert len(records[0].seq) == 400 * 61
+
+
+@pytest.mark.parametrize("chunk", [4, 5, 6, 7, 8])
+def test_bad_character_exactly_at_a_chunk_edge(tmp_path: Path, small_chunks, chunk: int) -> None:
+    # ">r\n" is bytes 0-2, "ACGT\n" 3-7, "AC" 8-9, the bad '5' is byte 10.
+    path = write_bytes(tmp_path, "x.fa", b">r\nACGT\nAC5T\n")
+    small_chunks(chunk)
+    with pytest.raises(SequenceFormatError) as info:
+        read_fasta(path)
+    assert (info.value.line0, info.value.where) == (2, "record 'r'")
+    assert "character '5' at position 7 " in str(info.value)
+
+
+@pytest.mark.parametrize("chunk", [1, 2, 3, 6, 7, 8])
+def test_header_split_across_chunks(tmp_path: Path, small_chunks, chunk: int) -> None:
+    # "\n>" of the second header falls on every possible chunk edge for some chunk size.
+    path = write_bytes(tmp_path, "x.fa", b">a\nACG\n>b two\nTT\n")
+    small_chunks(chunk)
+    assert read_fasta(path) == [Record("a", "", b"ACG"), Record("b", "two", b"TT")]
+
+
+@pytest.mark.parametrize("chunk", range(1, 12))
+def test_crlf_split_across_chunks_is_one_line_end(tmp_path: Path, small_chunks, chunk: int) -> None:
+    path = write_bytes(tmp_path, "dos.fa", b">a x\r\nACGT\r\nAA\r\n>b\r\nC\r\n")
+    small_chunks(chunk)
+    assert read_fasta(path) == [Record("a", "x", b"ACGTAA"), Record("b", "", b"C")]
+
+
+@pytest.mark.parametrize("chunk", range(1, 9))
+def test_lone_cr_at_a_chunk_edge_is_still_named(tmp_path: Path, small_chunks, chunk: int) -> None:
+    path = write_bytes(tmp_path, "mac.fa", b">a\r\nAC\r\nGT\rTT\r\n")
+    small_chunks(chunk)
+    with pytest.raises(SequenceFormatError) as info:
+        read_fasta(path)
+    assert info.value.line0 == 2
+    assert "CR-only line endings" in str(info.value)
+
+
+def test_cr_only_after_blank_lines_before_the_first_header(tmp_path: Path, small_chunks) -> None:
+    path = write_bytes(tmp_path, "x.fa", b"\n\n\r\n  \r \n>a\nAC\n")
+    small_chunks(2)
+    with pytest.raises(SequenceFormatError, match="CR-only") as info:
+        read_fasta(path)
+    assert info.value.line0 == 3
+
+
+def test_text_before_the_header_shows_the_line_across_chunks(tmp_path: Path, small_chunks) -> None:
+    line = b"##gff-version 3 followed by a long line that goes on and on and on"
+    path = write_bytes(tmp_path, "x.gff3", b"\n\n" + line + b"\n>a\nA\n")
+    small_chunks(5)
+    with pytest.raises(SequenceFormatError) as info:
+        read_fasta(path)
+    assert info.value.line0 == 2
+    assert "'##gff-version 3 followed by a long line ...'" in str(info.value)
+
+
+def test_truncated_gzip_after_some_records_is_one_error(tmp_path: Path, small_chunks) -> None:
+    data = gzip.compress(b"".join(b">r%d\nACGTACGT\n" % i for i in range(5000)))
+    path = write_bytes(tmp_path, "cut.fa.gz", data[: len(data) // 2])
+    small_chunks(1000)
+    with pytest.raises(SequenceFormatError, match="cannot be read") as info:
+        list(iter_fasta(path))
+    assert info.value.path == str(path)
+
+
+# ---------------------------------------------------------------- iter_sequences
+
+
+def test_iter_sequences_short_and_spilled_records(tmp_path: Path, small_chunks) -> None:
+    spill = tmp_path / "spill"
+    spill.mkdir()
+    long_seq = bytes(b"ACGT"[(i * 7) % 4] for i in range(5000))
+    text = b">short s\nACGT\n>long\n" + b"\n".join(long_seq[i : i + 60] for i in range(0, 5000, 60))
+    path = write_bytes(tmp_path, "x.fa", text + b"\n")
+    small_chunks(256)
+    records = iter_sequences(path, spill_above=100, spill_dir=spill)
+    short = next(records)
+    assert (short.id, short.description, short.length, short.line0) == ("short", "s", 4, 0)
+    assert type(short.source).__name__ == "BytesSource"
+    long = next(records)
+    assert type(long.source).__name__ == "SpillSource"
+    assert (long.length, long.line0) == (5000, 2)
+    for start0, end0 in [(0, 5000), (0, 1), (4999, 5000), (1234, 3210), (60, 60)]:
+        assert long.read(start0, end0) == long_seq[start0:end0]
+    # The spill file has no name in the folder: nothing to leave behind.
+    assert list(spill.iterdir()) == []
+    with pytest.raises(StopIteration):
+        next(records)
+    long.source.close()
+    long.source.close()  # twice is fine
+    with pytest.raises(ValueError, match="closed"):
+        long.read(0, 1)
+
+
+def test_spill_above_is_the_largest_record_kept_in_memory(tmp_path: Path) -> None:
+    path = write_bytes(tmp_path, "x.fa", b">a\nACGTA\n>b\nACGTAC\n")
+    kinds = [type(r.source).__name__ for r in iter_sequences(path, spill_above=5)]
+    assert kinds == ["BytesSource", "SpillSource"]
+
+
+def open_fds() -> int:
+    return len(os.listdir("/proc/self/fd"))
+
+
+needs_proc = pytest.mark.skipif(not Path("/proc/self/fd").is_dir(), reason="needs /proc")
+
+
+@needs_proc
+def test_spill_files_are_closed_when_the_iteration_stops_early(tmp_path: Path) -> None:
+    path = write_bytes(tmp_path, "x.fa", b">a\n" + b"ACGT" * 100 + b"\n>b\n" + b"T" * 500 + b"\n")
+    before = open_fds()
+    records = iter_sequences(path, spill_above=10, spill_dir=tmp_path)
+    first = next(records)
+    assert open_fds() > before  # the input and the spill file are open
+    records.close()
+    assert open_fds() == before
+    with pytest.raises(ValueError, match="closed"):
+        first.read(0, 4)
+
+
+@needs_proc
+def test_spill_files_are_closed_after_an_error_mid_iteration(tmp_path: Path) -> None:
+    text = b">a\n" + b"ACGT" * 100 + b"\n>b\n" + b"T" * 500 + b"\nTT!T\n"
+    path = write_bytes(tmp_path, "x.fa", text)
+    before = open_fds()
+    seen = []
+    with pytest.raises(SequenceFormatError, match="character '!' at position 503"):
+        for rec in iter_sequences(path, spill_above=10, spill_dir=tmp_path):
+            seen.append(rec)  # the caller never closes them
+    assert [r.id for r in seen] == ["a"]
+    assert open_fds() == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["x.fa"]
+
+
+@needs_proc
+def test_spill_file_of_a_record_being_read_is_closed_on_interrupt(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    path = write_bytes(tmp_path, "x.fa", b">a\n" + b"ACGT\n" * 400)
+    monkeypatch.setattr(fasta_module, "CHUNK_BYTES", 64)
+    real = fasta_module._read_chunk
+    calls = []
+
+    def interrupted(handle, shown):
+        calls.append(1)
+        if len(calls) == 10:
+            raise KeyboardInterrupt
+        return real(handle, shown)
+
+    monkeypatch.setattr(fasta_module, "_read_chunk", interrupted)
+    before = open_fds()
+    with pytest.raises(KeyboardInterrupt):
+        list(iter_sequences(path, spill_above=100, spill_dir=tmp_path))
+    assert open_fds() == before
+
+
+def test_full_spill_folder_is_one_clear_error(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import errno
+
+    from seqstate.io import sources
+
+    def full(fd, data, offset):
+        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+
+    monkeypatch.setattr(sources.os, "pwrite", full)
+    path = write_bytes(tmp_path, "x.fa", b">chr9\n" + b"ACGT" * 100 + b"\n")
+    with pytest.raises(UsageError) as info:
+        list(iter_sequences(path, spill_above=10, spill_dir=tmp_path))
+    message = str(info.value)
+    assert message == (
+        f"the temporary copy of record 'chr9' of {path} in spill folder '{tmp_path}' "
+        f"cannot be written: {os.strerror(errno.ENOSPC)}; "
+        "set TMPDIR to a folder with more free space"
+    )
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["x.fa"]
+
+
+def test_missing_spill_folder_is_one_clear_error(tmp_path: Path) -> None:
+    path = write_bytes(tmp_path, "x.fa", b">chr9\n" + b"ACGT" * 100 + b"\n")
+    with pytest.raises(UsageError, match="spill folder .* cannot be written: .*set TMPDIR"):
+        list(iter_sequences(path, spill_above=10, spill_dir=tmp_path / "nope"))
+
+
+def test_iter_sequences_errors_as_iter_fasta(tmp_path: Path) -> None:
+    path = write_bytes(tmp_path, "x.fa", b">a\nAC\n>empty one\n\n>c\nG\n")
+    with pytest.raises(SequenceFormatError) as info:
+        list(iter_sequences(path))
+    assert (info.value.line0, info.value.where) == (2, "record 'empty'")
+    skipped: list[SkippedRecord] = []
+    got = [r.id for r in iter_sequences(path, empty_records="skip", skipped=skipped)]
+    assert got == ["a", "c"]
+    assert skipped == [SkippedRecord("empty", 2, "empty")]
+    with pytest.raises(ValueError, match="spill_above"):
+        list(iter_sequences(path, spill_above=-1))
+
+
+def test_iter_sequences_reads_stdin_and_gzip(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    monkeypatch.setattr(sys, "stdin", FakeStdin(gzip.compress(SAMPLE.read_bytes())))
+    assert read_sequences(Path("-"), spill_above=20) == read_fasta(SAMPLE)
+
+
+_MEMORY_SCRIPT = """
+import resource, sys
+from seqstate.io.fasta import iter_sequences
+base = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+n = 0
+for rec in iter_sequences(sys.argv[1], spill_dir=sys.argv[2]):
+    n += rec.length
+    assert rec.read(rec.length - 10, rec.length) == b"ACGTACGTAC"[: 10]
+    rec.source.close()
+peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+print(n, (peak - base) * 1024)
+"""
+
+
+@pytest.mark.slow
+def test_reading_a_200_mb_record_keeps_memory_bounded(tmp_path: Path) -> None:
+    path = tmp_path / "big.fa"
+    line = b"ACGTACGTAC" * 6 + b"\n"
+    block = line * 100_000  # 6 Mbp a block
+    with open(path, "wb") as handle:
+        handle.write(b">big synthetic record\n")
+        for _ in range(34):
+            handle.write(block)
+    bases = 34 * 100_000 * 60
+    spill = tmp_path / "spill"
+    spill.mkdir()
+    import subprocess
+
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parent.parent))
+    done = subprocess.run(
+        [sys.executable, "-c", _MEMORY_SCRIPT, str(path), str(spill)],
+        capture_output=True,
+        text=True,
+        env=env,
+        check=True,
+    )
+    n, grown = map(int, done.stdout.split())
+    assert n == bases
+    # ru_maxrss is in KiB on Linux (getrusage(2) manual page).
+    assert grown < 100 * 2**20, f"peak RSS grew by {grown / 2**20:.0f} MiB"
+    assert list(spill.iterdir()) == []

@@ -113,6 +113,7 @@ def test_bedgraph_track_with_offset() -> None:
     track = BedGraphTrack(buffer, "t", "d", precision=1)
     track.add("chr1", np.array([0.0, 0.0, 0.9]), offset0=100)
     track.add("chr2", np.array([0.5]))
+    track.close()  # the last run of a record is held until the record ends
     assert buffer.getvalue().splitlines() == [
         'track type=bedGraph name="t" description="d"',
         "chr1\t100\t102\t0.0",
@@ -269,7 +270,140 @@ def test_record_ids_with_control_characters_are_escaped_on_bedgraph_lines() -> N
     handle = io.StringIO()
     track = BedGraphTrack(handle, "t", "d", 1)
     track.add("a\tb\nc\x01%", np.array([0.5, 0.5], dtype=np.float32))
+    track.end_record("a\tb\nc\x01%")
     lines = handle.getvalue().splitlines()
     # GFF3 1.26 percent-encoding (uppercase %XX) of the control characters; '%' itself stays
     assert lines[1:] == ["a%09b%0Ac%01%\t0\t2\t0.5"]
     assert escape_text("chr1") == "chr1" and escape_text("u;v=w&x,y%") == "u;v=w&x,y%"
+
+
+# ---------------------------------------------------------------- records in pieces
+# Oracle: the same writer given each record's values in one add() call (the
+# whole-record writer of seqstate); pieces must give the same bytes.
+
+
+def cut_points(n: int, data: st.DataObject) -> list[int]:
+    cuts = data.draw(st.lists(st.integers(min_value=0, max_value=n), max_size=6))
+    return [0, *sorted(cuts), n]
+
+
+def records_strategy():
+    return st.lists(_runs, min_size=1, max_size=3)
+
+
+def bedgraph_of(pieces: list[tuple[str, np.ndarray, int, bool]], precision: int) -> str:
+    """Text of a track fed (seqid, values, offset0, ends_record) pieces in order."""
+    buffer = io.StringIO()
+    track = BedGraphTrack(buffer, "t", "d", precision)
+    for seqid, values, offset0, ends in pieces:
+        track.add(seqid, values, offset0)
+        if ends:
+            track.end_record(seqid)
+    track.close()
+    return buffer.getvalue()
+
+
+@settings(max_examples=100, deadline=None)
+@given(
+    records_strategy(),
+    st.sampled_from([np.float32, np.float64]),
+    st.integers(min_value=0, max_value=5),
+    st.integers(min_value=0, max_value=40),
+    st.booleans(),
+    st.data(),
+)
+def test_bedgraph_pieces_give_the_bytes_of_one_call(
+    records: list[list[tuple[float, int]]],
+    dtype: type,
+    precision: int,
+    offset0: int,
+    end_each: bool,
+    data: st.DataObject,
+) -> None:
+    whole = []
+    pieces = []
+    for k, runs in enumerate(records):
+        values = build(runs, dtype)
+        seqid = f"rec{k}"
+        whole.append((seqid, values, offset0, True))
+        cuts = cut_points(values.shape[0], data)
+        for i, (lo, hi) in enumerate(zip(cuts, cuts[1:], strict=False)):
+            last = i == len(cuts) - 2
+            pieces.append((seqid, values[lo:hi], offset0 + lo, last and end_each))
+    assert bedgraph_of(pieces, precision) == bedgraph_of(whole, precision)
+
+
+def test_bedgraph_held_run_is_written_at_end_record_and_not_before() -> None:
+    buffer = io.StringIO()
+    track = BedGraphTrack(buffer, "t", "d", precision=1)
+    track.add("c", np.array([0.5, 0.5, 0.2]))
+    assert buffer.getvalue().splitlines()[1:] == ["c\t0\t2\t0.5"]
+    track.add("c", np.array([0.2, 0.9]), offset0=3)
+    track.add("c", np.zeros(0), offset0=5)  # an empty piece keeps the held run
+    assert buffer.getvalue().splitlines()[1:] == ["c\t0\t2\t0.5", "c\t2\t4\t0.2"]
+    track.end_record("c")
+    track.end_record("c")  # nothing held: no-op
+    assert buffer.getvalue().splitlines()[1:] == ["c\t0\t2\t0.5", "c\t2\t4\t0.2", "c\t4\t5\t0.9"]
+    track.close()
+    with pytest.raises(RuntimeError, match="closed"):
+        track.add("d", np.zeros(2))
+
+
+def test_bedgraph_gap_or_new_record_does_not_join_runs() -> None:
+    buffer = io.StringIO()
+    with BedGraphTrack(buffer, "t", "d", precision=1) as track:
+        track.add("c", np.array([0.5, 0.5]))
+        track.add("c", np.array([0.5]), offset0=3)  # a gap at base 2
+        track.add("e", np.array([0.5]), offset0=4)  # another record
+    assert buffer.getvalue().splitlines()[1:] == ["c\t0\t2\t0.5", "c\t3\t4\t0.5", "e\t4\t5\t0.5"]
+
+
+def bigwig_intervals(path: Path, names: list[str]) -> dict[str, object]:
+    # Reference library: pyBigWig 0.3, intervals() as 0-based half-open tuples.
+    bw = pyBigWig.open(str(path))
+    try:
+        return {name: bw.intervals(name) for name in names}
+    finally:
+        bw.close()
+
+
+@settings(max_examples=40, deadline=None)
+@given(records_strategy(), st.integers(min_value=0, max_value=4), st.booleans(), st.data())
+def test_bigwig_pieces_give_the_file_of_one_call(
+    records: list[list[tuple[float, int]]], precision: int, end_each: bool, data: st.DataObject
+) -> None:
+    import tempfile
+
+    arrays = [build(runs, np.float32) for runs in records]
+    sizes = [(f"rec{k}", int(a.shape[0]) + 3) for k, a in enumerate(arrays)]
+    with tempfile.TemporaryDirectory() as folder:
+        one = Path(folder) / "one.bw"
+        with BigWigTrack(one, sizes, precision) as track:
+            for (seqid, _), values in zip(sizes, arrays, strict=True):
+                track.add(seqid, values, 2)
+        cut = Path(folder) / "cut.bw"
+        with BigWigTrack(cut, sizes, precision) as track:
+            for (seqid, _), values in zip(sizes, arrays, strict=True):
+                cuts = cut_points(values.shape[0], data)
+                for lo, hi in zip(cuts, cuts[1:], strict=False):
+                    track.add(seqid, values[lo:hi], 2 + lo)
+                if end_each:
+                    track.end_record(seqid)
+        names = [seqid for seqid, _ in sizes]
+        assert bigwig_intervals(cut, names) == bigwig_intervals(one, names)
+        assert cut.read_bytes() == one.read_bytes()
+
+
+def test_bigwig_pieces_must_not_go_back(tmp_path: Path) -> None:
+    with BigWigTrack(tmp_path / "x.bw", [("a", 10), ("b", 5)], precision=1) as track:
+        track.add("a", np.zeros(4))
+        with pytest.raises(ValueError, match="go back before the end"):
+            track.add("a", np.zeros(2), offset0=3)
+        track.add("a", np.zeros(2), offset0=6)  # a gap is allowed
+        track.add("b", np.ones(5))
+        with pytest.raises(ValueError, match="order"):
+            track.add("a", np.zeros(1), offset0=9)
+    assert bigwig_intervals(tmp_path / "x.bw", ["a", "b"]) == {
+        "a": ((0, 4, 0.0), (6, 8, 0.0)),
+        "b": ((0, 5, 1.0),),
+    }

@@ -10,13 +10,20 @@ word after ``>``, split on whitespace as Biopython's FASTA parser does) and the
 description ``some words`` (the rest of the line, stripped; ``""`` if none).
 Note that, unlike Biopython's ``SeqRecord.description``, the description here
 does not repeat the ID.
+
+Reading streams: the input is read :data:`CHUNK_BYTES` at a time and records come
+out one at a time, so memory holds one chunk and the record being read
+(:func:`iter_fasta`, :class:`Record` with its bytes) or, with
+:func:`iter_sequences`, not even that: a long record is spilled to a temporary
+file while it is read and its bases are read back by range
+(:class:`SequenceRecord`, :mod:`seqstate.io.sources`).
 """
 
 from __future__ import annotations
 
 import re
 import weakref
-from collections.abc import Callable, Iterable, Iterator
+from collections.abc import Callable, Generator, Iterable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, BinaryIO, Protocol, TextIO, TypeVar
@@ -210,8 +217,8 @@ def iter_sequences(
     _check_options(alphabet_check, empty_records)
     made: weakref.WeakSet[SpillSource] = weakref.WeakSet()
 
-    def sink() -> _SpillSink:
-        return _SpillSink(spill_above, spill_dir, shown, made)
+    def sink(rid: str) -> _SpillSink:
+        return _SpillSink(spill_above, spill_dir, f"record '{rid}' of {shown}", made)
 
     with open_input(path, SequenceFormatError, "FASTA") as handle:
         records = _checked(
@@ -248,7 +255,7 @@ class _Sink(Protocol):
 class _BytesSink:
     """A record's bases gathered in memory, given back as one ``bytes``."""
 
-    def __init__(self) -> None:
+    def __init__(self, rid: str) -> None:
         self._parts: list[bytes] = []
 
     def add(self, seq: bytes) -> None:
@@ -269,17 +276,16 @@ class _SpillSink:
         self,
         limit: int,
         folder: str | Path | None,
-        shown: str,
+        what: str,
         made: weakref.WeakSet[SpillSource],
     ) -> None:
         self._limit = limit
         self._folder = folder
-        self._shown = shown
+        self._what = what
         self._made = made
         self._parts: list[bytes] = []
         self._size = 0
         self._spill: SpillSource | None = None
-        self.rid = ""
 
     def add(self, seq: bytes) -> None:
         if self._spill is not None:
@@ -288,7 +294,7 @@ class _SpillSink:
         self._parts.append(seq)
         self._size += len(seq)
         if self._size > self._limit:
-            spill = SpillSource.create(self._folder, f"record '{self.rid}' of {self._shown}")
+            spill = SpillSource.create(self._folder, self._what)
             self._spill = spill
             self._made.add(spill)
             parts, self._parts = self._parts, []
@@ -324,12 +330,12 @@ _Parsed = tuple[str, str, int, int, Any]
 
 
 def _checked(
-    parsed: Iterator[_Parsed | SkippedRecord],
+    parsed: Generator[_Parsed | SkippedRecord, None, None],
     shown: str,
     empty_records: str,
     skipped: list[SkippedRecord] | None,
     make: Callable[[str, str, int, int, Any], T],
-) -> Iterator[T]:
+) -> Generator[T, None, None]:
     """The empty-record rule over the parser's output; ``make`` builds each record."""
     left_out: list[SkippedRecord] = []
     n = 0
@@ -350,7 +356,7 @@ def _checked(
             n += 1
             yield make(*item)
     except BaseException:
-        parsed.close()  # type: ignore[attr-defined]
+        parsed.close()
         raise
     if n == 0 and left_out:
         raise SequenceFormatError(
@@ -400,8 +406,8 @@ def _not_fasta(
 
 
 def _parse(
-    handle: BinaryIO, shown: str, check: bool, new_sink: Callable[[], _Sink]
-) -> Iterator[_Parsed | SkippedRecord]:
+    handle: BinaryIO, shown: str, check: bool, new_sink: Callable[[str], _Sink]
+) -> Generator[_Parsed | SkippedRecord, None, None]:
     """Split a FASTA stream into records, with the checks of :func:`iter_fasta`.
 
     Reads :data:`CHUNK_BYTES` at a time and works on whole sequence blocks of a
@@ -477,9 +483,7 @@ def _parse(
                     rid, desc = _start_record(b"".join(header), shown, header0, seen)
                     header = None
                     line = header0 + 1
-                    sink = new_sink()
-                    if isinstance(sink, _SpillSink):
-                        sink.rid = rid
+                    sink = new_sink(rid)
                     length = 0
                     continue
                 assert sink is not None
@@ -511,7 +515,7 @@ def _parse(
         if header is not None:  # the last line is a header without a line end
             rid, desc = _start_record(b"".join(header), shown, header0, seen)
             header = None
-            sink = new_sink()
+            sink = new_sink(rid)
             length = 0
         if sink is not None:
             done, sink = sink, None

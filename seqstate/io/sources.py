@@ -30,6 +30,8 @@ import weakref
 from pathlib import Path
 from typing import Protocol, runtime_checkable
 
+import numpy as np
+
 from seqstate.errors import SequenceFormatError, UsageError
 from seqstate.io.atomic import write_failure
 
@@ -47,6 +49,7 @@ FULL_DISK_ERRNOS = frozenset(
     e for e in (errno.ENOSPC, errno.EFBIG, getattr(errno, "EDQUOT", None)) if e is not None
 )
 _EOL = b"\r\n"
+_LF = ord("\n")
 _MAX_WRITE = 1 << 30  # bytes handed to one os.write call
 
 
@@ -315,13 +318,27 @@ class FileSliceSource:
                 f"cannot be read: {exc.strerror or exc}", path=self._path
             ) from None
         data = raw.translate(None, _EOL) if self._line_width > self._line_bases else raw
-        if len(raw) != last + 1 - first or len(data) != end0 - start0:
+        if (
+            len(raw) != last + 1 - first
+            or len(data) != end0 - start0
+            or not self._ends_at(raw, first, start0, end0)
+        ):
             raise SequenceFormatError(
                 f"bases {start0 + 1}-{end0} are not where the index says (file shorter or "
                 "lines of unequal length); rebuild the index",
                 path=self._path,
             )
         return data
+
+    def _ends_at(self, raw: bytes, first: int, start0: int, end0: int) -> bool:
+        """True if every line inside ``raw`` ends (LF) exactly where the layout says."""
+        if self._line_width == self._line_bases:
+            return True
+        lines = np.arange(start0 // self._line_bases, (end0 - 1) // self._line_bases)
+        if lines.shape[0] == 0:
+            return True
+        at = self._offset - first + self._line_width - 1 + lines * self._line_width
+        return bool(np.all(np.frombuffer(raw, dtype=np.uint8)[at] == _LF))
 
     def close(self) -> None:
         """Close the file (safe to call twice; waits for reads under way)."""

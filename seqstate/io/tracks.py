@@ -152,12 +152,21 @@ def _track_text(value: str) -> str:
 
 
 class BedGraphTrack:
-    """An open bedGraph output: the track line now, then one :meth:`add` per record.
+    """An open bedGraph output: the track line now, then the records' values in order.
 
     ``handle`` is a text handle the caller owns and closes.  The track line is
     ``track type=bedGraph name="..." description="..."``; double quotes in the
     name or description become single quotes and control characters become
     spaces, so the line stays well-formed.
+
+    A record may come in consecutive pieces: :meth:`add` calls for one seqid
+    whose ``offset0`` continue where the previous piece ended write exactly the
+    bytes one call with the joined values would.  To allow this, the last run of
+    each :meth:`add` is held back (it may go on in the next piece) and written
+    when a piece of another record, or of the same record not starting where the
+    run ends, is added, or at :meth:`end_record` or :meth:`close`.  Call
+    :meth:`end_record` after the last piece of each record (or :meth:`close` at
+    the end): until then the last line is not in ``handle``.
     """
 
     def __init__(
@@ -166,36 +175,83 @@ class BedGraphTrack:
         _check_precision(precision)
         self._handle = handle
         self._precision = precision
+        self._texts: dict[int, str] = {}
+        #: the held run: (escaped seqid, seqid, start0, end0, scaled value)
+        self._held: tuple[str, str, int, int, int] | None = None
+        self._closed = False
         handle.write(
             f'track type=bedGraph name="{_track_text(track_name)}" '
             f'description="{_track_text(description)}"\n'
         )
 
     def add(self, seqid: str, values: np.ndarray, offset0: int = 0) -> None:
-        """Write the merged runs of ``values``, base ``i`` being ``offset0 + i`` of ``seqid``.
+        """Add the merged runs of ``values``, base ``i`` being ``offset0 + i`` of ``seqid``.
 
         Lines are ``seqid<TAB>start0<TAB>end0<TAB>value``, 0-based half-open.
-        ``offset0`` places a region's values on record coordinates.
+        ``offset0`` places a region's values (or a piece of a record) on record
+        coordinates.  The last run is held back until the record goes on or ends
+        (see the class notes).
         """
+        if self._closed:
+            raise RuntimeError("BedGraphTrack is closed")
         if offset0 < 0:
             raise ValueError(f"offset0 must be >= 0, not {offset0}")
         starts, ends, scaled = runs_of_rounded(values, self._precision)
-        texts: dict[int, str] = {}
+        if starts.shape[0] == 0:
+            return
+        starts += offset0
+        ends += offset0
+        held = self._held
+        self._held = None
+        if held is not None:
+            if held[1] == seqid and held[3] == int(starts[0]) and held[4] == int(scaled[0]):
+                starts[0] = held[2]  # the held run goes on in this piece
+            else:
+                self._write(held[0], np.array([held[2]]), np.array([held[3]]), [held[4]])
+        name = escape_text(seqid)
+        last = starts.shape[0] - 1
+        self._write(name, starts[:last], ends[:last], scaled[:last].tolist())
+        self._held = (name, seqid, int(starts[last]), int(ends[last]), int(scaled[last]))
+
+    def end_record(self, seqid: str | None = None) -> None:
+        """Write the held run: the record (``seqid``, for the reader) has no more pieces.
+
+        Does nothing when no run is held.  The held run is written whichever
+        record it belongs to: records come in order, so it is complete.
+        """
+        held, self._held = self._held, None
+        if held is not None:
+            self._write(held[0], np.array([held[2]]), np.array([held[3]]), [held[4]])
+
+    def close(self) -> None:
+        """Write the held run and refuse further values; ``handle`` stays open."""
+        if not self._closed:
+            self.end_record()
+            self._closed = True
+
+    def __enter__(self) -> BedGraphTrack:
+        return self
+
+    def __exit__(self, exc_type: object, *exc_info: object) -> None:
+        if exc_type is None:
+            self.close()
+
+    def _write(self, name: str, starts: np.ndarray, ends: np.ndarray, scaled: list[int]) -> None:
+        """Write runs (record coordinates) as lines, ``_LINES`` lines a write."""
+        texts = self._texts
+        if len(texts) > _LINES:
+            texts.clear()  # bounded: a record may hold many distinct values
         write = self._handle.write
-        seqid = escape_text(seqid)
-        for lo in range(0, starts.shape[0], _LINES):
+        for lo in range(0, len(scaled), _LINES):
             hi = lo + _LINES
-            block_scaled = scaled[lo:hi].tolist()
+            block_scaled = scaled[lo:hi]
             for v in set(block_scaled) - texts.keys():
                 texts[v] = format_scaled(v, self._precision)
             write(
                 "".join(
-                    f"{seqid}\t{s}\t{e}\t{texts[v]}\n"
+                    f"{name}\t{s}\t{e}\t{texts[v]}\n"
                     for s, e, v in zip(
-                        (starts[lo:hi] + offset0).tolist(),
-                        (ends[lo:hi] + offset0).tolist(),
-                        block_scaled,
-                        strict=True,
+                        starts[lo:hi].tolist(), ends[lo:hi].tolist(), block_scaled, strict=True
                     )
                 )
             )
@@ -216,6 +272,8 @@ def write_bedgraph(
     track = BedGraphTrack(handle, track_name, description, precision)
     for seqid, values in chunks:
         track.add(seqid, values)
+        track.end_record(seqid)
+    track.close()
 
 
 def require_bigwig() -> None:
@@ -253,6 +311,9 @@ class BigWigTrack:
         self._scale = 10.0**precision
         self._order = {seqid: (i, int(n)) for i, (seqid, n) in enumerate(chrom_sizes)}
         self._last = -1
+        self._end = 0  # end0 of the values added for record self._last
+        #: the held run: (escaped seqid, start0, end0, scaled value, record index)
+        self._held: tuple[str, int, int, int, int] | None = None
         self._path = Path(path)
         self._runs = 0
         self._bw = None
@@ -267,13 +328,20 @@ class BigWigTrack:
             raise
 
     def add(self, seqid: str, values: np.ndarray, offset0: int = 0) -> None:
-        """Add the merged runs of ``values``, base ``i`` being ``offset0 + i`` of ``seqid``."""
+        """Add the merged runs of ``values``, base ``i`` being ``offset0 + i`` of ``seqid``.
+
+        A record may come in pieces, in order: calls for the same seqid must not
+        go back before the end of the previous piece; contiguous pieces give the
+        same entries as one call (the last run is held back, as in
+        :class:`BedGraphTrack`, until the record goes on, :meth:`end_record` or
+        :meth:`close`).
+        """
         if self._bw is None:
             raise RuntimeError("BigWigTrack is closed")
         if seqid not in self._order:
             raise ValueError(f"record {seqid!r} is not in chrom_sizes")
         index, length = self._order[seqid]
-        if index <= self._last:
+        if index < self._last:
             raise ValueError(f"record {seqid!r} comes out of chrom_sizes order")
         n = np.shape(values)[0] if np.ndim(values) == 1 else -1
         if offset0 < 0 or n < 0 or offset0 + n > length:
@@ -281,18 +349,51 @@ class BigWigTrack:
                 f"record {seqid!r}: values of shape {np.shape(values)} at offset {offset0} "
                 f"do not fit a length of {length}"
             )
-        self._last = index
+        end = self._end if index == self._last else 0
+        if offset0 < end:
+            raise ValueError(
+                f"record {seqid!r}: values at offset {offset0} go back before the end of "
+                f"the values already added ({end})"
+            )
         starts, ends, scaled = runs_of_rounded(values, self._precision)
+        self._last = index
+        self._end = max(end, offset0 + n)
+        if starts.shape[0] == 0:
+            return
+        starts += offset0
+        ends += offset0
+        held = self._held
+        self._held = None
+        name = escape_text(seqid)
+        if held is not None:
+            if held[4] == index and held[2] == int(starts[0]) and held[3] == int(scaled[0]):
+                starts[0] = held[1]  # the held run goes on in this piece
+            else:
+                self._write(held[0], np.array([held[1]]), np.array([held[2]]), np.array([held[3]]))
+        last = starts.shape[0] - 1
+        self._write(name, starts[:last], ends[:last], scaled[:last])
+        self._held = (name, int(starts[last]), int(ends[last]), int(scaled[last]), index)
+
+    def end_record(self, seqid: str | None = None) -> None:
+        """Hand over the held run: the record has no more pieces (no-op when none is held)."""
+        held, self._held = self._held, None
+        if held is not None and self._bw is not None:
+            self._write(held[0], np.array([held[1]]), np.array([held[2]]), np.array([held[3]]))
+
+    def _write(self, name: str, starts: np.ndarray, ends: np.ndarray, scaled: np.ndarray) -> None:
+        """Hand runs (record coordinates) to the writer library, after the space check."""
+        if starts.shape[0] == 0:
+            return
         self._check_space(starts.shape[0])
         self._runs += starts.shape[0]
-        name = escape_text(seqid)
+        assert self._bw is not None
         for lo in range(0, starts.shape[0], _ENTRIES):
             hi = lo + _ENTRIES
-            block_starts = starts[lo:hi] + offset0
+            block_starts = starts[lo:hi]
             self._bw.addEntries(
                 [name] * block_starts.shape[0],
                 block_starts,
-                ends=ends[lo:hi] + offset0,
+                ends=ends[lo:hi],
                 values=scaled[lo:hi] / self._scale,
             )
 
@@ -346,8 +447,9 @@ class BigWigTrack:
             )
 
     def close(self) -> None:
-        """Finish and close the file (safe to call twice)."""
+        """Hand over the held run, finish and close the file (safe to call twice)."""
         if self._bw is not None:
+            self.end_record()
             self._check_space(0)
             bw, self._bw = self._bw, None
             bw.close()
@@ -362,6 +464,7 @@ class BigWigTrack:
             self.close()
         elif self._bw is not None:
             # Only data already checked to fit was handed over: finishing it is safe.
+            self._held = None
             bw, self._bw = self._bw, None
             bw.close()
 
