@@ -688,9 +688,10 @@ def load_index(
 ) -> FastaIndex | None:
     """The checked index of a FASTA file, or None when it cannot be used.
 
-    None for standard input, plain gzip (one ``note:`` says bgzip gives random
-    access), another compression or a missing file (the stream reader names
-    the problem), a file without an index when ``build`` is False or the file
+    None for standard input, plain gzip (for a file of at least
+    :data:`AUTO_INDEX_BYTES`, one ``note:`` says bgzip gives random access),
+    another compression or a missing file (the stream reader names the
+    problem), a file without an index when ``build`` is False or the file
     is smaller than :data:`AUTO_INDEX_BYTES`, and a FASTA whose lines a
     ``.fai`` cannot describe (with a note).  A missing index of a large file is
     built next to it (or in memory, with a note, when the folder is not
@@ -700,6 +701,8 @@ def load_index(
     kind = compression_of(path)
     shown = files.display_name(path)
     if kind == "gzip":
+        if os.path.getsize(path) < AUTO_INDEX_BYTES:
+            return None  # small: streaming costs no more, nothing to say
         _say_once(
             f"gzip:{shown}",
             f"{shown} is plain gzip, read from the start (bgzip gives random access to regions)",
