@@ -629,5 +629,17 @@ def compare_cmd(
         click.echo(f"seqstate: {'; '.join(parts)} -> {out or 'stdout'}", err=True)
 
 
+# ---------------------------------------------------------------- index
+@main.command("index")
+@fasta_argument
+@force_option
+@quiet_option
+def index_cmd(quiet: bool, **options: Any) -> None:
+    """Write the .fai index of FASTA (and the .gzi of a bgzip FASTA) next to it."""
+    from seqstate.commands.index import IndexOptions, index
+
+    say(quiet, index(IndexOptions(**options)).summary())
+
+
 if __name__ == "__main__":  # pragma: no cover
     main()

@@ -5,7 +5,9 @@ from __future__ import annotations
 from pathlib import Path
 
 from seqstate.errors import SequenceFormatError
+from seqstate.io import faidx
 from seqstate.io.fasta import Record, SkippedRecord, read_fasta
+from seqstate.io.regions import Region
 from seqstate.model import Model
 
 DNA = "ACGT"
@@ -22,8 +24,9 @@ def read_records(
 
     ``empty_records`` and ``skipped``: as :func:`seqstate.io.fasta.iter_fasta`.
     """
-    check = "dna" if set(model.alphabet) <= set(DNA) else None
-    return read_fasta(path, alphabet_check=check, empty_records=empty_records, skipped=skipped)
+    return read_fasta(
+        path, alphabet_check=alphabet_check_of(model), empty_records=empty_records, skipped=skipped
+    )
 
 
 def check_symbols(records: list[Record], model: Model, path: str) -> None:
@@ -53,6 +56,32 @@ def read_model_records(
     if not set(model.alphabet) <= set(DNA):
         check_symbols(records, model, path)
     return records
+
+
+def alphabet_check_of(model: Model) -> str | None:
+    """``"dna"`` when the model reads nucleotides (the FASTA readers check them), else None."""
+    return "dna" if set(model.alphabet) <= set(DNA) else None
+
+
+def indexed_lengths(path: str, model: Model) -> dict[str, int] | None:
+    """Record ID -> length (bases) from the FASTA index of ``path``, in file order.
+
+    The index is built on first use for a large file (:func:`seqstate.io.faidx.load_index`);
+    None when ``path`` has no usable index (standard input, plain gzip, a small file):
+    the caller reads the records with :func:`read_model_records`.
+    """
+    return faidx.record_lengths(path, alphabet_check=alphabet_check_of(model))
+
+
+def read_model_region(path: str, model: Model, region: Region) -> Record | None:
+    """The bases of ``region`` (0-based half-open) read through the FASTA index, checked
+    for the model's alphabet as :func:`read_model_records` checks them; None when the file
+    has no usable index (see :func:`indexed_lengths`).  ``seq[0]`` is the base at
+    ``region.start0``."""
+    record = faidx.region_record(path, region, alphabet_check=alphabet_check_of(model))
+    if record is not None and alphabet_check_of(model) is None:
+        check_symbols([record], model, path)
+    return record
 
 
 def model_inputs(spec: str) -> list[Path]:

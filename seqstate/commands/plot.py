@@ -27,13 +27,18 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from seqstate import __version__
-from seqstate.commands.inputs import model_inputs, read_model_records
+from seqstate.commands.inputs import (
+    indexed_lengths,
+    model_inputs,
+    read_model_records,
+    read_model_region,
+)
 from seqstate.commands.score import read_regions
 from seqstate.engine import api
 from seqstate.errors import ImpossibleSequenceError, OptionalDependencyError, UsageError
 from seqstate.io.atomic import OutputSet, check_outputs
 from seqstate.io.files import display_name
-from seqstate.io.regions import check_region, parse_region
+from seqstate.io.regions import Region, check_region, parse_region
 from seqstate.io.tables import load_model
 from seqstate.kinds import group_index, track_groups
 from seqstate.kinds.segments import decode_segments
@@ -190,8 +195,12 @@ def plot_data(opts: PlotOptions) -> PlotData:
     if not groups:
         raise UsageError(f"model '{model.name}' has no labelled states: nothing to plot")
     region = parse_region(opts.region)
-    records = read_model_records(opts.input, model)
-    region = check_region(region, {r.id: len(r.seq) for r in records})
+    # through the FASTA index when there is one (only the window's bytes are read)
+    lengths = indexed_lengths(opts.input, model)
+    records = read_model_records(opts.input, model) if lengths is None else []
+    if lengths is None:
+        lengths = {r.id: len(r.seq) for r in records}
+    region = check_region(region, lengths)
     size = region.end0 - region.start0
     if size > MAX_REGION and not opts.allow_large:
         raise UsageError(
@@ -199,17 +208,23 @@ def plot_data(opts: PlotOptions) -> PlotData:
             f"{MAX_REGION:,} plotted without --allow-large"
         )
     ref = read_regions(opts.reference) if opts.reference is not None else None
-    rec = next(r for r in records if r.id == region.seqid)
+    seqid, record_length = region.seqid, lengths[region.seqid]
     if opts.flank is None:
-        w0, w1 = 0, len(rec.seq)
-        name = rec.id
+        w0, w1 = 0, record_length
+        name = seqid
     else:
         w0 = max(0, region.start0 - opts.flank)
-        w1 = min(len(rec.seq), region.end0 + opts.flank)
-        name = f"{rec.id}:{w0 + 1}-{w1}"
+        w1 = min(record_length, region.end0 + opts.flank)
+        name = f"{seqid}:{w0 + 1}-{w1}"
+    if records:
+        window = next(r for r in records if r.id == seqid).seq[w0:w1]
+        del records
+    else:
+        got = read_model_region(opts.input, model, Region(seqid, w0, w1))
+        assert got is not None  # the index was there a moment ago
+        window = got.seq
     tables = api.prepare(model)
     state_group = group_index(model, groups)
-    window = rec.seq[w0:w1]
     unknown_masked = opts.masked == "unknown"
     codes = api.encode(tables, window, masked_unknown=unknown_masked)
     try:
@@ -244,7 +259,7 @@ def plot_data(opts: PlotOptions) -> PlotData:
     values = np.array(post.values[region.start0 - w0 : region.end0 - w0], dtype=np.float32)
     del post, codes
     data = PlotData(
-        rec.id,
+        seqid,
         region.start0,
         region.end0,
         model.name,
@@ -258,7 +273,7 @@ def plot_data(opts: PlotOptions) -> PlotData:
     if ref is not None:
         rows: list[str] = []
         for reg in ref.regions:
-            if reg.seqid != rec.id or reg.end0 <= region.start0 or reg.start0 >= region.end0:
+            if reg.seqid != seqid or reg.end0 <= region.start0 or reg.start0 >= region.end0:
                 continue
             kind = reg.type if ref.format != "bed" and reg.type else "interval"
             if kind not in rows:

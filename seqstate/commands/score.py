@@ -32,7 +32,12 @@ from typing import Any, TextIO
 
 import numpy as np
 
-from seqstate.commands.inputs import model_inputs, read_model_records
+from seqstate.commands.inputs import (
+    indexed_lengths,
+    model_inputs,
+    read_model_records,
+    read_model_region,
+)
 from seqstate.engine import api
 from seqstate.errors import FeatureFormatError, ImpossibleSequenceError, UsageError
 from seqstate.io.atomic import OutputSet, check_outputs
@@ -40,6 +45,7 @@ from seqstate.io.fasta import Record
 from seqstate.io.files import display_name
 from seqstate.io.gff3 import Feature, GFF3Writer
 from seqstate.io.intervals import INTERVAL_FORMATS, read_interval_file
+from seqstate.io.regions import Region
 from seqstate.io.tables import load_model
 from seqstate.kinds import Kind, kind_of
 from seqstate.kinds.segments import LOG2E, SCORE_FORMATS, format_value, score_segment
@@ -458,6 +464,29 @@ class ScoreReport:
         return f"{self.regions} region(s) ({self.format}) scored for {self.label} -> {self.where}"
 
 
+def _records_for(path: str, model: Model, rf: RegionFile) -> list[Record]:
+    """The records that hold regions, checked against the regions (:func:`check_regions`).
+
+    With a FASTA index (:func:`seqstate.commands.inputs.indexed_lengths`) only the
+    records named by a region are read, whole, through it; otherwise every record
+    is read.  Records come in FASTA order either way.
+    """
+    lengths = indexed_lengths(path, model)
+    if lengths is None:
+        records = read_model_records(path, model)
+        check_regions(rf, {r.id: len(r.seq) for r in records}, display_name(path))
+        return records
+    check_regions(rf, lengths, display_name(path))
+    used = {reg.seqid for reg in rf.regions}
+    records = []
+    for seqid, length in lengths.items():
+        if seqid in used:
+            record = read_model_region(path, model, Region(seqid, 0, length))
+            assert record is not None  # the index was there a moment ago
+            records.append(record)
+    return records
+
+
 def score(opts: ScoreOptions) -> ScoreReport:
     """Run ``seqstate score``: read, check, score, then write every output at once.
 
@@ -486,8 +515,7 @@ def score(opts: ScoreOptions) -> ScoreReport:
     rf = read_regions(opts.regions, opts.regions_format, set(opts.types) or None)
     if opts.types and rf.format == "bed":
         raise UsageError(f"--type selects GFF3 features, but {rf.path} was read as BED")
-    records = read_model_records(opts.input, model)
-    check_regions(rf, {r.id: len(r.seq) for r in records}, display_name(opts.input))
+    records = _records_for(opts.input, model, rf)
     try:
         scores = score_regions(
             model, records, rf.regions, label, flank=opts.flank, masked=opts.masked

@@ -35,7 +35,6 @@ import bisect
 import gzip
 import os
 import struct
-from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import BinaryIO
@@ -44,7 +43,7 @@ import numpy as np
 from Bio import bgzf
 
 from seqstate import log
-from seqstate.errors import SeqstateError, SequenceFormatError, UsageError
+from seqstate.errors import SequenceFormatError, UsageError
 from seqstate.io import files
 from seqstate.io.atomic import OutputSet
 from seqstate.io.fasta import DNA_ALPHABET, Record, iter_fasta
@@ -55,6 +54,7 @@ __all__ = [
     "FaiEntry",
     "FastaIndex",
     "build_index",
+    "clear_memory",
     "compression_of",
     "fai_path",
     "format_fai",
@@ -323,7 +323,9 @@ def scan_fasta(
             data = data[:cut]
         else:
             carry = b""
-        rec, line0 = _scan_lines(data, pos, line0, rec, entries, seen, alphabet_check, shown)
+        rec, line0 = _scan_lines(
+            data, pos, line0, rec, entries, seen, alphabet_check, empty_records
+        )
         pos += len(data)
         if not chunk:
             break
@@ -349,7 +351,7 @@ def _scan_lines(
     entries: list[FaiEntry],
     seen: set[str],
     alphabet_check: str | None,
-    shown: str,
+    empty_records: str,
 ) -> tuple[_Open | None, int]:
     """Scan whole lines ``data`` (starting at byte ``pos``, line ``line0``)."""
     starts = [0] if data[:1] == b">" else []
@@ -366,7 +368,7 @@ def _scan_lines(
         nl = data.find(b"\n", s)
         header_end = len(data) if nl < 0 else nl + 1
         if rec is not None:
-            _close(rec, entries, "skip")
+            _close(rec, entries, empty_records)
         title = data[s + 1 : header_end]
         try:
             words = title.decode("utf-8").split(None, 1)
@@ -416,22 +418,20 @@ def _scan_sequence(block: bytes, rec: _Open | None, alphabet_check: str | None) 
             raise _NotIndexable(f"record '{rec.name}' has a blank line before its bases")
         rec.bases = int(bases[0])
         rec.width = int(widths[0])
+    unequal = _NotIndexable(
+        f"record '{rec.name}' has lines of unequal length (every line but the last must "
+        f"hold {rec.bases} bases in {rec.width} bytes)"
+    )
     if rec.ended:
         if np.any(bases > 0):
-            raise _NotIndexable(
-                f"record '{rec.name}' has a short or blank line inside its sequence "
-                f"(every line but the last must hold {rec.bases} bases)"
-            )
+            raise unequal
         return
     full = (bases == rec.bases) & (widths == rec.width)
     bad = np.flatnonzero(~full)
     if len(bad):
         b = int(bad[0])
         if bases[b] > rec.bases or np.any(bases[b + 1 :] > 0):
-            raise _NotIndexable(
-                f"record '{rec.name}' has lines of unequal length (every line but the last "
-                f"must hold {rec.bases} bases in {rec.width} bytes)"
-            )
+            raise unequal
         rec.ended = True
     rec.length += int(bases.sum())
 
@@ -688,9 +688,10 @@ def load_index(
 ) -> FastaIndex | None:
     """The checked index of a FASTA file, or None when it cannot be used.
 
-    None for standard input, plain gzip (one ``note:`` says bgzip gives random
-    access), another compression or a missing file (the stream reader names
-    the problem), a file without an index when ``build`` is False or the file
+    None for standard input, plain gzip (for a file of at least
+    :data:`AUTO_INDEX_BYTES`, one ``note:`` says bgzip gives random access),
+    another compression or a missing file (the stream reader names the
+    problem), a file without an index when ``build`` is False or the file
     is smaller than :data:`AUTO_INDEX_BYTES`, and a FASTA whose lines a
     ``.fai`` cannot describe (with a note).  A missing index of a large file is
     built next to it (or in memory, with a note, when the folder is not
@@ -700,6 +701,8 @@ def load_index(
     kind = compression_of(path)
     shown = files.display_name(path)
     if kind == "gzip":
+        if os.path.getsize(path) < AUTO_INDEX_BYTES:
+            return None  # small: streaming costs no more, nothing to say
         _say_once(
             f"gzip:{shown}",
             f"{shown} is plain gzip, read from the start (bgzip gives random access to regions)",
@@ -757,6 +760,11 @@ def _read_index(
     return FastaIndex(Path(path), kind, {e.name: e for e in entries}, pairs)
 
 
+def _writable(folder: Path) -> bool:
+    """True if index files may be created in ``folder``."""
+    return os.access(folder, os.W_OK | os.X_OK)
+
+
 def _first_use(
     path: str | os.PathLike[str],
     kind: str,
@@ -782,8 +790,7 @@ def _first_use(
             raise
         _say_once(f"layout:{shown}", f"{shown} {exc.message}; reading it whole")
         return None
-    folder = Path(path).parent
-    if os.access(folder, os.W_OK | os.X_OK):
+    if _writable(Path(path).parent):
         try:
             if entries is not None and index.gzi is not None:
                 with OutputSet(inputs=[path]) as outs:
@@ -894,34 +901,21 @@ def _bases(index: FastaIndex, e: FaiEntry, start0: int, end0: int) -> bytes:
     raw = index.read(first, last)
     seq = raw.translate(None, b"\r\n")
     breaks = (end0 - 1) // e.line_bases - start0 // e.line_bases
-    if len(seq) != end0 - start0 or len(raw) - len(seq) != breaks * (e.line_width - e.line_bases):
+    ok = len(seq) == end0 - start0 and len(raw) - len(seq) == breaks * (e.line_width - e.line_bases)
+    if ok and breaks:
+        # each line feed where the index puts it: after the last base of each full line
+        arr = np.frombuffer(raw, dtype=np.uint8)
+        first_lf = (e.line_bases - start0 % e.line_bases) + (e.line_width - e.line_bases) - 1
+        at = first_lf + e.line_width * np.arange(breaks)
+        ok = bool(np.all(arr[at] == 10)) and raw.count(b"\n") == breaks
+    if not ok:
         raise _Stale(
             f"record '{e.name}': bases {start0 + 1}-{end0} are not where the index puts them"
         )
-    if breaks and any(ch in seq for ch in _WHITESPACE + b">"):
-        raise _Stale(f"record '{e.name}': bases {start0 + 1}-{end0} hold a line that is not bases")
     return seq
-
-
-def iter_region_records(
-    path: str | os.PathLike[str],
-    regions: list[Region],
-    *,
-    alphabet_check: str | None = "dna",
-    build: bool = True,
-) -> Iterator[Record] | None:
-    """:func:`region_record` for several regions, or None when the file has no usable index."""
-    if load_index(path, build=build, alphabet_check=alphabet_check) is None:
-        return None
-    return (region_record(path, r, alphabet_check=alphabet_check) for r in regions)
 
 
 def clear_memory() -> None:
     """Forget indexes kept in memory and notes given (tests; a long-lived process)."""
     _MEMORY.clear()
     _SAID.clear()
-
-
-def is_index_error(exc: SeqstateError) -> bool:
-    """True for an error about an index (its message says how to rebuild it)."""
-    return "seqstate index --force" in exc.message
