@@ -255,3 +255,40 @@ def test_quiet_progress_says_nothing_and_log_runs_get_the_plain_kind(monkeypatch
     assert isinstance(quiet, log.QuietProgress)
     monkeypatch.setattr(sys, "stderr", io.StringIO())
     assert log.progress_for(False).live is False  # stderr is not a terminal
+
+
+# ---------------------------------------------------------------- long records
+@pytest.mark.parametrize(
+    "model,decode,extra",
+    [
+        ("cpg-island", "posterior", ["--tracks", "both"]),
+        ("cpg-island", "viterbi", []),
+        ("cpg-island-8", "posterior", ["--masked", "unknown"]),
+        ("gene-segment", "posterior", []),
+        ("gene-segment", "viterbi", ["--tracks", "none"]),
+    ],
+)
+def test_long_records_window_by_window_write_the_bytes_of_the_whole_record_path(
+    tmp_path, monkeypatch, model, decode, extra
+):
+    # the whole-record path (every record short) is the reference; with a tiny threshold
+    # every record goes window by window (spilled, checkpointed, windows of a few blocks)
+    fasta = tmp_path / "long.fa"
+    length = "60000" if model == "gene-segment" else "150000"
+    res = run(
+        ["sample", model, "--length", length, "--records", "3", "--seed", "21", "-o", fasta, "-q"]
+    )
+    assert res.exit_code == 0, res.output
+    text = fasta.read_text()  # a run of unknown bases inside a record, and soft-masking
+    lines = text.splitlines()
+    lines[5] = "N" * 15 + lines[5][15:].lower()
+    fasta.write_text("\n".join(lines) + "\n")
+    args = ["annotate", fasta, "-m", model, "--decode", decode, "-q", *extra]
+    assert run(args + ["-o", tmp_path / "whole"]).exit_code == 0
+    monkeypatch.setattr(annotate_run, "long_threshold", lambda *a: 1000)
+    monkeypatch.setattr(annotate_run, "window_length", lambda *a: 4096)
+    for jobs in (1, 2):
+        out = tmp_path / f"windows{jobs}"
+        res = run(args + ["-o", out, "--jobs", jobs])
+        assert res.exit_code == 0, res.output
+        assert files_of(out) == files_of(tmp_path / "whole")

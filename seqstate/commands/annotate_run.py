@@ -235,7 +235,7 @@ class Runner:
 
     def long_record(self, item: Item, writer: OutputWriter) -> RecordOutput:
         """The window-by-window path of a long record, written straight to the outputs."""
-        from seqstate.kinds.stream import StreamRecord, write_stream_record
+        from seqstate.kinds.stream import StreamRecord
 
         tables = self.tables
         order = tables.order
@@ -277,17 +277,19 @@ class Runner:
         )
 
         def track_sink(g: int, a: int, values: np.ndarray) -> None:
-            writer.track_piece(g, item.id, start0 + a, values)
+            # ``a``: record coordinates (the stretch's offset included)
+            writer.track_piece(g, item.id, a, values)
             if g == 0:
                 self.progress.advance(int(values.shape[0]), item.id)
 
         try:
-            n_feat, loglik, unknown = write_stream_record(
-                self.kind, rec, writer.gff_writer, writer.tsv, track_sink
+            n_feat, loglik, unknown = self.kind.write_stream(
+                rec, writer.gff_writer, writer.tsv, track_sink
             )
         finally:
             item.close()
         writer.end_track_record(item.id, item.length)
+        writer.note_region(item.id, start0, item.end0)
         return RecordOutput(item.id, item.length, start0, item.end0, unknown, loglik, n_feat)
 
     # ------------------------------------------------------------ the loop
