@@ -12,6 +12,8 @@ threads.  One check compares with the plain-NumPy scaled forward-backward of
 
 from __future__ import annotations
 
+import time
+
 import numpy as np
 import pytest
 from helpers import kernel_family, sample_record
@@ -384,7 +386,7 @@ def test_bad_arguments_are_refused(random_model, kernel_switch):
     with pytest.raises(ValueError, match="empty record"):
         stream.checkpoints(t, 0, _reader(codes))
     with pytest.raises(ValueError, match="threads"):
-        stream.checkpoints(t, 50, _reader(codes), threads=3)
+        stream.checkpoints(t, 50, _reader(codes), threads=0)
     with pytest.raises(ValueError, match="code reader gave"):
         stream.checkpoints(t, 50, lambda a, b: codes[a : b - 1])
     with pytest.raises(ValueError, match="group"):
@@ -398,3 +400,28 @@ def test_bad_arguments_are_refused(random_model, kernel_switch):
         stream.posterior_blocks(t, ck, codes[:10], 0, 1)
     with pytest.raises(ValueError, match="codes must hold"):
         stream.view(t, ck, codes[:10], 0, 1, None)
+
+
+def test_a_failing_reader_stops_both_passes(random_model, kernel_switch):
+    """An error of the code reader (here an OSError on one chunk of the backward pass)
+    comes out of checkpoints as it is, with one or two threads; with two, the forward
+    pass (made slow here: 5 ms per chunk) stops at its next chunk instead of reading on."""
+    model, t = _tables("small", random_model, kernel_switch)
+    n = 405
+    codes = _codes(model, t, n, seed=6)
+    for threads in (1, 2):
+        forward: list[int] = []
+
+        def read(a, b, forward=forward):
+            if a % 10 == 0:  # a forward chunk (the backward ones start at 5 modulo 10)
+                forward.append(a)
+                time.sleep(0.005)
+            if (a, b) == (195, 205):
+                raise OSError("disk gone")
+            return codes[a:b]
+
+        with kernel_switch("specialised"):
+            with pytest.raises(OSError, match="disk gone"):
+                stream.checkpoints(t, n, read, block=BLOCK, chunk=10, threads=threads)
+        # one thread: the backward pass runs first and fails before any forward chunk
+        assert len(forward) < (1 if threads == 1 else 20)
