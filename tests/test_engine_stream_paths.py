@@ -422,12 +422,17 @@ def test_mea_pieces_gene_segment(mea_budget):
     gain = api.posterior(t, codes, group=cls, n_groups=n_cls).values
     want = _old_mea(t, codes, gain, cls)
     assert np.array_equal(mea.mea(t, codes, gain, cls), want)
+    assert kernel_family(t) == "sparse"  # the slot kernels (mea_sparse) serve it
     got = _joined(mea_pieces(t, n, Reader(codes), Reader(gain), cls, block=777), n)
     assert np.array_equal(got, want)
+    with api_generic():  # the plain streaming kernels on the same record
+        got = _joined(mea_pieces(t, n, Reader(codes), Reader(gain), cls, block=500), n)
+        assert np.array_equal(got, want)
 
 
-def test_mea_pieces_impossible_record():
+def test_mea_pieces_impossible_record(monkeypatch):
     """No allowed path: the same error as the whole-record kernel (ValueError, position)."""
+    monkeypatch.setattr(mea, "WINDOW", 1000)  # position 2100 lies in the third window
     t = api.prepare(_alternating_model())
     cls = np.array([0, 1])
     for seq, pos in ((b"ACAAC", 4), (b"CA", 1), (b"ACACACACACAAC", 12)):
@@ -442,6 +447,26 @@ def test_mea_pieces_impossible_record():
             mea.mea(t, codes, gain, cls)
         with pytest.raises(ValueError, match=f"reaches position {pos}$"):
             mea_pieces(t, n, Reader(codes), Reader(gain), cls, block=2)
+    # the chain-sparse slot kernels: a base no state can emit, in the first block, a later
+    # block and a later window, and the first base
+    ring = api.prepare(_ring_model())
+    assert kernel_family(ring) == "sparse"
+    good = "".join(ALPHABET[s % 4] for s in range(3000))
+    cls = np.zeros(ring.n_states, dtype=np.int64)
+    for pos in (3, 58, 2100, 1):
+        seq = good[: pos - 1] + ALPHABET[(pos - 1 + 2) % 4] + good[pos:]
+        codes = api.encode(ring, seq)
+        gain = np.ones((3000, 1))
+        ptr, src = mea.predecessors(ring.transitions)
+        path = np.zeros(3000, dtype=np.int32)
+        _, failed = mea.mea_path(
+            codes, gain, cls, ring.E, ring.start > 0, ring.end > 0, ptr, src, 64, path
+        )
+        assert failed == pos - 1
+        for generic in (False, True):
+            with api_generic() if generic else _null():
+                with pytest.raises(ValueError, match=f"reaches position {pos}$"):
+                    mea_pieces(ring, 3000, Reader(codes), Reader(gain), cls, block=64)
     # an end no state may take
     ring = api.prepare(_ring_model(with_end=True))
     seq = "".join(ALPHABET[s % 4] for s in range(100))

@@ -289,8 +289,13 @@ def test_genes_from_runs_equal_genes_from_path():
 
         def state_at(q: int, path=path) -> int:
             nonlocal probed
-            # only asked next to an unknown base (what the windowed path records)
-            assert not unknown[q] and (unknown[max(0, q - 1)] or unknown[min(len(path) - 1, q + 1)])
+            # only asked what the windowed path records: a known plus-strand CDS base
+            # after an unknown one, or a minus-strand CDS base before an unknown one
+            kq = key[path[q]]
+            assert not unknown[q]
+            assert (kq == 2 and q > 0 and unknown[q - 1]) or (
+                kq == 4 and q + 1 < len(path) and unknown[q + 1]
+            )
             probed += 1
             return int(path[q])
 

@@ -136,10 +136,11 @@ def mea_path(codes, gain, cls, E, start_ok, end_ok, p_ptr, p_src, block, path):
 
 # ----------------------------------------------------------------- streaming kernels
 @nb.njit(**_JIT)
-def _mea_step(X, xr, Y, yr, B, br, c, g, cls, emit, p_ptr, p_src, col):
-    """One step X[xr] -> Y[yr] with gain row ``g``; winners' ranks of multi-predecessor states
-    into B[br, col[j]].  The operations and tie rule of :func:`_step`: the best predecessor
-    (strictly greater replaces, so the lowest index wins), then the gain of the state's class.
+def _mea_step(X, xr, Y, yr, B, br, c, G, gr, cls, emit, p_ptr, p_src, col):
+    """One step X[xr] -> Y[yr] with gain row G[gr] (array and index: no row view); the
+    winners' ranks of multi-predecessor states into B[br, col[j]].  The operations and tie
+    rule of :func:`_step`: the best predecessor (strictly greater replaces, so the lowest
+    index wins), then the gain of the state's class.
     Returns True when some state is reachable."""
     m = Y.shape[1]
     c = uintp(c)
@@ -151,7 +152,7 @@ def _mea_step(X, xr, Y, yr, B, br, c, g, cls, emit, p_ptr, p_src, col):
             if hi - lo == 1:
                 v = X[xr, uintp(p_src[lo])]
                 if v > NEG:
-                    Y[yr, j] = v + g[uintp(cls[j])]
+                    Y[yr, j] = v + G[gr, uintp(cls[j])]
                     any_ok = True
                 else:
                     Y[yr, j] = NEG
@@ -164,7 +165,7 @@ def _mea_step(X, xr, Y, yr, B, br, c, g, cls, emit, p_ptr, p_src, col):
                         best = v
                         arg = q - lo
                 if arg >= 0:
-                    Y[yr, j] = best + g[uintp(cls[j])]
+                    Y[yr, j] = best + G[gr, uintp(cls[j])]
                     B[br, uintp(col[j])] = arg
                     any_ok = True
                 else:
@@ -217,7 +218,7 @@ def stream_forward(
         i = i0 + r
         dst = 1 - src
         br = i - tail0 + 1 if i >= tail0 else 0
-        if not _mea_step(rows, src, rows, dst, tail, br, codes[r], gain[r], cls, emit, p_ptr,
+        if not _mea_step(rows, src, rows, dst, tail, br, codes[r], gain, r, cls, emit, p_ptr,
                          p_src, col):  # fmt: skip
             return i
         src = dst
@@ -257,7 +258,7 @@ def stream_block_path(
     src = 0
     for r in range(1, n1):
         dst = 1 - src
-        _mea_step(rows, src, rows, dst, bps, r, codes[r], gain[r], cls, emit, p_ptr, p_src, col)
+        _mea_step(rows, src, rows, dst, bps, r, codes[r], gain, r, cls, emit, p_ptr, p_src, col)
         src = dst
     state = known
     if state < 0:
@@ -459,6 +460,113 @@ class Stream:
             yield b0, b1, out
 
 
+class SlotStream(Stream):
+    """:class:`Stream` in the renumbered slots of the chain-sparse family
+    (:mod:`seqstate.engine.mea_sparse`): the same path, fewer operations per base."""
+
+    def __init__(
+        self,
+        tables,
+        sp,
+        n: int,
+        codes: Callable[[int, int], np.ndarray],
+        gain: Callable[[int, int], np.ndarray],
+        state_class: np.ndarray,
+        block: int,
+        window: int | None = None,
+        budget: int | None = None,
+    ) -> None:
+        from seqstate.engine import mea_sparse
+
+        window = WINDOW if window is None else window
+        budget = BACKPOINTER_BUDGET if budget is None else budget
+        m = tables.n_states
+        self.sp = sp
+        self.n, self.block, self.codes, self.gain = n, block, codes, gain
+        self.cls = np.ascontiguousarray(state_class, dtype=np.int64)
+        emit = np.ascontiguousarray(np.asarray(tables.E) > 0).view(np.uint8)
+        start_ok = np.ascontiguousarray(np.asarray(tables.start) > 0)
+        end_ok = np.ascontiguousarray(np.asarray(tables.end) > 0)
+        lin = np.where(sp.la1 > NEG, 0.0, NEG)
+        emadd = np.ascontiguousarray(np.where(sp.E > 0, 0.0, NEG))
+        clsp = np.ascontiguousarray(self.cls[sp.perm])
+        self.step = (lin, emadd, clsp, sp.f_ptr, sp.f_n0, sp.f_dst, sp.f_src, sp.f_rank)
+        self.step = (*self.step, sp.f_col)
+        self.tb = (sp.tb_prev, sp.tb_col, sp.p_ptr, sp.p_src)
+        self.ge = work_buffer(m)
+        nblocks = (n + block - 1) // block
+        width = sp.n_multi + 1
+        dt = np.dtype(sp.bp_dtype)
+        self.rows = work_buffer((2, m + 2))
+        self.carry = np.zeros(1, dtype=np.int64)
+        self.ck = work_buffer((nblocks, m + 2))
+        kept = min(nblocks, budget // max(1, block * width * dt.itemsize))
+        self.tail0 = (nblocks - kept) * block
+        self.tail = work_buffer((max(0, n - self.tail0) + 1, width), dt)
+        self.bps = work_buffer((block, width), dt)
+        a = 0
+        self.failed = -1
+        while a < n:
+            b = min(n, a + window)
+            fail = mea_sparse.slot_forward(
+                _rows(codes, a, b, "codes"), _rows(gain, a, b, "gain"), a, block, self.tail0,
+                self.rows, self.carry, self.ck, self.tail, self.ge, sp.inv, self.cls, emit,
+                start_ok, *self.step,
+            )  # fmt: skip
+            if fail >= 0:
+                self.failed = self._locate(int(fail))
+                return
+            a = b
+        self.total, last = mea_sparse.slot_final(self.rows, self.carry, sp.inv, end_ok)
+        self.last = int(last)
+        if self.last < 0:
+            self.failed = n - 1
+
+    def _locate(self, fail: int) -> int:
+        from seqstate.engine import mea_sparse
+
+        if fail == 0:
+            return 0
+        k = fail // self.block
+        while k > 0 and not np.any(self.ck[k, 1:-1] > NEG):
+            k -= 1
+        a = k * self.block
+        codes = _rows(self.codes, a, fail + 1, "codes")
+        gain = _rows(self.gain, a, fail + 1, "gain")
+        work = work_buffer((2, self.sp.n_states + 2))
+        pos = mea_sparse.slot_locate(
+            codes, gain, a, self.ck[k], work, self.bps, self.ge, *self.step
+        )
+        return fail if pos < 0 else int(pos)
+
+    def blocks(self) -> Iterator[tuple[int, int, np.ndarray]]:
+        from seqstate.engine import mea_sparse, stream_viterbi
+
+        self.check()
+        n, block, sp = self.n, self.block, self.sp
+        known, nxt = self.last, -1
+        for bk in range((n + block - 1) // block - 1, -1, -1):
+            b0 = bk * block
+            b1 = min(n, b0 + block)
+            out = work_buffer(b1 - b0, np.int32)
+            if b0 >= self.tail0:
+                known = int(
+                    stream_viterbi.sparse_tail_path(
+                        b0, b1, self.tail0, self.tail, known, out, sp.perm, *self.tb
+                    )
+                )
+            else:
+                codes = _rows(self.codes, b0, b1, "codes")
+                gain = _rows(self.gain, b0, b1, "gain")
+                mea_sparse.slot_block_path(
+                    codes, gain, self.ck, bk, known, nxt, self.rows, self.bps, out, self.ge,
+                    sp.perm, *self.step, *self.tb,
+                )  # fmt: skip
+                known = -1
+            nxt = int(sp.inv[int(out[0])])
+            yield b0, b1, out
+
+
 def _rows(reader: Callable[[int, int], np.ndarray], a: int, b: int, what: str) -> np.ndarray:
     arr = np.ascontiguousarray(reader(a, b))
     if arr.shape[0] != b - a:
@@ -483,7 +591,15 @@ def path_blocks(
 
     if n <= 0:
         raise ValueError("empty record")
+    from seqstate.engine.api import backend_of
+    from seqstate.engine.backends import SparseBackend
+
     block = default_block(n) if block is None else max(1, min(int(block), n))
-    stream = Stream(tables, n, codes, gain, state_class, block)
+    backend = backend_of(tables)
+    stream: Stream
+    if isinstance(backend, SparseBackend):
+        stream = SlotStream(tables, backend.sp, n, codes, gain, state_class, block)
+    else:
+        stream = Stream(tables, n, codes, gain, state_class, block)
     stream.check()
     return stream.blocks()

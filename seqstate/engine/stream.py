@@ -35,7 +35,7 @@ from __future__ import annotations
 
 import threading
 from collections.abc import Callable
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import ThreadPoolExecutor, wait
 from dataclasses import dataclass
 
 import numpy as np
@@ -126,14 +126,23 @@ def _check_group(m: int, group: np.ndarray | None, n_groups: int | None) -> tupl
     return group, int(n_groups)
 
 
+class _Cancelled(Exception):
+    """A pass stopped because the other one failed or was interrupted."""
+
+
 class _Reader:
-    """A :data:`CodeReader` whose calls are serialised and whose answers are checked."""
+    """A :data:`CodeReader` whose calls are serialised and whose answers are checked;
+    once ``stop`` is set, every call raises :class:`_Cancelled` (a pass on the other
+    thread then ends at its next chunk)."""
 
     def __init__(self, codes: CodeReader, n: int) -> None:
         self.codes, self.n = codes, n
         self.lock = threading.Lock()
+        self.stop = threading.Event()
 
     def __call__(self, a: int, b: int) -> np.ndarray:
+        if self.stop.is_set():
+            raise _Cancelled
         with self.lock:
             out = self.codes(a, b)
         out = np.asarray(out)
@@ -142,6 +151,13 @@ class _Reader:
                 f"the code reader gave {out.shape} codes for positions [{a}, {b}); expected {b - a}"
             )
         return out
+
+
+def _threads(threads: int) -> int:
+    """1 or 2 (the passes use at most two threads); ValueError below 1."""
+    if int(threads) < 1:
+        raise ValueError(f"threads must be at least 1, not {threads!r}")
+    return min(2, int(threads))
 
 
 def _chunks_forward(n: int, chunk: int):
@@ -355,6 +371,32 @@ def _first_failure(tables: EngineTables, read, n: int, chunk: int) -> int:
     return pos
 
 
+def _forward_job(fam, read, n, block, chunk, alpha_ck, alpha_ck_log) -> tuple[float, int]:
+    """The forward pass on the second thread; a failure stops the backward pass."""
+    try:
+        ll, pos = fam.forward(read, n, block, chunk, alpha_ck, alpha_ck_log)
+    except BaseException:
+        read.stop.set()
+        raise
+    if pos >= 0:
+        read.stop.set()
+    return ll, pos
+
+
+def _spans(fam, codes, base, ck, group, n_groups, out, first_block, stop_block, stop) -> int:
+    """``fam.span`` over blocks ``[first_block, stop_block)`` in pieces of about
+    :data:`DEFAULT_CHUNK` positions, ending early once ``stop`` is set; the first
+    failing position or -1."""
+    step = max(1, DEFAULT_CHUNK // ck.block)
+    for lo in range(first_block, stop_block, step):
+        if stop is not None and stop.is_set():
+            return -1
+        pos = fam.span(codes, base, ck, lo, min(stop_block, lo + step), group, n_groups, out)
+        if pos >= 0:
+            return pos
+    return -1
+
+
 # ----------------------------------------------------------------- public API
 def checkpoints(
     tables: EngineTables,
@@ -373,7 +415,7 @@ def checkpoints(
     positions at a time (the backward pass reads chunks from the end).
 
     ``block`` defaults to :func:`api.default_block` of ``n`` as in :func:`api.posterior`.
-    ``threads=2`` runs the two passes at once on two threads.  ``group``/``n_groups``:
+    ``threads >= 2`` runs the two passes at once on two threads.  ``group``/``n_groups``:
     the posterior columns to be asked of :func:`posterior_blocks` (only the sparse
     family's numbering depends on them; see the module docstring).  The arrays equal
     ``api.posterior(tables, all_codes, group=group, n_groups=n_groups, block=block)``'s
@@ -385,8 +427,7 @@ def checkpoints(
     n = int(n)
     if n <= 0:
         raise ValueError("empty record")
-    if threads not in (1, 2):
-        raise ValueError(f"threads must be 1 or 2, not {threads!r}")
+    threads = _threads(threads)
     chunk = int(chunk)
     if chunk < 1:
         raise ValueError(f"chunk must be at least 1, not {chunk}")
@@ -400,11 +441,21 @@ def checkpoints(
     beta_ck, beta_ck_log = np.zeros((nblocks, m)), np.zeros(nblocks)
     if threads == 2:
         with ThreadPoolExecutor(max_workers=1, thread_name_prefix="seqstate-forward") as pool:
-            fut = pool.submit(fam.forward, read, n, block, chunk, alpha_ck, alpha_ck_log)
+            fut = pool.submit(_forward_job, fam, read, n, block, chunk, alpha_ck, alpha_ck_log)
             try:
                 bpos = fam.backward(read, n, block, chunk, beta_ck, beta_ck_log)
-            finally:
+            except _Cancelled:
+                bpos = n  # the forward pass failed first
+            except BaseException:
+                read.stop.set()  # the forward pass ends at its next chunk
+                wait([fut])
+                raise
+            if bpos >= 0:
+                read.stop.set()
+            try:
                 ll, fpos = fut.result()
+            except _Cancelled:
+                ll, fpos = -np.inf, n
     else:
         bpos = fam.backward(read, n, block, chunk, beta_ck, beta_ck_log)
         ll, fpos = (
@@ -413,7 +464,7 @@ def checkpoints(
             else fam.forward(read, n, block, chunk, alpha_ck, alpha_ck_log)
         )
     if bpos >= 0 or fpos >= 0:
-        pos = _first_failure(tables, read, n, chunk)
+        pos = _first_failure(tables, _Reader(codes, n), n, chunk)
         raise ImpossibleSequenceError(_impossible_message(record, pos, n))
     key = getattr(fam, "key", b"")
     return RecordCheckpoints(n, block, float(ll), alpha_ck, alpha_ck_log, beta_ck, beta_ck_log, key)
@@ -437,8 +488,9 @@ def posterior_blocks(
     Rows are positions ``[first_block * block, min(n, stop_block * block))`` (row 0 is
     the first of them), columns the groups as in :func:`api.posterior` (per state when
     ``group`` is None); ``codes`` are the codes of exactly those positions.  The values
-    are bit-identical to ``api.posterior(...).values`` on those rows.  ``threads=2``
-    splits the blocks over two threads.  Memory: the output plus O(block * M).
+    are bit-identical to ``api.posterior(...).values`` on those rows (for the sparse
+    family: when ``ck`` was made with the same ``group``, see the module docstring).
+    ``threads >= 2`` splits the blocks over two threads.  Memory: the output plus O(block * M).
     """
     first_block, stop_block = int(first_block), int(stop_block)
     if not 0 <= first_block < stop_block <= ck.nblocks:
@@ -446,8 +498,7 @@ def posterior_blocks(
             f"blocks [{first_block}, {stop_block}) are not a non-empty run of the "
             f"record's {ck.nblocks} blocks"
         )
-    if threads not in (1, 2):
-        raise ValueError(f"threads must be 1 or 2, not {threads!r}")
+    threads = _threads(threads)
     start0, end0 = ck.span_of(first_block, stop_block)
     codes = np.asarray(codes)
     if codes.ndim != 1 or codes.shape[0] != end0 - start0:
@@ -457,17 +508,22 @@ def posterior_blocks(
     group, n_groups = _check_group(tables.n_states, group, n_groups)
     out = np.zeros((end0 - start0, n_groups), dtype=dtype)
     fam = _family(tables, group, n_groups)
+    job = (fam, codes, start0, ck, group, n_groups, out)
     if threads == 2 and stop_block - first_block >= 2:
         mid = (first_block + stop_block) // 2
+        stop = threading.Event()
         with ThreadPoolExecutor(max_workers=1, thread_name_prefix="seqstate-span") as pool:
-            fut = pool.submit(fam.span, codes, start0, ck, first_block, mid, group, n_groups, out)
+            fut = pool.submit(_spans, *job, first_block, mid, stop)
             try:
-                pos2 = fam.span(codes, start0, ck, mid, stop_block, group, n_groups, out)
-            finally:
-                pos1 = fut.result()
+                pos2 = _spans(*job, mid, stop_block, stop)
+            except BaseException:
+                stop.set()  # the other thread ends at its next piece
+                wait([fut])
+                raise
+            pos1 = fut.result()
         pos = pos1 if pos1 >= 0 else pos2
     else:
-        pos = fam.span(codes, start0, ck, first_block, stop_block, group, n_groups, out)
+        pos = _spans(*job, first_block, stop_block, None)
     if pos >= 0:
         raise ImpossibleSequenceError(_impossible_message(record, pos, ck.n))
     return out

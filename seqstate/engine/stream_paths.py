@@ -24,6 +24,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from seqstate.engine import api, mea, stream_viterbi
+from seqstate.engine.backends import SmallBackend, SparseBackend
 from seqstate.engine.buffers import work_buffer
 from seqstate.errors import ImpossibleSequenceError
 
@@ -81,7 +82,17 @@ def _impossible(record: str | None, pos: int, n: int) -> ImpossibleSequenceError
 
 # ----------------------------------------------------------------- the kernel families
 class _Generic:
-    """The generic kernels' steps (original state numbers)."""
+    """The generic kernels' steps (original state numbers).
+
+    Each family keeps its running rows, checkpoints (``ck``), one block of back-pointers
+    (``bps``) and the kept back-pointers of the last positions (``tail``, from ``tail0``).
+    """
+
+    steps: tuple[np.ndarray, ...]
+    bp_dtype: np.dtype
+    width: int
+    tail0: int
+    tail: np.ndarray
 
     def __init__(self, t: api.EngineTables, n: int, block: int) -> None:
         m = t.n_states
@@ -108,12 +119,12 @@ class _Generic:
     def final(self) -> tuple[float, int]:
         return stream_viterbi.generic_final(self.rows, self.carry, self.t.log_end)
 
-    def block_path(self, codes, bk: int, known: int, nxt: int, out: np.ndarray) -> None:
+    def block_path(self, codes: np.ndarray, bk: int, known: int, nxt: int, out: np.ndarray) -> None:
         stream_viterbi.generic_block_path(
             codes, self.ck, bk, known, nxt, self.rows, self.bps, out, *self.steps
         )
 
-    def tail_path(self, reader, b0: int, b1: int, known: int, out: np.ndarray) -> int:
+    def tail_path(self, reader: CodeReader, b0: int, b1: int, known: int, out: np.ndarray) -> int:
         return stream_viterbi.generic_tail_path(b0, b1, self.tail0, self.tail, known, out)
 
     def native(self, state: int) -> int:
@@ -123,9 +134,8 @@ class _Generic:
 class _Small(_Generic):
     """The two-states-per-code steps (compact indices into each position's emitters)."""
 
-    def __init__(self, t: api.EngineTables, n: int, block: int) -> None:
-        sm = t.backend.sm if t.backend.name == "small" else None
-        assert sm is not None
+    def __init__(self, t: api.EngineTables, n: int, block: int, backend: SmallBackend) -> None:
+        sm = backend.sm
         self.t, self.sm = t, sm
         kmax = sm.kmax
         self.steps = (sm.K, sm.st, sm.wide, sm.cls, sm.LT, sm.LE, sm.logT, sm.logE)
@@ -145,11 +155,11 @@ class _Small(_Generic):
         sm = self.sm
         return stream_viterbi.small_final(self.da, self.carry, sm.K, sm.st, sm.log_end)
 
-    def block_path(self, codes, bk: int, known: int, nxt: int, out: np.ndarray) -> None:
+    def block_path(self, codes: np.ndarray, bk: int, known: int, nxt: int, out: np.ndarray) -> None:
         work = (self.da, self.va, self.bpa, self.bps, out)
         stream_viterbi.small_block_path(codes, self.ck, bk, known, nxt, *work, *self.steps)
 
-    def tail_path(self, reader, b0: int, b1: int, known: int, out: np.ndarray) -> int:
+    def tail_path(self, reader: CodeReader, b0: int, b1: int, known: int, out: np.ndarray) -> int:
         codes = _read(reader, b0, b1, "codes")
         return stream_viterbi.small_tail_path(
             codes, b0, self.tail0, self.tail, known, self.sm.st, out
@@ -159,12 +169,12 @@ class _Small(_Generic):
 class _Sparse(_Generic):
     """The chain-sparse steps (renumbered states, slot rows of M + 2)."""
 
-    def __init__(self, t: api.EngineTables, n: int, block: int) -> None:
-        sp = t.backend.sp
+    def __init__(self, t: api.EngineTables, n: int, block: int, backend: SparseBackend) -> None:
+        sp = backend.sp
         self.t, self.sp = t, sp
         m = sp.n_states
-        self.fix = (sp.la1, sp.logE, sp.f_ptr, sp.f_n0, sp.f_dst, sp.f_src, sp.f_lp)
-        self.fix += (sp.f_rank, sp.f_col)
+        self.fix: tuple[np.ndarray, ...] = (sp.la1, sp.logE, sp.f_ptr, sp.f_n0, sp.f_dst)
+        self.fix += (sp.f_src, sp.f_lp, sp.f_rank, sp.f_col)
         self.tb = (sp.tb_prev, sp.tb_col, sp.p_ptr, sp.p_src)
         self.rows = work_buffer((2, m + 2))
         self.carry = np.zeros(1, dtype=np.int64)
@@ -192,14 +202,14 @@ class _Sparse(_Generic):
         sp = self.sp
         return stream_viterbi.sparse_final(self.rows, self.carry, sp.inv, sp.log_end)
 
-    def block_path(self, codes, bk: int, known: int, nxt: int, out: np.ndarray) -> None:
+    def block_path(self, codes: np.ndarray, bk: int, known: int, nxt: int, out: np.ndarray) -> None:
         sp = self.sp
         stream_viterbi.sparse_block_path(
             codes, self.ck, bk, known, nxt, self.rows, self.bps, out, sp.perm, *self.fix,
             *self.tb, sp.p_lp,
         )  # fmt: skip
 
-    def tail_path(self, reader, b0: int, b1: int, known: int, out: np.ndarray) -> int:
+    def tail_path(self, reader: CodeReader, b0: int, b1: int, known: int, out: np.ndarray) -> int:
         sp = self.sp
         return stream_viterbi.sparse_tail_path(
             b0, b1, self.tail0, self.tail, known, out, sp.perm, *self.tb
@@ -210,12 +220,14 @@ class _Sparse(_Generic):
 
 
 def _family(tables: api.EngineTables, n: int, block: int) -> _Generic:
-    name = api.backend_of(tables).name
-    if name == "small":
-        return _Small(tables, n, block)
-    if name == "sparse":
-        return _Sparse(tables, n, block)
-    return _Generic(tables, n, block)  # any other family: the generic steps, same paths
+    """The steps of the family that serves ``tables`` now (:func:`api.backend_of`); any
+    other family gets the generic steps (same paths and log probabilities)."""
+    backend = api.backend_of(tables)
+    if isinstance(backend, SmallBackend):
+        return _Small(tables, n, block, backend)
+    if isinstance(backend, SparseBackend):
+        return _Sparse(tables, n, block, backend)
+    return _Generic(tables, n, block)
 
 
 # ----------------------------------------------------------------- Viterbi

@@ -42,6 +42,14 @@ _ONE = uintp(1)
 
 
 @njit(**_JIT)
+def _dummies(R, m):
+    """The dummy slots 0 and M + 1 of both rows of ``R`` hold -inf (the steps read them)."""
+    for r in range(2):
+        R[r, 0] = -np.inf
+        R[r, m + 1] = -np.inf
+
+
+@njit(**_JIT)
 def _first_ck(i0, block):
     """The first block start at or after ``max(i0, 1)``."""
     j = i0 if i0 > 1 else 1
@@ -388,6 +396,7 @@ def sparse_forward(
     src = carry[0]
     j0 = 0
     if i0 == 0:
+        _dummies(rows, m)
         for s in range(m + 2):
             rows[0, s] = -np.inf
         c = uintp(codes[0])
@@ -427,6 +436,7 @@ def sparse_locate(codes, i0, row, work, bps, la1, logE, f_ptr, f_n0, f_dst, f_sr
     """The first impossible position at or after ``i0 + 1``, stepping from ``row`` (the
     possible delta row at ``i0``; ``codes`` the positions from ``i0``); -1 if none."""
     m = work.shape[1] - 2
+    _dummies(work, m)
     for s in range(m + 2):
         work[0, s] = row[s]
     src = 0
@@ -467,6 +477,7 @@ def sparse_block_path(
     ``known`` a renumbered state at the block's last position, ``nxt`` one at the next."""
     n1 = codes.shape[0]
     m = rows.shape[1] - 2
+    _dummies(rows, m)
     for s in range(m + 2):
         rows[0, s] = ck[bk, s]
     src = 0

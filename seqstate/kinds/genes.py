@@ -193,8 +193,9 @@ def genes_from_runs(
     ``runs`` cover ``[0, n)`` in order; ``read_unknown(a, b)`` gives the unknown
     flags (booleans) of positions ``[a, b)``; ``state_at(q)`` the path's state at a
     position ``q`` that is neither the first nor the last of its run -- it is only
-    asked for known gene positions next to an unknown base (where an unknown run
-    cuts or trims a piece).  Memory: per gene, O(gene length).  Equal to
+    asked for the 5' base of a CDS piece cut or trimmed at unknown bases: a known
+    plus-strand CDS base after an unknown one, or a known minus-strand CDS base
+    before an unknown one.  Memory: per gene, O(gene length).  Equal to
     ``genes_from_path(path, model, unknown, split_unknown)``.
     """
     frame = codon_positions(model)
@@ -619,8 +620,10 @@ def _probing(
     rec: StreamRecord,
     probes: dict[int, int],
 ) -> Iterator[stream_paths.PathPiece]:
-    """The pieces, unchanged; on the way, the state at every known gene position next
-    to an unknown base goes into ``probes`` (what :func:`genes_from_runs` may ask)."""
+    """The pieces, unchanged; on the way, the states :func:`genes_from_runs` may ask
+    for go into ``probes``: at every known plus-strand CDS position just after an
+    unknown base, and every known minus-strand CDS position just before one (the
+    5' ends of CDS pieces trimmed at unknown bases)."""
     n = rec.n
     for pc in pieces:
         lo, hi = max(0, pc.start0 - 1), min(n, pc.end0 + 1)
@@ -628,10 +631,14 @@ def _probing(
         if u.any():
             before = np.concatenate([[False], u[:-1]])
             after = np.concatenate([u[1:], [False]])
-            near = ~u & (before | after)
-            near = near[pc.start0 - lo : pc.start0 - lo + (pc.end0 - pc.start0)]
+            a = pc.start0 - lo
             st = np.asarray(pc.states)
-            hit = np.flatnonzero(near & (key[st] != 0))
+            k = key[st]
+            m = pc.end0 - pc.start0
+            known = ~u[a : a + m]
+            hit = np.flatnonzero(
+                known & (((k == 2) & before[a : a + m]) | ((k == 4) & after[a : a + m]))
+            )
             for q in hit.tolist():
                 probes[pc.start0 + q] = int(st[q])
         yield pc
