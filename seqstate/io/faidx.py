@@ -466,7 +466,7 @@ def _scan_file(
 
 def _reader_error(path: str | os.PathLike[str], alphabet_check: str | None, empty: str) -> None:
     """Raise the error the stream reader gives for ``path``, if any."""
-    for _ in iter_fasta(path, alphabet_check=alphabet_check, empty_records=empty):
+    for _ in iter_fasta(os.fspath(path), alphabet_check=alphabet_check, empty_records=empty):
         pass
 
 
