@@ -437,3 +437,18 @@ def test_empty_records_are_listed_with_length_zero_on_first_use(tmp_path):
         faidx.build_index(fa)  # as the reader with empty_records="error"
     assert faidx.record_lengths(fa) == {"a": 4}
     assert (tmp_path / "x.fa.fai").read_text() == "e\t0\t3\t0\t0\na\t4\t6\t4\t5\n"
+
+
+def test_bgzip_with_gzi_and_no_fai_writes_only_the_fai(tmp_path, capsys):
+    data, fai = fasta_text(random_records(4), 9)
+    fa = tmp_path / "x.fa.gz"
+    write_bgzip(fa, data, [50, 700])
+    faidx.build_index(fa)
+    (tmp_path / "x.fa.gz.fai").unlink()
+    gzi = tmp_path / "x.fa.gz.gzi"
+    before = gzi.read_bytes(), os.stat(gzi).st_mtime_ns
+    faidx.clear_memory()
+    assert faidx.record_lengths(fa) == {rid: len(seq) for rid, _, seq in random_records(4)}
+    assert (tmp_path / "x.fa.gz.fai").read_text() == "\n".join(fai) + "\n"
+    assert (gzi.read_bytes(), os.stat(gzi).st_mtime_ns) == before
+    assert capsys.readouterr().err == f"note: indexed {fa}: wrote {tmp_path / 'x.fa.gz.fai'}\n"

@@ -536,19 +536,24 @@ def _build(
     return FastaIndex(Path(path), kind, {e.name: e for e in entries}, gzi)
 
 
-def _write(path: str | os.PathLike[str], index: FastaIndex, *, force: bool) -> list[Path]:
-    written = [fai_path(path)]
+def _write(
+    path: str | os.PathLike[str], index: FastaIndex, *, force: bool, only_missing: bool = False
+) -> list[Path]:
+    """Write the index files (all-or-nothing); with ``only_missing`` those that do not exist."""
+    texts: list[tuple[Path, bytes]] = [
+        (fai_path(path), format_fai(list(index.entries.values())).encode("utf-8"))
+    ]
     if index.gzi is not None:
-        written.append(gzi_path(path))
+        texts.append((gzi_path(path), format_gzi(index.gzi)))
+    if only_missing:
+        texts = [(p, data) for p, data in texts if not p.exists()]
     try:
         with OutputSet(force=force, inputs=[path]) as outs:
-            with outs.open_text(written[0]) as handle:
-                handle.write(format_fai(list(index.entries.values())))
-            if index.gzi is not None:
-                outs.path(written[1]).write_bytes(format_gzi(index.gzi))
+            for name, data in texts:
+                outs.path(name).write_bytes(data)
     except OSError as exc:
         raise UsageError(f"index of {path} cannot be written: {exc.strerror or exc}") from None
-    return written
+    return [p for p, _ in texts]
 
 
 # ---------------------------------------------------------------- using an index
@@ -792,12 +797,7 @@ def _first_use(
         return None
     if _writable(Path(path).parent):
         try:
-            if entries is not None and index.gzi is not None:
-                with OutputSet(inputs=[path]) as outs:
-                    outs.path(gzi_path(path)).write_bytes(format_gzi(index.gzi))
-                wrote = [gzi_path(path)]
-            else:
-                wrote = _write(path, index, force=False)
+            wrote = _write(path, index, force=False, only_missing=True)
             _say_once(f"built:{shown}", f"indexed {shown}: wrote {', '.join(map(str, wrote))}")
             return index
         except (UsageError, OSError):
