@@ -452,3 +452,18 @@ def test_bgzip_with_gzi_and_no_fai_writes_only_the_fai(tmp_path, capsys):
     assert (tmp_path / "x.fa.gz.fai").read_text() == "\n".join(fai) + "\n"
     assert (gzi.read_bytes(), os.stat(gzi).st_mtime_ns) == before
     assert capsys.readouterr().err == f"note: indexed {fa}: wrote {tmp_path / 'x.fa.gz.fai'}\n"
+
+
+def test_gzi_of_another_bgzip_file(tmp_path):
+    data, _ = fasta_text(random_records(6, n=4, most=3000), 50)
+    one, two = tmp_path / "one.fa.gz", tmp_path / "two.fa.gz"
+    write_bgzip(one, data, [1000, 2000, 3000, 4000])
+    write_bgzip(two, data, [1500, 2500, 3500])
+    faidx.build_index(one)
+    faidx.build_index(two)
+    (tmp_path / "two.fa.gz.gzi").write_bytes((tmp_path / "one.fa.gz.gzi").read_bytes())
+    with pytest.raises(SequenceFormatError) as err:
+        for rid, _desc, seq in random_records(6, n=4, most=3000):
+            assert faidx.region_record(two, Region(rid, 0, TO_END)).seq == seq
+    assert "index does not match" in str(err.value)
+    assert str(err.value).endswith(f"seqstate index --force {two}")

@@ -35,6 +35,7 @@ import bisect
 import gzip
 import os
 import struct
+import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import BinaryIO
@@ -390,8 +391,8 @@ def _scan_sequence(block: bytes, rec: _Open | None, alphabet_check: str | None) 
     if not block:
         return
     if rec is None:
-        if block.strip(_WHITESPACE):
-            raise _Unreadable  # text before the first header
+        if block.strip(_WHITESPACE) or block.count(b"\r") != block.count(b"\r\n"):
+            raise _Unreadable  # text before the first header, CR-only line ends
         return
     if alphabet_check == "dna" and block.translate(None, _WHITESPACE + _DNA_BYTES):
         raise _Unreadable
@@ -589,11 +590,19 @@ class FastaIndex:
         if end <= start:
             return b""
         if self.kind == "plain":
-            with open(self.path, "rb") as handle:
-                return os.pread(handle.fileno(), end - start, start)
-        with bgzf.BgzfReader(os.fspath(self.path), "rb") as reader:
-            reader.seek(self._virtual(start))
-            data = reader.read(end - start)
+            try:
+                with open(self.path, "rb") as handle:
+                    return os.pread(handle.fileno(), end - start, start)
+            except OSError as exc:
+                raise SequenceFormatError(
+                    f"cannot be read: {exc.strerror or exc}", path=str(self.path)
+                ) from None
+        try:
+            with bgzf.BgzfReader(os.fspath(self.path), "rb") as reader:
+                reader.seek(self._virtual(start))
+                data = reader.read(end - start)
+        except (ValueError, EOFError, zlib.error) as exc:  # a block the .gzi misplaces
+            raise _Stale(f"the .gzi index does not match the blocks ({exc})") from None
         return data if isinstance(data, bytes) else data.encode("latin-1")
 
     def size(self) -> int:
@@ -604,14 +613,14 @@ class FastaIndex:
             else:
                 assert self.gzi is not None
                 last = self.gzi[-1] if self.gzi else (0, 0)
-                with bgzf.BgzfReader(os.fspath(self.path), "rb") as reader:
-                    reader.seek(last[0] << 16)
-                    n = 0
-                    while True:
-                        piece = reader.read(1 << 20)
-                        if not piece:
-                            break
-                        n += len(piece)
+                n = 0
+                try:
+                    with bgzf.BgzfReader(os.fspath(self.path), "rb") as reader:
+                        reader.seek(last[0] << 16)
+                        while piece := reader.read(1 << 20):
+                            n += len(piece)
+                except (ValueError, EOFError, zlib.error) as exc:
+                    raise _Stale(f"the .gzi index does not match the blocks ({exc})") from None
                 self._size = last[1] + n
         return self._size
 
@@ -625,8 +634,10 @@ def _check_entry(index: FastaIndex, e: FaiEntry) -> None:
     if e.name in index.checked:
         return
     header = _header_line(index, e)
-    words = header[1:].split(None, 1) if header.startswith(b">") else []
-    if not words or words[0] != e.name.encode("utf-8", errors="replace"):
+    # the record ID as the FASTA reader takes it: the first word of the decoded header
+    text = header[1:].decode("utf-8", errors="replace")
+    words = text.split(None, 1) if header.startswith(b">") else []
+    if not words or words[0] != e.name:
         shown = header[:40].decode("utf-8", errors="replace")
         raise _Stale(
             f"record '{e.name}': the line before offset {e.offset} is {shown!r}, not its header"
