@@ -467,3 +467,24 @@ def test_gzi_of_another_bgzip_file(tmp_path):
             assert faidx.region_record(two, Region(rid, 0, TO_END)).seq == seq
     assert "index does not match" in str(err.value)
     assert str(err.value).endswith(f"seqstate index --force {two}")
+
+
+def test_record_source_reads_ranges_as_the_reader(tmp_path):
+    records = random_records(12, n=3, most=2000)
+    data, _ = fasta_text(records, 17)
+    fa = tmp_path / "x.fa"
+    fa.write_bytes(data)
+    rng = np.random.default_rng(12)
+    for rid, desc, seq in records:
+        source = faidx.record_source(fa, rid)
+        assert (source.id, source.description, source.length) == (rid, desc, len(seq))
+        for _ in range(30):
+            s = int(rng.integers(0, len(seq)))
+            e = int(rng.integers(s + 1, len(seq) + 1))
+            assert source.read(s, e) == whole(fa, rid)[s:e]
+        with pytest.raises(ValueError):
+            source.read(0, len(seq) + 1)
+        source.close()
+    with pytest.raises(UsageError) as err:
+        faidx.record_source(fa, "nope")
+    assert "no record 'nope' (known records: rec1, rec2, rec3)" in str(err.value)

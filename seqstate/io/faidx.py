@@ -48,12 +48,13 @@ from seqstate.errors import SequenceFormatError, UsageError
 from seqstate.io import files
 from seqstate.io.atomic import OutputSet
 from seqstate.io.fasta import DNA_ALPHABET, Record, iter_fasta
-from seqstate.io.regions import Region, check_region
+from seqstate.io.regions import TO_END, Region, check_region
 
 __all__ = [
     "AUTO_INDEX_BYTES",
     "FaiEntry",
     "FastaIndex",
+    "IndexedSource",
     "build_index",
     "clear_memory",
     "compression_of",
@@ -65,6 +66,7 @@ __all__ = [
     "parse_fai",
     "parse_gzi",
     "record_lengths",
+    "record_source",
     "region_record",
     "scan_fasta",
 ]
@@ -855,34 +857,88 @@ def region_record(
     ``alphabet_check="dna"``, for a character inside the region that is not a
     nucleotide or IUPAC code.
     """
+    source = record_source(path, region.seqid, alphabet_check=alphabet_check, build=build)
+    if source is None:
+        return None
+    region = check_region(region, {region.seqid: source.length})
+    seq = source.read(region.start0, region.end0)
+    return Record(id=source.id, description=source.description, seq=seq)
+
+
+class IndexedSource:
+    """The bases of one record, read by range through the FASTA index.
+
+    The shape of a sequence source (``length``, ``read(start0, end0)``,
+    ``close()``): ``read`` returns the raw bases ``[start0, end0)`` (0-based
+    half-open, case kept, line ends removed), checked against the index and,
+    with ``alphabet_check="dna"``, against :data:`~seqstate.io.fasta.DNA_ALPHABET`.
+    Reads open the file each time, so one source may be read from several threads.
+    """
+
+    def __init__(
+        self,
+        index: FastaIndex,
+        entry: FaiEntry,
+        alphabet_check: str | None,
+        path: str | os.PathLike[str] | None = None,
+    ) -> None:
+        self._path = index.path if path is None else path
+        self._index = index
+        self._entry = entry
+        self._check = alphabet_check
+        self.id = entry.name
+        self.length = entry.length
+        try:
+            _check_entry(index, entry)
+            words = _header_of(index, entry).split(None, 1)
+        except _Stale as exc:
+            raise _stale_error(self._path, fai_path(self._path), str(exc)) from None
+        self.description = words[1].strip() if len(words) > 1 else ""
+
+    def read(self, start0: int, end0: int) -> bytes:
+        """The bases ``[start0, end0)``; ValueError unless ``0 <= start0 < end0 <= length``."""
+        if not 0 <= start0 < end0 <= self.length:
+            raise ValueError(f"range {start0}-{end0} is outside 0-{self.length}")
+        try:
+            seq = _bases(self._index, self._entry, start0, end0)
+        except _Stale as exc:
+            raise _stale_error(self._path, fai_path(self._path), str(exc)) from None
+        if self._check == "dna":
+            bad = seq.translate(None, _DNA_BYTES)
+            if bad:
+                i = seq.index(bad[:1])
+                ch = bad[0]
+                what = repr(chr(ch)) if ch < 0x80 else f"byte 0x{ch:02X}"
+                raise SequenceFormatError(
+                    f"character {what} at position {start0 + i + 1} is not a nucleotide or "
+                    f"IUPAC ambiguity code (expected one of {DNA_ALPHABET} in either case)",
+                    path=files.display_name(self._path),
+                    where=f"record '{self.id}'",
+                )
+        return seq
+
+    def close(self) -> None:
+        """Nothing to release (each read opens the file)."""
+
+
+def record_source(
+    path: str | os.PathLike[str],
+    seqid: str,
+    *,
+    alphabet_check: str | None = "dna",
+    build: bool = True,
+) -> IndexedSource | None:
+    """The record ``seqid`` as an :class:`IndexedSource`; None when the file has no
+    usable index (see :func:`load_index`).  Raises
+    :class:`~seqstate.errors.UsageError` for an unknown (or empty) record, with the
+    words of :func:`~seqstate.io.regions.check_region`, and
+    :class:`~seqstate.errors.SequenceFormatError` for a stale index."""
     index = load_index(path, build=build, alphabet_check=alphabet_check)
     if index is None:
         return None
     lengths = {e.name: e.length for e in index.entries.values() if e.length > 0}
-    region = check_region(region, lengths)
-    e = index.entries[region.seqid]
-    shown = files.display_name(path)
-    try:
-        _check_entry(index, e)
-        header = _header_of(index, e)
-        seq = _bases(index, e, region.start0, region.end0)
-    except _Stale as exc:
-        raise _stale_error(path, fai_path(path), str(exc)) from None
-    if alphabet_check == "dna":
-        bad = seq.translate(None, _DNA_BYTES)
-        if bad:
-            i = seq.index(bad[:1])
-            ch = bad[0]
-            what = repr(chr(ch)) if ch < 0x80 else f"byte 0x{ch:02X}"
-            raise SequenceFormatError(
-                f"character {what} at position {region.start0 + i + 1} is not a nucleotide or "
-                f"IUPAC ambiguity code (expected one of {DNA_ALPHABET} in either case)",
-                path=shown,
-                where=f"record '{e.name}'",
-            )
-    words = header.split(None, 1)
-    desc = words[1].strip() if len(words) > 1 else ""
-    return Record(id=e.name, description=desc, seq=seq)
+    check_region(Region(seqid, 0, TO_END), lengths)
+    return IndexedSource(index, index.entries[seqid], alphabet_check, path)
 
 
 def _header_line(index: FastaIndex, e: FaiEntry) -> bytes:
