@@ -823,6 +823,10 @@ def _first_use(
     return index
 
 
+def _lengths(index: FastaIndex) -> dict[str, int]:
+    return {e.name: e.length for e in index.entries.values() if e.length > 0}
+
+
 def record_lengths(
     path: str | os.PathLike[str], *, alphabet_check: str | None = "dna", build: bool = True
 ) -> dict[str, int] | None:
@@ -832,7 +836,7 @@ def record_lengths(
     index = load_index(path, build=build, alphabet_check=alphabet_check)
     if index is None:
         return None
-    return {e.name: e.length for e in index.entries.values() if e.length > 0}
+    return _lengths(index)
 
 
 def region_record(
@@ -857,10 +861,11 @@ def region_record(
     ``alphabet_check="dna"``, for a character inside the region that is not a
     nucleotide or IUPAC code.
     """
-    source = record_source(path, region.seqid, alphabet_check=alphabet_check, build=build)
-    if source is None:
+    index = load_index(path, build=build, alphabet_check=alphabet_check)
+    if index is None:
         return None
-    region = check_region(region, {region.seqid: source.length})
+    region = check_region(region, _lengths(index))
+    source = IndexedSource(index, index.entries[region.seqid], alphabet_check, path)
     seq = source.read(region.start0, region.end0)
     return Record(id=source.id, description=source.description, seq=seq)
 
@@ -936,8 +941,7 @@ def record_source(
     index = load_index(path, build=build, alphabet_check=alphabet_check)
     if index is None:
         return None
-    lengths = {e.name: e.length for e in index.entries.values() if e.length > 0}
-    check_region(Region(seqid, 0, TO_END), lengths)
+    check_region(Region(seqid, 0, TO_END), _lengths(index))
     return IndexedSource(index, index.entries[seqid], alphabet_check, path)
 
 
