@@ -437,3 +437,54 @@ def test_empty_records_are_listed_with_length_zero_on_first_use(tmp_path):
         faidx.build_index(fa)  # as the reader with empty_records="error"
     assert faidx.record_lengths(fa) == {"a": 4}
     assert (tmp_path / "x.fa.fai").read_text() == "e\t0\t3\t0\t0\na\t4\t6\t4\t5\n"
+
+
+def test_bgzip_with_gzi_and_no_fai_writes_only_the_fai(tmp_path, capsys):
+    data, fai = fasta_text(random_records(4), 9)
+    fa = tmp_path / "x.fa.gz"
+    write_bgzip(fa, data, [50, 700])
+    faidx.build_index(fa)
+    (tmp_path / "x.fa.gz.fai").unlink()
+    gzi = tmp_path / "x.fa.gz.gzi"
+    before = gzi.read_bytes(), os.stat(gzi).st_mtime_ns
+    faidx.clear_memory()
+    assert faidx.record_lengths(fa) == {rid: len(seq) for rid, _, seq in random_records(4)}
+    assert (tmp_path / "x.fa.gz.fai").read_text() == "\n".join(fai) + "\n"
+    assert (gzi.read_bytes(), os.stat(gzi).st_mtime_ns) == before
+    assert capsys.readouterr().err == f"note: indexed {fa}: wrote {tmp_path / 'x.fa.gz.fai'}\n"
+
+
+def test_gzi_of_another_bgzip_file(tmp_path):
+    data, _ = fasta_text(random_records(6, n=4, most=3000), 50)
+    one, two = tmp_path / "one.fa.gz", tmp_path / "two.fa.gz"
+    write_bgzip(one, data, [1000, 2000, 3000, 4000])
+    write_bgzip(two, data, [1500, 2500, 3500])
+    faidx.build_index(one)
+    faidx.build_index(two)
+    (tmp_path / "two.fa.gz.gzi").write_bytes((tmp_path / "one.fa.gz.gzi").read_bytes())
+    with pytest.raises(SequenceFormatError) as err:
+        for rid, _desc, seq in random_records(6, n=4, most=3000):
+            assert faidx.region_record(two, Region(rid, 0, TO_END)).seq == seq
+    assert "index does not match" in str(err.value)
+    assert str(err.value).endswith(f"seqstate index --force {two}")
+
+
+def test_record_source_reads_ranges_as_the_reader(tmp_path):
+    records = random_records(12, n=3, most=2000)
+    data, _ = fasta_text(records, 17)
+    fa = tmp_path / "x.fa"
+    fa.write_bytes(data)
+    rng = np.random.default_rng(12)
+    for rid, desc, seq in records:
+        source = faidx.record_source(fa, rid)
+        assert (source.id, source.description, source.length) == (rid, desc, len(seq))
+        for _ in range(30):
+            s = int(rng.integers(0, len(seq)))
+            e = int(rng.integers(s + 1, len(seq) + 1))
+            assert source.read(s, e) == whole(fa, rid)[s:e]
+        with pytest.raises(ValueError):
+            source.read(0, len(seq) + 1)
+        source.close()
+    with pytest.raises(UsageError) as err:
+        faidx.record_source(fa, "nope")
+    assert "no record 'nope' (known records: rec1, rec2, rec3)" in str(err.value)

@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import io
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, TextIO
@@ -276,6 +277,8 @@ def score_regions(
     *,
     flank: int | None = None,
     masked: str = "base",
+    read_window: Callable[[str, int, int], bytes] | None = None,
+    lengths: dict[str, int] | None = None,
 ) -> list[dict]:
     """Scores of every region (0-based half-open, already checked), in the order given.
 
@@ -298,6 +301,11 @@ def score_regions(
     end probabilities (if any) at its last, and the first ``order`` bases use
     the shorter-context emission rows.  ``masked`` is ``"base"`` or
     ``"unknown"`` (lowercase bases read as unknown), as in annotate.
+
+    With ``flank=N``, ``read_window(seqid, w0, w1)`` (the bases ``[w0, w1)`` of
+    a record, e.g. through the FASTA index) and ``lengths`` (record ID ->
+    length) may stand in for ``records``: a region on a record that is not in
+    ``records`` has its window read through ``read_window``.
     """
     if flank is not None and flank < 0:
         raise UsageError(f"--flank {flank} must be 0 or more")
@@ -338,25 +346,50 @@ def score_regions(
             continue
         for i in idx:
             reg = regions[i]
-            mask, scored = masks[reg.strand]
-            group = group_of(mask)
             w0 = max(0, reg.start0 - flank)
             w1 = min(len(rec.seq), reg.end0 + flank)
-            window = rec.seq[w0:w1]
-            codes = api.encode(tables, window, masked_unknown=unknown)
-            post = api.posterior(
-                tables, codes, group=group, n_groups=1, record=f"{rec.id}:{w0 + 1}-{w1}"
+            results[i] = _score_window(
+                tables, kind, label, masks[reg.strand], reg, rec.seq[w0:w1], w0, unknown
             )
-            results[i] = {
-                "scored_strand": scored,
-                **_score_one(
-                    tables, codes, post, mask, reg.start0 - w0, reg.end0 - w0, window, kind, label
-                ),
-            }
+    if flank is not None and read_window is not None and lengths is not None:
+        for i, reg in enumerate(regions):
+            if results[i] is None and reg.seqid in lengths:
+                w0 = max(0, reg.start0 - flank)
+                w1 = min(lengths[reg.seqid], reg.end0 + flank)
+                window = read_window(reg.seqid, w0, w1)
+                results[i] = _score_window(
+                    tables, kind, label, masks[reg.strand], reg, window, w0, unknown
+                )
     missing = [regions[i].seqid for i, r in enumerate(results) if r is None]
     if missing:
         raise ValueError(f"regions on records not given: {sorted(set(missing))}")
     return results  # type: ignore[return-value]
+
+
+def _score_window(
+    tables: Any,
+    kind: Kind,
+    label: str,
+    mask_scored: tuple[np.ndarray, str],
+    reg: InputRegion,
+    window: bytes,
+    w0: int,
+    unknown: bool,
+) -> dict:
+    """The scores of ``reg`` computed on ``window``, the record's bases ``[w0, w0 + len)``."""
+    mask, scored = mask_scored
+    group = np.where(mask, 0, -1).astype(np.int64)
+    w1 = w0 + len(window)
+    codes = api.encode(tables, window, masked_unknown=unknown)
+    post = api.posterior(
+        tables, codes, group=group, n_groups=1, record=f"{reg.seqid}:{w0 + 1}-{w1}"
+    )
+    return {
+        "scored_strand": scored,
+        **_score_one(
+            tables, codes, post, mask, reg.start0 - w0, reg.end0 - w0, window, kind, label
+        ),
+    }
 
 
 # ---------------------------------------------------------------- writing
@@ -383,9 +416,12 @@ def write_scored_gff3(
     model: Model,
     label: str,
     scores: list[dict],
-    records: list[Record],
+    lengths: dict[str, int],
 ) -> None:
     """The regions as GFF3 features (1-based closed) carrying their scores.
+
+    ``lengths`` (record ID -> bases, in FASTA order) gives the ``##sequence-region``
+    lines of the records that hold regions.
 
     Type, phase and attributes of GFF3 input are kept (attributes with the names
     of our scores are replaced); BED regions get type ``region`` and their name
@@ -395,7 +431,7 @@ def write_scored_gff3(
     ours = {"scored_label", "scored_strand", *keys}
     used = {reg.seqid for reg in rf.regions}
     gff = GFF3Writer(handle)
-    gff.header([(rec.id, len(rec.seq)) for rec in records if rec.id in used])
+    gff.header([(seqid, length) for seqid, length in lengths.items() if seqid in used])
     for reg, sc in zip(rf.regions, scores):
         if rf.format != "bed":
             attrs = [(k, v) for k, v in reg.attributes if k not in ours]
@@ -464,27 +500,38 @@ class ScoreReport:
         return f"{self.regions} region(s) ({self.format}) scored for {self.label} -> {self.where}"
 
 
-def _records_for(path: str, model: Model, rf: RegionFile) -> list[Record]:
-    """The records that hold regions, checked against the regions (:func:`check_regions`).
+def _records_for(
+    path: str, model: Model, rf: RegionFile, flank: int | None
+) -> tuple[dict[str, int], list[Record]]:
+    """Record lengths (ID -> bases, FASTA order) and the records read, checked against
+    the regions (:func:`check_regions`).
 
-    With a FASTA index (:func:`seqstate.commands.inputs.indexed_lengths`) only the
-    records named by a region are read, whole, through it; otherwise every record
-    is read.  Records come in FASTA order either way.
+    With a FASTA index (:func:`seqstate.commands.inputs.indexed_lengths`) only what
+    the regions need is read through it: with ``flank`` None the records named by a
+    region (whole), with a flank nothing here (each window is read when it is
+    scored).  Without an index every record is read.
     """
     lengths = indexed_lengths(path, model)
     if lengths is None:
         records = read_model_records(path, model)
-        check_regions(rf, {r.id: len(r.seq) for r in records}, display_name(path))
-        return records
+        lengths = {r.id: len(r.seq) for r in records}
+        check_regions(rf, lengths, display_name(path))
+        return lengths, records
     check_regions(rf, lengths, display_name(path))
+    if flank is not None:
+        return lengths, []
     used = {reg.seqid for reg in rf.regions}
     records = []
     for seqid, length in lengths.items():
         if seqid in used:
-            record = read_model_region(path, model, Region(seqid, 0, length))
-            assert record is not None  # the index was there a moment ago
-            records.append(record)
-    return records
+            records.append(_read_indexed(path, model, Region(seqid, 0, length)))
+    return lengths, records
+
+
+def _read_indexed(path: str, model: Model, region: Region) -> Record:
+    record = read_model_region(path, model, region)
+    assert record is not None  # the index was there a moment ago
+    return record
 
 
 def score(opts: ScoreOptions) -> ScoreReport:
@@ -515,10 +562,21 @@ def score(opts: ScoreOptions) -> ScoreReport:
     rf = read_regions(opts.regions, opts.regions_format, set(opts.types) or None)
     if opts.types and rf.format == "bed":
         raise UsageError(f"--type selects GFF3 features, but {rf.path} was read as BED")
-    records = _records_for(opts.input, model, rf)
+    lengths, records = _records_for(opts.input, model, rf, opts.flank)
+
+    def read_window(seqid: str, w0: int, w1: int) -> bytes:
+        return _read_indexed(opts.input, model, Region(seqid, w0, w1)).seq
+
     try:
         scores = score_regions(
-            model, records, rf.regions, label, flank=opts.flank, masked=opts.masked
+            model,
+            records,
+            rf.regions,
+            label,
+            flank=opts.flank,
+            masked=opts.masked,
+            read_window=read_window,
+            lengths=lengths,
         )
     except ImpossibleSequenceError as exc:
         raise ImpossibleSequenceError(exc.message, path=display_name(opts.input)) from None
@@ -526,7 +584,7 @@ def score(opts: ScoreOptions) -> ScoreReport:
     gff_text = None
     if opts.out_gff is not None:
         buf = io.StringIO()
-        write_scored_gff3(buf, rf, model, label, scores, records)
+        write_scored_gff3(buf, rf, model, label, scores, lengths)
         gff_text = buf.getvalue()
     files = [
         (path, text)

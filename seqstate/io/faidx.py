@@ -35,6 +35,7 @@ import bisect
 import gzip
 import os
 import struct
+import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import BinaryIO
@@ -47,12 +48,13 @@ from seqstate.errors import SequenceFormatError, UsageError
 from seqstate.io import files
 from seqstate.io.atomic import OutputSet
 from seqstate.io.fasta import DNA_ALPHABET, Record, iter_fasta
-from seqstate.io.regions import Region, check_region
+from seqstate.io.regions import TO_END, Region, check_region
 
 __all__ = [
     "AUTO_INDEX_BYTES",
     "FaiEntry",
     "FastaIndex",
+    "IndexedSource",
     "build_index",
     "clear_memory",
     "compression_of",
@@ -64,6 +66,7 @@ __all__ = [
     "parse_fai",
     "parse_gzi",
     "record_lengths",
+    "record_source",
     "region_record",
     "scan_fasta",
 ]
@@ -390,8 +393,8 @@ def _scan_sequence(block: bytes, rec: _Open | None, alphabet_check: str | None) 
     if not block:
         return
     if rec is None:
-        if block.strip(_WHITESPACE):
-            raise _Unreadable  # text before the first header
+        if block.strip(_WHITESPACE) or block.count(b"\r") != block.count(b"\r\n"):
+            raise _Unreadable  # text before the first header, CR-only line ends
         return
     if alphabet_check == "dna" and block.translate(None, _WHITESPACE + _DNA_BYTES):
         raise _Unreadable
@@ -466,7 +469,7 @@ def _scan_file(
 
 def _reader_error(path: str | os.PathLike[str], alphabet_check: str | None, empty: str) -> None:
     """Raise the error the stream reader gives for ``path``, if any."""
-    for _ in iter_fasta(path, alphabet_check=alphabet_check, empty_records=empty):
+    for _ in iter_fasta(os.fspath(path), alphabet_check=alphabet_check, empty_records=empty):
         pass
 
 
@@ -536,19 +539,24 @@ def _build(
     return FastaIndex(Path(path), kind, {e.name: e for e in entries}, gzi)
 
 
-def _write(path: str | os.PathLike[str], index: FastaIndex, *, force: bool) -> list[Path]:
-    written = [fai_path(path)]
+def _write(
+    path: str | os.PathLike[str], index: FastaIndex, *, force: bool, only_missing: bool = False
+) -> list[Path]:
+    """Write the index files (all-or-nothing); with ``only_missing`` those that do not exist."""
+    texts: list[tuple[Path, bytes]] = [
+        (fai_path(path), format_fai(list(index.entries.values())).encode("utf-8"))
+    ]
     if index.gzi is not None:
-        written.append(gzi_path(path))
+        texts.append((gzi_path(path), format_gzi(index.gzi)))
+    if only_missing:
+        texts = [(p, data) for p, data in texts if not p.exists()]
     try:
         with OutputSet(force=force, inputs=[path]) as outs:
-            with outs.open_text(written[0]) as handle:
-                handle.write(format_fai(list(index.entries.values())))
-            if index.gzi is not None:
-                outs.path(written[1]).write_bytes(format_gzi(index.gzi))
+            for name, data in texts:
+                outs.path(name).write_bytes(data)
     except OSError as exc:
         raise UsageError(f"index of {path} cannot be written: {exc.strerror or exc}") from None
-    return written
+    return [p for p, _ in texts]
 
 
 # ---------------------------------------------------------------- using an index
@@ -584,11 +592,19 @@ class FastaIndex:
         if end <= start:
             return b""
         if self.kind == "plain":
-            with open(self.path, "rb") as handle:
-                return os.pread(handle.fileno(), end - start, start)
-        with bgzf.BgzfReader(os.fspath(self.path), "rb") as reader:
-            reader.seek(self._virtual(start))
-            data = reader.read(end - start)
+            try:
+                with open(self.path, "rb") as handle:
+                    return os.pread(handle.fileno(), end - start, start)
+            except OSError as exc:
+                raise SequenceFormatError(
+                    f"cannot be read: {exc.strerror or exc}", path=str(self.path)
+                ) from None
+        try:
+            with bgzf.BgzfReader(os.fspath(self.path), "rb") as reader:
+                reader.seek(self._virtual(start))
+                data = reader.read(end - start)
+        except (ValueError, EOFError, zlib.error) as exc:  # a block the .gzi misplaces
+            raise _Stale(f"the .gzi index does not match the blocks ({exc})") from None
         return data if isinstance(data, bytes) else data.encode("latin-1")
 
     def size(self) -> int:
@@ -599,14 +615,14 @@ class FastaIndex:
             else:
                 assert self.gzi is not None
                 last = self.gzi[-1] if self.gzi else (0, 0)
-                with bgzf.BgzfReader(os.fspath(self.path), "rb") as reader:
-                    reader.seek(last[0] << 16)
-                    n = 0
-                    while True:
-                        piece = reader.read(1 << 20)
-                        if not piece:
-                            break
-                        n += len(piece)
+                n = 0
+                try:
+                    with bgzf.BgzfReader(os.fspath(self.path), "rb") as reader:
+                        reader.seek(last[0] << 16)
+                        while piece := reader.read(1 << 20):
+                            n += len(piece)
+                except (ValueError, EOFError, zlib.error) as exc:
+                    raise _Stale(f"the .gzi index does not match the blocks ({exc})") from None
                 self._size = last[1] + n
         return self._size
 
@@ -620,8 +636,10 @@ def _check_entry(index: FastaIndex, e: FaiEntry) -> None:
     if e.name in index.checked:
         return
     header = _header_line(index, e)
-    words = header[1:].split(None, 1) if header.startswith(b">") else []
-    if not words or words[0] != e.name.encode("utf-8", errors="replace"):
+    # the record ID as the FASTA reader takes it: the first word of the decoded header
+    text = header[1:].decode("utf-8", errors="replace")
+    words = text.split(None, 1) if header.startswith(b">") else []
+    if not words or words[0] != e.name:
         shown = header[:40].decode("utf-8", errors="replace")
         raise _Stale(
             f"record '{e.name}': the line before offset {e.offset} is {shown!r}, not its header"
@@ -792,12 +810,7 @@ def _first_use(
         return None
     if _writable(Path(path).parent):
         try:
-            if entries is not None and index.gzi is not None:
-                with OutputSet(inputs=[path]) as outs:
-                    outs.path(gzi_path(path)).write_bytes(format_gzi(index.gzi))
-                wrote = [gzi_path(path)]
-            else:
-                wrote = _write(path, index, force=False)
+            wrote = _write(path, index, force=False, only_missing=True)
             _say_once(f"built:{shown}", f"indexed {shown}: wrote {', '.join(map(str, wrote))}")
             return index
         except (UsageError, OSError):
@@ -810,6 +823,10 @@ def _first_use(
     return index
 
 
+def _lengths(index: FastaIndex) -> dict[str, int]:
+    return {e.name: e.length for e in index.entries.values() if e.length > 0}
+
+
 def record_lengths(
     path: str | os.PathLike[str], *, alphabet_check: str | None = "dna", build: bool = True
 ) -> dict[str, int] | None:
@@ -819,7 +836,7 @@ def record_lengths(
     index = load_index(path, build=build, alphabet_check=alphabet_check)
     if index is None:
         return None
-    return {e.name: e.length for e in index.entries.values() if e.length > 0}
+    return _lengths(index)
 
 
 def region_record(
@@ -847,31 +864,85 @@ def region_record(
     index = load_index(path, build=build, alphabet_check=alphabet_check)
     if index is None:
         return None
-    lengths = {e.name: e.length for e in index.entries.values() if e.length > 0}
-    region = check_region(region, lengths)
-    e = index.entries[region.seqid]
-    shown = files.display_name(path)
-    try:
-        _check_entry(index, e)
-        header = _header_of(index, e)
-        seq = _bases(index, e, region.start0, region.end0)
-    except _Stale as exc:
-        raise _stale_error(path, fai_path(path), str(exc)) from None
-    if alphabet_check == "dna":
-        bad = seq.translate(None, _DNA_BYTES)
-        if bad:
-            i = seq.index(bad[:1])
-            ch = bad[0]
-            what = repr(chr(ch)) if ch < 0x80 else f"byte 0x{ch:02X}"
-            raise SequenceFormatError(
-                f"character {what} at position {region.start0 + i + 1} is not a nucleotide or "
-                f"IUPAC ambiguity code (expected one of {DNA_ALPHABET} in either case)",
-                path=shown,
-                where=f"record '{e.name}'",
-            )
-    words = header.split(None, 1)
-    desc = words[1].strip() if len(words) > 1 else ""
-    return Record(id=e.name, description=desc, seq=seq)
+    region = check_region(region, _lengths(index))
+    source = IndexedSource(index, index.entries[region.seqid], alphabet_check, path)
+    seq = source.read(region.start0, region.end0)
+    return Record(id=source.id, description=source.description, seq=seq)
+
+
+class IndexedSource:
+    """The bases of one record, read by range through the FASTA index.
+
+    The shape of a sequence source (``length``, ``read(start0, end0)``,
+    ``close()``): ``read`` returns the raw bases ``[start0, end0)`` (0-based
+    half-open, case kept, line ends removed), checked against the index and,
+    with ``alphabet_check="dna"``, against :data:`~seqstate.io.fasta.DNA_ALPHABET`.
+    Reads open the file each time, so one source may be read from several threads.
+    """
+
+    def __init__(
+        self,
+        index: FastaIndex,
+        entry: FaiEntry,
+        alphabet_check: str | None,
+        path: str | os.PathLike[str] | None = None,
+    ) -> None:
+        self._path = index.path if path is None else path
+        self._index = index
+        self._entry = entry
+        self._check = alphabet_check
+        self.id = entry.name
+        self.length = entry.length
+        try:
+            _check_entry(index, entry)
+            words = _header_of(index, entry).split(None, 1)
+        except _Stale as exc:
+            raise _stale_error(self._path, fai_path(self._path), str(exc)) from None
+        self.description = words[1].strip() if len(words) > 1 else ""
+
+    def read(self, start0: int, end0: int) -> bytes:
+        """The bases ``[start0, end0)``; ValueError unless ``0 <= start0 < end0 <= length``."""
+        if not 0 <= start0 < end0 <= self.length:
+            raise ValueError(f"range {start0}-{end0} is outside 0-{self.length}")
+        try:
+            seq = _bases(self._index, self._entry, start0, end0)
+        except _Stale as exc:
+            raise _stale_error(self._path, fai_path(self._path), str(exc)) from None
+        if self._check == "dna":
+            bad = seq.translate(None, _DNA_BYTES)
+            if bad:
+                i = seq.index(bad[:1])
+                ch = bad[0]
+                what = repr(chr(ch)) if ch < 0x80 else f"byte 0x{ch:02X}"
+                raise SequenceFormatError(
+                    f"character {what} at position {start0 + i + 1} is not a nucleotide or "
+                    f"IUPAC ambiguity code (expected one of {DNA_ALPHABET} in either case)",
+                    path=files.display_name(self._path),
+                    where=f"record '{self.id}'",
+                )
+        return seq
+
+    def close(self) -> None:
+        """Nothing to release (each read opens the file)."""
+
+
+def record_source(
+    path: str | os.PathLike[str],
+    seqid: str,
+    *,
+    alphabet_check: str | None = "dna",
+    build: bool = True,
+) -> IndexedSource | None:
+    """The record ``seqid`` as an :class:`IndexedSource`; None when the file has no
+    usable index (see :func:`load_index`).  Raises
+    :class:`~seqstate.errors.UsageError` for an unknown (or empty) record, with the
+    words of :func:`~seqstate.io.regions.check_region`, and
+    :class:`~seqstate.errors.SequenceFormatError` for a stale index."""
+    index = load_index(path, build=build, alphabet_check=alphabet_check)
+    if index is None:
+        return None
+    check_region(Region(seqid, 0, TO_END), _lengths(index))
+    return IndexedSource(index, index.entries[seqid], alphabet_check, path)
 
 
 def _header_line(index: FastaIndex, e: FaiEntry) -> bytes:
