@@ -25,7 +25,7 @@ from seqstate.engine import api, jitcache
 from seqstate.errors import ImpossibleSequenceError, UsageError, escape_text
 from seqstate.io import tracks
 from seqstate.io.atomic import OutputSet, check_outputs
-from seqstate.io.fasta import SkippedRecord, display_name, iter_sequences
+from seqstate.io.fasta import SequenceRecord, SkippedRecord, display_name, iter_sequences
 from seqstate.io.regions import Region, check_region, parse_region
 from seqstate.io.tables import load_model, model_sha256
 from seqstate.kinds import Group, group_index, kind_of, track_groups
@@ -341,9 +341,9 @@ def _region_item(
     lengths = faidx.record_lengths(opts.input)
     if lengths is not None:
         region = check_region(region, lengths)
-        rec = faidx.region_record(opts.input, region, alphabet_check=check)
-        if rec is not None:
-            seq = rec.seq
+        found = faidx.region_record(opts.input, region, alphabet_check=check)
+        if found is not None:
+            seq = found.seq
             start0 = region.start0
 
             def read(a: int, b: int) -> bytes:
@@ -352,10 +352,10 @@ def _region_item(
             bases = region.end0 - region.start0
             length = lengths[region.seqid]
             return region, Item(
-                rec.id, length, start0, region.end0, read, lambda: None, bases > long_above
+                found.id, length, start0, region.end0, read, lambda: None, bases > long_above
             )
     seen: dict[str, int] = {}
-    kept = None
+    kept: SequenceRecord | None = None
     records = iter_sequences(
         opts.input,
         alphabet_check=check,
@@ -375,7 +375,7 @@ def _region_item(
             kept.source.close()
         raise
     finally:
-        records.close()
+        _close(records)
     region = check_region(region, seen)  # no such record / outside it: the usual errors
     assert kept is not None
     bases = region.end0 - region.start0
@@ -414,7 +414,7 @@ def _stream_items(
             long = rec.length > long_above
             yield Item(rec.id, rec.length, 0, rec.length, rec.read, rec.source.close, long)
     finally:
-        records.close()
+        _close(records)
 
 
 def _write(
@@ -511,3 +511,10 @@ def _known_total(path: str, region_item: Item | None) -> int:
     except Exception:  # the index is checked properly when it is used
         return 0
     return sum(lengths.values()) if lengths else 0
+
+
+def _close(records: Iterator[SequenceRecord]) -> None:
+    """Close a record generator early (its spill files go with it)."""
+    close = getattr(records, "close", None)
+    if close is not None:
+        close()

@@ -60,7 +60,7 @@ _FIXED_BYTES_PER_BASE = 16
 def available_cores() -> int:
     """The cores this process may run on (its CPU affinity where the system tells it)."""
     try:
-        return max(1, len(os.sched_getaffinity(0)))  # type: ignore[attr-defined]
+        return max(1, len(os.sched_getaffinity(0)))
     except (AttributeError, OSError):
         return max(1, os.cpu_count() or 1)
 
@@ -229,7 +229,13 @@ class Runner:
                 carry = RunCarry(self.precision)
                 body = carry.add(values, item.start0)
                 tail = carry.close()
-                out.bigwig.append(tuple(np.concatenate([a, b]) for a, b in zip(body, tail)))
+                out.bigwig.append(
+                    (
+                        np.concatenate([body[0], tail[0]]),
+                        np.concatenate([body[1], tail[1]]),
+                        np.concatenate([body[2], tail[2]]),
+                    )
+                )
         self.progress.advance(n - n // 2, item.id)
         return out
 
@@ -366,7 +372,7 @@ class OutputWriter:
         if scratch is not None:
             self._gff: DeferredGFF3 | None = DeferredGFF3(gff_target, scratch / "features.gff3")
             self.gff_writer = self._gff.writer
-            self._gff_body: TextIO | None = None
+            self._gff_body: io.StringIO | None = None
         else:  # standard output: the text is kept in memory and written at the end
             self._gff = None
             self._gff_body = io.StringIO()
