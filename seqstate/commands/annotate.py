@@ -430,9 +430,29 @@ def _write(
 ) -> None:
     """The output set of the run: every record through the runner, then the run report."""
     to_stdout = opts.out_dir == STDOUT
+    runner.progress.start(_known_total(opts.input, region_item))
+    try:
+        text = _write_set(opts, model, runner, report, stem, region_item, skipped, long_above)
+    finally:
+        runner.progress.finish()  # stops its ticker on errors and signals too
+    if to_stdout and text is not None:
+        (stdout or sys.stdout).write(text)
+
+
+def _write_set(
+    opts: AnnotateOptions,
+    model: Model,
+    runner: Runner,
+    report: AnnotateReport,
+    stem: str,
+    region_item: Item | None,
+    skipped: list[SkippedRecord],
+    long_above: int,
+) -> str | None:
+    """The output set itself; returns the GFF3 text with ``-o -`` (else None)."""
+    to_stdout = opts.out_dir == STDOUT
     groups = runner.groups
     out_dir = None if to_stdout else opts.out_dir  # nothing is staged with -o -
-    runner.progress.start(_known_total(opts.input, region_item))
     with OutputSet(out_dir, force=opts.force, inputs=[opts.input]) as outs:
         scratch = None if to_stdout else outs.scratch_dir()
         gff_name = f"{stem}.gff3"
@@ -492,9 +512,7 @@ def _write(
             with outs.open_text(f"{stem}.run.json") as fh:
                 json.dump(report.to_dict(), fh, indent=2, sort_keys=False)
                 fh.write("\n")
-    runner.progress.finish()
-    if to_stdout and text is not None:
-        (stdout or sys.stdout).write(text)
+    return text
 
 
 def _known_total(path: str, region_item: Item | None) -> int:
