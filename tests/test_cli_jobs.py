@@ -14,6 +14,7 @@ import shutil
 import signal
 import subprocess
 import sys
+import threading
 import time
 from pathlib import Path
 
@@ -168,6 +169,10 @@ def test_an_impossible_record_among_running_ones_stops_the_run_with_no_output(tm
     assert len(errors) == 1, res.output
     assert "record 'bad'" in errors[0] and "position 3001" in errors[0], errors[0]
     assert list(out.iterdir()) == []
+    # no progress ticker and no record thread outlives the failed run
+    time.sleep(0.5)
+    alive = [t.name for t in threading.enumerate() if t.name.startswith("seqstate-")]
+    assert alive == []
 
 
 def test_stop_signal_during_a_parallel_run_leaves_the_old_outputs(tmp_path):
