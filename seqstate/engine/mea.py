@@ -490,8 +490,8 @@ class SlotStream(Stream):
         lin = np.where(sp.la1 > NEG, 0.0, NEG)
         emadd = np.ascontiguousarray(np.where(sp.E > 0, 0.0, NEG))
         clsp = np.ascontiguousarray(self.cls[sp.perm])
-        self.step = (lin, emadd, clsp, sp.f_ptr, sp.f_n0, sp.f_dst, sp.f_src, sp.f_rank)
-        self.step = (*self.step, sp.f_col)
+        self.step: tuple[np.ndarray, ...] = (lin, emadd, clsp, sp.f_ptr, sp.f_n0, sp.f_dst)
+        self.step += (sp.f_src, sp.f_rank, sp.f_col)
         self.tb = (sp.tb_prev, sp.tb_col, sp.p_ptr, sp.p_src)
         self.ge = work_buffer(m)
         nblocks = (n + block - 1) // block

@@ -244,7 +244,12 @@ def viterbi_pieces(
     returns the path's log probability (natural log) and an iterator of pieces from the LAST
     block to the FIRST (each recomputes its block's back-pointers from the checkpoint and reads
     its codes through `codes`). Concatenated (reversed) they equal api.viterbi's path exactly.
-    Raises ImpossibleSequenceError as api.viterbi does."""
+    Raises ImpossibleSequenceError as api.viterbi does.
+
+    The last blocks whose back-pointers fit :data:`BACKPOINTER_BUDGET` keep them from the
+    forward pass instead (no second pass over them).  ``chunk``: codes read per call of the
+    forward pass.  The failing position of an impossible record is the first position at
+    which every state's max-product score is -inf, read from this pass."""
     if n <= 0:
         raise ValueError("empty record")
     if chunk < 1:
@@ -298,7 +303,11 @@ def mea_pieces(
     """MEA path (see mea.mea) in pieces from the last block to the first: the forward DP reads
     gain rows in order (in windows), keeps the score vector every `block` positions; each piece
     recomputes its block from the checkpoint, reading that block's gain again through `gain`.
-    Equal to mea.mea's path exactly (same ties)."""
+    Equal to mea.mea's path exactly (same ties).
+
+    The forward pass runs before this returns (ValueError, as mea.mea, when no allowed path
+    exists); windows of :data:`seqstate.engine.mea.WINDOW` positions; the last blocks keep
+    their back-pointers up to :data:`seqstate.engine.mea.BACKPOINTER_BUDGET` bytes."""
     blocks = mea.path_blocks(tables, n, codes, gain, state_class, block=block)
     return (PathPiece(b0, b1, states) for b0, b1, states in blocks)
 
