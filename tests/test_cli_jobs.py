@@ -297,3 +297,26 @@ def test_long_records_window_by_window_write_the_bytes_of_the_whole_record_path(
         res = run(args + ["-o", out, "--jobs", jobs])
         assert res.exit_code == 0, res.output
         assert files_of(out) == files_of(tmp_path / "whole")
+
+
+def test_the_first_compile_says_what_it_is_doing(tmp_path, many_records, monkeypatch):
+    from seqstate.engine import jitcache
+
+    monkeypatch.setattr(jitcache, "kernels_cached", lambda modules=("kernels",): False)
+    res = CliRunner().invoke(main, ["annotate", str(many_records), "-o", str(tmp_path / "a")])
+    assert res.exit_code == 0, res.output
+    assert "note: compiling the engine's kernels" in res.output
+    monkeypatch.setattr(jitcache, "kernels_cached", lambda modules=("kernels",): True)
+    res = CliRunner().invoke(main, ["annotate", str(many_records), "-o", str(tmp_path / "b")])
+    assert "compiling" not in res.output
+    res = CliRunner().invoke(main, ["annotate", str(many_records), "-o", str(tmp_path / "c"), "-q"])
+    assert res.output == ""  # -q: no note, no progress, no summary
+
+
+def test_kernel_cache_is_found_after_a_run(tmp_path, many_records):
+    from seqstate.engine import jitcache
+
+    # after one run the kernels it used are in the on-disk cache (when there is one)
+    assert run(["annotate", many_records, "-o", tmp_path / "warm", "-q"]).exit_code == 0
+    assert jitcache.kernels_cached(("kernels",)) is jitcache.CACHE
+    assert jitcache.kernels_cached(("no_such_module",)) is False
