@@ -275,15 +275,39 @@ def model_check(model: str) -> None:
     show_default=True,
     help="A FASTA record with no sequence: skip it with a warning, or stop with an error.",
 )
+@click.option(
+    "--records",
+    "records_list",
+    default=None,
+    callback=not_empty,
+    help="Only these record IDs (ID,ID,...); outputs keep the FASTA's record order.",
+)
+@click.option(
+    "--records-file",
+    default=None,
+    callback=not_empty,
+    help="Only the record IDs listed in this file, one per line.",
+)
 @quiet_option
 @click.pass_obj
-def annotate_cmd(obj: dict | None, tracks: str | None, quiet: bool, **options: Any) -> None:
+def annotate_cmd(
+    obj: dict | None,
+    tracks: str | None,
+    quiet: bool,
+    records_list: str | None,
+    records_file: str | None,
+    **options: Any,
+) -> None:
     """Annotate the records of FASTA (plain or gzip; '-' for stdin) with a model."""
     from seqstate.commands.annotate import STDOUT, AnnotateOptions, annotate, warn_skipped
+    from seqstate.commands.records import records_selection
 
     to_stdout = options["out_dir"] == STDOUT
     tracks = tracks or ("none" if to_stdout else "bedgraph")
-    opts = AnnotateOptions(tracks=tracks, command_line=command_line(obj), **options)
+    records = records_selection(records_list, records_file)
+    opts = AnnotateOptions(
+        tracks=tracks, command_line=command_line(obj), records=records, **options
+    )
     gff_out = io.StringIO() if to_stdout else None
     report = annotate(opts, progress=log.progress_for(quiet), stdout=gff_out)
     warn_skipped(opts.input, report.skipped_records)

@@ -21,6 +21,7 @@ import numpy as np
 
 from seqstate import __version__, log
 from seqstate.commands.inputs import read_model_records
+from seqstate.commands.records import select_records
 from seqstate.engine import api
 from seqstate.errors import ImpossibleSequenceError, UsageError, escape_text
 from seqstate.io import tracks
@@ -58,6 +59,8 @@ class AnnotateOptions:
     command_line: list[str] = field(default_factory=list)
     force: bool = False
     stem: str | None = None
+    #: --records/--records-file (issue 12): only these record IDs, kept in input order
+    records: list[str] | None = None
 
 
 @dataclass
@@ -257,6 +260,12 @@ def annotate(
     records = read_model_records(
         opts.input, model, empty_records=opts.empty_records, skipped=skipped
     )
+    # -- record selection hook (issue 12, seqstate/commands/records.py) --
+    if opts.records is not None:
+        records, skipped[:] = select_records(records, skipped, opts.records, opts.input)
+        if opts.region is not None:
+            raise UsageError("--records cannot be combined with --region (a region names one)")
+    # -- end of the record selection hook --
     lengths = {r.id: len(r.seq) for r in records}
     region: Region | None = None
     if opts.region is not None:
