@@ -646,5 +646,35 @@ def compare_cmd(
         click.echo(f"seqstate: {'; '.join(parts)} -> {out or 'stdout'}", err=True)
 
 
+# ---------------------------------------------------------------- merge (issue 12)
+@main.command("merge")
+@click.argument("reports", nargs=-1, required=True, metavar="REPORT.run.json...")
+@click.option(
+    "-o",
+    "--out",
+    "out_dir",
+    default="seqstate-out",
+    show_default=True,
+    callback=not_empty,
+    help="Output folder of the gathered set (created if absent).",
+)
+@click.option(
+    "--stem",
+    default=None,
+    callback=not_empty,
+    help="Output file names start with this [default: the groups' common stem].",
+)
+@force_option
+@quiet_option
+@click.pass_obj
+def merge_cmd(obj: dict | None, quiet: bool, **options: Any) -> None:
+    """Gather annotate runs on groups of records (their run reports, in FASTA order)."""
+    from seqstate.commands.merge import MergeOptions, merge
+
+    options["reports"] = list(options["reports"])
+    report = merge(MergeOptions(command_line=command_line(obj), **options))
+    say(quiet, report.summary())
+
+
 if __name__ == "__main__":  # pragma: no cover
     main()
