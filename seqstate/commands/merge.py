@@ -17,7 +17,8 @@ records).  The gathered set is then byte-identical to the output of one
   that describe how a run was invoked rather than what it computed:
   ``command_line`` (the merge's), and in ``options`` the keys of
   :data:`INVOCATION_OPTIONS` (``out_dir`` and ``force`` of the merge, ``records``
-  None as in a run on every record, ``jobs`` as the groups gave it).
+  None as in a run on every record, ``stem`` the merge's ``--stem`` if given, else
+  the first group's; ``jobs`` as the first group gave it).
 
 Everything is checked before anything is written: every report and file
 exists, the groups agree on every other field of their reports and on their
@@ -39,7 +40,7 @@ from seqstate.io.atomic import OutputSet, check_outputs
 
 #: ``options`` keys of a run report that say how a run was invoked (they may differ
 #: between the groups; see the module docstring for the value the gathered report takes).
-INVOCATION_OPTIONS = ("out_dir", "force", "records", "jobs")
+INVOCATION_OPTIONS = ("out_dir", "force", "records", "stem", "jobs")
 
 #: Report keys that are the groups' own (the rest must be equal in every group).
 OWN_KEYS = ("command_line", "options", "records", "skipped_records", "outputs")
@@ -145,6 +146,13 @@ def _check_groups(groups: list[_Group]) -> list[str]:
     first = groups[0]
     suffixes = _suffixes(first)
     for g in groups[1:]:
+        a, b = first.report["options"], g.report["options"]
+        for key in sorted(set(a) | set(b)):
+            if key not in INVOCATION_OPTIONS and a.get(key) != b.get(key):
+                raise UsageError(
+                    f"run reports '{first.shown}' and '{g.shown}' differ in option '{key}' "
+                    f"({a.get(key)!r} and {b.get(key)!r}): groups must use the same options"
+                )
         for key in sorted(set(first.report) | set(g.report)):
             if key in OWN_KEYS:
                 continue
@@ -152,13 +160,6 @@ def _check_groups(groups: list[_Group]) -> list[str]:
                 raise UsageError(
                     f"run reports '{first.shown}' and '{g.shown}' differ in '{key}': "
                     "groups must be runs of the same version, model and options"
-                )
-        a, b = first.report["options"], g.report["options"]
-        for key in sorted(set(a) | set(b)):
-            if key not in INVOCATION_OPTIONS and a.get(key) != b.get(key):
-                raise UsageError(
-                    f"run reports '{first.shown}' and '{g.shown}' differ in option '{key}' "
-                    f"({a.get(key)!r} and {b.get(key)!r}): groups must use the same options"
                 )
         if sorted(_suffixes(g)) != sorted(suffixes):
             raise UsageError(
