@@ -40,9 +40,7 @@ def one_error(result, code: int = 2) -> str:
 def without_invocation(report: dict) -> dict:
     report = dict(report)
     report.pop("command_line")
-    report["options"] = {
-        k: v for k, v in report["options"].items() if k not in INVOCATION_OPTIONS
-    }
+    report["options"] = {k: v for k, v in report["options"].items() if k not in INVOCATION_OPTIONS}
     return report
 
 
@@ -106,8 +104,19 @@ def test_merge_into_the_direct_folder_gives_the_same_report(runs, tmp_path):
 
 
 def test_merge_one_group_is_a_copy(runs, tmp_path):
-    ok("annotate", runs / "asm.fa", "-o", tmp_path / "all", "--records",
-       "sim1,sim2,sim3,sim4,sim5", "--stem", "asm", "--tracks", "both", "-q")
+    ok(
+        "annotate",
+        runs / "asm.fa",
+        "-o",
+        tmp_path / "all",
+        "--records",
+        "sim1,sim2,sim3,sim4,sim5",
+        "--stem",
+        "asm",
+        "--tracks",
+        "both",
+        "-q",
+    )
     ok("merge", tmp_path / "all" / "asm.run.json", "-o", tmp_path / "m", "--stem", "asm", "-q")
     for name in ("asm.gff3", "asm.features.tsv", "asm.CpG_island.bedgraph", "asm.CpG_island.bw"):
         assert (tmp_path / "m" / name).read_bytes() == (runs / "direct" / name).read_bytes()
@@ -146,8 +155,21 @@ def test_merge_record_in_two_groups(runs, tmp_path):
 
 
 def test_merge_groups_with_different_options(runs, tmp_path):
-    ok("annotate", runs / "asm.fa", "-o", tmp_path / "x", "--records", "sim3", "--stem", "asm",
-       "--tracks", "both", "--min-length", "50", "-q")
+    ok(
+        "annotate",
+        runs / "asm.fa",
+        "-o",
+        tmp_path / "x",
+        "--records",
+        "sim3",
+        "--stem",
+        "asm",
+        "--tracks",
+        "both",
+        "--min-length",
+        "50",
+        "-q",
+    )
     message = one_error(
         run("merge", reports(runs)[0], tmp_path / "x" / "asm.run.json", "-o", tmp_path / "m")
     )
@@ -156,8 +178,19 @@ def test_merge_groups_with_different_options(runs, tmp_path):
 
 
 def test_merge_groups_with_different_tracks(runs, tmp_path):
-    ok("annotate", runs / "asm.fa", "-o", tmp_path / "x", "--records", "sim3", "--stem", "asm",
-       "--tracks", "bedgraph", "-q")
+    ok(
+        "annotate",
+        runs / "asm.fa",
+        "-o",
+        tmp_path / "x",
+        "--records",
+        "sim3",
+        "--stem",
+        "asm",
+        "--tracks",
+        "bedgraph",
+        "-q",
+    )
     message = one_error(
         run("merge", reports(runs)[0], tmp_path / "x" / "asm.run.json", "-o", tmp_path / "m")
     )
@@ -196,15 +229,35 @@ def test_merge_missing_report(tmp_path):
 
 
 def test_merge_region_run_refused(runs, tmp_path):
-    ok("annotate", runs / "asm.fa", "-o", tmp_path / "r", "--region", "sim1:1-5000",
-       "--stem", "asm", "-q")
+    ok(
+        "annotate",
+        runs / "asm.fa",
+        "-o",
+        tmp_path / "r",
+        "--region",
+        "sim1:1-5000",
+        "--stem",
+        "asm",
+        "-q",
+    )
     message = one_error(run("merge", tmp_path / "r" / "asm.run.json", "-o", tmp_path / "m"))
     assert "--region run" in message
 
 
 def test_merge_different_stems_need_stem(runs, tmp_path):
-    ok("annotate", runs / "asm.fa", "-o", tmp_path / "x", "--records", "sim3", "--stem", "b",
-       "--tracks", "both", "-q")
+    ok(
+        "annotate",
+        runs / "asm.fa",
+        "-o",
+        tmp_path / "x",
+        "--records",
+        "sim3",
+        "--stem",
+        "b",
+        "--tracks",
+        "both",
+        "-q",
+    )
     message = one_error(
         run("merge", reports(runs)[0], tmp_path / "x" / "b.run.json", "-o", tmp_path / "m")
     )

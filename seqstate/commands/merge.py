@@ -110,9 +110,7 @@ def _load_group(path: str) -> _Group:
     try:
         report = json.loads(text)
     except json.JSONDecodeError as exc:
-        raise UsageError(
-            f"run report '{shown}' line {exc.lineno}: not JSON ({exc.msg})"
-        ) from None
+        raise UsageError(f"run report '{shown}' line {exc.lineno}: not JSON ({exc.msg})") from None
     if not isinstance(report, dict) or report.get("schema") != REPORT_SCHEMA:
         found = report.get("schema") if isinstance(report, dict) else type(report).__name__
         raise UsageError(

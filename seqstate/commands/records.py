@@ -20,7 +20,6 @@ from seqstate.errors import UsageError, escape_text
 SHOWN_IDS = 5
 
 
-
 class _HasId(Protocol):
     @property
     def id(self) -> str: ...
@@ -44,8 +43,7 @@ def _no_repeats(ids: list[str], where_of: Sequence[str]) -> list[str]:
     for rid, where in zip(ids, where_of):
         if rid in seen:
             raise UsageError(
-                f"{where}: record ID '{escape_text(rid)}' is selected twice "
-                f"(first in {seen[rid]})"
+                f"{where}: record ID '{escape_text(rid)}' is selected twice (first in {seen[rid]})"
             )
         seen[rid] = where
     return ids

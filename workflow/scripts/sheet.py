@@ -101,9 +101,7 @@ def read_sheet(path: str | Path, default_model: str = "cpg-island") -> list[Asse
                 f"{where}: the assembly name may use only letters, digits, '.', '_' and '-'"
             )
         if name in seen:
-            raise SheetError(
-                f"{where}: duplicate assembly name (first on line {seen[name]})"
-            )
+            raise SheetError(f"{where}: duplicate assembly name (first on line {seen[name]})")
         seen[name] = line
         if not row["fasta"]:
             raise SheetError(f"{where}: the 'fasta' cell is empty (expected a FASTA path)")

@@ -50,9 +50,7 @@ def cuts(lengths: list[int], groups: int) -> list[int]:
         best = None
         for c in (k - 1, k):
             if 0 <= c < len(allowed) and (not chosen or allowed[c] > chosen[-1]):
-                if best is None or abs(prefix[allowed[c]] - target) < abs(
-                    prefix[best] - target
-                ):
+                if best is None or abs(prefix[allowed[c]] - target) < abs(prefix[best] - target):
                     best = allowed[c]
         if best is not None:
             chosen.append(best)

@@ -96,8 +96,10 @@ def rows_of(name: str, run_json: str, features_tsv: str, compare_json: str | Non
 
 def main(argv: list[str]) -> int:
     if len(argv) < 2:
-        print("usage: summary.py OUT.tsv ASSEMBLY=RUN_JSON,FEATURES_TSV[,COMPARE_JSON] ...",
-              file=sys.stderr)
+        print(
+            "usage: summary.py OUT.tsv ASSEMBLY=RUN_JSON,FEATURES_TSV[,COMPARE_JSON] ...",
+            file=sys.stderr,
+        )
         return 2
     out, items = argv[0], argv[1:]
     temp = f"{out}.tmp-{os.getpid()}"
