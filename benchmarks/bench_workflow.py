@@ -95,7 +95,6 @@ def main() -> None:
             "--directory", str(work / "wf"), "--cores", str(args.cores), "--quiet",
             "--config", f"samples={sheet}", "seqstate=" + shlex.join(exe),
             f"scatter={{'group_bases': {int(args.group_mbp * 1e6)}, 'max_groups': 64}}",
-            f"resources={{'annotate': {{'threads': {args.cores}, 'mem_mb': 2000}}}}",
         ])  # fmt: skip
         for name in names:
             a = (work / "seq" / name / f"{name}.gff3").read_bytes()
