@@ -282,15 +282,39 @@ def model_check(model: str) -> None:
     default=None,
     help="Threads to use [default: every core this process may use].",
 )
+@click.option(
+    "--records",
+    "records_list",
+    default=None,
+    callback=not_empty,
+    help="Only these record IDs (ID,ID,...); outputs keep the FASTA's record order.",
+)
+@click.option(
+    "--records-file",
+    default=None,
+    callback=not_empty,
+    help="Only the record IDs listed in this file, one per line.",
+)
 @quiet_option
 @click.pass_obj
-def annotate_cmd(obj: dict | None, tracks: str | None, quiet: bool, **options: Any) -> None:
+def annotate_cmd(
+    obj: dict | None,
+    tracks: str | None,
+    quiet: bool,
+    records_list: str | None,
+    records_file: str | None,
+    **options: Any,
+) -> None:
     """Annotate the records of FASTA (plain or gzip; '-' for stdin) with a model."""
     from seqstate.commands.annotate import STDOUT, AnnotateOptions, annotate, warn_skipped
+    from seqstate.commands.records import records_selection
 
     to_stdout = options["out_dir"] == STDOUT
     tracks = tracks or ("none" if to_stdout else "bedgraph")
-    opts = AnnotateOptions(tracks=tracks, command_line=command_line(obj), **options)
+    records = records_selection(records_list, records_file)
+    opts = AnnotateOptions(
+        tracks=tracks, command_line=command_line(obj), records=records, **options
+    )
     gff_out = io.StringIO() if to_stdout else None
     report = annotate(opts, progress=log.progress_for(quiet), stdout=gff_out)
     warn_skipped(opts.input, report.skipped_records)
@@ -639,6 +663,36 @@ def index_cmd(quiet: bool, **options: Any) -> None:
     from seqstate.commands.index import IndexOptions, index
 
     say(quiet, index(IndexOptions(**options)).summary())
+
+
+# ---------------------------------------------------------------- merge (issue 12)
+@main.command("merge")
+@click.argument("reports", nargs=-1, required=True, metavar="REPORT.run.json...")
+@click.option(
+    "-o",
+    "--out",
+    "out_dir",
+    default="seqstate-out",
+    show_default=True,
+    callback=not_empty,
+    help="Output folder of the gathered set (created if absent).",
+)
+@click.option(
+    "--stem",
+    default=None,
+    callback=not_empty,
+    help="Output file names start with this [default: the groups' common stem].",
+)
+@force_option
+@quiet_option
+@click.pass_obj
+def merge_cmd(obj: dict | None, quiet: bool, **options: Any) -> None:
+    """Gather annotate runs on groups of records (their run reports, in FASTA order)."""
+    from seqstate.commands.merge import MergeOptions, merge
+
+    options["reports"] = list(options["reports"])
+    report = merge(MergeOptions(command_line=command_line(obj), **options))
+    say(quiet, report.summary())
 
 
 if __name__ == "__main__":  # pragma: no cover

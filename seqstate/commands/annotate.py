@@ -16,11 +16,13 @@ import sys
 from collections.abc import Iterator
 from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
+from types import SimpleNamespace
 from typing import Any, TextIO
 
 from seqstate import __version__, log
 from seqstate.commands import annotate_run
 from seqstate.commands.annotate_run import Item, OutputWriter, Runner
+from seqstate.commands.records import select_records
 from seqstate.engine import api, jitcache
 from seqstate.errors import ImpossibleSequenceError, UsageError, escape_text
 from seqstate.io import tracks
@@ -59,6 +61,8 @@ class AnnotateOptions:
     stem: str | None = None
     #: threads: None = every core this process may use (clamped to 1 .. cores)
     jobs: int | None = None
+    #: --records/--records-file (issue 12): only these record IDs, kept in input order
+    records: list[str] | None = None
 
 
 @dataclass
@@ -236,6 +240,8 @@ def annotate(
         )
     if opts.stem is not None:
         check_stem(opts.stem)
+    if opts.records is not None and opts.region is not None:
+        raise UsageError("--records cannot be combined with --region (a region names one)")
     jobs, jobs_note = annotate_run.resolve_jobs(opts.jobs)
     model = load_model(opts.model)
     decode = opts.decode or model.decode
@@ -409,12 +415,24 @@ def _stream_items(
         spill_above=long_above,
         spill_dir=scratch,
     )
+    want = None if opts.records is None else set(opts.records)
+    seen: list[str] = []
     try:
         for rec in records:
+            if want is not None:
+                seen.append(rec.id)
+                if rec.id not in want:
+                    rec.source.close()
+                    continue
             long = rec.length > long_above
             yield Item(rec.id, rec.length, 0, rec.length, rec.read, rec.source.close, long)
     finally:
         _close(records)
+    if opts.records is not None:
+        # an ID the FASTA lacks is an error (the run's outputs are then discarded)
+        known = [SimpleNamespace(id=rid) for rid in seen]
+        _, kept = select_records(known, skipped, opts.records, opts.input)
+        skipped[:] = kept
 
 
 def _write(

@@ -1,0 +1,339 @@
+"""``seqstate merge``: gather annotate runs on groups of records into one output set.
+
+The inputs are the run reports (``STEM.run.json``) of ``seqstate annotate
+--records ...`` runs on the same FASTA with the same model and options, given in
+the order their records come in the FASTA (each group a consecutive stretch of
+records).  The gathered set is then byte-identical to the output of one
+``seqstate annotate`` of the whole file with the same stem:
+
+- GFF3: ``##gff-version 3``, every ``##sequence-region`` line of every group in
+  order, then the feature lines of every group in order;
+- feature TSV and bedGraph tracks: the header (track) line once, then the rows
+  of every group in order;
+- bigWig tracks: one file with every record's header entry and the merged runs
+  read back from the group files (pyBigWig);
+- run report: the groups' report with ``records`` and ``skipped_records``
+  concatenated in order.  Its fields equal those of a direct run except the ones
+  that describe how a run was invoked rather than what it computed:
+  ``command_line`` (the merge's), and in ``options`` the keys of
+  :data:`INVOCATION_OPTIONS` (``out_dir`` and ``force`` of the merge, ``records``
+  None as in a run on every record, ``stem`` the merge's ``--stem`` if given, else
+  the first group's; ``jobs`` as the first group gave it).
+
+Everything is checked before anything is written: every report and file
+exists, the groups agree on every other field of their reports and on their
+output files, and no record is in two groups.  Nothing here reads sequence.
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, TextIO
+
+from seqstate.commands.annotate import REPORT_SCHEMA, check_stem
+from seqstate.errors import UsageError, escape_text
+from seqstate.io import tracks
+from seqstate.io.atomic import OutputSet, check_outputs
+
+#: ``options`` keys of a run report that say how a run was invoked (they may differ
+#: between the groups; see the module docstring for the value the gathered report takes).
+INVOCATION_OPTIONS = ("out_dir", "force", "records", "stem", "jobs")
+
+#: Report keys that are the groups' own (the rest must be equal in every group).
+OWN_KEYS = ("command_line", "options", "records", "skipped_records", "outputs")
+
+REPORT_SUFFIX = ".run.json"
+
+
+@dataclass
+class MergeOptions:
+    """What ``seqstate merge`` was asked to do."""
+
+    #: run reports (``STEM.run.json``) of the groups, in the FASTA's record order
+    reports: list[str]
+    out_dir: str = "seqstate-out"
+    #: file names of the gathered set; default: the groups' common stem
+    stem: str | None = None
+    force: bool = False
+    command_line: list[str] = field(default_factory=list)
+
+
+@dataclass
+class MergeReport:
+    """What a merge wrote."""
+
+    groups: int
+    records: int
+    features: int
+    out_dir: str
+    outputs: list[str]
+
+    def summary(self) -> str:
+        """The summary line (after ``seqstate: ``)."""
+        return (
+            f"{self.groups} group(s), {self.records} record(s), {self.features} features "
+            f"-> {self.out_dir}/"
+        )
+
+
+@dataclass
+class _Group:
+    """One group's run report and where its files are."""
+
+    report_path: Path
+    stem: str
+    report: dict[str, Any]
+
+    def file(self, suffix: str) -> Path:
+        return self.report_path.parent / f"{self.stem}{suffix}"
+
+    @property
+    def shown(self) -> str:
+        return escape_text(str(self.report_path))
+
+
+def _load_group(path: str) -> _Group:
+    shown = escape_text(path)
+    p = Path(path)
+    if not p.name.endswith(REPORT_SUFFIX) or p.name == REPORT_SUFFIX:
+        raise UsageError(f"'{shown}' is not a run report (expected a file STEM{REPORT_SUFFIX})")
+    try:
+        text = p.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise UsageError(f"run report '{shown}' does not exist") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        reason = getattr(exc, "strerror", None) or str(exc)
+        raise UsageError(f"run report '{shown}' cannot be read: {reason}") from None
+    try:
+        report = json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise UsageError(f"run report '{shown}' line {exc.lineno}: not JSON ({exc.msg})") from None
+    if not isinstance(report, dict) or report.get("schema") != REPORT_SCHEMA:
+        found = report.get("schema") if isinstance(report, dict) else type(report).__name__
+        raise UsageError(
+            f"run report '{shown}': schema {found!r}, expected {REPORT_SCHEMA!r} "
+            "(a report of seqstate annotate)"
+        )
+    for key in ("options", "records", "skipped_records", "outputs"):
+        if key not in report:
+            raise UsageError(f"run report '{shown}' has no '{key}' (expected an annotate report)")
+    return _Group(p, p.name[: -len(REPORT_SUFFIX)], report)
+
+
+def _suffixes(group: _Group) -> list[str]:
+    """The group's output names without its stem (``.gff3``, ...), in report order."""
+    out = []
+    for name in group.report["outputs"]:
+        if not isinstance(name, str) or not name.startswith(group.stem + "."):
+            raise UsageError(
+                f"run report '{group.shown}': output {name!r} does not start with the "
+                f"report's stem '{group.stem}.'"
+            )
+        out.append(name[len(group.stem) :])
+    return out
+
+
+def _check_groups(groups: list[_Group]) -> list[str]:
+    """Every group agrees with the first; no record twice; every file exists.
+
+    Returns the output suffixes (without the stem).
+    """
+    first = groups[0]
+    suffixes = _suffixes(first)
+    for g in groups[1:]:
+        a, b = first.report["options"], g.report["options"]
+        for key in sorted(set(a) | set(b)):
+            if key not in INVOCATION_OPTIONS and a.get(key) != b.get(key):
+                raise UsageError(
+                    f"run reports '{first.shown}' and '{g.shown}' differ in option '{key}' "
+                    f"({a.get(key)!r} and {b.get(key)!r}): groups must use the same options"
+                )
+        for key in sorted(set(first.report) | set(g.report)):
+            if key in OWN_KEYS:
+                continue
+            if first.report.get(key) != g.report.get(key):
+                raise UsageError(
+                    f"run reports '{first.shown}' and '{g.shown}' differ in '{key}': "
+                    "groups must be runs of the same version, model and options"
+                )
+        if sorted(_suffixes(g)) != sorted(suffixes):
+            raise UsageError(
+                f"run reports '{first.shown}' and '{g.shown}' list different output files "
+                "(groups must write the same tracks)"
+            )
+    seen: dict[str, str] = {}
+    for g in groups:
+        if g.report["options"].get("region") is not None:
+            raise UsageError(
+                f"run report '{g.shown}' is a --region run: only whole records can be gathered"
+            )
+        for entry in g.report["records"] + g.report["skipped_records"]:
+            rid = entry["id"]
+            if rid in seen:
+                raise UsageError(
+                    f"record '{escape_text(rid)}' is in two groups: '{seen[rid]}' and '{g.shown}'"
+                )
+            seen[rid] = g.shown
+        for suffix in suffixes:
+            path = g.file(suffix)
+            if not path.is_file():
+                raise UsageError(
+                    f"'{escape_text(str(path))}', an output listed in run report '{g.shown}', "
+                    "does not exist"
+                )
+    return suffixes
+
+
+def _lines(path: Path) -> Iterator[str]:
+    with open(path, encoding="utf-8", newline="") as fh:
+        yield from fh
+
+
+def _first_line(path: Path) -> str:
+    with open(path, encoding="utf-8", newline="") as fh:
+        return fh.readline()
+
+
+def _write_gff3(groups: list[_Group], suffix: str, out: TextIO) -> None:
+    version = "##gff-version 3\n"
+    out.write(version)
+    bodies: list[int] = []  # per group: how many header lines to skip
+    for g in groups:
+        path = g.file(suffix)
+        n = 0
+        for line in _lines(path):
+            if n == 0:
+                if line != version:
+                    raise UsageError(
+                        f"'{escape_text(str(path))}' line 1: expected {version.strip()!r}"
+                    )
+            elif line.startswith("##sequence-region "):
+                out.write(line)
+            else:
+                break
+            n += 1
+        bodies.append(n)
+    for g, skip in zip(groups, bodies):
+        for i, line in enumerate(_lines(g.file(suffix))):
+            if i >= skip:
+                out.write(line)
+
+
+def _write_table(groups: list[_Group], suffix: str, out: TextIO) -> None:
+    """Header (or track) line once, then every group's rows."""
+    header = _first_line(groups[0].file(suffix))
+    for g in groups:
+        path = g.file(suffix)
+        if _first_line(path) != header:
+            raise UsageError(
+                f"'{escape_text(str(path))}' line 1 differs from "
+                f"'{escape_text(str(groups[0].file(suffix)))}' line 1 (expected the same header)"
+            )
+    out.write(header)
+    for g in groups:
+        lines = _lines(g.file(suffix))
+        next(lines, None)
+        for line in lines:
+            out.write(line)
+
+
+def _write_bigwig(groups: list[_Group], suffix: str, path: Path) -> None:
+    """One bigWig of every group's records, with the entries of the group files.
+
+    The records come in the groups' order with their lengths from the run
+    reports, and the entries are handed to the library in the blocks the
+    annotate writer uses, so the file equals a direct run's.
+    """
+    module = tracks._import_pybigwig()
+    sizes = [(r["id"], int(r["length"])) for g in groups for r in g.report["records"]]
+    out = module.open(str(path), "w")
+    if out is None:
+        raise OSError(f"pyBigWig could not open {str(path)!r} for writing")
+    try:
+        out.addHeader([(escape_text(rid), n) for rid, n in sizes])
+        for g in groups:
+            src_path = g.file(suffix)
+            src = module.open(str(src_path))
+            if src is None:
+                raise UsageError(f"'{escape_text(str(src_path))}' is not a readable bigWig")
+            try:
+                for r in g.report["records"]:
+                    name = escape_text(r["id"])
+                    runs = src.intervals(name) or ()
+                    for lo in range(0, len(runs), tracks._ENTRIES):
+                        block = runs[lo : lo + tracks._ENTRIES]
+                        out.addEntries(
+                            [name] * len(block),
+                            [s for s, _, _ in block],
+                            ends=[e for _, e, _ in block],
+                            values=[v for _, _, v in block],
+                        )
+            finally:
+                src.close()
+    finally:
+        out.close()
+
+
+def merge(opts: MergeOptions) -> MergeReport:
+    """Gather the groups' outputs into ``opts.out_dir`` (see the module docstring)."""
+    if not opts.reports:
+        raise UsageError("no run report given: expected one STEM.run.json per group")
+    if not opts.out_dir:
+        raise UsageError("-o/--out is empty: expected a folder name")
+    groups = [_load_group(p) for p in opts.reports]
+    suffixes = _check_groups(groups)
+    stems = {g.stem for g in groups}
+    if opts.stem is not None:
+        stem = check_stem(opts.stem)
+    elif len(stems) == 1:
+        stem = groups[0].stem
+    else:
+        raise UsageError(
+            f"the run reports have different stems ({', '.join(sorted(stems))}): give --stem"
+        )
+    if any(s.endswith(".bw") for s in suffixes):
+        tracks.require_bigwig()
+    names = [stem + s for s in suffixes]
+    inputs = [str(g.report_path) for g in groups] + [
+        str(g.file(s)) for g in groups for s in suffixes
+    ]
+    check_outputs([Path(opts.out_dir) / n for n in names], inputs, force=opts.force)
+
+    first = groups[0].report
+    report = dict(first)
+    report["command_line"] = list(opts.command_line)
+    options = dict(first["options"])
+    options["out_dir"] = opts.out_dir
+    options["force"] = opts.force
+    options["records"] = None
+    if "stem" in options:
+        options["stem"] = stem if opts.stem is not None else options["stem"]
+    report["options"] = options
+    report["records"] = [r for g in groups for r in g.report["records"]]
+    report["skipped_records"] = [r for g in groups for r in g.report["skipped_records"]]
+    report["outputs"] = sorted(names)
+
+    with OutputSet(opts.out_dir, force=opts.force, inputs=inputs) as outs:
+        for suffix, name in zip(suffixes, names):
+            if suffix == REPORT_SUFFIX:
+                with outs.open_text(name) as fh:
+                    json.dump(report, fh, indent=2, sort_keys=False)
+                    fh.write("\n")
+            elif suffix.endswith(".gff3"):
+                with outs.open_text(name) as fh:
+                    _write_gff3(groups, suffix, fh)
+            elif suffix.endswith(".bw"):
+                _write_bigwig(groups, suffix, outs.path(name))
+            else:  # .features.tsv, .bedgraph
+                with outs.open_text(name) as fh:
+                    _write_table(groups, suffix, fh)
+    return MergeReport(
+        groups=len(groups),
+        records=len(report["records"]),
+        features=sum(int(r["features"]) for r in report["records"]),
+        out_dir=opts.out_dir,
+        outputs=report["outputs"],
+    )
