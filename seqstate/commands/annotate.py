@@ -431,8 +431,9 @@ def _stream_items(
     if opts.records is not None:
         # an ID the FASTA lacks is an error (the run's outputs are then discarded)
         known = [SimpleNamespace(id=rid) for rid in seen]
-        _, kept = select_records(known, skipped, opts.records, opts.input)
-        skipped[:] = kept
+        select_records(known, skipped, opts.records, opts.input)
+        wanted = set(opts.records)
+        skipped[:] = [sk for sk in skipped if sk.id in wanted]
 
 
 def _write(
