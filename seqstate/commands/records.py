@@ -26,6 +26,7 @@ class _HasId(Protocol):
 
 
 _R = TypeVar("_R", bound=_HasId)
+_S = TypeVar("_S", bound=_HasId)
 
 
 def _check_id(rid: str, where: str) -> None:
@@ -110,10 +111,10 @@ def records_selection(records: str | None, records_file: str | None) -> list[str
 
 def select_records(
     records: Sequence[_R],
-    skipped: Sequence[_R],
+    skipped: Sequence[_S],
     wanted: Sequence[str],
     fasta: str,
-) -> tuple[list[_R], list[_R]]:
+) -> tuple[list[_R], list[_S]]:
     """Keep the records (and skipped empty records) whose ID is in ``wanted``.
 
     Both lists keep their input order.  An ID of ``wanted`` that is neither a
