@@ -64,6 +64,18 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--scale", type=float, default=1.0)
     ap.add_argument("--skip-genes", action="store_true")
+    ap.add_argument("--skip-cpg", action="store_true")
+    ap.add_argument(
+        "--gene-records",
+        type=int,
+        default=None,
+        help="gene-segment on the first N records of the assembly only (default: all)",
+    )
+    ap.add_argument(
+        "--gene-single-jobs-2-only",
+        action="store_true",
+        help="gene-segment on the single records with --jobs 2 only (peak RSS rows)",
+    )
     ap.add_argument("--keep", action="store_true", help="keep the temporary folder")
     ap.add_argument("--work", default=None, help="folder for the inputs (reused if present)")
     args = ap.parse_args()
