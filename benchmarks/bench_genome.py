@@ -126,27 +126,33 @@ def main() -> None:
         annotate(work / "warm.fa", work / "warm-out", model, 2, [])
 
     rows: list[tuple[str, str, float, float, float, float, float]] = []
+    nan = float("nan")
 
-    def pair(label: str, fasta: Path, bases: int, model: str, extra: list[str]) -> None:
-        t1, m1 = annotate(fasta, work / "out1", model, 1, extra)
+    def pair(
+        label: str, fasta: Path, bases: int, model: str, extra: list[str], one: bool = True
+    ) -> None:
+        t1, m1 = annotate(fasta, work / "out1", model, 1, extra) if one else (nan, nan)
         t2, m2 = annotate(fasta, work / "out2", model, 2, extra)
         rows.append((label, model, bases / t1 / 1e6, bases / t2 / 1e6, t1 / t2, m1, m2))
         print(f"  done: {label} {model}", flush=True)
 
     asm_bases = n_asm * len_asm
-    pair(f"assembly {asm_bases / 1e6:.0f} Mbp, tracks", asm, asm_bases, "cpg-island", [])
-    pair(f"record {len50 / 1e6:.0f} Mbp, tracks", r50, len50, "cpg-island", [])
-    pair(f"record {len250 / 1e6:.0f} Mbp, tracks", r250, len250, "cpg-island", [])
+    if not args.skip_cpg:
+        pair(f"assembly {asm_bases / 1e6:.0f} Mbp, tracks", asm, asm_bases, "cpg-island", [])
+        pair(f"record {len50 / 1e6:.0f} Mbp, tracks", r50, len50, "cpg-island", [])
+        pair(f"record {len250 / 1e6:.0f} Mbp, tracks", r250, len250, "cpg-island", [])
     if not args.skip_genes:
-        pair(
-            f"assembly {asm_bases / 1e6:.0f} Mbp",
-            asm,
-            asm_bases,
-            "gene-segment",
-            ["--tracks", "none"],
-        )
-        pair(f"record {len50 / 1e6:.0f} Mbp", r50, len50, "gene-segment", ["--tracks", "none"])
-        pair(f"record {len250 / 1e6:.0f} Mbp", r250, len250, "gene-segment", ["--tracks", "none"])
+        gasm, gbases = asm, asm_bases
+        if args.gene_records:
+            gasm = work / f"assembly-first{args.gene_records}.fa"
+            parts = asm.read_text().split(">")[1 : args.gene_records + 1]
+            gasm.write_text("".join(">" + x for x in parts))
+            gbases = args.gene_records * len_asm
+        none = ["--tracks", "none"]
+        one = not args.gene_single_jobs_2_only
+        pair(f"assembly {gbases / 1e6:.0f} Mbp", gasm, gbases, "gene-segment", none)
+        pair(f"record {len50 / 1e6:.0f} Mbp", r50, len50, "gene-segment", none, one)
+        pair(f"record {len250 / 1e6:.0f} Mbp", r250, len250, "gene-segment", none, one)
 
     print()
     print(
