@@ -65,6 +65,7 @@ def main() -> None:
     ap.add_argument("--scale", type=float, default=1.0)
     ap.add_argument("--skip-genes", action="store_true")
     ap.add_argument("--skip-cpg", action="store_true")
+    ap.add_argument("--skip-regions", action="store_true")
     ap.add_argument(
         "--gene-records",
         type=int,
@@ -163,29 +164,39 @@ def main() -> None:
     for label, model, v1, v2, ratio, m1, m2 in rows:
         print(f"| {label} | {model} | {v1:.2f} | {v2:.2f} | {ratio:.2f}x | {m1:.0f} | {m2:.0f} |")
 
-    # regions through the index
-    print()
-    print("| --region 1 kb of the 250 Mbp record | wall s (index exists) |")
-    print("|---|---|")
-    mid = len250 // 2
-    region = f"sim1:{mid + 1}-{mid + 1000}"
-    gz = work / "r250.fa.gz"
-    if not gz.exists():
-        bgzip = shutil.which("bgzip")
-        if bgzip:
-            subprocess.run([bgzip, "-k", "-@2", str(r250)], check=True)
-        else:
-            from Bio import bgzf
+    if not args.skip_regions:
+        # regions through the index
+        print()
+        print("| --region 1 kb of the 250 Mbp record | wall s (index exists) |")
+        print("|---|---|")
+        mid = len250 // 2
+        region = f"sim1:{mid + 1}-{mid + 1000}"
+        gz = work / "r250.fa.gz"
+        if not gz.exists():
+            bgzip = shutil.which("bgzip")
+            if bgzip:
+                subprocess.run([bgzip, "-k", "-@2", str(r250)], check=True)
+            else:
+                from Bio import bgzf
 
-            with open(r250, "rb") as src, bgzf.BgzfWriter(str(gz), "wb") as dst:
-                shutil.copyfileobj(src, dst, 1 << 22)
-    for fasta in (r250, gz):
-        run_child(EXE + ["index", str(fasta), "--force"])
-        t, _ = run_child(
-            EXE
-            + ["annotate", str(fasta), "--region", region, "-o", str(work / "reg"), "--force", "-q"]
-        )
-        print(f"| {fasta.name} | {t:.2f} |")
+                with open(r250, "rb") as src, bgzf.BgzfWriter(str(gz), "wb") as dst:
+                    shutil.copyfileobj(src, dst, 1 << 22)
+        for fasta in (r250, gz):
+            run_child(EXE + ["index", str(fasta), "--force"])
+            t, _ = run_child(
+                EXE
+                + [
+                    "annotate",
+                    str(fasta),
+                    "--region",
+                    region,
+                    "-o",
+                    str(work / "reg"),
+                    "--force",
+                    "-q",
+                ]
+            )
+            print(f"| {fasta.name} | {t:.2f} |")
     if not args.keep and not args.work:
         shutil.rmtree(work, ignore_errors=True)
 
