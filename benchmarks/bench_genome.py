@@ -64,6 +64,19 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--scale", type=float, default=1.0)
     ap.add_argument("--skip-genes", action="store_true")
+    ap.add_argument("--skip-cpg", action="store_true")
+    ap.add_argument("--skip-regions", action="store_true")
+    ap.add_argument(
+        "--gene-records",
+        type=int,
+        default=None,
+        help="gene-segment on the first N records of the assembly only (default: all)",
+    )
+    ap.add_argument(
+        "--gene-single-jobs-2-only",
+        action="store_true",
+        help="gene-segment on the single records with --jobs 2 only (peak RSS rows)",
+    )
     ap.add_argument("--keep", action="store_true", help="keep the temporary folder")
     ap.add_argument("--work", default=None, help="folder for the inputs (reused if present)")
     args = ap.parse_args()
@@ -114,27 +127,33 @@ def main() -> None:
         annotate(work / "warm.fa", work / "warm-out", model, 2, [])
 
     rows: list[tuple[str, str, float, float, float, float, float]] = []
+    nan = float("nan")
 
-    def pair(label: str, fasta: Path, bases: int, model: str, extra: list[str]) -> None:
-        t1, m1 = annotate(fasta, work / "out1", model, 1, extra)
+    def pair(
+        label: str, fasta: Path, bases: int, model: str, extra: list[str], one: bool = True
+    ) -> None:
+        t1, m1 = annotate(fasta, work / "out1", model, 1, extra) if one else (nan, nan)
         t2, m2 = annotate(fasta, work / "out2", model, 2, extra)
         rows.append((label, model, bases / t1 / 1e6, bases / t2 / 1e6, t1 / t2, m1, m2))
         print(f"  done: {label} {model}", flush=True)
 
     asm_bases = n_asm * len_asm
-    pair(f"assembly {asm_bases / 1e6:.0f} Mbp, tracks", asm, asm_bases, "cpg-island", [])
-    pair(f"record {len50 / 1e6:.0f} Mbp, tracks", r50, len50, "cpg-island", [])
-    pair(f"record {len250 / 1e6:.0f} Mbp, tracks", r250, len250, "cpg-island", [])
+    if not args.skip_cpg:
+        pair(f"assembly {asm_bases / 1e6:.0f} Mbp, tracks", asm, asm_bases, "cpg-island", [])
+        pair(f"record {len50 / 1e6:.0f} Mbp, tracks", r50, len50, "cpg-island", [])
+        pair(f"record {len250 / 1e6:.0f} Mbp, tracks", r250, len250, "cpg-island", [])
     if not args.skip_genes:
-        pair(
-            f"assembly {asm_bases / 1e6:.0f} Mbp",
-            asm,
-            asm_bases,
-            "gene-segment",
-            ["--tracks", "none"],
-        )
-        pair(f"record {len50 / 1e6:.0f} Mbp", r50, len50, "gene-segment", ["--tracks", "none"])
-        pair(f"record {len250 / 1e6:.0f} Mbp", r250, len250, "gene-segment", ["--tracks", "none"])
+        gasm, gbases = asm, asm_bases
+        if args.gene_records:
+            gasm = work / f"assembly-first{args.gene_records}.fa"
+            parts = asm.read_text().split(">")[1 : args.gene_records + 1]
+            gasm.write_text("".join(">" + x for x in parts))
+            gbases = args.gene_records * len_asm
+        none = ["--tracks", "none"]
+        one = not args.gene_single_jobs_2_only
+        pair(f"assembly {gbases / 1e6:.0f} Mbp", gasm, gbases, "gene-segment", none)
+        pair(f"record {len50 / 1e6:.0f} Mbp", r50, len50, "gene-segment", none, one)
+        pair(f"record {len250 / 1e6:.0f} Mbp", r250, len250, "gene-segment", none, one)
 
     print()
     print(
@@ -145,29 +164,39 @@ def main() -> None:
     for label, model, v1, v2, ratio, m1, m2 in rows:
         print(f"| {label} | {model} | {v1:.2f} | {v2:.2f} | {ratio:.2f}x | {m1:.0f} | {m2:.0f} |")
 
-    # regions through the index
-    print()
-    print("| --region 1 kb of the 250 Mbp record | wall s (index exists) |")
-    print("|---|---|")
-    mid = len250 // 2
-    region = f"sim1:{mid + 1}-{mid + 1000}"
-    gz = work / "r250.fa.gz"
-    if not gz.exists():
-        bgzip = shutil.which("bgzip")
-        if bgzip:
-            subprocess.run([bgzip, "-k", "-@2", str(r250)], check=True)
-        else:
-            from Bio import bgzf
+    if not args.skip_regions:
+        # regions through the index
+        print()
+        print("| --region 1 kb of the 250 Mbp record | wall s (index exists) |")
+        print("|---|---|")
+        mid = len250 // 2
+        region = f"sim1:{mid + 1}-{mid + 1000}"
+        gz = work / "r250.fa.gz"
+        if not gz.exists():
+            bgzip = shutil.which("bgzip")
+            if bgzip:
+                subprocess.run([bgzip, "-k", "-@2", str(r250)], check=True)
+            else:
+                from Bio import bgzf
 
-            with open(r250, "rb") as src, bgzf.BgzfWriter(str(gz), "wb") as dst:
-                shutil.copyfileobj(src, dst, 1 << 22)
-    for fasta in (r250, gz):
-        run_child(EXE + ["index", str(fasta), "--force"])
-        t, _ = run_child(
-            EXE
-            + ["annotate", str(fasta), "--region", region, "-o", str(work / "reg"), "--force", "-q"]
-        )
-        print(f"| {fasta.name} | {t:.2f} |")
+                with open(r250, "rb") as src, bgzf.BgzfWriter(str(gz), "wb") as dst:
+                    shutil.copyfileobj(src, dst, 1 << 22)
+        for fasta in (r250, gz):
+            run_child(EXE + ["index", str(fasta), "--force"])
+            t, _ = run_child(
+                EXE
+                + [
+                    "annotate",
+                    str(fasta),
+                    "--region",
+                    region,
+                    "-o",
+                    str(work / "reg"),
+                    "--force",
+                    "-q",
+                ]
+            )
+            print(f"| {fasta.name} | {t:.2f} |")
     if not args.keep and not args.work:
         shutil.rmtree(work, ignore_errors=True)
 

@@ -59,3 +59,22 @@ def test_output_set_never_commits_after_a_stop_signal(tmp_path):
         outs.open_text("a.txt").write("new\n")
     assert (tmp_path / "a.txt").read_text() == "old\n"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["a.txt"]
+
+
+def test_an_interrupt_raised_inside_a_callback_from_c_is_not_reported_twice(monkeypatch):
+    # a signal landing in Python code called back from C (numba's compiler) can only be
+    # reported as "Exception ignored"; the stop is recorded anyway, so that report is dropped
+    import sys
+    from types import SimpleNamespace
+
+    from seqstate.commands.process import Interrupted, signal_handlers
+
+    seen = []
+    monkeypatch.setattr(sys, "unraisablehook", seen.append)
+    with signal_handlers():
+        hook = sys.unraisablehook
+        hook(SimpleNamespace(exc_value=Interrupted(15)))
+        other = SimpleNamespace(exc_value=ValueError("x"))
+        hook(other)
+    assert seen == [other]  # only the other one reaches the previous hook
+    assert sys.unraisablehook == seen.append  # restored on leaving

@@ -287,6 +287,7 @@ class Runner:
             writer.track_piece(g, item.id, a, values)
             if g == 0:
                 self.progress.advance(int(values.shape[0]), item.id)
+                _stop_check()  # a stop signal swallowed on the way still ends a long record
 
         try:
             n_feat, loglik, unknown = self.kind.write_stream(

@@ -49,12 +49,33 @@ def signal_handlers() -> Iterator[None]:
             saved[signum] = signal.signal(signum, handler)
         except (ValueError, OSError):  # not the main thread
             pass
+    previous_hook = sys.unraisablehook
+    sys.unraisablehook = _quiet_interrupts(previous_hook)
     try:
         yield
     finally:
+        sys.unraisablehook = previous_hook
         for signum, handler in saved.items():
             with contextlib.suppress(ValueError, OSError, TypeError):
                 signal.signal(signum, handler)
+
+
+def _quiet_interrupts(hook: Any) -> Any:
+    """An unraisable-exception hook that drops :class:`Interrupted`.
+
+    A signal that arrives while the main thread runs Python code called back from C
+    (numba's compiler, ctypes) raises there, where Python can only print it as
+    "Exception ignored ...".  The stop is already recorded (:func:`note_stop`), so the
+    run still ends with ``error: interrupted`` and nothing committed; the stray report
+    would only garble stderr.  Every other unraisable exception goes to ``hook``.
+    """
+
+    def quiet(unraisable: Any) -> None:
+        if isinstance(getattr(unraisable, "exc_value", None), Interrupted):
+            return
+        hook(unraisable)
+
+    return quiet
 
 
 def silence_stdout() -> None:
