@@ -331,7 +331,7 @@ def sample_cmd(quiet: bool, **options: Any) -> None:
 @click.option(
     "--regions",
     required=True,
-    help="Regions to score: BED (0-based half-open) or GFF3 (1-based closed), "
+    help="Regions to score: BED (0-based half-open), GFF3 or GTF (1-based closed), "
     "plain or gzip; '-' for stdin.",
 )
 @model_option()
@@ -364,13 +364,16 @@ def sample_cmd(quiet: bool, **options: Any) -> None:
 )
 @click.option(
     "--regions-format",
-    type=click.Choice(["auto", "bed", "gff3"]),
+    type=click.Choice(["auto", "bed", "gff3", "gtf"]),
     default="auto",
     show_default=True,
     help="Format of --regions; auto: by name, else by content.",
 )
 @click.option(
-    "--type", "types", multiple=True, help="GFF3 regions: only features of this type (repeatable)."
+    "--type",
+    "types",
+    multiple=True,
+    help="GFF3 or GTF regions: only features of this type (repeatable).",
 )
 @masked_option
 @force_option
@@ -439,11 +442,12 @@ def plot_cmd(quiet: bool, **options: Any) -> None:
 @click.option(
     "--labels",
     default=None,
-    help="Known features, GFF3 (type = label) or BED (name = label): count the states they give.",
+    help="Known features, GFF3 or GTF (type = label) or BED (name = label): count the states "
+    "they give.",
 )
 @click.option(
     "--labels-format",
-    type=click.Choice(["auto", "gff3", "bed"]),
+    type=click.Choice(["auto", "gff3", "gtf", "bed"]),
     default="auto",
     show_default=True,
     help="Format of --labels (auto: by file name, then content).",
