@@ -589,18 +589,26 @@ def fit_cmd(
     is_flag=True,
     help="Compare every sequence either file declares, not only those of PREDICTED.",
 )
+@click.option(
+    "--gene-list",
+    default=None,
+    callback=not_empty,
+    help="Also write a TSV of the missed and wrong genes (CDS and exon types): ID, place, "
+    "strand, so a curator can go to them.",
+)
 @force_option
 @quiet_option
 def compare_cmd(
-    predicted, reference, feature_types, region, out, all_sequences, force, quiet
+    predicted, reference, feature_types, region, out, all_sequences, gene_list, force, quiet
 ) -> None:
-    """Accuracy of PREDICTED features against REFERENCE features (both GFF3)."""
+    """Accuracy of PREDICTED features against REFERENCE features (GFF3 or GTF)."""
     from seqstate.commands.compare import compare_files, report_format, report_table, write_report
     from seqstate.io.atomic import check_outputs
 
     if out is not None:
         report_format(out)
-        check_outputs([out], [predicted, reference], force=force)
+    if out is not None or gene_list is not None:
+        check_outputs([out, gene_list], [predicted, reference], force=force)
     results = [
         compare_files(
             predicted, reference, feature_type=t, region=region, all_sequences=all_sequences
@@ -609,20 +617,24 @@ def compare_cmd(
     ]
     if out is None:
         echo_stdout("\n".join(report_table(result) for result in results))
-    else:
-        write_report(
-            results[0] if len(results) == 1 else results,
-            out,
-            force=force,
-            inputs=[predicted, reference],
-        )
+    write_report(
+        results[0] if len(results) == 1 else results,
+        out,
+        force=force,
+        inputs=[predicted, reference],
+        gene_list=gene_list,
+    )
     if not quiet:
         parts = []
         for result in results:
             sn = result["nucleotide"]["strand_aware"]["sensitivity"]
             sp = result["nucleotide"]["strand_aware"]["specificity"]
             shown = "NA" if sn is None else f"{sn:.4f}", "NA" if sp is None else f"{sp:.4f}"
-            parts.append(f"{result['type']}, strand-aware base Sn {shown[0]} Sp {shown[1]}")
+            part = f"{result['type']}, strand-aware base Sn {shown[0]} Sp {shown[1]}"
+            if "gene" in result:
+                gsn = result["gene"]["sensitivity"]
+                part += f", gene Sn {'NA' if gsn is None else f'{gsn:.4f}'}"
+            parts.append(part)
         click.echo(f"seqstate: {'; '.join(parts)} -> {out or 'stdout'}", err=True)
 
 

@@ -426,7 +426,8 @@ def gtf_gene_features(
     feature (``ID=transcript_id;Parent=gene_id``); each spans all the lines of its
     gene or transcript (the file's own ``gene``/``transcript`` lines included, and
     then dropped).  The transcript's parts (CDS, exon, codons, UTRs; any line with a
-    ``transcript_id``) get ``Parent=transcript_id``, their other attributes kept.
+    ``transcript_id``) get ``Parent=transcript_id``, their other attributes kept; a
+    part with a ``gene_id`` and no ``transcript_id`` gets ``Parent=gene_id``.
     With ``join_stop_codons`` the ``stop_codon`` lines are joined to the CDS (GTF 2.2
     leaves the stop codon out of CDS; GFF3 and this program keep it in).  A line
     without ``gene_id`` or ``transcript_id`` that is not a gene or transcript line is
@@ -440,8 +441,11 @@ def gtf_gene_features(
     genes: dict[str, list[Interval]] = {}
     tx_of_gene: dict[str, dict[str, list[Interval]]] = {}
     loose: list[Interval] = []
+    lone: dict[str, list[Interval]] = {}  # parts with a gene_id and no transcript_id
     for iv in intervals:
         gid, tid = iv.get("gene_id"), iv.get("transcript_id")
+        if gid is not None and tid is None and iv.type not in GTF_WHOLE_TYPES:
+            lone.setdefault(gid, []).append(iv)
         if gid is None:
             if tid is not None or iv.type in GTF_TRANSCRIPT_PARTS:
                 raise _error(
@@ -474,6 +478,9 @@ def gtf_gene_features(
                 first.line0,
             )
         )
+        for iv in lone.get(gid, []):
+            kept = [(k, v) for k, v in iv.attributes if k != "gene_id"]
+            out.append(_feature(iv, iv.type or ".", [("Parent", gid), *kept]))
         for tid, tx in tx_of_gene.get(gid, {}).items():
             if tid in seen_tx:
                 raise _error(
