@@ -407,7 +407,17 @@ def score_cmd(regions_format: str, types: tuple[str, ...], quiet: bool, **option
     callback=not_empty,
     help="Figure file: .png, .svg or .pdf (the format follows the name).",
 )
-@click.option("--reference", default=None, help="GFF3 or BED features to show in their own lane.")
+@click.option(
+    "--reference", default=None, help="GFF3, GTF or BED features to show in their own lane."
+)
+@click.option(
+    "--reference-type",
+    "reference_types",
+    multiple=True,
+    callback=lambda _ctx, _param, value: tuple(value),
+    help="Reference type (column 3) to draw, repeatable; 'all' for every type. Default: "
+    "all but whole-sequence types (region, chromosome, contig, scaffold, supercontig).",
+)
 @click.option(
     "--flank",
     type=click.IntRange(min=0),
