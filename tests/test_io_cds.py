@@ -176,3 +176,59 @@ def test_sampled_proteins_translate_from_the_cds_without_internal_stops(
             n_genes += 1
             n_multi += len(pieces) > 1
     assert n_genes >= 3 and n_multi >= 2 and strands == {"+", "-"}, (n_genes, n_multi, strands)
+
+
+# ---------------------------------------------------------------- partial genes
+
+
+def test_cut_genes_are_partial_and_translate_from_their_phase(sampled_genes, tmp_path) -> None:
+    # cut each sampled record inside a coding base of its first true multi-piece gene
+    # (not at a codon start): the remainder is a gene that runs into the record's start
+    model, records = sampled_genes
+    checked = 0
+    for seqid, seq, truth, _ in records:
+        gene = next(g for g in truth if len(g.pieces) > 1 and not g.partial)
+        a, b = gene.pieces[0] if gene.strand == "+" else gene.pieces[-1]
+        cut = a + 4 if gene.strand == "+" else b - 4  # 4 bases into the 5'-most piece
+        tables = api.prepare(model)
+        rng_path = _true_path(model, tables, seqid)
+        part = rng_path[cut:] if gene.strand == "+" else rng_path[:cut]
+        sub = seq[cut:] if gene.strand == "+" else seq[:cut]
+        genes = genes_from_path(part, model)
+        first = genes[0] if gene.strand == "+" else genes[-1]
+        assert first.partial_reasons == (PARTIAL_RECORD_END,)
+        # GFF3: partial=true and our reason on gene and mRNA only (seqstate's own writer)
+        feats = _gff3_of(model, seqid, genes, tmp_path / f"{seqid}-cut.gff3")
+        number = genes.index(first) + 1
+        marked = 0
+        for f in feats:
+            mine = (f.get("ID") or "") if f.type in ("gene", "mRNA") else ""
+            if mine in (f"{seqid}.gene.{number}", f"{seqid}.mRNA.{number}"):
+                assert f.get("partial") == "true" and f.get("partial_reason") == "record_end"
+                marked += 1
+            elif f.type in ("exon", "CDS"):
+                assert f.get("partial") is None
+        assert marked == 2  # its gene and mRNA lines
+        # the protein read from the phase is the tail of the whole gene's protein
+        prot_cut, prot_whole = io.StringIO(), io.StringIO()
+        write_cds_and_proteins([first], seqid, _reader(sub), None, prot_cut)
+        write_cds_and_proteins([gene], seqid, _reader(seq), None, prot_whole)
+        cut_p = _fasta(prot_cut.getvalue())[0]
+        whole_p = str(_fasta(prot_whole.getvalue())[0].seq)
+        # 4 bases into the gene: codon 1 is lost whole, codon 2 loses its first base, so
+        # the partial protein starts at residue 3 (phase 2)
+        assert "phase=2" in cut_p.description and "partial=record_end" in cut_p.description
+        assert str(cut_p.seq) == whole_p[2:]
+        assert "*" not in whole_p and len(whole_p) > 10
+        checked += 1
+    assert checked == 2
+
+
+def _true_path(model, tables, seqid: str) -> np.ndarray:
+    """The true path of sampled record ``seqid`` (the draws of the fixture, redone)."""
+    rng = np.random.default_rng(3)
+    for r in range(2):
+        path, _ = sample_record(tables, 30_000, rng)
+        if f"s{r + 1}" == seqid:
+            return path
+    raise AssertionError(seqid)
