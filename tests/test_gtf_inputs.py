@@ -272,3 +272,65 @@ def test_score_reads_gtf_like_gff3(sampled) -> None:
     assert [[r.split("\t")[i] for i in keep] for r in outs["gtf"]] == [
         [r.split("\t")[i] for i in keep] for r in outs["gff3"]
     ]
+
+
+# ---------------------------------------------------------------- bad GTF on the command line
+
+
+def _one_error(args: list[str], code: int, *words: str) -> str:
+    res = CliRunner().invoke(main, args)
+    lines = res.stderr.splitlines()
+    assert res.exit_code == code, res.stderr
+    assert len(lines) == 1 and lines[0].startswith("error: "), res.stderr
+    assert "Traceback" not in res.stderr
+    for w in words:
+        assert w in lines[0], (w, lines[0])
+    return lines[0]
+
+
+BAD_GTF = (
+    'sim1\ts\tCDS\t101\t200\t.\t+\t0\tgene_id "g"; transcript_id "t";\n'
+    'sim1\ts\tCDS\t301\t400\t.\t-\t0\tgene_id "g"; transcript_id "t";\n'
+)
+
+
+def test_bad_gtf_gene_in_compare_and_fit_is_one_error_line(sampled, tmp_path) -> None:
+    _, fa, truth = sampled
+    bad = tmp_path / "bad.gtf"
+    bad.write_text(BAD_GTF)
+    _one_error(
+        ["compare", str(truth), str(bad)],
+        1,
+        "bad.gtf line 2",
+        "gene_id 'g' is on sim1 strand - here but on sim1 strand + at line 1",
+    )
+    out = tmp_path / "never"
+    _one_error(
+        ["fit", "-m", "gene-segment-layout", "--fasta", str(fa), "--labels", str(bad)]
+        + ["-o", str(out), "-q"],
+        1,
+        "bad.gtf line 2",
+    )
+    assert not out.exists()
+    unquoted = tmp_path / "u.gtf"
+    unquoted.write_text("sim1\ts\tCDS\t101\t200\t.\t+\t0\tgene_id a b;\n")
+    _one_error(
+        ["compare", str(truth), str(unquoted)], 1, "u.gtf line 1", "has spaces but no quotes"
+    )
+
+
+def test_bad_reference_type_and_gene_list_in_plot_and_compare(sampled, tmp_path) -> None:
+    _, fa, truth = sampled
+    fig = tmp_path / "f.png"
+    _one_error(
+        ["plot", str(fa), "--region", "sim1:1-1000", "-m", "gene-segment", "-o", str(fig)]
+        + ["--reference", str(truth), "--reference-type", "bogus"],
+        2,
+        "--reference-type bogus: no such type",
+        "types there: CDS, exon, gene, mRNA",
+    )
+    assert not fig.exists()
+    listing = tmp_path / "genes.json.tsv"
+    listing.write_text("mine\n")
+    _one_error(["compare", str(truth), str(truth), "--gene-list", str(listing)], 2, "--force")
+    assert listing.read_text() == "mine\n"  # not overwritten

@@ -90,9 +90,10 @@ Features on other seqids are ignored.
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Mapping
+from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 from seqstate.commands.compare_metrics import (
     Item,
@@ -220,7 +221,7 @@ def _gene_level(
     pred: Iterable[Feature | Interval],
     ref: Iterable[Feature | Interval],
     feature_type: str,
-    keep,
+    keep: Callable[[Transcript], bool],
 ) -> dict:
     """Transcript and gene results of the transcripts ``keep`` accepts."""
     p_tx = [t for t in _transcripts(pred, feature_type) if keep(t)]
@@ -364,7 +365,7 @@ def _compare(
 
         genes = _gene_level(pred, ref, feature_type, keep)
 
-    result = {
+    result: dict[str, Any] = {
         "type": feature_type,
         "rule": "exon" if exact else "overlap",
         "region": None if reg is None else reg.text(),

@@ -541,7 +541,7 @@ def read_gene_features(
     BED is refused: it has no gene structure."""
     fmt = sniff_file(path, what) if str(path) != "-" else None
     if fmt == "gff3":
-        return "gff3", read_gff3(path)
+        return "gff3", read_gff3(Path(path))
     fmt, found = read_interval_file(path, fmt, what=what)
     if fmt == "bed":
         raise FeatureFormatError(
