@@ -872,3 +872,23 @@ def test_gene_list_same_file_as_report_is_refused(gene_files, tmp_path: Path) ->
     same = tmp_path / "x.tsv"
     check_error(["compare", pred, ref, "-o", same, "--gene-list", same], 2, "same file")
     assert not same.exists()
+
+
+def test_table_lists_at_most_ten_genes_and_says_how_many_more() -> None:
+    from seqstate.commands.compare import report_table
+
+    pred = [
+        Feature("c", "t", "CDS", 10 * i, 10 * i + 5, None, "+", 0, [("ID", f"p{i:02d}")])
+        for i in range(12)
+    ]
+    ref = [Feature("c", "t", "CDS", 200, 210, None, "+", 0, [("ID", "r")])]
+    r = compare_features(pred, ref, {"c": 300}, "CDS")
+    assert [g["id"] for g in r["wrong_genes"]] == [f"p{i:02d}" for i in range(12)]
+    lines = report_table(r).splitlines()
+    head = lines.index(
+        "predicted genes not in the reference (12; 1-based; * overlaps the other file):"
+    )
+    assert lines[head + 1] == "    p00  c:1-5 +"
+    assert lines[head + 10] == "    p09  c:91-95 +"
+    assert lines[head + 11] == "  ... 2 more (all of them: --gene-list FILE.tsv)"
+    assert "    r  c:201-210 +" in lines  # the one reference gene, missed

@@ -354,10 +354,10 @@ def _reference_lane(
         if kind not in kinds:
             kinds.append(kind)
         picked.append((kind, reg))
-    if chosen and not every and ref.format != "bed":
-        missing = sorted(chosen - set(kinds) - set(hidden))
-        present = sorted({r.type for r in ref.regions if r.type})
-        if missing and not set(missing) & set(present):
+    if chosen and not every:
+        present = sorted({r.type or "interval" for r in ref.regions})
+        missing = sorted(chosen - set(present))
+        if missing:
             raise UsageError(
                 f"--reference-type {', '.join(missing)}: no such type in {ref.path} "
                 f"(types there: {', '.join(present[:10]) or 'none'})"
