@@ -362,7 +362,7 @@ def sample_cmd(quiet: bool, **options: Any) -> None:
 @click.option(
     "--regions",
     required=True,
-    help="Regions to score: BED (0-based half-open) or GFF3 (1-based closed), "
+    help="Regions to score: BED (0-based half-open), GFF3 or GTF (1-based closed), "
     "plain or gzip; '-' for stdin.",
 )
 @model_option()
@@ -395,13 +395,16 @@ def sample_cmd(quiet: bool, **options: Any) -> None:
 )
 @click.option(
     "--regions-format",
-    type=click.Choice(["auto", "bed", "gff3"]),
+    type=click.Choice(["auto", "bed", "gff3", "gtf"]),
     default="auto",
     show_default=True,
     help="Format of --regions; auto: by name, else by content.",
 )
 @click.option(
-    "--type", "types", multiple=True, help="GFF3 regions: only features of this type (repeatable)."
+    "--type",
+    "types",
+    multiple=True,
+    help="GFF3 or GTF regions: only features of this type (repeatable).",
 )
 @masked_option
 @force_option
@@ -435,7 +438,17 @@ def score_cmd(regions_format: str, types: tuple[str, ...], quiet: bool, **option
     callback=not_empty,
     help="Figure file: .png, .svg or .pdf (the format follows the name).",
 )
-@click.option("--reference", default=None, help="GFF3 or BED features to show in their own lane.")
+@click.option(
+    "--reference", default=None, help="GFF3, GTF or BED features to show in their own lane."
+)
+@click.option(
+    "--reference-type",
+    "reference_types",
+    multiple=True,
+    callback=lambda _ctx, _param, value: tuple(value),
+    help="Reference type (column 3) to draw, repeatable; 'all' for every type. Default: "
+    "all but whole-sequence types (region, chromosome, contig, scaffold, supercontig).",
+)
 @click.option(
     "--flank",
     type=click.IntRange(min=0),
@@ -470,11 +483,12 @@ def plot_cmd(quiet: bool, **options: Any) -> None:
 @click.option(
     "--labels",
     default=None,
-    help="Known features, GFF3 (type = label) or BED (name = label): count the states they give.",
+    help="Known features, GFF3 or GTF (type = label) or BED (name = label): count the states "
+    "they give.",
 )
 @click.option(
     "--labels-format",
-    type=click.Choice(["auto", "gff3", "bed"]),
+    type=click.Choice(["auto", "gff3", "gtf", "bed"]),
     default="auto",
     show_default=True,
     help="Format of --labels (auto: by file name, then content).",
@@ -616,18 +630,26 @@ def fit_cmd(
     is_flag=True,
     help="Compare every sequence either file declares, not only those of PREDICTED.",
 )
+@click.option(
+    "--gene-list",
+    default=None,
+    callback=not_empty,
+    help="Also write a TSV of the missed and wrong genes (CDS and exon types): ID, place, "
+    "strand, so a curator can go to them.",
+)
 @force_option
 @quiet_option
 def compare_cmd(
-    predicted, reference, feature_types, region, out, all_sequences, force, quiet
+    predicted, reference, feature_types, region, out, all_sequences, gene_list, force, quiet
 ) -> None:
-    """Accuracy of PREDICTED features against REFERENCE features (both GFF3)."""
+    """Accuracy of PREDICTED features against REFERENCE features (GFF3 or GTF)."""
     from seqstate.commands.compare import compare_files, report_format, report_table, write_report
     from seqstate.io.atomic import check_outputs
 
     if out is not None:
         report_format(out)
-        check_outputs([out], [predicted, reference], force=force)
+    if out is not None or gene_list is not None:
+        check_outputs([out, gene_list], [predicted, reference], force=force)
     results = [
         compare_files(
             predicted, reference, feature_type=t, region=region, all_sequences=all_sequences
@@ -636,20 +658,24 @@ def compare_cmd(
     ]
     if out is None:
         echo_stdout("\n".join(report_table(result) for result in results))
-    else:
-        write_report(
-            results[0] if len(results) == 1 else results,
-            out,
-            force=force,
-            inputs=[predicted, reference],
-        )
+    write_report(
+        results[0] if len(results) == 1 else results,
+        out,
+        force=force,
+        inputs=[predicted, reference],
+        gene_list=gene_list,
+    )
     if not quiet:
         parts = []
         for result in results:
             sn = result["nucleotide"]["strand_aware"]["sensitivity"]
             sp = result["nucleotide"]["strand_aware"]["specificity"]
             shown = "NA" if sn is None else f"{sn:.4f}", "NA" if sp is None else f"{sp:.4f}"
-            parts.append(f"{result['type']}, strand-aware base Sn {shown[0]} Sp {shown[1]}")
+            part = f"{result['type']}, strand-aware base Sn {shown[0]} Sp {shown[1]}"
+            if "gene" in result:
+                gsn = result["gene"]["sensitivity"]
+                part += f", gene Sn {'NA' if gsn is None else f'{gsn:.4f}'}"
+            parts.append(part)
         click.echo(f"seqstate: {'; '.join(parts)} -> {out or 'stdout'}", err=True)
 
 

@@ -518,15 +518,27 @@ def test_read_sequence_regions() -> None:
 
 
 def _as_gtf(src: Path, dest: Path) -> Path:
-    """The features of a GFF3 file as GTF 2.2 lines (columns 1-8 kept; column 9 as
-    ``key "value";`` pairs, GTF 2.2 specification, from memory)."""
+    """The features of a GFF3 file as GTF 2.2 lines (columns 1-8 kept, mRNA written as
+    ``transcript``; column 9 as ``key "value";`` pairs: gene_id and transcript_id from
+    the GFF3 Parent chain, GTF 2.2 specification, from memory)."""
     out = []
+    parent: dict[str, str] = {}
     for line in src.read_text().splitlines():
         if line.startswith("#"):
             continue
         cols = line.split("\t")
-        ident = cols[8].split(";")[0].split("=")[1]
-        out.append("\t".join(cols[:8]) + f'\tgene_id "{ident}"; transcript_id "{ident}";')
+        attrs = dict(kv.split("=", 1) for kv in cols[8].split(";"))
+        if cols[2] == "gene":
+            ids = f'gene_id "{attrs["ID"]}";'
+        elif cols[2] == "mRNA":
+            parent[attrs["ID"]] = attrs["Parent"]
+            cols[2] = "transcript"
+            ids = f'gene_id "{attrs["Parent"]}"; transcript_id "{attrs["ID"]}";'
+        elif "Parent" in attrs:
+            ids = f'gene_id "{parent[attrs["Parent"]]}"; transcript_id "{attrs["Parent"]}";'
+        else:
+            ids = f'gene_id "{attrs["ID"]}";'
+        out.append("\t".join(cols[:8]) + "\t" + ids)
     dest.write_text("\n".join(out) + "\n")
     return dest
 
@@ -684,3 +696,199 @@ def test_gzip_input(tmp_path) -> None:
     with open(CDS_REF, "rb") as src, gzip.open(gz, "wb") as dst:
         shutil.copyfileobj(src, dst)
     assert compare_files(CDS_PRED, gz)["counts"] == compare_files(CDS_PRED, CDS_REF)["counts"]
+
+
+# ---------------------------------------------------------------- transcripts and genes
+# A transcript is right when every exon is exact and none is missing or extra; a gene
+# when one of its transcripts is (common practice for gene-level accuracy, as the
+# exon level of Burset & Guigó 1996 carried to whole transcripts; from memory).
+
+GENE_REF = """##gff-version 3
+##sequence-region ctgA 1 200
+ctgA\tref\tgene\t11\t60\t.\t+\t.\tID=A
+ctgA\tref\tmRNA\t11\t40\t.\t+\t.\tID=A1;Parent=A
+ctgA\tref\tmRNA\t11\t60\t.\t+\t.\tID=A2;Parent=A
+ctgA\tref\tCDS\t11\t20\t.\t+\t0\tID=a.c;Parent=A1,A2
+ctgA\tref\tCDS\t31\t40\t.\t+\t2\tID=a1.c;Parent=A1
+ctgA\tref\tCDS\t51\t60\t.\t+\t2\tID=a2.c;Parent=A2
+ctgA\tref\tgene\t71\t80\t.\t-\t.\tID=B
+ctgA\tref\tmRNA\t71\t80\t.\t-\t.\tID=B1;Parent=B
+ctgA\tref\tCDS\t71\t80\t.\t-\t0\tParent=B1
+ctgA\tref\tgene\t101\t130\t.\t+\t.\tID=C
+ctgA\tref\tmRNA\t101\t130\t.\t+\t.\tID=C1;Parent=C
+ctgA\tref\tCDS\t101\t110\t.\t+\t0\tParent=C1
+ctgA\tref\tCDS\t121\t130\t.\t+\t2\tParent=C1
+"""
+GENE_PRED = """##gff-version 3
+ctgA\tp\tgene\t11\t60\t.\t+\t.\tID=P1
+ctgA\tp\tmRNA\t11\t60\t.\t+\t.\tID=P1.t;Parent=P1
+ctgA\tp\tCDS\t11\t20\t.\t+\t0\tParent=P1.t
+ctgA\tp\tCDS\t51\t60\t.\t+\t2\tParent=P1.t
+ctgA\tp\tgene\t71\t80\t.\t-\t.\tID=P2
+ctgA\tp\tmRNA\t71\t80\t.\t-\t.\tID=P2.t;Parent=P2
+ctgA\tp\tCDS\t71\t80\t.\t-\t0\tParent=P2.t
+ctgA\tp\tgene\t101\t133\t.\t+\t.\tID=P3
+ctgA\tp\tmRNA\t101\t133\t.\t+\t.\tID=P3.t;Parent=P3
+ctgA\tp\tCDS\t101\t110\t.\t+\t0\tParent=P3.t
+ctgA\tp\tCDS\t121\t133\t.\t+\t2\tParent=P3.t
+ctgA\tp\tgene\t150\t160\t.\t+\t.\tID=P4
+ctgA\tp\tmRNA\t150\t160\t.\t+\t.\tID=P4.t;Parent=P4
+ctgA\tp\tCDS\t150\t160\t.\t+\t0\tParent=P4.t
+"""
+
+
+@pytest.fixture
+def gene_files(tmp_path: Path) -> tuple[Path, Path]:
+    pred, ref = tmp_path / "pred.gff3", tmp_path / "ref.gff3"
+    pred.write_text(GENE_PRED)
+    ref.write_text(GENE_REF)
+    return pred, ref
+
+
+def test_transcript_and_gene_level_by_hand(gene_files) -> None:
+    r = compare_files(*gene_files)
+    # transcripts: reference A1, A2 (shares the exon 11-20 through two parents), B1, C1;
+    # predicted P1.t = A2 exactly, P2.t = B1, P3.t differs from C1 in its last exon end,
+    # P4.t lies where the reference has nothing
+    assert r["counts"]["transcript"] == {
+        "reference": 4,
+        "predicted": 4,
+        "matched_reference": 2,  # A2, B1
+        "matched_predicted": 2,  # P1.t, P2.t
+    }
+    assert r["transcript"] == {"sensitivity": 2 / 4, "specificity": 2 / 4}
+    assert r["counts"]["gene"] == {
+        "reference": 3,
+        "predicted": 4,
+        "matched_reference": 2,  # A (through A2), B
+        "matched_predicted": 2,  # P1, P2
+        "missed_reference": 0,  # C is overlapped by P3
+        "wrong_predicted": 1,  # P4 overlaps nothing
+    }
+    assert r["gene"] == {"sensitivity": 2 / 3, "specificity": 2 / 4, "missed": 0.0, "wrong": 0.25}
+    assert r["missed_genes"] == [
+        {
+            "id": "C",
+            "seqid": "ctgA",
+            "start_1based": 101,
+            "end_1based": 130,
+            "strand": "+",
+            "transcripts": 1,
+            "overlapped": True,
+        }
+    ]
+    assert [
+        (g["id"], g["start_1based"], g["end_1based"], g["overlapped"]) for g in r["wrong_genes"]
+    ] == [("P3", 101, 133, True), ("P4", 150, 160, False)]
+
+
+def test_a_transcript_with_an_extra_or_missing_exon_is_not_right() -> None:
+    def tx(parent: str, *spans: tuple[int, int]) -> list[Feature]:
+        return [
+            Feature("c", "t", "CDS", a - 1, b, None, "+", 0, [("Parent", parent)]) for a, b in spans
+        ]
+
+    ref = tx("r", (1, 10), (21, 30))
+    for pred, right in (
+        (tx("p", (1, 10), (21, 30)), True),
+        (tx("p", (1, 10), (21, 30), (41, 50)), False),  # one exon more
+        (tx("p", (1, 10)), False),  # one exon fewer
+        (tx("p", (1, 10), (21, 31)), False),  # one end off by one
+    ):
+        r = compare_features(pred, ref, {"c": 60}, "CDS")
+        assert r["counts"]["transcript"]["matched_reference"] == int(right), pred
+        assert r["counts"]["gene"]["matched_predicted"] == int(right), pred
+        assert (r["missed_genes"] == []) is right
+
+
+def test_wrong_strand_transcript_is_not_right() -> None:
+    ref = [Feature("c", "t", "CDS", 0, 10, None, "+", 0, [("Parent", "r")])]
+    pred = [Feature("c", "t", "CDS", 0, 10, None, "-", 0, [("Parent", "p")])]
+    r = compare_features(pred, ref, {"c": 20}, "CDS")
+    assert r["gene"]["sensitivity"] == 0.0
+    assert r["missed_genes"][0]["overlapped"] is False  # overlap needs the same strand
+
+
+def test_gene_level_in_a_region_and_for_islands(gene_files) -> None:
+    r = compare_files(*gene_files, region="ctgA:95-140")
+    # only C (reference) and P3 (predicted) have an exon in 95-140
+    assert r["counts"]["gene"]["reference"] == 1 and r["counts"]["gene"]["predicted"] == 1
+    assert r["gene"]["sensitivity"] == 0.0
+    # the overlap rule (islands) has no gene level
+    assert "gene" not in compare_files(ISL_PRED, ISL_REF)
+
+
+def test_gene_level_from_gtf_equals_gff3(gene_files, tmp_path: Path) -> None:
+    # GFF3 -> GTF 2.2 twin (_as_gtf); a line with two parents becomes two GTF lines
+    pred, ref = gene_files
+    lines = []
+    for line in GENE_REF.splitlines():
+        if "Parent=A1,A2" in line:
+            lines.append(line.replace("Parent=A1,A2", "Parent=A1"))
+            lines.append(line.replace("Parent=A1,A2", "Parent=A2"))
+        else:
+            lines.append(line)
+    ref2 = tmp_path / "ref2.gff3"
+    ref2.write_text("\n".join(lines) + "\n")
+    want = compare_files(pred, ref, region="ctgA:1-200")
+    got = compare_files(
+        _as_gtf(pred, tmp_path / "p.gtf"), _as_gtf(ref2, tmp_path / "r.gtf"), region="ctgA:1-200"
+    )  # GTF has no ##sequence-region line: the length comes from the region
+    for key in ("transcript", "gene", "missed_genes", "wrong_genes"):
+        assert got[key] == want[key], key
+
+
+def test_cli_lists_missed_and_wrong_genes(gene_files, tmp_path: Path) -> None:
+    pred, ref = gene_files
+    code, out, err = run(["compare", pred, ref])
+    assert code == 0 and "gene Sn 0.6667" in err
+    rows = {line[:24].strip(): line[24:].split(None, 1) for line in out.splitlines()}
+    assert rows["gene Sn"] == ["0.6667", "2 of 3 reference genes with an exact transcript"]
+    assert rows["transcript Sp"][0] == "0.5000"
+    assert "  * C  ctgA:101-130 +" in out.splitlines()
+    assert "    P4  ctgA:150-160 +" in out.splitlines()
+    listing, report = tmp_path / "genes.tsv", tmp_path / "r.tsv"
+    code, out, err = run(["compare", pred, ref, "-o", report, "--gene-list", listing])
+    assert code == 0 and out == ""
+    assert listing.read_text().splitlines() == [
+        "type\tstatus\tfile\tgene_id\tseqid\tstart_1based\tend_1based\tstrand\ttranscripts"
+        "\toverlapped",
+        "CDS\tmissed\treference\tC\tctgA\t101\t130\t+\t1\tyes",
+        "CDS\twrong\tpredicted\tP3\tctgA\t101\t133\t+\t1\tyes",
+        "CDS\twrong\tpredicted\tP4\tctgA\t150\t160\t+\t1\tno",
+    ]
+    tsv = dict(line.split("\t") for line in report.read_text().splitlines()[1:])
+    assert tsv["missed_genes"] == "C" and tsv["wrong_genes"] == "P3,P4"
+    assert tsv["gene.sensitivity"] == "0.666667" and tsv["counts.gene.wrong_predicted"] == "1"
+    # the gene list alone, the table still on stdout; an existing list needs --force
+    code, out, _ = run(["compare", pred, ref, "--gene-list", listing])
+    assert code == 2 and out == ""
+    code, out, _ = run(["compare", pred, ref, "--gene-list", listing, "--force"])
+    assert code == 0 and "gene Sn" in out
+
+
+def test_gene_list_same_file_as_report_is_refused(gene_files, tmp_path: Path) -> None:
+    pred, ref = gene_files
+    same = tmp_path / "x.tsv"
+    check_error(["compare", pred, ref, "-o", same, "--gene-list", same], 2, "same file")
+    assert not same.exists()
+
+
+def test_table_lists_at_most_ten_genes_and_says_how_many_more() -> None:
+    from seqstate.commands.compare import report_table
+
+    pred = [
+        Feature("c", "t", "CDS", 10 * i, 10 * i + 5, None, "+", 0, [("ID", f"p{i:02d}")])
+        for i in range(12)
+    ]
+    ref = [Feature("c", "t", "CDS", 200, 210, None, "+", 0, [("ID", "r")])]
+    r = compare_features(pred, ref, {"c": 300}, "CDS")
+    assert [g["id"] for g in r["wrong_genes"]] == [f"p{i:02d}" for i in range(12)]
+    lines = report_table(r).splitlines()
+    head = lines.index(
+        "predicted genes not in the reference (12; 1-based; * overlaps the other file):"
+    )
+    assert lines[head + 1] == "    p00  c:1-5 +"
+    assert lines[head + 10] == "    p09  c:91-95 +"
+    assert lines[head + 11] == "  ... 2 more (all of them: --gene-list FILE.tsv)"
+    assert "    r  c:201-210 +" in lines  # the one reference gene, missed

@@ -23,6 +23,7 @@ from helpers import sample_record
 from seqstate.cli import main
 from seqstate.commands.annotate import AnnotateOptions, annotate
 from seqstate.commands.plot import MAX_REGION, PlotOptions, draw, plot_data
+from seqstate.errors import UsageError
 from seqstate.io.gff3 import read_gff3
 from seqstate.io.tables import save_model
 from seqstate.model import State, make_model
@@ -130,7 +131,9 @@ def test_boxes_and_curve_match_annotate(annotated, r0, r1):
     assert [(b.get_x(), b.get_x() + b.get_width()) for b in boxes] == [
         (f.start0 + 0.5, f.end0 + 0.5) for f in want
     ]
-    assert ax.get_ylim() == (0.0, 1.0) and ax.get_ylabel() == "posterior probability"
+    assert ax.get_ylim() == (0.0, 1.0)
+    # 40 kb (or 18 kb) on 8 x 60 = 480 pixel columns: binned means, the bin in the title
+    assert ax.get_ylabel().startswith("posterior probability\n(mean per ")
     assert ax.get_xlim() == (r0 + 0.5, r1 + 0.5)
     title = fig._suptitle.get_text()
     assert region in title and "cpg-island" in title
@@ -374,3 +377,202 @@ def test_plot_cuts_features_at_unknown_runs_like_annotate(tmp_path):
         )
         assert counts[threshold] == len(read_gff3(out / "n.gff3"))
     assert counts == {10: 2, 21: 1}
+
+
+# ---------------------------------------------------------------- gene models
+# Synthetic records drawn from the shipped gene-segment model (`seqstate sample`, seed 3);
+# the decoded genes are checked against annotate's own GFF3 of the same records.
+
+
+@pytest.fixture(scope="module")
+def gene_run(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("genes")
+    fa, truth = tmp / "g.fa", tmp / "truth.gff3"
+    res = run(
+        ["sample", "gene-segment", "--length", "30000", "--records", "2", "--seed", "3"]
+        + ["-o", str(fa), "--truth", str(truth), "-q"]
+    )
+    assert res.exit_code == 0, res.stderr
+    out = tmp / "annot"
+    annotate(AnnotateOptions(input=str(fa), out_dir=str(out), model="gene-segment"))
+    return tmp, fa, truth, read_gff3(out / "g.gff3")
+
+
+def test_gene_model_lane_is_annotates_genes(gene_run):
+    tmp, fa, truth, annotated = gene_run
+    mrna_gene = {f.get("ID"): f.get("Parent") for f in annotated if f.type == "mRNA"}
+    partial = {f.get("ID") for f in annotated if f.type == "gene" and f.get("partial")}
+    n_genes, strands = 0, set()
+    for seqid in ("sim1", "sim2"):
+        data = plot_data(
+            PlotOptions(input=str(fa), region=seqid, out="x.png", model="gene-segment")
+        )
+        assert data.decoded_unit == "gene" and data.decoded_rows == ["genes +", "genes -"]
+        want: dict[str, list] = {}
+        for f in annotated:
+            if f.type == "CDS" and f.seqid == seqid:
+                want.setdefault(mrna_gene[f.get("Parent")], []).append((f.start0, f.end0, f.strand))
+        got: dict[str, list] = {}
+        for f in data.decoded:
+            assert f.row == (0 if f.strand == "+" else 1)  # one row per strand
+            assert f.label == f.model + (" (partial)" if f.model in partial else "")
+            got.setdefault(f.model, []).append((f.start0, f.end0, f.strand))
+        assert got == want  # same IDs, same CDS pieces as annotate
+        n_genes += len(got)
+        strands |= {s for pieces in got.values() for _, _, s in pieces}
+        fig = draw(data, 10, 4, 60)
+        lane = fig.axes[1]
+        texts = [t.get_text() for t in lane.texts if (t.get_gid() or "").startswith("feature-")]
+        assert sorted(texts) == sorted({f.label for f in data.decoded})  # every gene ID
+        lines = lane.get_lines()
+        marks = [ln for ln in lines if (ln.get_gid() or "").startswith("feature-strand")]
+        assert len(marks) == len(got)  # one 3' arrowhead per gene, pointing its way
+        assert [ln.get_marker() for ln in marks] == [
+            ">" if pieces[0][2] == "+" else "<"
+            for pieces in sorted(got.values(), key=lambda p: p[0][0])
+        ]
+        joins = [ln for ln in lines if (ln.get_gid() or "").startswith("feature-join")]
+        assert len(joins) == sum(len(p) > 1 for p in got.values())  # introns drawn as lines
+    assert n_genes >= 3 and strands == {"+", "-"}
+    res = run(["plot", str(fa), "--region", "sim2", "-m", "gene-segment", "-o", str(tmp / "g.svg")])
+    assert res.exit_code == 0, res.stderr
+    assert "decoded gene(s) -> " in res.stderr
+
+
+def test_curves_stay_distinguishable_where_they_coincide(gene_run):
+    _, fa, _, _ = gene_run
+    data = plot_data(
+        PlotOptions(input=str(fa), region="sim1:1-2000", out="x.png", model="gene-segment")
+    )
+    lines = draw(data, 8, 4, 50).axes[0].get_lines()
+    assert [ln.get_label() for ln in lines] == data.groups and len(lines) == 4
+    # distinct dash patterns; each later curve narrower and darker, drawn on top, so a
+    # curve lying on another still shows inside it (common practice)
+    assert len({ln.get_linestyle() for ln in lines}) == 4
+    widths = [ln.get_linewidth() for ln in lines]
+    greys = [matplotlib.colors.to_rgba(ln.get_color())[0] for ln in lines]
+    orders = [ln.get_zorder() for ln in lines]
+    assert widths == sorted(widths, reverse=True) and len(set(widths)) == 4
+    assert greys == sorted(greys, reverse=True) and len(set(greys)) == 4
+    assert orders == sorted(orders) and len(set(orders)) == 4
+
+
+def test_whole_record_is_binned_means(gene_run):
+    from seqstate.commands.plot import _curve_points, bin_size
+
+    _, fa, _, _ = gene_run
+    data = plot_data(PlotOptions(input=str(fa), region="sim1", out="x.png", model="gene-segment"))
+    fig = draw(data, 5, 3, 40)  # 200 pixel columns, 400 points at most: 30 kb is binned
+    size = bin_size(30_000, 400)
+    assert size == 150  # ceil(30000 / 200)
+    assert fig.axes[0].get_ylabel() == "posterior probability\n(mean per 150-base bin)"
+    line = fig.axes[0].get_lines()[0]
+    ys = np.asarray(line.get_ydata())
+    # the mean of each 150-base bin, by hand (numpy reshape)
+    assert np.allclose(ys, data.values[:, 0].astype(np.float64).reshape(-1, 150).mean(axis=1))
+    assert np.allclose(np.asarray(line.get_xdata())[:2], [75.5, 225.5])  # bin centres, 1-based
+    # a last, shorter bin is the mean of what it holds; no binning when it fits
+    x, y = _curve_points(np.arange(7, dtype=np.float32), 10, 3)
+    assert x.tolist() == [12.0, 15.0, 17.0] and y.tolist() == [1.0, 4.0, 6.0]
+    x, y = _curve_points(np.arange(3, dtype=np.float32), 10, bin_size(3, 4))
+    assert x.tolist() == [11.0, 12.0, 13.0] and y.tolist() == [0.0, 1.0, 2.0]
+
+
+def test_labels_left_out_when_too_many(tmp_path):
+    from seqstate.commands.plot import MAX_LABELS, LaneFeature, PlotData
+
+    n = MAX_LABELS + 1
+    decoded = [LaneFeature(0, 10 * i, 10 * i + 5, "", "+", f"g{i}", f"g{i}") for i in range(n)]
+    data = PlotData("r", 0, 10 * n, "m", "viterbi", "note", ["a"], np.zeros((10 * n, 1)), decoded)
+    data.decoded_rows = ["genes +"]
+    lane = draw(data, 6, 3, 40).axes[1]
+    assert lane.texts == [] or all(not t.get_text() for t in lane.texts)
+    assert f"{n} in view, IDs not written (at most {MAX_LABELS})" in lane.get_title(loc="left")
+
+
+REF_GFF3 = """##gff-version 3
+##sequence-region sim1 1 30000
+sim1\tref\tregion\t1\t30000\t.\t.\t.\tID=chr
+sim1\tref\tgene\t101\t900\t.\t-\t.\tID=G1
+sim1\tref\tmRNA\t101\t900\t.\t-\t.\tID=G1.a;Parent=G1
+sim1\tref\tCDS\t101\t300\t.\t-\t0\tParent=G1.a
+sim1\tref\tCDS\t701\t900\t.\t-\t0\tParent=G1.a
+sim1\tref\tmRNA\t101\t600\t.\t-\t.\tID=G1.b;Parent=G1
+sim1\tref\tCDS\t101\t300\t.\t-\t0\tParent=G1.b
+sim1\tref\tCDS\t501\t600\t.\t-\t0\tParent=G1.b
+sim1\tref\tCDS\t1501\t1800\t.\t+\t0\tID=lone
+"""
+
+
+def _ref_data(ref: Path, fa: Path, *types: str):
+    return plot_data(
+        PlotOptions(
+            input=str(fa),
+            region="sim1:1-2000",
+            out="x.png",
+            model="gene-segment",
+            reference=str(ref),
+            reference_types=types,
+        )
+    )
+
+
+def test_reference_types_and_gene_models(gene_run, tmp_path):
+    _, fa, _, _ = gene_run
+    ref = tmp_path / "ref.gff3"
+    ref.write_text(REF_GFF3)
+    data = _ref_data(ref, fa)
+    # by default the whole-sequence 'region' row takes no lane and the title says so
+    assert data.reference_hidden == ["region"]
+    # rows by type in file order; the two isoforms overlap, so the mRNA and CDS rows
+    # have two tiers each (the lone CDS at 1501-1800 fits in the first)
+    assert data.reference_rows == ["gene", "mRNA", "", "CDS", ""]
+    cds = [f for f in data.reference if f.row in (3, 4)]
+    by_model: dict[str, set] = {}
+    for f in cds:
+        by_model.setdefault(f.model, set()).add((f.start0, f.end0, f.row, f.label))
+    assert by_model == {
+        "G1.a": {(100, 300, 3, "G1"), (700, 900, 3, "G1")},  # labelled with the gene ID
+        "G1.b": {(100, 300, 4, "G1"), (500, 600, 4, "G1")},
+        None: {(1500, 1800, 3, "lone")},
+    }
+    fig = draw(data, 8, 5, 50)
+    assert "not shown: region" in fig.axes[2].get_title(loc="left")
+    marks = [
+        ln for ln in fig.axes[2].get_lines() if (ln.get_gid() or "").startswith("reference-strand")
+    ]
+    assert "<" in {ln.get_marker() for ln in marks} and ">" in {ln.get_marker() for ln in marks}
+    # selected types only; 'all' brings the region row back
+    only = _ref_data(ref, fa, "region")
+    assert only.reference_rows == ["region"] and only.reference_hidden == ["gene", "mRNA", "CDS"]
+    assert "region" in _ref_data(ref, fa, "all").reference_rows
+    with pytest.raises(UsageError, match="--reference-type bogus: no such type"):
+        _ref_data(ref, fa, "bogus")
+
+
+def test_reference_gtf_draws_as_its_gff3_twin(gene_run, tmp_path):
+    # GTF 2.2 twin of REF_GFF3's transcripts (gene_id / transcript_id; from memory)
+    _, fa, _, _ = gene_run
+    gff = tmp_path / "ref.gff3"
+    gff.write_text(REF_GFF3)
+    gtf = tmp_path / "ref.gtf"
+    gtf.write_text(
+        'sim1\tref\tCDS\t101\t300\t.\t-\t0\tgene_id "G1"; transcript_id "G1.a";\n'
+        'sim1\tref\tCDS\t701\t900\t.\t-\t0\tgene_id "G1"; transcript_id "G1.a";\n'
+        'sim1\tref\tCDS\t101\t300\t.\t-\t0\tgene_id "G1"; transcript_id "G1.b";\n'
+        'sim1\tref\tCDS\t501\t600\t.\t-\t0\tgene_id "G1"; transcript_id "G1.b";\n'
+    )
+    want = _ref_data(gff, fa, "CDS")
+    got = _ref_data(gtf, fa, "CDS")
+    key = [(f.start0, f.end0, f.strand, f.model, f.label, f.row) for f in got.reference]
+    assert key == [
+        (f.start0, f.end0, f.strand, f.model, f.label, f.row)
+        for f in want.reference
+        if f.model != "lone" and f.model is not None
+    ]
+    res = run(
+        ["plot", str(fa), "--region", "sim1:1-2000", "-m", "gene-segment"]
+        + ["-o", str(tmp_path / "r.png"), "--reference", str(gtf), "--reference-type", "CDS"]
+    )
+    assert res.exit_code == 0, res.stderr
+    assert "4 reference feature(s)" in res.stderr

@@ -44,6 +44,31 @@ Feature level.  Features are compared on the same seqid and strand.
   fractions of reference and predicted features with at least one match;
   missed and wrong are the fractions with no overlap at all.
 
+Transcript and gene level (for ``CDS`` and ``exon``).  The compared lines of a
+file are grouped into transcripts by their ``Parent`` (a line with several parents
+belongs to each), and transcripts into genes by the transcript's own ``Parent``
+(GFF3 gene -> mRNA -> CDS/exon; GTF ``gene_id`` and ``transcript_id``, see
+:func:`seqstate.io.intervals.gtf_gene_features`).  A line without a parent is a
+transcript and a gene of its own, named by its ``ID`` (lines sharing an ID are
+one feature); a transcript whose parent is not in the file is a gene of its own.
+A transcript is right when a transcript of the other file has exactly the same
+exons (every exon exact, none more, none fewer); a gene is right when one of its
+transcripts is.
+
+* transcript ``Sn = right reference transcripts / reference transcripts``,
+  ``Sp = right predicted transcripts / predicted transcripts``;
+* gene ``Sn = reference genes with a right transcript / reference genes``,
+  ``Sp = predicted genes with a right transcript / predicted genes``; gene
+  ``missed`` and ``wrong`` are the fractions of reference and predicted genes
+  none of whose exons overlaps an exon of the other file;
+* ``missed_genes`` lists every reference gene that is not right, and
+  ``wrong_genes`` every predicted gene that is not right, by ID with seqid,
+  1-based span, strand, number of transcripts and ``overlapped`` (some exon of
+  it overlaps an exon of the other file: a wrong structure rather than a gene
+  missed or invented outright), so a curator can go to them.
+
+With a region, a transcript counts when one of its exons overlaps the region.
+
 Identical features (same seqid, start, end and strand), such as an exon
 shared by several isoforms, are counted once, in both files; nucleotide
 coverage is the union of the features anyway.
@@ -65,14 +90,17 @@ Features on other seqids are ignored.
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Mapping
+from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 from seqstate.commands.compare_metrics import (
     Item,
+    Transcript,
     approximate_correlation,
     feature_counts,
+    gene_counts,
     nucleotide_counts,
     nucleotide_metrics,
     ratio,
@@ -89,7 +117,7 @@ from seqstate.commands.compare_report import (
 from seqstate.errors import FeatureFormatError, UsageError
 from seqstate.io.files import display_name
 from seqstate.io.gff3 import Feature, read_gff3, read_sequence_regions
-from seqstate.io.intervals import Interval, read_interval_file, sniff_file
+from seqstate.io.intervals import Interval, read_gene_features, sniff_file
 from seqstate.io.regions import TO_END, Region, parse_region
 
 __all__ = [
@@ -153,6 +181,68 @@ def _select(features: Iterable[Feature | Interval], feature_type: str) -> list[I
         for f in features
         if f.type == feature_type
     ]
+
+
+def _transcripts(features: Iterable[Feature | Interval], feature_type: str) -> list[Transcript]:
+    """The transcripts of the lines of ``feature_type`` (see the module docstring)."""
+    features = list(features)
+    parent_of: dict[str, str] = {}
+    for f in features:
+        fid = f.get("ID")
+        if fid and fid not in parent_of and f.type != feature_type:
+            parents = _values(f, "Parent")
+            parent_of[fid] = parents[0] if parents else fid
+    exons: dict[str, set[tuple[str, str, int, int]]] = {}
+    gene: dict[str, str] = {}
+    first: dict[str, int | None] = {}
+    for f in features:
+        if f.type != feature_type:
+            continue
+        parents = _values(f, "Parent")
+        if not parents:  # a transcript (and gene) of its own
+            line0 = f.line0 if f.line0 is not None else -1
+            parents = [f.get("ID") or f"line {line0 + 1}"]
+        for tid in parents:
+            exons.setdefault(tid, set()).add((f.seqid, f.strand, f.start0, f.end0))
+            gene.setdefault(tid, parent_of.get(tid, tid))
+            first.setdefault(tid, f.line0)
+    return [Transcript(tid, gene[tid], frozenset(ex), first[tid]) for tid, ex in exons.items()]
+
+
+def _values(f: Feature | Interval, key: str) -> list[str]:
+    out: list[str] = []
+    for k, v in f.attributes:
+        if k == key:
+            out.extend([v] if isinstance(v, str) else v)
+    return out
+
+
+def _gene_level(
+    pred: Iterable[Feature | Interval],
+    ref: Iterable[Feature | Interval],
+    feature_type: str,
+    keep: Callable[[Transcript], bool],
+) -> dict:
+    """Transcript and gene results of the transcripts ``keep`` accepts."""
+    p_tx = [t for t in _transcripts(pred, feature_type) if keep(t)]
+    r_tx = [t for t in _transcripts(ref, feature_type) if keep(t)]
+    gc = gene_counts(p_tx, r_tx)
+    tc, g = gc["transcript"], gc["gene"]
+    return {
+        "transcript": {
+            "sensitivity": ratio(tc["matched_reference"], tc["reference"]),
+            "specificity": ratio(tc["matched_predicted"], tc["predicted"]),
+        },
+        "gene": {
+            "sensitivity": ratio(g["matched_reference"], g["reference"]),
+            "specificity": ratio(g["matched_predicted"], g["predicted"]),
+            "missed": ratio(g["missed_reference"], g["reference"]),
+            "wrong": ratio(g["wrong_predicted"], g["predicted"]),
+        },
+        "counts": {"transcript": tc, "gene": g},
+        "missed_genes": gc["missed"],
+        "wrong_genes": gc["wrong"],
+    }
 
 
 def _dedupe(items: list[Item]) -> tuple[list[Item], int]:
@@ -263,7 +353,19 @@ def _compare(
     def metrics(c: dict) -> dict:
         return nucleotide_metrics(c["tp"], c["fp"], c["fn"], c["tn"])
 
-    return {
+    genes = None
+    if exact:
+
+        def keep(t: Transcript) -> bool:
+            if reg is not None:
+                return any(
+                    s == reg.seqid and a < reg.end0 and b > reg.start0 for s, _, a, b in t.exons
+                )
+            return only is None or any(s in only for s, _, _, _ in t.exons)
+
+        genes = _gene_level(pred, ref, feature_type, keep)
+
+    result: dict[str, Any] = {
         "type": feature_type,
         "rule": "exon" if exact else "overlap",
         "region": None if reg is None else reg.text(),
@@ -292,6 +394,14 @@ def _compare(
             "feature": fc,
         },
     }
+    if genes is not None:
+        result["transcript"] = genes["transcript"]
+        result["gene"] = genes["gene"]
+        result["counts"]["transcript"] = genes["counts"]["transcript"]
+        result["counts"]["gene"] = genes["counts"]["gene"]
+        result["missed_genes"] = genes["missed_genes"]
+        result["wrong_genes"] = genes["wrong_genes"]
+    return result
 
 
 def compare_features(
@@ -326,7 +436,11 @@ def compare_features(
     ``nucleotide`` (``strand_aware`` and ``strand_agnostic``, each with
     ``sensitivity``, ``specificity`` and ``approximate_correlation``),
     ``feature`` (``sensitivity``, ``specificity``, ``missed``, ``wrong``) and
-    ``counts``.  An undefined ratio (zero denominator) is None.  The
+    ``counts``; for CDS and exon also ``transcript`` (``sensitivity``,
+    ``specificity``), ``gene`` (the same and ``missed``, ``wrong``), their counts
+    under ``counts``, and ``missed_genes`` and ``wrong_genes`` (lists of dicts:
+    ``id``, ``seqid``, ``start_1based``, ``end_1based``, ``strand``,
+    ``transcripts``, ``overlapped``).  An undefined ratio (zero denominator) is None.  The
     definitions are in this module's docstring.
 
     Raises :class:`~seqstate.errors.FeatureFormatError` for a feature on a
@@ -396,11 +510,12 @@ def choose_type(
     return requested
 
 
-def _read_features(path: str | Path, gtf: dict[str | Path, bool]) -> list[Feature] | list[Interval]:
-    """The features of a GFF3 file, or of a GTF file (told by its name or first lines;
-    ``gtf[path]`` is set to which)."""
-    gtf[path] = sniff_file(path, "GFF3") == "gtf"
-    return read_interval_file(path, "gtf")[1] if gtf[path] else read_gff3(path)
+def _read_features(path: str | Path, gtf: dict[str | Path, bool]) -> list[Feature]:
+    """The features of a GFF3 file, or of a GTF file as its gene -> transcript
+    hierarchy (told by its name or first lines; ``gtf[path]`` is set to which;
+    :func:`~seqstate.io.intervals.read_gene_features`)."""
+    gtf[path] = sniff_file(path, "GFF3 or GTF") == "gtf"
+    return read_gene_features(path)[1] if gtf[path] else read_gff3(path)
 
 
 def compare_files(

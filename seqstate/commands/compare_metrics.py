@@ -16,9 +16,11 @@ __all__ = [
     "IntervalIndex",
     "Item",
     "SpanLike",
+    "Transcript",
     "approximate_correlation",
     "covered",
     "feature_counts",
+    "gene_counts",
     "merge",
     "nucleotide_counts",
     "nucleotide_metrics",
@@ -216,4 +218,102 @@ def feature_counts(pred: list[Item], ref: list[Item], exact: bool) -> dict[str, 
         "matched_predicted": matched_pred,
         "missed_reference": missed,
         "wrong_predicted": wrong,
+    }
+
+
+# ---------------------------------------------------------------- transcripts and genes
+
+
+@dataclass(frozen=True)
+class Transcript:
+    """One transcript as compared: its exons (CDS or exon lines of the compared type),
+    each ``(seqid, strand, start0, end0)`` 0-based half-open, and its gene's ID."""
+
+    id: str
+    gene: str
+    exons: frozenset[tuple[str, str, int, int]]
+    line0: int | None
+
+
+def _gene_rows(
+    genes: dict[str, list[Transcript]],
+    right: set[str],
+    overlapping: Mapping[tuple[str, str], IntervalIndex],
+) -> list[dict]:
+    """The genes that are not ``right``, each with its place and whether any exon of
+    it overlaps an exon of the other file."""
+    rows = []
+    for gid, txs in genes.items():
+        if gid in right:
+            continue
+        exons = [e for t in txs for e in t.exons]
+        seqid, strand = exons[0][0], exons[0][1]
+        touched = any(
+            overlapping[(s, st)].overlapping(a, b)
+            for s, st, a, b in exons
+            if (s, st) in overlapping
+        )
+        rows.append(
+            {
+                "id": gid,
+                "seqid": seqid,
+                "start_1based": min(e[2] for e in exons) + 1,
+                "end_1based": max(e[3] for e in exons),
+                "strand": strand,
+                "transcripts": len(txs),
+                "overlapped": touched,
+            }
+        )
+    rows.sort(key=lambda r: (r["seqid"], r["start_1based"], r["end_1based"], r["id"]))
+    return rows
+
+
+def gene_counts(pred: Sequence[Transcript], ref: Sequence[Transcript]) -> dict:
+    """Transcript- and gene-level counts, and the genes that are not right.
+
+    A transcript is right when some transcript of the other file has exactly its
+    exons (the same set of ``(seqid, strand, start0, end0)``); a gene is right when
+    one of its transcripts is.  ``missed`` and ``wrong`` list the reference genes
+    that are not found and the predicted genes that are not right (sorted by seqid,
+    start, end, ID); ``missed_reference``/``wrong_predicted`` count those of them
+    with no exon overlapping any exon of the other file (same seqid and strand).
+    """
+    p_sets = {t.exons for t in pred}
+    r_sets = {t.exons for t in ref}
+
+    def by_gene(txs: Sequence[Transcript]) -> dict[str, list[Transcript]]:
+        out: dict[str, list[Transcript]] = {}
+        for t in txs:
+            out.setdefault(t.gene, []).append(t)
+        return out
+
+    def index(txs: Sequence[Transcript]) -> dict[tuple[str, str], IntervalIndex]:
+        out: dict[tuple[str, str], list[tuple[int, int]]] = {}
+        for t in txs:
+            for s, st, a, b in t.exons:
+                out.setdefault((s, st), []).append((a, b))
+        return {key: IntervalIndex(ivs) for key, ivs in out.items()}
+
+    p_genes, r_genes = by_gene(pred), by_gene(ref)
+    p_right = {g for g, txs in p_genes.items() if any(t.exons in r_sets for t in txs)}
+    r_right = {g for g, txs in r_genes.items() if any(t.exons in p_sets for t in txs)}
+    missed = _gene_rows(r_genes, r_right, index(pred))
+    wrong = _gene_rows(p_genes, p_right, index(ref))
+    return {
+        "transcript": {
+            "reference": len(ref),
+            "predicted": len(pred),
+            "matched_reference": sum(t.exons in p_sets for t in ref),
+            "matched_predicted": sum(t.exons in r_sets for t in pred),
+        },
+        "gene": {
+            "reference": len(r_genes),
+            "predicted": len(p_genes),
+            "matched_reference": len(r_right),
+            "matched_predicted": len(p_right),
+            "missed_reference": sum(not r["overlapped"] for r in missed),
+            "wrong_predicted": sum(not r["overlapped"] for r in wrong),
+        },
+        "missed": missed,
+        "wrong": wrong,
     }

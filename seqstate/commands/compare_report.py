@@ -6,23 +6,42 @@ import json
 from pathlib import Path
 
 from seqstate.errors import UsageError
-from seqstate.io.atomic import atomic_text
+from seqstate.io.atomic import OutputSet, atomic_text
 from seqstate.io.gff3 import escape_column9
 
 __all__ = [
     "LISTED",
+    "GENE_LISTS",
+    "GENE_LIST_COLUMNS",
     "REPORT_FORMATS",
+    "gene_list_tsv",
     "report_format",
     "report_json",
     "report_table",
     "report_tsv",
+    "write_gene_list",
     "write_report",
 ]
 
 #: Report formats of ``-o``, by file name ending.
 REPORT_FORMATS = {".tsv": "tsv", ".json": "json"}
-#: At most this many names (feature types, sequences) in a message or report line.
+#: At most this many names (feature types, sequences, genes) in a message or report line.
 LISTED = 10
+#: The result keys that list genes that are not right (reference, predicted).
+GENE_LISTS = ("missed_genes", "wrong_genes")
+#: Columns of the gene list (:func:`gene_list_tsv`).
+GENE_LIST_COLUMNS = [
+    "type",
+    "status",
+    "file",
+    "gene_id",
+    "seqid",
+    "start_1based",
+    "end_1based",
+    "strand",
+    "transcripts",
+    "overlapped",
+]
 
 
 # ---------------------------------------------------------------- reports
@@ -51,13 +70,17 @@ def report_tsv(result: dict) -> str:
     Every key of :func:`compare_features`'s result, in order
     (``type`` ... ``counts.feature.wrong_predicted``); ``sequences`` is one row, the
     compared seqids joined by commas (each escaped as a GFF3 column-9 value, so a
-    comma in a seqid reads ``%2C``).  Ratios have 6 decimals; an undefined value
-    is ``NA``.
+    comma in a seqid reads ``%2C``); ``missed_genes`` and ``wrong_genes`` are one
+    row each, the gene IDs joined the same way (empty when there is none).  Ratios
+    have 6 decimals; an undefined value is ``NA``.
     """
     rows = ["metric\tvalue"]
     flat = dict(result)
     if "sequences" in flat:
         flat["sequences"] = ",".join(escape_column9(s["seqid"]) for s in result["sequences"])
+    for key in GENE_LISTS:
+        if key in flat:  # the IDs, comma-joined (the places: gene_list_tsv)
+            flat[key] = ",".join(escape_column9(g["id"]) for g in result[key])
     for key, value in _flatten("", flat):
         rows.append(f"{key}\t{_value(value, 6)}")
     return "\n".join(rows) + "\n"
@@ -161,12 +184,68 @@ def report_table(result: dict) -> str:
             f"{fc['wrong_predicted']} of {fc['predicted']} predicted {n_pred} with no overlap",
         ),
     ]
+    if "gene" in result:
+        tc, gc = counts["transcript"], counts["gene"]
+        t, g = result["transcript"], result["gene"]
+        rows += [
+            (
+                "transcript Sn",
+                _value(t["sensitivity"], 4),
+                f"{tc['matched_reference']} of {tc['reference']} reference transcripts with "
+                "every exon exact",
+            ),
+            (
+                "transcript Sp",
+                _value(t["specificity"], 4),
+                f"{tc['matched_predicted']} of {tc['predicted']} predicted transcripts with "
+                "every exon exact",
+            ),
+            (
+                "gene Sn",
+                _value(g["sensitivity"], 4),
+                f"{gc['matched_reference']} of {gc['reference']} reference genes with an "
+                "exact transcript",
+            ),
+            (
+                "gene Sp",
+                _value(g["specificity"], 4),
+                f"{gc['matched_predicted']} of {gc['predicted']} predicted genes with an "
+                "exact transcript",
+            ),
+            (
+                "genes missed",
+                _value(g["missed"], 4),
+                f"{gc['missed_reference']} of {gc['reference']} reference genes with no overlap",
+            ),
+            (
+                "genes wrong",
+                _value(g["wrong"], 4),
+                f"{gc['wrong_predicted']} of {gc['predicted']} predicted genes with no overlap",
+            ),
+        ]
     header = ("metric", "value", "counts")
     w0 = max(len(r[0]) for r in (*rows, header))
     w1 = max(len(r[1]) for r in (*rows, header))
     lines.append("")
     for name, value, detail in (header, *rows):
         lines.append(f"{name:<{w0}}  {value:>{w1}}  {detail}")
+    for key, title in (
+        ("missed_genes", "reference genes not found exactly"),
+        ("wrong_genes", "predicted genes not in the reference"),
+    ):
+        genes = result.get(key)
+        if not genes:
+            continue
+        lines.append("")
+        lines.append(f"{title} ({len(genes)}; 1-based; * overlaps the other file):")
+        for row in genes[:LISTED]:
+            mark = "*" if row["overlapped"] else " "
+            lines.append(
+                f"  {mark} {row['id']}  {row['seqid']}:{row['start_1based']}-"
+                f"{row['end_1based']} {row['strand']}"
+            )
+        if len(genes) > LISTED:
+            lines.append(f"  ... {len(genes) - LISTED} more (all of them: --gene-list FILE.tsv)")
     tracks = counts["nucleotide"]["strand_aware"]["tracks"]
     lines.append("")
     lines.append(
@@ -185,17 +264,30 @@ def report_format(path: str | Path) -> str:
 
 def write_report(
     result: dict | list[dict],
-    path: str | Path,
+    path: str | Path | None,
     *,
     force: bool = False,
     inputs: tuple | list = (),
+    gene_list: str | Path | None = None,
 ) -> None:
     """Write the report as TSV or JSON (by the name's ending), all-or-nothing.
 
     Several results (one per ``--type``): JSON holds a list of them; TSV puts a
     ``type`` column first.  The overwrite rule of :mod:`seqstate.io.atomic`
-    applies (``force``, ``inputs``).
+    applies (``force``, ``inputs``).  With ``gene_list``, that file gets
+    :func:`gene_list_tsv` in the same output set (both are written or neither);
+    ``path`` may then be None (no report file).
     """
+    if path is None and gene_list is None:
+        return
+    with OutputSet(force=force, inputs=inputs) as outs:
+        if path is not None:
+            outs.open_text(path).write(_report_text(result, path))
+        if gene_list is not None:
+            outs.open_text(gene_list).write(gene_list_tsv(result))
+
+
+def _report_text(result: dict | list[dict], path: str | Path) -> str:
     tsv = report_format(path) == "tsv"
     if isinstance(result, list):
         if tsv:
@@ -207,5 +299,51 @@ def write_report(
             text = json.dumps(result, indent=2, ensure_ascii=False) + "\n"
     else:
         text = report_tsv(result) if tsv else report_json(result)
+    return text
+
+
+def gene_list_tsv(results: dict | list[dict]) -> str:
+    """The genes that are not right, one row each, after a header
+    (:data:`GENE_LIST_COLUMNS`): the compared ``type``, ``status`` (``missed``: a
+    reference gene with no exact transcript; ``wrong``: a predicted gene with none in
+    the reference), ``file`` (``reference`` or ``predicted``), the gene's ID, seqid,
+    1-based closed span of its compared exons, strand, number of transcripts, and
+    ``overlapped`` (``yes`` when some exon of it overlaps one of the other file).
+    Missed genes first, each list sorted by seqid, start, end, ID.  Results without
+    a gene level (types other than CDS and exon) give no rows."""
+    rows = ["\t".join(GENE_LIST_COLUMNS)]
+    for one in results if isinstance(results, list) else [results]:
+        for key, status, file in (
+            ("missed_genes", "missed", "reference"),
+            ("wrong_genes", "wrong", "predicted"),
+        ):
+            for g in one.get(key, []):
+                rows.append(
+                    "\t".join(
+                        [
+                            one["type"],
+                            status,
+                            file,
+                            g["id"],
+                            g["seqid"],
+                            str(g["start_1based"]),
+                            str(g["end_1based"]),
+                            g["strand"],
+                            str(g["transcripts"]),
+                            "yes" if g["overlapped"] else "no",
+                        ]
+                    )
+                )
+    return "\n".join(rows) + "\n"
+
+
+def write_gene_list(
+    results: dict | list[dict],
+    path: str | Path,
+    *,
+    force: bool = False,
+    inputs: tuple | list = (),
+) -> None:
+    """Write :func:`gene_list_tsv` to ``path`` all-or-nothing (:mod:`seqstate.io.atomic`)."""
     with atomic_text(path, force=force, inputs=inputs) as handle:
-        handle.write(text)
+        handle.write(gene_list_tsv(results))

@@ -9,6 +9,22 @@ feature type).  The x axis is the record's 1-based base position: base i
 ``start0 + 0.5`` to ``end0 + 0.5``.  Lanes are told apart by position and by
 line style and hatching, not by colour: everything is black, white or grey.
 
+Gene models (a model of the gene kind, :mod:`seqstate.kinds.genes`) are decoded as
+annotate decodes them: the decoded lane has one row per strand, each gene drawn as
+its CDS boxes joined by a thin intron line, an arrowhead at its 3' end, and its ID
+(``SEQID.gene.N`` as annotate numbers the record's genes; with a flank, numbered in
+the window and prefixed with it).  Reference features that share a parent (GFF3
+``Parent``, GTF ``transcript_id``) are drawn the same way, labelled with their gene
+(the parent's parent, or GTF ``gene_id``).  Every stranded box has an arrowhead on
+its 3' side.  Overlapping features of one reference row are stacked in tiers.
+Reference types are chosen by ``reference_types``; by default every type except
+those that describe a whole sequence (:data:`WHOLE_SEQUENCE_TYPES`).
+
+When a curve has more bases than :data:`MAX_POINTS_FACTOR` points per pixel column
+allows, it is summarised: the mean posterior of each bin of equal bases is drawn
+(the bin size is in the y-axis title), not every base.  IDs are written only when at
+most :data:`MAX_LABELS` models are in view (the lane title says so otherwise).
+
 Posteriors and decoding run on the whole record, so the curves and boxes match
 annotate on the whole file; with a flank they run on the region plus that many
 bases each side, treated as a record of its own (see :mod:`seqstate.commands.score`).
@@ -40,7 +56,8 @@ from seqstate.io.atomic import OutputSet, check_outputs
 from seqstate.io.files import display_name
 from seqstate.io.regions import Region, check_region, parse_region
 from seqstate.io.tables import load_model
-from seqstate.kinds import group_index, track_groups
+from seqstate.kinds import group_index, kind_of, track_groups
+from seqstate.kinds.genes import GENES, decode_genes
 from seqstate.kinds.segments import decode_segments
 from seqstate.model import resolve_thresholds
 
@@ -62,12 +79,21 @@ __all__ = [
 MAX_REGION = 2_000_000
 #: Output formats, chosen by the file name's extension.
 FIGURE_FORMATS = ("png", "svg", "pdf")
-#: Line styles of the posterior curves, in track-group order (then repeated, thicker).
+#: Line styles of the posterior curves, in track-group order (then repeated).
 LINE_STYLES = ["-", "--", ":", "-."]
-#: Curve colours: black and a dark grey, alternating (distinct styles do the work).
-LINE_GREYS = ["black", "0.4"]
-#: Above this many points per curve, each curve is drawn as per-pixel min/max columns.
+#: Curve colours, light to dark in track-group order: the first curve is drawn widest
+#: and lightest, each later one narrower and darker on top, so curves that coincide
+#: stay visible one inside the other.
+LINE_GREYS = ["0.7", "0.45", "0.2", "black"]
+#: Width of the last curve (points); each earlier curve is LINE_STEP wider.
+LINE_WIDTH = 0.9
+LINE_STEP = 0.7
+#: Above this many points per pixel column of the figure, curves are binned means.
 MAX_POINTS_FACTOR = 2
+#: Reference types left out unless asked for: they describe a whole sequence.
+WHOLE_SEQUENCE_TYPES = ("region", "chromosome", "contig", "scaffold", "supercontig")
+#: At most this many models (genes, transcripts, features) labelled per lane.
+MAX_LABELS = 40
 
 _MISSING = "plotting needs the optional extra: pip install 'seqstate[plot]'"
 
@@ -85,12 +111,20 @@ def require_matplotlib() -> Any:
 
 @dataclass
 class LaneFeature:
-    """A box in a lane: row index, 0-based half-open bounds on the record, and its text."""
+    """A box in a lane: row index, 0-based half-open bounds on the record, and its text.
+
+    ``strand`` is ``+``, ``-``, ``.`` or ``?``.  Boxes with the same ``model`` (a gene
+    or transcript ID) in one row are one model: joined by a line, one arrowhead at
+    the model's 3' end and one ``label`` (its gene ID).
+    """
 
     row: int
     start0: int
     end0: int
     name: str = ""
+    strand: str = "."
+    model: str | None = None
+    label: str = ""
 
 
 @dataclass
@@ -114,6 +148,12 @@ class PlotData:
     reference: list[LaneFeature] = field(default_factory=list)
     reference_name: str = ""
     flank: int | None = None
+    #: rows of the decoded lane (track groups; for gene models one row per strand)
+    decoded_rows: list[str] = field(default_factory=list)
+    #: what a decoded model is: "feature" or "gene"
+    decoded_unit: str = "feature"
+    #: reference types that were left out (not selected)
+    reference_hidden: list[str] = field(default_factory=list)
 
 
 @dataclass
@@ -125,6 +165,9 @@ class PlotOptions:
     out: str
     model: str = "cpg-island"
     reference: str | None = None
+    #: reference types drawn (GFF3/GTF column 3); empty: all but WHOLE_SEQUENCE_TYPES;
+    #: ("all",): every type
+    reference_types: tuple[str, ...] = ()
     flank: int | None = None
     width: float = 10.0
     height: float = 4.0
@@ -227,35 +270,57 @@ def plot_data(opts: PlotOptions) -> PlotData:
     state_group = group_index(model, groups)
     unknown_masked = opts.masked == "unknown"
     codes = api.encode(tables, window, masked_unknown=unknown_masked)
+    genes = kind_of(model) is GENES
     try:
         post = api.posterior(tables, codes, group=state_group, n_groups=len(groups), record=name)
         # as annotate: features never claim long runs of unknown bases, nor unknown ends
         symbols = api.symbols_of(tables, window, masked_unknown=unknown_masked)
-        segs = decode_segments(
-            tables,
-            codes,
-            post,
-            state_group,
-            symbols,
-            decode=decode,
-            min_posterior=min_posterior,
-            min_length=min_length,
-            split_unknown=opts.split_unknown,
-            record=name,
-        )
+        if genes:
+            predictions = decode_genes(
+                model, tables, codes, symbols < 0, decode, opts.split_unknown, name
+            )
+        else:
+            segs = decode_segments(
+                tables,
+                codes,
+                post,
+                state_group,
+                symbols,
+                decode=decode,
+                min_posterior=min_posterior,
+                min_length=min_length,
+                split_unknown=opts.split_unknown,
+                record=name,
+            )
     except ImpossibleSequenceError as exc:
         raise ImpossibleSequenceError(exc.message, path=display_name(opts.input)) from None
     if decode == "viterbi":
         note = "Viterbi path"
     else:
         note = f"posterior at least {min_posterior:g}"
-    if min_length > 1:
-        note += f", at least {min_length} bases"
-    decoded = [
-        LaneFeature(s.group, s.start0 + w0, s.end0 + w0)
-        for s in segs
-        if s.start0 + w0 < region.end0 and s.end0 + w0 > region.start0
-    ]
+    if genes:
+        note = "Viterbi path" if decode == "viterbi" else "maximum expected accuracy path"
+        decoded_rows = ["genes +", "genes -"]
+        decoded = []
+        for number, gp in enumerate(predictions, start=1):
+            g0, g1 = gp.span
+            if not (g0 + w0 < region.end0 and g1 + w0 > region.start0):
+                continue
+            gid = f"{name}.gene.{number}"
+            label = gid + (" (partial)" if gp.partial else "")
+            row = 0 if gp.strand == "+" else 1
+            decoded += [
+                LaneFeature(row, a + w0, b + w0, gid, gp.strand, gid, label) for a, b in gp.pieces
+            ]
+    else:
+        if min_length > 1:
+            note += f", at least {min_length} bases"
+        decoded_rows = [g.track_name for g in groups]
+        decoded = [
+            LaneFeature(s.group, s.start0 + w0, s.end0 + w0, strand=groups[s.group].strand or ".")
+            for s in segs
+            if s.start0 + w0 < region.end0 and s.end0 + w0 > region.start0
+        ]
     values = np.array(post.values[region.start0 - w0 : region.end0 - w0], dtype=np.float32)
     del post, codes
     data = PlotData(
@@ -269,42 +334,128 @@ def plot_data(opts: PlotOptions) -> PlotData:
         values,
         decoded,
         flank=opts.flank,
+        decoded_rows=decoded_rows,
+        decoded_unit="gene" if genes else "feature",
     )
     if ref is not None:
-        rows: list[str] = []
-        for reg in ref.regions:
-            if reg.seqid != seqid or reg.end0 <= region.start0 or reg.start0 >= region.end0:
-                continue
-            kind = reg.type if ref.format != "bed" and reg.type else "interval"
-            if kind not in rows:
-                rows.append(kind)
-            data.reference.append(LaneFeature(rows.index(kind), reg.start0, reg.end0, reg.name))
+        rows, feats, hidden = _reference_lane(ref, seqid, region.start0, region.end0, opts)
         data.reference_rows = rows
+        data.reference = feats
+        data.reference_hidden = hidden
         data.reference_name = Path(ref.path).name
     return data
 
 
-def _curve_points(values: np.ndarray, x0: int, max_points: int) -> tuple[np.ndarray, np.ndarray]:
-    """x and y of one curve: every base, or per-bin (min, max) pairs when too many bases.
+def _reference_lane(
+    ref: Any, seqid: str, r0: int, r1: int, opts: PlotOptions
+) -> tuple[list[str], list[LaneFeature], list[str]]:
+    """Rows (one per selected type, more tiers where features overlap), boxes and the
+    types left out, of the reference features of ``seqid`` that overlap ``[r0, r1)``."""
+    chosen = set(opts.reference_types)
+    every = "all" in chosen
+    by_id = {_attr(reg, "ID"): reg for reg in ref.regions if _attr(reg, "ID")}
+    kinds: list[str] = []
+    hidden: list[str] = []
+    picked = []
+    for reg in ref.regions:
+        if reg.seqid != seqid or reg.end0 <= r0 or reg.start0 >= r1:
+            continue
+        kind = reg.type if ref.format != "bed" and reg.type else "interval"
+        shown = every or (kind in chosen if chosen else kind not in WHOLE_SEQUENCE_TYPES)
+        if not shown:
+            if kind not in hidden:
+                hidden.append(kind)
+            continue
+        if kind not in kinds:
+            kinds.append(kind)
+        picked.append((kind, reg))
+    if chosen and not every:
+        present = sorted({r.type or "interval" for r in ref.regions})
+        missing = sorted(chosen - set(present))
+        if missing:
+            raise UsageError(
+                f"--reference-type {', '.join(missing)}: no such type in {ref.path} "
+                f"(types there: {', '.join(present[:10]) or 'none'})"
+            )
+    rows: list[str] = []
+    out: list[LaneFeature] = []
+    for kind in kinds:
+        models: dict[str, list] = {}
+        for k, reg in picked:
+            if k != kind:
+                continue
+            key, label = _model_of(reg, by_id, ref.format)
+            models.setdefault(key or f"line{reg.line0}", []).append((reg, key, label))
+        # stack models that overlap (with a small gap) into tiers, first fit
+        tiers: list[int] = []  # end of the last model of each tier
+        gap = max(1, (r1 - r0) // 200)
+        first_row = len(rows)
+        for members in sorted(models.values(), key=lambda m: min(r.start0 for r, _, _ in m)):
+            lo = min(r.start0 for r, _, _ in members)
+            hi = max(r.end0 for r, _, _ in members)
+            tier = next((t for t, end in enumerate(tiers) if end + gap <= lo), None)
+            if tier is None:
+                tiers.append(hi)
+                tier = len(tiers) - 1
+            else:
+                tiers[tier] = hi
+            for reg, key, label in members:
+                out.append(
+                    LaneFeature(
+                        first_row + tier, reg.start0, reg.end0, reg.name, reg.strand, key, label
+                    )
+                )
+        rows += [kind] + [""] * (len(tiers) - 1)
+    return rows, out, hidden
 
-    Binned, each bin becomes two points at its centre (its minimum and maximum),
-    which at the figure's resolution draws the same ink as every base would.
+
+def _attr(reg: Any, key: str) -> str | None:
+    for k, v in reg.attributes:
+        if k == key:
+            return v if isinstance(v, str) else v[0]
+    return None
+
+
+def _model_of(reg: Any, by_id: dict, fmt: str) -> tuple[str | None, str]:
+    """The model a reference feature belongs to (its parent transcript, else itself)
+    and the label written for it (the gene: the parent's parent, GTF ``gene_id``)."""
+    if fmt == "gtf":
+        tid, gid = _attr(reg, "transcript_id"), _attr(reg, "gene_id")
+        if tid is not None and reg.type not in ("gene", "transcript"):
+            return tid, gid or tid
+        return None, gid or reg.name
+    parent = _attr(reg, "Parent")
+    if parent is not None and reg.type in ("CDS", "exon", "five_prime_UTR", "three_prime_UTR"):
+        grand = by_id.get(parent)
+        gene = _attr(grand, "Parent") if grand is not None else None
+        return parent, gene or parent
+    return None, reg.name
+
+
+def bin_size(n: int, max_points: int) -> int:
+    """Bases per bin of a curve of ``n`` bases drawn with at most ``max_points`` points:
+    1 (every base) when ``n <= max_points``, else ``ceil(n / (max_points // 2))``."""
+    if n <= max_points:
+        return 1
+    bins = max(1, max_points // 2)
+    return -(-n // bins)
+
+
+def _curve_points(values: np.ndarray, x0: int, size: int) -> tuple[np.ndarray, np.ndarray]:
+    """x and y of one curve: every base (``size`` 1), or the mean of each bin of
+    ``size`` bases (the last bin may be shorter) at the bin's centre.
+
+    x is the 1-based position (base i, 0-based, at x = i + 1).
     """
     n = values.shape[0]
-    x = np.arange(x0 + 1, x0 + n + 1, dtype=np.float64)
-    if n <= max_points:
-        return x, values.astype(np.float64)
-    bins = max(1, max_points // 2)
-    edges = np.linspace(0, n, bins + 1).astype(np.int64)
-    edges = np.unique(edges)
-    lo = np.minimum.reduceat(values, edges[:-1]).astype(np.float64)
-    hi = np.maximum.reduceat(values, edges[:-1]).astype(np.float64)
-    centre = x0 + 1 + (edges[:-1] + edges[1:] - 1) / 2.0
-    xs = np.repeat(centre, 2)
-    ys = np.empty(2 * lo.shape[0])
-    ys[0::2] = lo
-    ys[1::2] = hi
-    return xs, ys
+    if size <= 1:
+        return np.arange(x0 + 1, x0 + n + 1, dtype=np.float64), values.astype(np.float64)
+    starts = np.arange(0, n, size, dtype=np.int64)
+    ends = np.minimum(starts + size, n)
+    sums = np.add.reduceat(values.astype(np.float64), starts)
+    means = sums / (ends - starts)
+    centre = x0 + 1 + (starts + ends - 1) / 2.0
+    return centre, means
 
 
 def _lane(
@@ -316,10 +467,60 @@ def _lane(
     hatch: str | None,
     linestyle: str,
     title: str,
+    span: tuple[int, int] | None = None,
 ) -> None:
     from matplotlib.patches import Rectangle
 
     n_rows = max(1, len(rows))
+    # models (boxes sharing a model in one row): intron line, 3' arrowhead, label
+    models: dict[tuple[int, str], list[LaneFeature]] = {}
+    for feat in features:
+        key = (feat.row, feat.model if feat.model is not None else f"@{id(feat)}")
+        models.setdefault(key, []).append(feat)
+    in_view = [
+        m
+        for m in models.values()
+        if span is None or (min(f.start0 for f in m) < span[1] and max(f.end0 for f in m) > span[0])
+    ]
+    labelled = len(in_view) <= MAX_LABELS
+    lane = gid_prefix.removesuffix("-box")
+    for k, ((row, _), members) in enumerate(
+        sorted(models.items(), key=lambda kv: (min(f.start0 for f in kv[1]), kv[0][0])), 1
+    ):
+        y = n_rows - 1 - row
+        lo = min(f.start0 for f in members) + 0.5
+        hi = max(f.end0 for f in members) + 0.5
+        strand = members[0].strand
+        if len(members) > 1:
+            ax.plot(
+                [lo, hi], [y, y], color="black", linewidth=0.6, zorder=1, gid=f"{lane}-join-{k}"
+            )
+        if strand in ("+", "-"):
+            ax.plot(
+                [hi if strand == "+" else lo],
+                [y],
+                marker=">" if strand == "+" else "<",
+                color="black",
+                markersize=5,
+                linestyle="none",
+                zorder=3,
+                gid=f"{lane}-strand-{k}",
+            )
+        label = members[0].label
+        if labelled and label:
+            left = lo if span is None else max(lo, span[0] + 0.5)
+            ax.text(
+                left,
+                y + 0.38,
+                label,
+                fontsize="xx-small",
+                va="bottom",
+                ha="left",
+                clip_on=True,
+                gid=f"{lane}-label-{k}",
+            )
+    if not labelled and any(f.label for f in features):
+        title += f"; {len(in_view)} in view, IDs not written (at most {MAX_LABELS})"
     for i, feat in enumerate(sorted(features, key=lambda f: (f.start0, f.end0, f.row)), 1):
         y = n_rows - 1 - feat.row
         box = Rectangle(
@@ -331,6 +532,7 @@ def _lane(
             hatch=hatch,
             linestyle=linestyle,
             linewidth=0.8,
+            zorder=2,
         )
         box.set_gid(f"{gid_prefix}-{i}")
         ax.add_patch(box)
@@ -358,29 +560,36 @@ def draw(data: PlotData, width: float = 10.0, height: float = 4.0, dpi: int = 10
 
     fig = Figure(figsize=(width, height), dpi=dpi, layout="constrained")
     FigureCanvasAgg(fig)
-    n_dec = max(1, len(data.groups))
+    dec_rows = data.decoded_rows or data.groups
+    n_dec = max(1, len(dec_rows))
     lanes = [3.0, 0.5 + 0.4 * n_dec]
     if data.reference_rows is not None:
         lanes.append(0.5 + 0.4 * max(1, len(data.reference_rows)))
     grid = fig.add_gridspec(len(lanes), 1, height_ratios=lanes)
     ax = fig.add_subplot(grid[0])
     max_points = int(MAX_POINTS_FACTOR * width * dpi)
+    size = bin_size(data.values.shape[0], max_points)
+    n_groups = len(data.groups)
     for g, name in enumerate(data.groups):
-        xs, ys = _curve_points(data.values[:, g], data.start0, max_points)
+        xs, ys = _curve_points(data.values[:, g], data.start0, size)
         style = LINE_STYLES[g % len(LINE_STYLES)]
-        lw = 1.2 + 0.6 * (g // len(LINE_STYLES))
+        grey = LINE_GREYS[len(LINE_GREYS) - n_groups + g] if n_groups <= len(LINE_GREYS) else None
         ax.plot(
             xs,
             ys,
             linestyle=style,
-            color=LINE_GREYS[g % len(LINE_GREYS)],
-            linewidth=lw,
+            color=grey or LINE_GREYS[g % len(LINE_GREYS)],
+            linewidth=LINE_WIDTH + LINE_STEP * (n_groups - 1 - g),
             label=name,
             gid=f"posterior-{g + 1}",
             clip_on=False,
+            zorder=2 + g,
         )
     ax.set_ylim(0.0, 1.0)
-    ax.set_ylabel("posterior probability")
+    if size > 1:
+        ax.set_ylabel(f"posterior probability\n(mean per {size:,}-base bin)")
+    else:
+        ax.set_ylabel("posterior probability")
     ax.legend(
         loc="upper left",
         bbox_to_anchor=(1.005, 1.0),
@@ -392,15 +601,17 @@ def draw(data: PlotData, width: float = 10.0, height: float = 4.0, dpi: int = 10
         ax.spines[side].set_visible(False)
     axes = [ax]
     ax_dec = fig.add_subplot(grid[1], sharex=ax)
+    span = (data.start0, data.end0)
     _lane(
         ax_dec,
-        data.groups,
+        dec_rows,
         data.decoded,
         "feature-box",
         "0.3",
         None,
         "-",
-        f"decoded features ({data.decode_note})",
+        f"decoded {data.decoded_unit}s ({data.decode_note})",
+        span,
     )
     axes.append(ax_dec)
     if data.reference_rows is not None:
@@ -413,7 +624,9 @@ def draw(data: PlotData, width: float = 10.0, height: float = 4.0, dpi: int = 10
             "white",
             "////",
             "--",
-            f"reference features ({data.reference_name})",
+            f"reference features ({data.reference_name})"
+            + (f"; not shown: {', '.join(data.reference_hidden)}" if data.reference_hidden else ""),
+            span,
         )
         axes.append(ax_ref)
     ax.set_xlim(data.start0 + 0.5, data.end0 + 0.5)
@@ -472,10 +685,16 @@ class PlotReport:
     #: whether a reference file was given (its count is then in the summary)
     with_reference: bool = False
 
+    #: what a decoded model is: "feature" or "gene"
+    unit: str = "feature"
+
     def summary(self) -> str:
         """The summary line (after ``seqstate: ``)."""
-        ref = f", {self.reference} reference" if self.with_reference else ""
-        return f"{self.region}, {self.decoded} decoded{ref} feature(s) -> {self.out}"
+        ref = f", {self.reference} reference feature(s)" if self.with_reference else ""
+        if self.unit == "feature":
+            ref = ref.replace(" feature(s)", "")
+            return f"{self.region}, {self.decoded} decoded{ref} feature(s) -> {self.out}"
+        return f"{self.region}, {self.decoded} decoded {self.unit}(s){ref} -> {self.out}"
 
 
 def plot(opts: PlotOptions) -> PlotReport:
@@ -485,10 +704,12 @@ def plot(opts: PlotOptions) -> PlotReport:
     data = plot_data(opts)
     fig = draw(data, opts.width, opts.height, opts.dpi)
     save(fig, opts.out, opts.dpi, force=opts.force, inputs=_inputs(opts))
+    n_decoded = len({(f.row, f.model or id(f)) for f in data.decoded})
     return PlotReport(
         opts.out,
-        len(data.decoded),
+        n_decoded,
         len(data.reference),
         f"{data.seqid}:{data.start0 + 1}-{data.end0}",
         opts.reference is not None,
+        data.decoded_unit,
     )

@@ -15,6 +15,11 @@ frame) takes the place of GFF3's phase.  The attributes ``gene_id`` and
 
 Formats are told apart by :func:`sniff_interval_format`: by the file name, else
 by the first lines of the content.
+
+Gene annotations: :func:`read_gene_features` reads GFF3 or GTF into GFF3-style
+features with the gene -> mRNA -> CDS/exon hierarchy (``ID`` and ``Parent``), so
+every command that needs genes reads either format; :func:`gtf_gene_features`
+builds that hierarchy from GTF's ``gene_id`` and ``transcript_id``.
 """
 
 from __future__ import annotations
@@ -29,7 +34,7 @@ from typing import BinaryIO
 from seqstate.errors import FeatureFormatError, UsageError
 from seqstate.io.bed import parse_bed
 from seqstate.io.files import display_name, open_input, peek_lines, text_lines
-from seqstate.io.gff3 import GTF_COLUMNS, STRANDS, parse_columns, parse_gff3
+from seqstate.io.gff3 import GTF_COLUMNS, STRANDS, Feature, parse_columns, parse_gff3, read_gff3
 
 __all__ = [
     "FORMAT_NAMES",
@@ -38,8 +43,10 @@ __all__ = [
     "Interval",
     "detect_interval_format",
     "format_by_name",
+    "gtf_gene_features",
     "parse_gtf",
     "parse_gtf_attributes",
+    "read_gene_features",
     "read_interval_file",
     "read_intervals",
     "sniff_file",
@@ -334,3 +341,227 @@ def parse_gtf(handle: BinaryIO, shown: str, *, types: set[str] | None = None) ->
         interval = _gtf_line(line, shown, line0)
         if types is None or interval.type in types:
             yield interval
+
+
+# ---------------------------------------------------------------- GTF as a gene hierarchy
+
+#: GTF types that belong to a transcript (they get ``Parent=transcript_id``).
+GTF_TRANSCRIPT_PARTS = frozenset(
+    {
+        "CDS",
+        "exon",
+        "start_codon",
+        "stop_codon",
+        "5UTR",
+        "3UTR",
+        "UTR",
+        "five_prime_utr",
+        "three_prime_utr",
+        "Selenocysteine",
+    }
+)
+#: GTF lines that only describe a gene or transcript as a whole (replaced by the
+#: gene and mRNA/transcript lines built from the parts).
+GTF_WHOLE_TYPES = frozenset({"gene", "transcript", "mRNA"})
+
+
+def _feature(iv: Interval, ftype: str, attributes: list[tuple[str, str | list[str]]]) -> Feature:
+    return Feature(
+        iv.seqid,
+        iv.source or ".",
+        ftype,
+        iv.start0,
+        iv.end0,
+        None,
+        iv.strand,
+        iv.phase,
+        attributes,
+        iv.line0,
+    )
+
+
+def _with_stops(cds: list[Interval], stops: list[Interval], strand: str) -> list[Interval]:
+    """CDS lines with the stop codon joined to them (GTF 2.2 leaves the stop codon out
+    of CDS, GFF3 keeps it in).  A stop piece touching a CDS piece extends it (on
+    ``-`` the 3' end is the start, so the phase does not change); one touching none
+    becomes a CDS piece of its own, with the phase its 5' position gives."""
+    pieces = sorted(cds, key=lambda iv: iv.start0)
+    for stop in sorted(stops, key=lambda iv: iv.start0):
+        if any(p.start0 <= stop.start0 and stop.end0 <= p.end0 for p in pieces):
+            continue  # already inside a CDS line (a file that keeps stops in CDS)
+        for k, p in enumerate(pieces):
+            if p.end0 == stop.start0 and strand != "-":
+                pieces[k] = replace_interval(p, end0=stop.end0)
+                break
+            if p.start0 == stop.end0 and strand == "-":
+                pieces[k] = replace_interval(p, start0=stop.start0)
+                break
+        else:
+            pieces.append(replace_interval(stop, type="CDS", phase=None))
+    pieces.sort(key=lambda iv: iv.start0)
+    order = pieces if strand != "-" else pieces[::-1]
+    done, out = 0, []
+    for p in order:
+        if p.phase is None:
+            p = replace_interval(p, phase=(3 - done % 3) % 3)
+        out.append(p)
+        done += p.end0 - p.start0
+    return sorted(out, key=lambda iv: iv.start0)
+
+
+def replace_interval(iv: Interval, **changes: object) -> Interval:
+    """A copy of ``iv`` with some fields changed."""
+    from dataclasses import replace
+
+    return replace(iv, **changes)  # type: ignore[arg-type]
+
+
+def gtf_gene_features(
+    intervals: Sequence[Interval], shown: str, *, join_stop_codons: bool = True
+) -> list[Feature]:
+    """GTF lines as GFF3-style features with a gene -> transcript -> part hierarchy.
+
+    Every ``gene_id`` gives a ``gene`` feature (``ID=gene_id``) and every
+    ``transcript_id`` an ``mRNA`` (when it has CDS lines, else ``transcript``)
+    feature (``ID=transcript_id;Parent=gene_id``); each spans all the lines of its
+    gene or transcript (the file's own ``gene``/``transcript`` lines included, and
+    then dropped).  The transcript's parts (CDS, exon, codons, UTRs; any line with a
+    ``transcript_id``) get ``Parent=transcript_id``, their other attributes kept; a
+    part with a ``gene_id`` and no ``transcript_id`` gets ``Parent=gene_id``.
+    With ``join_stop_codons`` the ``stop_codon`` lines are joined to the CDS (GTF 2.2
+    leaves the stop codon out of CDS; GFF3 and this program keep it in).  A line
+    without ``gene_id`` or ``transcript_id`` that is not a gene or transcript line is
+    kept as it is, without a parent.  Features come gene by gene in the order genes
+    first appear, each gene's transcripts in order, parts by start.
+
+    Raises :class:`~seqstate.errors.FeatureFormatError` naming the line for a part
+    without ``gene_id``, and for a gene or transcript whose lines lie on different
+    seqids or strands.
+    """
+    genes: dict[str, list[Interval]] = {}
+    tx_of_gene: dict[str, dict[str, list[Interval]]] = {}
+    loose: list[Interval] = []
+    lone: dict[str, list[Interval]] = {}  # parts with a gene_id and no transcript_id
+    for iv in intervals:
+        gid, tid = iv.get("gene_id"), iv.get("transcript_id")
+        if gid is not None and tid is None and iv.type not in GTF_WHOLE_TYPES:
+            lone.setdefault(gid, []).append(iv)
+        if gid is None:
+            if tid is not None or iv.type in GTF_TRANSCRIPT_PARTS:
+                raise _error(
+                    f"GTF {iv.type} line has no gene_id attribute (GTF 2.2 asks for "
+                    'gene_id "..." on every line)',
+                    shown,
+                    iv.line0,
+                )
+            loose.append(iv)
+            continue
+        genes.setdefault(gid, []).append(iv)
+        if tid is not None:
+            tx_of_gene.setdefault(gid, {}).setdefault(tid, []).append(iv)
+    out: list[Feature] = []
+    seen_tx: dict[str, str] = {}
+    for gid, lines in genes.items():
+        _same_place(lines, f"gene_id '{gid}'", shown)
+        first = lines[0]
+        out.append(
+            Feature(
+                first.seqid,
+                first.source or ".",
+                "gene",
+                min(iv.start0 for iv in lines),
+                max(iv.end0 for iv in lines),
+                None,
+                first.strand,
+                None,
+                [("ID", gid)],
+                first.line0,
+            )
+        )
+        for iv in lone.get(gid, []):
+            kept = [(k, v) for k, v in iv.attributes if k != "gene_id"]
+            out.append(_feature(iv, iv.type or ".", [("Parent", gid), *kept]))
+        for tid, tx in tx_of_gene.get(gid, {}).items():
+            if tid in seen_tx:
+                raise _error(
+                    f"transcript_id '{tid}' belongs to gene_id '{seen_tx[tid]}' and to "
+                    f"gene_id '{gid}' (expected one gene per transcript)",
+                    shown,
+                    tx[0].line0,
+                )
+            seen_tx[tid] = gid
+            _same_place(tx, f"transcript_id '{tid}'", shown)
+            parts = [iv for iv in tx if iv.type not in GTF_WHOLE_TYPES]
+            cds = [iv for iv in parts if iv.type == "CDS"]
+            stops = [iv for iv in parts if iv.type == "stop_codon"]
+            if join_stop_codons and cds and stops:
+                others = [iv for iv in parts if iv.type != "CDS"]
+                parts = others + _with_stops(cds, stops, tx[0].strand)
+            out.append(
+                Feature(
+                    tx[0].seqid,
+                    tx[0].source or ".",
+                    "mRNA" if cds else "transcript",
+                    min(iv.start0 for iv in tx + parts),
+                    max(iv.end0 for iv in tx + parts),
+                    None,
+                    tx[0].strand,
+                    None,
+                    [("ID", tid), ("Parent", gid)],
+                    tx[0].line0,
+                )
+            )
+            for iv in sorted(parts, key=lambda iv: (iv.start0, iv.end0, iv.line0)):
+                kept = [(k, v) for k, v in iv.attributes if k not in ("gene_id", "transcript_id")]
+                out.append(_feature(iv, iv.type or ".", [("Parent", tid), *kept]))
+    out.extend(_feature(iv, iv.type or ".", list(iv.attributes)) for iv in loose)
+    return out
+
+
+def _same_place(lines: Sequence[Interval], what: str, shown: str) -> None:
+    first = lines[0]
+    for iv in lines[1:]:
+        if iv.seqid != first.seqid or iv.strand != first.strand:
+            raise _error(
+                f"{what} is on {iv.seqid} strand {iv.strand} here but on {first.seqid} "
+                f"strand {first.strand} at line {first.line0 + 1} (expected one seqid and "
+                "strand per gene and transcript)",
+                shown,
+                iv.line0,
+            )
+
+
+def read_gene_features(
+    path: str | os.PathLike[str], *, what: str = "GFF3 or GTF"
+) -> tuple[str, list[Feature]]:
+    """A gene annotation, GFF3 or GTF (told by the name, else by the first lines;
+    plain or gzip), as GFF3-style features: ``("gff3", read_gff3(path))`` or
+    ``("gtf", gtf_gene_features(...))`` (the hierarchy built from ``gene_id`` and
+    ``transcript_id``, stop codons joined to the CDS).  0-based half-open.
+    BED is refused: it has no gene structure."""
+    fmt = sniff_file(path, what) if str(path) != "-" else None
+    if fmt == "gff3":
+        return "gff3", read_gff3(Path(path))
+    fmt, found = read_interval_file(path, fmt, what=what)
+    if fmt == "bed":
+        raise FeatureFormatError(
+            f"reads as BED, which has no gene structure (expected {what} with genes)",
+            path=display_name(path),
+        )
+    if fmt == "gff3":  # standard input, told by content
+        return "gff3", [
+            Feature(
+                iv.seqid,
+                iv.source or ".",
+                iv.type or ".",
+                iv.start0,
+                iv.end0,
+                None,
+                iv.strand,
+                iv.phase,
+                list(iv.attributes),
+                iv.line0,
+            )
+            for iv in found
+        ]
+    return "gtf", gtf_gene_features(found, display_name(path))

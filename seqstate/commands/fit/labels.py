@@ -281,17 +281,18 @@ def require_gene_units(
 def read_gene_labels(
     model: Model, records: list, path: str, *, bad_genes: str = "skip"
 ) -> tuple[int, list[tuple[bytes, np.ndarray]], LabelReport]:
-    """A GFF3 gene annotation -> (number of features, state path per record and its
-    reverse-complement mirror, labelling report).
+    """A GFF3 or GTF gene annotation -> (number of features, state path per record and
+    its reverse-complement mirror, labelling report).  GTF is read as its gene ->
+    transcript hierarchy (:func:`seqstate.io.intervals.read_gene_features`).
 
     The labelling rule is the gene layout's own (:func:`seqstate.kinds.gene_labels.label_records`:
     gene -> mRNA -> CDS with phase); the annotation must give a usable gene and an
     example of every label (see :func:`require_gene_units`).
     """
-    from seqstate.io.gff3 import read_gff3
+    from seqstate.io.intervals import read_gene_features
     from seqstate.kinds import gene_labels as genes
 
-    features = read_gff3(path)
+    _, features = read_gene_features(path)
     pairs, report = genes.label_records(model, records, features, path=path, bad_genes=bad_genes)
     require_gene_units(features, pairs, report, model, path)
     return len(features), pairs, report
