@@ -204,6 +204,7 @@ def main() -> None:
     ap.add_argument("--order", type=int, default=None, help="emission order of the layout")
     ap.add_argument("--set", action="append", default=[], help="layout option KEY=JSON")
     ap.add_argument("--json", type=Path, help="write the figures as JSON here")
+    ap.add_argument("--keep", type=Path, help="work in this folder and keep it")
     args = ap.parse_args()
     kwargs: dict = {}
     if args.order is not None:
@@ -211,8 +212,12 @@ def main() -> None:
     for item in args.set:
         key, _, value = item.partition("=")
         kwargs[key] = json.loads(value)
-    with tempfile.TemporaryDirectory(prefix="seqstate-acc-") as tmp:
-        res = run(kwargs, Path(tmp))
+    if args.keep:
+        args.keep.mkdir(parents=True, exist_ok=True)
+        res = run(kwargs, args.keep)
+    else:
+        with tempfile.TemporaryDirectory(prefix="seqstate-acc-") as tmp:
+            res = run(kwargs, Path(tmp))
     if args.json:
         args.json.write_text(json.dumps(res, indent=1, sort_keys=True) + "\n")
 

@@ -17,6 +17,7 @@ from seqstate.errors import FeatureFormatError
 from seqstate.io.gff3 import Feature
 from seqstate.kinds.gene_layout import (
     DEFAULT_SHAPE,
+    REPEAT_TYPES,
     STOPS,
     GeneShape,
     mirror_index,
@@ -385,6 +386,16 @@ def label_records(
                 pad = max(shape.up_flank, shape.down_flank)
                 spans.append((max(0, lo - pad), min(n, hi + pad), gid))
         spans.sort()
+        if "repeat" in names:
+            # transposable elements and pseudogenes outside every coding locus (and one
+            # base from it, so that each gene is entered from intergenic DNA)
+            rep = np.zeros(n, dtype=bool)
+            for f in features:
+                if f.seqid == rec.id and f.type in REPEAT_TYPES:
+                    rep[f.start0 : min(f.end0, n)] = True
+            for s0, e0, _ in spans:
+                rep[max(0, s0 - 1) : min(n, e0 + 1)] = False
+            states[rep] = names["repeat"]
         used_spans: list[tuple[int, int, str]] = []
         overlapping = set()
         for i in range(len(spans)):

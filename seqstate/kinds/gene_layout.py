@@ -70,7 +70,11 @@ class GeneShape:
     branch of R stages has a negative-binomial length (at least R bases) and the
     body a mixture of them (``(1,)``: one self-looping state, a geometric length).
     ``signal_order``: the emission order of the flank states (0: a position weight
-    matrix; 1: a first-order weight-array model).
+    matrix; 1: a first-order weight-array model).  ``repeat``: a ``repeat`` state
+    beside ``intergenic`` (no feature, both strands in one state) whose emissions
+    are fitted from the annotation's transposable elements and pseudogenes
+    (:data:`REPEAT_TYPES`), so that their open reading frames are not taken for
+    genes.
     """
 
     up_flank: int = UP_FLANK
@@ -79,6 +83,7 @@ class GeneShape:
     acceptor_flank: int = ACCEPTOR_FLANK
     body_stages: tuple[int, ...] = (1,)
     signal_order: int = 0
+    repeat: bool = False
 
     @property
     def min_intron(self) -> int:
@@ -96,6 +101,9 @@ class GeneShape:
 
 
 DEFAULT_SHAPE = GeneShape()
+
+#: GFF3 types whose spans the ``repeat`` state is fitted from (Sequence Ontology terms).
+REPEAT_TYPES = ("mobile_genetic_element", "transposable_element", "pseudogene")
 
 
 def shape_of(names: list[str]) -> GeneShape:
@@ -121,8 +129,7 @@ def shape_of(names: list[str]) -> GeneShape:
             branches.append(count(f"i0_body{b}_{{}}+"))
             b += 1
         stages = tuple(branches)
-    signal = 0
-    return GeneShape(up, down, donor, acceptor, stages, signal)
+    return GeneShape(up, down, donor, acceptor, stages, 0, "repeat" in have)
 
 
 @dataclass
@@ -256,8 +263,14 @@ def layout_states(
     for n in p.names:
         states.append(State(f"{n}-", p.labels[n], "-"))
         bases[f"{n}-"] = _comp(p.bases[n])
+    if shape.repeat:
+        states.append(State("repeat", None, None))
+        bases["repeat"] = ANY
     index = {s.name: i for i, s in enumerate(states)}
     moves = [(index["intergenic"], index["intergenic"])]
+    if shape.repeat:
+        r, g = index["repeat"], index["intergenic"]
+        moves += [(g, r), (r, r), (r, g)]
     for a, b in p.moves:
         moves.append((index[f"{a}+"], index[f"{b}+"]))
         moves.append((index[f"{b}-"], index[f"{a}-"]))
@@ -396,7 +409,7 @@ def build_layout(
 
 def content_states(states: list[State], shape: GeneShape = DEFAULT_SHAPE) -> list[str]:
     """The states of full emission order: intergenic, the free coding states, intron bodies."""
-    out = ["intergenic"]
+    out = ["intergenic", "repeat"]
     for strand in "+-":
         out += [f"cds{i}{strand}" for i in (1, 2, 3)]
         out += [f"{n}{strand}" for c in INTRON_COPIES for b in shape.body_names(c) for n in b]
