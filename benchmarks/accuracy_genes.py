@@ -140,7 +140,7 @@ def measure(pred_gff: Path, ref_gff: Path, length: int) -> dict:
     }
 
 
-def run(layout_kwargs: dict, work: Path, log=print) -> dict:
+def run(layout_kwargs: dict, work: Path, log=print, decode: str | None = None) -> dict:
     d = data_dir()
     rec = read_fasta(d / FASTA_NAME)[0]
     feats = read_gff3(d / GFF_NAME)
@@ -154,7 +154,7 @@ def run(layout_kwargs: dict, work: Path, log=print) -> dict:
         shape["body_stages"] = tuple(shape["body_stages"])
     rest = {k: v for k, v in layout_kwargs.items() if k not in shape_keys}
     save_model(build_layout(**rest, shape=GeneShape(**shape)), layout_dir)
-    out = {"cut0": cut, "layout": layout_kwargs, "splits": {}}
+    out = {"cut0": cut, "layout": layout_kwargs, "decode": decode, "splits": {}}
     for train, test in (("left", "right"), ("right", "left")):
         t0 = time.perf_counter()
         mdir = work / f"model-{train}"
@@ -175,6 +175,7 @@ def run(layout_kwargs: dict, work: Path, log=print) -> dict:
                 model=str(mdir),
                 out_dir=str(adir),
                 tracks="none",
+                decode=decode,
                 force=True,
             )
         )
@@ -204,6 +205,7 @@ def main() -> None:
     ap.add_argument("--order", type=int, default=None, help="emission order of the layout")
     ap.add_argument("--set", action="append", default=[], help="layout option KEY=JSON")
     ap.add_argument("--json", type=Path, help="write the figures as JSON here")
+    ap.add_argument("--decode", choices=("viterbi", "posterior"), help="annotate --decode")
     ap.add_argument("--keep", type=Path, help="work in this folder and keep it")
     args = ap.parse_args()
     kwargs: dict = {}
@@ -214,10 +216,10 @@ def main() -> None:
         kwargs[key] = json.loads(value)
     if args.keep:
         args.keep.mkdir(parents=True, exist_ok=True)
-        res = run(kwargs, args.keep)
+        res = run(kwargs, args.keep, decode=args.decode)
     else:
         with tempfile.TemporaryDirectory(prefix="seqstate-acc-") as tmp:
-            res = run(kwargs, Path(tmp))
+            res = run(kwargs, Path(tmp), decode=args.decode)
     if args.json:
         args.json.write_text(json.dumps(res, indent=1, sort_keys=True) + "\n")
 
