@@ -124,9 +124,10 @@ def test_gene_layout_chains_label_and_stay_sparse():
     # the engine serves the bigger layout with its chain-sparse kernels
     assert api.prepare(layout).kernels == "sparse"
     # a body of 7 bases takes the 3-stage branch, split 3 + 2 + 2; 2 bases the 1-stage one
-    assert gene_labels.body_labels(7, shape, "i0") == ["i0_body1_1"] * 3 + [
-        "i0_body1_2"
-    ] * 2 + ["i0_body1_3"] * 2
+    assert (
+        gene_labels.body_labels(7, shape, "i0")
+        == ["i0_body1_1"] * 3 + ["i0_body1_2"] * 2 + ["i0_body1_3"] * 2
+    )
     assert gene_labels.body_labels(2, shape, "i0") == ["i0_body2_1"] * 2
     chains = layout.extra["fit"]["length_chains"]
     assert set(chains) == {f"{c}_d6+" for c in gene_layout.INTRON_COPIES} | {

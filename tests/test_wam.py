@@ -36,7 +36,11 @@ def fitted(tmp_path_factory):
     fa, truth = tmp / "s.fa", tmp / "truth.gff3"
     sample(
         SampleOptions(
-            model="gene-segment", length=150_000, records=1, seed=5, out_fasta=str(fa),
+            model="gene-segment",
+            length=150_000,
+            records=1,
+            seed=5,
+            out_fasta=str(fa),
             truth_gff3=str(truth),
         )
     )

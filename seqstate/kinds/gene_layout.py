@@ -102,6 +102,21 @@ class GeneShape:
 
 DEFAULT_SHAPE = GeneShape()
 
+#: The shape of the shipped ``gene-segment-layout`` (chosen by held-out measurement on
+#: fly chromosome 4, see models/README.md): wider first-order signal windows, a stop
+#: flank and the repeat state; one geometric intron body (chains measured, not better).
+SHIPPED_SHAPE = GeneShape(
+    up_flank=12,
+    down_flank=6,
+    donor_flank=8,
+    acceptor_flank=20,
+    body_stages=(1,),
+    signal_order=1,
+    repeat=True,
+)
+#: ``[fit] interpolate`` strength of the shipped layout.
+SHIPPED_INTERPOLATION = 8.0
+
 #: GFF3 types whose spans the ``repeat`` state is fitted from (Sequence Ontology terms).
 REPEAT_TYPES = ("mobile_genetic_element", "transposable_element", "pseudogene")
 
@@ -375,10 +390,15 @@ def build_layout(
     return make_model(
         name=name,
         description=(
-            "Gene-segment model (layout: seqstate's own): intergenic, a "
-            f"{shape.up_flank}-base start flank, start codon, three codon positions, stop "
+            "Gene-segment model (layout: seqstate's own): intergenic, a start flank of "
+            f"{shape.up_flank} bases, start codon, three codon positions, stop "
             "codons of NCBI translation table 1 (no in-frame stop inside a coding exon)"
-            + (f", a {shape.down_flank}-base stop flank" if shape.down_flank else "")
+            + (f", a stop flank of {shape.down_flank} bases" if shape.down_flank else "")
+            + (
+                ", a repeat state (transposable elements and pseudogenes of the annotation)"
+                if shape.repeat
+                else ""
+            )
             + ", six intron copies that keep the reading frame and the bases of a split "
             f"codon, splice donor (GT + {shape.donor_flank}) and acceptor "
             f"({shape.acceptor_flank} + AG) chains"
@@ -420,9 +440,10 @@ def content_states(states: list[State], shape: GeneShape = DEFAULT_SHAPE) -> lis
 def length_chains(shape: GeneShape) -> dict[str, dict]:
     """``[fit] length_chains``: per strand and intron copy, the chained body states.
 
-    Keyed by ``entry``, the state before the chain; each value: ``group`` (chains of one group share one fitted length
-    distribution: the intron bodies of a strand), ``branches`` (per branch, its
-    stages in path order) and ``exit`` (the state after it).
+    Keyed by ``entry``, the state before the chain; each value: ``group`` (chains
+    of one group share one fitted length distribution: the intron bodies of a
+    strand), ``branches`` (per branch, its stages in path order) and ``exit`` (the
+    state after it).
     """
     out = {}
     for strand in "+-":
@@ -446,9 +467,7 @@ def fit_rules(
     orders: dict[str, int] = {}
     j = shape.signal_order
     for strand in "+-":
-        ties.append(
-            [f"{n}{strand}" for c in INTRON_COPIES for b in shape.body_names(c) for n in b]
-        )
+        ties.append([f"{n}{strand}" for c in INTRON_COPIES for b in shape.body_names(c) for n in b])
         for i in list(range(3, 3 + shape.donor_flank)):
             ties.append([f"{c}_d{i}{strand}" for c in INTRON_COPIES])
         for i in range(1, shape.acceptor_flank + 1):

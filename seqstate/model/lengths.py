@@ -94,8 +94,11 @@ def fit_branches(
     weights = np.full(k, 1.0 / k)
     stays = np.array(
         [
-            np.clip(1.0 - R[b] / max(float(np.mean(shares[b])) if len(shares[b]) else R[b], R[b]),
-                    STAY_MIN, STAY_MAX)
+            np.clip(
+                1.0 - R[b] / max(float(np.mean(shares[b])) if len(shares[b]) else R[b], R[b]),
+                STAY_MIN,
+                STAY_MAX,
+            )
             for b in range(k)
         ]
     )
@@ -103,8 +106,12 @@ def fit_branches(
     ll = -np.inf
     for _ in range(max_iter):
         logp = np.stack(
-            [np.log(weights[b]) + branch_logpmf(L, int(R[b]), stays[b]) if weights[b] > 0
-             else np.full(L.shape, -np.inf) for b in range(k)]
+            [
+                np.log(weights[b]) + branch_logpmf(L, int(R[b]), stays[b])
+                if weights[b] > 0
+                else np.full(L.shape, -np.inf)
+                for b in range(k)
+            ]
         )
         top = logp.max(axis=0)
         ll_each = top + np.log(np.exp(logp - top).sum(axis=0))
