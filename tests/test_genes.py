@@ -176,14 +176,14 @@ def test_labelling_reports_skipped_genes(chr4, model):
 
 def _small_gene_case(tmp_path, phase_text="0"):
     # a synthetic two-exon plus-strand gene: ATG AAA | GTAAGT...AG | CCC TAA
-    left = "CCCCCCCCCA" + "ATGAAAG"  # flank, then ATG AAA G (phase-1 split codon)
+    left = "CCCCCCCCCCCCCCCA" + "ATGAAAG"  # flank, then ATG AAA G (phase-1 split codon)
     intron = "GTAAGT" + "T" * 30 + "TTTTTTTCAG"
     right = "CCTAA" + "CCCCCCCCCC"
     seq = left + intron + right
     fa = tmp_path / "g.fa"
     with open(fa, "w") as fh:
         write_fasta(fh, [Record("s1", "synthetic", seq.encode())])
-    a1 = 11  # 1-based start of ATG
+    a1 = 17  # 1-based start of ATG
     e1 = a1 + 7 - 1
     i_end = e1 + len(intron)
     e2 = i_end + 5
@@ -204,11 +204,14 @@ def test_small_gene_is_labelled_with_split_codon_states(tmp_path, model):
     pairs, report = gene_labels.label_records(model, recs, read_gff3(gff), path=str(gff))
     assert report.used == 1
     names = [model.state_names[s] for s in pairs[0][1]]
-    assert names[10:13] == ["start_A+", "start_T+", "start_G+"]
-    assert names[16] == "cds1_V_i1+"  # G before a phase-1 intron (not T)
-    assert names[17] == "i1V_d1+" and names[18] == "i1V_d2+"
-    assert names[17 + 45] == "i1V_a12+"
-    assert names[17 + 46] == "cds2+"
+    assert names[16:19] == ["start_A+", "start_T+", "start_G+"]
+    assert names[4:16] == [f"up{i}+" for i in range(1, 13)]  # the 12-base start flank
+    assert names[22] == "cds1_V_i1+"  # G before a phase-1 intron (not T)
+    assert names[23] == "i1V_d1+" and names[24] == "i1V_d2+"
+    assert names[23:33] == ["i1V_d1+", "i1V_d2+"] + [f"i1V_d{i}+" for i in range(3, 11)]
+    assert names[23 + 45] == "i1V_a30+"  # the G of AG after the 28-base acceptor window
+    assert names[23 + 46] == "cds2+"
+    assert names[23 + 51 : 23 + 57] == [f"down{i}+" for i in range(1, 7)]  # stop flank
 
 
 def test_phases_that_contradict_lengths_are_skipped_or_fail(tmp_path, model):
@@ -781,11 +784,11 @@ def test_shipped_gene_segment_has_no_absurd_stay():
     # intron copy with no training example used to stay with probability 0.5 (2 bases).
     model = load_model("gene-segment")
     stay = model.expected_stay()
-    bound = {"intron": 50.0, None: 1000.0}
+    bound = {"intron": 50.0, None: 1000.0}  # None: intergenic and repeat
     checked = 0
     for i, s in enumerate(model.states):
         if model.transitions[i, i] > 0:
             assert stay[i] >= bound[s.label], (s.name, stay[i])
             checked += 1
-    assert checked == 13  # intergenic and the six intron bodies of each strand
+    assert checked == 14  # intergenic, repeat and the six intron bodies of each strand
     assert model.provenance["states_without_counts"] == []

@@ -109,13 +109,13 @@ SHIPPED_SHAPE = GeneShape(
     up_flank=12,
     down_flank=6,
     donor_flank=8,
-    acceptor_flank=20,
+    acceptor_flank=28,
     body_stages=(1,),
     signal_order=1,
     repeat=True,
 )
 #: ``[fit] interpolate`` strength of the shipped layout.
-SHIPPED_INTERPOLATION = 8.0
+SHIPPED_INTERPOLATION = 32.0
 
 #: GFF3 types whose spans the ``repeat`` state is fitted from (Sequence Ontology terms).
 REPEAT_TYPES = ("mobile_genetic_element", "transposable_element", "pseudogene")
