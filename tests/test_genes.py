@@ -719,7 +719,9 @@ def test_a_gene_is_cut_at_a_long_unknown_run(sampled, decode):
     right = [r for r in rows if r[2] == "gene" and int(r[3]) > hi]
     for part in (max(left, key=lambda r: int(r[4])), min(right, key=lambda r: int(r[3]))):
         attrs = attributes(part)
-        assert attrs["partial"] == "true" and attrs["partial_reason"] == "unknown_run", part
+        # cut by the run (and, when it is the record's last gene, at the record end too)
+        reasons = attrs["partial_reason"].split(",")
+        assert attrs["partial"] == "true" and "unknown_run" in reasons, part
     assert_gene_hierarchy_with_phases(
         gff, {"sim1": fa.read_text().split("\n", 1)[1].replace("\n", "")}
     )
@@ -771,8 +773,12 @@ def test_no_gene_spans_the_assembly_gap_of_chromosome_4(chr4, tmp_path):
         assert rows
         for r in rows:
             assert int(r[4]) <= lo or int(r[3]) > hi, r
-        cut = [r for r in rows if r[2] == "gene" and "unknown_run" in r[8]]
-        assert cut, decode
+        # a gene that reaches the run was cut there and says so (the gene-segment model of
+        # issue 13 no longer predicts a gene running into this gap: the cut itself is
+        # tested on a sampled record, test_a_gene_is_cut_at_a_long_unknown_run)
+        for r in rows:
+            if r[2] == "gene" and (int(r[4]) == lo or int(r[3]) == hi + 1):
+                assert "unknown_run" in r[8], (decode, r)
         assert_sorted_with_parents_first(gff)
 
 
