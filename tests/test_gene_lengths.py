@@ -140,3 +140,33 @@ def test_gene_layout_chains_label_and_stay_sparse():
     t = layout.transitions
     n = {s: i for i, s in enumerate(layout.state_names)}
     assert t[n["i0_a1-"], n["i0_body1_3-"]] > 0 and t[n["i0_body1_1-"], n["i0_d6-"]] > 0
+
+
+def test_length_chain_naming_an_unknown_state_is_a_model_error():
+    from seqstate.errors import ModelFormatError
+
+    model, _ = _chain_model([2])
+    model.extra["fit"]["length_chains"]["e"]["branches"] = [["b1_1", "nope"]]
+    with pytest.raises(ModelFormatError, match="length_chains names unknown state 'nope'"):
+        chain_runs(model, np.zeros(5, dtype=np.int32))
+
+
+def test_interpolated_rows_by_hand():
+    # order 2, alphabet of 2: P0 = (n0 + pc) / (N + 2 pc); P1(x|s) = (n1 + K P0) / (n1(s) + K);
+    # P2(x|rs) = (n2 + K P1(x|s)) / (n2(rs) + K) (interpolation by counts, written out here)
+    from seqstate.commands.fit.estimation import interpolated_rows
+
+    counts = np.array([[3.0, 1.0], [0.0, 0.0], [2.0, 2.0], [0.0, 5.0]])  # contexts AA AC CA CC
+    K, pc = 4.0, 1.0
+    n0 = counts.sum(axis=0)  # [5, 8]
+    p0 = (n0 + pc) / (n0.sum() + 2 * pc)
+    n1 = {0: counts[0] + counts[2], 1: counts[1] + counts[3]}  # newest symbol A / C
+    p1 = {s: (n1[s] + K * p0) / (n1[s].sum() + K) for s in (0, 1)}
+    want = np.array([(counts[c] + K * p1[c % 2]) / (counts[c].sum() + K) for c in range(4)])
+    got = interpolated_rows(counts, np.ones((4, 2), dtype=bool), 2, 2, K, pc)
+    np.testing.assert_allclose(got, want, rtol=1e-12)
+    # a structural zero stays zero and the row is renormalised
+    allowed = np.ones((4, 2), dtype=bool)
+    allowed[3, 0] = False
+    got = interpolated_rows(counts, allowed, 2, 2, K, pc)
+    assert got[3, 0] == 0.0 and got[3, 1] == 1.0

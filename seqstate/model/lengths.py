@@ -125,6 +125,17 @@ def fit_branches(
         if np.isfinite(prev) and abs(ll - prev) <= tol * abs(ll):
             break
         prev = ll
+    # the log-likelihood of the returned parameters (the loop's is one step behind)
+    final = np.stack(
+        [
+            np.log(weights[b]) + branch_logpmf(L, int(R[b]), stays[b])
+            if weights[b] > 0
+            else np.full(L.shape, -np.inf)
+            for b in range(k)
+        ]
+    )
+    top = final.max(axis=0)
+    ll = float((top + np.log(np.exp(final - top).sum(axis=0))).sum())
     return BranchFit(
         tuple(int(r) for r in R),
         tuple(float(w) for w in weights),
