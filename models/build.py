@@ -34,11 +34,12 @@ def build_cpg8():
 
 
 def build_gene_layout():
-    from seqstate.kinds.gene_layout import build_layout
+    from seqstate.kinds.gene_layout import SHIPPED_INTERPOLATION, SHIPPED_SHAPE, build_layout
 
-    layout = build_layout(3)
+    layout = build_layout(3, shape=SHIPPED_SHAPE, interpolation=SHIPPED_INTERPOLATION)
     layout.provenance = {
-        "source": "seqstate.genes.build_layout(3) via models/build.py; uniform over the "
+        "source": "seqstate.kinds.gene_layout.build_layout(3, shape=SHIPPED_SHAPE, "
+        "interpolation=SHIPPED_INTERPOLATION) via models/build.py; uniform over the "
         "allowed moves and bases (fit with seqstate fit, see models/README.md)",
     }
     return layout

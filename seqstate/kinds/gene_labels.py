@@ -16,12 +16,12 @@ import numpy as np
 from seqstate.errors import FeatureFormatError
 from seqstate.io.gff3 import Feature
 from seqstate.kinds.gene_layout import (
-    ACCEPTOR_FLANK,
-    DONOR_FLANK,
-    MIN_INTRON,
+    DEFAULT_SHAPE,
+    REPEAT_TYPES,
     STOPS,
-    UP_FLANK,
+    GeneShape,
     mirror_index,
+    shape_of,
 )
 from seqstate.model import Model
 
@@ -123,14 +123,17 @@ def _oriented(tx: Transcript, length: int) -> list[tuple[int, int]]:
     return [(length - e, length - s) for s, e in tx.pieces]
 
 
-def check_transcript(tx: Transcript, seq: bytes, rc: bytes) -> str | None:
+def check_transcript(
+    tx: Transcript, seq: bytes, rc: bytes, shape: GeneShape = DEFAULT_SHAPE
+) -> str | None:
     """Why this transcript cannot be labelled (None if it can).
 
     Checks: CDS length a multiple of 3, GFF3 phases consistent with the lengths,
     ATG start, a stop codon at the end and none inside, GT..AG introns of at least
-    :data:`MIN_INTRON` bases, no intron inside the start or stop codon, a clean
-    start flank.
+    ``shape.min_intron`` bases, no intron inside the start or stop codon, clean
+    start and stop flanks.
     """
+    up_flank, down_flank, min_intron = shape.up_flank, shape.down_flank, shape.min_intron
     length = len(seq)
     pieces = _oriented(tx, length)
     s = seq if tx.strand == "+" else rc
@@ -154,20 +157,43 @@ def check_transcript(tx: Transcript, seq: bytes, rc: bytes) -> str | None:
         return "unknown bases in the CDS"
     if pieces[0][1] - pieces[0][0] < 3 or pieces[-1][1] - pieces[-1][0] < 3:
         return "intron inside the start or stop codon"
-    if pieces[0][0] < UP_FLANK:
+    if pieces[0][0] < up_flank:
         return "start flank runs off the record"
-    if set(s[pieces[0][0] - UP_FLANK : pieces[0][0]].upper()) - set(b"ACGT"):
+    if set(s[pieces[0][0] - up_flank : pieces[0][0]].upper()) - set(b"ACGT"):
         return "unknown bases in the start flank"
+    if pieces[-1][1] + down_flank > length:
+        return "stop flank runs off the record"
+    if set(s[pieces[-1][1] : pieces[-1][1] + down_flank].upper()) - set(b"ACGT"):
+        return "unknown bases in the stop flank"
     for (_, b0), (a1, _) in zip(pieces, pieces[1:]):
         intron = s[b0:a1].upper()
-        if len(intron) < MIN_INTRON:
-            return f"intron shorter than {MIN_INTRON} bases"
+        if len(intron) < min_intron:
+            return f"intron shorter than {min_intron} bases"
         if intron[:2] != b"GT" or intron[-2:] != b"AG":
             return "intron not GT..AG"
     return None
 
 
-def plus_path(tx: Transcript, seq_plus: bytes, names: dict[str, int]) -> list[tuple[int, int]]:
+def body_labels(n_body: int, shape: GeneShape, copy: str) -> list[str]:
+    """The body states of an intron body of ``n_body`` bases (5' to 3').
+
+    The first branch with at most ``n_body`` stages is used, its stages as even as
+    possible (longer ones first).  Which branch and split a gene gets does not
+    matter for the fit: the body states share one emission table and the chain's
+    moves are fitted from the body lengths alone (``[fit] length_chains``).
+    """
+    branches = shape.body_names(copy)
+    branch = next((b for b in branches if len(b) <= n_body), None)
+    if branch is None:
+        raise ValueError(f"intron body of {n_body} bases is shorter than every branch")
+    r = len(branch)
+    sizes = [n_body // r + (1 if i < n_body % r else 0) for i in range(r)]
+    return [name for name, k in zip(branch, sizes) for _ in range(k)]
+
+
+def plus_path(
+    tx: Transcript, seq_plus: bytes, names: dict[str, int], shape: GeneShape = DEFAULT_SHAPE
+) -> list[tuple[int, int]]:
     """(position, state) pairs of one checked transcript on its own strand's sequence.
 
     ``seq_plus`` is the sequence in the transcript's orientation; states are the
@@ -177,8 +203,9 @@ def plus_path(tx: Transcript, seq_plus: bytes, names: dict[str, int]) -> list[tu
     pieces = _oriented(tx, length)
     out: list[tuple[int, int]] = []
     first = pieces[0][0]
-    for i in range(UP_FLANK):
-        out.append((first - UP_FLANK + i, names[f"up{i + 1}"]))
+    up_flank = shape.up_flank
+    for i in range(up_flank):
+        out.append((first - up_flank + i, names[f"up{i + 1}"]))
     coding_pos = 0
     total = sum(b - a for a, b in pieces)
     up = seq_plus.upper()
@@ -197,12 +224,15 @@ def plus_path(tx: Transcript, seq_plus: bytes, names: dict[str, int]) -> list[tu
             copy = _intron_copy(coding_pos, pieces, k, up)
             a1 = pieces[k + 1][0]
             intron = list(range(b, a1))
-            donor = [f"{copy}_d{i}" for i in range(1, 3 + DONOR_FLANK)]
-            acceptor = [f"{copy}_a{i}" for i in range(1, ACCEPTOR_FLANK + 3)]
+            donor = [f"{copy}_d{i}" for i in range(1, 3 + shape.donor_flank)]
+            acceptor = [f"{copy}_a{i}" for i in range(1, shape.acceptor_flank + 3)]
             n_body = len(intron) - len(donor) - len(acceptor)
-            labels = donor + [f"{copy}_body"] * n_body + acceptor
+            labels = donor + body_labels(n_body, shape, copy) + acceptor
             for pos, st in zip(intron, labels):
                 out.append((pos, names[st]))
+    end = pieces[-1][1]
+    for i in range(shape.down_flank):
+        out.append((end + i, names[f"down{i + 1}"]))
     return out
 
 
@@ -325,6 +355,7 @@ def label_records(
             f"feature on seqid '{sid}', which is not in the FASTA", path=path, line0=first.line0
         )
     genes, transcripts = transcripts_from_gff3(features)
+    shape = shape_of(list(model.state_names))
     report = LabelReport()
     from seqstate.engine import api
 
@@ -352,8 +383,19 @@ def label_records(
                 # its last, over all its transcripts
                 lo = min(t.span[0] for t in transcripts[gid])
                 hi = max(t.span[1] for t in transcripts[gid])
-                spans.append((max(0, lo - UP_FLANK), min(n, hi + UP_FLANK), gid))
+                pad = max(shape.up_flank, shape.down_flank)
+                spans.append((max(0, lo - pad), min(n, hi + pad), gid))
         spans.sort()
+        if "repeat" in names:
+            # transposable elements and pseudogenes outside every coding locus (and one
+            # base from it, so that each gene is entered from intergenic DNA)
+            rep = np.zeros(n, dtype=bool)
+            for f in features:
+                if f.seqid == rec.id and f.type in REPEAT_TYPES:
+                    rep[f.start0 : min(f.end0, n)] = True
+            for s0, e0, _ in spans:
+                rep[max(0, s0 - 1) : min(n, e0 + 1)] = False
+            states[rep] = names["repeat"]
         used_spans: list[tuple[int, int, str]] = []
         overlapping = set()
         for i in range(len(spans)):
@@ -381,7 +423,7 @@ def label_records(
             good = []
             reasons = []
             for tx in txs:
-                why = check_transcript(tx, rec.seq, rc)
+                why = check_transcript(tx, rec.seq, rc, shape)
                 if why is None:
                     good.append(tx)
                 else:
@@ -400,7 +442,7 @@ def label_records(
                 continue
             best = max(good, key=lambda t: (t.coding_length, t.mrna))
             seq_o = rec.seq if best.strand == "+" else rc
-            pairs = plus_path(best, seq_o, plus_names)
+            pairs = plus_path(best, seq_o, plus_names, shape)
             pos_a = np.array([p for p, _ in pairs], dtype=np.int64)
             st_a = np.array([q for _, q in pairs], dtype=np.int64)
             if best.strand == "-":

@@ -58,6 +58,95 @@ MIN_INTRON = 2 + DONOR_FLANK + 1 + ACCEPTOR_FLANK + 2
 ANY = "ACGT"
 
 
+@dataclass(frozen=True)
+class GeneShape:
+    """The sizes of a gene-segment layout (the defaults are the original layout).
+
+    ``up_flank`` bases before the start codon (``up1..``), ``down_flank`` bases after
+    the stop codon (``down1..``), ``donor_flank`` intron bases after GT (``d3..``),
+    ``acceptor_flank`` intron bases before AG (``a1..``).  ``body_stages``: the
+    intron body as parallel branches of chained states, one entry per branch giving
+    its number of stages; each stage stays with its own fitted probability, so a
+    branch of R stages has a negative-binomial length (at least R bases) and the
+    body a mixture of them (``(1,)``: one self-looping state, a geometric length).
+    ``signal_order``: the emission order of the flank states (0: a position weight
+    matrix; 1: a first-order weight-array model).  ``repeat``: a ``repeat`` state
+    beside ``intergenic`` (no feature, both strands in one state) whose emissions
+    are fitted from the annotation's transposable elements and pseudogenes
+    (:data:`REPEAT_TYPES`), so that their open reading frames are not taken for
+    genes.
+    """
+
+    up_flank: int = UP_FLANK
+    down_flank: int = 0
+    donor_flank: int = DONOR_FLANK
+    acceptor_flank: int = ACCEPTOR_FLANK
+    body_stages: tuple[int, ...] = (1,)
+    signal_order: int = 0
+    repeat: bool = False
+
+    @property
+    def min_intron(self) -> int:
+        """The shortest intron the layout can hold (bases)."""
+        return 2 + self.donor_flank + min(self.body_stages) + self.acceptor_flank + 2
+
+    def body_names(self, copy: str) -> list[list[str]]:
+        """Per branch, the names (without strand) of its stages, 5' to 3'."""
+        if self.body_stages == (1,):
+            return [[f"{copy}_body"]]
+        return [
+            [f"{copy}_body{b + 1}_{i + 1}" for i in range(r)]
+            for b, r in enumerate(self.body_stages)
+        ]
+
+
+DEFAULT_SHAPE = GeneShape()
+
+#: The shape of the shipped ``gene-segment-layout`` (chosen by held-out measurement on
+#: fly chromosome 4, see models/README.md): wider first-order signal windows, a stop
+#: flank and the repeat state; one geometric intron body (chains measured, not better).
+SHIPPED_SHAPE = GeneShape(
+    up_flank=12,
+    down_flank=6,
+    donor_flank=8,
+    acceptor_flank=28,
+    body_stages=(1,),
+    signal_order=1,
+    repeat=True,
+)
+#: ``[fit] interpolate`` strength of the shipped layout.
+SHIPPED_INTERPOLATION = 32.0
+
+#: GFF3 types whose spans the ``repeat`` state is fitted from (Sequence Ontology terms).
+REPEAT_TYPES = ("mobile_genetic_element", "transposable_element", "pseudogene")
+
+
+def shape_of(names: list[str]) -> GeneShape:
+    """The :class:`GeneShape` of a model built by :func:`build_layout`, from its state names."""
+    have = set(names)
+
+    def count(fmt: str, first: int = 1) -> int:
+        i = first
+        while fmt.format(i) in have:
+            i += 1
+        return i - first
+
+    up = count("up{}+")
+    down = count("down{}+")
+    donor = count("i0_d{}+", 3)
+    acceptor = count("i0_a{}+") - 2
+    if "i0_body+" in have:
+        stages: tuple[int, ...] = (1,)
+    else:
+        branches = []
+        b = 1
+        while f"i0_body{b}_1+" in have:
+            branches.append(count(f"i0_body{b}_{{}}+"))
+            b += 1
+        stages = tuple(branches)
+    return GeneShape(up, down, donor, acceptor, stages, 0, "repeat" in have)
+
+
 @dataclass
 class _Plus:
     """The plus-strand half of the layout: names, labels, allowed bases, moves."""
@@ -77,9 +166,10 @@ class _Plus:
             self.moves.append((a, b))
 
 
-def _plus_layout() -> _Plus:
+def _plus_layout(shape: GeneShape = DEFAULT_SHAPE) -> _Plus:
     p = _Plus()
-    for i in range(1, UP_FLANK + 1):
+    up_flank, donor_flank, acceptor_flank = shape.up_flank, shape.donor_flank, shape.acceptor_flank
+    for i in range(1, up_flank + 1):
         p.add(f"up{i}", None)
     p.add("start_A", "CDS", "A")
     p.add("start_T", "CDS", "T")
@@ -105,18 +195,22 @@ def _plus_layout() -> _Plus:
     p.add("stop_G", "CDS", "G")
     p.add("stop_AR", "CDS", "AG")
     p.add("stop_GA", "CDS", "A")
+    for i in range(1, shape.down_flank + 1):
+        p.add(f"down{i}", None)
     for c in INTRON_COPIES:
         p.add(f"{c}_d1", "intron", "G")
         p.add(f"{c}_d2", "intron", "T")
-        for i in range(3, 3 + DONOR_FLANK):
+        for i in range(3, 3 + donor_flank):
             p.add(f"{c}_d{i}", "intron")
-        p.add(f"{c}_body", "intron")
-        for i in range(1, ACCEPTOR_FLANK + 1):
+        for branch in shape.body_names(c):
+            for name in branch:
+                p.add(name, "intron")
+        for i in range(1, acceptor_flank + 1):
             p.add(f"{c}_a{i}", "intron")
-        p.add(f"{c}_a{ACCEPTOR_FLANK + 1}", "intron", "A")
-        p.add(f"{c}_a{ACCEPTOR_FLANK + 2}", "intron", "G")
+        p.add(f"{c}_a{acceptor_flank + 1}", "intron", "A")
+        p.add(f"{c}_a{acceptor_flank + 2}", "intron", "G")
     # moves
-    chain = [f"up{i}" for i in range(1, UP_FLANK + 1)] + ["start_A", "start_T", "start_G"]
+    chain = [f"up{i}" for i in range(1, up_flank + 1)] + ["start_A", "start_T", "start_G"]
     for a, b in zip(chain, chain[1:]):
         p.move(a, b)
     codon_next = ["cds1", "cds1_T_i1", "cds1_V_i1", "cds1_T_i2", "cds1_V_i2", "i0_d1", "stop_T"]
@@ -133,12 +227,19 @@ def _plus_layout() -> _Plus:
     p.move("cds2_Y_i2", "i2N_d1")
     p.move("cds2_N_i2", "i2N_d1")
     for c in INTRON_COPIES:
-        chain = [f"{c}_d{i}" for i in range(1, 3 + DONOR_FLANK)] + [f"{c}_body"]
-        chain += [f"{c}_a{i}" for i in range(1, ACCEPTOR_FLANK + 3)]
-        for a, b in zip(chain, chain[1:]):
-            p.move(a, b)
-        p.move(f"{c}_body", f"{c}_body")
-    last = f"_a{ACCEPTOR_FLANK + 2}"
+        donor = [f"{c}_d{i}" for i in range(1, 3 + donor_flank)]
+        acceptor = [f"{c}_a{i}" for i in range(1, acceptor_flank + 3)]
+        for chain in (donor, acceptor):
+            for a, b in zip(chain, chain[1:]):
+                p.move(a, b)
+        for branch in shape.body_names(c):
+            p.move(donor[-1], branch[0])
+            for a, b in zip(branch, branch[1:]):
+                p.move(a, b)
+            for name in branch:
+                p.move(name, name)
+            p.move(branch[-1], acceptor[0])
+    last = f"_a{acceptor_flank + 2}"
     p.move("i0" + last, *[t for t in codon_next if t != "i0_d1"])
     p.move("i1T" + last, "cds2_A_j1T", "cds2_G_j1T", "cds2_Y_j1T")
     p.move("cds2_A_j1T", "cds3_Y")
@@ -151,6 +252,12 @@ def _plus_layout() -> _Plus:
     p.move("stop_T", "stop_A", "stop_G")
     p.move("stop_A", "stop_AR")
     p.move("stop_G", "stop_GA")
+    down = [f"down{i}" for i in range(1, shape.down_flank + 1)]
+    for a, b in zip(down, down[1:]):
+        p.move(a, b)
+    if down:
+        p.move("stop_AR", down[0])
+        p.move("stop_GA", down[0])
     return p
 
 
@@ -158,9 +265,11 @@ def _comp(bases: str) -> str:
     return "".join(sorted(COMPLEMENT[b] for b in bases))
 
 
-def layout_states() -> tuple[list[State], list[tuple[int, int]], dict[str, str]]:
+def layout_states(
+    shape: GeneShape = DEFAULT_SHAPE,
+) -> tuple[list[State], list[tuple[int, int]], dict[str, str]]:
     """States (intergenic, then plus, then minus), allowed moves and allowed bases."""
-    p = _plus_layout()
+    p = _plus_layout(shape)
     states = [State("intergenic", None, None)]
     bases = {"intergenic": ANY}
     for n in p.names:
@@ -169,19 +278,30 @@ def layout_states() -> tuple[list[State], list[tuple[int, int]], dict[str, str]]
     for n in p.names:
         states.append(State(f"{n}-", p.labels[n], "-"))
         bases[f"{n}-"] = _comp(p.bases[n])
+    if shape.repeat:
+        states.append(State("repeat", None, None))
+        bases["repeat"] = ANY
     index = {s.name: i for i, s in enumerate(states)}
     moves = [(index["intergenic"], index["intergenic"])]
+    if shape.repeat:
+        r, g = index["repeat"], index["intergenic"]
+        moves += [(g, r), (r, r), (r, g)]
     for a, b in p.moves:
         moves.append((index[f"{a}+"], index[f"{b}+"]))
         moves.append((index[f"{b}-"], index[f"{a}-"]))
     # the plus gene enters at up1 and leaves after the stop codon; the minus mirror
     # enters at the reversed stop codon and leaves after the reversed flank
-    moves.append((index["intergenic"], index["up1+"]))
-    for s in ("stop_AR+", "stop_GA+"):
-        moves.append((index[s], index["intergenic"]))
-    moves.append((index["intergenic"], index["stop_AR-"]))
-    moves.append((index["intergenic"], index["stop_GA-"]))
-    moves.append((index["up1-"], index["intergenic"]))
+    first = "up1" if shape.up_flank else "start_A"
+    moves.append((index["intergenic"], index[f"{first}+"]))
+    moves.append((index[f"{first}-"], index["intergenic"]))
+    if shape.down_flank:
+        last = f"down{shape.down_flank}"
+        moves.append((index[f"{last}+"], index["intergenic"]))
+        moves.append((index["intergenic"], index[f"{last}-"]))
+    else:
+        for s in ("stop_AR", "stop_GA"):
+            moves.append((index[f"{s}+"], index["intergenic"]))
+            moves.append((index["intergenic"], index[f"{s}-"]))
     return states, moves, bases
 
 
@@ -214,11 +334,27 @@ def _allowed(name: str, bases: str, context: str) -> str:
     return bases
 
 
-def build_layout(order: int = 3, *, name: str = "gene-segment-layout") -> Model:
-    """The gene-segment skeleton: allowed moves and emissions, uniform over what is allowed."""
+def build_layout(
+    order: int = 3,
+    *,
+    name: str = "gene-segment-layout",
+    shape: GeneShape = DEFAULT_SHAPE,
+    interpolation: float | None = None,
+) -> Model:
+    """The gene-segment skeleton: allowed moves and emissions, uniform over what is allowed.
+
+    ``order``: the emission order of the content states (intergenic, coding, intron
+    body).  ``shape``: the sizes of flanks, signal windows and intron-body chains
+    (:class:`GeneShape`).  ``interpolation``: when given, ``seqstate fit`` estimates
+    the content states' emissions as interpolated Markov chains with this strength
+    (``[fit] interpolate``, see :func:`seqstate.commands.fit.estimation.interpolated_rows`);
+    else by plain counts plus the pseudocount.
+    """
     if order < 2:
         raise ValueError("the gene-segment layout needs emission order >= 2 (stop codons)")
-    states, moves, bases = layout_states()
+    if shape.signal_order > order:
+        raise ValueError(f"signal order {shape.signal_order} is above the emission order {order}")
+    states, moves, bases = layout_states(shape)
     m = len(states)
     trans = np.zeros((m, m))
     for a, b in moves:
@@ -235,17 +371,50 @@ def build_layout(order: int = 3, *, name: str = "gene-segment-layout") -> Model:
             emis[s, c] /= emis[s, c].sum()
     start = np.zeros(m)
     start[0] = 1.0
-    ties, orders = fit_rules(states)
+    ties, orders = fit_rules(states, shape)
+    fit: dict = {
+        "state_rule": "gene_structure",
+        "both_strands": True,
+        "tie": ties,
+    }
+    if shape.body_stages == (1,):
+        fit["tie_transitions"] = [[f"{c}_body{st}" for c in INTRON_COPIES] for st in "+-"]
+    else:
+        fit["length_chains"] = length_chains(shape)
+    fit["emission_order"] = orders
+    if interpolation is not None:
+        fit["interpolate"] = {
+            "strength": float(interpolation),
+            "states": content_states(states, shape),
+        }
     return make_model(
         name=name,
         description=(
-            "Gene-segment model (layout: seqstate's own): intergenic, a six-base start "
-            "flank, start codon, three codon positions, six intron copies that keep the "
-            "reading frame and the bases of a split codon, splice donor (GT + 4) and "
-            "acceptor (10 + AG) chains, stop codons of NCBI translation table 1 (no "
-            "in-frame stop inside a coding exon); the minus strand is the "
-            "reverse-complement mirror. Probabilities: see [provenance] (the layout itself "
-            "is uniform over the allowed moves and bases)."
+            "Gene-segment model (layout: seqstate's own): intergenic, a start flank of "
+            f"{shape.up_flank} bases, start codon, three codon positions, stop "
+            "codons of NCBI translation table 1 (no in-frame stop inside a coding exon)"
+            + (f", a stop flank of {shape.down_flank} bases" if shape.down_flank else "")
+            + (
+                ", a repeat state (transposable elements and pseudogenes of the annotation)"
+                if shape.repeat
+                else ""
+            )
+            + ", six intron copies that keep the reading frame and the bases of a split "
+            f"codon, splice donor (GT + {shape.donor_flank}) and acceptor "
+            f"({shape.acceptor_flank} + AG) chains"
+            + (
+                f" of order-{shape.signal_order} position-specific states"
+                if shape.signal_order
+                else ""
+            )
+            + (
+                ", an intron body of "
+                + " or ".join(f"{r} chained states" for r in shape.body_stages)
+                if shape.body_stages != (1,)
+                else ""
+            )
+            + "; the minus strand is the reverse-complement mirror. Probabilities: see "
+            "[provenance] (the layout itself is uniform over the allowed moves and bases)."
         ),
         alphabet=DNA,
         states=states,
@@ -254,34 +423,62 @@ def build_layout(order: int = 3, *, name: str = "gene-segment-layout") -> Model:
         emissions=emis,
         order=order,
         decode="viterbi",
-        extra={
-            "fit": {
-                "state_rule": "gene_structure",
-                "both_strands": True,
-                "tie": ties,
-                "tie_transitions": [[f"{c}_body{st}" for c in INTRON_COPIES] for st in "+-"],
-                "emission_order": orders,
-            },
-            "annotate": {"features": "gene_structure"},
-        },
+        extra={"fit": fit, "annotate": {"features": "gene_structure"}},
     )
 
 
-def fit_rules(states: list[State]) -> tuple[list[list[str]], dict[str, int]]:
+def content_states(states: list[State], shape: GeneShape = DEFAULT_SHAPE) -> list[str]:
+    """The states of full emission order: intergenic, the free coding states, intron bodies."""
+    out = ["intergenic", "repeat"]
+    for strand in "+-":
+        out += [f"cds{i}{strand}" for i in (1, 2, 3)]
+        out += [f"{n}{strand}" for c in INTRON_COPIES for b in shape.body_names(c) for n in b]
+    have = {s.name for s in states}
+    return [n for n in out if n in have]
+
+
+def length_chains(shape: GeneShape) -> dict[str, dict]:
+    """``[fit] length_chains``: per strand and intron copy, the chained body states.
+
+    Keyed by ``entry``, the state before the chain; each value: ``group`` (chains
+    of one group share one fitted length distribution: the intron bodies of a
+    strand), ``branches`` (per branch, its stages in path order) and ``exit`` (the
+    state after it).
+    """
+    out = {}
+    for strand in "+-":
+        for c in INTRON_COPIES:
+            branches = [[f"{n}{strand}" for n in b] for b in shape.body_names(c)]
+            entry = f"{c}_d{2 + shape.donor_flank}{strand}"
+            exit_ = f"{c}_a1{strand}"
+            if strand == "-":
+                # the mirror runs 3' to 5' along the plus strand: stages reversed
+                branches = [b[::-1] for b in branches]
+                entry, exit_ = f"{c}_a1-", f"{c}_d{2 + shape.donor_flank}-"
+            out[entry] = {"group": f"intron body {strand}", "branches": branches, "exit": exit_}
+    return out
+
+
+def fit_rules(
+    states: list[State], shape: GeneShape = DEFAULT_SHAPE
+) -> tuple[list[list[str]], dict[str, int]]:
     """Emission tying (groups pooled in fit) and per-state effective orders."""
     ties: list[list[str]] = []
     orders: dict[str, int] = {}
+    j = shape.signal_order
     for strand in "+-":
-        ties.append([f"{c}_body{strand}" for c in INTRON_COPIES])
-        for i in list(range(3, 3 + DONOR_FLANK)):
+        ties.append([f"{n}{strand}" for c in INTRON_COPIES for b in shape.body_names(c) for n in b])
+        for i in list(range(3, 3 + shape.donor_flank)):
             ties.append([f"{c}_d{i}{strand}" for c in INTRON_COPIES])
-        for i in range(1, ACCEPTOR_FLANK + 1):
+        for i in range(1, shape.acceptor_flank + 1):
             ties.append([f"{c}_a{i}{strand}" for c in INTRON_COPIES])
-        for i in range(1, UP_FLANK + 1):
-            orders[f"up{i}{strand}"] = 0
+        for i in range(1, shape.up_flank + 1):
+            orders[f"up{i}{strand}"] = j
+        for i in range(1, shape.down_flank + 1):
+            orders[f"down{i}{strand}"] = j
         for c in INTRON_COPIES:
-            for i in range(3, 3 + DONOR_FLANK):
-                orders[f"{c}_d{i}{strand}"] = 0
-            for i in range(1, ACCEPTOR_FLANK + 1):
-                orders[f"{c}_a{i}{strand}"] = 0
+            for i in range(3, 3 + shape.donor_flank):
+                orders[f"{c}_d{i}{strand}"] = j
+            for i in range(1, shape.acceptor_flank + 1):
+                orders[f"{c}_a{i}{strand}"] = j
     return ties, orders

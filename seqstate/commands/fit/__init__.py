@@ -39,6 +39,7 @@ import numpy as np
 
 from seqstate.commands.fit.counting import (
     Counts,
+    chain_runs,
     count_path,
     pool_counts,
     states_without_counts,
@@ -60,6 +61,7 @@ from seqstate.commands.fit.estimation import (
     objective,
     parse_freeze,
     replace_tables,
+    set_length_chains,
 )
 from seqstate.commands.fit.labels import (
     LabelFeature,
@@ -108,6 +110,7 @@ __all__ = [
     "Log",
     "assign_states",
     "baum_welch",
+    "chain_runs",
     "check_model_folder",
     "count_path",
     "default_state_rule",
@@ -130,6 +133,7 @@ __all__ = [
     "read_labels",
     "replace_tables",
     "resolve_state_rule",
+    "set_length_chains",
     "states_without_counts",
     "stderr_log",
     "with_backoff",
@@ -315,19 +319,27 @@ def _count_genes(
         start_model, records, path, bad_genes=opts.bad_genes
     )
     counts = Counts.zeros(start_model)
+    runs: dict[str, list[int]] = {}
     for k, (seq, states) in enumerate(pairs):
         rid = records[k // 2].id + ("" if k % 2 == 0 else " (reverse complement)")
         codes = api.encode(tables, seq, masked_unknown=masked)
         counts.add(count_path(start_model, tables, codes, states, record=rid, path=path))
+        for group, lengths in chain_runs(start_model, states).items():
+            runs.setdefault(group, []).extend(lengths)
         if k % 2 == 0:
             run.codes.append(codes)
     pool_counts(start_model, counts)
     _estimate_counted(run, counts, "counting from a gene annotation")
+    chains: dict[str, Any] = {}
+    if not (run.frozen.transitions or run.frozen.states):
+        run.model, chains = set_length_chains(run.model, runs)
     log(
         f"fit: genes used {report.used}, skipped "
         + (", ".join(f"{v} ({k})" for k, v in sorted(report.skipped.items())) or "none")
     )
     run.labelling = report.as_dict()
+    if chains:
+        run.labelling["length_chains"] = chains
 
 
 def _count_labels(

@@ -208,3 +208,32 @@ def states_without_counts(model: Model, counts: Counts) -> list[str]:
         if no_t or no_e:
             out.append(name)
     return out
+
+
+def chain_runs(model: Model, states: np.ndarray) -> dict[str, list[int]]:
+    """Lengths (bases) of the runs through each ``[fit] length_chains`` chain, by group.
+
+    A run is a maximal stretch of a chain's states entered from its ``entry`` state
+    and left to its ``exit`` state (runs cut by an unknown state, -1, are left out).
+    """
+    chains = model.extra.get("fit", {}).get("length_chains", {})
+    names = {n: i for i, n in enumerate(model.state_names)}
+    out: dict[str, list[int]] = {}
+    st = np.asarray(states, dtype=np.int64)
+    n = st.shape[0]
+    for entry_name, ch in chains.items():
+        member = np.zeros(model.n_states + 1, dtype=bool)
+        for branch in ch["branches"]:
+            for name in branch:
+                if name not in names:
+                    raise ModelFormatError(f"[fit] length_chains names unknown state '{name}'")
+                member[names[name]] = True
+        entry, exit_ = names[entry_name], names[ch["exit"]]
+        inside = member[np.where(st >= 0, st, model.n_states)]
+        padded = np.concatenate([[False], inside, [False]])
+        edges = np.flatnonzero(padded[1:] != padded[:-1])
+        runs = out.setdefault(ch["group"], [])
+        for a, b in zip(edges[0::2].tolist(), edges[1::2].tolist()):
+            if a > 0 and b < n and st[a - 1] == entry and st[b] == exit_:
+                runs.append(b - a)
+    return out

@@ -8,6 +8,14 @@
 * Frozen parts (``start``, ``transitions`` -- with the end table --,
   ``emissions``, or a state name: that state's transition row, end and
   emission rows) are copied from the start model unchanged.
+* Interpolated Markov chains (``[fit] interpolate = {strength = K, states =
+  [...]}``): the emission rows of the listed states are built order by order,
+  each context's counts pulled towards the row of its one-shorter context with
+  weight K (:func:`interpolated_rows`), so a context seen rarely keeps the
+  shape of its shorter context instead of the uniform pseudocount row.
+* Length chains (``[fit] length_chains``): the moves into, along and out of
+  chained states are set from the lengths of the labelled runs through them
+  (:func:`set_length_chains`, :mod:`seqstate.model.lengths`), not from counts.
 * Back-off rows (contexts shorter than k) are not re-estimated: counting drops
   any explicit back-off rows so that the engine derives them from the counted
   order-k table; EM passes the rows it holds fixed (:mod:`.em`).
@@ -112,6 +120,56 @@ def _normalise(counts: np.ndarray, old: np.ndarray, pc: float) -> tuple[np.ndarr
     return raw / total, True
 
 
+def interpolated_rows(
+    counts: np.ndarray, allowed: np.ndarray, n_symbols: int, order: int, strength: float, pc: float
+) -> np.ndarray:
+    """Emission rows of one state as an interpolated Markov chain (order ``order``).
+
+    ``counts[c, x]``: counts of symbol x after order-k context c (oldest symbol most
+    significant, as the emission tables are laid out).  With n_j(s, x) the counts
+    summed over the contexts ending in the j newest symbols s:
+
+        P_0(x) = (n_0(x) + pc) / (n_0 + A pc)
+        P_j(x | s) = (n_j(s, x) + K P_{j-1}(x | s')) / (n_j(s) + K)
+
+    where s' drops the oldest symbol of s and K = ``strength``: the weight of the
+    order-j counts against the shorter context grows with their number,
+    n_j(s) / (n_j(s) + K) (interpolation by counts; a Dirichlet prior centred on the
+    shorter context's row).  The order-k rows are then multiplied by ``allowed``
+    (the structural zeros of the start model) and normalised.
+    """
+    a, k = n_symbols, order
+    c = np.asarray(counts, dtype=np.float64).reshape(a**k, a)
+    n0 = c.sum(axis=0)
+    prev = ((n0 + pc) / (n0.sum() + a * pc))[None, :]  # one context of length 0
+    for j in range(1, k + 1):
+        nj = c.reshape(a ** (k - j), a**j, a).sum(axis=0)  # contexts of the j newest symbols
+        shorter = prev[np.arange(a**j) % a ** (j - 1)]  # drop the oldest of the j symbols
+        prev = (nj + strength * shorter) / (nj.sum(axis=1, keepdims=True) + strength)
+    rows = np.where(allowed, prev, 0.0)
+    total = rows.sum(axis=1, keepdims=True)
+    uniform = allowed / np.maximum(allowed.sum(axis=1, keepdims=True), 1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(total > 0, rows / total, uniform)
+
+
+def _interpolation(model: Model) -> tuple[float, set[int]]:
+    table = model.extra.get("fit", {})
+    spec = table.get("interpolate") if isinstance(table, dict) else None
+    if not spec:
+        return 0.0, set()
+    names = {n: i for i, n in enumerate(model.state_names)}
+    states = set()
+    for name in spec.get("states", []):
+        if name not in names:
+            raise UsageError(f"[fit] interpolate names unknown state '{name}'")
+        states.add(names[name])
+    strength = float(spec.get("strength", 0.0))
+    if not strength >= 0:
+        raise UsageError(f"[fit] interpolate strength {strength} must be >= 0")
+    return strength, states
+
+
 def estimate(
     model: Model,
     counts: Counts,
@@ -153,8 +211,17 @@ def estimate(
         if not ok:
             kept.append(f"transitions of {names[s]}")
     emis = model.emissions.copy()
+    strength, interpolated = _interpolation(model)
     for s in range(m):
         if frozen.emissions or s in frozen.states:
+            continue
+        if s in interpolated and k > 0:
+            if counts.emissions[s].sum() > 0:
+                emis[s] = interpolated_rows(
+                    counts.emissions[s], model.emissions[s] > 0, a, k, strength, pc
+                )
+            else:
+                kept.append(f"emissions of {names[s]} ({a**k} of {a**k} contexts)")
             continue
         empty = 0
         for c in range(a**k):
@@ -203,3 +270,54 @@ def objective(model: Model, loglik: float, *, pseudocount: float, frozen: Frozen
         if not (frozen.emissions or s in frozen.states):
             total += add(model.emissions[s])
     return loglik + pseudocount * total
+
+
+def set_length_chains(model: Model, runs: dict[str, list[int]]) -> tuple[Model, dict[str, Any]]:
+    """The moves of every ``[fit] length_chains`` chain from its group's run lengths.
+
+    For each group, :func:`seqstate.model.lengths.fit_branches` fits the entry and
+    stay probabilities of its branches (stage counts fixed by the layout) to the
+    observed lengths; every chain of the group gets them: ``entry -> first stage of
+    branch b`` = w_b (the entry state's other moves keep their share of the rest),
+    each stage stays with p_b and moves on with 1 - p_b, the last stage to ``exit``.
+    A group without runs keeps its start-model moves.  Returns the model and, per
+    group, the fit (for the provenance).
+    """
+    from seqstate.model.lengths import fit_branches
+
+    chains = model.extra.get("fit", {}).get("length_chains", {})
+    if not chains:
+        return model, {}
+    names = {n: i for i, n in enumerate(model.state_names)}
+    trans = model.transitions.copy()
+    fits: dict[str, Any] = {}
+    for entry_name, ch in chains.items():
+        group = ch["group"]
+        stages = [len(b) for b in ch["branches"]]
+        lengths = runs.get(group, [])
+        if not lengths:
+            continue
+        if group not in fits:
+            fits[group] = fit_branches(lengths, stages)
+        f = fits[group]
+        entry = names[entry_name]
+        firsts = [names[b[0]] for b in ch["branches"]]
+        into = trans[entry, firsts].sum()
+        trans[entry, firsts] = into * np.asarray(f.weights)
+        for branch, p in zip(ch["branches"], f.stays):
+            idx = [names[x] for x in branch] + [names[ch["exit"]]]
+            for s0, s1 in zip(idx, idx[1:]):
+                trans[s0] = 0.0
+                trans[s0, s0] = p
+                trans[s0, s1] = 1.0 - p
+    report = {
+        g: {
+            "stages": list(f.stages),
+            "weights": [round(w, 6) for w in f.weights],
+            "stays": [round(p, 8) for p in f.stays],
+            "mean_length": round(f.mean(), 2),
+            "runs": f.n,
+        }
+        for g, f in fits.items()
+    }
+    return replace_tables(model, transitions=trans), report
