@@ -112,15 +112,15 @@ def test_read_bases_that_return_too_few_bases_are_an_error() -> None:
 
 @pytest.fixture(scope="module")
 def sampled_genes():
-    """Two synthetic records drawn from gene-segment (seed 3), their true genes and the
-    Viterbi genes decoded from them (the draws of `seqstate sample --seed 3`)."""
+    """Four synthetic records of 60 kb drawn from gene-segment (seed 3), their true genes
+    and the Viterbi genes decoded from them."""
     model = load_model("gene-segment")
     tables = api.prepare(model)
     rng = np.random.default_rng(3)
     alphabet = np.frombuffer(model.alphabet.encode("ascii"), dtype=np.uint8)
     out = []
-    for r in range(2):
-        path, sym = sample_record(tables, 30_000, rng)
+    for r in range(4):
+        path, sym = sample_record(tables, 60_000, rng)
         seq = alphabet[sym].tobytes()
         truth = genes_from_path(path, model)
         codes = api.encode(tables, seq)
@@ -187,7 +187,9 @@ def test_cut_genes_are_partial_and_translate_from_their_phase(sampled_genes, tmp
     model, records = sampled_genes
     checked = 0
     for seqid, seq, truth, _ in records:
-        gene = next(g for g in truth if len(g.pieces) > 1 and not g.partial)
+        gene = next((g for g in truth if len(g.pieces) > 1 and not g.partial), None)
+        if gene is None:  # a sampled record may hold no complete multi-exon gene
+            continue
         a, b = gene.pieces[0] if gene.strand == "+" else gene.pieces[-1]
         cut = a + 4 if gene.strand == "+" else b - 4  # 4 bases into the 5'-most piece
         tables = api.prepare(model)
@@ -221,14 +223,14 @@ def test_cut_genes_are_partial_and_translate_from_their_phase(sampled_genes, tmp
         assert str(cut_p.seq) == whole_p[2:]
         assert "*" not in whole_p and len(whole_p) > 10
         checked += 1
-    assert checked == 2
+    assert checked >= 2
 
 
 def _true_path(model, tables, seqid: str) -> np.ndarray:
     """The true path of sampled record ``seqid`` (the draws of the fixture, redone)."""
     rng = np.random.default_rng(3)
-    for r in range(2):
-        path, _ = sample_record(tables, 30_000, rng)
+    for r in range(4):
+        path, _ = sample_record(tables, 60_000, rng)
         if f"s{r + 1}" == seqid:
             return path
     raise AssertionError(seqid)
