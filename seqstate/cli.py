@@ -283,6 +283,27 @@ def model_check(model: str) -> None:
     help="Threads to use [default: every core this process may use].",
 )
 @click.option(
+    "--cds",
+    default=None,
+    callback=not_empty,
+    help="Gene models: write the spliced CDS of every mRNA to this file (FASTA) in the "
+    "output folder.",
+)
+@click.option(
+    "--proteins",
+    default=None,
+    callback=not_empty,
+    help="Gene models: write the translation of every mRNA to this file (FASTA) in the "
+    "output folder.",
+)
+@click.option(
+    "--translation-table",
+    type=int,
+    default=1,
+    show_default=True,
+    help="NCBI genetic code used for --proteins.",
+)
+@click.option(
     "--records",
     "records_list",
     default=None,

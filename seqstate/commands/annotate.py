@@ -61,6 +61,11 @@ class AnnotateOptions:
     stem: str | None = None
     #: threads: None = every core this process may use (clamped to 1 .. cores)
     jobs: int | None = None
+    #: gene models: file names (inside the output folder) of the spliced CDS (FASTA of
+    #: nucleotides) and of their translations (FASTA of amino acids), and the table used
+    cds: str | None = None
+    proteins: str | None = None
+    translation_table: int = 1
     #: --records/--records-file (issue 12): only these record IDs, kept in input order
     records: list[str] | None = None
 
@@ -242,6 +247,13 @@ def annotate(
         check_stem(opts.stem)
     if opts.records is not None and opts.region is not None:
         raise UsageError("--records cannot be combined with --region (a region names one)")
+    for option, name in (("--cds", opts.cds), ("--proteins", opts.proteins)):
+        if name is not None:
+            if to_stdout:
+                raise UsageError(f"{option} needs an output folder (not -o -)")
+            check_stem(name)  # a plain file name: it is written inside the output folder
+    if opts.cds is not None and opts.cds == opts.proteins:
+        raise UsageError(f"--cds and --proteins name the same file '{opts.cds}'")
     jobs, jobs_note = annotate_run.resolve_jobs(opts.jobs)
     model = load_model(opts.model)
     decode = opts.decode or model.decode
@@ -263,6 +275,14 @@ def annotate(
     if not groups:
         raise UsageError(f"model '{model.name}' has no labelled states: nothing to annotate")
     kind = kind_of(model)
+    if (opts.cds or opts.proteins) and kind.name != "genes":
+        raise UsageError(
+            f"--cds and --proteins need a gene model; model '{model.name}' has no genes"
+        )
+    if opts.cds or opts.proteins:
+        from seqstate.io.cds import check_table
+
+        check_table(opts.translation_table)
     want_bedgraph = opts.tracks in ("bedgraph", "both")
     want_bigwig = opts.tracks in ("bigwig", "both")
     if want_bigwig:
@@ -278,6 +298,7 @@ def annotate(
     stem = opts.stem if opts.stem is not None else input_stem(opts.input, region)
     if not to_stdout:
         names = output_names(stem, groups, want_bedgraph, want_bigwig)
+        names += [n for n in (opts.cds, opts.proteins) if n is not None]
         check_outputs([Path(opts.out_dir) / n for n in names], [opts.input], force=opts.force)
     if jobs_note:
         log.note(jobs_note)
@@ -322,6 +343,9 @@ def annotate(
         check_symbols=annotate_run.symbol_checker(model, opts.input),
         want_bedgraph=want_bedgraph,
         want_bigwig=want_bigwig,
+        want_cds=opts.cds is not None,
+        want_proteins=opts.proteins is not None,
+        translation_table=opts.translation_table,
     )
     try:
         _write(opts, model, runner, report, stem, region_item, skipped, long_above, stdout)
@@ -503,6 +527,9 @@ def _write_set(
         writer = OutputWriter(
             gff_target, scratch, tsv, bedgraphs, handles, bigwig_paths, opts.precision
         )
+        names += [extra for extra in (opts.cds, opts.proteins) if extra is not None]
+        writer.cds = outs.open_text(opts.cds) if opts.cds is not None else None
+        writer.proteins = outs.open_text(opts.proteins) if opts.proteins is not None else None
         try:
             if region_item is not None:
                 items: Iterator[Item] = iter([region_item])

@@ -22,7 +22,7 @@ from concurrent.futures import Future, ThreadPoolExecutor
 from concurrent.futures import TimeoutError as FutureTimeout
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import TextIO
+from typing import Any, TextIO
 
 import numpy as np
 
@@ -137,6 +137,8 @@ class RecordOutput:
     tsv: str = ""
     bedgraph: list[str] = field(default_factory=list)
     bigwig: list[tuple[np.ndarray, np.ndarray, np.ndarray]] = field(default_factory=list)
+    cds: str = ""
+    proteins: str = ""
 
 
 def bedgraph_text(seqid: str, values: np.ndarray, offset0: int, precision: int) -> str:
@@ -172,6 +174,24 @@ class Runner:
     check_symbols: Callable[[str, bytes, int], None] | None = None
     want_bedgraph: bool = False
     want_bigwig: bool = False
+    want_cds: bool = False
+    want_proteins: bool = False
+    translation_table: int = 1
+
+    def _gene_writer(
+        self, seqid: str, read: Callable[[int, int], bytes], offset0: int, cds: Any, prot: Any
+    ) -> Callable[[list[Any]], None] | None:
+        """The callback that writes a record's CDS and proteins (gene models), or None."""
+        if not (self.want_cds or self.want_proteins):
+            return None
+        from seqstate.io.cds import write_cds_and_proteins
+
+        def on_genes(genes: list[Any]) -> None:
+            write_cds_and_proteins(
+                genes, seqid, read, cds, prot, self.translation_table, offset0=offset0
+            )
+
+        return on_genes
 
     # ------------------------------------------------------------ one record
     def short_record(self, item: Item) -> RecordOutput:
@@ -208,6 +228,11 @@ class Runner:
         )
         gff_text = io.StringIO()
         tsv_text = io.StringIO()
+        cds_text = io.StringIO() if self.want_cds else None
+        prot_text = io.StringIO() if self.want_proteins else None
+        data.on_genes = self._gene_writer(
+            item.id, lambda a, b: seq[a:b], item.start0, cds_text, prot_text
+        )
         n_feat = self.kind.write_record(data, GFF3Writer(gff_text, body_only=True), tsv_text)
         del data
         out = RecordOutput(
@@ -220,6 +245,8 @@ class Runner:
             n_feat,
             gff_text.getvalue(),
             tsv_text.getvalue(),
+            cds=cds_text.getvalue() if cds_text is not None else "",
+            proteins=prot_text.getvalue() if prot_text is not None else "",
         )
         for g in range(len(groups)):
             values = post.values[:, g]
@@ -280,6 +307,7 @@ class Runner:
             split_unknown=self.split_unknown,
             threads=self.jobs,
             window=window_length(self.model, self.kind, self.groups),
+            on_genes=self._gene_writer(item.id, read_bases, start0, writer.cds, writer.proteins),
         )
 
         def track_sink(g: int, a: int, values: np.ndarray) -> None:
@@ -386,6 +414,8 @@ class OutputWriter:
             for i, p in enumerate(bigwig_paths)
         ]
         self.regions: list[tuple[str, int, int]] = []
+        self.cds: TextIO | None = None
+        self.proteins: TextIO | None = None
 
     def put(self, out: RecordOutput) -> RecordOutput:
         """Write one record's outputs (from the whole-record path)."""
@@ -396,6 +426,10 @@ class OutputWriter:
                 self._gff_body.write(out.gff)
         if out.tsv:
             self.tsv.write(out.tsv)
+        if out.cds and self.cds is not None:
+            self.cds.write(out.cds)
+        if out.proteins and self.proteins is not None:
+            self.proteins.write(out.proteins)
         for g, text in enumerate(out.bedgraph):
             self._bedgraph_handles[g].write(text)
         for g, runs in enumerate(out.bigwig):

@@ -14,6 +14,7 @@ Segments are 0-based half-open ``[start0, end0)`` on one record.
 from __future__ import annotations
 
 from abc import ABC, abstractmethod
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, TextIO
 
@@ -104,6 +105,8 @@ class RecordData:
     min_posterior: float
     min_length: int
     split_unknown: int
+    #: called with the record's decoded genes (gene kinds; for CDS and protein files)
+    on_genes: Callable[[list[Any]], None] | None = None
 
     @property
     def unknown(self) -> np.ndarray:

@@ -685,6 +685,8 @@ class _GeneStream:
         rec = self.rec
         rp = RecordPass(rec)
         genes = self.predictions(rp)
+        if rec.on_genes is not None:
+            rec.on_genes(genes)
         masks = gene_masks(rec.model)
         cols = {strand: strand_columns(rec.groups, strand) for strand in "+-"}
         n_groups = len(rec.groups)
@@ -740,6 +742,8 @@ class GeneKind(Kind):
         predictions = decode_genes(
             rec.model, rec.tables, rec.codes, rec.unknown, rec.decode, rec.split_unknown, rec.seqid
         )
+        if rec.on_genes is not None:
+            rec.on_genes(predictions)
         return write_genes(
             gff,
             tsv,

@@ -26,7 +26,7 @@ from __future__ import annotations
 
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, TextIO
+from typing import TYPE_CHECKING, Any, TextIO
 
 import numpy as np
 
@@ -91,6 +91,8 @@ class StreamRecord:
     threads: int = 1
     window: int = DEFAULT_WINDOW
     block: int | None = None
+    #: called with the record's decoded genes (gene kinds; for CDS and protein files)
+    on_genes: Callable[[list[Any]], None] | None = None
 
 
 @dataclass
