@@ -281,7 +281,7 @@ class BedGraphTrack:
             used = tracks_text.format_lines(
                 name_bytes, starts[lo:hi], ends[lo:hi], scaled[lo:hi], self._precision, out
             )
-            write(str(out[:used], "utf-8", "surrogatepass"))
+            write(str(out.data[:used], "utf-8", "surrogatepass"))
 
 
 def write_bedgraph(
