@@ -13,7 +13,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from seqstate.errors import OptionalDependencyError
-from seqstate.io import tracks
+from seqstate.io import tracks, tracks_text
 from seqstate.io.tracks import (
     BedGraphTrack,
     BigWigTrack,
@@ -407,3 +407,204 @@ def test_bigwig_pieces_must_not_go_back(tmp_path: Path) -> None:
         "a": ((0, 4, 0.0), (6, 8, 0.0)),
         "b": ((0, 5, 1.0),),
     }
+
+
+# ---------------------------------------------------------------- compiled text and rounding
+# Oracle: the plain-Python writer of seqstate kept beside the kernels
+# (tracks_text.format_lines_reference, tracks.runs_of_rounded_reference: the former
+# f-string and NumPy code); the kernels must give the same bytes and arrays.
+
+_name = st.text(
+    alphabet=st.characters(blacklist_categories=("Cs",), max_codepoint=0x2FF), max_size=12
+).map(tracks.escape_text)
+_scaled_int = st.integers(min_value=-(2**52) + 1, max_value=2**52 - 1)
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    _name,
+    st.lists(st.tuples(st.integers(0, 2**62), st.integers(0, 2**62), _scaled_int), max_size=30),
+    st.integers(min_value=0, max_value=9),
+)
+def test_format_lines_kernel_matches_python_text(
+    name: str, rows: list[tuple[int, int, int]], precision: int
+) -> None:
+    starts = np.array([r[0] for r in rows], dtype=np.int64)
+    ends = np.array([r[1] for r in rows], dtype=np.int64)
+    scaled = np.array([r[2] for r in rows], dtype=np.int64)
+    raw = name.encode("utf-8")
+    out = np.zeros(len(rows) * (len(raw) + tracks_text.LINE_EXTRA_BYTES) + 1, dtype=np.uint8)
+    out[:] = 0xFF  # bytes the kernel does not write stay visible
+    used = tracks_text.format_lines(
+        np.frombuffer(raw, dtype=np.uint8), starts, ends, scaled, precision, out
+    )
+    expected = tracks_text.format_lines_reference(name, starts, ends, scaled, precision)
+    assert out[:used].tobytes().decode("utf-8") == expected
+    assert np.all(out[used:] == 0xFF)
+
+
+def test_format_lines_extremes() -> None:
+    # The widest line the bound LINE_EXTRA_BYTES allows for: 19-digit coordinates and the
+    # largest |scaled| (2**52 - 1), negative, at every precision.
+    big = np.array([2**63 - 1], dtype=np.int64)
+    for precision in range(10):
+        for value in (-(2**52) + 1, 2**52 - 1, -1, 0, 1, 10**precision):
+            scaled = np.array([value], dtype=np.int64)
+            out = np.empty(tracks_text.LINE_EXTRA_BYTES, dtype=np.uint8)
+            used = tracks_text.format_lines(np.zeros(0, np.uint8), big, big, scaled, precision, out)
+            assert out[:used].tobytes().decode() == tracks_text.format_lines_reference(
+                "", big, big, scaled, precision
+            )
+    assert (
+        format_scaled(-1, 4) == "-0.0001" and format_scaled(-(2**52) + 1, 0) == "-4503599627370495"
+    )
+
+
+@st.composite
+def _near_tie(draw: st.DrawFn, precision: int, dtype: type) -> float:
+    """A value at, or a few representable steps from, a decimal tie (k + 0.5) / 10**p."""
+    k = draw(st.integers(min_value=-(10**5), max_value=10**5))
+    value = dtype((k + 0.5) / 10.0**precision)
+    for _ in range(draw(st.integers(min_value=0, max_value=3))):
+        value = np.nextafter(value, dtype(draw(st.sampled_from([-np.inf, np.inf]))))
+    return float(value)
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    st.integers(min_value=0, max_value=9),
+    st.sampled_from([np.float32, np.float64]),
+    st.integers(min_value=1, max_value=9),
+    st.data(),
+)
+def test_runs_kernel_matches_numpy_reference(
+    precision: int, dtype: type, block: int, data: st.DataObject
+) -> None:
+    value = st.one_of(
+        _special,
+        st.floats(min_value=-1e6, max_value=1e6, width=32 if dtype is np.float32 else 64),
+        _near_tie(precision, dtype),
+    )
+    runs = data.draw(st.lists(st.tuples(value, st.integers(1, 4)), min_size=1, max_size=40))
+    values = build(runs, dtype)
+    for size in (block, 1 << 18):
+        tracks._BLOCK = size
+        try:
+            got = runs_of_rounded(values, precision)
+            want = tracks.runs_of_rounded_reference(values, precision)
+        finally:
+            tracks._BLOCK = 1 << 18
+        for left, right in zip(got, want, strict=True):
+            assert left.dtype == np.int64
+            np.testing.assert_array_equal(left, right)
+    # Per base, the run value is Python's correctly rounded 'f' text (Python documentation,
+    # Format Specification Mini-Language; gh-99880), without '-0'.
+    starts, ends, scaled = got
+    texts = [format_scaled(v, precision) for v in np.repeat(scaled, ends - starts).tolist()]
+    assert texts == [expected_text(v, precision) for v in values.tolist()]
+
+
+def test_values_at_ties_of_every_precision() -> None:
+    # Every precision, values k/10**p + half a step, the doubles on either side of it, and
+    # their negatives: the kernel's text is Python's correctly rounded 'f' text (Python
+    # documentation, Format Specification Mini-Language; gh-99880).
+    for precision in range(10):
+        ties = (np.arange(-300, 300) + 0.5) / 10.0**precision
+        values = np.concatenate(
+            [ties, np.nextafter(ties, np.inf), np.nextafter(ties, -np.inf), [0.0, -0.0]]
+        )
+        buffer = io.StringIO()
+        write_bedgraph(buffer, "t", "d", [("c", values)], precision)
+        _, rows = parse_bedgraph(buffer.getvalue())
+        assert expand(rows, "c") == [expected_text(v, precision) for v in values.tolist()]
+        scaled = np.empty(values.shape[0], np.int64)
+        ties = np.empty(values.shape[0], np.int64)
+        status, n_ties = tracks_text.scale_block(values, 10.0**precision, scaled, ties)
+        assert status == tracks_text.OK and n_ties > 0  # the exact tie rule was used
+
+
+def reference_bedgraph(chunks: list[tuple[str, np.ndarray]], precision: int) -> str:
+    """The bedGraph body of the plain-Python writer of seqstate (whole records)."""
+    return "".join(
+        tracks_text.format_lines_reference(
+            tracks.escape_text(seqid),
+            *tracks.runs_of_rounded_reference(values, precision),
+            precision,
+        )
+        for seqid, values in chunks
+    )
+
+
+def test_many_runs_match_the_python_writer() -> None:
+    # More runs than one write formats (_LINES) and more than one rounding block (_BLOCK).
+    rng = np.random.default_rng(11)
+    n = (1 << 18) + 150_000
+    values = np.repeat(rng.normal(0.0, 2.0, size=n // 2), 2)[:n]
+    values[rng.integers(0, n, size=1000)] = 0.5e-4  # ties at precision 4
+    chunks = [("rec\t1", values), ("rec2", values[::3].astype(np.float32))]
+    for precision in (0, 4, 9):
+        buffer = io.StringIO()
+        write_bedgraph(buffer, "t", "d", chunks, precision)
+        body = buffer.getvalue().split("\n", 1)[1]
+        assert body == reference_bedgraph(chunks, precision)
+        assert body.count("\n") > tracks._LINES
+
+
+@settings(max_examples=60, deadline=None)
+@given(records_strategy(), st.integers(0, 9), st.integers(1, 5), st.integers(1, 200), st.data())
+def test_small_writes_give_the_python_writer_bytes(
+    records: list[list[tuple[float, int]]],
+    precision: int,
+    lines: int,
+    text_bytes: int,
+    data: st.DataObject,
+) -> None:
+    names = data.draw(st.lists(_name, min_size=len(records), max_size=len(records)))
+    chunks = [(name, build(runs, np.float64)) for name, runs in zip(names, records, strict=True)]
+    old = tracks._LINES, tracks._TEXT_BYTES
+    tracks._LINES, tracks._TEXT_BYTES = lines, text_bytes
+    try:
+        buffer = io.StringIO()
+        write_bedgraph(buffer, "t", "d", chunks, precision)
+    finally:
+        tracks._LINES, tracks._TEXT_BYTES = old
+    assert buffer.getvalue().split("\n", 1)[1] == reference_bedgraph(chunks, precision)
+
+
+def test_strided_and_other_dtypes_give_the_same_runs() -> None:
+    rng = np.random.default_rng(2)
+    table = rng.random((5000, 3)).round(2)
+    column = table[:, 1]  # a strided view, as a posterior column is
+    assert not column.flags.c_contiguous
+    for values in (column, column.astype(np.float16), (column * 100).astype(np.int32)):
+        for left, right in zip(
+            runs_of_rounded(values, 3),
+            tracks.runs_of_rounded_reference(np.ascontiguousarray(values), 3),
+            strict=True,
+        ):
+            np.testing.assert_array_equal(left, right)
+
+
+def test_poisoned_work_buffers_change_nothing() -> None:
+    from seqstate.engine import buffers
+
+    rng = np.random.default_rng(4)
+    values = np.repeat(rng.random(3000).round(3), rng.integers(1, 5, size=3000))
+    plain = io.StringIO()
+    write_bedgraph(plain, "t", "d", [("c", values)], 3)
+    with buffers.poisoning():
+        poisoned = io.StringIO()
+        write_bedgraph(poisoned, "t", "d", [("c", values)], 3)
+    assert poisoned.getvalue() == plain.getvalue()
+
+
+def test_values_too_large_for_the_precision_are_rejected() -> None:
+    with pytest.raises(ValueError, match="too large to round at this precision"):
+        runs_of_rounded(np.array([0.5, 2.0**52]), 0)
+    # A finite value whose product overflows to infinity is too large, not "not finite".
+    with pytest.raises(ValueError, match="too large to round at this precision"):
+        runs_of_rounded(np.array([1e305]), 9)
+    # Within one block a non-finite value is named first, wherever it is.
+    with pytest.raises(ValueError, match="position 2 is inf, not a finite number"):
+        runs_of_rounded(np.array([1e300, 0.5, np.inf]), 9)
+    assert runs_of_rounded(np.array([2.0**52 - 1]), 0)[2].tolist() == [2**52 - 1]

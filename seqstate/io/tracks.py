@@ -27,7 +27,10 @@ from typing import Any, TextIO
 
 import numpy as np
 
+from seqstate.engine.buffers import work_buffer
 from seqstate.errors import OptionalDependencyError
+from seqstate.io import tracks_text
+from seqstate.io.tracks_text import format_scaled
 
 __all__ = [
     "BedGraphTrack",
@@ -42,9 +45,9 @@ __all__ = [
 
 _MAX_PRECISION = 9
 _BLOCK = 1 << 18  # bases scaled at once, to bound memory on long records
-_LINES = 1 << 16  # bedGraph lines formatted per write
+_LINES = 1 << 16  # bedGraph lines formatted per write (fewer for long record IDs)
+_TEXT_BYTES = 1 << 22  # bound of the text buffer of one write
 _ENTRIES = 1 << 20  # bigWig entries per addEntries call
-_TIE_TOLERANCE = 1e-6
 #: bigWig size estimate (bytes): a fixed part, then per merged run the data
 #: record (12 bytes: start, end, value, uncompressed) plus room for the zoom levels
 #: and index written at close, which the writer library keeps in memory and flushes
@@ -70,35 +73,6 @@ def _check_precision(precision: int) -> None:
         raise ValueError(f"precision must be a whole number 0..{_MAX_PRECISION}, not {precision!r}")
 
 
-def _exact_scaled(value: float, precision: int) -> int:
-    text = f"{value:.{precision}f}"
-    return int(text.replace(".", ""))
-
-
-def _scale_block(block: np.ndarray, precision: int, offset0: int = 0) -> np.ndarray:
-    x = block.astype(np.float64, copy=False)
-    y = x * 10.0**precision
-    magnitude = np.abs(y)
-    top = float(np.max(magnitude))
-    if not np.isfinite(top):
-        bad = int(np.flatnonzero(~np.isfinite(x))[0])
-        raise ValueError(
-            f"value at 0-based position {offset0 + bad} is {x[bad]!r}, not a finite number"
-        )
-    if top >= 2.0**52:
-        raise ValueError("values too large to round at this precision")
-    scaled = np.rint(y)
-    # Near a tie (fraction close to .5) the product x * 10**precision may have
-    # rounded across the tie; decide those few exactly from the decimal text.
-    y -= scaled
-    np.abs(y, out=y)
-    magnitude *= 4e-16
-    magnitude += 0.5 - _TIE_TOLERANCE
-    for i in np.flatnonzero(y > magnitude).tolist():
-        scaled[i] = _exact_scaled(float(x[i]), precision)
-    return scaled.astype(np.int64)
-
-
 def runs_of_rounded(
     values: np.ndarray, precision: int
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -107,8 +81,59 @@ def runs_of_rounded(
     ``values`` is 1-D.  Run ``k`` covers bases ``starts0[k] .. ends0[k]-1``
     (0-based half-open) whose values all round to ``scaled_ints[k] /
     10**precision``.  Adjacent runs always differ.  All three arrays are int64.
-    Raises ``ValueError`` for a non-finite value or a bad precision.
+    Raises ``ValueError`` for a non-finite value, a value too large to round at
+    ``precision``, or a bad precision.  The values are rounded and merged
+    ``_BLOCK`` bases at a time by compiled kernels that release the GIL; only the
+    rare values near a tie are decided in Python (see
+    :mod:`seqstate.io.tracks_text`).
     """
+    _check_precision(precision)
+    arr = np.asarray(values)
+    if arr.ndim != 1:
+        raise ValueError(f"values must be 1-D, not of shape {arr.shape}")
+    if arr.dtype not in (np.float32, np.float64):
+        arr = arr.astype(np.float64)
+    n = arr.shape[0]
+    empty = np.zeros(0, dtype=np.int64)
+    if n == 0:
+        return empty, empty.copy(), empty.copy()
+    size = min(n, _BLOCK)
+    q = work_buffer(size, np.int64)
+    ties = work_buffer(size, np.int64)
+    block_starts = work_buffer(size, np.int64)
+    block_values = work_buffer(size, np.int64)
+    scale = 10.0**precision
+    breaks: list[np.ndarray] = []
+    run_values: list[np.ndarray] = []
+    previous = 0
+    for lo in range(0, n, _BLOCK):
+        block = arr[lo : lo + _BLOCK]
+        m = block.shape[0]
+        status, n_ties = tracks_text.scale_block(block, scale, q, ties)
+        if status == tracks_text.TOO_LARGE:
+            raise ValueError("values too large to round at this precision")
+        if status != tracks_text.OK:
+            bad = float(block[status])
+            raise ValueError(
+                f"value at 0-based position {lo + status} is {bad!r}, not a finite number"
+            )
+        for i in ties[:n_ties].tolist():
+            q[i] = tracks_text.exact_scaled(float(block[i]), precision)
+        k = tracks_text.block_breaks(q, m, previous, lo > 0, lo, block_starts, block_values)
+        breaks.append(block_starts[:k].copy())
+        run_values.append(block_values[:k].copy())
+        previous = int(q[m - 1])
+    starts = np.concatenate(breaks)
+    ends = np.empty_like(starts)
+    ends[:-1] = starts[1:]
+    ends[-1] = n
+    return starts, ends, np.concatenate(run_values)
+
+
+def runs_of_rounded_reference(
+    values: np.ndarray, precision: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Plain-NumPy reference of :func:`runs_of_rounded` (same result, same errors)."""
     _check_precision(precision)
     arr = np.asarray(values)
     if arr.ndim != 1:
@@ -121,12 +146,10 @@ def runs_of_rounded(
     run_values: list[np.ndarray] = []
     previous: int | None = None
     for lo in range(0, n, _BLOCK):
-        q = _scale_block(arr[lo : lo + _BLOCK], precision, lo)
-        inner = np.flatnonzero(q[1:] != q[:-1]) + 1
-        if previous is None or int(q[0]) != previous:
-            inner = np.concatenate(([0], inner))
-        breaks.append(inner + lo)
-        run_values.append(q[inner])
+        q = tracks_text.scale_block_reference(arr[lo : lo + _BLOCK], precision, lo)
+        block_starts, block_values = tracks_text.block_breaks_reference(q, previous, lo)
+        breaks.append(block_starts)
+        run_values.append(block_values)
         previous = int(q[-1])
     starts = np.concatenate(breaks).astype(np.int64)
     ends = np.empty_like(starts)
@@ -135,14 +158,13 @@ def runs_of_rounded(
     return starts, ends, np.concatenate(run_values).astype(np.int64)
 
 
-def format_scaled(scaled: int, precision: int) -> str:
-    """Text of ``scaled / 10**precision`` with exactly ``precision`` decimals, no '-0'."""
-    sign = "-" if scaled < 0 else ""
-    magnitude = abs(int(scaled))
-    if precision == 0:
-        return f"{sign}{magnitude}"
-    whole, part = divmod(magnitude, 10**precision)
-    return f"{sign}{whole}.{part:0{precision}d}"
+def _one_run(start0: int, end0: int, scaled: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """One run as the three int64 arrays :meth:`BedGraphTrack._write` takes."""
+    return (
+        np.array([start0], dtype=np.int64),
+        np.array([end0], dtype=np.int64),
+        np.array([scaled], dtype=np.int64),
+    )
 
 
 def _track_text(value: str) -> str:
@@ -175,7 +197,6 @@ class BedGraphTrack:
         _check_precision(precision)
         self._handle = handle
         self._precision = precision
-        self._texts: dict[int, str] = {}
         #: the held run: (escaped seqid, seqid, start0, end0, scaled value)
         self._held: tuple[str, str, int, int, int] | None = None
         self._closed = False
@@ -207,10 +228,10 @@ class BedGraphTrack:
             if held[1] == seqid and held[3] == int(starts[0]) and held[4] == int(scaled[0]):
                 starts[0] = held[2]  # the held run goes on in this piece
             else:
-                self._write(held[0], np.array([held[2]]), np.array([held[3]]), [held[4]])
+                self._write(held[0], *_one_run(held[2], held[3], held[4]))
         name = escape_text(seqid)
         last = starts.shape[0] - 1
-        self._write(name, starts[:last], ends[:last], scaled[:last].tolist())
+        self._write(name, starts[:last], ends[:last], scaled[:last])
         self._held = (name, seqid, int(starts[last]), int(ends[last]), int(scaled[last]))
 
     def end_record(self, seqid: str | None = None) -> None:
@@ -221,7 +242,7 @@ class BedGraphTrack:
         """
         held, self._held = self._held, None
         if held is not None:
-            self._write(held[0], np.array([held[2]]), np.array([held[3]]), [held[4]])
+            self._write(held[0], *_one_run(held[2], held[3], held[4]))
 
     def close(self) -> None:
         """Write the held run and refuse further values; ``handle`` stays open."""
@@ -236,25 +257,31 @@ class BedGraphTrack:
         if exc_type is None:
             self.close()
 
-    def _write(self, name: str, starts: np.ndarray, ends: np.ndarray, scaled: list[int]) -> None:
-        """Write runs (record coordinates) as lines, ``_LINES`` lines a write."""
-        texts = self._texts
-        if len(texts) > _LINES:
-            texts.clear()  # bounded: a record may hold many distinct values
+    def _write(self, name: str, starts: np.ndarray, ends: np.ndarray, scaled: np.ndarray) -> None:
+        """Write runs (record coordinates) as lines, at most ``_LINES`` lines a write.
+
+        The text is made by a compiled kernel that releases the GIL; ``name`` (the
+        escaped record ID) goes in as its UTF-8 bytes and the lines come back as
+        the same characters.
+        """
+        k = starts.shape[0]
+        if k == 0:
+            return
+        raw = name.encode("utf-8", "surrogatepass")
+        name_bytes = np.frombuffer(raw, dtype=np.uint8)
+        line_bytes = len(raw) + tracks_text.LINE_EXTRA_BYTES
+        per_write = max(1, min(_LINES, _TEXT_BYTES // line_bytes, k))
+        out = work_buffer(per_write * line_bytes, np.uint8)
+        starts = np.ascontiguousarray(starts, dtype=np.int64)
+        ends = np.ascontiguousarray(ends, dtype=np.int64)
+        scaled = np.ascontiguousarray(scaled, dtype=np.int64)
         write = self._handle.write
-        for lo in range(0, len(scaled), _LINES):
-            hi = lo + _LINES
-            block_scaled = scaled[lo:hi]
-            for v in set(block_scaled) - texts.keys():
-                texts[v] = format_scaled(v, self._precision)
-            write(
-                "".join(
-                    f"{name}\t{s}\t{e}\t{texts[v]}\n"
-                    for s, e, v in zip(
-                        starts[lo:hi].tolist(), ends[lo:hi].tolist(), block_scaled, strict=True
-                    )
-                )
+        for lo in range(0, k, per_write):
+            hi = lo + per_write
+            used = tracks_text.format_lines(
+                name_bytes, starts[lo:hi], ends[lo:hi], scaled[lo:hi], self._precision, out
             )
+            write(str(out.data[:used], "utf-8", "surrogatepass"))
 
 
 def write_bedgraph(
