@@ -420,12 +420,14 @@ def test_a_failing_reader_stops_both_passes(random_model, kernel_switch):
             if a % 10 == 0:  # a forward chunk (the backward ones start at 5 modulo 10)
                 forward.append(a)
                 time.sleep(0.005)
-            if (a, b) == (195, 205):
+            if (a, b) == (195, 205):  # half way down the backward pass
                 raise OSError("disk gone")
             return codes[a:b]
 
         with kernel_switch("specialised"):
             with pytest.raises(OSError, match="disk gone"):
                 stream.checkpoints(t, n, read, block=BLOCK, chunk=10, threads=threads)
-        # one thread: the backward pass runs first and fails before any forward chunk
-        assert len(forward) < (1 if threads == 1 else 20)
+        # one thread: the backward pass runs first and fails before any forward chunk;
+        # two: the forward pass stops early, not after all 41 chunks (how early depends
+        # on how busy the machine is, so only "not all" is asserted)
+        assert len(forward) < (1 if threads == 1 else 41)
