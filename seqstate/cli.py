@@ -622,5 +622,44 @@ def compare_cmd(
         click.echo(f"seqstate: {'; '.join(parts)} -> {out or 'stdout'}", err=True)
 
 
+# ---------------------------------------------------------------- calibrate
+@main.command("calibrate")
+@click.argument("model")
+@click.option(
+    "--length", type=int, default=200_000, show_default=True, help="Bases per sampled record."
+)
+@click.option("--records", type=int, default=10, show_default=True, help="Records to sample.")
+@click.option("--seed", type=int, default=0, show_default=True, help="Random seed, 0 or more.")
+@click.option("--bins", type=int, default=10, show_default=True, help="Probability bins.")
+@click.option(
+    "--fasta",
+    default=None,
+    callback=not_empty,
+    help="Calibrate on these sequences instead of samples (needs --truth).",
+)
+@click.option(
+    "--truth",
+    default=None,
+    callback=not_empty,
+    help="Trusted features of --fasta (GFF3, BED or GTF; types are model labels).",
+)
+@click.option(
+    "-o", "--out", "out", default=None, callback=not_empty, help="Report file, .tsv or .json."
+)
+@click.option(
+    "--figure",
+    default=None,
+    callback=not_empty,
+    help="Reliability diagram, .png, .svg or .pdf (needs matplotlib).",
+)
+@force_option
+@quiet_option
+def calibrate_cmd(quiet: bool, **options: Any) -> None:
+    """How well MODEL's posteriors match the truth: sampled, or --fasta with --truth."""
+    from seqstate.commands.calibrate import CalibrateOptions, calibrate
+
+    say(quiet, calibrate(CalibrateOptions(**options), quiet=quiet).summary())
+
+
 if __name__ == "__main__":  # pragma: no cover
     main()
