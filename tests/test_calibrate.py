@@ -336,3 +336,21 @@ def test_segment_probability_is_what_is_binned() -> None:
     assert lab.features.sum_true.sum() == lab.n_correct
     assert all(0.0 <= v <= 1.0 for v in lab.features.sum_prob / np.maximum(lab.features.count, 1))
     assert math.isfinite(lab.features.brier())
+
+
+def test_chunked_accumulation_is_exact(monkeypatch: pytest.MonkeyPatch) -> None:
+    # adding in chunks gives the counts of one pass (the same code of seqstate, chunk 1<<20
+    # against a chunk of 7 forecasts)
+    from seqstate.commands import calibration
+
+    rng = np.random.default_rng(2)
+    p, y = rng.random(100), rng.random(100) < 0.3
+    whole = Reliability(10)
+    whole.add(p, y)
+    monkeypatch.setattr(calibration, "CHUNK", 7)
+    parts = Reliability(10)
+    parts.add(p, y)
+    assert np.array_equal(whole.count, parts.count)
+    assert np.allclose(whole.sum_prob, parts.sum_prob, rtol=1e-14)
+    assert np.array_equal(whole.sum_true, parts.sum_true)
+    assert parts.brier() == pytest.approx(whole.brier(), rel=1e-12)

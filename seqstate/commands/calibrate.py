@@ -84,13 +84,23 @@ TSV_COLUMNS = [
 class TruthRecord:
     """One record to calibrate on: its symbols and, per group, which bases truly carry it.
 
-    ``symbols`` are symbol indices (int8, -1 unknown), ``truth`` a boolean
-    ``N x groups`` array.
+    ``symbols`` are symbol indices (int8, -1 unknown).  The truth is either ``group``,
+    one group index per base (-1 for none; a sampled path, 2 bytes a base), or
+    ``truth``, a boolean ``N x groups`` array (an annotation, whose features may
+    overlap).
     """
 
     id: str
     symbols: np.ndarray
-    truth: np.ndarray
+    truth: np.ndarray | None = None
+    group: np.ndarray | None = None
+
+    def carries(self, k: int, start0: int = 0, end0: int | None = None) -> np.ndarray:
+        """Booleans: which bases of ``[start0, end0)`` truly carry group ``k``."""
+        if self.group is not None:
+            return self.group[start0:end0] == k
+        assert self.truth is not None
+        return self.truth[start0:end0, k]
 
 
 @dataclass
@@ -190,12 +200,9 @@ def sampled_records(
     rng = np.random.default_rng(seed)
     for r in range(records):
         path, sym = sample_record(tables, length, rng)
-        g = state_group[path]
+        g = state_group.astype(np.int16)[path]
         del path
-        truth = np.zeros((length, len(groups)), dtype=np.bool_)
-        for k in range(len(groups)):
-            truth[:, k] = g == k
-        yield TruthRecord(f"sim{r + 1}", sym, truth)
+        yield TruthRecord(f"sim{r + 1}", sym, group=g)
 
 
 def _state_group_for(model: Model, groups: list[Group]) -> np.ndarray:
@@ -322,7 +329,7 @@ def calibrate_records(
             record=rec.id,
         )
         for k, lab in enumerate(out):
-            lab.bases.add(post.values[:, k], rec.truth[:, k])
+            lab.bases.add(post.values[:, k], rec.carries(k))
         probs: list[list[float]] = [[] for _ in groups]
         right: list[list[bool]] = [[] for _ in groups]
         for seg in segs:
@@ -330,7 +337,7 @@ def calibrate_records(
                 tables, codes, post, seg.start0, seg.end0, masks[seg.group]
             )
             probs[seg.group].append(math.exp(lp) if lp > -math.inf else 0.0)
-            right[seg.group].append(bool(rec.truth[seg.start0 : seg.end0, seg.group].all()))
+            right[seg.group].append(bool(rec.carries(seg.group, seg.start0, seg.end0).all()))
         for k, lab in enumerate(out):
             if probs[k]:
                 lab.features.add(np.array(probs[k]), np.array(right[k]))
@@ -469,11 +476,12 @@ def _save_figure(fig: Any, path: Path, fmt: str) -> None:
 
     matplotlib = require_matplotlib()
     creator = f"seqstate {__version__}"
-    meta: dict[str, Any] = {
+    metas: dict[str, dict[str, Any]] = {
         "png": {"Software": creator},
         "svg": {"Creator": creator, "Date": None},
         "pdf": {"Creator": creator, "Producer": creator, "CreationDate": None},
-    }[fmt]
+    }
+    meta = metas[fmt]
     with matplotlib.rc_context({"svg.hashsalt": "seqstate", "svg.fonttype": "path"}):
         fig.savefig(str(path), format=fmt, dpi=100, metadata=meta)
 

@@ -25,7 +25,10 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["Reliability", "bin_of"]
+__all__ = ["CHUNK", "Reliability", "bin_of"]
+
+#: Forecasts handled at a time by :meth:`Reliability.add` (bounded scratch memory).
+CHUNK = 1 << 20
 
 
 def bin_of(prob: np.ndarray, bins: int) -> np.ndarray:
@@ -52,16 +55,23 @@ class Reliability:
         self.sum_true = np.zeros(self.bins, dtype=np.float64)
 
     def add(self, prob: np.ndarray, outcome: np.ndarray) -> None:
-        """Add forecasts ``prob`` (floats in [0, 1]) and their outcomes (bool or 0/1)."""
-        p = np.clip(np.asarray(prob, dtype=np.float64), 0.0, 1.0)
-        y = np.asarray(outcome, dtype=np.float64)
-        if p.shape != y.shape:
+        """Add forecasts ``prob`` (floats in [0, 1]) and their outcomes (bool or 0/1).
+
+        Worked through in chunks of :data:`CHUNK` forecasts, so the float64 scratch stays
+        small at any record length.
+        """
+        prob, outcome = np.asarray(prob), np.asarray(outcome)
+        if prob.shape != outcome.shape:
             raise ValueError("prob and outcome must have the same shape")
-        b = bin_of(p, self.bins)
-        self.count += np.bincount(b, minlength=self.bins)
-        self.sum_prob += np.bincount(b, weights=p, minlength=self.bins)
-        self.sum_true += np.bincount(b, weights=y, minlength=self.bins)
-        self.brier_sum += float(np.sum((p - y) ** 2))
+        prob, outcome = prob.reshape(-1), outcome.reshape(-1)
+        for lo in range(0, prob.shape[0], CHUNK):
+            p = np.clip(prob[lo : lo + CHUNK].astype(np.float64), 0.0, 1.0)
+            y = outcome[lo : lo + CHUNK].astype(np.float64)
+            b = bin_of(p, self.bins)
+            self.count += np.bincount(b, minlength=self.bins)
+            self.sum_prob += np.bincount(b, weights=p, minlength=self.bins)
+            self.sum_true += np.bincount(b, weights=y, minlength=self.bins)
+            self.brier_sum += float(np.sum((p - y) ** 2))
 
     @property
     def n(self) -> int:
