@@ -354,3 +354,11 @@ def test_chunked_accumulation_is_exact(monkeypatch: pytest.MonkeyPatch) -> None:
     assert np.allclose(whole.sum_prob, parts.sum_prob, rtol=1e-14)
     assert np.array_equal(whole.sum_true, parts.sum_true)
     assert parts.brier() == pytest.approx(whole.brier(), rel=1e-12)
+
+
+def test_truth_without_any_feature_on_the_records(tmp_path: Path) -> None:
+    fa, _ = sample_files(tmp_path, "casino", 500, 1, 1)
+    empty = tmp_path / "empty.gff3"
+    empty.write_text("##gff-version 3\n")
+    one_error(["calibrate", "casino", "--fasta", fa, "--truth", empty], 1, "nothing to calibrate")
+    one_error(["calibrate", "casino", "--fasta", fa, "--truth", tmp_path / "no.gff3"], 1, "no.gff3")
