@@ -200,3 +200,40 @@ def test_renders_in_chromium(page: str, tmp_path: Path) -> None:
     # the inline script ran: it filled in the row count
     m = re.search(r'<span id="feature-count">(\d+) of (\d+) shown</span>', dom)
     assert m and m.group(1) == m.group(2) == str(n_rows)
+
+
+@pytest.mark.skipif(_chromium() is None, reason="headless Chromium is not installed")
+def test_table_sorts_and_searches_in_chromium(run_files: tuple[dict, list[dict]], tmp_path: Path):
+    report, rows = run_files
+    buf = io.StringIO()
+    write_html_report(buf, report, rows, {})
+    # the page's own script, driven as a person would: click a heading, type a search
+    drive = (
+        "<script>(function(){var ths=document.querySelectorAll('#features th');"
+        "for(var i=0;i<ths.length;i++){if(ths[i].textContent==='segment_probability'){"
+        "ths[i].click();}}var s=document.getElementById('feature-search');s.value='sim2';"
+        "s.dispatchEvent(new Event('input'));})();</script></body>"
+    )
+    html_file = tmp_path / "driven.html"
+    html_file.write_text(buf.getvalue().replace("</body>", drive), encoding="utf-8")
+    base = [_chromium(), *CHROMIUM_FLAGS, f"--user-data-dir={tmp_path / 'profile'}"]
+    dom = subprocess.run(
+        [*base, "--dump-dom", html_file.as_uri()],
+        check=True,
+        capture_output=True,
+        timeout=120,
+        text=True,
+    ).stdout
+    table = dom.split('<table id="features">', 1)[1].split("</table>", 1)[0]
+    body = table.split("<tbody>", 1)[1]
+    trs = re.findall(r"<tr( hidden=\"\")?>(.*?)</tr>", body)
+    assert len(trs) == len(rows)
+    heads = re.findall(r">([a-z_0-9]+)</th>", table)
+    col = heads.index("segment_probability")
+    values = [float(re.findall(r'data-v="([^"]*)"', cells)[col]) for _, cells in trs]
+    assert values == sorted(values)  # ascending after one click
+    shown = [cells for hidden, cells in trs if not hidden]
+    expected = sum(1 for r in rows if "sim2" in "".join(str(v) for v in r.values()))
+    assert 0 < expected < len(rows)  # the search hides some rows and keeps others
+    assert len(shown) == expected and all("sim2" in cells for cells in shown)
+    assert 'aria-sort="ascending"' in table
