@@ -626,10 +626,10 @@ def compare_cmd(
 @main.command("calibrate")
 @click.argument("model")
 @click.option(
-    "--length", type=int, default=200_000, show_default=True, help="Bases per sampled record."
+    "--length", type=int, default=None, help="Bases per sampled record.  [default: 200000]"
 )
-@click.option("--records", type=int, default=10, show_default=True, help="Records to sample.")
-@click.option("--seed", type=int, default=0, show_default=True, help="Random seed, 0 or more.")
+@click.option("--records", type=int, default=None, help="Records to sample.  [default: 10]")
+@click.option("--seed", type=int, default=None, help="Random seed, 0 or more.  [default: 0]")
 @click.option("--bins", type=int, default=10, show_default=True, help="Probability bins.")
 @click.option(
     "--fasta",

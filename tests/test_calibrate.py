@@ -227,6 +227,7 @@ def test_cli_refuses_existing_output(tmp_path: Path) -> None:
         (["-o", "r.txt"], ".tsv, .json"),
         (["--figure", "f.gif"], ".png, .svg, .pdf"),
         (["--fasta", "x.fa"], "--fasta and --truth"),
+        (["--fasta", "x.fa", "--truth", "t.bed", "--seed", 1], "--seed only apply"),
     ],
 )
 def test_cli_bad_options(tmp_path: Path, extra: list, must: str) -> None:

@@ -58,6 +58,9 @@ __all__ = [
     "write_tsv",
 ]
 
+#: Sampled records and their length when the options do not say (2 Mbp in all).
+DEFAULT_LENGTH = 200_000
+DEFAULT_RECORDS = 10
 #: Most bases one record of a sampled calibration run may have (as ``sample``).
 MAX_RECORD_BASES = 250_000_000
 #: Most sampled records.
@@ -122,9 +125,10 @@ class CalibrateOptions:
     """Everything ``seqstate calibrate`` was asked to do."""
 
     model: str
-    length: int = 200_000
-    records: int = 10
-    seed: int = 0
+    #: sampling only (None: :data:`DEFAULT_LENGTH`, :data:`DEFAULT_RECORDS`, seed 0)
+    length: int | None = None
+    records: int | None = None
+    seed: int | None = None
     bins: int = 10
     out: str | None = None
     figure: str | None = None
@@ -498,6 +502,26 @@ def _suffix(name: str, allowed: tuple[str, ...], what: str) -> str:
 
 
 def _check(opts: CalibrateOptions) -> None:
+    if opts.fasta is not None:
+        given = [
+            name
+            for name, value in (
+                ("--length", opts.length),
+                ("--records", opts.records),
+                ("--seed", opts.seed),
+            )
+            if value is not None
+        ]
+        if given:
+            raise UsageError(
+                f"{', '.join(given)} only apply to sampled records: leave them out with --fasta"
+            )
+    if opts.length is None:
+        opts.length = DEFAULT_LENGTH
+    if opts.records is None:
+        opts.records = DEFAULT_RECORDS
+    if opts.seed is None:
+        opts.seed = 0
     if opts.length < 1:
         raise UsageError(f"--length {opts.length} must be at least 1")
     if opts.length > MAX_RECORD_BASES:
@@ -538,6 +562,7 @@ def calibrate(opts: CalibrateOptions, quiet: bool = True) -> CalibrateReport:
         labs, n_rec, n_bases = calibrate_records(model, recs, opts.bins, progress, total)
         report = CalibrateReport(model.name, "truth", n_rec, n_bases, opts.bins, None, labs)
     else:
+        assert opts.length is not None and opts.records is not None and opts.seed is not None
         it = sampled_records(model, opts.length, opts.records, opts.seed)
         total = opts.length * opts.records
         labs, n_rec, n_bases = calibrate_records(model, it, opts.bins, progress, total)
