@@ -31,9 +31,10 @@ from seqstate.engine import api
 from seqstate.io.tables import load_model
 from seqstate.model import Model
 
-#: 10 records of 200,000 bases = 2 Mbp per model, seed 1 (the issue's size; a run of the
-#: three models takes about 10 s here after the kernels are compiled).
-LENGTH, RECORDS, SEED = 200_000, 10, 1
+#: 10 records of 200,000 bases = 2 Mbp per model (the issue's size), seeds 1 and 2 (a run
+#: of the three models and both seeds takes about 10 s here after the kernels are compiled;
+#: seed 7 was also tried by hand and passes).
+LENGTH, RECORDS, SEEDS = 200_000, 10, (1, 2)
 #: The label whose stay probability the wrong models change, and the wrong value.
 WRONG = {"cpg-island": ("CpG_island", 0.9), "cpg-island-8": ("CpG_island", 0.9)}
 WRONG["casino"] = ("loaded", 0.5)
@@ -122,25 +123,26 @@ def test_empty_reliability() -> None:
 
 
 # ---------------------------------------------------------------- on samples
-def sampled(model: Model, decoder: Model | None = None):
+def sampled(model: Model, seed: int, decoder: Model | None = None):
     labs, n_rec, n_bases = calibrate_records(
-        decoder or model, sampled_records(model, LENGTH, RECORDS, SEED), 10
+        decoder or model, sampled_records(model, LENGTH, RECORDS, seed), 10
     )
     assert (n_rec, n_bases) == (RECORDS, LENGTH * RECORDS)
     return labs
 
 
+@pytest.mark.parametrize("seed", SEEDS)
 @pytest.mark.parametrize("name", ["cpg-island", "cpg-island-8", "casino"])
-def test_calibrated_on_own_samples_and_wrong_model_detected(name: str) -> None:
+def test_calibrated_on_own_samples_and_wrong_model_detected(name: str, seed: int) -> None:
     model = load_model(name)
-    right = sampled(model)
+    right = sampled(model, seed)
     label, stay = WRONG[name]
     (lab,) = [x for x in right if x.label == label]
-    # issue 14 target: ECE (Guo et al. 2017) at most 0.02 with 10 bins over 2 Mbp, seed 1
+    # issue 14 target: ECE (Guo et al. 2017) at most 0.02 with 10 bins over 2 Mbp
     assert lab.bases.n == LENGTH * RECORDS
     assert lab.bases.ece() <= 0.02
     assert lab.features.n == lab.n_features > 0
-    wrong = sampled(model, with_stay(model, label, stay))
+    wrong = sampled(model, seed, with_stay(model, label, stay))
     (bad,) = [x for x in wrong if x.label == label]
     # the wrong model, decoding the same samples: its base-level ECE (Guo et al. 2017) is at
     # least 10 times the right model's (our threshold; measured 37-165x), and its decoded
