@@ -237,3 +237,13 @@ def test_table_sorts_and_searches_in_chromium(run_files: tuple[dict, list[dict]]
     assert 0 < expected < len(rows)  # the search hides some rows and keeps others
     assert len(shown) == expected and all("sim2" in cells for cells in shown)
     assert 'aria-sort="ascending"' in table
+
+
+def test_density_shows_the_longest_records() -> None:
+    from seqstate.io.html_report import shown_records
+
+    recs = [(f"c{i}", 1000 + (i * 37) % 60) for i in range(60)]
+    shown = shown_records(recs, 40)
+    assert len(shown) == 40
+    assert [r for r in recs if r in shown] == shown  # input order kept
+    assert min(n for _, n in shown) >= max(n for r, n in recs if (r, n) not in shown)

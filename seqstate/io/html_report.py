@@ -25,6 +25,7 @@ __all__ = [
     "TOP_FEATURES",
     "build_report_figures",
     "inline_svg",
+    "shown_records",
     "write_html_report",
 ]
 
@@ -228,6 +229,12 @@ def _scores_figure(rows: Sequence[Mapping[str, Any]]) -> Any:
     return fig
 
 
+def shown_records(records: list[tuple[str, int]], most: int = 40) -> list[tuple[str, int]]:
+    """The ``most`` longest records (ties: the first), in input order: the density bars."""
+    longest = sorted(range(len(records)), key=lambda i: (-records[i][1], i))[:most]
+    return [records[i] for i in sorted(longest)]
+
+
 def _density_figure(rows: Sequence[Mapping[str, Any]], records: list[tuple[str, int]]) -> Any:
     fig = _figure(6.4, 3.6)
     ax = fig.add_subplot(1, 1, 1)
@@ -235,7 +242,7 @@ def _density_figure(rows: Sequence[Mapping[str, Any]], records: list[tuple[str, 
     for row in rows:
         sid = str(row.get("seqid"))
         counts[sid] = counts.get(sid, 0) + 1
-    shown = records[:40]
+    shown = shown_records(records)
     if not shown:
         _empty_note(ax, "no records")
     else:
@@ -244,7 +251,7 @@ def _density_figure(rows: Sequence[Mapping[str, Any]], records: list[tuple[str, 
         ax.set_xticks(range(len(shown)))
         ax.set_xticklabels([rid for rid, _ in shown], rotation=60, ha="right", fontsize="x-small")
         ax.set_ylabel("features per Mbp")
-        more = f" (first {len(shown)} of {len(records)})" if len(records) > len(shown) else ""
+        more = f" ({len(shown)} longest of {len(records)})" if len(records) > len(shown) else ""
         ax.set_xlabel(f"record{more}")
     fig.tight_layout()
     return fig
