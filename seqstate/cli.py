@@ -297,6 +297,18 @@ def model_check(model: str) -> None:
     "output folder.",
 )
 @click.option(
+    "--report",
+    default=None,
+    callback=not_empty,
+    help="Also write a self-contained HTML page of the run to this file in the output folder.",
+)
+@click.option(
+    "--truth",
+    default=None,
+    callback=not_empty,
+    help="With --report: a trusted annotation (GFF3, GTF or BED) for its calibration figure.",
+)
+@click.option(
     "--translation-table",
     type=int,
     default=1,
@@ -740,6 +752,45 @@ def merge_cmd(obj: dict | None, quiet: bool, **options: Any) -> None:
     options["reports"] = list(options["reports"])
     report = merge(MergeOptions(command_line=command_line(obj), **options))
     say(quiet, report.summary())
+
+
+# ---------------------------------------------------------------- calibrate
+@main.command("calibrate")
+@click.argument("model")
+@click.option(
+    "--length", type=int, default=None, help="Bases per sampled record.  [default: 200000]"
+)
+@click.option("--records", type=int, default=None, help="Records to sample.  [default: 10]")
+@click.option("--seed", type=int, default=None, help="Random seed, 0 or more.  [default: 0]")
+@click.option("--bins", type=int, default=10, show_default=True, help="Probability bins.")
+@click.option(
+    "--fasta",
+    default=None,
+    callback=not_empty,
+    help="Calibrate on these sequences instead of samples (needs --truth).",
+)
+@click.option(
+    "--truth",
+    default=None,
+    callback=not_empty,
+    help="Trusted features of --fasta (GFF3, BED or GTF; types are model labels).",
+)
+@click.option(
+    "-o", "--out", "out", default=None, callback=not_empty, help="Report file, .tsv or .json."
+)
+@click.option(
+    "--figure",
+    default=None,
+    callback=not_empty,
+    help="Reliability diagram, .png, .svg or .pdf (needs matplotlib).",
+)
+@force_option
+@quiet_option
+def calibrate_cmd(quiet: bool, **options: Any) -> None:
+    """How well MODEL's posteriors match the truth: sampled, or --fasta with --truth."""
+    from seqstate.commands.calibrate import CalibrateOptions, calibrate
+
+    say(quiet, calibrate(CalibrateOptions(**options), quiet=quiet).summary())
 
 
 if __name__ == "__main__":  # pragma: no cover

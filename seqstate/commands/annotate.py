@@ -17,7 +17,7 @@ from collections.abc import Iterator
 from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from types import SimpleNamespace
-from typing import Any, TextIO
+from typing import Any, TextIO, cast
 
 from seqstate import __version__, log
 from seqstate.commands import annotate_run
@@ -66,6 +66,10 @@ class AnnotateOptions:
     cds: str | None = None
     proteins: str | None = None
     translation_table: int = 1
+    #: a self-contained HTML page of the run (file name inside the output folder), and a
+    #: trusted annotation whose calibration figure it shows
+    report: str | None = None
+    truth: str | None = None
     #: --records/--records-file (issue 12): only these record IDs, kept in input order
     records: list[str] | None = None
 
@@ -252,6 +256,15 @@ def annotate(
             if to_stdout:
                 raise UsageError(f"{option} needs an output folder (not -o -)")
             check_stem(name)  # a plain file name: it is written inside the output folder
+    if opts.report is not None:
+        if to_stdout:
+            raise UsageError("--report needs an output folder (not -o -)")
+        check_stem(opts.report)
+    if opts.truth is not None and opts.report is None:
+        raise UsageError("--truth gives the calibration figure of --report: give --report too")
+    extras = [n for n in (opts.cds, opts.proteins, opts.report) if n is not None]
+    if len(set(extras)) < len(extras):
+        raise UsageError("--cds, --proteins and --report must name different files")
     if opts.cds is not None and opts.cds == opts.proteins:
         raise UsageError(f"--cds and --proteins name the same file '{opts.cds}'")
     jobs, jobs_note = annotate_run.resolve_jobs(opts.jobs)
@@ -298,7 +311,7 @@ def annotate(
     stem = opts.stem if opts.stem is not None else input_stem(opts.input, region)
     if not to_stdout:
         names = output_names(stem, groups, want_bedgraph, want_bigwig)
-        names += [n for n in (opts.cds, opts.proteins) if n is not None]
+        names += [n for n in (opts.cds, opts.proteins, opts.report) if n is not None]
         check_outputs([Path(opts.out_dir) / n for n in names], [opts.input], force=opts.force)
     if jobs_note:
         log.note(jobs_note)
@@ -507,6 +520,8 @@ def _write_set(
         else:
             gff_target = outs.open_text(gff_name)
             tsv = outs.open_text(tsv_name)
+        if opts.report is not None:
+            tsv = cast(TextIO, _Tee(tsv))
         tsv.write("\t".join(runner.kind.feature_columns(groups)) + "\n")
         bedgraphs = []
         handles = []
@@ -527,7 +542,7 @@ def _write_set(
         writer = OutputWriter(
             gff_target, scratch, tsv, bedgraphs, handles, bigwig_paths, opts.precision
         )
-        names += [extra for extra in (opts.cds, opts.proteins) if extra is not None]
+        names += [extra for extra in (opts.cds, opts.proteins, opts.report) if extra is not None]
         writer.cds = outs.open_text(opts.cds) if opts.cds is not None else None
         writer.proteins = outs.open_text(opts.proteins) if opts.proteins is not None else None
         try:
@@ -555,6 +570,9 @@ def _write_set(
         report.skipped_records = [SkippedReport(sk.id, sk.line0 + 1, sk.reason) for sk in skipped]
         if not to_stdout:
             report.outputs = sorted(names + [f"{stem}.run.json"])
+            if opts.report is not None and isinstance(tsv, _Tee):
+                with outs.open_text(opts.report) as fh:
+                    _write_html(fh, opts, report, tsv.text())
             with outs.open_text(f"{stem}.run.json") as fh:
                 json.dump(report.to_dict(), fh, indent=2, sort_keys=False)
                 fh.write("\n")
@@ -582,3 +600,42 @@ def _close(records: Iterator[SequenceRecord]) -> None:
     close = getattr(records, "close", None)
     if close is not None:
         close()
+
+
+class _Tee:
+    """A text output that also keeps what was written (the feature table, for --report)."""
+
+    def __init__(self, handle: TextIO) -> None:
+        self._handle = handle
+        self._parts: list[str] = []
+
+    def write(self, text: str) -> int:
+        self._parts.append(text)
+        return self._handle.write(text)
+
+    def text(self) -> str:
+        return "".join(self._parts)
+
+
+def _write_html(handle: TextIO, opts: AnnotateOptions, report: AnnotateReport, tsv: str) -> None:
+    """The HTML page of the run: summary, figures, top features (and the calibration figure
+    against ``--truth``)."""
+    import csv
+
+    from seqstate.io.html_report import build_report_figures, write_html_report
+
+    rows = list(csv.DictReader(io.StringIO(tsv), delimiter="\t"))
+    doc = report.to_dict()
+    figures = build_report_figures(rows, doc["records"])
+    calibration = None
+    if opts.truth is not None:
+        from seqstate.commands.calibrate import (
+            CalibrateOptions,
+            calibrate,
+            figure_svg,
+            reliability_figure,
+        )
+
+        calibration = calibrate(CalibrateOptions(opts.model, fasta=opts.input, truth=opts.truth))
+        figures["calibration"] = figure_svg(reliability_figure(calibration))
+    write_html_report(handle, doc, rows, figures, calibration)

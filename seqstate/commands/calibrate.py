@@ -1,0 +1,583 @@
+"""``seqstate calibrate``: do a model's posteriors mean what they say?
+
+Two sources of truth:
+
+- *sampled* (default): records drawn from the model with their true state paths
+  (:mod:`seqstate.engine.sampling`, as ``seqstate sample`` draws them).  A model is
+  calibrated on its own samples by construction, so this checks the engine's numbers;
+  :func:`sampled_records` can draw from one model while another decodes (a wrong model
+  must then show up as miscalibrated).
+- *a trusted annotation*: ``--fasta SEQS --truth KNOWN.gff3|bed|gtf``; features whose
+  type is a label of the model mark the bases truly in that label.
+
+Per track group (label, strand) two reliability tables (:mod:`.calibration`):
+``bases`` (each base's posterior of the group against whether it truly carries the
+group) and ``features`` (each decoded feature's ``segment_probability`` against
+whether every base of its run truly carries the group).  Features are decoded as
+``annotate`` decodes them with the model's own defaults.  Coordinates: 0-based
+half-open inside.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import math
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from seqstate import log
+from seqstate.commands.calibration import Reliability
+from seqstate.commands.inputs import model_inputs, read_model_records
+from seqstate.engine import api
+from seqstate.engine.sampling import sample_record
+from seqstate.errors import FeatureFormatError, UsageError
+from seqstate.io.atomic import OutputSet, check_outputs
+from seqstate.io.intervals import read_interval_file
+from seqstate.io.tables import load_model
+from seqstate.kinds import Group, group_index, track_groups
+from seqstate.kinds.segments import decode_segments
+from seqstate.model import Model
+from seqstate.model.core import default_thresholds
+
+__all__ = [
+    "CalibrateOptions",
+    "CalibrateReport",
+    "LabelCalibration",
+    "TruthRecord",
+    "calibrate",
+    "calibrate_records",
+    "file_records",
+    "reliability_figure",
+    "sampled_records",
+    "write_json",
+    "write_tsv",
+]
+
+#: Sampled records and their length when the options do not say (2 Mbp in all).
+DEFAULT_LENGTH = 200_000
+DEFAULT_RECORDS = 10
+#: Most bases one record of a sampled calibration run may have (as ``sample``).
+MAX_RECORD_BASES = 250_000_000
+#: Most sampled records.
+MAX_RECORDS = 1_000_000
+#: Most bins of a reliability table.
+MAX_BINS = 1000
+REPORT_FORMATS = ("tsv", "json")
+FIGURE_FORMATS = ("png", "svg", "pdf")
+#: Columns of the TSV report (one row per bin, then one ``all`` row per table).
+TSV_COLUMNS = [
+    "label",
+    "forecast",
+    "bin_low",
+    "bin_high",
+    "count",
+    "mean_forecast",
+    "fraction_true",
+    "ece",
+    "brier",
+]
+
+
+@dataclass
+class TruthRecord:
+    """One record to calibrate on: its symbols and, per group, which bases truly carry it.
+
+    ``symbols`` are symbol indices (int8, -1 unknown).  The truth is either ``group``,
+    one group index per base (-1 for none; a sampled path, 2 bytes a base), or
+    ``truth``, a boolean ``N x groups`` array (an annotation, whose features may
+    overlap).
+    """
+
+    id: str
+    symbols: np.ndarray
+    truth: np.ndarray | None = None
+    group: np.ndarray | None = None
+
+    def carries(self, k: int, start0: int = 0, end0: int | None = None) -> np.ndarray:
+        """Booleans: which bases of ``[start0, end0)`` truly carry group ``k``."""
+        if self.group is not None:
+            return self.group[start0:end0] == k
+        assert self.truth is not None
+        return self.truth[start0:end0, k]
+
+
+@dataclass
+class LabelCalibration:
+    """The two reliability tables of one track group."""
+
+    track: str
+    label: str
+    strand: str | None
+    bases: Reliability
+    features: Reliability
+    #: decoded features, and those whose whole run is truly the group
+    n_features: int = 0
+    n_correct: int = 0
+
+
+@dataclass
+class CalibrateOptions:
+    """Everything ``seqstate calibrate`` was asked to do."""
+
+    model: str
+    #: sampling only (None: :data:`DEFAULT_LENGTH`, :data:`DEFAULT_RECORDS`, seed 0)
+    length: int | None = None
+    records: int | None = None
+    seed: int | None = None
+    bins: int = 10
+    out: str | None = None
+    figure: str | None = None
+    fasta: str | None = None
+    truth: str | None = None
+    force: bool = False
+
+
+@dataclass
+class CalibrateReport:
+    """What a calibration run measured."""
+
+    model: str
+    source: str  # "sampled" or "truth"
+    records: int
+    bases: int
+    bins: int
+    seed: int | None
+    labels: list[LabelCalibration] = field(default_factory=list)
+    out: str | None = None
+    figure: str | None = None
+
+    def summary(self) -> str:
+        """The summary line (after ``seqstate: ``)."""
+        parts = []
+        for lab in self.labels:
+            ece = lab.bases.ece()
+            parts.append(f"{lab.track} ECE {'NA' if ece is None else f'{ece:.4f}'}")
+        dest = ", ".join(p for p in (self.out, self.figure) if p) or "no file"
+        return (
+            f"{self.records} {self.source} record(s), {self.bases} bases, "
+            f"{'; '.join(parts) or 'no label'} -> {dest}"
+        )
+
+    def to_dict(self) -> dict[str, Any]:
+        """The report as plain data (the JSON report)."""
+        return {
+            "model": self.model,
+            "source": self.source,
+            "records": self.records,
+            "bases": self.bases,
+            "bins": self.bins,
+            "seed": self.seed,
+            "labels": [
+                {
+                    "track": lab.track,
+                    "label": lab.label,
+                    "strand": lab.strand,
+                    "bases": lab.bases.summary(),
+                    "features": {
+                        "decoded": lab.n_features,
+                        "whole_run_correct": lab.n_correct,
+                        **lab.features.summary(),
+                    },
+                }
+                for lab in self.labels
+            ],
+        }
+
+
+# ---------------------------------------------------------------- truth sources
+def sampled_records(
+    model: Model, length: int, records: int, seed: int, groups: list[Group] | None = None
+) -> Iterator[TruthRecord]:
+    """Records drawn from ``model`` with their true paths, one at a time (``sim1``, ...).
+
+    Drawn exactly as ``seqstate sample`` draws them for the same seed (PCG64).
+    ``groups`` are the track groups the truth is given for (default: ``model``'s).
+    """
+    tables = api.prepare(model)
+    groups = track_groups(model) if groups is None else groups
+    state_group = _state_group_for(model, groups)
+    rng = np.random.default_rng(seed)
+    for r in range(records):
+        path, sym = sample_record(tables, length, rng)
+        g = state_group.astype(np.int16)[path]
+        del path
+        yield TruthRecord(f"sim{r + 1}", sym, group=g)
+
+
+def _state_group_for(model: Model, groups: list[Group]) -> np.ndarray:
+    """Per state of ``model``, the index in ``groups`` of its (label, strand), or -1."""
+    keys = {(grp.label, grp.strand): k for k, grp in enumerate(groups)}
+    return np.array(
+        [keys.get((s.label, s.strand), -1) if s.label else -1 for s in model.states],
+        dtype=np.int64,
+    )
+
+
+def _group_for(groups: list[Group], label: str, strand: str) -> int | None:
+    same = [k for k, grp in enumerate(groups) if grp.label == label]
+    if not same:
+        return None
+    if len(same) == 1:
+        return same[0]
+    for k in same:
+        if groups[k].strand == strand:
+            return k
+    return same[0]
+
+
+def file_records(model: Model, fasta: str, truth_path: str) -> list[TruthRecord]:
+    """The records of ``fasta`` with the truth of ``truth_path`` (BED, GFF3 or GTF).
+
+    Errors (:class:`~seqstate.errors.FeatureFormatError`, naming file and line): a
+    feature type (BED: the name column) that is not a label of the model, a sequence
+    the FASTA lacks, a feature past the end of its record.  Records without any true
+    feature are left out with a warning (the truth covers only part of the input).
+    """
+    groups = track_groups(model)
+    fmt, intervals = read_interval_file(truth_path)
+    records = read_model_records(fasta, model)
+    by_id = {rec.id: rec for rec in records}
+    labels = [grp.label for grp in groups]
+    tables = api.prepare(model)
+    truths = {rec.id: np.zeros((len(rec.seq), len(groups)), dtype=np.bool_) for rec in records}
+    shown = str(truth_path)
+    for iv in intervals:
+        label = iv.type if fmt != "bed" else iv.name
+        k = _group_for(groups, label or "", iv.strand)
+        if k is None:
+            raise FeatureFormatError(
+                f"feature type {label!r} is not a label of model {model.name}; expected one "
+                f"of {', '.join(labels) or '(none)'}",
+                path=shown,
+                line0=iv.line0 if iv.line0 >= 0 else None,
+            )
+        rec = by_id.get(iv.seqid)
+        if rec is None:
+            raise FeatureFormatError(
+                f"sequence '{iv.seqid}' is not a record of {fasta}; expected one of "
+                f"{', '.join(list(by_id)[:5])}{', ...' if len(by_id) > 5 else ''}",
+                path=shown,
+                line0=iv.line0 if iv.line0 >= 0 else None,
+            )
+        if iv.end0 > len(rec.seq):
+            raise FeatureFormatError(
+                f"feature ends at base {iv.end0} of '{iv.seqid}', which has {len(rec.seq)} bases",
+                path=shown,
+                line0=iv.line0 if iv.line0 >= 0 else None,
+            )
+        truths[iv.seqid][iv.start0 : iv.end0, k] = True
+    covered = [rec for rec in records if truths[rec.id].any()]
+    if not covered:
+        raise FeatureFormatError(
+            f"no feature of {shown} lies on a record of {fasta}: nothing to calibrate on",
+            path=shown,
+        )
+    if len(covered) < len(records):
+        left = len(records) - len(covered)
+        log.warn(
+            f"{shown} has features on {len(covered)} of {len(records)} record(s) of {fasta}; "
+            f"the {left} record(s) without any are left out"
+        )
+    return [TruthRecord(rec.id, api.symbols_of(tables, rec.seq), truths[rec.id]) for rec in covered]
+
+
+# ---------------------------------------------------------------- the measure
+def calibrate_records(
+    model: Model,
+    records: Iterator[TruthRecord] | list[TruthRecord],
+    bins: int,
+    progress: log.Progress | None = None,
+    total_bases: int = 0,
+) -> tuple[list[LabelCalibration], int, int]:
+    """Decode every record with ``model`` and fill one pair of tables per track group.
+
+    Returns (tables, records, bases).  Records are handled one at a time, so memory is
+    that of the longest record.
+    """
+    tables = api.prepare(model)
+    groups = track_groups(model)
+    state_group = group_index(model, groups)
+    thresholds = default_thresholds(model)
+    masks = []
+    for grp in groups:
+        mask = np.zeros(model.n_states, dtype=np.bool_)
+        mask[list(grp.states)] = True
+        masks.append(mask)
+    out = [
+        LabelCalibration(
+            grp.track_name, grp.label, grp.strand, Reliability(bins), Reliability(bins)
+        )
+        for grp in groups
+    ]
+    progress = progress or log.QuietProgress()
+    progress.start(total_bases)
+    n_rec = n_bases = 0
+    for rec in records:
+        codes = api.encode_symbols(tables, rec.symbols)
+        post = api.posterior(tables, codes, group=state_group, n_groups=len(groups), record=rec.id)
+        segs = decode_segments(
+            tables,
+            codes,
+            post,
+            state_group,
+            rec.symbols,
+            decode=model.decode,
+            min_posterior=float(thresholds["min_posterior"]),
+            min_length=int(thresholds["min_length"]),
+            split_unknown=10,
+            record=rec.id,
+        )
+        for k, lab in enumerate(out):
+            lab.bases.add(post.values[:, k], rec.carries(k))
+        probs: list[list[float]] = [[] for _ in groups]
+        right: list[list[bool]] = [[] for _ in groups]
+        for seg in segs:
+            lp = api.segment_log_probability(
+                tables, codes, post, seg.start0, seg.end0, masks[seg.group]
+            )
+            probs[seg.group].append(math.exp(lp) if lp > -math.inf else 0.0)
+            right[seg.group].append(bool(rec.carries(seg.group, seg.start0, seg.end0).all()))
+        for k, lab in enumerate(out):
+            if probs[k]:
+                lab.features.add(np.array(probs[k]), np.array(right[k]))
+                lab.n_features += len(probs[k])
+                lab.n_correct += int(sum(right[k]))
+        n_rec += 1
+        n_bases += int(rec.symbols.shape[0])
+        progress.advance(int(rec.symbols.shape[0]), rec.id)
+        del post, codes
+    progress.finish()
+    return out, n_rec, n_bases
+
+
+# ---------------------------------------------------------------- writing
+def _cell(value: float | int | None, spec: str) -> str:
+    if value is None:
+        return ""
+    if isinstance(value, int):
+        return str(value)
+    return format(value, spec)
+
+
+def write_tsv(handle: io.TextIOBase | Any, report: CalibrateReport) -> None:
+    """The TSV report: per table its bins (empty cells for an empty bin), then an ``all`` row."""
+    handle.write("\t".join(TSV_COLUMNS) + "\n")
+    for lab in report.labels:
+        for name, rel in (("bases", lab.bases), ("features", lab.features)):
+            for row in rel.rows():
+                cells = [
+                    lab.track,
+                    name,
+                    f"{row['bin_low']:.4g}",
+                    f"{row['bin_high']:.4g}",
+                    str(row["count"]),
+                    _cell(row["mean_forecast"], ".6f"),
+                    _cell(row["fraction_true"], ".6f"),
+                    "",
+                    "",
+                ]
+                handle.write("\t".join(cells) + "\n")
+            n = rel.n
+            cells = [
+                lab.track,
+                name,
+                "all",
+                "all",
+                str(n),
+                _cell(float(rel.sum_prob.sum() / n) if n else None, ".6f"),
+                _cell(float(rel.sum_true.sum() / n) if n else None, ".6f"),
+                _cell(rel.ece(), ".6f"),
+                _cell(rel.brier(), ".6f"),
+            ]
+            handle.write("\t".join(cells) + "\n")
+
+
+def write_json(handle: io.TextIOBase | Any, report: CalibrateReport) -> None:
+    """The JSON report (:meth:`CalibrateReport.to_dict`), keys in a fixed order."""
+    json.dump(report.to_dict(), handle, indent=2, allow_nan=False)
+    handle.write("\n")
+
+
+def reliability_figure(report: CalibrateReport) -> Any:
+    """A matplotlib Figure: per track group, reliability curves over bin-count bars.
+
+    Greyscale: bases in black circles and a solid line, features in grey squares and
+    a dashed line, the diagonal dotted; bars show each bin's count (log scale).
+    """
+    from seqstate.commands.plot import require_matplotlib
+
+    require_matplotlib()
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    n = max(1, len(report.labels))
+    fig = Figure(figsize=(max(6.0, 4.6 * n), 5.6), dpi=100)
+    FigureCanvasAgg(fig)
+    grid = fig.add_gridspec(2, n, height_ratios=[3, 1], hspace=0.08)
+    width = 1.0 / report.bins
+    for col, lab in enumerate(report.labels):
+        ax = fig.add_subplot(grid[0, col])
+        bar = fig.add_subplot(grid[1, col], sharex=ax)
+        ax.plot([0, 1], [0, 1], linestyle=":", color="0.5", linewidth=1, label="ideal")
+        styles = (
+            ("bases", lab.bases, "o", "-", "0.0", -width / 4),
+            ("features", lab.features, "s", "--", "0.55", width / 4),
+        )
+        for name, rel, marker, line, colour, shift in styles:
+            rows = [r for r in rel.rows() if r["count"]]
+            xs = [r["mean_forecast"] for r in rows]
+            ys = [r["fraction_true"] for r in rows]
+            ece = rel.ece()
+            shown = "NA" if ece is None else f"{ece:.4f}"
+            ax.plot(
+                xs,
+                ys,
+                marker=marker,
+                linestyle=line,
+                color=colour,
+                markersize=5,
+                label=f"{name} (n={rel.n:,}, ECE {shown})",
+            )
+            lows = np.array([r["bin_low"] for r in rel.rows()]) + width / 2 + shift
+            counts = rel.count
+            bar.bar(lows, np.where(counts > 0, counts, np.nan), width=width / 2, color=colour)
+        ax.set_xlim(0, 1)
+        ax.set_ylim(-0.02, 1.02)
+        ax.set_title(lab.track)
+        ax.set_ylabel("fraction truly in label")
+        ax.legend(loc="lower right", fontsize="small", frameon=False)
+        ax.tick_params(labelbottom=False)
+        bar.set_yscale("log")
+        bar.set_ylabel("count")
+        bar.set_xlabel("forecast probability (bin)")
+    fig.suptitle(
+        f"Calibration of {report.model} ({report.source}, {report.bases:,} bases)",
+        fontsize="medium",
+    )
+    return fig
+
+
+def figure_svg(fig: Any) -> str:
+    """The SVG text of a matplotlib Figure, without timestamp (for the HTML report)."""
+    from seqstate.commands.plot import require_matplotlib
+
+    matplotlib = require_matplotlib()
+    buf = io.StringIO()
+    with matplotlib.rc_context({"svg.hashsalt": "seqstate", "svg.fonttype": "path"}):
+        fig.savefig(buf, format="svg", metadata={"Creator": "seqstate", "Date": None})
+    return buf.getvalue()
+
+
+def _save_figure(fig: Any, path: Path, fmt: str) -> None:
+    """Write ``fig`` to the staged ``path`` in ``fmt``, with no timestamp in the file."""
+    from seqstate import __version__
+    from seqstate.commands.plot import require_matplotlib
+
+    matplotlib = require_matplotlib()
+    creator = f"seqstate {__version__}"
+    metas: dict[str, dict[str, Any]] = {
+        "png": {"Software": creator},
+        "svg": {"Creator": creator, "Date": None},
+        "pdf": {"Creator": creator, "Producer": creator, "CreationDate": None},
+    }
+    meta = metas[fmt]
+    with matplotlib.rc_context({"svg.hashsalt": "seqstate", "svg.fonttype": "path"}):
+        fig.savefig(str(path), format=fmt, dpi=100, metadata=meta)
+
+
+# ---------------------------------------------------------------- the command
+def _suffix(name: str, allowed: tuple[str, ...], what: str) -> str:
+    suffix = Path(name).suffix.lower().lstrip(".")
+    if suffix not in allowed:
+        raise UsageError(
+            f"{what} '{name}': the name must end in "
+            f"{', '.join('.' + a for a in allowed)} (the format is taken from it)"
+        )
+    return suffix
+
+
+def _check(opts: CalibrateOptions) -> None:
+    if opts.fasta is not None:
+        given = [
+            name
+            for name, value in (
+                ("--length", opts.length),
+                ("--records", opts.records),
+                ("--seed", opts.seed),
+            )
+            if value is not None
+        ]
+        if given:
+            raise UsageError(
+                f"{', '.join(given)} only apply to sampled records: leave them out with --fasta"
+            )
+    if opts.length is None:
+        opts.length = DEFAULT_LENGTH
+    if opts.records is None:
+        opts.records = DEFAULT_RECORDS
+    if opts.seed is None:
+        opts.seed = 0
+    if opts.length < 1:
+        raise UsageError(f"--length {opts.length} must be at least 1")
+    if opts.length > MAX_RECORD_BASES:
+        raise UsageError(f"--length {opts.length:,} is more than {MAX_RECORD_BASES:,} bases")
+    if opts.records < 1:
+        raise UsageError(f"--records {opts.records} must be at least 1")
+    if opts.records > MAX_RECORDS:
+        raise UsageError(f"--records {opts.records:,} is more than {MAX_RECORDS:,}")
+    if opts.seed < 0:
+        raise UsageError(f"--seed {opts.seed} must be 0 or more")
+    if not 1 <= opts.bins <= MAX_BINS:
+        raise UsageError(f"--bins {opts.bins} must be between 1 and {MAX_BINS}")
+    if (opts.fasta is None) != (opts.truth is None):
+        raise UsageError("--fasta and --truth go together: give both, or neither to sample")
+    if opts.out is not None:
+        _suffix(opts.out, REPORT_FORMATS, "report")
+    if opts.figure is not None:
+        _suffix(opts.figure, FIGURE_FORMATS, "figure")
+    if "-" in (opts.out, opts.figure):
+        raise UsageError("calibrate writes files: '-' (standard output) is not accepted")
+
+
+def calibrate(opts: CalibrateOptions, quiet: bool = True) -> CalibrateReport:
+    """Run ``seqstate calibrate``: check, measure, then write report and figure together."""
+    _check(opts)
+    inputs: list[Any] = list(model_inputs(opts.model))
+    inputs += [p for p in (opts.fasta, opts.truth) if p]
+    check_outputs([opts.out, opts.figure], inputs, force=opts.force)
+    if opts.figure is not None:
+        from seqstate.commands.plot import require_matplotlib
+
+        require_matplotlib()
+    model = load_model(opts.model)
+    progress = log.progress_for(quiet)
+    if opts.fasta is not None and opts.truth is not None:
+        recs = file_records(model, opts.fasta, opts.truth)
+        total = sum(int(r.symbols.shape[0]) for r in recs)
+        labs, n_rec, n_bases = calibrate_records(model, recs, opts.bins, progress, total)
+        report = CalibrateReport(model.name, "truth", n_rec, n_bases, opts.bins, None, labs)
+    else:
+        assert opts.length is not None and opts.records is not None and opts.seed is not None
+        it = sampled_records(model, opts.length, opts.records, opts.seed)
+        total = opts.length * opts.records
+        labs, n_rec, n_bases = calibrate_records(model, it, opts.bins, progress, total)
+        report = CalibrateReport(model.name, "sampled", n_rec, n_bases, opts.bins, opts.seed, labs)
+    report.out, report.figure = opts.out, opts.figure
+    if opts.out is None and opts.figure is None:
+        return report
+    fig = reliability_figure(report) if opts.figure is not None else None
+    with OutputSet(force=opts.force, inputs=inputs) as outs:
+        if opts.out is not None:
+            handle = outs.open_text(opts.out)
+            if _suffix(opts.out, REPORT_FORMATS, "report") == "json":
+                write_json(handle, report)
+            else:
+                write_tsv(handle, report)
+        if fig is not None and opts.figure is not None:
+            _save_figure(fig, outs.path(opts.figure), _suffix(opts.figure, FIGURE_FORMATS, "x"))
+    return report
