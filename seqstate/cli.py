@@ -724,7 +724,7 @@ def index_cmd(quiet: bool, **options: Any) -> None:
     say(quiet, index(IndexOptions(**options)).summary())
 
 
-# ---------------------------------------------------------------- merge (issue 12)
+# ---------------------------------------------------------------- merge
 @main.command("merge")
 @click.argument("reports", nargs=-1, required=True, metavar="REPORT.run.json...")
 @click.option(

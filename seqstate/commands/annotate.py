@@ -70,7 +70,7 @@ class AnnotateOptions:
     #: trusted annotation whose calibration figure it shows
     report: str | None = None
     truth: str | None = None
-    #: --records/--records-file (issue 12): only these record IDs, kept in input order
+    #: --records/--records-file: only these record IDs, kept in input order
     records: list[str] | None = None
 
 
