@@ -24,8 +24,8 @@ from click.testing import CliRunner
 
 from seqstate.cli import main
 
-if sys.version_info < (3, 11):  # the test extra installs snakemake on Python 3.11 and later
-    pytest.skip("snakemake 9 needs Python 3.11", allow_module_level=True)
+# the test extra installs snakemake on Python 3.11 and later (snakemake 9 needs it)
+pytestmark = pytest.mark.skipif(sys.version_info < (3, 11), reason="snakemake 9 needs 3.11")
 
 REPO = Path(__file__).resolve().parent.parent
 WORKFLOW = REPO / "workflow"
