@@ -118,7 +118,7 @@ def test_long_records_give_the_same_cds_and_proteins(tmp_path, genes_fasta, monk
     [
         (["-m", "cpg-island", "--cds", "x.fna"], "need a gene model"),
         (["-m", "gene-segment", "--proteins", "sub/x.faa"], "plain file-name part"),
-        (["-m", "gene-segment", "--cds", "same", "--proteins", "same"], "the same file"),
+        (["-m", "gene-segment", "--cds", "same", "--proteins", "same"], "different files"),
         (["-m", "gene-segment", "--proteins", "x.faa", "--translation-table", "99"], "99"),
     ],
 )

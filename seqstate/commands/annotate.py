@@ -265,8 +265,6 @@ def annotate(
     extras = [n for n in (opts.cds, opts.proteins, opts.report) if n is not None]
     if len(set(extras)) < len(extras):
         raise UsageError("--cds, --proteins and --report must name different files")
-    if opts.cds is not None and opts.cds == opts.proteins:
-        raise UsageError(f"--cds and --proteins name the same file '{opts.cds}'")
     jobs, jobs_note = annotate_run.resolve_jobs(opts.jobs)
     model = load_model(opts.model)
     decode = opts.decode or model.decode
