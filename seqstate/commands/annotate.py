@@ -22,6 +22,7 @@ from typing import Any, TextIO, cast
 from seqstate import __version__, log
 from seqstate.commands import annotate_run
 from seqstate.commands.annotate_run import Item, OutputWriter, Runner
+from seqstate.commands.inputs import alphabet_check_of
 from seqstate.commands.records import select_records
 from seqstate.engine import api, jitcache
 from seqstate.errors import ImpossibleSequenceError, UsageError, escape_text
@@ -378,7 +379,7 @@ def _region_item(
     read and checked; only the region's record is kept)."""
     from seqstate.io import faidx
 
-    check = "dna" if set(model.alphabet) <= set("ACGT") else None
+    check = alphabet_check_of(model)
     lengths = faidx.record_lengths(opts.input)
     if lengths is not None:
         region = check_region(region, lengths)
@@ -441,7 +442,7 @@ def _stream_items(
 ) -> Iterator[Item]:
     """The records of the FASTA, one at a time, as items to annotate (a long record's
     bases spilled into ``scratch`` while it is read)."""
-    check = "dna" if set(model.alphabet) <= set("ACGT") else None
+    check = alphabet_check_of(model)
     records = iter_sequences(
         opts.input,
         alphabet_check=check,

@@ -27,6 +27,7 @@ from typing import Any, TextIO
 import numpy as np
 
 from seqstate import log
+from seqstate.commands.inputs import alphabet_check_of
 from seqstate.engine import api
 from seqstate.errors import SequenceFormatError, UsageError
 from seqstate.io import tracks
@@ -483,7 +484,7 @@ def _scratch_file(scratch: Path | None, name: str) -> Path:
 def symbol_checker(model: Model, path: str) -> Callable[[str, bytes, int], None] | None:
     """For a model whose alphabet is not DNA: a check that every character is one of its
     symbols (either case), naming the record and the 1-based position."""
-    if set(model.alphabet) <= set("ACGT"):
+    if alphabet_check_of(model) is not None:
         return None
     allowed = set(model.alphabet) | set(model.alphabet.lower()) | set(model.alphabet.upper())
     ok = np.zeros(256, dtype=np.bool_)
