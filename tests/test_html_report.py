@@ -22,7 +22,14 @@ from click.testing import CliRunner
 
 from seqstate.cli import main
 from seqstate.commands.calibrate import CalibrateOptions, calibrate, figure_svg, reliability_figure
-from seqstate.io.html_report import build_report_figures, inline_svg, write_html_report
+from seqstate.io.html_report import (
+    build_report_figures,
+    fmt_number,
+    inline_svg,
+    panels_in_columns,
+    table_rows,
+    write_html_report,
+)
 
 pytest.importorskip("matplotlib")
 html5lib = pytest.importorskip("html5lib")
@@ -91,8 +98,8 @@ def test_summary_content(page: str, run_files: tuple[dict, list[dict]]) -> None:
     report, rows = run_files
     assert report["model"]["sha256"] in page
     bases = sum(r["end_1based"] - r["start_1based"] + 1 for r in report["records"])
-    assert f"<th>bases</th><td>{bases}</td>" in page
-    assert f"<th>CpG_island</th><td>{len(rows)}</td>" in page
+    assert f"<th>bases</th><td class='n'>{bases:,}</td>" in page
+    assert f"<th>CpG_island</th><td class='n'>{len(rows):,}</td>" in page
     assert page.count("<tr><td") >= len(rows)
     for row in rows:
         assert f">{row['id']}</td>" in page
@@ -247,3 +254,171 @@ def test_density_shows_the_longest_records() -> None:
     assert len(shown) == 40
     assert [r for r in recs if r in shown] == shown  # input order kept
     assert min(n for _, n in shown) >= max(n for r, n in recs if (r, n) not in shown)
+
+
+# ---------------------------------------------------------------- what a user reads
+def test_one_number_format() -> None:
+    # thousands separators and 4 decimals, as seqstate compare prints its values
+    assert fmt_number(1348131) == "1,348,131" and fmt_number("930") == "930"
+    assert fmt_number("1348131") == "1,348,131" and fmt_number(-12) == "-12"
+    assert fmt_number(0.0133569) == "0.0134" and fmt_number("0.7580") == "0.7580"
+    assert fmt_number("1e-05") == "0.0000" and fmt_number(2.5) == "2.5000"
+    assert fmt_number(None, missing="NA") == "NA" and fmt_number(float("nan")) == ""
+    assert fmt_number("NC_004353.4") == "NC_004353.4" and fmt_number(True) == "yes"
+
+
+def test_every_number_on_the_page_has_the_one_format(page: str) -> None:
+    doc = html5lib.HTMLParser(strict=True, namespaceHTMLElements=False).parse(page)
+    cells = [td.text or "" for td in doc.iter("td") if td.get("class") == "n"]
+    assert cells
+    for text in cells:
+        assert re.fullmatch(r"NA|-?\d{1,3}(,\d{3})*|-?\d+\.\d{4}|", text), text
+
+
+def _gene_rows() -> list[dict]:
+    """Rows of a gene model's feature table: one gene, its mRNA, two exons and their CDS."""
+    base = {"seqid": "c1", "strand": "+", "segment_probability": "0.9000"}
+    spans = [
+        ("gene", "c1.gene.1", "", 100, 900),
+        ("mRNA", "c1.mRNA.1", "c1.gene.1", 100, 900),
+        ("exon", "c1.mRNA.1.exon.1", "c1.mRNA.1", 100, 300),
+        ("CDS", "c1.mRNA.1.CDS.1", "c1.mRNA.1", 100, 300),
+        ("exon", "c1.mRNA.1.exon.2", "c1.mRNA.1", 700, 900),
+        ("CDS", "c1.mRNA.1.CDS.2", "c1.mRNA.1", 750, 900),  # a UTR: not the exon's span
+    ]
+    return [
+        dict(base, type=t, id=i, parent=p, start_1based=str(a), end_1based=str(b))
+        for t, i, p, a, b in spans
+    ]
+
+
+def test_exon_and_cds_of_one_span_are_one_row() -> None:
+    rows = _gene_rows()
+    once = table_rows(rows)
+    assert [r["type"] for r in once] == ["gene + mRNA", "exon + CDS", "exon", "CDS"]
+    buf = io.StringIO()
+    write_html_report(buf, {"records": [{"id": "c1", "length": 1000}]}, rows, {})
+    text = buf.getvalue()
+    table = text.split("<table id='features'>", 1)[1]
+    assert table.count("<tr><td") == 4
+    assert table.count(">c1.mRNA.1.exon.1</td>") == 1 and "c1.mRNA.1.CDS.1" not in table
+    # the counts per type still count every feature
+    for kind, n in (("gene", 1), ("mRNA", 1), ("exon", 2), ("CDS", 2)):
+        assert f"<tr><th>{kind}</th><td class='n'>{n}</td></tr>" in text
+    html5lib.HTMLParser(strict=True).parse(text)
+
+
+def _density_axes(rows: list, records: list) -> list:
+    from seqstate.io.html_report import _density_figure
+
+    return _density_figure(rows, records).axes
+
+
+def test_density_along_one_record() -> None:
+    rows = [
+        {"seqid": "c1", "type": "gene", "parent": "", "start_1based": str(s)}
+        for s in (10, 20, 50_000, 99_000)
+    ] + [{"seqid": "c1", "type": "exon", "parent": "g", "start_1based": "30"}]
+    (ax,) = _density_axes(rows, [{"id": "c1", "start_1based": 1, "end_1based": 100_000}])
+    assert ax.get_xlim() == (1, 100_001)
+    heights = [p.get_height() for p in ax.patches]
+    assert 40 <= len(heights) <= 60  # bins along the record, of a round width
+    assert sum(heights) == 4 and heights[0] == 2  # genes only, by start
+    assert "2 kbp" in ax.get_ylabel() and "genes" in ax.get_ylabel()
+
+
+def test_density_of_many_records_one_row_each() -> None:
+    recs = [(f"chr{i}", 10_000 * (i + 1)) for i in range(12)]
+    rows = [{"seqid": "chr3", "type": "CpG_island", "start_1based": "5"}]
+    (ax,) = _density_axes(rows, recs)
+    names = [t.get_text() for t in ax.get_yticklabels()]
+    assert names == [r for r, _ in recs]
+    fig = ax.figure
+    # each name gets at least 0.2 inch of height: readable at 100 %
+    assert fig.get_size_inches()[1] / len(recs) >= 0.2
+    width = dict(zip(names, [p.get_width() for p in ax.patches], strict=True))
+    assert width["chr3"] == pytest.approx(1 / 40_000 * 1e6) and width["chr1"] == 0
+
+
+def test_panel_pairs_in_two_columns() -> None:
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(18.4, 5.6))
+    grid = fig.add_gridspec(2, 4, height_ratios=[3, 1])
+    for col in range(4):
+        fig.add_subplot(grid[0, col]).set_title(f"t{col}")
+        fig.add_subplot(grid[1, col])
+    panels_in_columns(fig, 2)
+    spans = [a.get_subplotspec() for a in fig.axes]
+    assert [(s.rowspan.start, s.colspan.start) for s in spans] == [
+        (0, 0),
+        (1, 0),
+        (0, 1),
+        (1, 1),
+        (2, 0),
+        (3, 0),
+        (2, 1),
+        (3, 1),
+    ]
+    assert fig.get_size_inches()[0] <= 10.0  # shown at 100 % in a page of 72em
+
+
+# ---------------------------------------------------------------- a gene model with --truth
+@pytest.fixture(scope="module")
+def gene_run(tmp_path_factory: pytest.TempPathFactory) -> dict:
+    """annotate -m gene-segment --report --truth on a synthetic sample (60 kbp, seed 3), the
+    truth being the sample's own CDS lines, and seqstate compare of the same two files."""
+    d = tmp_path_factory.mktemp("genes")
+    fa, truth_all, truth = d / "g.fa", d / "all.gff3", d / "known_cds.gff3"
+    cli(["sample", "gene-segment", "--length", 60000, "--seed", 3, "-o", fa, "--truth", truth_all])
+    lines = truth_all.read_text().splitlines(keepends=True)
+    truth.write_text("".join(x for x in lines if x.startswith("#") or "\tCDS\t" in x))
+    cli(
+        ["annotate", fa, "-m", "gene-segment", "-o", d / "o", "--report", "r.html"]
+        + ["--truth", truth, "-q"]
+    )
+    cli(["compare", d / "o" / "g.gff3", truth, "-o", d / "cmp.json", "-q"])
+    return {
+        "page": (d / "o" / "r.html").read_text(encoding="utf-8"),
+        "compare": json.loads((d / "cmp.json").read_text()),
+        "truth": str(truth),
+    }
+
+
+def test_gene_report_names_the_truth_file(gene_run: dict) -> None:
+    page = gene_run["page"]
+    html5lib.HTMLParser(strict=True).parse(page)
+    assert f"Truth: <span id='truth-name'>{gene_run['truth']}</span>" in page
+    assert "Truth: truth" not in page and "(truth," not in page
+
+
+def test_gene_report_accuracy_equals_compare(gene_run: dict) -> None:
+    doc = html5lib.HTMLParser(strict=True, namespaceHTMLElements=False).parse(gene_run["page"])
+    table = next(t for t in doc.iter("table") if t.get("id") == "accuracy-table")
+    got = {tr[0].text: (tr[1].text, tr[2].text) for tr in table.find("tbody").findall("tr")}
+    result = gene_run["compare"]
+    if isinstance(result, list):
+        result = result[0]
+
+    def four(v: float | None) -> str:  # seqstate compare's own 4 decimals
+        return "NA" if v is None else f"{v:.4f}"
+
+    nuc = result["nucleotide"]["strand_aware"]
+    want = {
+        "bases (strand-aware)": (four(nuc["sensitivity"]), four(nuc["specificity"])),
+        "exons": (four(result["feature"]["sensitivity"]), four(result["feature"]["specificity"])),
+        "transcripts": (
+            four(result["transcript"]["sensitivity"]),
+            four(result["transcript"]["specificity"]),
+        ),
+        "genes": (four(result["gene"]["sensitivity"]), four(result["gene"]["specificity"])),
+    }
+    assert got == want
+    assert float(want["exons"][0]) > 0  # the run finds some exons exactly
+
+
+def test_gene_report_calibration_readable(gene_run: dict) -> None:
+    page = gene_run["page"]
+    fig = page.split("id='figure-calibration'", 1)[1].split("</figure>", 1)[0]
+    width_pt = float(re.search(r'<svg[^>]*\bwidth="([\d.]+)pt"', fig).group(1))
+    assert width_pt <= 10 * 72  # four track groups in two columns, not one row of 18 inches

@@ -571,7 +571,7 @@ def _write_set(
             report.outputs = sorted(names + [f"{stem}.run.json"])
             if opts.report is not None and isinstance(tsv, _Tee):
                 with outs.open_text(opts.report) as fh:
-                    _write_html(fh, opts, report, tsv.text())
+                    _write_html(fh, opts, report, tsv.text(), gff_target)
             with outs.open_text(f"{stem}.run.json") as fh:
                 json.dump(report.to_dict(), fh, indent=2, sort_keys=False)
                 fh.write("\n")
@@ -616,25 +616,43 @@ class _Tee:
         return "".join(self._parts)
 
 
-def _write_html(handle: TextIO, opts: AnnotateOptions, report: AnnotateReport, tsv: str) -> None:
-    """The HTML page of the run: summary, figures, top features (and the calibration figure
-    against ``--truth``)."""
+def _write_html(
+    handle: TextIO, opts: AnnotateOptions, report: AnnotateReport, tsv: str, gff: TextIO
+) -> None:
+    """The HTML page of the run: summary, figures, top features (and, against ``--truth``,
+    the calibration figure and the accuracy of ``seqstate compare`` of the staged ``gff``)."""
     import csv
 
-    from seqstate.io.html_report import build_report_figures, write_html_report
+    from seqstate.io.html_report import build_report_figures, calibration_svg, write_html_report
 
     rows = list(csv.DictReader(io.StringIO(tsv), delimiter="\t"))
     doc = report.to_dict()
     figures = build_report_figures(rows, doc["records"])
-    calibration = None
+    calibration = accuracy = truth = None
     if opts.truth is not None:
         from seqstate.commands.calibrate import (
             CalibrateOptions,
             calibrate,
-            figure_svg,
             reliability_figure,
         )
 
         calibration = calibrate(CalibrateOptions(opts.model, fasta=opts.input, truth=opts.truth))
-        figures["calibration"] = figure_svg(reliability_figure(calibration))
-    write_html_report(handle, doc, rows, figures, calibration)
+        truth = display_name(opts.truth)
+        figures["calibration"] = calibration_svg(reliability_figure(calibration), truth)
+        gff.flush()
+        accuracy = _truth_accuracy(gff.name, opts.truth, opts.region, rows)
+    write_html_report(handle, doc, rows, figures, calibration, truth_name=truth, accuracy=accuracy)
+
+
+def _truth_accuracy(gff: str, truth: str, region: str | None, rows: list) -> dict:
+    """``seqstate compare`` of this run's GFF3 against the truth (CDS for gene models, else
+    the run's feature type), or ``{"error": text}`` when the files cannot be compared."""
+    from seqstate.commands.compare import compare_files
+    from seqstate.errors import SeqstateError
+
+    types = {r["type"] for r in rows}
+    ftype = "CDS" if "CDS" in types else (min(types) if len(types) == 1 else None)
+    try:
+        return compare_files(gff, truth, ftype, region)
+    except SeqstateError as exc:
+        return {"error": f"no accuracy: {exc}".replace(gff, "this run's GFF3")}

@@ -8,6 +8,10 @@ page holds no timestamp, so the same input gives the same bytes.
 ``features_rows`` are the rows of annotate's feature table (dicts keyed by the columns
 of :meth:`seqstate.kinds.base.Kind.feature_columns`, values as written in the TSV or as
 numbers); coordinates in them are 1-based closed (``start_1based``, ``end_1based``).
+
+Numbers are written one way throughout the page (:func:`fmt_number`): whole numbers with
+a comma between thousands, fractions with :data:`DECIMALS` decimals (as ``seqstate
+compare`` prints them), ``NA`` for a measure that is undefined.
 """
 
 from __future__ import annotations
@@ -23,9 +27,14 @@ from seqstate.errors import OptionalDependencyError
 
 __all__ = [
     "TOP_FEATURES",
+    "accuracy_rows",
     "build_report_figures",
+    "fmt_number",
     "inline_svg",
+    "calibration_svg",
+    "panels_in_columns",
     "shown_records",
+    "table_rows",
     "write_html_report",
 ]
 
@@ -54,6 +63,38 @@ TABLE_COLUMNS = [
 ]
 
 _GREYS = ["0.1", "0.45", "0.7", "0.3", "0.6", "0.85"]
+#: Decimals of every fraction on the page (posteriors, ECE, Brier, Sn, Sp).
+DECIMALS = 4
+#: At most this many records get a panel of features along the record; more get bars.
+ALONG_RECORDS = 3
+#: Columns of the calibration figure on the page (one panel pair per track group).
+CALIBRATION_COLUMNS = 2
+
+
+def fmt_number(value: Any, *, missing: str = "") -> str:
+    """The page's one number format: ``1,348,131``, ``0.0134``; ``missing`` for None/NaN.
+
+    Whole numbers (ints, or text that reads as an int) get thousands separators;
+    other numbers get :data:`DECIMALS` decimals; text that is no number is kept.
+    Booleans are written ``yes``/``no``.
+    """
+    if value is None:
+        return missing
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, int):
+        return f"{value:,}"
+    if isinstance(value, float):
+        return f"{value:.{DECIMALS}f}" if math.isfinite(value) else missing
+    text = str(value)
+    if re.fullmatch(r"[+-]?\d+", text):
+        return f"{int(text):,}"
+    num = _number(text)
+    if num is not None and re.fullmatch(r"[+-]?(\d+\.\d*|\.\d+|\d+(\.\d*)?[eE][+-]?\d+)", text):
+        return f"{num:.{DECIMALS}f}"
+    if text.lower() in ("nan", "na"):
+        return missing
+    return text
 
 
 def _number(value: Any) -> float | None:
@@ -74,6 +115,42 @@ def _length_of(row: Mapping[str, Any]) -> int | None:
     if s is None or e is None:
         return None
     return int(e - s + 1)
+
+
+def table_rows(rows: Sequence[Mapping[str, Any]]) -> list[dict[str, Any]]:
+    """The feature rows with each span listed once: a row with the same seqid, start, end
+    and strand as an earlier row that is its sibling (an mRNA's exon and CDS) or its parent
+    (a gene and its only mRNA) is folded into that row, whose ``type`` then names both
+    (``exon + CDS``, ``gene + mRNA``).  Rows keep their order; other rows are kept as they are.
+    """
+    out: list[dict[str, Any]] = []
+    seen: dict[tuple[str, str, str, str], list[dict[str, Any]]] = {}
+    for row in rows:
+        key = tuple(str(row.get(c, "")) for c in ("seqid", "start_1based", "end_1based", "strand"))
+        parent = str(row.get("parent") or "")
+        kind = str(row.get("type") or "feature")
+        host = None
+        for other in seen.get(key, []):  # type: ignore[arg-type]
+            if kind in str(other["type"]).split(" + "):
+                continue
+            if parent == str(other.get("id") or "") or (
+                parent and parent == str(other.get("parent") or "")
+            ):
+                host = other
+                break
+        if host is not None:
+            host["type"] = f"{host['type']} + {kind}"
+            continue
+        copy = dict(row)
+        copy["type"] = kind
+        out.append(copy)
+        seen.setdefault(key, []).append(copy)  # type: ignore[arg-type]
+    return out
+
+
+def _top_level(rows: Sequence[Mapping[str, Any]]) -> list[Mapping[str, Any]]:
+    """Rows that are no part of another (no ``parent``): genes, islands, segments."""
+    return [r for r in rows if not str(r.get("parent") or "")]
 
 
 def _records(records: Iterable[Any]) -> list[tuple[str, int]]:
@@ -235,25 +312,119 @@ def shown_records(records: list[tuple[str, int]], most: int = 40) -> list[tuple[
     return [records[i] for i in sorted(longest)]
 
 
-def _density_figure(rows: Sequence[Mapping[str, Any]], records: list[tuple[str, int]]) -> Any:
-    fig = _figure(6.4, 3.6)
-    ax = fig.add_subplot(1, 1, 1)
+def _spans(records: Iterable[Any]) -> list[tuple[str, int, int]]:
+    """(id, first, last) 1-based closed: the stretch of each record that was annotated."""
+    out = []
+    for rec in records:
+        if isinstance(rec, Mapping) and "start_1based" in rec and "end_1based" in rec:
+            out.append((str(rec["id"]), int(rec["start_1based"]), int(rec["end_1based"])))
+        else:
+            rid, n = _records([rec])[0]
+            out.append((rid, 1, n))
+    return out
+
+
+def _round_width(span: int, bins: int) -> int:
+    """A round bin width (1, 2 or 5 times a power of ten) giving at most about ``bins``
+    bins over ``span`` bases."""
+    target = max(1.0, span / bins)
+    power = 10 ** math.floor(math.log10(target))
+    for step in (1, 2, 5, 10):
+        if step * power >= target:
+            return int(step * power)
+    return int(10 * power)  # pragma: no cover
+
+
+def _bases_text(n: int) -> str:
+    for size, unit in ((1_000_000, "Mbp"), (1_000, "kbp")):
+        if n >= size and n % size == 0:
+            return f"{n // size:,} {unit}"
+    return f"{n:,} bases"
+
+
+def _unit(rows: Sequence[Mapping[str, Any]]) -> str:
+    kinds = sorted({str(r.get("type") or "feature") for r in rows})
+    return f"{kinds[0]}s" if len(kinds) == 1 else "features"
+
+
+def _density_figure(rows: Sequence[Mapping[str, Any]], records: Sequence[Any]) -> Any:
+    """Features per record: for at most :data:`ALONG_RECORDS` records, counts in round bins
+    along each record (one panel each); for more, bars of features per Mbp of the 40
+    longest records, one readable row per record."""
+    from matplotlib.ticker import FuncFormatter, MaxNLocator
+
+    tops = _top_level(rows)
+    unit = _unit(tops)
+    spans = _spans(records)
+    if not spans:
+        fig = _figure(6.4, 2.0)
+        _empty_note(fig.add_subplot(1, 1, 1), "no records")
+        fig.tight_layout()
+        return fig
+    if len(spans) <= ALONG_RECORDS:
+        fig = _figure(8.0, 0.6 + 1.9 * len(spans))
+        for k, (rid, first, last) in enumerate(spans):
+            ax = fig.add_subplot(len(spans), 1, k + 1)
+            width = _round_width(last - first + 1, 60)
+            starts = [
+                int(v)
+                for v in (_number(r.get("start_1based")) for r in tops if r.get("seqid") == rid)
+                if v is not None
+            ]
+            edges = list(range(first, last + 1, width)) + [last + 1]
+            ax.hist(starts, bins=edges, color="0.35", edgecolor="white", linewidth=0.3)
+            ax.set_xlim(first, last + 1)
+            ax.set_ylabel(f"{unit} per\n{_bases_text(width)}")
+            ax.yaxis.set_major_locator(MaxNLocator(nbins=4, integer=True))
+            ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _p: f"{int(round(v)):,}"))
+            ax.set_title(f"{rid}: {len(starts):,} {unit}", loc="left", fontsize="medium")
+            for side in ("top", "right"):
+                ax.spines[side].set_visible(False)
+        fig.axes[-1].set_xlabel("start position (1-based)")
+        fig.tight_layout()
+        return fig
     counts: dict[str, int] = {}
-    for row in rows:
+    for row in tops:
         sid = str(row.get("seqid"))
         counts[sid] = counts.get(sid, 0) + 1
-    shown = shown_records(records)
-    if not shown:
-        _empty_note(ax, "no records")
-    else:
-        dens = [counts.get(rid, 0) / max(n, 1) * 1e6 for rid, n in shown]
-        ax.bar(range(len(shown)), dens, color="0.35")
-        ax.set_xticks(range(len(shown)))
-        ax.set_xticklabels([rid for rid, _ in shown], rotation=60, ha="right", fontsize="x-small")
-        ax.set_ylabel("features per Mbp")
-        more = f" ({len(shown)} longest of {len(records)})" if len(records) > len(shown) else ""
-        ax.set_xlabel(f"record{more}")
+    shown = shown_records(_records(records))
+    fig = _figure(8.0, 1.0 + 0.24 * len(shown))
+    ax = fig.add_subplot(1, 1, 1)
+    dens = [counts.get(rid, 0) / max(n, 1) * 1e6 for rid, n in shown]
+    ax.barh(range(len(shown)), dens, color="0.35", height=0.7)
+    ax.set_yticks(range(len(shown)))
+    ax.set_yticklabels([rid for rid, _ in shown])
+    ax.set_ylim(len(shown) - 0.5, -0.5)  # input order, top to bottom
+    ax.set_xlabel(f"{unit} per Mbp")
+    if len(spans) > len(shown):
+        ax.set_title(f"the {len(shown)} longest of {len(spans):,} records", loc="left")
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
     fig.tight_layout()
+    return fig
+
+
+def panels_in_columns(fig: Any, columns: int = CALIBRATION_COLUMNS) -> Any:
+    """Lay out a figure of panel pairs side by side (a grid of 2 rows by n columns, as the
+    calibration figure draws them) in at most ``columns`` columns, rows of pairs below one
+    another, at a size where its text is read at 100 % on a page; returns ``fig``."""
+    axes = [a for a in fig.axes if a.get_subplotspec() is not None]
+    if not axes:
+        return fig
+    old = axes[0].get_subplotspec().get_gridspec()
+    n_rows, n_cols = old.get_geometry()
+    if n_rows != 2 or n_cols <= columns:
+        return fig
+    blocks = -(-n_cols // columns)
+    ratios = list(old.get_height_ratios() or [1, 1])
+    grid = fig.add_gridspec(2 * blocks, columns, height_ratios=ratios * blocks)
+    for ax in axes:
+        spec = ax.get_subplotspec()
+        row, col = spec.rowspan.start, spec.colspan.start
+        ax.set_subplotspec(grid[(col // columns) * 2 + row, col % columns])
+    width, height = fig.get_size_inches()
+    fig.set_size_inches(min(width, 5.0 * columns), height * blocks * 0.9)
+    fig.set_layout_engine("constrained")
     return fig
 
 
@@ -263,16 +434,29 @@ def build_report_figures(
     """The report's figures as SVG text: ``feature_lengths``, ``scores``, ``feature_density``.
 
     ``records`` are ``(id, bases)`` pairs or the run report's record dicts (their
-    ``start_1based``/``end_1based`` give the bases annotated).  Needs matplotlib
+    ``start_1based``/``end_1based`` give the bases annotated).  The length and score
+    figures count a span once (:func:`table_rows`); the density figure counts features
+    that are part of no other (genes, islands).  Needs matplotlib
     (:class:`~seqstate.errors.OptionalDependencyError` otherwise); greyscale-readable.
     """
     rows = list(features_rows)
-    recs = _records(records)
+    once = table_rows(rows)
+    recs = list(records)
     return {
-        "feature_lengths": _svg_of(_lengths_figure(rows)),
-        "scores": _svg_of(_scores_figure(rows)),
+        "feature_lengths": _svg_of(_lengths_figure(once)),
+        "scores": _svg_of(_scores_figure(once)),
         "feature_density": _svg_of(_density_figure(rows, recs)),
     }
+
+
+def calibration_svg(fig: Any, truth_name: str | None = None, source: str = "truth") -> str:
+    """The calibration figure (a matplotlib Figure of panel pairs) as SVG text for the
+    page, laid out by :func:`panels_in_columns` so its text is readable; the word
+    ``source`` in its title is replaced by ``truth_name`` (the file) when given."""
+    title = fig.get_suptitle()
+    if truth_name is not None and f"({source}," in title:
+        fig.suptitle(title.replace(f"({source},", f"({truth_name},", 1), fontsize="medium")
+    return _svg_of(panels_in_columns(fig))
 
 
 # ---------------------------------------------------------------- the page
@@ -321,11 +505,11 @@ def _e(value: Any) -> str:
     return html.escape(str(value), quote=True)
 
 
-def _fmt(value: Any) -> str:
-    if value is None:
-        return ""
-    if isinstance(value, float):
-        return "" if not math.isfinite(value) else f"{value:.6g}"
+def _fmt(value: Any, missing: str = "") -> str:
+    """A value of the data as written on the page: numbers by :func:`fmt_number`, text
+    as it is (a record ID or a file name that looks like a number stays as typed)."""
+    if value is None or isinstance(value, (bool, int, float)):
+        return fmt_number(value, missing=missing)
     return str(value)
 
 
@@ -339,12 +523,26 @@ def _top(rows: Sequence[Mapping[str, Any]], n: int) -> list[Mapping[str, Any]]:
     return [row for _, row in sorted(enumerate(rows), key=rank)[:n]]
 
 
-def _kv_table(pairs: Iterable[tuple[str, Any]]) -> str:
-    body = "".join(f"<tr><th>{_e(k)}</th><td>{_e(_fmt(v))}</td></tr>" for k, v in pairs)
-    return f"<table class='kv'>{body}</table>"
+def _kv_table(pairs: Iterable[tuple[str, Any]], css: str = "kv") -> str:
+    rows = []
+    for k, v in pairs:
+        cls = " class='n'" if isinstance(v, (int, float)) and not isinstance(v, bool) else ""
+        rows.append(f"<tr><th>{_e(k)}</th><td{cls}>{_e(_fmt(v))}</td></tr>")
+    return f"<table class='{css}'>{''.join(rows)}</table>"
 
 
-def _calibration_section(calibration: Any) -> str:
+def _cells(values: Sequence[Any], first_text: int, missing: str = "") -> str:
+    """Table cells: the first ``first_text`` as text, the others as numbers."""
+    out = []
+    for i, v in enumerate(values):
+        if i >= first_text:
+            out.append(f"<td class='n'>{_e(_fmt(v, missing))}</td>")
+        else:
+            out.append(f"<td>{_e(_fmt(v))}</td>")
+    return "".join(out)
+
+
+def _calibration_section(calibration: Any, truth_name: str | None) -> str:
     data = calibration.to_dict() if hasattr(calibration, "to_dict") else dict(calibration)
     head = (
         "<tr><th>track</th><th>forecast</th><th>forecasts</th><th>ECE</th><th>Brier</th>"
@@ -356,24 +554,105 @@ def _calibration_section(calibration: Any) -> str:
             part = lab.get(name, {})
             cells = [lab.get("track"), name, part.get("forecasts"), part.get("ece")]
             cells += [part.get("brier"), part.get("max_gap")]
-            rows.append(
-                "<tr>"
-                + "".join(
-                    f"<td class='n'>{_e(_fmt(c))}</td>" if i >= 2 else f"<td>{_e(_fmt(c))}</td>"
-                    for i, c in enumerate(cells)
-                )
-                + "</tr>"
-            )
-    src = data.get("source", "")
+            rows.append(f"<tr>{_cells(cells, 2, 'NA')}</tr>")
+    src = truth_name or data.get("source", "")
     return (
         "<section id='calibration'><h2>Calibration</h2>"
-        f"<p class='note'>Truth: {_e(src)}; {_e(_fmt(data.get('records')))} record(s), "
+        f"<p class='note'>Truth: <span id='truth-name'>{_e(src)}</span>; "
+        f"{_e(_fmt(data.get('records')))} record(s), "
         f"{_e(_fmt(data.get('bases')))} bases, {_e(_fmt(data.get('bins')))} bins. ECE: expected "
-        "calibration error (Guo et al. 2017); Brier score (Brier 1950). Empty cells: no "
+        "calibration error (Guo et al. 2017); Brier score (Brier 1950). NA: no "
         "forecast.</p>"
         f"<table id='calibration-table'><thead>{head}</thead><tbody>{''.join(rows)}</tbody>"
         "</table></section>"
     )
+
+
+def accuracy_rows(result: Mapping[str, Any]) -> list[tuple[str, Any, Any, str]]:
+    """(level, Sn, Sp, counts) of a comparison as ``seqstate compare`` returns it
+    (:func:`seqstate.commands.compare.compare_files`): bases (strand-aware), features
+    (exons for CDS and exon), and for those also transcripts and genes.  Sn and Sp are
+    fractions or None (undefined)."""
+    counts = result["counts"]
+    exon = result.get("rule") == "exon"
+    word = "exons" if exon else f"{result.get('type', 'feature')} features"
+    nuc, nc = result["nucleotide"]["strand_aware"], counts["nucleotide"]["strand_aware"]
+    fe, fc = result["feature"], counts["feature"]
+    rows = [
+        (
+            "bases (strand-aware)",
+            nuc["sensitivity"],
+            nuc["specificity"],
+            f"{nc['tp']:,} of {nc['tp'] + nc['fn']:,} reference and of "
+            f"{nc['tp'] + nc['fp']:,} predicted bases",
+        ),
+        (
+            word,
+            fe["sensitivity"],
+            fe["specificity"],
+            f"{fc['matched_reference']:,} of {fc['reference']:,} reference and "
+            f"{fc['matched_predicted']:,} of {fc['predicted']:,} predicted matched",
+        ),
+    ]
+    for level in ("transcript", "gene"):
+        if level in result:
+            m, c = result[level], counts[level]
+            rows.append(
+                (
+                    f"{level}s",
+                    m["sensitivity"],
+                    m["specificity"],
+                    f"{c['matched_reference']:,} of {c['reference']:,} reference and "
+                    f"{c['matched_predicted']:,} of {c['predicted']:,} predicted "
+                    + (
+                        "with every exon exact"
+                        if level == "transcript"
+                        else "with an exact transcript"
+                    ),
+                )
+            )
+    return rows
+
+
+def _accuracy_section(accuracy: Mapping[str, Any], truth_name: str | None) -> str:
+    if "error" in accuracy:  # the comparison could not be made; say why
+        return (
+            "<section id='accuracy'><h2>Accuracy against the truth</h2>"
+            f"<p class='note'>{_e(accuracy['error'])}</p></section>"
+        )
+    rule = (
+        "a predicted exon matches when both ends and the strand are equal; a transcript "
+        "or gene when every exon does"
+        if accuracy.get("rule") == "exon"
+        else "a match shares at least half of the shorter feature, on the same strand"
+    )
+    where = accuracy.get("region") or ", ".join(
+        s["seqid"] for s in accuracy.get("sequences", [])[:10]
+    )
+    head = "<tr><th>level</th><th>Sn</th><th>Sp</th><th>counts</th></tr>"
+    body = "".join(
+        f"<tr>{_cells([level, sn, sp], 1, 'NA')}<td>{_e(counts)}</td></tr>"
+        for level, sn, sp, counts in accuracy_rows(accuracy)
+    )
+    n_bases = accuracy.get("counts", {}).get("bases")
+    return (
+        "<section id='accuracy'><h2>Accuracy against the truth</h2>"
+        f"<p class='note'>{_e(accuracy.get('type', ''))} features of this run against "
+        f"<span class='truth'>{_e(truth_name or '')}</span> on {_e(where)} "
+        f"({_e(_fmt(n_bases))} bases), as <code>seqstate compare</code> computes them: "
+        f"Sn = TP/(TP+FN), Sp = TP/(TP+FP); {_e(rule)}. NA: nothing to count.</p>"
+        f"<table id='accuracy-table'><thead>{head}</thead><tbody>{body}</tbody></table>"
+        "</section>"
+    )
+
+
+def _type_counts(rows: Sequence[Mapping[str, Any]]) -> list[tuple[str, int]]:
+    """Features per type, types in the order they first appear (gene, mRNA, exon, CDS)."""
+    counts: dict[str, int] = {}
+    for row in rows:
+        t = str(row.get("type") or "feature")
+        counts[t] = counts.get(t, 0) + 1
+    return list(counts.items())
 
 
 def write_html_report(
@@ -384,6 +663,8 @@ def write_html_report(
     calibration: Any = None,
     *,
     top: int = TOP_FEATURES,
+    truth_name: str | None = None,
+    accuracy: Mapping[str, Any] | None = None,
 ) -> None:
     """Write the HTML5 page to ``handle``.
 
@@ -391,7 +672,11 @@ def write_html_report(
     name and sha256, options, records); ``figures`` maps figure keys (see
     :data:`FIGURE_TITLES`; others follow in key order) to matplotlib SVG text;
     ``calibration`` is a calibration report (``CalibrateReport`` or its ``to_dict()``)
-    or None.  The table lists the ``top`` best features.
+    or None.  ``truth_name`` names the trusted annotation (the file as given);
+    ``accuracy`` is the result of ``seqstate compare`` of this run's features against
+    it (:func:`seqstate.commands.compare.compare_files`), or ``{"error": text}`` when
+    none could be made.  The table lists the ``top`` best features, each span once
+    (:func:`table_rows`).
     """
     model = report_dict.get("model") or {}
     if not isinstance(model, Mapping):
@@ -400,10 +685,7 @@ def write_html_report(
     bases = 0
     for rec in _records(records):
         bases += rec[1]
-    per_label: dict[str, int] = {}
-    for row in features_rows:
-        t = str(row.get("type") or "feature")
-        per_label[t] = per_label.get(t, 0) + 1
+    per_type = _type_counts(features_rows)
     title = f"seqstate run report: {model.get('name', 'model')}"
     out: list[str] = [
         "<!DOCTYPE html>",
@@ -413,7 +695,7 @@ def write_html_report(
         f"<h1>{_e(title)}</h1>",
         "<section id='summary'><h2>Run summary</h2>",
     ]
-    summary = [
+    summary: list[tuple[str, Any]] = [
         ("records", len(records)),
         ("bases", bases),
         ("features", len(features_rows)),
@@ -423,14 +705,18 @@ def write_html_report(
     for key in ("tool", "version", "decode"):
         if key in report_dict:
             summary.append((key, report_dict[key]))
+    if truth_name is not None:
+        summary.append(("truth", truth_name))
     out.append(_kv_table(summary))
-    out.append("<h3>Features per label</h3>")
-    out.append(_kv_table(sorted(per_label.items())) if per_label else "<p>No features.</p>")
+    out.append("<h3>Features per type</h3>")
+    out.append(_kv_table(per_type, "kv per-type") if per_type else "<p>No features.</p>")
     options = report_dict.get("options") or {}
     if options:
         out.append("<h3>Options</h3>")
         out.append(_kv_table((k, v) for k, v in options.items()))
     out.append("</section>")
+    if accuracy is not None:
+        out.append(_accuracy_section(accuracy, truth_name))
     keys = [k for k in FIGURE_TITLES if k in figures] + sorted(
         k for k in figures if k not in FIGURE_TITLES
     )
@@ -445,15 +731,23 @@ def write_html_report(
             )
         out.append("</section>")
     if calibration is not None:
-        out.append(_calibration_section(calibration))
-    rows = _top(features_rows, top)
+        out.append(_calibration_section(calibration, truth_name))
+    once = table_rows(features_rows)
+    rows = _top(once, top)
     cols = [c for c in TABLE_COLUMNS if any(c in r for r in features_rows)]
     numeric = {c for c in cols if c not in ("seqid", "strand", "type", "id")}
+    folded = len(features_rows) - len(once)
     out.append("<section id='top-features'><h2>Top features</h2>")
     out.append(
-        f"<p class='note'>The {len(rows)} best of {len(features_rows)} feature(s) by segment "
-        "probability, then mean posterior; coordinates 1-based closed. Click a heading to "
-        "sort; type to search.</p>"
+        f"<p class='note'>The {fmt_number(len(rows))} best of {fmt_number(len(once))} "
+        "feature(s) by segment probability, then mean posterior; coordinates 1-based closed."
+        + (
+            f" A span that is two features (an exon and its CDS, a gene and its only mRNA) "
+            f"is one row ({fmt_number(folded)} folded)."
+            if folded
+            else ""
+        )
+        + " Click a heading to sort; type to search.</p>"
     )
     out.append(
         "<p><label for='feature-search'>Search </label>"
@@ -469,9 +763,14 @@ def write_html_report(
     for row in rows:
         cells = []
         for c in cols:
-            v = _fmt(row.get(c, ""))
-            cls = " class='n'" if c in numeric else ""
-            cells.append(f"<td{cls} data-v='{_e(v)}'>{_e(v)}</td>")
+            raw = row.get(c, "")
+            raw = "" if raw is None else raw
+            if c in numeric:
+                num = _number(raw)
+                key = "" if num is None else repr(num)
+                cells.append(f"<td class='n' data-v='{_e(key)}'>{_e(fmt_number(raw))}</td>")
+            else:
+                cells.append(f"<td data-v='{_e(raw)}'>{_e(raw)}</td>")
         out.append("<tr>" + "".join(cells) + "</tr>")
     out.append("</tbody></table></section>")
     out.append(f"<script>{_SCRIPT}</script>")
