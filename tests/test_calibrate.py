@@ -316,8 +316,18 @@ def test_truth_on_absent_sequence(tmp_path: Path) -> None:
     bad.write_text('chrX\tx\tloaded\t1\t10\t.\t+\t.\tgene_id "g"; transcript_id "t";\n')
     out = tmp_path / "r.json"
     line = one_error(["calibrate", "casino", "--fasta", fa, "--truth", bad, "-o", out], 1)
-    assert "bad.gtf line 1" in line and "'chrX'" in line and "sim1" in line
+    assert "share no sequence ID" in line and "'chrX'" in line and "'sim1'" in line
     assert not out.exists()
+
+
+def test_truth_on_some_absent_sequences_is_ignored_with_a_warning(tmp_path: Path) -> None:
+    fa, truth = sample_files(tmp_path, "casino", 2000, 1, 1)
+    more = tmp_path / "more.gff3"
+    more.write_text(truth.read_text() + "chrX\tx\tloaded\t1\t10\t.\t.\t.\tID=x\n")
+    code, lines = run(["calibrate", "casino", "--fasta", fa, "--truth", more])
+    assert code == 0, lines
+    warns = [line for line in lines if line.startswith("warning:")]
+    assert len(warns) == 1 and "'chrX'" in warns[0] and "ignored" in warns[0]
 
 
 def test_truth_past_record_end(tmp_path: Path) -> None:
@@ -365,3 +375,166 @@ def test_truth_without_any_feature_on_the_records(tmp_path: Path) -> None:
     empty.write_text("##gff-version 3\n")
     one_error(["calibrate", "casino", "--fasta", fa, "--truth", empty], 1, "nothing to calibrate")
     one_error(["calibrate", "casino", "--fasta", fa, "--truth", tmp_path / "no.gff3"], 1, "no.gff3")
+
+
+# ---------------------------------------------------------------- chosen types, derived introns
+GENE_FASTA_LENGTH = 6000
+
+
+def gene_files(tmp: Path) -> tuple[Path, Path]:
+    """A synthetic record and a synthetic database-style GFF3 (region, gene, mRNA, exon,
+    CDS; no intron lines): two transcripts, one per strand, and one CDS without parent."""
+    rng = np.random.default_rng(5)
+    seq = "".join(rng.choice(list("ACGT"), GENE_FASTA_LENGTH))
+    fa = tmp / "g.fa"
+    fa.write_text(">chrS synthetic\n" + "\n".join(seq[i : i + 60] for i in range(0, len(seq), 60)))
+    rows = [
+        ("region", 1, GENE_FASTA_LENGTH, "+", ".", "ID=chrS"),
+        ("gene", 101, 1500, "+", ".", "ID=g1"),
+        ("mRNA", 101, 1500, "+", ".", "ID=t1;Parent=g1"),
+        ("exon", 101, 400, "+", ".", "Parent=t1"),
+        ("CDS", 201, 400, "+", "0", "Parent=t1"),
+        ("CDS", 601, 700, "+", "1", "Parent=t1"),
+        ("CDS", 1001, 1300, "+", "0", "Parent=t1"),
+        ("pseudogene", 2001, 2500, "+", ".", "ID=p1"),
+        ("gene", 3001, 4500, "-", ".", "ID=g2"),
+        ("mRNA", 3001, 4500, "-", ".", "ID=t2;Parent=g2"),
+        ("CDS", 3101, 3300, "-", "0", "Parent=t2"),
+        ("CDS", 3901, 4200, "-", "0", "Parent=t2"),
+    ]
+    gff = tmp / "g.gff3"
+    gff.write_text(
+        "##gff-version 3\n"
+        + "".join(f"chrS\tsyn\t{t}\t{a}\t{b}\t.\t{s}\t{p}\t{at}\n" for t, a, b, s, p, at in rows)
+    )
+    return fa, gff
+
+
+def test_database_gff3_needs_type_and_lists_labels_once(tmp_path: Path) -> None:
+    fa, gff = gene_files(tmp_path)
+    line = one_error(["calibrate", "gene-segment", "--fasta", fa, "--truth", gff], 1)
+    assert "'region'" in line and "g.gff3 line 2" in line and "--type" in line
+    assert line.count("CDS") == 1 and "expected one of CDS, intron " in line
+    one_error(
+        ["calibrate", "gene-segment", "--fasta", fa, "--truth", gff, "--type", "exon"],
+        2,
+        "--type exon",
+        "its labels: CDS, intron)",
+    )
+    bed = tmp_path / "t.bed"
+    bed.write_text("chrS\t0\t10\tCDS\n")
+    one_error(
+        ["calibrate", "gene-segment", "--fasta", fa, "--truth", bed, "--type", "CDS"],
+        2,
+        "read as BED",
+    )
+
+
+def test_type_cds_derives_introns_from_the_gaps_between_cds(tmp_path: Path) -> None:
+    from seqstate.commands.calibrate import file_records
+    from seqstate.kinds import track_groups
+
+    fa, gff = gene_files(tmp_path)
+    model = load_model("gene-segment")
+    (rec,), keep = file_records(model, str(fa), str(gff), types=["CDS"])
+    names = [g.track_name for g in track_groups(model)]
+    assert [names[k] for k in keep] == names  # CDS and intron, both strands
+    want = {name: np.zeros(GENE_FASTA_LENGTH, dtype=bool) for name in names}
+    # the rows of gene_files, 1-based closed -> 0-based half-open, by hand
+    for a, b in ((200, 400), (600, 700), (1000, 1300)):
+        want["CDS.plus"][a:b] = True
+    for a, b in ((400, 600), (700, 1000)):
+        want["intron.plus"][a:b] = True
+    for a, b in ((3100, 3300), (3900, 4200)):
+        want["CDS.minus"][a:b] = True
+    want["intron.minus"][3300:3900] = True
+    assert rec.truth is not None
+    for k, name in enumerate(names):
+        assert np.array_equal(rec.truth[:, k], want[name]), name
+    out = tmp_path / "r.json"
+    code, lines = run(
+        ["calibrate", "gene-segment", "--fasta", fa, "--truth", gff, "--type", "CDS", "-o", out]
+    )
+    assert code == 0, lines
+    assert any(line.startswith("note:") and "3 intron(s) derived" in line for line in lines)
+    doc = json.loads(out.read_text())
+    assert [lab["track"] for lab in doc["labels"]] == names
+
+
+def test_label_absent_from_the_truth_is_left_out_with_a_warning(tmp_path: Path) -> None:
+    # flat CDS lines (no transcript) give no intron: the intron tracks are left out,
+    # never scored against a truth that has none
+    fa, _ = gene_files(tmp_path)
+    flat = tmp_path / "flat.gff3"
+    flat.write_text("##gff-version 3\nchrS\tsyn\tCDS\t201\t400\t.\t+\t0\tID=c1\n")
+    out = tmp_path / "r.json"
+    code, lines = run(["calibrate", "gene-segment", "--fasta", fa, "--truth", flat, "-o", out])
+    assert code == 0, lines
+    warns = [line for line in lines if line.startswith("warning:")]
+    assert len(warns) == 1 and "no intron feature" in warns[0], warns
+    assert "intron.plus, intron.minus left out" in warns[0]
+    doc = json.loads(out.read_text())
+    assert [lab["track"] for lab in doc["labels"]] == ["CDS.plus", "CDS.minus"]
+    assert "intron" not in lines[-1]
+
+
+def test_region_counts_only_its_bases_and_cuts_features_at_the_edge(tmp_path: Path) -> None:
+    from seqstate.commands.calibrate import file_records
+
+    fa, truth = sample_files(tmp_path, "casino", 3000, 2, 1)
+    model = load_model("casino")
+    whole, _ = file_records(model, str(fa), str(truth))
+    (part,), _ = file_records(model, str(fa), str(truth), region="sim2:1001-2000")
+    assert part.id == "sim2:1001-2000" and part.symbols.shape[0] == 1000
+    assert whole[1].truth is not None and part.truth is not None
+    assert np.array_equal(part.truth, whole[1].truth[1000:2000])  # cut at both edges
+    out = tmp_path / "r.json"
+    code, lines = run(
+        ["calibrate", "casino", "--fasta", fa, "--truth", truth, "--region", "sim2:1001-2000"]
+        + ["-o", out]
+    )
+    assert code == 0, lines
+    doc = json.loads(out.read_text())
+    assert doc["bases"] == 1000 and doc["records"] == 1 and doc["stretch"] == "sim2:1001-2000"
+    assert doc["labels"][0]["bases"]["forecasts"] == 1000
+
+
+def test_records_selection_on_truth(tmp_path: Path) -> None:
+    fa, truth = sample_files(tmp_path, "casino", 2000, 3, 1)
+    out = tmp_path / "r.json"
+    code, lines = run(
+        ["calibrate", "casino", "--fasta", fa, "--truth", truth, "--records", "sim3,sim1"]
+        + ["-o", out]
+    )
+    assert code == 0, lines
+    doc = json.loads(out.read_text())
+    assert doc["records"] == 2 and doc["bases"] == 4000 and doc["stretch"] == "sim1, sim3"
+    ids = tmp_path / "ids.txt"
+    ids.write_text("sim2\n")
+    code, lines = run(
+        ["calibrate", "casino", "--fasta", fa, "--truth", truth, "--records-file", ids]
+    )
+    assert code == 0 and "1 truth record(s), 2000 bases" in lines[-1], lines
+    one_error(
+        ["calibrate", "casino", "--fasta", fa, "--truth", truth, "--records", "simX"],
+        2,
+        "'simX'",
+    )
+    one_error(
+        ["calibrate", "casino", "--fasta", fa, "--truth", truth, "--records", "sim1"]
+        + ["--region", "sim1"],
+        2,
+        "cannot be combined",
+    )
+
+
+@pytest.mark.parametrize(
+    "extra, must",
+    [
+        (["--region", "sim1:1-10"], "--region only apply to --fasta"),
+        (["--type", "loaded"], "--type only apply to --fasta"),
+        (["--records", "sim1"], "sampling takes a number of records"),
+    ],
+)
+def test_stretch_options_need_a_truth_file(extra: list, must: str) -> None:
+    one_error(["calibrate", "casino", *extra], 2, must)

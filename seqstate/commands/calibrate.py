@@ -23,7 +23,7 @@ from __future__ import annotations
 import io
 import json
 import math
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -32,12 +32,18 @@ import numpy as np
 
 from seqstate import log
 from seqstate.commands.calibration import Reliability
-from seqstate.commands.inputs import model_inputs, read_model_records
+from seqstate.commands.inputs import (
+    indexed_lengths,
+    model_inputs,
+    read_model_records,
+    read_model_region,
+)
+from seqstate.commands.records import choose_stretches
+from seqstate.commands.truth import TruthSet, read_truth
 from seqstate.engine import api
 from seqstate.engine.sampling import sample_record
 from seqstate.errors import FeatureFormatError, UsageError
 from seqstate.io.atomic import OutputSet, check_outputs
-from seqstate.io.intervals import read_interval_file
 from seqstate.io.tables import load_model
 from seqstate.kinds import Group, group_index, track_groups
 from seqstate.kinds.segments import decode_segments
@@ -135,6 +141,11 @@ class CalibrateOptions:
     fasta: str | None = None
     truth: str | None = None
     force: bool = False
+    #: truth features: only these GFF3/GTF types (each a label of the model); empty: all
+    types: tuple[str, ...] = ()
+    #: with --fasta: one stretch (``ID:START-END``, 1-based inclusive) or these records
+    region: str | None = None
+    record_ids: list[str] | None = None
 
 
 @dataclass
@@ -150,6 +161,8 @@ class CalibrateReport:
     labels: list[LabelCalibration] = field(default_factory=list)
     out: str | None = None
     figure: str | None = None
+    #: with a truth file: the stretches calibrated on (1-based inclusive) or None (all)
+    stretch: str | None = None
 
     def summary(self) -> str:
         """The summary line (after ``seqstate: ``)."""
@@ -172,6 +185,7 @@ class CalibrateReport:
             "bases": self.bases,
             "bins": self.bins,
             "seed": self.seed,
+            "stretch": self.stretch,
             "labels": [
                 {
                     "track": lab.track,
@@ -218,72 +232,93 @@ def _state_group_for(model: Model, groups: list[Group]) -> np.ndarray:
     )
 
 
-def _group_for(groups: list[Group], label: str, strand: str) -> int | None:
-    same = [k for k, grp in enumerate(groups) if grp.label == label]
-    if not same:
-        return None
-    if len(same) == 1:
-        return same[0]
-    for k in same:
-        if groups[k].strand == strand:
-            return k
-    return same[0]
+def file_records(
+    model: Model,
+    fasta: str,
+    truth_path: str | TruthSet,
+    *,
+    types: Sequence[str] = (),
+    region: str | None = None,
+    record_ids: Sequence[str] | None = None,
+) -> tuple[list[TruthRecord], list[int]]:
+    """The stretches of ``fasta`` to calibrate on, with the truth of ``truth_path``.
 
-
-def file_records(model: Model, fasta: str, truth_path: str) -> list[TruthRecord]:
-    """The records of ``fasta`` with the truth of ``truth_path`` (BED, GFF3 or GTF).
-
-    Errors (:class:`~seqstate.errors.FeatureFormatError`, naming file and line): a
-    feature type (BED: the name column) that is not a label of the model, a sequence
-    the FASTA lacks, a feature past the end of its record.  Records without any true
-    feature are left out with a warning (the truth covers only part of the input).
+    The truth (BED, GFF3 or GTF, or a :class:`~seqstate.commands.truth.TruthSet` already
+    read) is read by :func:`~seqstate.commands.truth.read_truth` (``types``: the
+    ``--type`` option).  The stretches are ``region`` (``ID:START-END``, 1-based
+    inclusive, as on ``annotate``), the records ``record_ids``, or every record
+    (:func:`~seqstate.commands.records.choose_stretches`); features outside them are
+    ignored, features across an edge are cut at it.  Without a region, records without
+    any true feature are left out with a warning.  Returns the records and the indices
+    of the track groups whose label the truth has in those stretches; every other
+    label is left out with a warning (never scored against a truth that lacks it).
     """
     groups = track_groups(model)
-    fmt, intervals = read_interval_file(truth_path)
-    records = read_model_records(fasta, model)
+    truth = (
+        truth_path
+        if isinstance(truth_path, TruthSet)
+        else read_truth(model, groups, truth_path, types)
+    )
+    lengths = indexed_lengths(fasta, model)
+    records = read_model_records(fasta, model) if lengths is None else []
+    if lengths is None:
+        lengths = {rec.id: len(rec.seq) for rec in records}
+    truth.check_fasta(lengths, list(lengths), fasta)
+    stretches = choose_stretches(lengths, region, record_ids, fasta)
     by_id = {rec.id: rec for rec in records}
-    labels = [grp.label for grp in groups]
+    on: dict[str, list] = {}
+    for f in truth.features:
+        on.setdefault(f.seqid, []).append(f)
     tables = api.prepare(model)
-    truths = {rec.id: np.zeros((len(rec.seq), len(groups)), dtype=np.bool_) for rec in records}
-    shown = str(truth_path)
-    for iv in intervals:
-        label = iv.type if fmt != "bed" else iv.name
-        k = _group_for(groups, label or "", iv.strand)
-        if k is None:
-            raise FeatureFormatError(
-                f"feature type {label!r} is not a label of model {model.name}; expected one "
-                f"of {', '.join(labels) or '(none)'}",
-                path=shown,
-                line0=iv.line0 if iv.line0 >= 0 else None,
-            )
-        rec = by_id.get(iv.seqid)
-        if rec is None:
-            raise FeatureFormatError(
-                f"sequence '{iv.seqid}' is not a record of {fasta}; expected one of "
-                f"{', '.join(list(by_id)[:5])}{', ...' if len(by_id) > 5 else ''}",
-                path=shown,
-                line0=iv.line0 if iv.line0 >= 0 else None,
-            )
-        if iv.end0 > len(rec.seq):
-            raise FeatureFormatError(
-                f"feature ends at base {iv.end0} of '{iv.seqid}', which has {len(rec.seq)} bases",
-                path=shown,
-                line0=iv.line0 if iv.line0 >= 0 else None,
-            )
-        truths[iv.seqid][iv.start0 : iv.end0, k] = True
-    covered = [rec for rec in records if truths[rec.id].any()]
-    if not covered:
+    out: list[TruthRecord] = []
+    for st in stretches:
+        n = st.end0 - st.start0
+        marks = np.zeros((n, len(groups)), dtype=np.bool_)
+        for f in on.get(st.seqid, []):
+            a, b = max(f.start0, st.start0), min(f.end0, st.end0)
+            if a < b:
+                marks[a - st.start0 : b - st.start0, f.group] = True
+        if region is None and not marks.any():
+            continue
+        if st.seqid in by_id:
+            seq = by_id[st.seqid].seq[st.start0 : st.end0]
+        else:
+            got = read_model_region(fasta, model, st)
+            assert got is not None  # the index was there a moment ago
+            seq = got.seq
+        rid = st.seqid if region is None else st.to_text()
+        out.append(TruthRecord(rid, api.symbols_of(tables, seq), marks))
+    del records, by_id
+    shown = truth.path
+    if not out:
         raise FeatureFormatError(
             f"no feature of {shown} lies on a record of {fasta}: nothing to calibrate on",
             path=shown,
         )
-    if len(covered) < len(records):
-        left = len(records) - len(covered)
+    if region is None and len(out) < len(stretches):
+        left = len(stretches) - len(out)
         log.warn(
-            f"{shown} has features on {len(covered)} of {len(records)} record(s) of {fasta}; "
+            f"{shown} has features on {len(out)} of {len(stretches)} record(s) of {fasta}; "
             f"the {left} record(s) without any are left out"
         )
-    return [TruthRecord(rec.id, api.symbols_of(tables, rec.seq), truths[rec.id]) for rec in covered]
+    present = [bool(any(rec.truth[:, k].any() for rec in out)) for k in range(len(groups))]  # type: ignore[index]
+    by_label: dict[str, bool] = {}
+    for grp, here in zip(groups, present):
+        by_label[grp.label] = by_label.get(grp.label, False) or here
+    absent = [label for label, here in by_label.items() if not here]
+    if len(absent) == len(by_label):
+        where = f"region {region}" if region is not None else fasta
+        raise FeatureFormatError(
+            f"no feature of {shown} lies in {where}: nothing to calibrate on", path=shown
+        )
+    for label in absent:
+        tracks = ", ".join(grp.track_name for grp in groups if grp.label == label)
+        log.warn(
+            f"{shown} has no {label} feature in the stretch calibrated on: {tracks} left out "
+            "(not scored against a truth without them)"
+        )
+    keep = [k for k, grp in enumerate(groups) if by_label[grp.label]]
+    return out, keep
 
 
 # ---------------------------------------------------------------- the measure
@@ -502,12 +537,28 @@ def _suffix(name: str, allowed: tuple[str, ...], what: str) -> str:
 
 
 def _check(opts: CalibrateOptions) -> None:
+    if opts.fasta is None:
+        given = [
+            name
+            for name, value in (
+                ("--type", opts.types or None),
+                ("--region", opts.region),
+                ("--records-file", opts.record_ids),
+            )
+            if value is not None
+        ]
+        if given:
+            raise UsageError(
+                f"{', '.join(given)} only apply to --fasta with --truth: give them, or leave "
+                f"{'it' if len(given) == 1 else 'them'} out to sample"
+            )
     if opts.fasta is not None:
+        if opts.region is not None and opts.record_ids is not None:
+            raise UsageError("--records cannot be combined with --region (a region names one)")
         given = [
             name
             for name, value in (
                 ("--length", opts.length),
-                ("--records", opts.records),
                 ("--seed", opts.seed),
             )
             if value is not None
@@ -557,10 +608,22 @@ def calibrate(opts: CalibrateOptions, quiet: bool = True) -> CalibrateReport:
     model = load_model(opts.model)
     progress = log.progress_for(quiet)
     if opts.fasta is not None and opts.truth is not None:
-        recs = file_records(model, opts.fasta, opts.truth)
+        recs, keep = file_records(
+            model,
+            opts.fasta,
+            opts.truth,
+            types=opts.types,
+            region=opts.region,
+            record_ids=opts.record_ids,
+        )
         total = sum(int(r.symbols.shape[0]) for r in recs)
         labs, n_rec, n_bases = calibrate_records(model, recs, opts.bins, progress, total)
+        labs = [labs[k] for k in keep]
         report = CalibrateReport(model.name, "truth", n_rec, n_bases, opts.bins, None, labs)
+        if opts.region is not None:
+            report.stretch = opts.region.strip()
+        elif opts.record_ids is not None:
+            report.stretch = ", ".join(r.id for r in recs)
     else:
         assert opts.length is not None and opts.records is not None and opts.seed is not None
         it = sampled_records(model, opts.length, opts.records, opts.seed)

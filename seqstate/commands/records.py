@@ -12,9 +12,11 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from pathlib import Path
+from types import SimpleNamespace
 from typing import Protocol, TypeVar
 
-from seqstate.errors import UsageError, escape_text
+from seqstate.errors import FeatureFormatError, UsageError, escape_text
+from seqstate.io.regions import Region, check_region, parse_region
 
 #: How many unknown IDs an error message lists before it says "and N more".
 SHOWN_IDS = 5
@@ -135,3 +137,63 @@ def select_records(
         [r for r in records if r.id in want],
         [r for r in skipped if r.id in want],
     )
+
+
+def id_listing(ids: Sequence[str] | set[str], most: int = SHOWN_IDS) -> str:
+    """Up to ``most`` IDs, quoted, then how many there are in all (sorted when a set)."""
+    names = sorted(ids) if isinstance(ids, set) else list(ids)
+    if not names:
+        return "none"
+    shown = ", ".join(f"'{escape_text(rid)}'" for rid in names[:most])
+    return shown + (f", ... ({len(names)} in all)" if len(names) > most else "")
+
+
+def require_shared_ids(
+    first: str, first_ids: Sequence[str] | set[str], second: str, second_ids: Sequence[str] | set[str]
+) -> None:
+    """Two inputs about one genome must share a sequence ID; otherwise a one-line
+    :class:`~seqstate.errors.FeatureFormatError` naming both ID sets (shortened).
+
+    Nothing is raised when either input has no ID at all (its own checks say so).
+    """
+    a, b = set(first_ids), set(second_ids)
+    if a and b and not a & b:
+        raise FeatureFormatError(
+            f"{escape_text(first)} and {escape_text(second)} share no sequence ID "
+            f"({escape_text(first)}: {id_listing(first_ids)}; {escape_text(second)}: "
+            f"{id_listing(second_ids)}): are they of two different assemblies?"
+        )
+
+
+def choose_stretches(
+    lengths: dict[str, int], region: str | None, records: Sequence[str] | None, fasta: str
+) -> list[Region]:
+    """What a command counts: the one ``--region`` (1-based inclusive as typed, checked
+    against the records), the whole ``--records`` selected (in input order), or every
+    record.  ``lengths`` maps record ID to length in bases, in input order.  Returns
+    0-based half-open regions; both options at once is a
+    :class:`~seqstate.errors.UsageError`, as on ``annotate``.
+    """
+    if region is not None and records is not None:
+        raise UsageError("--records cannot be combined with --region (a region names one)")
+    if region is not None:
+        if not region.strip():
+            raise UsageError("--region is empty: expected ID:START-END or ID")
+        return [check_region(parse_region(region), lengths)]
+    ids = list(lengths)
+    if records is not None:
+        known = [SimpleNamespace(id=rid) for rid in ids]
+        kept, _ = select_records(known, [], records, fasta)
+        ids = [r.id for r in kept]
+    return [Region(rid, 0, lengths[rid]) for rid in ids]
+
+
+def describe_stretches(stretches: Sequence[Region], lengths: dict[str, int]) -> str:
+    """The stretches as a person reads them: ``all N record(s)``, a region
+    ``ID:START-END`` (1-based inclusive), or the records (shortened when many)."""
+    whole = all(r.start0 == 0 and r.end0 == lengths.get(r.seqid) for r in stretches)
+    if whole and len(stretches) == len(lengths):
+        return f"all {len(lengths)} record(s)"
+    if whole:
+        return f"record(s) {id_listing([r.seqid for r in stretches])}"
+    return ", ".join(r.to_text() for r in stretches)
