@@ -760,7 +760,26 @@ def merge_cmd(obj: dict | None, quiet: bool, **options: Any) -> None:
 @click.option(
     "--length", type=int, default=None, help="Bases per sampled record.  [default: 200000]"
 )
-@click.option("--records", type=int, default=None, help="Records to sample.  [default: 10]")
+@click.option(
+    "--records",
+    "records_text",
+    default=None,
+    callback=not_empty,
+    help="Sampling: how many records to draw [default: 10].  With --fasta: only these "
+    "record IDs (ID,ID,...), as on annotate.",
+)
+@click.option(
+    "--records-file",
+    default=None,
+    callback=not_empty,
+    help="With --fasta: only the record IDs listed in this file, one per line.",
+)
+@click.option(
+    "--region",
+    default=None,
+    callback=not_empty,
+    help="With --fasta: only ID:START-END (1-based, inclusive) or ID, as on annotate.",
+)
 @click.option("--seed", type=int, default=None, help="Random seed, 0 or more.  [default: 0]")
 @click.option("--bins", type=int, default=10, show_default=True, help="Probability bins.")
 @click.option(
@@ -773,7 +792,15 @@ def merge_cmd(obj: dict | None, quiet: bool, **options: Any) -> None:
     "--truth",
     default=None,
     callback=not_empty,
-    help="Trusted features of --fasta (GFF3, BED or GTF; types are model labels).",
+    help="Trusted features of --fasta (GFF3, BED or GTF; types are model labels, or "
+    "choose them with --type).",
+)
+@click.option(
+    "--type",
+    "types",
+    multiple=True,
+    help="GFF3 or GTF truth: only features of this type, a label of the model "
+    "(repeatable); introns come from the gaps between CDS when not chosen.",
 )
 @click.option(
     "-o", "--out", "out", default=None, callback=not_empty, help="Report file, .tsv or .json."
@@ -786,11 +813,35 @@ def merge_cmd(obj: dict | None, quiet: bool, **options: Any) -> None:
 )
 @force_option
 @quiet_option
-def calibrate_cmd(quiet: bool, **options: Any) -> None:
+def calibrate_cmd(
+    quiet: bool,
+    records_text: str | None,
+    records_file: str | None,
+    types: tuple[str, ...],
+    **options: Any,
+) -> None:
     """How well MODEL's posteriors match the truth: sampled, or --fasta with --truth."""
     from seqstate.commands.calibrate import CalibrateOptions, calibrate
+    from seqstate.commands.records import records_selection
+    from seqstate.errors import UsageError
 
-    say(quiet, calibrate(CalibrateOptions(**options), quiet=quiet).summary())
+    count: int | None = None
+    record_ids: list[str] | None = None
+    if options["fasta"] is not None:
+        record_ids = records_selection(records_text, records_file)
+    else:
+        if records_file is not None:
+            record_ids = [records_file]  # refused by the checks: it needs --fasta
+        if records_text is not None:
+            try:
+                count = int(records_text)
+            except ValueError:
+                raise UsageError(
+                    f"--records {records_text!r}: sampling takes a number of records (record "
+                    "IDs only apply with --fasta)"
+                ) from None
+    opts = CalibrateOptions(records=count, record_ids=record_ids, types=tuple(types), **options)
+    say(quiet, calibrate(opts, quiet=quiet).summary())
 
 
 if __name__ == "__main__":  # pragma: no cover
