@@ -133,7 +133,7 @@ def test_boxes_and_curve_match_annotate(annotated, r0, r1):
     ]
     assert ax.get_ylim() == (0.0, 1.0)
     # 40 kb (or 18 kb) on 8 x 60 = 480 pixel columns: binned means, the bin in the title
-    assert ax.get_ylabel().startswith("posterior probability\n(mean per ")
+    assert ax.get_title(loc="left").startswith("posterior probability (mean per ")
     assert ax.get_xlim() == (r0 + 0.5, r1 + 0.5)
     title = fig._suptitle.get_text()
     assert region in title and "cpg-island" in title
@@ -310,7 +310,8 @@ def test_region_over_the_maximum_needs_allow_large(tmp_path):
         ]
     )
     assert res.exit_code == 0, res.stderr
-    assert matplotlib.image.imread(out).shape[:2] == (80, 160)
+    # 2 inches hold no readable curve over a lane: the figure grows to its least height
+    assert matplotlib.image.imread(out).shape[:2] == (round(40 * _least_height(1)), 160)
 
 
 @pytest.mark.parametrize(
@@ -465,7 +466,7 @@ def test_whole_record_is_binned_means(gene_run):
     fig = draw(data, 5, 3, 40)  # 200 pixel columns, 400 points at most: 30 kb is binned
     size = bin_size(30_000, 400)
     assert size == 150  # ceil(30000 / 200)
-    assert fig.axes[0].get_ylabel() == "posterior probability\n(mean per 150-base bin)"
+    assert fig.axes[0].get_title(loc="left") == "posterior probability (mean per 150-base bin)"
     line = fig.axes[0].get_lines()[0]
     ys = np.asarray(line.get_ydata())
     # the mean of each 150-base bin, by hand (numpy reshape)
@@ -522,22 +523,26 @@ def test_reference_types_and_gene_models(gene_run, tmp_path):
     ref = tmp_path / "ref.gff3"
     ref.write_text(REF_GFF3)
     data = _ref_data(ref, fa)
-    # by default the whole-sequence 'region' row takes no lane and the title says so
-    assert data.reference_hidden == ["region"]
-    # rows by type in file order; the two isoforms overlap, so the mRNA and CDS rows
-    # have two tiers each (the lone CDS at 1501-1800 fits in the first)
-    assert data.reference_rows == ["gene", "mRNA", "", "CDS", ""]
-    cds = [f for f in data.reference if f.row in (3, 4)]
+    # by default only the types that are the model's labels (CDS): the others take no
+    # lane and the title says so
+    assert data.reference_hidden == ["region", "gene", "mRNA"]
+    # the two isoforms overlap, so the CDS row has two tiers (the lone CDS at 1501-1800
+    # fits in the first)
+    assert data.reference_rows == ["CDS", ""]
     by_model: dict[str, set] = {}
-    for f in cds:
+    for f in data.reference:
         by_model.setdefault(f.model, set()).add((f.start0, f.end0, f.row, f.label))
     assert by_model == {
-        "G1.a": {(100, 300, 3, "G1"), (700, 900, 3, "G1")},  # labelled with the gene ID
-        "G1.b": {(100, 300, 4, "G1"), (500, 600, 4, "G1")},
-        None: {(1500, 1800, 3, "lone")},
+        "G1.a": {(100, 300, 0, "G1"), (700, 900, 0, "G1")},  # labelled with the gene ID
+        "G1.b": {(100, 300, 1, ""), (500, 600, 1, "")},  # the same gene: its ID once
+        None: {(1500, 1800, 0, "lone")},
     }
     fig = draw(data, 8, 5, 50)
-    assert "not shown: region" in fig.axes[2].get_title(loc="left")
+    assert "not shown: region, gene, mRNA" in fig.axes[2].get_title(loc="left")
+    labels = [t.get_text() for t in fig.axes[2].texts]
+    assert sorted(labels) == ["G1", "lone"]
+    every = _ref_data(ref, fa, "gene", "mRNA", "CDS")
+    assert every.reference_rows == ["gene", "mRNA", "", "CDS", ""]
     marks = [
         ln for ln in fig.axes[2].get_lines() if (ln.get_gid() or "").startswith("reference-strand")
     ]
@@ -576,3 +581,75 @@ def test_reference_gtf_draws_as_its_gff3_twin(gene_run, tmp_path):
     )
     assert res.exit_code == 0, res.stderr
     assert "4 reference feature(s)" in res.stderr
+
+
+def _least_height(n_lane_rows: int, n_ref_rows: int | None = None) -> float:
+    from seqstate.commands.plot import MIN_CURVE_INCHES, _lane_inches
+
+    lanes = _lane_inches(n_lane_rows) + (0 if n_ref_rows is None else _lane_inches(n_ref_rows))
+    return 1.2 + MIN_CURVE_INCHES + lanes
+
+
+def _texts_inside_and_apart(fig) -> list:
+    """Every visible text of a drawn figure lies inside it; ID labels do not overlap."""
+    from matplotlib.text import Text
+
+    renderer = fig.canvas.get_renderer()
+    box = fig.bbox
+    labels = []
+    unseen = set()  # labels of ticks outside the view: matplotlib does not draw them
+    for ax in fig.axes:
+        for axis, (lo, hi) in ((ax.xaxis, ax.get_xlim()), (ax.yaxis, ax.get_ylim())):
+            for tick in axis.get_major_ticks():
+                if not min(lo, hi) <= tick.get_loc() <= max(lo, hi):
+                    unseen |= {id(tick.label1), id(tick.label2)}
+    for t in fig.findobj(Text):
+        if not t.get_visible() or not t.get_text() or id(t) in unseen:
+            continue
+        ext = t.get_window_extent(renderer)
+        # matplotlib's own measure of the drawn text (Text.get_window_extent)
+        assert ext.x0 >= box.x0 - 0.5 and ext.x1 <= box.x1 + 0.5, t.get_text()
+        assert ext.y0 >= box.y0 - 0.5 and ext.y1 <= box.y1 + 0.5, t.get_text()
+        if "-label-" in (t.get_gid() or ""):
+            labels.append(ext)
+    for i, a in enumerate(labels):
+        assert not any(a.overlaps(b) for b in labels[i + 1 :])
+    return labels
+
+
+def test_nothing_clipped_at_the_default_size(gene_run, tmp_path):
+    from seqstate.commands.plot import PlotOptions as Opts
+
+    _, fa, _, _ = gene_run
+    ref = tmp_path / "ref.gff3"
+    ref.write_text(REF_GFF3)
+    for model, region in (("cpg-island", "sim1:1-30000"), ("gene-segment", "sim1:1-30000")):
+        data = plot_data(
+            Opts(input=str(fa), region=region, out="x.png", model=model, reference=str(ref))
+        )
+        defaults = Opts(input="", region="", out="")
+        fig = draw(data, defaults.width, defaults.height, defaults.dpi)
+        fig.canvas.draw()
+        # the tight bounding box of everything drawn (matplotlib Figure.get_tightbbox)
+        tight = fig.get_tightbbox(fig.canvas.get_renderer())
+        w, h = fig.get_size_inches()
+        assert tight.x0 >= -0.01 and tight.y0 >= -0.01 and tight.x1 <= w + 0.01
+        assert tight.y1 <= h + 0.01
+        _texts_inside_and_apart(fig)
+
+
+def test_crowded_labels_are_dropped_or_moved_not_overprinted():
+    from seqstate.commands.plot import LaneFeature, PlotData
+
+    # 30 genes of 40 bases side by side, IDs far longer than the genes
+    decoded = [
+        LaneFeature(i % 2, 50 * i, 50 * i + 40, "", "+", f"g{i}", f"record.gene.{i}")
+        for i in range(30)
+    ]
+    data = PlotData("r", 0, 1500, "m", "viterbi", "note", ["a"], np.zeros((1500, 1)), decoded)
+    data.decoded_rows = ["genes +", "genes -"]
+    fig = draw(data, 10, 4, 100)
+    written = _texts_inside_and_apart(fig)
+    assert 2 <= len(written) < 30  # some fit, the others are left out
+    title = fig.axes[1].get_title(loc="left")
+    assert f"{30 - len(written)} ID(s) not written (no room)" in title

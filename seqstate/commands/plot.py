@@ -17,8 +17,12 @@ the window and prefixed with it).  Reference features that share a parent (GFF3
 ``Parent``, GTF ``transcript_id``) are drawn the same way, labelled with their gene
 (the parent's parent, or GTF ``gene_id``).  Every stranded box has an arrowhead on
 its 3' side.  Overlapping features of one reference row are stacked in tiers.
-Reference types are chosen by ``reference_types``; by default every type except
-those that describe a whole sequence (:data:`WHOLE_SEQUENCE_TYPES`).
+Reference types are chosen by ``reference_types``; by default the types that are the
+model's labels (:func:`default_reference_types`), else every type except those that
+describe a whole sequence (:data:`WHOLE_SEQUENCE_TYPES`).  A gene's ID is written once per
+lane; labels that would overprint another or leave their lane are moved (above or below
+their model, left- or right-aligned) or left out, and the lane title counts those left out.
+The figure's height is the least one: lanes of many rows make it taller.
 
 When a curve has more bases than :data:`MAX_POINTS_FACTOR` points per pixel column
 allows, it is summarised: the mean posterior of each bin of equal bases is drawn
@@ -94,6 +98,8 @@ MAX_POINTS_FACTOR = 2
 WHOLE_SEQUENCE_TYPES = ("region", "chromosome", "contig", "scaffold", "supercontig")
 #: At most this many models (genes, transcripts, features) labelled per lane.
 MAX_LABELS = 40
+#: Least height of the posterior panel (inches); the figure grows to keep it.
+MIN_CURVE_INCHES = 1.5
 
 _MISSING = "plotting needs the optional extra: pip install 'seqstate[plot]'"
 
@@ -338,7 +344,9 @@ def plot_data(opts: PlotOptions) -> PlotData:
         decoded_unit="gene" if genes else "feature",
     )
     if ref is not None:
-        rows, feats, hidden = _reference_lane(ref, seqid, region.start0, region.end0, opts)
+        rows, feats, hidden = _reference_lane(
+            ref, seqid, region.start0, region.end0, opts, [g.label for g in groups]
+        )
         data.reference_rows = rows
         data.reference = feats
         data.reference_hidden = hidden
@@ -346,13 +354,26 @@ def plot_data(opts: PlotOptions) -> PlotData:
     return data
 
 
+def default_reference_types(ref: Any, labels: list[str]) -> set[str]:
+    """The reference types drawn without ``--reference-type``: those that are labels of the
+    model (CDS for a gene model, CpG_island for the CpG model); when the file has none
+    of them, every type but :data:`WHOLE_SEQUENCE_TYPES`."""
+    present = {reg.type if ref.format != "bed" and reg.type else "interval" for reg in ref.regions}
+    match = present & set(labels)
+    return match or (present - set(WHOLE_SEQUENCE_TYPES))
+
+
 def _reference_lane(
-    ref: Any, seqid: str, r0: int, r1: int, opts: PlotOptions
+    ref: Any, seqid: str, r0: int, r1: int, opts: PlotOptions, labels: list[str] | None = None
 ) -> tuple[list[str], list[LaneFeature], list[str]]:
     """Rows (one per selected type, more tiers where features overlap), boxes and the
-    types left out, of the reference features of ``seqid`` that overlap ``[r0, r1)``."""
+    types left out, of the reference features of ``seqid`` that overlap ``[r0, r1)``.
+
+    Types drawn: ``opts.reference_types``, else :func:`default_reference_types` of the
+    model's ``labels``.  A gene's ID is written once per type, on its first transcript."""
     chosen = set(opts.reference_types)
     every = "all" in chosen
+    default = default_reference_types(ref, labels or [])
     by_id = {_attr(reg, "ID"): reg for reg in ref.regions if _attr(reg, "ID")}
     kinds: list[str] = []
     hidden: list[str] = []
@@ -361,7 +382,7 @@ def _reference_lane(
         if reg.seqid != seqid or reg.end0 <= r0 or reg.start0 >= r1:
             continue
         kind = reg.type if ref.format != "bed" and reg.type else "interval"
-        shown = every or (kind in chosen if chosen else kind not in WHOLE_SEQUENCE_TYPES)
+        shown = every or (kind in chosen if chosen else kind in default)
         if not shown:
             if kind not in hidden:
                 hidden.append(kind)
@@ -390,7 +411,13 @@ def _reference_lane(
         tiers: list[int] = []  # end of the last model of each tier
         gap = max(1, (r1 - r0) // 200)
         first_row = len(rows)
+        written: set[str] = set()  # gene IDs already written in this type's rows
         for members in sorted(models.values(), key=lambda m: min(r.start0 for r, _, _ in m)):
+            gene = members[0][2]
+            if gene in written:
+                members = [(reg, key, "") for reg, key, _ in members]
+            elif gene:
+                written.add(gene)
             lo = min(r.start0 for r, _, _ in members)
             hi = max(r.end0 for r, _, _ in members)
             tier = next((t for t, end in enumerate(tiers) if end + gap <= lo), None)
@@ -506,19 +533,21 @@ def _lane(
                 zorder=3,
                 gid=f"{lane}-strand-{k}",
             )
-        label = members[0].label
+        label = next((f.label for f in members if f.label), "")
         if labelled and label:
             left = lo if span is None else max(lo, span[0] + 0.5)
-            ax.text(
+            text = ax.text(
                 left,
                 y + 0.38,
                 label,
-                fontsize="xx-small",
+                fontsize="x-small",
                 va="bottom",
                 ha="left",
-                clip_on=True,
+                clip_on=False,
                 gid=f"{lane}-label-{k}",
             )
+            # the other anchor _place_labels may use: the model's right end, in view
+            text.seqstate_right = hi if span is None else min(hi, span[1] + 0.5)
     if not labelled and any(f.label for f in features):
         title += f"; {len(in_view)} in view, IDs not written (at most {MAX_LABELS})"
     for i, feat in enumerate(sorted(features, key=lambda f: (f.start0, f.end0, f.row)), 1):
@@ -536,13 +565,61 @@ def _lane(
         )
         box.set_gid(f"{gid_prefix}-{i}")
         ax.add_patch(box)
-    ax.set_ylim(-0.6, n_rows - 0.4)
+    ax.set_ylim(-0.6, n_rows - 0.1)  # room above the top row for its IDs
     ax.set_yticks(range(n_rows))
     ax.set_yticklabels(list(reversed(rows)) if rows else ["(none in region)"])
     ax.tick_params(axis="y", length=0)
     ax.set_title(title, loc="left", fontsize="small")
     for side in ("top", "right", "left"):
         ax.spines[side].set_visible(False)
+
+
+def _place_labels(fig: Any, axes: list) -> int:
+    """Keep the lanes' ID labels from overprinting: each label (left to right) stays above
+    its box, else moves below it, else is removed; a label must lie inside its lane.
+    Needs a drawn figure with a fixed layout; returns how many labels were removed."""
+    renderer = fig.canvas.get_renderer()
+    dropped = 0
+    kept: list[Any] = []
+    for ax in axes:
+        box = ax.get_window_extent(renderer)
+        texts = sorted(
+            (t for t in ax.texts if (t.get_gid() or "").count("-label-")),
+            key=lambda t: t.get_position()[0],
+        )
+        for text in texts:
+            x, y = text.get_position()
+            right = float(getattr(text, "seqstate_right", x))
+            placed = False
+            for dy, va, at, ha in (
+                (0.0, "bottom", x, "left"),
+                (0.0, "bottom", right, "right"),
+                (-0.76, "top", x, "left"),
+                (-0.76, "top", right, "right"),
+            ):
+                text.set_position((at, y + dy))
+                text.set_va(va)
+                text.set_ha(ha)
+                ext = text.get_window_extent(renderer)
+                inside = (
+                    ext.x0 >= box.x0 - 1
+                    and ext.x1 <= box.x1 + 1
+                    and ext.y0 >= box.y0 - 1
+                    and ext.y1 <= box.y1 + 1
+                )
+                if inside and not any(ext.overlaps(other) for other in kept):
+                    kept.append(ext)
+                    placed = True
+                    break
+            if not placed:
+                text.remove()
+                dropped += 1
+    return dropped
+
+
+def _lane_inches(n_rows: int) -> float:
+    """Height of a lane of ``n_rows`` rows: room for its title and a readable row each."""
+    return 0.4 + 0.25 * max(1, n_rows)
 
 
 def draw(data: PlotData, width: float = 10.0, height: float = 4.0, dpi: int = 100) -> Figure:
@@ -558,13 +635,17 @@ def draw(data: PlotData, width: float = 10.0, height: float = 4.0, dpi: int = 10
     from matplotlib.figure import Figure
     from matplotlib.ticker import FuncFormatter, MaxNLocator
 
+    dec_rows = data.decoded_rows or data.groups
+    lanes = [0.0, _lane_inches(len(dec_rows))]
+    if data.reference_rows is not None:
+        lanes.append(_lane_inches(len(data.reference_rows)))
+    # the curves get what the lanes leave, but never less than MIN_CURVE_INCHES: a
+    # figure too short for its lanes is made taller rather than drawn unreadable
+    margins = 1.2  # title, legend and x axis (inches)
+    height = max(height, margins + MIN_CURVE_INCHES + sum(lanes))
+    lanes[0] = height - margins - sum(lanes)
     fig = Figure(figsize=(width, height), dpi=dpi, layout="constrained")
     FigureCanvasAgg(fig)
-    dec_rows = data.decoded_rows or data.groups
-    n_dec = max(1, len(dec_rows))
-    lanes = [3.0, 0.5 + 0.4 * n_dec]
-    if data.reference_rows is not None:
-        lanes.append(0.5 + 0.4 * max(1, len(data.reference_rows)))
     grid = fig.add_gridspec(len(lanes), 1, height_ratios=lanes)
     ax = fig.add_subplot(grid[0])
     max_points = int(MAX_POINTS_FACTOR * width * dpi)
@@ -586,16 +667,22 @@ def draw(data: PlotData, width: float = 10.0, height: float = 4.0, dpi: int = 10
             zorder=2 + g,
         )
     ax.set_ylim(0.0, 1.0)
-    if size > 1:
-        ax.set_ylabel(f"posterior probability\n(mean per {size:,}-base bin)")
-    else:
-        ax.set_ylabel("posterior probability")
+    ax.set_ylabel("posterior")
+    ax.set_title(
+        f"posterior probability (mean per {size:,}-base bin)"
+        if size > 1
+        else "posterior probability (every base)",
+        loc="left",
+        fontsize="small",
+    )
     ax.legend(
-        loc="upper left",
-        bbox_to_anchor=(1.005, 1.0),
+        loc="lower right",
+        bbox_to_anchor=(1.0, 1.0),
+        ncols=max(1, len(data.groups)),
         frameon=False,
         fontsize="small",
         handlelength=3.0,
+        borderaxespad=0.2,
     )
     for side in ("top", "right"):
         ax.spines[side].set_visible(False)
@@ -642,6 +729,16 @@ def draw(data: PlotData, width: float = 10.0, height: float = 4.0, dpi: int = 10
         f"(posteriors from {context})",
         fontsize="medium",
     )
+    # lay out once, then keep that layout while labels are placed and the file is written
+    fig.canvas.draw()
+    fig.set_layout_engine("none")
+    for lane_ax in axes[1:]:
+        dropped = _place_labels(fig, [lane_ax])
+        if dropped:
+            title = lane_ax.get_title(loc="left")
+            lane_ax.set_title(
+                f"{title}; {dropped} ID(s) not written (no room)", loc="left", fontsize="small"
+            )
     return fig
 
 
