@@ -480,6 +480,7 @@ def score_cmd(regions_format: str, types: tuple[str, ...], quiet: bool, **option
     multiple=True,
     callback=lambda _ctx, _param, value: tuple(value),
     help="Reference type (column 3) to draw, repeatable; 'all' for every type. Default: "
+    "the types that are the model's labels (CDS, CpG_island, ...); when the file has none, "
     "all but whole-sequence types (region, chromosome, contig, scaffold, supercontig).",
 )
 @click.option(
@@ -489,7 +490,13 @@ def score_cmd(regions_format: str, types: tuple[str, ...], quiet: bool, **option
     help="Compute on the region plus N bases each side instead of the whole record.",
 )
 @click.option("--width", type=float, default=10.0, show_default=True, help="Inches.")
-@click.option("--height", type=float, default=4.0, show_default=True, help="Inches.")
+@click.option(
+    "--height",
+    type=float,
+    default=4.0,
+    show_default=True,
+    help="Inches; the least height: a figure with many lane rows is made taller.",
+)
 @click.option(
     "--dpi",
     type=int,
