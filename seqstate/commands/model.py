@@ -24,6 +24,27 @@ def check(spec: str) -> str:
     return summary(m, str(path), model_sha256(m))
 
 
+def gene_layout_text(m: Model) -> str | None:
+    """The signal sizes of a gene-segment layout, from its state names (None for a model
+    of another kind): ``start flank 12, stop flank 6, donor GT+8, acceptor 28+AG, ...``
+    (flank and window sizes in bases)."""
+    from seqstate.kinds import GENES
+    from seqstate.kinds.gene_layout import shape_of
+
+    if not GENES.claims(m) or "i0_d1+" not in m.state_names:
+        return None
+    shape = shape_of(m.state_names)
+    if shape.body_stages == (1,):
+        body = "one self-looping state"
+    else:
+        body = "branches of " + " or ".join(str(r) for r in shape.body_stages) + " states"
+    return (
+        f"start flank {shape.up_flank}, stop flank {shape.down_flank}, donor "
+        f"GT+{shape.donor_flank}, acceptor {shape.acceptor_flank}+AG, intron body {body}, "
+        f"repeat state {'yes' if shape.repeat else 'no'}"
+    )
+
+
 def summary(m: Model, path: str, sha: str) -> str:
     """Readable summary of a model: states, labels, strands, transitions, stay lengths."""
     lines = [f"model     {m.name}", f"manifest  {path}"]
@@ -31,6 +52,10 @@ def summary(m: Model, path: str, sha: str) -> str:
         lines.append(f"about     {m.description}")
     lines.append(f"alphabet  {m.alphabet} ({len(m.alphabet)} symbols)")
     lines.append(f"order     {m.order} (emission depends on the previous {m.order} symbols)")
+    lines.append(f"states    {m.n_states}, allowed moves {len(m.allowed_transitions())}")
+    layout = gene_layout_text(m)
+    if layout is not None:
+        lines.append(f"layout    {layout}")
     lines.append(f"decode    {m.decode} (default)")
     thresholds = default_thresholds(m)
     lines.append(

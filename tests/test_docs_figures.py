@@ -1,0 +1,234 @@
+"""The structural figures the READMEs publish (state and move counts, signal widths) match the
+models: parsed from README.md and models/README.md, compared with `seqstate model check` and
+with the same figures derived here from the tables themselves (walking the allowed moves and
+the emission zeros, not the state names), so a changed layout cannot leave the text behind."""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from seqstate.cli import main
+from seqstate.io.tables import list_builtin, load_model
+from seqstate.kinds.gene_layout import DEFAULT_SHAPE, build_layout
+from seqstate.model import Model
+
+REPO = Path(__file__).resolve().parent.parent
+README = (REPO / "README.md").read_text(encoding="utf-8")
+MODELS_README = (REPO / "models" / "README.md").read_text(encoding="utf-8")
+
+
+def flat(text: str) -> str:
+    """Markdown text with its line breaks folded (a figure may wrap)."""
+    return re.sub(r"\s+", " ", text)
+
+
+def between(text: str, first: str, last: str) -> str:
+    """The text from ``first`` up to (without) ``last``; both must be there."""
+    text = flat(text)
+    assert first in text, f"the documents lost the passage starting {first!r}"
+    i = text.index(first)
+    j = text.index(last, i)
+    return text[i:j]
+
+
+def one(pattern: str, text: str) -> int:
+    """The one integer ``pattern`` captures in ``text`` (it must occur once)."""
+    found = re.findall(pattern, text)
+    assert len(found) == 1, (pattern, found, text)
+    return int(found[0])
+
+
+# ---------------------------------------------------------------- figures from the tables
+def _successors(m: Model, i: int) -> list[int]:
+    return [int(j) for j in np.flatnonzero(m.transitions[i] > 0)]
+
+
+def _only_base(m: Model, i: int) -> str | None:
+    """The one base state ``i`` can emit in every context (None if it can emit several)."""
+    can = np.any(m.emissions[i] > 0, axis=0)
+    return m.alphabet[int(np.flatnonzero(can)[0])] if can.sum() == 1 else None
+
+
+def structure(m: Model) -> dict[str, object]:
+    """States, allowed moves and the plus-strand signal widths of a gene layout, derived from
+    its moves and emission zeros: the start flank is the run of unlabelled plus-strand states
+    from ``intergenic`` to the first coding state; the stop flank the unlabelled run back from
+    ``intergenic`` to the last coding state; a donor window is the chain from an intron state
+    entered from a coding state up to the self-looping body (less the two bases, which must be
+    G then T); an acceptor window the chain from the body's exit to a coding state (less A, G)."""
+    names = m.state_names
+    label = [s.label for s in m.states]
+    strand = [s.strand for s in m.states]
+    inter = names.index("intergenic")
+    plus = [i for i in range(m.n_states) if strand[i] == "+"]
+
+    (first,) = [j for j in _successors(m, inter) if strand[j] == "+"]
+    up = 0
+    while label[first] is None:
+        up += 1
+        (first,) = _successors(m, first)
+    last = [i for i in plus if inter in _successors(m, i)]
+    down = 0
+    while last and label[last[0]] is None:
+        down += 1
+        last = [i for i in plus if last[0] in _successors(m, i)]
+
+    donors, acceptors = set(), set()
+    entries = [
+        i
+        for i in plus
+        if label[i] == "intron" and any(label[p] == "CDS" and i in _successors(m, p) for p in plus)
+    ]
+    for entry in entries:
+        chain = [entry]
+        while chain[-1] not in _successors(m, chain[-1]):  # up to the self-looping body
+            (nxt,) = _successors(m, chain[-1])
+            chain.append(nxt)
+        body = chain.pop()
+        assert [_only_base(m, i) for i in chain[:2]] == ["G", "T"], names[entry]
+        donors.add(len(chain) - 2)
+        (state,) = [j for j in _successors(m, body) if j != body]
+        chain = [state]
+        while label[chain[-1]] == "intron":
+            nxt = _successors(m, chain[-1])
+            assert len(nxt) == 1 or all(label[j] == "CDS" for j in nxt), names[chain[-1]]
+            chain.append(nxt[0])  # the last acceptor state may enter several coding states
+        chain.pop()
+        assert [_only_base(m, i) for i in chain[-2:]] == ["A", "G"], names[entry]
+        acceptors.add(len(chain) - 2)
+    assert len(entries) == 6 and len(donors) == 1 and len(acceptors) == 1, (donors, acceptors)
+    return {
+        "states": m.n_states,
+        "moves": int(np.count_nonzero(m.transitions)),
+        "up": up,
+        "down": down,
+        "donor": donors.pop(),
+        "acceptor": acceptors.pop(),
+        "repeat": "repeat" in names,
+    }
+
+
+@pytest.fixture(scope="module")
+def shipped() -> dict[str, object]:
+    fitted = structure(load_model("gene-segment"))
+    # the fitted model keeps its start model's layout: same moves, same emission zeros
+    assert structure(load_model("gene-segment-layout")) == fitted
+    return fitted
+
+
+@pytest.fixture(scope="module")
+def first_layout() -> dict[str, object]:
+    return structure(build_layout(3, shape=DEFAULT_SHAPE))
+
+
+def model_check(name: str) -> dict[str, object]:
+    """The figures `seqstate model check NAME` prints on its states and layout lines."""
+    res = CliRunner().invoke(main, ["model", "check", name])
+    assert res.exit_code == 0, res.output
+    text = res.output
+    states, moves = re.search(r"^states +(\d+), allowed moves (\d+)$", text, re.M).groups()
+    layout = re.search(
+        r"^layout +start flank (\d+), stop flank (\d+), donor GT\+(\d+), acceptor (\d+)\+AG, "
+        r"intron body one self-looping state, repeat state (yes|no)$",
+        text,
+        re.M,
+    )
+    assert layout is not None, text
+    up, down, donor, acceptor, repeat = layout.groups()
+    return {
+        "states": int(states),
+        "moves": int(moves),
+        "up": int(up),
+        "down": int(down),
+        "donor": int(donor),
+        "acceptor": int(acceptor),
+        "repeat": repeat == "yes",
+    }
+
+
+# ---------------------------------------------------------------- the tests
+@pytest.mark.parametrize("name", ["gene-segment", "gene-segment-layout"])
+def test_model_check_prints_the_figures_of_the_tables(name, shipped):
+    assert model_check(name) == shipped
+
+
+def test_readme_gene_paragraph_describes_the_shipped_model(shipped):
+    text = between(README, "The layout (ours) tracks codon position", "`gene-segment-layout` is")
+    doc = {
+        "states": one(r"(\d+) states, \d+ allowed moves", text),
+        "moves": one(r"\d+ states, (\d+) allowed moves", text),
+        "up": one(r"(\d+)-base flank before the start codon", text),
+        "down": one(r"(\d+)-base flank after the stop codon", text),
+        "donor": one(r"GT\+(\d+)", text),
+        "acceptor": one(r"(\d+)\+AG", text),
+        "repeat": "a `repeat` state" in text,
+    }
+    assert doc == shipped
+
+
+def test_readme_names_the_first_layout_apart(first_layout):
+    text = between(README, "The smaller first layout", "no built-in model uses it")
+    doc = {
+        "states": one(r"(\d+) states, \d+ allowed moves", text),
+        "moves": one(r"\d+ states, (\d+) allowed moves", text),
+        "up": one(r"(\d+)-base start flank", text),
+        "down": 0 if "no stop flank" in text else -1,
+        "donor": one(r"GT\+(\d+)", text),
+        "acceptor": one(r"(\d+)\+AG", text),
+        "repeat": "no `repeat`" not in text,
+    }
+    assert doc == first_layout
+
+
+def test_models_readme_structure_paragraph(shipped, first_layout):
+    text = between(MODELS_README, "Structure of `gene-segment`", "## Rebuilding")
+    ours, first = text.split("The first layout")
+    doc = {
+        "states": one(r"(\d+) states", ours),
+        "moves": one(r"(\d+) allowed moves", ours),
+        "up": one(r"start flank of (\d+) bases", ours),
+        "down": one(r"stop flank of (\d+)", ours),
+        "donor": one(r"GT\+(\d+)", ours),
+        "acceptor": one(r"(\d+)\+AG", ours),
+        "repeat": "a `repeat` state" in ours,
+    }
+    assert doc == shipped
+    doc = {
+        "states": one(r"(\d+) states", first),
+        "moves": one(r"(\d+) allowed moves", first),
+        "up": one(r"start flank of (\d+) bases", first),
+        "down": 0 if "no stop flank" in first else -1,
+        "donor": one(r"GT\+(\d+)", first),
+        "acceptor": one(r"(\d+)\+AG", first),
+        "repeat": False,
+    }
+    assert doc == first_layout
+
+
+def test_models_readme_gene_rows(shipped):
+    for name in ("gene-segment-layout", "gene-segment"):
+        row = next(ln for ln in MODELS_README.splitlines() if ln.startswith(f"| `{name}` |"))
+        assert int(row.split("|")[2]) == shipped["states"], row
+    row = next(ln for ln in MODELS_README.splitlines() if ln.startswith("| `gene-segment-layout`"))
+    assert one(r"a start flank of (\d+) bases", row) == shipped["up"]
+    assert one(r"a stop flank of (\d+)", row) == shipped["down"]
+    assert one(r"GT \+ (\d+)", row) == shipped["donor"]
+    assert one(r"(\d+) \+ AG", row) == shipped["acceptor"]
+
+
+def test_models_readme_table_counts_states_and_order_of_every_builtin():
+    rows = {
+        ln.split("|")[1].strip().strip("`"): ln.split("|")
+        for ln in MODELS_README.splitlines()
+        if ln.startswith("| `")
+    }
+    assert sorted(rows) == sorted(list_builtin())
+    for name, cells in rows.items():
+        m = load_model(name)
+        assert int(cells[2].split()[0]) == m.n_states, name
+        assert int(cells[3]) == m.order, name
