@@ -7,6 +7,9 @@
 * ``random_sequence``: the one record sampler (tests/helpers.py): uniform
   letters over an alphabet with unknown and soft-masked symbols mixed in, or,
   with ``model=``, a record drawn from the model's own chain;
+* ``held_run``: starts ``python -m seqstate ...`` held at a named point of the run
+  (``SEQSTATE_TEST_HOLD``, :func:`seqstate.io.atomic.hold_point`) and returns once
+  it is held, so a test sends its signal at a known moment, never after a sleep;
 * ``kernel``: runs a test once with the engine's specialised kernels allowed
   (its normal dispatch) and once with the generic kernels only (the in-process
   equivalent of ``SEQSTATE_KERNELS=generic``).
@@ -15,6 +18,10 @@
 from __future__ import annotations
 
 import contextlib
+import os
+import subprocess
+import sys
+import time
 from pathlib import Path
 
 import pytest
@@ -81,3 +88,38 @@ def data_dir() -> Path:
 def repo_dir() -> Path:
     """The repository root (models/ and models/build.py live there)."""
     return REPO
+
+
+@pytest.fixture
+def held_run(tmp_path):
+    """Factory: ``held_run(args, point)`` starts ``python -m seqstate *args`` with
+    ``SEQSTATE_TEST_HOLD=point:FLAG`` and returns the process once it is held there
+    (the flag file exists); fails if the run ends or two minutes pass first."""
+    started = []
+
+    def start(args, point):
+        flag = tmp_path / f"held-{point}-{len(started)}"
+        env = dict(os.environ, PYTHONPATH=str(REPO), SEQSTATE_TEST_HOLD=f"{point}:{flag}")
+        proc = subprocess.Popen(
+            [sys.executable, "-m", "seqstate", *map(str, args)],
+            env=env,
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
+        started.append(proc)
+        deadline = time.monotonic() + 120
+        while not flag.exists():
+            if proc.poll() is not None or time.monotonic() > deadline:
+                proc.kill()
+                out, err = proc.communicate()
+                pytest.fail(f"the run never reached the point {point!r}: {err}")
+            time.sleep(0.01)  # waiting for a condition, not guessing a duration
+        assert flag.read_text().strip() == str(proc.pid)
+        return proc
+
+    yield start
+    for proc in started:
+        if proc.poll() is None:
+            proc.kill()
+            proc.communicate()

@@ -9,13 +9,10 @@ from __future__ import annotations
 
 import io
 import json
-import os
 import shutil
 import signal
-import subprocess
 import sys
 import threading
-import time
 from pathlib import Path
 
 import pytest
@@ -169,58 +166,28 @@ def test_an_impossible_record_among_running_ones_stops_the_run_with_no_output(tm
     assert len(errors) == 1, res.output
     assert "record 'bad'" in errors[0] and "position 3001" in errors[0], errors[0]
     assert list(out.iterdir()) == []
-    # no progress ticker and no record thread outlives the failed run
-    time.sleep(0.5)
+    # no progress ticker and no record thread outlives the failed run: each one left
+    # ends within a generous bound (an explicit join, not a guessed sleep)
+    for thread in [t for t in threading.enumerate() if t.name.startswith("seqstate-")]:
+        thread.join(timeout=30)
     alive = [t.name for t in threading.enumerate() if t.name.startswith("seqstate-")]
     assert alive == []
 
 
-def test_stop_signal_during_a_parallel_run_leaves_the_old_outputs(tmp_path):
+def test_stop_signal_during_a_parallel_run_leaves_the_old_outputs(tmp_path, held_run):
     fasta = tmp_path / "par.fa"
     res = run(
-        [
-            "sample",
-            "cpg-island",
-            "--length",
-            "1500000",
-            "--records",
-            "4",
-            "--seed",
-            "3",
-            "-o",
-            fasta,
-            "-q",
-        ]
+        ["sample", "cpg-island", "--length", "150000", "--records", "4", "--seed", "3"]
+        + ["-o", fasta, "-q"]
     )
     assert res.exit_code == 0
     out = tmp_path / "out"
     out.mkdir()
     (out / "par.gff3").write_text("old features\n")
     before = {p.name: p.read_bytes() for p in out.iterdir()}
-    env = dict(os.environ, PYTHONPATH=str(REPO))
-    proc = subprocess.Popen(
-        [
-            sys.executable,
-            "-m",
-            "seqstate",
-            "annotate",
-            str(fasta),
-            "-o",
-            str(out),
-            "--force",
-            "--jobs",
-            "2",
-        ],
-        env=env,
-        stdout=subprocess.PIPE,
-        stderr=subprocess.PIPE,
-        text=True,
-    )
-    deadline = time.monotonic() + 120
-    while not any(p.name.startswith(".seqstate-stage-") for p in out.iterdir()):
-        assert proc.poll() is None and time.monotonic() < deadline, proc.communicate()
-        time.sleep(0.01)
-    time.sleep(0.3)
+    # held once the first record is written (SEQSTATE_TEST_HOLD): records 2 and 3 are
+    # taken by the two threads, record 4 not yet read; the signal arrives at that moment
+    proc = held_run(["annotate", fasta, "-o", out, "--force", "--jobs", "2"], "record-written")
     proc.send_signal(signal.SIGTERM)
     _, err = proc.communicate(timeout=120)
     assert proc.returncode == 130, err
@@ -229,30 +196,91 @@ def test_stop_signal_during_a_parallel_run_leaves_the_old_outputs(tmp_path):
 
 
 # ---------------------------------------------------------------- progress
-def test_progress_in_a_log_is_a_plain_line_now_and_then():
+class _Clock:
+    """A fake ``time`` for seqstate.log: ``perf_counter`` returns ``now``, moved by hand."""
+
+    def __init__(self) -> None:
+        self.now = 1000.0
+
+    def perf_counter(self) -> float:
+        return self.now
+
+
+class _Steps:
+    """Stands in for the ticker's stop event: each ``wait`` (one turn of the ticker's loop)
+    returns only when the test calls :meth:`turn`, which returns once that turn is done."""
+
+    def __init__(self) -> None:
+        self._go = threading.Semaphore(0)
+        self._waiting = threading.Semaphore(0)
+        self._stopped = False
+        self.timeouts: list[float] = []
+
+    def wait(self, timeout: float) -> bool:  # called by the ticker thread
+        self.timeouts.append(timeout)
+        self._waiting.release()
+        assert self._go.acquire(timeout=30)
+        return self._stopped
+
+    def turn(self) -> None:
+        assert self._waiting.acquire(timeout=30)  # the ticker waits (its last turn is over)
+        self._go.release()
+        assert self._waiting.acquire(timeout=30)  # this turn is over: it waits again
+        self._waiting.release()  # (its token, for the next turn)
+
+    def clear(self) -> None:
+        self._stopped = False
+
+    def set(self) -> None:
+        self._stopped = True
+        self._go.release()
+
+
+def _fake_progress(monkeypatch, **kw):
+    clock = _Clock()
+    monkeypatch.setattr(log, "time", clock)
     stream = io.StringIO()
-    progress = log.Progress(stream, live=False, interval=0.05)
+    progress = log.Progress(stream, **kw)
+    steps = _Steps()
+    progress._stop = steps  # the ticker's loop, one turn at a time
+    return progress, stream, clock, steps
+
+
+def test_progress_in_a_log_is_a_plain_line_now_and_then(monkeypatch):
+    progress, stream, clock, steps = _fake_progress(monkeypatch, live=False, interval=5.0)
     progress.start(10_000_000)
+    counts = []
     for _ in range(5):
-        progress.advance(1_000_000, "chr1")
-        time.sleep(0.06)
+        progress.advance(1_000_000, "chr1")  # in a log, advance never draws
+        clock.now += 3.0
+        steps.turn()
+        counts.append(stream.getvalue().count("\n"))
     progress.finish()
+    # a line only once 5 s have passed since the last one: at 6 s, 12 s (of 3, 6, .., 15 s)
+    assert counts == [0, 1, 1, 2, 2]
     lines = stream.getvalue().splitlines()
-    assert lines and all(x.startswith("progress: chr1: ") for x in lines)
+    assert len(lines) == 2 and all(x.startswith("progress: chr1: ") for x in lines)
     assert "\r" not in stream.getvalue()
-    assert "/10.00 Mbp" in lines[-1] and "Mbp/s" in lines[-1] and "left" in lines[-1]
+    # at 12 s: 4 of 10 Mbp, 0.33 Mbp/s, 18 s left
+    assert lines[-1] == "progress: chr1: 4.00/10.00 Mbp (40%), 0.33 Mbp/s, 18 s left"
+    assert max(steps.timeouts) <= 1.0  # the ticker looks at least once a second
 
 
-def test_progress_on_a_terminal_is_redrawn_every_second_without_calls():
-    stream = io.StringIO()
-    progress = log.Progress(stream, live=True)
+def test_progress_on_a_terminal_is_redrawn_every_second_without_calls(monkeypatch):
+    progress, stream, clock, steps = _fake_progress(monkeypatch, live=True)
     progress.start(0)  # total not known yet
-    progress.advance(500, "ctg7")
-    time.sleep(1.3)  # no advance: the ticker redraws
+    progress.advance(500, "ctg7")  # no draw: less than 0.2 s since the start
+    redraws = []
+    for _ in range(4):  # no advance: only the ticker draws, once a second
+        clock.now += 0.5
+        steps.turn()
+        redraws.append(stream.getvalue().count("\r"))
     progress.finish()
+    assert redraws == [0, 1, 1, 2]
     text = stream.getvalue()
-    assert text.count("\r") >= 1 and text.endswith("\n")
+    assert text.endswith("\n")
     assert "ctg7: 0.00 Mbp" in text and "left" not in text
+    assert progress._ticker is None
 
 
 def test_quiet_progress_says_nothing_and_log_runs_get_the_plain_kind(monkeypatch):

@@ -31,7 +31,7 @@ from seqstate.commands.inputs import alphabet_check_of
 from seqstate.engine import api
 from seqstate.errors import SequenceFormatError, UsageError
 from seqstate.io import tracks
-from seqstate.io.atomic import stop_requested
+from seqstate.io.atomic import hold_point, stop_requested
 from seqstate.io.deferred import DeferredBigWig, DeferredGFF3, RunCarry
 from seqstate.io.gff3 import GFF3Writer, header_text
 from seqstate.kinds import Group, Kind, RecordData
@@ -437,6 +437,7 @@ class OutputWriter:
             self.bigwigs[g].add_runs(runs)
             self.bigwigs[g].end_record(out.id, out.length)
         self.regions.append((out.id, out.start0 + 1, out.end0))
+        hold_point("record-written")  # test-only, see seqstate.io.atomic.hold_point
         return out
 
     def track_piece(self, g: int, seqid: str, offset0: int, values: np.ndarray) -> None:

@@ -41,6 +41,7 @@ import os
 import re
 import shutil
 import signal
+import time
 from collections.abc import Callable, Iterable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
@@ -55,6 +56,7 @@ __all__ = [
     "atomic_folder",
     "atomic_text",
     "check_outputs",
+    "hold_point",
     "recover_folder",
     "same_file",
     "write_failure",
@@ -163,6 +165,40 @@ def note_stop(signum: int) -> None:
 def stop_requested() -> bool:
     """True once :func:`note_stop` has been called in this process."""
     return bool(_STOPS)
+
+
+#: Test-only: ``SEQSTATE_TEST_HOLD=POINT:FLAGFILE`` (read once) holds the run at ``POINT``.
+_HOLD_ENV = "SEQSTATE_TEST_HOLD"
+_HOLD: list[tuple[str, str] | None] = []
+_HOLD_SECONDS = 120.0
+
+
+def hold_point(point: str) -> None:
+    """Test-only hook; does nothing unless ``SEQSTATE_TEST_HOLD`` is set.
+
+    With ``SEQSTATE_TEST_HOLD=POINT:FLAGFILE`` (read on the first call), the first time
+    the run reaches ``point`` it writes its process id to ``FLAGFILE`` (atomically)
+    and waits there until a stop signal has been noted (:func:`note_stop`; in the
+    main thread the signal's exception ends the wait), at most two minutes.  Tests
+    use it to send a signal at a known moment instead of after a guessed sleep.
+    Points: ``commit`` (every file staged, just before the commit) and
+    ``record-written`` (a record's outputs written to the staged files).
+    """
+    if not _HOLD:
+        spec = os.environ.get(_HOLD_ENV, "")
+        name, sep, flag = spec.partition(":")
+        _HOLD.append((name, flag) if sep and name and flag else None)
+    spec = _HOLD[0]
+    if spec is None or spec[0] != point:
+        return
+    _HOLD[0] = None  # once per process
+    part = f"{spec[1]}.part"
+    with open(part, "w", encoding="utf-8") as handle:
+        handle.write(f"{os.getpid()}\n")
+    os.replace(part, spec[1])
+    deadline = time.monotonic() + _HOLD_SECONDS
+    while not stop_requested() and time.monotonic() < deadline:
+        time.sleep(0.005)
 
 
 @contextmanager
@@ -454,6 +490,11 @@ class OutputSet:
         if missing:
             self._discard()
             raise RuntimeError(f"outputs {missing} were never written to their temporary paths")
+        try:
+            hold_point("commit")
+        except BaseException:
+            self._discard()
+            raise
         if stop_requested():  # a stop signal whose exception was swallowed on the way
             self._discard()
             raise KeyboardInterrupt
