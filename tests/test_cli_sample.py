@@ -193,3 +193,49 @@ def test_gene_truth_can_train_the_layout(tmp_path):
     )
     assert res.exit_code == 0, res.stderr
     assert load_model(out).provenance["labelling"]["genes_used"] >= 2
+
+
+def test_sample_help_says_what_records_is():
+    res = CliRunner().invoke(main, ["sample", "--help"])
+    assert res.exit_code == 0
+    text = " ".join(res.output.split())
+    assert "--records INTEGER Number of records to draw" in text, res.output
+
+
+def _commands(group, path=()):
+    import click
+
+    for name, cmd in group.commands.items():
+        if isinstance(cmd, click.Group):
+            yield from _commands(cmd, (*path, name))
+        else:
+            yield (*path, name), cmd
+
+
+def test_every_visible_option_of_every_command_has_help_text():
+    import click
+
+    missing = [
+        (" ".join(path), param.opts[0])
+        for path, cmd in _commands(main)
+        for param in cmd.params
+        if isinstance(param, click.Option) and not param.hidden and not param.help
+    ]
+    assert missing == []
+
+
+def test_group_help_names_only_subcommands_that_exist():
+    # the text above "Options:" of a command group names what it does: each verb there
+    # is one of its subcommands, and each subcommand is named
+    import re
+
+    import click
+
+    groups = {name: cmd for name, cmd in main.commands.items() if isinstance(cmd, click.Group)}
+    assert groups
+    for name, group in groups.items():
+        res = CliRunner().invoke(main, [name, "--help"])
+        assert res.exit_code == 0
+        summary = res.output.split("Options:")[0].lower()
+        verbs = set(re.findall(r"\b(list|check|describe|show|convert|build|edit)\b", summary))
+        assert verbs == set(group.commands), (name, summary)

@@ -232,3 +232,24 @@ def test_models_readme_table_counts_states_and_order_of_every_builtin():
         m = load_model(name)
         assert int(cells[2].split()[0]) == m.n_states, name
         assert int(cells[3]) == m.order, name
+
+
+# ---------------------------------------------------------------- the workflow's documents
+def test_files_the_workflow_config_names_exist():
+    text = (REPO / "workflow" / "config.yaml").read_text(encoding="utf-8")
+    named = set(re.findall(r"\bworkflow/[\w./-]+\w", text))
+    assert "workflow/README.md" in named
+    for path in sorted(named):
+        assert (REPO / path).exists(), path
+
+
+def test_workflow_readme_documents_every_config_key():
+    import yaml  # snakemake's own dependency (the workflow reads its config as YAML)
+
+    config = yaml.safe_load((REPO / "workflow" / "config.yaml").read_text(encoding="utf-8"))
+    doc = (REPO / "workflow" / "README.md").read_text(encoding="utf-8")
+    for key, value in config.items():
+        assert f"`{key}" in doc, key
+        if isinstance(value, dict) and key != "resources":
+            for sub in value:
+                assert re.search(rf"`{key}\.{sub}`|`\.{sub}`", doc), f"{key}.{sub}"

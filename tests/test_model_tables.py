@@ -93,6 +93,32 @@ def test_model_sha256_ignores_layout_of_files(tmp_path):
     assert model_sha256(other) == model_sha256(src)
 
 
+def test_model_sha256_covers_the_manifest_text_too(tmp_path):
+    # README (Models): the checksum covers the canonical manifest (name, description,
+    # provenance, ...) as well as the tables; comments and table file names do not count
+    src = load_model("cpg-island")
+    digest = model_sha256(src)
+    folder = tmp_path / "renamed"
+    shutil.copytree(Path(__file__).resolve().parent.parent / "models" / "cpg-island", folder)
+    manifest = folder / "model.toml"
+    text = manifest.read_text(encoding="utf-8")
+    manifest.write_text("# a comment line\n" + text, encoding="utf-8")
+    assert model_sha256(load_model(folder)) == digest
+    (folder / "start.tsv").rename(folder / "first.tsv")
+    manifest.write_text(text.replace('start = "start.tsv"', 'start = "first.tsv"'), "utf-8")
+    assert 'start = "first.tsv"' in manifest.read_text(encoding="utf-8")
+    assert model_sha256(load_model(folder)) == digest
+    renamed = load_model("cpg-island")
+    renamed.name = "cpg-island-copy"
+    assert model_sha256(renamed) != digest
+    described = load_model("cpg-island")
+    described.description += " (edited)"
+    assert model_sha256(described) != digest
+    # the tables are the same: only the text differs
+    assert np.array_equal(described.transitions, src.transitions)
+    assert np.array_equal(described.emissions, src.emissions)
+
+
 @pytest.mark.parametrize("seed", range(8))
 def test_random_model_round_trip(random_model, seed, tmp_path):
     rng = np.random.default_rng(300 + seed)

@@ -143,7 +143,11 @@ def render_tables(model: Model) -> list[tuple[str, str]]:
 
 
 def model_sha256(model: Model) -> str:
-    """SHA-256 of the model's canonical tables (independent of how its files were laid out)."""
+    """SHA-256 of the model's canonical text (:func:`render_tables`): the manifest as seqstate
+    writes it (name, description, alphabet, order, decoding, states and every table of the
+    manifest, ``[provenance]`` included) and the start, end, transition and emission tables,
+    each value in shortest round-trip form.  A new name or description changes it; comments,
+    table file names, row and column order and number spelling in the folder do not."""
     return sha256_of_text(render_tables(model))
 
 
