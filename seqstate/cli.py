@@ -206,7 +206,7 @@ def masked_option(command: F) -> F:
 # ---------------------------------------------------------------- model
 @main.group("model")
 def model_group() -> None:
-    """List, check and describe models."""
+    """List the built-in models, or check one (a NAME or a PATH) and print its summary."""
 
 
 @model_group.command("list")
@@ -360,7 +360,13 @@ def annotate_cmd(
 @main.command("sample")
 @click.argument("model")
 @click.option("--length", type=int, required=True, help="Bases per record.")
-@click.option("--records", type=int, default=1, show_default=True)
+@click.option(
+    "--records",
+    type=int,
+    default=1,
+    show_default=True,
+    help="Number of records to draw, each of --length bases (IDs PREFIX1, PREFIX2, ...).",
+)
 @click.option(
     "--seed", type=int, required=True, help="Random seed, 0 or more (same seed, same output)."
 )
