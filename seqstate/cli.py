@@ -309,6 +309,14 @@ def model_check(model: str) -> None:
     help="With --report: a trusted annotation (GFF3, GTF or BED) for its calibration figure.",
 )
 @click.option(
+    "--truth-type",
+    "truth_types",
+    multiple=True,
+    callback=lambda _ctx, _param, value: tuple(value),
+    help="With --truth: only its features of this type, a label of the model (repeatable), "
+    "as calibrate --type.",
+)
+@click.option(
     "--translation-table",
     type=int,
     default=1,

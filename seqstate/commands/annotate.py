@@ -71,6 +71,8 @@ class AnnotateOptions:
     #: trusted annotation whose calibration figure it shows
     report: str | None = None
     truth: str | None = None
+    #: --truth-type: only these GFF3/GTF types of the truth (each a label of the model)
+    truth_types: tuple[str, ...] = ()
     #: --records/--records-file: only these record IDs, kept in input order
     records: list[str] | None = None
 
@@ -263,6 +265,8 @@ def annotate(
         check_stem(opts.report)
     if opts.truth is not None and opts.report is None:
         raise UsageError("--truth gives the calibration figure of --report: give --report too")
+    if opts.truth_types and opts.truth is None:
+        raise UsageError("--truth-type chooses the features of --truth: give --truth too")
     extras = [n for n in (opts.cds, opts.proteins, opts.report) if n is not None]
     if len(set(extras)) < len(extras):
         raise UsageError("--cds, --proteins and --report must name different files")
@@ -307,6 +311,8 @@ def annotate(
         region, region_item = _region_item(
             opts, model, parse_region(opts.region), long_above, skipped
         )
+    if opts.truth is not None:
+        _check_truth(opts, model, groups, region)
     stem = opts.stem if opts.stem is not None else input_stem(opts.input, region)
     if not to_stdout:
         names = output_names(stem, groups, want_bedgraph, want_bigwig)
@@ -636,12 +642,59 @@ def _write_html(
             reliability_figure,
         )
 
-        calibration = calibrate(CalibrateOptions(opts.model, fasta=opts.input, truth=opts.truth))
+        calibration = calibrate(
+            CalibrateOptions(
+                opts.model,
+                fasta=opts.input,
+                truth=opts.truth,
+                types=tuple(opts.truth_types),
+                region=opts.region,
+                record_ids=opts.records,
+            )
+        )
         truth = display_name(opts.truth)
         figures["calibration"] = calibration_svg(reliability_figure(calibration), truth)
         gff.flush()
         accuracy = _truth_accuracy(gff.name, opts.truth, opts.region, rows)
     write_html_report(handle, doc, rows, figures, calibration, truth_name=truth, accuracy=accuracy)
+
+
+def _check_truth(opts: AnnotateOptions, model: Model, groups: list, region: Region | None) -> None:
+    """Before any annotating: the ``--truth`` file is read and checked (its chosen types are
+    labels, it exists), and it must have a feature on the annotated stretch: the region,
+    the selected records, or a record of the FASTA."""
+    from seqstate.commands.inputs import indexed_lengths
+    from seqstate.commands.records import id_listing, require_shared_ids
+    from seqstate.commands.truth import fasta_ids, read_truth
+    from seqstate.errors import FeatureFormatError
+
+    truth = read_truth(model, groups, opts.truth or "", opts.truth_types)
+    if region is not None:
+        inside = [
+            f
+            for f in truth.features
+            if f.seqid == region.seqid and f.start0 < region.end0 and f.end0 > region.start0
+        ]
+        if not inside:
+            shown = f"region {region.to_text()}"
+            require_shared_ids(truth.path, truth.seqids, shown, [region.seqid])
+            raise FeatureFormatError(
+                f"no feature lies in region {region.to_text()}: nothing to calibrate on",
+                path=truth.path,
+            )
+        return
+    if opts.records is not None:
+        if not set(truth.seqids) & set(opts.records):
+            raise FeatureFormatError(
+                f"no feature lies on the selected record(s) {id_listing(opts.records)} (the "
+                f"truth's are on {id_listing(truth.seqids)}): nothing to calibrate on",
+                path=truth.path,
+            )
+        return
+    lengths = indexed_lengths(opts.input, model) if opts.input != "-" else None
+    ids = fasta_ids(opts.input, lengths)
+    if ids is not None:
+        require_shared_ids(truth.path, truth.seqids, display_name(opts.input), ids)
 
 
 def _truth_accuracy(gff: str, truth: str, region: str | None, rows: list) -> dict:
