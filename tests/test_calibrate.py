@@ -338,12 +338,60 @@ def test_truth_past_record_end(tmp_path: Path) -> None:
     assert "bad.bed line 1" in line and "510" in line and "500 bases" in line
 
 
+def _segment_probability_oracle(model: Model, x: np.ndarray, runs, state: int) -> list[float]:
+    """P(every base of [a, b) is in ``state`` | x) for an order-0 model, by the tests' own
+    scaled forward-backward (the HMM definition; no seqstate code): a forward pass held
+    in ``state`` over the run, joined to the backward vector at its last base."""
+    trans, emis = model.transitions, model.emissions[:, 0, :]
+    n, k = len(x), model.n_states
+    end = np.ones(k) if model.end is None else model.end
+    alpha, scale = np.zeros((n, k)), np.zeros(n)
+    for t in range(n):
+        a = (model.start if t == 0 else alpha[t - 1] @ trans) * emis[:, x[t]]
+        scale[t] = a.sum()
+        alpha[t] = a / scale[t]
+    beta = np.zeros((n, k))
+    beta[-1] = end / (alpha[-1] @ end)
+    for t in range(n - 2, -1, -1):
+        beta[t] = trans @ (emis[:, x[t + 1]] * beta[t + 1]) / scale[t + 1]
+    keep = np.zeros(k)
+    keep[state] = 1.0
+    out = []
+    for a0, b0 in runs:
+        held = (model.start if a0 == 0 else alpha[a0 - 1] @ trans) * emis[:, x[a0]] * keep
+        held /= scale[a0]
+        for t in range(a0 + 1, b0):
+            held = (held @ trans) * emis[:, x[t]] * keep / scale[t]
+        out.append(float(held @ beta[b0 - 1]))
+    return out
+
+
 def test_segment_probability_is_what_is_binned() -> None:
-    # the features table bins each decoded feature's exact segment probability (the engine's
-    # restricted forward of seqstate), and the outcome is "every base truly in the label"
+    # the features table bins each decoded feature's exact segment probability, and the
+    # outcome is "every base truly in the label"; checked against an oracle that shares
+    # no code with seqstate: the Viterbi path of hmmlearn 0.3.3 (CategoricalHMM, same
+    # tables) gives the features (casino decodes by Viterbi, min_length 1), the tests'
+    # own forward-backward their probabilities, the sampled path the outcomes
+    from hmmlearn import hmm
+
     model = load_model("casino")
     (rec,) = list(sampled_records(model, 3000, 1, 9))
     (lab,) = calibrate_records(model, [rec], 10)[0]
+    x = rec.symbols.astype(np.int64)
+    ref = hmm.CategoricalHMM(n_components=2, init_params="", params="")
+    ref.startprob_, ref.transmat_ = model.start, model.transitions
+    ref.emissionprob_ = model.emissions[:, 0, :]
+    _, path = ref.decode(x.reshape(-1, 1), algorithm="viterbi")
+    loaded = np.flatnonzero(np.diff(np.r_[0, path == 1, 0].astype(np.int8)))
+    runs = list(zip(loaded[::2], loaded[1::2]))
+    probs = _segment_probability_oracle(model, x, runs, 1)
+    truth = [bool(np.all(rec.group[a:b] == 0)) for a, b in runs]  # group 0: loaded
+    want = Reliability(10)
+    want.add(np.array(probs), np.array(truth))
+    assert lab.n_features == len(runs) > 10
+    assert np.array_equal(lab.features.count, want.count)
+    np.testing.assert_allclose(lab.features.sum_prob, want.sum_prob, rtol=1e-9, atol=1e-12)
+    assert np.array_equal(lab.features.sum_true, want.sum_true)
     assert lab.n_features == lab.features.n > 0
     assert 0 <= lab.n_correct <= lab.n_features
     assert lab.features.sum_true.sum() == lab.n_correct
