@@ -552,9 +552,10 @@ def plot_cmd(quiet: bool, **options: Any) -> None:
 @click.option(
     "--tol",
     type=float,
-    default=1e-4,
+    default=1e-8,
     show_default=True,
-    help="EM: stop when the relative gain (change / |log-likelihood|) is below this.",
+    help="EM: converged when the relative gain (change / |previous log-likelihood|) is "
+    "below this.",
 )
 @click.option(
     "--freeze",
@@ -643,10 +644,11 @@ def fit_cmd(
         bad_genes=bad_genes,
     )
     report = fit(opts, log=(lambda _: None) if quiet else stderr_log)
+    stop = f"; EM {report.stop_reason}" if opts.em else ""
     if not quiet:
         click.echo(
             f"seqstate: {report.method}: log-likelihood {report.loglik:.6f} (natural "
-            f"log) -> {report.out}/",
+            f"log){stop} -> {report.out}/",
             err=True,
         )
 

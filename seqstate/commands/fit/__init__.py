@@ -45,6 +45,7 @@ from seqstate.commands.fit.counting import (
     states_without_counts,
 )
 from seqstate.commands.fit.em import (
+    DEFAULT_TOL,
     EMResult,
     Log,
     baum_welch,
@@ -97,6 +98,7 @@ from seqstate.io.tables import load_model
 from seqstate.model import Model
 
 __all__ = [
+    "DEFAULT_TOL",
     "FREEZE_KEYWORDS",
     "STATE_RULES",
     "Counts",
@@ -152,7 +154,7 @@ class FitOptions:
     labels_format: str = "auto"
     em: bool = False
     max_iter: int = 50
-    tol: float = 1e-4
+    tol: float = DEFAULT_TOL
     freeze: list[str] = field(default_factory=list)
     pseudocount: float | None = None
     masked: str = "base"
