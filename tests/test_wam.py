@@ -95,11 +95,91 @@ def test_signal_states_depend_on_the_base_before_only(fitted):
     assert not np.allclose(e[0, 0], e[0, 1])
 
 
+_REVCOMP = str.maketrans("ACGT", "TGCA")
+#: the fixed signals of the layout: states, in 5'->3' order on their strand, and the
+#: words they may spell (standard genetic code starts and stops; GT..AG introns: common
+#: practice, the canonical splice dinucleotides)
+_SIGNALS = {
+    "start": (["start_A", "start_T", "start_G"], {"ATG"}),
+    "stop_A": (["stop_T", "stop_A", "stop_AR"], {"TAA", "TAG"}),
+    "stop_G": (["stop_T", "stop_G", "stop_GA"], {"TGA"}),
+}
+
+
 def test_stop_flank_and_wide_windows_keep_genes_valid(fitted):
-    # every fitted gene path keeps GT..AG introns: the fitted model allows no other
-    # donor or acceptor dinucleotide (emission zeros of the layout)
-    _, model, _, _ = fitted
+    # with a stop flank (down_flank=4) and wide first-order windows, the fitted model's
+    # Viterbi genes on the record it was fitted on still start with ATG, end with a stop
+    # codon followed by the flank states, and keep GT..AG introns, on both strands
+    from seqstate.engine import api
+
+    _, model, fa, _ = fitted
+    names = model.state_names
+    (record,) = read_fasta(fa)
+    text = record.seq.decode().upper()
+    tables = api.prepare(model)
+    path, _ = api.viterbi(tables, api.encode(tables, text))
+    decoded = [names[s] for s in path]
+
+    def spelled(states, strand):
+        """Every run of ``states`` (5'->3' on ``strand``) on the path, as its word."""
+        chain = states if strand == "+" else states[::-1]
+        chain = [f"{x}{strand}" for x in chain]
+        words = []
+        for i in range(len(decoded) - len(chain) + 1):
+            if decoded[i : i + len(chain)] == chain:
+                word = text[i : i + len(chain)]
+                words.append((i, word if strand == "+" else word.translate(_REVCOMP)[::-1]))
+        return words
+
+    seen = {}
+    for strand in "+-":
+        for what, (states, allowed) in _SIGNALS.items():
+            words = spelled(states, strand)
+            assert {w for _, w in words} <= allowed, (what, strand, words)
+            seen[what, strand] = len(words)
+        # every stop codon is followed (5'->3') by the whole stop flank, down1..down4
+        stops = spelled(["stop_T"], strand)
+        for i, _ in stops:
+            if strand == "+":
+                after = decoded[i + 3 : i + 7]
+                assert after == [f"down{k}+" for k in range(1, 5)], (i, after)
+            else:
+                before = decoded[i - 6 : i - 2]
+                assert before == [f"down{k}-" for k in range(4, 0, -1)], (i, before)
+        for c in gene_layout.INTRON_COPIES:
+            donors = spelled([f"{c}_d1", f"{c}_d2"], strand)
+            acceptors = spelled([f"{c}_a11", f"{c}_a12"], strand)
+            assert {w for _, w in donors} <= {"GT"} and {w for _, w in acceptors} <= {"AG"}
+            seen[c, strand] = len(donors)
+    # genes were found on both strands, with introns (else the checks above are empty)
+    for strand in "+-":
+        assert seen["start", strand] > 0
+        assert seen["stop_A", strand] + seen["stop_G", strand] > 0
+        assert sum(seen[c, strand] for c in gene_layout.INTRON_COPIES) > 0
+    # and the fitted tables allow nothing else: these states' other bases have probability 0
     for c in gene_layout.INTRON_COPIES:
         for st, base in (("d1", "G"), ("d2", "T"), ("a11", "A"), ("a12", "G")):
-            row = model.emissions[model.state_names.index(f"{c}_{st}+")]
+            row = model.emissions[names.index(f"{c}_{st}+")]
             assert np.all(row[:, DNA.index(base)] == 1.0), (c, st)
+    for st, bases in (
+        ("start_A", "A"),
+        ("start_T", "T"),
+        ("start_G", "G"),
+        ("stop_T", "T"),
+        ("stop_A", "A"),
+        ("stop_AR", "AG"),  # TAA, TAG
+        ("stop_G", "G"),
+        ("stop_GA", "A"),  # TGA only (TGG is a codon)
+    ):
+        for strand, word in (("+", bases), ("-", bases.translate(_REVCOMP))):
+            row = model.emissions[names.index(f"{st}{strand}")]
+            allowed = [DNA.index(b) for b in word]
+            np.testing.assert_allclose(row[:, allowed].sum(axis=1), 1.0, rtol=0, atol=1e-12)
+
+    # the stop flank: a stop codon moves only into down1, down_k only into down_k+1
+    def successors(state):
+        return {names[j] for j in np.flatnonzero(model.transitions[names.index(state)] > 0)}
+
+    assert successors("stop_AR+") == successors("stop_GA+") == {"down1+"}
+    for k in range(1, 4):
+        assert successors(f"down{k}+") == {f"down{k + 1}+"}
