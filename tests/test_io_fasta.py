@@ -534,10 +534,28 @@ def test_any_chunk_size_reads_as_the_whole_file_reader(
         assert sorted(p.name for p in Path(folder).iterdir()) == ["x.fa"]
 
 
-def test_the_oracle_is_the_old_whole_file_reader() -> None:
-    # The oracle must not be the streaming reader itself.
-    assert not hasattr(fasta_oracle, "CHUNK_BYTES")
-    assert hasattr(fasta_oracle, "_read_all")
+_ORACLE_TEXTS = [
+    b">a first record\nACGT\nacgtN\n>b\nGG\n",
+    b">x\r\nAC\r\nGT\r\n>y  two  words \r\nTTTT\r\n",
+    b">only\nNNNNacgtRY\n\nACGT",
+    b">chr1 len=12\n" + b"ACGTACGTACGT\n" * 40 + b">chr2\nA\n",
+]
+
+
+@pytest.mark.parametrize("text", _ORACLE_TEXTS)
+def test_the_oracle_reads_as_biopython(tmp_path: Path, text: bytes) -> None:
+    # The oracle is an independent reader: none of its code comes from the streaming
+    # module, and on valid files it gives Biopython's records (Bio.SeqIO "fasta" parser:
+    # the ID is the first word of the header, its description the whole header line)
+    for name, value in vars(fasta_oracle).items():
+        assert getattr(value, "__module__", None) != fasta_module.__name__, name
+    path = write_bytes(tmp_path, "o.fa", text)
+    got = fasta_oracle.read_fasta(path)
+    with open(path, encoding="ascii", newline="") as handle:
+        want = list(SeqIO.parse(handle, "fasta"))
+    assert [r.id for r in got] == [r.id for r in want]
+    assert [r.description for r in got] == [r.description[len(r.id) :].strip() for r in want]
+    assert [r.seq.decode() for r in got] == [str(r.seq) for r in want]
 
 
 @pytest.fixture
