@@ -10,6 +10,8 @@
 * ``held_run``: starts ``python -m seqstate ...`` held at a named point of the run
   (``SEQSTATE_TEST_HOLD``, :func:`seqstate.io.atomic.hold_point`) and returns once
   it is held, so a test sends its signal at a known moment, never after a sleep;
+* ``chromium``: the headless Chromium binary; a test using it is skipped when there is
+  none, except in CI (``CI=true``), where a missing browser is a failure;
 * ``kernel``: runs a test once with the engine's specialised kernels allowed
   (its normal dispatch) and once with the generic kernels only (the in-process
   equivalent of ``SEQSTATE_KERNELS=generic``).
@@ -19,6 +21,7 @@ from __future__ import annotations
 
 import contextlib
 import os
+import shutil
 import subprocess
 import sys
 import time
@@ -123,3 +126,17 @@ def held_run(tmp_path):
         if proc.poll() is None:
             proc.kill()
             proc.communicate()
+
+
+@pytest.fixture(scope="session")
+def chromium() -> str:
+    """The path of headless Chromium (``chromium`` or ``chromium-browser`` on PATH).
+    Without one the test is skipped, but in CI (``CI`` set to true, as CI services do)
+    it fails: there the browser test must run, not vanish silently."""
+    for name in ("chromium", "chromium-browser"):
+        found = shutil.which(name)
+        if found:
+            return found
+    if os.environ.get("CI", "").strip().lower() in ("true", "1", "yes"):
+        pytest.fail("CI: headless Chromium is not installed (.ci/run could not install it)")
+    pytest.skip("headless Chromium is not installed")

@@ -9,8 +9,10 @@ from __future__ import annotations
 
 import io
 import json
+import os
 import shutil
 import signal
+import subprocess
 import sys
 import threading
 from pathlib import Path
@@ -341,10 +343,36 @@ def test_the_first_compile_says_what_it_is_doing(tmp_path, many_records, monkeyp
     assert res.output == ""  # -q: no note, no progress, no summary
 
 
-def test_kernel_cache_is_found_after_a_run(tmp_path, many_records):
+def test_kernel_cache_is_found_after_a_run(tmp_path, many_records, monkeypatch):
     from seqstate.engine import jitcache
 
-    # after one run the kernels it used are in the on-disk cache (when there is one)
-    assert run(["annotate", many_records, "-o", tmp_path / "warm", "-q"]).exit_code == 0
-    assert jitcache.kernels_cached(("kernels",)) is jitcache.CACHE
+    # a cache of this test's own, whatever the machine's cache is (set, unwritable or
+    # warm): the run in a subprocess caches only in NUMBA_CACHE_DIR (numba's
+    # NUMBA_CACHE_LOCATOR_CLASSES), and kernels_cached looks there and beside an empty
+    # copy of the engine's folder
+    cache = tmp_path / "numba-cache"
+    env = dict(
+        os.environ,
+        PYTHONPATH=str(REPO),
+        NUMBA_CACHE_DIR=str(cache),
+        NUMBA_CACHE_LOCATOR_CLASSES="UserProvidedCacheLocator",
+    )
+    monkeypatch.setenv("NUMBA_CACHE_DIR", str(cache))
+    monkeypatch.setattr(jitcache, "__file__", str(tmp_path / "engine" / "jitcache.py"))
+    monkeypatch.setattr(jitcache, "CACHE", True)
+    assert jitcache.kernels_cached(("kernels",)) is False  # nothing cached yet
+    proc = subprocess.run(
+        [sys.executable, "-m", "seqstate", "annotate", str(many_records), "-o"]
+        + [str(tmp_path / "warm"), "-q"],
+        env=env,
+        capture_output=True,
+        text=True,
+        timeout=600,
+    )
+    assert proc.returncode == 0, proc.stderr
+    assert any(cache.rglob("kernels.*.nbi"))  # numba cached the run's kernels there
+    assert jitcache.kernels_cached(("kernels",)) is True
     assert jitcache.kernels_cached(("no_such_module",)) is False
+    # with no on-disk cache (nothing writable) the answer is always "not cached"
+    monkeypatch.setattr(jitcache, "CACHE", False)
+    assert jitcache.kernels_cached(("kernels",)) is False
