@@ -357,7 +357,7 @@ def annotate_cmd(
         tracks=tracks, command_line=command_line(obj), records=records, **options
     )
     gff_out = io.StringIO() if to_stdout else None
-    report = annotate(opts, progress=log.progress_for(quiet), stdout=gff_out)
+    report = annotate(opts, progress=log.progress_for(quiet, "annotate"), stdout=gff_out)
     warn_skipped(opts.input, report.skipped_records)
     if gff_out is not None:
         echo_stdout(gff_out.getvalue())

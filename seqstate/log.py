@@ -12,6 +12,7 @@ from __future__ import annotations
 import sys
 import threading
 import time
+from collections.abc import Callable
 from typing import TextIO
 
 
@@ -40,28 +41,52 @@ class Progress:
     """Bases done, rate and time left on stderr, for long runs.
 
     On a terminal (``live=True``) one line is rewritten in place at least once a
-    second (a background ticker redraws it even while a long kernel runs): the
-    record being worked on, its bases done, the bases of the run, the rate and the
-    time left.  In a log (``live=False``) a plain line is written once every
-    ``interval`` seconds (a minute by default), so cluster logs show life without
-    filling up.  :meth:`start` sets the total; :meth:`advance` adds bases (from any
-    thread); :meth:`finish` ends the line and stops the ticker.
+    second (a background ticker redraws it even while a long kernel runs).  In a log
+    (``live=False``) a plain ``progress:`` line is written ``first`` seconds after the
+    start (5 s by default, so a log shows within 10 s that the run is alive) and then
+    once every ``interval`` seconds (a minute by default), so cluster logs show life
+    without filling up.  The line names the task (``annotate``, ``calibrate``), the
+    record being worked on, the bases done of the run's total, the rate and the time
+    left.
+
+    :meth:`start` sets the total; :meth:`working` says which record is being worked
+    on and how many of its bases the next :meth:`advance` calls will complete;
+    :meth:`advance` adds bases done (from any thread); :meth:`finish` ends the line and
+    stops the ticker.  While bases announced by :meth:`working` are pending, the
+    line moves on at the rate measured so far (to 99 % of the pending bases), so a
+    record whose work is reported in a few large steps does not stall the line and
+    its time left.  ``clock`` (seconds, for tests) and ``ticker=False`` (no background
+    thread: the caller calls :meth:`poll`) make the timing testable without sleeping.
     """
 
     def __init__(
-        self, stream: TextIO | None = None, *, live: bool = True, interval: float | None = None
+        self,
+        stream: TextIO | None = None,
+        *,
+        live: bool = True,
+        interval: float | None = None,
+        first: float | None = None,
+        task: str = "",
+        clock: Callable[[], float] | None = None,
+        ticker: bool = True,
     ) -> None:
         self.stream = stream
         self.live = live
         self.interval = interval if interval is not None else (1.0 if live else 60.0)
+        self.first = first if first is not None else (self.interval if live else 5.0)
+        self.task = task
+        self.clock = clock if clock is not None else _perf_counter
+        self.use_ticker = ticker
         self.total = 1
         self.done = 0
         self.what = ""
-        self.t0 = time.perf_counter()
+        self.t0 = self.clock()
+        self._pending = 0
+        self._last_event = self.t0
         self._lock = threading.Lock()
         self._ticker: threading.Thread | None = None
         self._stop = threading.Event()
-        self._last_draw = 0.0
+        self._last_draw = self.t0
         self._drawn = False
 
     def start(self, total_bases: int) -> None:
@@ -69,9 +94,9 @@ class Progress:
         with self._lock:
             self.total = max(0, total_bases)
             self.done = 0
-            self.t0 = time.perf_counter()
-            self._last_draw = self.t0
-        if self._ticker is None:
+            self._pending = 0
+            self.t0 = self._last_event = self._last_draw = self.clock()
+        if self.use_ticker and self._ticker is None:
             self._stop.clear()
             self._ticker = threading.Thread(
                 target=self._tick, name="seqstate-progress", daemon=True
@@ -83,37 +108,76 @@ class Progress:
         with self._lock:
             self.total = max(0, total_bases)
 
+    def working(self, what: str, bases: int) -> None:
+        """Work on ``what`` (a record) began: ``bases`` of it are done by later
+        :meth:`advance` calls."""
+        with self._lock:
+            self.what = what
+            if self._pending == 0:
+                self._last_event = self.clock()
+            self._pending += max(0, bases)
+
     def advance(self, bases: int, what: str) -> None:
         """``bases`` more are done (``what``: the record being worked on)."""
         with self._lock:
             self.done += bases
+            self._pending = max(0, self._pending - bases)
             self.what = what
-            now = time.perf_counter()
+            now = self._last_event = self.clock()
             due = self.live and now - self._last_draw >= 0.2
         if due:
             self._draw()
 
+    def _figures(self) -> tuple[float, float]:
+        """(bases shown as done, rate in bases per second; 0: not measured yet).
+
+        Bases announced by :meth:`working` and not yet done are shown as done at the
+        rate measured up to the last :meth:`advance` (never more than 99 % of those pending);
+        the rate shown is the bases shown over the time since the start."""
+        now = self.clock()
+        spent = self._last_event - self.t0
+        measured = self.done / spent if self.done > 0 and spent > 0 else 0.0
+        # short of the pending bases by 1 %: the line reaches 100 % only when they are done
+        ahead = min(0.99 * self._pending, measured * max(0.0, now - self._last_event))
+        shown = self.done + ahead
+        if self.total > 0:
+            shown = min(shown, max(self.total, self.done))
+        elapsed = now - self.t0
+        return shown, (shown / elapsed if shown > 0 and elapsed > 0 else 0.0)
+
     def line(self) -> str:
         """The progress text as it is now (no line end)."""
         with self._lock:
-            done, total, what = self.done, self.total, self.what
-            dt = max(time.perf_counter() - self.t0, 1e-9)
-        rate = done / dt
-        text = f"{what}: {done / 1e6:.2f}"
+            shown, rate = self._figures()
+            total, what = self.total, self.what
+        head = " ".join(x for x in (self.task, what) if x)
+        text = f"{head}: " if head else ""
+        text += f"{shown / 1e6:.2f}"
         if total > 0:
-            text += f"/{total / 1e6:.2f} Mbp ({100.0 * min(done, total) / total:.0f}%)"
+            text += f"/{total / 1e6:.2f} Mbp ({int(100.0 * min(shown, total) / total)}%)"
         else:
             text += " Mbp"
-        text += f", {rate / 1e6:.2f} Mbp/s"
-        if total > 0 and rate > 0 and done < total:
-            text += f", {_duration((total - done) / rate)} left"
+        if rate > 0:
+            text += f", {rate / 1e6:.2f} Mbp/s"
+            if total > 0 and shown < total:
+                text += f", {_duration((total - shown) / rate)} left"
         return text
+
+    def poll(self) -> bool:
+        """Draw the line if it is due (``first`` seconds after the start, then every
+        ``interval``); True if it was drawn.  The ticker calls this once a second."""
+        with self._lock:
+            wait = self.interval if self._drawn else self.first
+            due = self.clock() - self._last_draw >= wait
+        if due:
+            self._draw()
+        return due
 
     def _draw(self) -> None:
         stream = self.stream or _stderr()
         text = self.line()
         with self._lock:
-            self._last_draw = time.perf_counter()
+            self._last_draw = self.clock()
             self._drawn = True
         try:
             if self.live:
@@ -125,11 +189,8 @@ class Progress:
             pass
 
     def _tick(self) -> None:
-        while not self._stop.wait(min(self.interval, 1.0)):
-            with self._lock:
-                due = time.perf_counter() - self._last_draw >= self.interval
-            if due:
-                self._draw()
+        while not self._stop.wait(min(self.interval, self.first, 1.0) or 1.0):
+            self.poll()
 
     def finish(self) -> None:
         """End the progress line and stop the ticker."""
@@ -146,6 +207,12 @@ class Progress:
                 pass
 
 
+def _perf_counter() -> float:
+    """The default clock of :class:`Progress` (looked up at each call, so tests can
+    replace ``time``)."""
+    return time.perf_counter()
+
+
 def _duration(seconds: float) -> str:
     """``42 s``, ``3 min 5 s``, ``2 h 10 min``."""
     s = int(round(seconds))
@@ -159,24 +226,27 @@ def _duration(seconds: float) -> str:
 class QuietProgress(Progress):
     """The silent twin of :class:`Progress`: counts, writes nothing, runs no ticker."""
 
-    def start(self, total_bases: int) -> None:
-        with self._lock:
-            self.total = max(0, total_bases)
-            self.done = 0
-            self.t0 = time.perf_counter()
+    def __init__(self, *args, **kwargs) -> None:
+        super().__init__(*args, **kwargs)
+        self.use_ticker = False
 
     def advance(self, bases: int, what: str) -> None:
         with self._lock:
             self.done += bases
+            self._pending = max(0, self._pending - bases)
             self.what = what
+
+    def poll(self) -> bool:
+        return False
 
     def finish(self) -> None:
         pass
 
 
-def progress_for(quiet: bool) -> Progress:
+def progress_for(quiet: bool, task: str = "") -> Progress:
     """The progress a run shows: none with ``-q``; a live line on a terminal; else a plain
-    ``progress:`` line a minute (logs of batch jobs)."""
+    ``progress:`` line after 5 s, then one a minute (logs of batch jobs).  ``task``: the
+    command's name, at the head of the line."""
     if quiet:
-        return QuietProgress()
-    return Progress(live=_stderr().isatty())
+        return QuietProgress(task=task)
+    return Progress(live=_stderr().isatty(), task=task)

@@ -13,7 +13,7 @@ import io
 import json
 import re
 import sys
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
 from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from types import SimpleNamespace
@@ -491,7 +491,7 @@ def _write(
 ) -> None:
     """The output set of the run: every record through the runner, then the run report."""
     to_stdout = opts.out_dir == STDOUT
-    runner.progress.start(_known_total(opts.input, region_item))
+    runner.progress.start(_known_total(opts.input, region_item, opts.records))
     try:
         text = _write_set(opts, model, runner, report, stem, region_item, skipped, long_above)
     finally:
@@ -584,9 +584,11 @@ def _write_set(
     return text
 
 
-def _known_total(path: str, region_item: Item | None) -> int:
+def _known_total(
+    path: str, region_item: Item | None, records: Sequence[str] | None = None
+) -> int:
     """Bases the run will annotate when known before reading (a region, or an existing
-    FASTA index); 0 when not."""
+    FASTA index: the selected ``records`` only, when given); 0 when not."""
     if region_item is not None:
         return region_item.bases
     if path == "-" or not Path(path + ".fai").is_file():
@@ -597,7 +599,12 @@ def _known_total(path: str, region_item: Item | None) -> int:
         lengths = faidx.record_lengths(path)
     except Exception:  # the index is checked properly when it is used
         return 0
-    return sum(lengths.values()) if lengths else 0
+    if not lengths:
+        return 0
+    if records is not None:
+        wanted = set(records)
+        return sum(n for rid, n in lengths.items() if rid in wanted)
+    return sum(lengths.values())
 
 
 def _close(records: Iterator[SequenceRecord]) -> None:

@@ -199,6 +199,7 @@ class Runner:
         """The whole-record path (as before streaming): posterior, the kind's features,
         tracks; outputs kept as text for the writer thread."""
         tables, groups = self.tables, self.groups
+        self.progress.working(item.id, item.bases)  # the line names it and moves on
         seq = item.read(item.start0, item.end0)
         item.close()
         if self.check_symbols is not None:
@@ -275,6 +276,7 @@ class Runner:
         order = tables.order
         start0 = item.start0
         n = item.bases
+        self.progress.working(item.id, n)
 
         def read_bases(a: int, b: int) -> bytes:
             return item.read(start0 + a, start0 + b)

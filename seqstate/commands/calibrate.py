@@ -353,6 +353,7 @@ def calibrate_records(
     progress.start(total_bases)
     n_rec = n_bases = 0
     for rec in records:
+        progress.working(rec.id, int(rec.symbols.shape[0]))
         codes = api.encode_symbols(tables, rec.symbols)
         post = api.posterior(tables, codes, group=state_group, n_groups=len(groups), record=rec.id)
         segs = decode_segments(
@@ -606,7 +607,7 @@ def calibrate(opts: CalibrateOptions, quiet: bool = True) -> CalibrateReport:
 
         require_matplotlib()
     model = load_model(opts.model)
-    progress = log.progress_for(quiet)
+    progress = log.progress_for(quiet, "calibrate")
     if opts.fasta is not None and opts.truth is not None:
         recs, keep = file_records(
             model,
