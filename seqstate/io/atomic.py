@@ -185,17 +185,16 @@ def hold_point(point: str) -> None:
     ``record-written`` (a record's outputs written to the staged files).
     """
     if not _HOLD:
-        spec = os.environ.get(_HOLD_ENV, "")
-        name, sep, flag = spec.partition(":")
+        name, sep, flag = os.environ.get(_HOLD_ENV, "").partition(":")
         _HOLD.append((name, flag) if sep and name and flag else None)
-    spec = _HOLD[0]
-    if spec is None or spec[0] != point:
+    held = _HOLD[0]
+    if held is None or held[0] != point:
         return
     _HOLD[0] = None  # once per process
-    part = f"{spec[1]}.part"
+    part = f"{held[1]}.part"
     with open(part, "w", encoding="utf-8") as handle:
         handle.write(f"{os.getpid()}\n")
-    os.replace(part, spec[1])
+    os.replace(part, held[1])
     deadline = time.monotonic() + _HOLD_SECONDS
     while not stop_requested() and time.monotonic() < deadline:
         time.sleep(0.005)
