@@ -50,17 +50,8 @@ EXACT_FLOOR = 20
 
 def _fasta(path: Path) -> dict[str, tuple[str, str]]:
     """Header line (without '>') and upper-case sequence, by the header's first word."""
-    records: dict[str, tuple[str, list[str]]] = {}
-    name = None
     with gzip.open(path, "rt", encoding="utf-8") as handle:
-        for line in handle:
-            line = line.rstrip("\n")
-            if line.startswith(">"):
-                name = line[1:].split()[0]
-                records[name] = (line[1:], [])
-            elif name is not None:
-                records[name][1].append(line.strip().upper())
-    return {k: (head, "".join(parts)) for k, (head, parts) in records.items()}
+        return _fasta_text(handle.read())
 
 
 def _fasta_text(text: str) -> dict[str, tuple[str, str]]:
