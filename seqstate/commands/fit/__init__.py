@@ -72,6 +72,7 @@ from seqstate.commands.fit.labels import (
     paint_labels,
     read_gene_labels,
     read_labels,
+    require_gene_units,
     require_label_units,
 )
 from seqstate.commands.fit.rules import (
@@ -80,6 +81,7 @@ from seqstate.commands.fit.rules import (
     default_state_rule,
     resolve_state_rule,
 )
+from seqstate.commands.fit.stretch import CUT_GENE, Stretch, cut_genes, outside_unknown
 from seqstate.commands.fit.writing import (
     check_model_folder,
     file_sha256,
@@ -87,6 +89,7 @@ from seqstate.commands.fit.writing import (
     provenance,
     write_model_folder,
 )
+from seqstate.commands.records import choose_stretches, describe_stretches
 from seqstate.engine import api
 from seqstate.errors import (
     FeatureFormatError,
@@ -94,6 +97,7 @@ from seqstate.errors import (
     SequenceFormatError,
     UsageError,
 )
+from seqstate.io.regions import Region
 from seqstate.io.tables import load_model
 from seqstate.model import Model
 
@@ -162,6 +166,10 @@ class FitOptions:
     force: bool = False
     command_line: list[str] = field(default_factory=list)
     bad_genes: str = "skip"
+    #: only this stretch (``ID:START-END``, 1-based inclusive, or ``ID``), or only these
+    #: record IDs (kept in input order), as on ``annotate``; None: every record
+    region: str | None = None
+    records: list[str] | None = None
 
 
 @dataclass
@@ -174,6 +182,8 @@ class FitReport:
     method: str
     iterations: int
     stop_reason: str
+    #: the stretch counted (``all N record(s)``, a region, the records selected)
+    stretch: str = ""
 
 
 @dataclass
@@ -195,6 +205,11 @@ class FitRun:
     unseen: list[str] = field(default_factory=list)
     n_features: int = 0
     labelling: dict[str, Any] | None = None
+    #: the stretch counted, as a person reads it (``all N record(s)``, a region, records)
+    stretch: str = ""
+    regions: list[Region] = field(default_factory=list)
+    #: every record ID of the FASTA (the stretch may count fewer)
+    fasta_ids: list[str] = field(default_factory=list)
     loglik: float = math.nan
     iterations: int = 0
     stop_reason: str = "counting only (no EM)"
@@ -266,6 +281,8 @@ def fit(opts: FitOptions, *, log: Log = quiet) -> FitReport:
     rule = resolve_state_rule(start_model) if opts.labels else None
     _check_input_files(opts)
     records = _read_sequences(opts.fasta, start_model)
+    lengths = {r.id: len(r.seq) for r in records}
+    regions = choose_stretches(lengths, opts.region, opts.records, opts.fasta)
     tables = api.prepare(start_model)
     run = FitRun(
         start_model=start_model,
@@ -273,18 +290,27 @@ def fit(opts: FitOptions, *, log: Log = quiet) -> FitReport:
         rule=rule,
         pc_count=1.0 if opts.pseudocount is None else float(opts.pseudocount),
         pc_em=0.0 if opts.pseudocount is None else float(opts.pseudocount),
-        ids=[r.id for r in records],
-        bases=sum(len(r.seq) for r in records),
+        ids=[r.to_text() if opts.region is not None else r.seqid for r in regions],
+        bases=sum(r.end0 - r.start0 for r in regions),
         model=start_model,
+        stretch=describe_stretches(regions, lengths),
+        regions=regions,
+        fasta_ids=list(lengths),
     )
-    log(f"fit: {len(records)} record(s), {run.bases} bases from {opts.fasta}")
+    wanted = set(Stretch(regions).ids)
+    records = [r for r in records if r.id in wanted]
+    log(f"fit: {len(regions)} stretch(es), {run.bases} bases from {opts.fasta} ({run.stretch})")
     masked = opts.masked == "unknown"
     if opts.labels and rule == "gene_structure":
         _count_genes(run, records, tables, opts.labels, opts, log)
     elif opts.labels and rule is not None:
         _count_labels(run, records, tables, opts.labels, rule, opts, log)
     else:
-        run.codes = [api.encode(tables, r.seq, masked_unknown=masked) for r in records]
+        by_id = {r.id: r for r in records}
+        run.codes = [
+            api.encode(tables, by_id[g.seqid].seq[g.start0 : g.end0], masked_unknown=masked)
+            for g in regions
+        ]
     del records
     if run.unseen:
         log(
@@ -298,7 +324,9 @@ def fit(opts: FitOptions, *, log: Log = quiet) -> FitReport:
     prov = provenance(opts, run)
     final = fitted_model(opts, run, prov)
     write_model_folder(final, out, force=opts.force, inputs=inputs)
-    return FitReport(final, out, run.loglik, prov["method"], run.iterations, run.stop_reason)
+    return FitReport(
+        final, out, run.loglik, prov["method"], run.iterations, run.stop_reason, run.stretch
+    )
 
 
 def _estimate_counted(run: FitRun, counts: Counts, method: str) -> None:
@@ -315,11 +343,31 @@ def _count_genes(
 ) -> None:
     """Counting from a gene annotation: both strands of every record (the mirror path
     on the reverse complement), pooled as the manifest asks."""
+    from seqstate.commands.records import require_shared_ids
+    from seqstate.io.intervals import read_gene_features
+    from seqstate.kinds import gene_labels as genes
+
     start_model = run.start_model
     masked = opts.masked == "unknown"
-    run.n_features, pairs, report = read_gene_labels(
-        start_model, records, path, bad_genes=opts.bad_genes
+    _, features = read_gene_features(path)
+    require_shared_ids(path, [f.seqid for f in features], opts.fasta, [r.id for r in records])
+    stretch = Stretch(run.regions)
+    kept, cut = cut_genes(features, stretch, set(run.fasta_ids) - set(stretch.ids))
+    pairs, report = genes.label_records(
+        start_model, records, kept, path=path, bad_genes=opts.bad_genes
     )
+    for seqid, a, b, gid in cut:
+        report.skip(CUT_GENE, gid)
+        for k, rec in enumerate(records):
+            if rec.id == seqid:
+                n = len(rec.seq)
+                pairs[2 * k][1][a:b] = -1
+                pairs[2 * k + 1][1][n - b : n - a] = -1
+    for k, rec in enumerate(records):
+        for m in (0, 1):
+            outside_unknown(pairs[2 * k + m][1], stretch.on(rec.id), mirrored=m == 1)
+    require_gene_units(kept, pairs, report, start_model, path)
+    run.n_features = len(kept)
     counts = Counts.zeros(start_model)
     runs: dict[str, list[int]] = {}
     for k, (seq, states) in enumerate(pairs):
@@ -329,7 +377,7 @@ def _count_genes(
         for group, lengths in chain_runs(start_model, states).items():
             runs.setdefault(group, []).extend(lengths)
         if k % 2 == 0:
-            run.codes.append(codes)
+            run.codes.extend(codes[g.start0 : g.end0] for g in stretch.on(records[k // 2].id))
     pool_counts(start_model, counts)
     _estimate_counted(run, counts, "counting from a gene annotation")
     chains: dict[str, Any] = {}
@@ -356,10 +404,24 @@ def _count_labels(
     """Counting from labelled features: one state per base by the state rule."""
     start_model = run.start_model
     masked = opts.masked == "unknown"
+    from seqstate.commands.records import require_shared_ids
+
     features = read_labels(path, start_model, opts.labels_format)
+    require_shared_ids(path, [f.seqid for f in features], opts.fasta, [r.id for r in records])
+    stretch = Stretch(run.regions)
+    fasta_ids = set(run.fasta_ids)
+    # features on records outside the stretch are ignored; on none of the FASTA, an error
+    features = [
+        f
+        for f in features
+        if f.seqid not in fasta_ids or stretch.overlaps(f.seqid, f.start0, f.end0)
+    ]
+    cut = sum(1 for f in features if stretch.crosses(f.seqid, f.start0, f.end0))
     run.n_features = len(features)
     by_record = group_features(features, {r.id: len(r.seq) for r in records}, path)
     require_label_units(features, start_model, path)
+    if cut:
+        log(f"fit: {cut} feature(s) cross an edge of the stretch: only their bases inside count")
     counts = Counts.zeros(start_model)
     for rec in records:
         track = paint_labels(
@@ -367,11 +429,12 @@ def _count_labels(
         )
         sym = api.symbols_of(tables, rec.seq, masked_unknown=masked)
         states = assign_states(start_model, rule, track, sym, record=rec.id, path=path)
+        outside_unknown(states, stretch.on(rec.id), mirrored=False)
         codes = api.encode(tables, rec.seq, masked_unknown=masked)
         counts.add(
             count_path(start_model, tables, codes, states, record=rec.id, path=path, track=track)
         )
-        run.codes.append(codes)
+        run.codes.extend(codes[g.start0 : g.end0] for g in stretch.on(rec.id))
     _estimate_counted(run, counts, "counting from labels")
     log(
         f"fit: counted the states of {run.n_features} feature(s) (state rule '{rule}', "

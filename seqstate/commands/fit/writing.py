@@ -109,6 +109,7 @@ def provenance(opts: FitOptions, run: FitRun) -> dict[str, Any]:
         prov["labelling"] = run.labelling
     prov["records"] = len(run.ids)
     prov["bases"] = run.bases
+    prov["stretch"] = run.stretch
     prov["masked"] = opts.masked
     if opts.em:
         prov.update(
