@@ -808,11 +808,18 @@ def index_cmd(quiet: bool, **options: Any) -> None:
     callback=not_empty,
     help="Output file names start with this [default: the groups' common stem].",
 )
+@click.option(
+    "--fasta",
+    default=None,
+    callback=not_empty,
+    help="The FASTA the groups annotated: every record of it must be in one group "
+    "(its .fai is used when present) [default: the input the run reports name].",
+)
 @force_option
 @quiet_option
 @click.pass_obj
 def merge_cmd(obj: dict | None, quiet: bool, **options: Any) -> None:
-    """Gather annotate runs on groups of records (their run reports, in FASTA order)."""
+    """Gather annotate runs on groups of records (their run reports) in FASTA order."""
     from seqstate.commands.merge import MergeOptions, merge
 
     options["reports"] = list(options["reports"])

@@ -1,13 +1,22 @@
 """``seqstate merge``: gather annotate runs on groups of records into one output set.
 
 The inputs are the run reports (``STEM.run.json``) of ``seqstate annotate
---records ...`` runs on the same FASTA with the same model and options, given in
-the order their records come in the FASTA (each group a consecutive stretch of
-records).  The gathered set is then byte-identical to the output of one
-``seqstate annotate`` of the whole file with the same stem:
+--records ...`` runs on the same FASTA with the same model and options, each
+group a consecutive stretch of the FASTA's records.  The FASTA (``--fasta``, by
+default the ``input`` the groups' reports name) says what the gathered set must
+hold: every one of its records (header-only records included) in exactly one
+group.  Its record IDs are read from its ``.fai`` index when it has one, else
+from its header lines (the bases are skipped, memory is one block).  Groups given
+in another order are gathered in the FASTA's order; a record in no group, in two
+groups, not in the FASTA, or a group whose records are not one consecutive
+stretch of the FASTA is an error naming the records.  The gathered set is then
+byte-identical to the output of one ``seqstate annotate`` of the whole file with
+the same stem:
 
 - GFF3: ``##gff-version 3``, every ``##sequence-region`` line of every group in
-  order, then the feature lines of every group in order;
+  order, the ``#`` comment lines of the header once (every group must have the
+  same ones: tool and version, model name and checksum), then the feature lines
+  of every group in order;
 - feature TSV and bedGraph tracks: the header (track) line once, then the rows
   of every group in order;
 - bigWig tracks: one file with every record's header entry and the merged runs
@@ -22,7 +31,7 @@ records).  The gathered set is then byte-identical to the output of one
 
 Everything is checked before anything is written: every report and file
 exists, the groups agree on every other field of their reports and on their
-output files, and no record is in two groups.  Nothing here reads sequence.
+output files, and the records are those of the FASTA.  Nothing here reads bases.
 """
 
 from __future__ import annotations
@@ -34,8 +43,9 @@ from pathlib import Path
 from typing import Any, TextIO
 
 from seqstate.commands.annotate import REPORT_SCHEMA, check_stem
+from seqstate.commands.records import id_listing
 from seqstate.errors import UsageError, escape_text
-from seqstate.io import tracks
+from seqstate.io import faidx, files, tracks
 from seqstate.io.atomic import OutputSet, check_outputs
 
 #: ``options`` keys of a run report that say how a run was invoked (they may differ
@@ -47,6 +57,9 @@ OWN_KEYS = ("command_line", "options", "records", "skipped_records", "outputs")
 
 REPORT_SUFFIX = ".run.json"
 
+#: Bytes of the FASTA read at a time when its record IDs come from its header lines.
+_SCAN_BYTES = 1 << 22
+
 
 @dataclass
 class MergeOptions:
@@ -57,6 +70,8 @@ class MergeOptions:
     out_dir: str = "seqstate-out"
     #: file names of the gathered set; default: the groups' common stem
     stem: str | None = None
+    #: the FASTA the groups annotated (None: the ``input`` their reports name)
+    fasta: str | None = None
     force: bool = False
     command_line: list[str] = field(default_factory=list)
 
@@ -70,12 +85,15 @@ class MergeReport:
     features: int
     out_dir: str
     outputs: list[str]
+    #: the groups were given in another order than the FASTA's and gathered in its order
+    reordered: bool = False
 
     def summary(self) -> str:
         """The summary line (after ``seqstate: ``)."""
+        order = " (gathered in the FASTA's record order)" if self.reordered else ""
         return (
             f"{self.groups} group(s), {self.records} record(s), {self.features} features "
-            f"-> {self.out_dir}/"
+            f"-> {self.out_dir}/{order}"
         )
 
 
@@ -187,6 +205,106 @@ def _check_groups(groups: list[_Group]) -> list[str]:
     return suffixes
 
 
+def _fasta_of(groups: list[_Group], given: str | None) -> str:
+    """The FASTA whose records the groups must cover: ``--fasta``, else the groups' input."""
+    if given is not None:
+        path = given
+    else:
+        path = groups[0].report["options"].get("input")
+        if not isinstance(path, str) or path == "-":
+            raise UsageError(
+                f"run report '{groups[0].shown}' names no FASTA file (standard input?): "
+                "give --fasta FILE, the FASTA the groups annotated"
+            )
+        if not Path(path).is_file():
+            raise UsageError(
+                f"FASTA '{escape_text(path)}', the input of run report '{groups[0].shown}', "
+                "does not exist here: give --fasta FILE, the FASTA the groups annotated"
+            )
+    if path == "-":
+        raise UsageError("--fasta -: the FASTA's record IDs cannot be read from standard input")
+    return path
+
+
+def fasta_record_ids(path: str) -> list[str]:
+    """Every record ID of a FASTA file, in file order (header-only records included).
+
+    From the checked ``.fai`` index when the file has one (a stale index is an error,
+    as on every command); else from the header lines, read in blocks of
+    :data:`_SCAN_BYTES` (plain or gzip; the bases are skipped, never kept).  An ID is
+    the first word of its header, as the FASTA reader takes it.
+    """
+    index = faidx.load_index(path, build=False, alphabet_check=None)
+    if index is not None:
+        return list(index.entries)
+    ids: list[str] = []
+    shown = files.display_name(path)
+    with files.open_input(path) as handle:
+        buf = b"\n"  # a header on the first line follows a line end too
+        while True:
+            try:
+                chunk = handle.read(_SCAN_BYTES)
+            except files.READ_ERRORS as exc:
+                raise files.read_error(exc, shown, UsageError) from None
+            buf += chunk
+            pos, cut = 0, -1
+            while (k := buf.find(b"\n>", pos)) >= 0:
+                end = buf.find(b"\n", k + 2)
+                if end < 0:
+                    if chunk:  # the header line goes on in the next block
+                        cut = k
+                        break
+                    end = len(buf)
+                words = buf[k + 2 : end].decode("utf-8", errors="replace").split(None, 1)
+                ids.append(words[0] if words else "")
+                pos = end
+            if not chunk:
+                return ids
+            buf = buf[cut:] if cut >= 0 else buf[-1:]
+
+
+def _in_fasta_order(groups: list[_Group], fasta: str) -> tuple[list[_Group], bool]:
+    """The groups sorted into the FASTA's record order, and whether that changed their order.
+
+    Raises :class:`UsageError` for a record of a group that is not in the FASTA, a
+    record of the FASTA in no group (the names, shortened), and a group whose
+    records are not one consecutive stretch of the FASTA's records.  (A record in
+    two groups is refused before, by :func:`_check_groups`.)
+    """
+    shown = escape_text(fasta)
+    ids = fasta_record_ids(fasta)
+    place = {rid: i for i, rid in enumerate(ids)}
+    starts: list[int] = []
+    for g in groups:
+        held = [entry["id"] for entry in g.report["records"] + g.report["skipped_records"]]
+        unknown = [rid for rid in held if rid not in place]
+        if unknown:
+            raise UsageError(
+                f"run report '{g.shown}' has record(s) {id_listing(unknown)} that FASTA "
+                f"'{shown}' does not have: the groups must be runs on this FASTA (--fasta)"
+            )
+        at = sorted(place[rid] for rid in held)
+        for a, b in zip(at, at[1:]):
+            if b != a + 1:
+                raise UsageError(
+                    f"run report '{g.shown}' holds records '{escape_text(ids[a])}' and "
+                    f"'{escape_text(ids[b])}' but not the {b - a - 1} record(s) between them "
+                    f"in FASTA '{shown}' ({id_listing(ids[a + 1 : b])}): each group must be "
+                    "a consecutive stretch of the FASTA's records"
+                )
+        starts.append(at[0] if at else len(ids))
+    covered = {entry["id"] for g in groups for entry in g.report["records"]}
+    covered |= {entry["id"] for g in groups for entry in g.report["skipped_records"]}
+    missing = [rid for rid in ids if rid not in covered]
+    if missing:
+        raise UsageError(
+            f"FASTA '{shown}' has {len(missing)} record(s) in no group: {id_listing(missing)} "
+            "(expected every record in one group; give the run reports of every group)"
+        )
+    order = sorted(range(len(groups)), key=lambda i: starts[i])
+    return [groups[i] for i in order], order != list(range(len(groups)))
+
+
 def _lines(path: Path) -> Iterator[str]:
     with open(path, encoding="utf-8", newline="") as fh:
         yield from fh
@@ -197,28 +315,75 @@ def _first_line(path: Path) -> str:
         return fh.readline()
 
 
-def _write_gff3(groups: list[_Group], suffix: str, out: TextIO) -> None:
-    version = "##gff-version 3\n"
-    out.write(version)
-    bodies: list[int] = []  # per group: how many header lines to skip
-    for g in groups:
-        path = g.file(suffix)
-        n = 0
-        for line in _lines(path):
-            if n == 0:
-                if line != version:
-                    raise UsageError(
-                        f"'{escape_text(str(path))}' line 1: expected {version.strip()!r}"
-                    )
-            elif line.startswith("##sequence-region "):
-                out.write(line)
-            else:
-                break
-            n += 1
-        bodies.append(n)
-    for g, skip in zip(groups, bodies):
+_GFF_VERSION = "##gff-version 3\n"
+
+
+@dataclass
+class _GffHeader:
+    """The header of one group's GFF3: its ``##sequence-region`` lines, its ``#``
+    comment lines (``KEY VALUE``) and how many lines the header has."""
+
+    regions: list[str]
+    comments: list[str]
+    lines: int
+
+
+def _gff3_header(path: Path) -> _GffHeader:
+    """Read the header of an annotate GFF3 (the version line, then ``##sequence-region``
+    lines, then ``#`` comment lines, up to the first feature)."""
+    regions: list[str] = []
+    comments: list[str] = []
+    n = 0
+    for line in _lines(path):
+        if n == 0:
+            if line != _GFF_VERSION:
+                raise UsageError(
+                    f"'{escape_text(str(path))}' line 1: expected {_GFF_VERSION.strip()!r}"
+                )
+        elif line.startswith("##sequence-region ") and not comments:
+            regions.append(line)
+        elif line.startswith("#") and not line.startswith("##"):
+            comments.append(line)
+        else:
+            break
+        n += 1
+    return _GffHeader(regions, comments, n)
+
+
+def _comment_key(line: str) -> str:
+    return line[1:].strip().split(None, 1)[0] if line[1:].strip() else ""
+
+
+def _gff3_headers(groups: list[_Group], suffix: str) -> list[_GffHeader]:
+    """Every group's GFF3 header; their comment lines must be the same (the first
+    group's are written once): a differing model checksum, model or tool is an error."""
+    headers = [_gff3_header(g.file(suffix)) for g in groups]
+    first = headers[0].comments
+    for g, h in zip(groups[1:], headers[1:]):
+        if h.comments == first:
+            continue
+        a = {_comment_key(line): line.strip() for line in first}
+        b = {_comment_key(line): line.strip() for line in h.comments}
+        key = next((k for k in [*a, *b] if a.get(k) != b.get(k)), "")
+        raise UsageError(
+            f"'{escape_text(str(g.file(suffix)))}' and "
+            f"'{escape_text(str(groups[0].file(suffix)))}' differ in their '# {key}' header "
+            f"line ({escape_text(b.get(key, 'none'))!r} and {escape_text(a.get(key, 'none'))!r}): "
+            "groups must be runs of the same tool version and model"
+        )
+    return headers
+
+
+def _write_gff3(groups: list[_Group], suffix: str, headers: list[_GffHeader], out: TextIO) -> None:
+    """The version line, every group's ``##sequence-region`` lines, the comment lines
+    once, then every group's features."""
+    out.write(_GFF_VERSION)
+    for h in headers:
+        out.writelines(h.regions)
+    out.writelines(headers[0].comments)
+    for g, h in zip(groups, headers):
         for i, line in enumerate(_lines(g.file(suffix))):
-            if i >= skip:
+            if i >= h.lines:
                 out.write(line)
 
 
@@ -294,6 +459,7 @@ def merge(opts: MergeOptions) -> MergeReport:
         raise UsageError(
             f"the run reports have different stems ({', '.join(sorted(stems))}): give --stem"
         )
+    groups, reordered = _in_fasta_order(groups, _fasta_of(groups, opts.fasta))
     if any(s.endswith(".bw") for s in suffixes):
         tracks.require_bigwig()
     names = [stem + s for s in suffixes]
@@ -301,6 +467,7 @@ def merge(opts: MergeOptions) -> MergeReport:
         str(g.file(s)) for g in groups for s in suffixes
     ]
     check_outputs([Path(opts.out_dir) / n for n in names], inputs, force=opts.force)
+    gff_headers = {s: _gff3_headers(groups, s) for s in suffixes if s.endswith(".gff3")}
 
     first = groups[0].report
     report = dict(first)
@@ -324,7 +491,7 @@ def merge(opts: MergeOptions) -> MergeReport:
                     fh.write("\n")
             elif suffix.endswith(".gff3"):
                 with outs.open_text(name) as fh:
-                    _write_gff3(groups, suffix, fh)
+                    _write_gff3(groups, suffix, gff_headers[suffix], fh)
             elif suffix.endswith(".bw"):
                 _write_bigwig(groups, suffix, outs.path(name))
             else:  # .features.tsv, .bedgraph
@@ -336,4 +503,5 @@ def merge(opts: MergeOptions) -> MergeReport:
         features=sum(int(r["features"]) for r in report["records"]),
         out_dir=opts.out_dir,
         outputs=report["outputs"],
+        reordered=reordered,
     )
