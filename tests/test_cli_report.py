@@ -99,15 +99,21 @@ def test_report_calibrates_only_the_annotated_region(tmp_path, monkeypatch):
     size = min(20000, end + 2000) - max(1, start - 2000) + 1
     annotate(
         AnnotateOptions(
-            input=str(fasta), out_dir=str(tmp_path / "o"), region=region,
-            report="r.html", truth=str(truth),
+            input=str(fasta),
+            out_dir=str(tmp_path / "o"),
+            region=region,
+            report="r.html",
+            truth=str(truth),
         )
     )
     assert seen[-1].bases == size and seen[-1].records == 1 and seen[-1].stretch == region
     annotate(
         AnnotateOptions(
-            input=str(fasta), out_dir=str(tmp_path / "o2"), records=["sim2"],
-            report="r.html", truth=str(truth),
+            input=str(fasta),
+            out_dir=str(tmp_path / "o2"),
+            records=["sim2"],
+            report="r.html",
+            truth=str(truth),
         )
     )
     assert seen[-1].bases == 20000 and seen[-1].records == 1

@@ -93,12 +93,26 @@ def test_translation_table_is_chosen() -> None:
         write_cds_and_proteins([], "c", _reader(b""), None, io.StringIO(), table=0)
 
 
-def test_offset_moves_the_reads_and_the_span() -> None:
-    seq = b"NNNNNATGTAA"
-    gene = GenePrediction("+", [(0, 6)], [0])
+def test_offset_moves_only_the_written_span_not_the_reads() -> None:
+    # one convention: pieces and read_bases are stretch positions; offset0 (where the
+    # stretch starts in its record) is added only to the span written
+    stretch = b"ccATGTAAcc"  # record bases 5 .. 14
+    gene = GenePrediction("+", [(2, 8)], [0])
     out = io.StringIO()
-    write_cds_and_proteins([gene], "r", _reader(seq), out, None, offset0=5)
-    assert out.getvalue() == ">r.mRNA.1 gene=r.gene.1 span=6-11 strand=+ phase=0\nATGTAA\n"
+    write_cds_and_proteins([gene], "r", _reader(stretch), out, None, offset0=5)
+    assert out.getvalue() == ">r.mRNA.1 gene=r.gene.1 span=8-13 strand=+ phase=0\nATGTAA\n"
+    named = io.StringIO()
+    write_cds_and_proteins([gene], "r", _reader(stretch), named, None, offset0=5, id_stem="r:6-15")
+    assert named.getvalue().startswith(">r:6-15.mRNA.1 gene=r:6-15.gene.1 span=8-13 ")
+
+
+def test_cds_is_upper_case_whatever_the_soft_masking() -> None:
+    seq = b"ccatgAAAgtaagtttagCCCtaagg"
+    plus = GenePrediction("+", [(2, 8), (18, 24)], [0, 0])
+    assert spliced_cds(plus, _reader(seq)) == b"ATGAAACCCTAA"
+    minus = GenePrediction("-", [(2, 8)], [0])
+    # Biopython reverse complement of the upper-cased bases
+    assert spliced_cds(minus, _reader(seq)).decode() == str(Seq("ATGAAA").reverse_complement())
 
 
 def test_read_bases_that_return_too_few_bases_are_an_error() -> None:

@@ -608,3 +608,133 @@ def test_values_too_large_for_the_precision_are_rejected() -> None:
     with pytest.raises(ValueError, match="position 2 is inf, not a finite number"):
         runs_of_rounded(np.array([1e300, 0.5, np.inf]), 9)
     assert runs_of_rounded(np.array([2.0**52 - 1]), 0)[2].tolist() == [2**52 - 1]
+
+
+# ---------------------------------------------------------------- runs of unknown bases
+def test_spans_outside_runs_leaves_out_long_runs_only() -> None:
+    flags = np.zeros(30, dtype=bool)
+    flags[3:6] = True  # 3 flags: shorter than min_run 4, kept
+    flags[10:14] = True  # exactly 4: left out
+    flags[20:30] = True  # to the end: left out
+    assert tracks.spans_outside_runs(flags, 0, 0, 30, 4) == [(0, 10), (14, 20)]
+    assert tracks.spans_outside_runs(flags, 100, 105, 125, 4) == [(105, 110), (114, 120)]
+    assert tracks.spans_outside_runs(flags, 0, 11, 13, 4) == []  # inside a run
+    assert tracks.spans_outside_runs(flags, 0, 0, 30, 11) == [(0, 30)]  # no run that long
+    assert tracks.spans_outside_runs(np.zeros(5, bool), 0, 1, 4, 1) == [(1, 4)]
+    with pytest.raises(ValueError, match="do not cover"):
+        tracks.spans_outside_runs(flags, 0, 0, 31, 4)
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    st.lists(st.booleans(), min_size=1, max_size=80),
+    st.integers(min_value=1, max_value=8),
+    st.data(),
+)
+def test_track_spans_of_pieces_equal_those_of_the_whole_stretch(
+    flags: list[bool], min_run: int, data: st.DataObject
+) -> None:
+    # the window path asks piece by piece, with min_run flags of margin: the same positions
+    from seqstate.commands.annotate_run import track_spans
+
+    sym = np.where(np.array(flags), -1, 0)
+    n = len(flags)
+
+    def read(a: int, b: int) -> np.ndarray:
+        return sym[a:b]
+
+    whole = track_spans(read, n, 0, n, min_run)
+    kept = np.zeros(n, dtype=bool)
+    for a, b in whole:
+        kept[a:b] = True
+    # oracle: a base is left out when it lies in a maximal run of >= min_run unknown bases
+    want = np.ones(n, dtype=bool)
+    i = 0
+    while i < n:
+        j = i
+        while j < n and flags[j]:
+            j += 1
+        if j - i >= min_run:
+            want[i:j] = False
+        i = max(j, i + 1)
+    assert kept.tolist() == want.tolist()
+    cuts = cut_points(n, data)
+    joined = np.zeros(n, dtype=bool)
+    for lo, hi in zip(cuts, cuts[1:], strict=False):
+        for a, b in track_spans(read, n, lo, hi, min_run):
+            assert lo <= a < b <= hi
+            joined[a:b] = True
+    assert joined.tolist() == kept.tolist()
+
+
+#: Unknown runs put into the synthetic record (0-based half-open, --split-unknown 10): the
+#: long one and the one of exactly 10 straddle a window edge of the window path (4096-base
+#: windows), the 9-base one (shorter than --split-unknown) stays in the track.
+LONG_GAP = (11800, 12800)
+EXACT_GAP = (16380, 16390)
+SHORT_GAP = (20475, 20484)
+
+
+def _record_with_gaps(tmp_path: Path, model: str) -> Path:
+    from click.testing import CliRunner
+
+    from seqstate.cli import main
+
+    fasta = tmp_path / "gaps.fa"
+    res = CliRunner().invoke(
+        main,
+        ["sample", model, "--length", "30000", "--records", "1", "--seed", "5", "-o", str(fasta)],
+    )
+    assert res.exit_code == 0, res.output
+    header, *lines = fasta.read_text().splitlines()
+    seq = list("".join(lines))
+    for a, b in (LONG_GAP, EXACT_GAP, SHORT_GAP):
+        seq[a:b] = "N" * (b - a)
+    text = "".join(seq)
+    fasta.write_text(
+        header + "\n" + "\n".join(text[i : i + 60] for i in range(0, len(text), 60)) + "\n"
+    )
+    return fasta
+
+
+@pytest.mark.parametrize("model", ["cpg-island", "gene-segment"])
+def test_tracks_leave_out_runs_of_unknown_bases_that_cut_features(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, model: str
+) -> None:
+    from click.testing import CliRunner
+
+    from seqstate.cli import main
+    from seqstate.commands import annotate_run
+
+    fasta = _record_with_gaps(tmp_path, model)
+    args = ["annotate", str(fasta), "-m", model, "--tracks", "both", "--stem", "x", "-q"]
+    res = CliRunner().invoke(main, [*args, "-o", str(tmp_path / "whole")])
+    assert res.exit_code == 0, res.output
+    bedgraphs = sorted((tmp_path / "whole").glob("*.bedgraph"))
+    bigwigs = sorted((tmp_path / "whole").glob("*.bw"))
+    assert bedgraphs and len(bigwigs) == len(bedgraphs)
+    for path in bedgraphs:
+        _, rows = parse_bedgraph(path.read_text())
+        covered = np.zeros(30000, dtype=bool)
+        for seqid, start, end, _ in rows:
+            assert seqid == "sim1" and not covered[start:end].any()
+            covered[start:end] = True
+        want = np.ones(30000, dtype=bool)
+        want[LONG_GAP[0] : LONG_GAP[1]] = False
+        want[EXACT_GAP[0] : EXACT_GAP[1]] = False
+        assert covered.tolist() == want.tolist(), path.name  # the 9-base run stays in
+        # bigWig: the same bases (reference library: pyBigWig intervals, 0-based half-open)
+        bw_path = path.with_suffix(".bw")
+        intervals = bigwig_intervals(bw_path, ["sim1"])["sim1"]
+        assert isinstance(intervals, tuple)
+        in_bw = np.zeros(30000, dtype=bool)
+        for start, end, _ in intervals:
+            in_bw[start:end] = True
+        assert in_bw.tolist() == want.tolist(), bw_path.name
+    # the window path (the record long, 4096-base windows) writes the same bytes
+    monkeypatch.setattr(annotate_run, "long_threshold", lambda *a: 1000)
+    monkeypatch.setattr(annotate_run, "window_length", lambda *a: 4096)
+    res = CliRunner().invoke(main, [*args, "-o", str(tmp_path / "windows")])
+    assert res.exit_code == 0, res.output
+    for path in [*bedgraphs, *bigwigs, tmp_path / "whole" / "x.gff3"]:
+        assert (tmp_path / "windows" / path.name).read_bytes() == path.read_bytes(), path.name

@@ -29,6 +29,7 @@ from seqstate.errors import ImpossibleSequenceError, UsageError, escape_text
 from seqstate.io import tracks
 from seqstate.io.atomic import OutputSet, check_outputs
 from seqstate.io.fasta import SequenceRecord, SkippedRecord, display_name, iter_sequences
+from seqstate.io.gff3 import comment_lines
 from seqstate.io.regions import Region, check_region, parse_region
 from seqstate.io.tables import load_model, model_sha256
 from seqstate.kinds import Group, group_index, kind_of, track_groups
@@ -36,6 +37,14 @@ from seqstate.log import Progress, QuietProgress
 from seqstate.model import Model, resolve_thresholds
 
 REPORT_SCHEMA = "seqstate-run-report/1"
+
+#: Default ``--min-cds-length`` (coding bases per mRNA, stop codon included): of the
+#: RefSeq mRNAs of D. melanogaster chr 4 none has fewer, of A. thaliana chr 1
+#: 1-15,000,000 6 of 6,442 (0.09 %) (``benchmarks/cds_lengths.py``; README).
+DEFAULT_MIN_CDS_LENGTH = 90
+#: Default cds / proteins file names (``--cds`` / ``--proteins`` without a name).
+CDS_SUFFIX = ".cds.fna"
+PROTEINS_SUFFIX = ".proteins.faa"
 
 
 @dataclass
@@ -75,6 +84,11 @@ class AnnotateOptions:
     truth_types: tuple[str, ...] = ()
     #: --records/--records-file: only these record IDs, kept in input order
     records: list[str] | None = None
+    #: gene models: fewest coding bases per mRNA, and lowest gene score (the mean
+    #: posterior of the gene's states over its span), of a gene that is written;
+    #: None: the defaults (:data:`DEFAULT_MIN_CDS_LENGTH`, 0)
+    min_cds_length: int | None = None
+    min_gene_posterior: float | None = None
 
 
 @dataclass
@@ -99,6 +113,11 @@ class RecordReport:
     unknown_bases: int
     loglik_nat: float
     features: int
+    #: gene models (None otherwise): genes and mRNAs written, and genes dropped by
+    #: each filter (``min_cds_length``, ``min_gene_posterior``)
+    genes: int | None = None
+    mrnas: int | None = None
+    filtered_genes: dict[str, int] | None = None
 
 
 @dataclass
@@ -156,9 +175,16 @@ class AnnotateReport:
         return sum(r.end_1based - r.start_1based + 1 for r in self.records)
 
     def summary(self, where: str) -> str:
-        """The summary line (after ``seqstate: ``); ``where`` names the output."""
+        """The summary line (after ``seqstate: ``); ``where`` names the output.  For a
+        gene model it counts genes and mRNAs (and the genes the filters dropped)."""
         n = len(self.records)
-        return f"{n} record(s), {self.bases} bases, {self.features} features -> {where}"
+        genes = ""
+        if self.records and all(r.genes is not None for r in self.records):
+            n_genes = sum(r.genes or 0 for r in self.records)
+            n_mrnas = sum(r.mrnas or 0 for r in self.records)
+            dropped = sum(sum((r.filtered_genes or {}).values()) for r in self.records)
+            genes = f"{n_genes} genes, {n_mrnas} mRNAs ({dropped} genes filtered out), "
+        return f"{n} record(s), {self.bases} bases, {genes}{self.features} features -> {where}"
 
 
 def warn_skipped(fasta: str, skipped: list[SkippedReport], shown: int = 5) -> None:
@@ -198,6 +224,13 @@ def input_stem(path: str, region: Region | None = None) -> str:
         seqid = re.sub(r"[^A-Za-z0-9._+-]", "_", region.seqid)
         name += f".{seqid}_{region.start0 + 1}-{region.end0}"
     return name
+
+
+def feature_id_stem(region: Region) -> str:
+    """What feature IDs of a ``--region`` run start with: ``ID:START-END``, 1-based
+    closed (``chr4:1001-2000.gene.3``), so runs on different stretches of a record
+    never share an ID, and concatenating their GFF3s keeps every ID unique."""
+    return region.to_text()
 
 
 def check_stem(stem: str) -> str:
@@ -258,7 +291,9 @@ def annotate(
         if name is not None:
             if to_stdout:
                 raise UsageError(f"{option} needs an output folder (not -o -)")
-            check_stem(name)  # a plain file name: it is written inside the output folder
+            if name:  # "" asks for the default name (STEM.cds.fna, STEM.proteins.faa)
+                check_stem(name)  # a plain file name: written inside the output folder
+    _check_gene_filters(opts)
     if opts.report is not None:
         if to_stdout:
             raise UsageError("--report needs an output folder (not -o -)")
@@ -267,7 +302,7 @@ def annotate(
         raise UsageError("--truth gives the calibration figure of --report: give --report too")
     if opts.truth_types and opts.truth is None:
         raise UsageError("--truth-type chooses the features of --truth: give --truth too")
-    extras = [n for n in (opts.cds, opts.proteins, opts.report) if n is not None]
+    extras = [n for n in (opts.cds, opts.proteins, opts.report) if n]
     if len(set(extras)) < len(extras):
         raise UsageError("--cds, --proteins and --report must name different files")
     jobs, jobs_note = annotate_run.resolve_jobs(opts.jobs)
@@ -291,11 +326,12 @@ def annotate(
     if not groups:
         raise UsageError(f"model '{model.name}' has no labelled states: nothing to annotate")
     kind = kind_of(model)
-    if (opts.cds or opts.proteins) and kind.name != "genes":
+    if (opts.cds is not None or opts.proteins is not None) and kind.name != "genes":
         raise UsageError(
             f"--cds and --proteins need a gene model; model '{model.name}' has no genes"
         )
-    if opts.cds or opts.proteins:
+    gene_filter = _gene_filter(opts, given, kind.name, model.name)
+    if opts.cds is not None or opts.proteins is not None:
         from seqstate.io.cds import check_table
 
         check_table(opts.translation_table)
@@ -314,6 +350,14 @@ def annotate(
     if opts.truth is not None:
         _check_truth(opts, model, groups, region)
     stem = opts.stem if opts.stem is not None else input_stem(opts.input, region)
+    opts = replace(
+        opts,
+        cds=f"{stem}{CDS_SUFFIX}" if opts.cds == "" else opts.cds,
+        proteins=f"{stem}{PROTEINS_SUFFIX}" if opts.proteins == "" else opts.proteins,
+    )
+    extras = [n for n in (opts.cds, opts.proteins, opts.report) if n is not None]
+    if len(set(extras)) < len(extras):
+        raise UsageError("--cds, --proteins and --report must name different files")
     if not to_stdout:
         names = output_names(stem, groups, want_bedgraph, want_bigwig)
         names += [n for n in (opts.cds, opts.proteins, opts.report) if n is not None]
@@ -322,6 +366,7 @@ def annotate(
         log.note(jobs_note)
     options = {k: v for k, v in asdict(given).items() if k not in ("command_line", "jobs")}
     options["decode"] = decode
+    options["cds"], options["proteins"] = opts.cds, opts.proteins  # the names written
     report = AnnotateReport(
         schema=REPORT_SCHEMA,
         tool="seqstate",
@@ -332,7 +377,7 @@ def annotate(
         ),
         options=options,
         decode=decode,
-        thresholds={"min_posterior": min_posterior, "min_length": min_length, "from": source},
+        thresholds=_thresholds(min_posterior, min_length, source, gene_filter, given),
         log_base="natural log (ln)",
         coordinates=dict(COORDINATES),
     )
@@ -364,6 +409,7 @@ def annotate(
         want_cds=opts.cds is not None,
         want_proteins=opts.proteins is not None,
         translation_table=opts.translation_table,
+        gene_filter=gene_filter,
     )
     try:
         _write(opts, model, runner, report, stem, region_item, skipped, long_above, stdout)
@@ -400,7 +446,14 @@ def _region_item(
             bases = region.end0 - region.start0
             length = lengths[region.seqid]
             return region, Item(
-                found.id, length, start0, region.end0, read, lambda: None, bases > long_above
+                found.id,
+                length,
+                start0,
+                region.end0,
+                read,
+                lambda: None,
+                bases > long_above,
+                feature_id_stem(region),
             )
     seen: dict[str, int] = {}
     kept: SequenceRecord | None = None
@@ -435,8 +488,102 @@ def _region_item(
         kept.read,
         kept.source.close,
         bases > long_above,
+        feature_id_stem(region),
     )
     return region, item
+
+
+def gff_provenance(report: AnnotateReport) -> str:
+    """The ``#`` lines of an annotate GFF3 after its header: tool and version, model name
+    and checksum (no time, no path: the same run gives the same bytes)."""
+    return comment_lines(
+        [
+            ("tool", f"{report.tool} {report.version}"),
+            ("model", report.model.name),
+            ("model_sha256", report.model.sha256),
+        ]
+    )
+
+
+def _check_gene_filters(opts: AnnotateOptions) -> None:
+    """--min-cds-length and --min-gene-posterior in range (one-line usage errors)."""
+    if opts.min_cds_length is not None and opts.min_cds_length < 0:
+        raise UsageError(
+            f"--min-cds-length {opts.min_cds_length} is negative: expected a number of "
+            "coding bases, 0 or more"
+        )
+    mgp = opts.min_gene_posterior
+    if mgp is not None and not 0.0 <= mgp <= 1.0:
+        raise UsageError(f"--min-gene-posterior {mgp} is outside 0..1")
+
+
+def _gene_filter(opts: AnnotateOptions, given: AnnotateOptions, kind: str, model: str) -> Any:
+    """The gene filter of a gene model (None for other kinds), with a ``note:`` for each
+    option that does not apply to the model's kind."""
+    if kind != "genes":
+        for option, value in (
+            ("--min-cds-length", opts.min_cds_length),
+            ("--min-gene-posterior", opts.min_gene_posterior),
+        ):
+            if value is not None:
+                log.note(
+                    f"note: {option} applies to gene models only; model '{model}' writes "
+                    "segments, so it is ignored"
+                )
+        return None
+    for option, value, instead in (
+        ("--min-length", given.min_length, "--min-cds-length"),
+        ("--min-posterior", given.min_posterior, "--min-gene-posterior"),
+    ):
+        if value is not None:
+            log.note(
+                f"note: {option} does not apply to gene models (model '{model}'); "
+                f"it is ignored: use {instead} to filter genes"
+            )
+    from seqstate.kinds.genes import GeneFilter
+
+    return GeneFilter(
+        DEFAULT_MIN_CDS_LENGTH if opts.min_cds_length is None else opts.min_cds_length,
+        0.0 if opts.min_gene_posterior is None else float(opts.min_gene_posterior),
+    )
+
+
+def _thresholds(
+    min_posterior: float,
+    min_length: int,
+    source: dict[str, str],
+    gene_filter: Any,
+    given: AnnotateOptions,
+) -> dict[str, Any]:
+    """The run report's ``thresholds``: the segment thresholds, or a gene model's filters
+    (``from``: ``option``, ``model`` or ``default``)."""
+    if gene_filter is None:
+        return {"min_posterior": min_posterior, "min_length": min_length, "from": source}
+    return {
+        "min_cds_length": gene_filter.min_cds_length,
+        "min_gene_posterior": gene_filter.min_gene_posterior,
+        "from": {
+            "min_cds_length": "default" if given.min_cds_length is None else "option",
+            "min_gene_posterior": "default" if given.min_gene_posterior is None else "option",
+        },
+    }
+
+
+def _gene_counts(counts: dict[str, int]) -> dict[str, Any]:
+    """The gene fields of a :class:`RecordReport` from a kind's counts (empty for a
+    kind that counts no genes)."""
+    from seqstate.kinds import genes
+
+    if genes.COUNT_GENES not in counts:
+        return {}
+    return {
+        "genes": counts[genes.COUNT_GENES],
+        "mrnas": counts[genes.COUNT_MRNAS],
+        "filtered_genes": {
+            "min_cds_length": counts[genes.FILTERED_CDS_LENGTH],
+            "min_gene_posterior": counts[genes.FILTERED_GENE_POSTERIOR],
+        },
+    }
 
 
 def _stream_items(
@@ -545,7 +692,14 @@ def _write_set(
                 names.append(name)
                 bigwig_paths.append(outs.path(name))
         writer = OutputWriter(
-            gff_target, scratch, tsv, bedgraphs, handles, bigwig_paths, opts.precision
+            gff_target,
+            scratch,
+            tsv,
+            bedgraphs,
+            handles,
+            bigwig_paths,
+            opts.precision,
+            gff_comments=gff_provenance(report),
         )
         names += [extra for extra in (opts.cds, opts.proteins, opts.report) if extra is not None]
         writer.cds = outs.open_text(opts.cds) if opts.cds is not None else None
@@ -570,6 +724,7 @@ def _write_set(
                     out.unknown,
                     out.loglik,
                     out.features,
+                    **_gene_counts(out.counts),
                 )
             )
         report.skipped_records = [SkippedReport(sk.id, sk.line0 + 1, sk.reason) for sk in skipped]

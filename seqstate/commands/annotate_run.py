@@ -117,6 +117,8 @@ class Item:
     read: Callable[[int, int], bytes]
     close: Callable[[], None]
     long: bool
+    #: feature IDs start with this (None: ``id``); ``ID:START-END`` for a region run
+    id_stem: str | None = None
 
     @property
     def bases(self) -> int:
@@ -140,19 +142,69 @@ class RecordOutput:
     bigwig: list[tuple[np.ndarray, np.ndarray, np.ndarray]] = field(default_factory=list)
     cds: str = ""
     proteins: str = ""
+    #: counts the kind reported (gene kinds: genes, mrnas, filtered_*)
+    counts: dict[str, int] = field(default_factory=dict)
 
 
-def bedgraph_text(seqid: str, values: np.ndarray, offset0: int, precision: int) -> str:
+def bedgraph_text(
+    seqid: str,
+    values: np.ndarray,
+    offset0: int,
+    precision: int,
+    spans: list[tuple[int, int]] | None = None,
+) -> str:
     """The bedGraph lines :class:`~seqstate.io.tracks.BedGraphTrack` writes for one whole
-    record's values (without the track line)."""
+    stretch's values (``values[i]`` is position ``offset0 + i``; without the track line):
+    only the positions of ``spans`` (record coordinates, 0-based half-open; None: all)."""
     buf = io.StringIO()
     track = tracks.BedGraphTrack(buf, "x", "", precision)
     start = buf.tell()
-    track.add(seqid, values, offset0)
-    end_record = getattr(track, "end_record", None)
-    if end_record is not None:
-        end_record(seqid)
+    for a, b in _spans_or_all(values, offset0, spans):
+        track.add(seqid, values[a - offset0 : b - offset0], a)
+    track.end_record(seqid)
     return buf.getvalue()[start:]
+
+
+def _spans_or_all(
+    values: np.ndarray, offset0: int, spans: list[tuple[int, int]] | None
+) -> list[tuple[int, int]]:
+    return [(offset0, offset0 + int(values.shape[0]))] if spans is None else spans
+
+
+def bigwig_runs(
+    values: np.ndarray, offset0: int, precision: int, spans: list[tuple[int, int]] | None = None
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The merged runs (record coordinates) a bigWig gets for one whole stretch's values,
+    only over ``spans`` (as :func:`bedgraph_text`)."""
+    carry = RunCarry(precision)
+    parts = [
+        carry.add(values[a - offset0 : b - offset0], a)
+        for a, b in _spans_or_all(values, offset0, spans)
+    ]
+    parts.append(carry.close())
+    return (
+        np.concatenate([p[0] for p in parts]),
+        np.concatenate([p[1] for p in parts]),
+        np.concatenate([p[2] for p in parts]),
+    )
+
+
+def track_spans(
+    read_symbols: Callable[[int, int], np.ndarray],
+    n: int,
+    a: int,
+    b: int,
+    split_unknown: int,
+) -> list[tuple[int, int]]:
+    """The positions of ``[a, b)`` (stretch coordinates, 0-based half-open) a track
+    writes: all but the runs of at least ``split_unknown`` unknown bases, the runs that
+    cut features.  ``read_symbols`` reads the stretch of ``n`` bases (negative symbol:
+    unknown); a run crossing an end of ``[a, b)`` is measured on up to
+    ``split_unknown`` bases beyond it, so the pieces of a window equal those of the
+    whole stretch."""
+    lo, hi = max(0, a - split_unknown), min(n, b + split_unknown)
+    flags = np.asarray(read_symbols(lo, hi)) < 0
+    return tracks.spans_outside_runs(flags, lo, a, b, split_unknown)
 
 
 @dataclass
@@ -178,18 +230,31 @@ class Runner:
     want_cds: bool = False
     want_proteins: bool = False
     translation_table: int = 1
+    #: gene models: which decoded genes are written (:class:`seqstate.kinds.genes.GeneFilter`)
+    gene_filter: Any = None
 
     def _gene_writer(
-        self, seqid: str, read: Callable[[int, int], bytes], offset0: int, cds: Any, prot: Any
+        self, item: Item, read: Callable[[int, int], bytes], cds: Any, prot: Any
     ) -> Callable[[list[Any]], None] | None:
-        """The callback that writes a record's CDS and proteins (gene models), or None."""
+        """The callback that writes a stretch's CDS and proteins (gene models), or None.
+
+        ``read(a, b)`` takes stretch positions, as the genes' pieces do
+        (:mod:`seqstate.io.cds`); ``item.start0`` is added only to the spans written.
+        """
         if not (self.want_cds or self.want_proteins):
             return None
         from seqstate.io.cds import write_cds_and_proteins
 
         def on_genes(genes: list[Any]) -> None:
             write_cds_and_proteins(
-                genes, seqid, read, cds, prot, self.translation_table, offset0=offset0
+                genes,
+                item.id,
+                read,
+                cds,
+                prot,
+                self.translation_table,
+                offset0=item.start0,
+                id_stem=item.id_stem,
             )
 
         return on_genes
@@ -227,15 +292,17 @@ class Runner:
             min_posterior=self.min_posterior,
             min_length=self.min_length,
             split_unknown=self.split_unknown,
+            id_stem=item.id_stem,
+            gene_filter=self.gene_filter,
         )
         gff_text = io.StringIO()
         tsv_text = io.StringIO()
         cds_text = io.StringIO() if self.want_cds else None
         prot_text = io.StringIO() if self.want_proteins else None
-        data.on_genes = self._gene_writer(
-            item.id, lambda a, b: seq[a:b], item.start0, cds_text, prot_text
-        )
+        # the stretch's own bases, in stretch positions (as the genes' pieces are)
+        data.on_genes = self._gene_writer(item, lambda a, b: seq[a:b], cds_text, prot_text)
         n_feat = self.kind.write_record(data, GFF3Writer(gff_text, body_only=True), tsv_text)
+        counts = data.counts
         del data
         out = RecordOutput(
             item.id,
@@ -249,22 +316,21 @@ class Runner:
             tsv_text.getvalue(),
             cds=cds_text.getvalue() if cds_text is not None else "",
             proteins=prot_text.getvalue() if prot_text is not None else "",
+            counts=counts,
         )
+        # tracks leave out the runs of unknown bases that cut features (record coordinates)
+        spans = [
+            (item.start0 + a, item.start0 + b)
+            for a, b in track_spans(lambda a, b: sym[a:b], n, 0, n, self.split_unknown)
+        ]
         for g in range(len(groups)):
             values = post.values[:, g]
             if self.want_bedgraph:
-                out.bedgraph.append(bedgraph_text(item.id, values, item.start0, self.precision))
-            if self.want_bigwig:
-                carry = RunCarry(self.precision)
-                body = carry.add(values, item.start0)
-                tail = carry.close()
-                out.bigwig.append(
-                    (
-                        np.concatenate([body[0], tail[0]]),
-                        np.concatenate([body[1], tail[1]]),
-                        np.concatenate([body[2], tail[2]]),
-                    )
+                out.bedgraph.append(
+                    bedgraph_text(item.id, values, item.start0, self.precision, spans)
                 )
+            if self.want_bigwig:
+                out.bigwig.append(bigwig_runs(values, item.start0, self.precision, spans))
         self.progress.advance(n - n // 2, item.id)
         return out
 
@@ -310,12 +376,25 @@ class Runner:
             split_unknown=self.split_unknown,
             threads=self.jobs,
             window=window_length(self.model, self.kind, self.groups),
-            on_genes=self._gene_writer(item.id, read_bases, start0, writer.cds, writer.proteins),
+            on_genes=self._gene_writer(item, read_bases, writer.cds, writer.proteins),
+            id_stem=item.id_stem,
+            gene_filter=self.gene_filter,
         )
 
+        piece_spans: dict[tuple[int, int], list[tuple[int, int]]] = {}
+
         def track_sink(g: int, a: int, values: np.ndarray) -> None:
-            # ``a``: record coordinates (the stretch's offset included)
-            writer.track_piece(g, item.id, a, values)
+            # ``a``: record coordinates (the stretch's offset included); the runs of
+            # unknown bases that cut features are left out, as on the whole-record path
+            key = (a, int(values.shape[0]))
+            if key not in piece_spans:  # the same piece comes once per track group
+                piece_spans.clear()
+                b = a - start0 + key[1]
+                piece_spans[key] = track_spans(read_symbols, n, a - start0, b, self.split_unknown)
+            for s0, e0 in piece_spans[key]:
+                writer.track_piece(
+                    g, item.id, start0 + s0, values[s0 - (a - start0) : e0 - (a - start0)]
+                )
             if g == 0:
                 self.progress.advance(int(values.shape[0]), item.id)
                 _stop_check()  # a stop signal swallowed on the way still ends a long record
@@ -328,7 +407,9 @@ class Runner:
             item.close()
         writer.end_track_record(item.id, item.length)
         writer.note_region(item.id, start0, item.end0)
-        return RecordOutput(item.id, item.length, start0, item.end0, unknown, loglik, n_feat)
+        out = RecordOutput(item.id, item.length, start0, item.end0, unknown, loglik, n_feat)
+        out.counts = rec.counts
+        return out
 
     # ------------------------------------------------------------ the loop
     def run(self, items: Iterator[Item], writer: OutputWriter) -> list[RecordOutput]:
@@ -399,7 +480,10 @@ class OutputWriter:
         bedgraph_handles: list[TextIO],
         bigwig_paths: list[Path],
         precision: int,
+        gff_comments: str = "",
     ) -> None:
+        """``gff_comments``: ``#`` lines written after the GFF3 header, before the first
+        feature (:func:`seqstate.io.gff3.comment_lines`)."""
         self._gff_target = gff_target
         if scratch is not None:
             self._gff: DeferredGFF3 | None = DeferredGFF3(gff_target, scratch / "features.gff3")
@@ -409,6 +493,11 @@ class OutputWriter:
             self._gff = None
             self._gff_body = io.StringIO()
             self.gff_writer = GFF3Writer(self._gff_body, body_only=True)
+        if gff_comments:  # the body's first lines: the header goes before them
+            if self._gff is not None:
+                self._gff.write_text(gff_comments)
+            elif self._gff_body is not None:
+                self._gff_body.write(gff_comments)
         self.tsv = tsv
         self.bedgraphs = bedgraphs
         self._bedgraph_handles = bedgraph_handles

@@ -114,6 +114,7 @@ from seqstate.commands.compare_report import (
     report_tsv,
     write_report,
 )
+from seqstate.commands.records import require_shared_ids
 from seqstate.errors import FeatureFormatError, UsageError
 from seqstate.io.files import display_name
 from seqstate.io.gff3 import Feature, read_gff3, read_sequence_regions
@@ -562,6 +563,12 @@ def compare_files(
         for seqid, (start0, end0, line0) in regions.items():
             if seqid not in spans:
                 spans[seqid] = Span(seqid, start0, end0, source, f"{name} line {line0 + 1}")
+    require_shared_ids(
+        pred_name,
+        list(dict.fromkeys([*sorted(declared["predicted"]), *(f.seqid for f in pred)])),
+        ref_name,
+        list(dict.fromkeys([*sorted(declared["reference"]), *(f.seqid for f in ref)])),
+    )
     if all_sequences:
         return _compare(pred, ref, spans, chosen, reg, pred_name, ref_name, None, "all")
     only = declared["predicted"] | {f.seqid for f in pred}

@@ -1,16 +1,20 @@
 """Spliced coding sequences (FASTA ``.fna``) and their translations (``.faa``) of decoded genes.
 
 Each :class:`~seqstate.kinds.genes.GenePrediction` gives one record in each file, named
-by the ID of its GFF3 mRNA line (``SEQID.mRNA.N``, :func:`seqstate.kinds.genes.gene_lines`;
-``N`` counts the record's genes from 1 in genomic order, as the GFF3 writer does).
+by the ID of its GFF3 mRNA line (``IDSTEM.mRNA.N``, :func:`seqstate.kinds.genes.gene_lines`;
+``IDSTEM`` is the record ID, or ``ID:START-END`` for a ``--region`` run; ``N`` counts the
+stretch's written genes from 1 in genomic order, as the GFF3 writer does).
 
-Coordinates: the genes' CDS pieces are 0-based half-open on the plus strand, relative
-to ``offset0`` (the same convention as :func:`seqstate.kinds.genes.write_genes`);
-``read_bases(start0, end0)`` gives bases ``start0 .. end0 - 1`` of the record in record
-coordinates.  The description of each FASTA record gives the span 1-based closed.
+Coordinates, one convention for the whole gene path: the genes' CDS pieces are 0-based
+half-open positions of the *annotated stretch* (position 0 is record position
+``offset0``), and ``read_bases(start0, end0)`` takes the same stretch positions (as
+:class:`seqstate.kinds.stream.StreamRecord` readers and ``RecordData.seq`` do).  ``offset0``
+is added only where a record coordinate is written: the description's span, 1-based
+closed, as the GFF3 writer (:func:`seqstate.kinds.genes.write_genes`) adds it to its lines.
 
 The CDS record is the pieces joined 5' to 3' on the gene's strand (reverse complement
-for ``-``), bases as read (soft-masked lower case kept).  The protein is the translation
+for ``-``), in upper case (soft-masking says nothing about a coding sequence; IUPAC
+codes are kept).  The protein is the translation
 (Biopython, NCBI translation table ``table``) of that CDS read from its phase: the
 first ``phase`` bases of the 5'-most piece (GFF3 1.26 phase: bases to drop to reach
 the first whole codon) are skipped, an incomplete last codon is dropped, and a final
@@ -56,21 +60,18 @@ def check_table(table: int) -> int:
     return table
 
 
-def spliced_cds(
-    gene: GenePrediction, read_bases: Callable[[int, int], bytes], offset0: int = 0
-) -> bytes:
-    """The gene's CDS pieces joined 5' to 3' on its strand (bytes as read).
+def spliced_cds(gene: GenePrediction, read_bases: Callable[[int, int], bytes]) -> bytes:
+    """The gene's CDS pieces joined 5' to 3' on its strand, upper case.
 
-    Pieces are 0-based half-open relative to ``offset0``; ``read_bases`` takes record
-    coordinates.  A minus-strand gene is reverse-complemented (IUPAC codes too).
+    Pieces and ``read_bases`` both use 0-based half-open positions of the annotated
+    stretch (see the module docstring).  A minus-strand gene is reverse-complemented
+    (IUPAC codes too).
     """
-    parts = [read_bases(a + offset0, b + offset0) for a, b in gene.pieces]
+    parts = [read_bases(a, b) for a, b in gene.pieces]
     for (a, b), part in zip(gene.pieces, parts):
         if len(part) != b - a:
-            raise ValueError(
-                f"read_bases({a + offset0}, {b + offset0}) gave {len(part)} bases, not {b - a}"
-            )
-    joined = b"".join(parts)
+            raise ValueError(f"read_bases({a}, {b}) gave {len(part)} bases, not {b - a}")
+    joined = b"".join(parts).upper()
     if gene.strand == "-":
         return joined.translate(_COMPLEMENT)[::-1]
     return joined
@@ -111,33 +112,37 @@ def write_cds_and_proteins(
     *,
     offset0: int = 0,
     first_number: int = 1,
+    id_stem: str | None = None,
 ) -> int:
     """Write one CDS record (``cds_handle``) and one protein record (``protein_handle``)
     per gene; returns the number of genes written.  Either handle may be None.
 
-    ``genes`` are one record's predictions in genomic order (as given to
-    :func:`~seqstate.kinds.genes.write_genes`); gene ``k`` (from 0) is named
-    ``SEQID.mRNA.{first_number + k}``, the ID of its GFF3 mRNA line.  The description
-    is ``gene=SEQID.gene.N span=START-END strand=S phase=P`` (1-based closed span of
-    the coding part on ``seqid``), plus ``partial=REASON[,REASON]`` for a partial gene
-    and, on proteins, ``table=T``.  A gene with no whole codon after its phase gets a
-    protein record of its header alone.
+    ``genes`` are one stretch's written genes in genomic order (as given to
+    :func:`~seqstate.kinds.genes.write_genes`), their pieces and ``read_bases`` in
+    stretch positions (the stretch starts ``offset0`` bases into record ``seqid``).
+    Gene ``k`` (from 0) is named ``IDSTEM.mRNA.{first_number + k}``, the ID of its GFF3
+    mRNA line (``IDSTEM``: ``id_stem``, default ``seqid``).  The description is
+    ``gene=IDSTEM.gene.N span=START-END strand=S phase=P`` (1-based closed span of the
+    coding part on record ``seqid``), plus ``partial=REASON[,REASON]`` for a partial
+    gene and, on proteins, ``table=T``.  A gene with no whole codon after its phase gets
+    a protein record of its header alone.
     ``table`` is an NCBI translation table number (:func:`check_table`).
     """
     check_table(table)
+    stem = seqid if id_stem is None else id_stem
     for k, gene in enumerate(genes):
         number = first_number + k
-        name = f"{seqid}.mRNA.{number}"
+        name = f"{stem}.mRNA.{number}"
         g0, g1 = gene.span
         phases = cds_phases(gene)
         phase = phases[0] if gene.strand == "+" else phases[-1]
         desc = (
-            f"gene={seqid}.gene.{number} span={g0 + offset0 + 1}-{g1 + offset0} "
+            f"gene={stem}.gene.{number} span={g0 + offset0 + 1}-{g1 + offset0} "
             f"strand={gene.strand} phase={phase}"
         )
         if gene.partial:
             desc += f" partial={','.join(gene.partial_reasons)}"
-        cds = spliced_cds(gene, read_bases, offset0)
+        cds = spliced_cds(gene, read_bases)
         if cds_handle is not None:
             _write_record(cds_handle, name, desc, cds.decode("ascii"))
         if protein_handle is not None:

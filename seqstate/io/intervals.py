@@ -34,7 +34,15 @@ from typing import BinaryIO
 from seqstate.errors import FeatureFormatError, UsageError
 from seqstate.io.bed import parse_bed
 from seqstate.io.files import display_name, open_input, peek_lines, text_lines
-from seqstate.io.gff3 import GTF_COLUMNS, STRANDS, Feature, parse_columns, parse_gff3, read_gff3
+from seqstate.io.gff3 import (
+    GTF_COLUMNS,
+    STRANDS,
+    Feature,
+    parse_columns,
+    parse_gff3,
+    paused_gc,
+    read_gff3,
+)
 
 __all__ = [
     "FORMAT_NAMES",
@@ -119,7 +127,8 @@ def _looks_gtf(attributes: str) -> bool:
 def detect_interval_format(lines: Sequence[bytes]) -> str:
     """``gff3``, ``gtf`` or ``bed`` from the first lines of a file (decompressed bytes).
 
-    A ``##gff-version 2`` line means GTF, any other ``##gff-version`` line GFF3.
+    A ``##gff-version 2`` or ``#gtf-version`` line (the first line of NCBI and
+    Ensembl GTF files) means GTF, any other ``##gff-version`` line GFF3.
     Otherwise the first line that is neither blank nor a ``#`` comment decides:
     nine (GTF: also ten, the last a ``#`` comment) tab-separated columns whose
     4th and 5th are whole numbers, 7th a strand and 8th a phase mean GTF when
@@ -133,6 +142,8 @@ def detect_interval_format(lines: Sequence[bytes]) -> str:
         if line.startswith("##gff-version"):
             version = line[len("##gff-version") :].strip()
             return "gtf" if version.split(".")[0] == "2" else "gff3"
+        if line.startswith("#gtf-version"):
+            return "gtf"
         if line.startswith("#"):
             continue
         cols = line.split("\t")
@@ -233,7 +244,8 @@ def read_interval_file(
         if known is None:
             head, handle = peek_lines(handle, shown, FeatureFormatError, most=SNIFF_LINES)
             known = detect_interval_format(head)
-        return known, list(read_intervals(handle, known, shown, types=types))
+        with paused_gc():
+            return known, list(read_intervals(handle, known, shown, types=types))
 
 
 # ---------------------------------------------------------------- GTF
@@ -245,6 +257,8 @@ def _error(message: str, shown: str, line0: int) -> FeatureFormatError:
 
 def _split_comment(text: str) -> str:
     """``text`` up to a ``#`` that is outside double quotes (a GTF comment)."""
+    if "#" not in text:
+        return text
     quoted = False
     for i, ch in enumerate(text):
         if ch == '"':
@@ -254,12 +268,39 @@ def _split_comment(text: str) -> str:
     return text
 
 
+#: One well-formed GTF attribute: ``key "value";`` or ``key value;`` (the ';' may
+#: be left off at the end of the column), with the ';' and blanks that follow it.
+_GTF_PAIR_TEXT = r'[ \t]*([^\s";]+)[ \t]+(?:"([^"]*)"|([^\s";]+))[ \t]*(?:;[ \t;]*|$)'
+_GTF_PAIR = re.compile(_GTF_PAIR_TEXT)
+#: A whole column of well-formed attributes (the pattern above without its groups).
+_GTF_COLUMN = re.compile(
+    r"[ \t;]*(?:" + _GTF_PAIR_TEXT.replace("(", "(?:").replace("(?:?:", "(?:") + ")*"
+)
+
+
 def parse_gtf_attributes(text: str, shown: str = "", line0: int = 0) -> list[tuple[str, str]]:
     """The ``key "value";`` pairs of a GTF column 9, in order; a key given twice
     (``tag "a"; tag "b";``) gives two pairs.  Quotes are removed from a quoted
-    value; an unquoted value (``exon_number 2;``) is kept as written.  Raises
-    :class:`~seqstate.errors.FeatureFormatError` for a pair without a value or
-    with an unclosed quote."""
+    value (which may hold spaces and ';'; an empty ``""`` is kept as ``""``); an
+    unquoted value (``exon_number 2;``) is kept as written.  A trailing ``; `` and
+    doubled ';' are allowed.  Raises :class:`~seqstate.errors.FeatureFormatError`
+    for a pair without a value or with an unclosed quote.
+
+    A well-formed column (every line of database files) is checked whole and split
+    by regular expressions (the pairs of such a column are unique: keys and
+    unquoted values hold no blank, quote or ';'); any other column is read by
+    :func:`_parse_gtf_attributes_slowly`, which names what is wrong."""
+    if text in ("", "."):
+        return []
+    if _GTF_COLUMN.fullmatch(text) is None:
+        return _parse_gtf_attributes_slowly(text, shown, line0)
+    # an unquoted value is never empty, so an empty third group means a quoted value
+    return [(key, unquoted or quoted) for key, quoted, unquoted in _GTF_PAIR.findall(text)]
+
+
+def _parse_gtf_attributes_slowly(text: str, shown: str, line0: int) -> list[tuple[str, str]]:
+    """:func:`parse_gtf_attributes` one pair at a time, with a message for the
+    first pair that is not ``key "value";``."""
     out: list[tuple[str, str]] = []
     rest = text.strip()
     if rest == ".":

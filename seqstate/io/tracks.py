@@ -14,6 +14,11 @@ escapes them), so one base run is always one line.
 Rounding is exact: a value is shown as Python's ``f"{v:.{precision}f}"`` shows
 it (round half to even on the exact binary value), except that a value that
 rounds to zero is never written with a minus sign.
+
+A track may leave bases out (bedGraph and bigWig both allow gaps: a base with no
+line has no value).  ``annotate`` leaves out every run of unknown bases long
+enough to cut features (``--split-unknown``): :func:`spans_outside_runs` gives
+the pieces of a stretch that are written.
 """
 
 from __future__ import annotations
@@ -39,6 +44,7 @@ __all__ = [
     "format_scaled",
     "require_bigwig",
     "runs_of_rounded",
+    "spans_outside_runs",
     "write_bedgraph",
     "write_bigwig",
 ]
@@ -66,6 +72,50 @@ def escape_text(value: str) -> str:
     if not any(ch in _CONTROL for ch in value):
         return value
     return "".join(f"%{ord(ch):02X}" if ch in _CONTROL else ch for ch in value)
+
+
+def spans_outside_runs(
+    flags: np.ndarray, flags0: int, start0: int, end0: int, min_run: int
+) -> list[tuple[int, int]]:
+    """The pieces of ``[start0, end0)`` outside every run of at least ``min_run`` flags.
+
+    ``flags`` is a boolean per position, ``flags[i]`` being position ``flags0 + i``
+    (0-based); a run is a maximal stretch of True flags inside what ``flags``
+    covers.  ``flags`` must cover ``[start0, end0)``, and, for a run that crosses
+    either end to be measured, ``min_run`` positions beyond it on each side (or up
+    to the edge of the stretch the runs are counted in: a run is cut there).
+    Returns 0-based half-open ``(start0, end0)`` pairs in order, none empty; the
+    whole interval when no such run touches it.
+    """
+    if min_run < 1:
+        raise ValueError(f"min_run must be at least 1, not {min_run}")
+    lo, hi = start0 - flags0, end0 - flags0
+    if lo < 0 or hi > flags.shape[0]:
+        raise ValueError(
+            f"flags of positions {flags0}..{flags0 + flags.shape[0]} do not cover {start0}..{end0}"
+        )
+    if end0 <= start0:
+        return []
+    u = np.asarray(flags, dtype=np.bool_)
+    if not u[lo:hi].any():
+        return [(start0, end0)]
+    padded = np.zeros(u.shape[0] + 2, dtype=np.bool_)
+    padded[1:-1] = u
+    edges = np.flatnonzero(padded[1:] != padded[:-1])
+    out: list[tuple[int, int]] = []
+    at = start0
+    for a, b in zip(edges[0::2].tolist(), edges[1::2].tolist()):
+        if b - a < min_run:
+            continue
+        a, b = max(a + flags0, start0), min(b + flags0, end0)
+        if a >= b:
+            continue
+        if a > at:
+            out.append((at, a))
+        at = b
+    if at < end0:
+        out.append((at, end0))
+    return out
 
 
 def _check_precision(precision: int) -> None:

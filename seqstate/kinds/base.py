@@ -15,7 +15,7 @@ from __future__ import annotations
 
 from abc import ABC, abstractmethod
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any, TextIO
 
 import numpy as np
@@ -105,8 +105,14 @@ class RecordData:
     min_posterior: float
     min_length: int
     split_unknown: int
-    #: called with the record's decoded genes (gene kinds; for CDS and protein files)
+    #: called with the record's written genes (gene kinds; for CDS and protein files)
     on_genes: Callable[[list[Any]], None] | None = None
+    #: feature IDs start with this (None: ``seqid``); ``ID:START-END`` for a region run
+    id_stem: str | None = None
+    #: the gene kind's filters (:class:`seqstate.kinds.genes.GeneFilter`; None: none)
+    gene_filter: Any = None
+    #: counts the kind reports for the stretch (gene kinds: genes, mrnas, filtered_*)
+    counts: dict[str, int] = field(default_factory=dict)
 
     @property
     def unknown(self) -> np.ndarray:

@@ -63,6 +63,50 @@ class GenePrediction:
         return self.pieces[0][0], self.pieces[-1][1]
 
 
+def cds_length(gene: GenePrediction) -> int:
+    """Coding bases of the gene's mRNA (the sum of its CDS pieces)."""
+    return sum(b - a for a, b in gene.pieces)
+
+
+#: Keys of the per-stretch counts the gene kind fills (``RecordData.counts``).
+COUNT_GENES = "genes"
+COUNT_MRNAS = "mrnas"
+FILTERED_CDS_LENGTH = "filtered_cds_length"
+FILTERED_GENE_POSTERIOR = "filtered_gene_posterior"
+
+
+@dataclass(frozen=True)
+class GeneFilter:
+    """Which decoded genes are written (annotate ``--min-cds-length``,
+    ``--min-gene-posterior``).
+
+    A gene is dropped when its mRNA has fewer than ``min_cds_length`` coding bases
+    (:func:`cds_length`), else when its score -- the mean posterior, over the gene's
+    span, of its strand's gene states (coding and intron), column 6 of its GFF3 gene
+    line -- is below ``min_gene_posterior``.  Each dropped gene is counted once, under
+    the first rule it fails (:data:`FILTERED_CDS_LENGTH`, then
+    :data:`FILTERED_GENE_POSTERIOR`).  Genes that are written are numbered 1, 2, ...
+    in genomic order, so numbers stay consecutive.
+    """
+
+    min_cds_length: int = 0
+    min_gene_posterior: float = 0.0
+
+    def reason(
+        self, gene: GenePrediction, gene_score: Callable[[], float | None]
+    ) -> str | None:
+        """Why ``gene`` is dropped (a count key), or None when it is written.
+        ``gene_score()`` gives its score (None when unscored); it is asked for only when
+        the posterior rule applies."""
+        if cds_length(gene) < self.min_cds_length:
+            return FILTERED_CDS_LENGTH
+        if self.min_gene_posterior > 0.0:
+            score = gene_score()
+            if score is not None and score < self.min_gene_posterior:
+                return FILTERED_GENE_POSTERIOR
+        return None
+
+
 def unknown_runs(unknown: np.ndarray, threshold: int) -> list[tuple[int, int]]:
     """Maximal runs (0-based half-open) of at least ``threshold`` unknown bases."""
     u = np.asarray(unknown, dtype=bool)
@@ -368,17 +412,19 @@ class GeneLine:
 _TYPE_RANK = {"gene": 0, "mRNA": 1, "exon": 2, "CDS": 3}
 
 
-def gene_lines(gene: GenePrediction, seqid: str, number: int) -> list[GeneLine]:
+def gene_lines(gene: GenePrediction, id_stem: str, number: int) -> list[GeneLine]:
     """The gene -> mRNA -> exon + CDS lines of one gene, in file order.
 
-    IDs: ``SEQID.gene.N``, ``SEQID.mRNA.N``, ``SEQID.mRNA.N.exon.K`` and
-    ``SEQID.mRNA.N.CDS.K`` with K counted from the 5' end on the gene's strand.
+    IDs: ``IDSTEM.gene.N``, ``IDSTEM.mRNA.N``, ``IDSTEM.mRNA.N.exon.K`` and
+    ``IDSTEM.mRNA.N.CDS.K`` with K counted from the 5' end on the gene's strand;
+    ``id_stem`` is the record ID, or ``ID:START-END`` (1-based closed) for a region
+    run, so runs on different stretches never share an ID.
     File order is by start (then parent before child: gene, mRNA, exon, CDS), the
     order index tools need (common practice), whatever the strand.
     """
     g0, g1 = gene.span
-    gid = f"{seqid}.gene.{number}"
-    mid = f"{seqid}.mRNA.{number}"
+    gid = f"{id_stem}.gene.{number}"
+    mid = f"{id_stem}.mRNA.{number}"
     lines = [GeneLine("gene", g0, g1, gid, None, None, None)]
     lines.append(GeneLine("mRNA", g0, g1, mid, gid, None, None))
     phases = cds_phases(gene)
@@ -419,8 +465,18 @@ def write_genes(
     predictions: list[GenePrediction],
     seqid: str,
     offset0: int,
+    *,
+    id_stem: str | None = None,
+    gene_filter: GeneFilter | None = None,
+    counts: dict[str, int] | None = None,
+    written: list[GenePrediction] | None = None,
 ) -> int:
     """Write decoded genes as GFF3 gene -> mRNA -> exon + CDS lines; returns the line count.
+
+    ``gene_filter`` drops genes (:class:`GeneFilter`); the genes written are numbered
+    from 1 and appended to ``written``; ``counts`` gets :data:`COUNT_GENES`,
+    :data:`COUNT_MRNAS` and the filtered counts.  IDs start with ``id_stem`` (default
+    ``seqid``; :func:`gene_lines`).
 
     ``predictions`` are :class:`GenePrediction` in genomic order
     (0-based, relative to ``offset0``).  gene and mRNA span the coding part (start
@@ -459,9 +515,67 @@ def write_genes(
         )
 
     count = 0
-    for number, gp in enumerate(predictions, start=1):
-        count += write_gene(gff, tsv, gp, number, seqid, offset0, score_line)
+    tally = _Tally(gene_filter, counts, written)
+    for gp in predictions:
+        scored = _memo(score_line)
+        number = tally.keep(gp, scored)
+        if number:
+            count += write_gene(gff, tsv, gp, number, seqid, offset0, scored, id_stem=id_stem)
     return count
+
+
+def _memo(
+    score_line: Callable[[GeneLine, str, int], dict | None],
+) -> Callable[[GeneLine, str, int], dict | None]:
+    """``score_line`` remembering its answers for one gene (gene and mRNA lines share
+    their span, and the filter asks for the gene line's score first)."""
+    seen: dict[tuple[int, int, int], dict | None] = {}
+
+    def scored(ln: GeneLine, strand: str, k: int) -> dict | None:
+        key = (ln.start0, ln.end0, k)
+        if key not in seen:
+            seen[key] = score_line(ln, strand, k)
+        return seen[key]
+
+    return scored
+
+
+class _Tally:
+    """The filter of one stretch's genes, its counts, and the numbers of kept genes."""
+
+    def __init__(
+        self,
+        gene_filter: GeneFilter | None,
+        counts: dict[str, int] | None,
+        written: list[GenePrediction] | None,
+    ) -> None:
+        self.filter = gene_filter or GeneFilter()
+        self.counts = counts if counts is not None else {}
+        for key in (COUNT_GENES, COUNT_MRNAS, FILTERED_CDS_LENGTH, FILTERED_GENE_POSTERIOR):
+            self.counts.setdefault(key, 0)
+        self.written = written
+        self.kept = 0
+
+    def keep(
+        self, gene: GenePrediction, score_line: Callable[[GeneLine, str, int], dict | None]
+    ) -> int:
+        """The number of ``gene`` when it is written (1, 2, ...), else 0 (counted)."""
+
+        def gene_score() -> float | None:
+            g0, g1 = gene.span
+            sc = score_line(GeneLine("gene", g0, g1, "", None, None, None), gene.strand, 0)
+            return None if sc is None else float(sc["mean_posterior"])
+
+        why = self.filter.reason(gene, gene_score)
+        if why is not None:
+            self.counts[why] += 1
+            return 0
+        self.kept += 1
+        self.counts[COUNT_GENES] += 1
+        self.counts[COUNT_MRNAS] += 1  # one mRNA per gene: the model has no isoforms
+        if self.written is not None:
+            self.written.append(gene)
+        return self.kept
 
 
 def gene_masks(model: Model) -> dict[str, tuple[np.ndarray, np.ndarray]]:
@@ -494,15 +608,18 @@ def write_gene(
     seqid: str,
     offset0: int,
     score_line: Callable[[GeneLine, str, int], dict | None],
+    *,
+    id_stem: str | None = None,
 ) -> int:
     """Write one gene's lines (see :func:`write_genes`); the count written.
 
     ``score_line(line, strand, k)`` gives the scores of one line (``k`` 0: scored on
     the strand's gene states, 1: on its CDS states), or None for an unscored line.
+    IDs start with ``id_stem`` (default ``seqid``).
     """
     strand = gp.strand
     count = 0
-    for ln in gene_lines(gp, seqid, number):
+    for ln in gene_lines(gp, seqid if id_stem is None else id_stem, number):
         a, b = ln.start0, ln.end0
         sc = score_line(ln, strand, 0 if ln.type in ("gene", "mRNA") else 1)
         attrs: list[tuple[str, str | list[str]]] = [("ID", ln.id)]
@@ -685,8 +802,8 @@ class _GeneStream:
         rec = self.rec
         rp = RecordPass(rec)
         genes = self.predictions(rp)
-        if rec.on_genes is not None:
-            rec.on_genes(genes)
+        written: list[GenePrediction] = []
+        tally = _Tally(rec.gene_filter, rec.counts, written)
         masks = gene_masks(rec.model)
         cols = {strand: strand_columns(rec.groups, strand) for strand in "+-"}
         n_groups = len(rec.groups)
@@ -719,9 +836,21 @@ class _GeneStream:
                     )
 
                 nxt += 1
-                count += write_gene(
-                    self.gff, self.tsv, genes[nxt - 1], nxt, rec.seqid, rec.offset0, score_line
-                )
+                scored = _memo(score_line)
+                number = tally.keep(genes[nxt - 1], scored)
+                if number:
+                    count += write_gene(
+                        self.gff,
+                        self.tsv,
+                        genes[nxt - 1],
+                        number,
+                        rec.seqid,
+                        rec.offset0,
+                        scored,
+                        id_stem=rec.id_stem,
+                    )
+        if rec.on_genes is not None:
+            rec.on_genes(written)
         return count, rp.loglik, unknown
 
 
@@ -742,9 +871,8 @@ class GeneKind(Kind):
         predictions = decode_genes(
             rec.model, rec.tables, rec.codes, rec.unknown, rec.decode, rec.split_unknown, rec.seqid
         )
-        if rec.on_genes is not None:
-            rec.on_genes(predictions)
-        return write_genes(
+        written: list[GenePrediction] = []
+        count = write_genes(
             gff,
             tsv,
             rec.model,
@@ -755,7 +883,14 @@ class GeneKind(Kind):
             predictions,
             rec.seqid,
             rec.offset0,
+            id_stem=rec.id_stem,
+            gene_filter=rec.gene_filter,
+            counts=rec.counts,
+            written=written,
         )
+        if rec.on_genes is not None:
+            rec.on_genes(written)
+        return count
 
     def write_stream(
         self, rec: StreamRecord, gff: GFF3Writer, tsv: TextIO, track_sink: TrackSink

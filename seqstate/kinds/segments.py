@@ -357,9 +357,18 @@ def group_masks(model: Model, groups: list[Group]) -> list[np.ndarray]:
     return masks
 
 
-def feature_of(seqid: str, offset0: int, grp: Group, seg: Segment, number: int) -> Feature:
-    """The GFF3 feature of a scored segment (``offset0`` shifts region coordinates)."""
-    attrs: list[tuple[str, str | list[str]]] = [("ID", f"{seqid}.{grp.track_name}.{number}")]
+def feature_of(
+    seqid: str,
+    offset0: int,
+    grp: Group,
+    seg: Segment,
+    number: int,
+    id_stem: str | None = None,
+) -> Feature:
+    """The GFF3 feature of a scored segment (``offset0`` shifts region coordinates); its
+    ID is ``IDSTEM.TRACK.N`` (``id_stem``, default ``seqid``)."""
+    stem = seqid if id_stem is None else id_stem
+    attrs: list[tuple[str, str | list[str]]] = [("ID", f"{stem}.{grp.track_name}.{number}")]
     for key, value in seg.scores.items():
         attrs.append((key, format_value(value, SCORE_FORMATS.get(key, ".6g"))))
     return Feature(
@@ -384,11 +393,12 @@ def write_segment(
     score_cols: list[str],
     gff: GFF3Writer,
     tsv: TextIO,
+    id_stem: str | None = None,
 ) -> None:
     """Write one scored segment as a GFF3 line and a feature-table row; its number is
     the next of ``counters[seg.group]`` (counted per group, in file order)."""
     counters[seg.group] += 1
-    feat = feature_of(seqid, offset0, groups[seg.group], seg, counters[seg.group])
+    feat = feature_of(seqid, offset0, groups[seg.group], seg, counters[seg.group], id_stem)
     gff.write(feat)
     row = [
         tracks.escape_text(seqid),
@@ -529,6 +539,7 @@ class _SegmentStream:
                 self.score_cols,
                 self.gff,
                 self.tsv,
+                rec.id_stem,
             )
             k += 1
         del self.pending[:k]
@@ -566,7 +577,9 @@ class SegmentKind(Kind):
         score_cols = self.feature_columns(rec.groups)[len(ID_COLUMNS) :]
         counters = [0] * len(rec.groups)
         for seg in segs:
-            write_segment(rec.seqid, rec.offset0, rec.groups, seg, counters, score_cols, gff, tsv)
+            write_segment(
+                rec.seqid, rec.offset0, rec.groups, seg, counters, score_cols, gff, tsv, rec.id_stem
+            )
         return len(segs)
 
     def write_stream(

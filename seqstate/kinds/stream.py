@@ -25,7 +25,7 @@ window edge O(feature length * columns).  Never an O(N) array.
 from __future__ import annotations
 
 from collections.abc import Callable, Iterator
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any, TextIO
 
 import numpy as np
@@ -91,8 +91,14 @@ class StreamRecord:
     threads: int = 1
     window: int = DEFAULT_WINDOW
     block: int | None = None
-    #: called with the record's decoded genes (gene kinds; for CDS and protein files)
+    #: called with the record's written genes (gene kinds; for CDS and protein files)
     on_genes: Callable[[list[Any]], None] | None = None
+    #: feature IDs start with this (None: ``seqid``); ``ID:START-END`` for a region run
+    id_stem: str | None = None
+    #: the gene kind's filters (:class:`seqstate.kinds.genes.GeneFilter`; None: none)
+    gene_filter: Any = None
+    #: counts the kind reports for the stretch (gene kinds: genes, mrnas, filtered_*)
+    counts: dict[str, int] = field(default_factory=dict)
 
 
 @dataclass
@@ -229,6 +235,10 @@ def write_whole(
         min_posterior=rec.min_posterior,
         min_length=rec.min_length,
         split_unknown=rec.split_unknown,
+        on_genes=rec.on_genes,
+        id_stem=rec.id_stem,
+        gene_filter=rec.gene_filter,
+        counts=rec.counts,
     )
     count = kind.write_record(data, gff, tsv)
     for g in range(len(rec.groups)):
