@@ -571,8 +571,7 @@ def plot_cmd(quiet: bool, **options: Any) -> None:
     type=float,
     default=1e-8,
     show_default=True,
-    help="EM: converged when the relative gain (change / |previous log-likelihood|) is "
-    "below this.",
+    help="EM: converged when the relative gain (change / |previous log-likelihood|) is below this.",
 )
 @click.option(
     "--freeze",

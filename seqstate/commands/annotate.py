@@ -739,9 +739,7 @@ def _write_set(
     return text
 
 
-def _known_total(
-    path: str, region_item: Item | None, records: Sequence[str] | None = None
-) -> int:
+def _known_total(path: str, region_item: Item | None, records: Sequence[str] | None = None) -> int:
     """Bases the run will annotate when known before reading (a region, or an existing
     FASTA index: the selected ``records`` only, when given); 0 when not."""
     if region_item is not None:

@@ -149,7 +149,10 @@ def id_listing(ids: Sequence[str] | set[str], most: int = SHOWN_IDS) -> str:
 
 
 def require_shared_ids(
-    first: str, first_ids: Sequence[str] | set[str], second: str, second_ids: Sequence[str] | set[str]
+    first: str,
+    first_ids: Sequence[str] | set[str],
+    second: str,
+    second_ids: Sequence[str] | set[str],
 ) -> None:
     """Two inputs about one genome must share a sequence ID; otherwise a one-line
     :class:`~seqstate.errors.FeatureFormatError` naming both ID sets (shortened).

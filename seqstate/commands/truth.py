@@ -119,9 +119,7 @@ def derive_introns(features: Sequence[object]) -> list[tuple[str, int, int, str,
     return out
 
 
-def read_truth(
-    model: Model, groups: list[Group], path: str, types: Sequence[str] = ()
-) -> TruthSet:
+def read_truth(model: Model, groups: list[Group], path: str, types: Sequence[str] = ()) -> TruthSet:
     """Read and check the truth ``path`` (BED, GFF3 or GTF) for ``model``'s ``groups``.
 
     ``types`` (``--type``, repeatable) choose the GFF3/GTF features by column 3, each a
@@ -206,4 +204,3 @@ def fasta_ids(path: str, lengths: dict[str, int] | None) -> list[str] | None:
                 if words:
                     ids.append(words[0].decode("utf-8", errors="replace"))
     return ids
-

@@ -92,9 +92,7 @@ class GeneFilter:
     min_cds_length: int = 0
     min_gene_posterior: float = 0.0
 
-    def reason(
-        self, gene: GenePrediction, gene_score: Callable[[], float | None]
-    ) -> str | None:
+    def reason(self, gene: GenePrediction, gene_score: Callable[[], float | None]) -> str | None:
         """Why ``gene`` is dropped (a count key), or None when it is written.
         ``gene_score()`` gives its score (None when unscored); it is asked for only when
         the posterior rule applies."""
