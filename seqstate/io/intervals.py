@@ -411,6 +411,33 @@ GTF_TRANSCRIPT_PARTS = frozenset(
 #: GTF lines that only describe a gene or transcript as a whole (replaced by the
 #: gene and mRNA/transcript lines built from the parts).
 GTF_WHOLE_TYPES = frozenset({"gene", "transcript", "mRNA"})
+#: Attributes that name a gene's kind: NCBI and Ensembl ``gene_biotype``, GENCODE
+#: ``gene_type``.  A value that ends ``pseudogene`` (``pseudogene``,
+#: ``processed_pseudogene``, ``transcribed_unprocessed_pseudogene``, ...) makes the
+#: gene a ``pseudogene`` feature, the SO term RefSeq and Ensembl GFF3 use for it.
+GTF_BIOTYPE_KEYS = ("gene_biotype", "gene_type")
+#: Attributes of GTF lines that the hierarchy replaces by ``ID`` and ``Parent``.
+_GTF_ID_KEYS = frozenset({"gene_id", "transcript_id", "ID", "Parent"})
+
+
+def _gtf_id(iv: Interval, key: str) -> str | None:
+    """The value of ``gene_id`` or ``transcript_id``; an empty value (``""``, which
+    NCBI writes on gene lines, and GTF 2.2 on intergenic lines) is none."""
+    value = iv.get(key)
+    return value or None
+
+
+def _own_attributes(iv: Interval) -> list[tuple[str, str | list[str]]]:
+    return [(k, v) for k, v in iv.attributes if k not in _GTF_ID_KEYS]
+
+
+def _gene_type(lines: Sequence[Interval]) -> str:
+    for iv in lines:
+        for key in GTF_BIOTYPE_KEYS:
+            biotype = iv.get(key)
+            if biotype is not None:
+                return "pseudogene" if biotype.endswith("pseudogene") else "gene"
+    return "gene"
 
 
 def _feature(iv: Interval, ftype: str, attributes: list[tuple[str, str | list[str]]]) -> Feature:
@@ -469,11 +496,14 @@ def gtf_gene_features(
 ) -> list[Feature]:
     """GTF lines as GFF3-style features with a gene -> transcript -> part hierarchy.
 
-    Every ``gene_id`` gives a ``gene`` feature (``ID=gene_id``) and every
+    Every ``gene_id`` gives a ``gene`` feature (``ID=gene_id``; a ``pseudogene``
+    when its ``gene_biotype`` or ``gene_type`` ends ``pseudogene``) and every
     ``transcript_id`` an ``mRNA`` (when it has CDS lines, else ``transcript``)
     feature (``ID=transcript_id;Parent=gene_id``); each spans all the lines of its
     gene or transcript (the file's own ``gene``/``transcript`` lines included, and
-    then dropped).  The transcript's parts (CDS, exon, codons, UTRs; any line with a
+    then dropped; their other attributes are kept).  An empty ``gene_id`` or
+    ``transcript_id`` (``""``: NCBI's gene lines) is read as absent.  The
+    transcript's parts (CDS, exon, codons, UTRs, Selenocysteine; any line with a
     ``transcript_id``) get ``Parent=transcript_id``, their other attributes kept; a
     part with a ``gene_id`` and no ``transcript_id`` gets ``Parent=gene_id``.
     With ``join_stop_codons`` the ``stop_codon`` lines are joined to the CDS (GTF 2.2
@@ -491,7 +521,7 @@ def gtf_gene_features(
     loose: list[Interval] = []
     lone: dict[str, list[Interval]] = {}  # parts with a gene_id and no transcript_id
     for iv in intervals:
-        gid, tid = iv.get("gene_id"), iv.get("transcript_id")
+        gid, tid = _gtf_id(iv, "gene_id"), _gtf_id(iv, "transcript_id")
         if gid is not None and tid is None and iv.type not in GTF_WHOLE_TYPES:
             lone.setdefault(gid, []).append(iv)
         if gid is None:
@@ -512,23 +542,23 @@ def gtf_gene_features(
     for gid, lines in genes.items():
         _same_place(lines, f"gene_id '{gid}'", shown)
         first = lines[0]
+        own = next((iv for iv in lines if iv.type == "gene"), None)
         out.append(
             Feature(
                 first.seqid,
                 first.source or ".",
-                "gene",
+                _gene_type(lines if own is None else [own]),
                 min(iv.start0 for iv in lines),
                 max(iv.end0 for iv in lines),
                 None,
                 first.strand,
                 None,
-                [("ID", gid)],
+                [("ID", gid), *(_own_attributes(own) if own is not None else [])],
                 first.line0,
             )
         )
         for iv in lone.get(gid, []):
-            kept = [(k, v) for k, v in iv.attributes if k != "gene_id"]
-            out.append(_feature(iv, iv.type or ".", [("Parent", gid), *kept]))
+            out.append(_feature(iv, iv.type or ".", [("Parent", gid), *_own_attributes(iv)]))
         for tid, tx in tx_of_gene.get(gid, {}).items():
             if tid in seen_tx:
                 raise _error(
@@ -540,6 +570,7 @@ def gtf_gene_features(
             seen_tx[tid] = gid
             _same_place(tx, f"transcript_id '{tid}'", shown)
             parts = [iv for iv in tx if iv.type not in GTF_WHOLE_TYPES]
+            whole = next((iv for iv in tx if iv.type in GTF_WHOLE_TYPES), None)
             cds = [iv for iv in parts if iv.type == "CDS"]
             stops = [iv for iv in parts if iv.type == "stop_codon"]
             if join_stop_codons and cds and stops:
@@ -555,13 +586,16 @@ def gtf_gene_features(
                     None,
                     tx[0].strand,
                     None,
-                    [("ID", tid), ("Parent", gid)],
+                    [
+                        ("ID", tid),
+                        ("Parent", gid),
+                        *(_own_attributes(whole) if whole is not None else []),
+                    ],
                     tx[0].line0,
                 )
             )
             for iv in sorted(parts, key=lambda iv: (iv.start0, iv.end0, iv.line0)):
-                kept = [(k, v) for k, v in iv.attributes if k not in ("gene_id", "transcript_id")]
-                out.append(_feature(iv, iv.type or ".", [("Parent", tid), *kept]))
+                out.append(_feature(iv, iv.type or ".", [("Parent", tid), *_own_attributes(iv)]))
     out.extend(_feature(iv, iv.type or ".", list(iv.attributes)) for iv in loose)
     return out
 
