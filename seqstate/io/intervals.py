@@ -280,9 +280,7 @@ _GTF_PAIR_TEXT = r'{k}[ \t]+(?:"{q}"|{u})(?:[ \t]*;[ \t;]*|[ \t]*$)'
 _GTF_PAIR = re.compile(r'([^\s";]+)[ \t]+"?((?<=")[^"]*(?=")|(?<!")[^\s";]+)"?')
 #: A whole column of well-formed attributes.
 _GTF_COLUMN = re.compile(
-    r"[ \t;]*(?:"
-    + _GTF_PAIR_TEXT.format(k=r'[^\s";]+', q=r'[^"]*', u=r'[^\s";]+')
-    + ")*"
+    r"[ \t;]*(?:" + _GTF_PAIR_TEXT.format(k=r'[^\s";]+', q=r'[^"]*', u=r'[^\s";]+') + ")*"
 )
 
 
