@@ -289,7 +289,8 @@ def test_min_cds_length_drops_short_genes_and_numbers_stay_consecutive(
     assert sum(r["filtered_genes"]["min_cds_length"] for r in report["records"]) == dropped
     assert sum(r["genes"] for r in report["records"]) == len(kept)
     assert report["thresholds"]["min_cds_length"] == cut
-    assert f"{len(kept)} genes, {len(kept)} mRNAs ({dropped} genes filtered out)" in res.output
+    summary = f"{len(kept)} gene(s), {len(kept)} mRNA(s), {dropped} gene(s) filtered out, "
+    assert summary in res.output
 
 
 def test_min_gene_posterior_drops_genes_below_their_score(tmp_path, genes_fasta) -> None:

@@ -183,7 +183,7 @@ class AnnotateReport:
             n_genes = sum(r.genes or 0 for r in self.records)
             n_mrnas = sum(r.mrnas or 0 for r in self.records)
             dropped = sum(sum((r.filtered_genes or {}).values()) for r in self.records)
-            genes = f"{n_genes} genes, {n_mrnas} mRNAs ({dropped} genes filtered out), "
+            genes = f"{n_genes} gene(s), {n_mrnas} mRNA(s), {dropped} gene(s) filtered out, "
         return f"{n} record(s), {self.bases} bases, {genes}{self.features} features -> {where}"
 
 
