@@ -29,7 +29,7 @@ import re
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import BinaryIO
+from typing import BinaryIO, cast
 
 from seqstate.errors import FeatureFormatError, UsageError
 from seqstate.io.bed import parse_bed
@@ -365,7 +365,7 @@ def _gtf_line(line: str, shown: str, line0: int) -> Interval:
         cols, shown, line0, GTF_COLUMNS
     )
     pairs = parse_gtf_attributes(_split_comment(cols[8]), shown, line0) if len(cols) == 9 else []
-    attributes: list[tuple[str, str | list[str]]] = list(pairs)
+    attributes = cast("list[tuple[str, str | list[str]]]", pairs)  # GTF values are strings
     values = dict(reversed(pairs))  # the first value of each key
     name = values.get("transcript_id") or values.get("gene_id")
     return Interval(seqid, start0, end0, strand, ftype, name, phase, line0, attributes, source)
@@ -644,4 +644,5 @@ def read_gene_features(
             )
             for iv in found
         ]
-    return "gtf", gtf_gene_features(found, display_name(path))
+    with paused_gc():
+        return "gtf", gtf_gene_features(found, display_name(path))
