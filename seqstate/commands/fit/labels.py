@@ -50,9 +50,9 @@ class LabelFeature:
 
 
 def read_labels(path: str | Path, model: Model, fmt: str = "auto") -> list[LabelFeature]:
-    """The features of a GFF3 (1-based closed) or BED (0-based half-open) file.
+    """The features of a GFF3 or GTF (1-based closed) or BED (0-based half-open) file.
 
-    Every feature's type (GFF3 column 3) or name (BED column 4) must be a label
+    Every feature's type (GFF3 and GTF column 3) or name (BED column 4) must be a label
     of ``model``; a BED line without a name is read as the model's only label
     when it has exactly one.  Empty BED intervals (start = end) cover nothing
     and are dropped.  Raises :class:`FeatureFormatError` naming the line.
@@ -63,7 +63,7 @@ def read_labels(path: str | Path, model: Model, fmt: str = "auto") -> list[Label
     shown = display_name(path)
     if fmt not in ("auto", "gff3", "gtf", "bed"):
         raise UsageError(f"labels format '{fmt}' is not gff3, gtf, bed or auto")
-    _, found = read_interval_file(path, None if fmt == "auto" else fmt, what="GFF3 or BED")
+    _, found = read_interval_file(path, None if fmt == "auto" else fmt, what="GFF3, GTF or BED")
     labels = model.labels
     known = ", ".join(f"'{x}'" for x in labels) or "none"
     out: list[LabelFeature] = []
