@@ -892,3 +892,33 @@ def test_table_lists_at_most_ten_genes_and_says_how_many_more() -> None:
     assert lines[head + 10] == "    p09  c:91-95 +"
     assert lines[head + 11] == "  ... 2 more (all of them: --gene-list FILE.tsv)"
     assert "    r  c:201-210 +" in lines  # the one reference gene, missed
+
+
+# ---------------------------------------------------------------- two assemblies
+def test_files_of_two_assemblies_are_an_error_naming_both_id_sets(tmp_path):
+    pred, ref = tmp_path / "p.gff3", tmp_path / "r.gff3"
+    pred.write_text("##gff-version 3\nchr4\tx\tCDS\t1\t30\t.\t+\t0\tID=a\n")
+    ref.write_text(
+        "##gff-version 3\n"
+        + "".join(f"NC_{k}\tx\tCDS\t1\t30\t.\t+\t0\tID=b{k}\n" for k in range(8))
+    )
+    line = check_error(["compare", pred, ref], 1, "share no sequence ID", "'chr4'", "'NC_0'")
+    assert "(8 in all)" in line and "'NC_7'" not in line  # shortened
+    assert check_error(["compare", pred, ref, "--all-sequences"], 1, "share no sequence ID")
+
+
+def test_plot_reference_of_another_assembly_is_an_error(tmp_path):
+    pytest.importorskip("matplotlib")
+    fa = tmp_path / "s.fa"
+    fa.write_text(">sim1\n" + "ACGT" * 100 + "\n")
+    ref = tmp_path / "r.gff3"
+    ref.write_text("##gff-version 3\nchrZ\tx\tCpG_island\t1\t30\t.\t.\t.\tID=b\n")
+    out = tmp_path / "f.png"
+    check_error(
+        ["plot", fa, "--region", "sim1:1-100", "-m", "cpg-island", "-o", out, "--reference", ref],
+        1,
+        "share no sequence ID",
+        "'chrZ'",
+        "'sim1'",
+    )
+    assert not out.exists()

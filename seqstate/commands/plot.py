@@ -257,6 +257,11 @@ def plot_data(opts: PlotOptions) -> PlotData:
             f"{MAX_REGION:,} plotted without --allow-large"
         )
     ref = read_regions(opts.reference) if opts.reference is not None else None
+    if ref is not None:
+        from seqstate.commands.records import require_shared_ids
+
+        ref_ids = list(dict.fromkeys(r.seqid for r in ref.regions))
+        require_shared_ids(ref.path, ref_ids, display_name(opts.input), list(lengths))
     seqid, record_length = region.seqid, lengths[region.seqid]
     if opts.flank is None:
         w0, w1 = 0, record_length
