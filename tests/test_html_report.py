@@ -11,6 +11,7 @@ from __future__ import annotations
 import csv
 import io
 import json
+import os
 import re
 import shutil
 import subprocess
@@ -29,6 +30,17 @@ from seqstate.io.html_report import (
     panels_in_columns,
     table_rows,
     write_html_report,
+)
+
+
+def _in_ci() -> bool:
+    return os.environ.get("CI", "").strip().lower() in ("true", "1", "yes")
+
+
+#: Browser tests are skipped without Chromium outside CI; in CI the fixture fails instead.
+needs_chromium = pytest.mark.skipif(
+    not _in_ci() and not any(shutil.which(n) for n in ("chromium", "chromium-browser")),
+    reason="headless Chromium is not installed",
 )
 
 pytest.importorskip("matplotlib")
@@ -170,6 +182,7 @@ def _chromium() -> str | None:
     return None
 
 
+@needs_chromium
 def test_renders_in_chromium(page: str, tmp_path: Path, chromium: str) -> None:
     from matplotlib.image import imread
 
@@ -208,6 +221,7 @@ def test_renders_in_chromium(page: str, tmp_path: Path, chromium: str) -> None:
     assert m and m.group(1) == m.group(2) == str(n_rows)
 
 
+@needs_chromium
 def test_table_sorts_and_searches_in_chromium(
     run_files: tuple[dict, list[dict]], tmp_path: Path, chromium: str
 ):
