@@ -138,4 +138,3 @@ def chromium() -> str:
         if found:
             return found
     pytest.fail("headless Chromium is not installed (.ci/run installs it)")
-

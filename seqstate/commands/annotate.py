@@ -364,7 +364,11 @@ def annotate(
         check_outputs([Path(opts.out_dir) / n for n in names], [opts.input], force=opts.force)
     if jobs_note:
         log.note(jobs_note)
-    options = {k: v for k, v in asdict(given).items() if k not in ("command_line", "jobs")}
+    options = {
+        k: list(v) if isinstance(v, tuple) else v  # as JSON reads it back
+        for k, v in asdict(given).items()
+        if k not in ("command_line", "jobs")
+    }
     options["decode"] = decode
     options["cds"], options["proteins"] = opts.cds, opts.proteins  # the names written
     report = AnnotateReport(
