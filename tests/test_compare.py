@@ -275,14 +275,19 @@ def test_whole_record_region_takes_the_declared_length() -> None:
 def test_lengths_come_from_either_file_reference_first(tmp_path) -> None:
     ref_text = CDS_REF.read_text()
     pred_lines = CDS_PRED.read_text().splitlines(keepends=True)
-    # reference says 1-120, prediction says 1-100: the reference wins, TN = 53 + 20
+    # reference says 1-120, no line in the prediction: the reference's length, TN = 53 + 20
     ref120 = tmp_path / "ref120.gff3"
     ref120.write_text(ref_text.replace("ctgA 1 100", "ctgA 1 120"))
+    result = compare_files(CDS_PRED, ref120)
+    assert result["sequences"][0]["end_1based"] == 120
+    assert result["counts"]["nucleotide"]["strand_agnostic"]["tn"] == 73
+    # prediction says 1-100 (a region run): only its stretch is compared, TN = 53
     pred100 = tmp_path / "pred100.gff3"
     pred100.write_text(pred_lines[0] + "##sequence-region ctgA 1 100\n" + "".join(pred_lines[1:]))
     result = compare_files(pred100, ref120)
-    assert result["sequences"][0]["end_1based"] == 120
-    assert result["counts"]["nucleotide"]["strand_agnostic"]["tn"] == 73
+    assert result["sequences"][0]["end_1based"] == 100
+    assert result["sequence_scope"] == "predicted stretch"
+    assert result["counts"]["nucleotide"]["strand_agnostic"]["tn"] == 53
     # reference without the line: the prediction's length is used
     ref_none = tmp_path / "ref_none.gff3"
     ref_none.write_text(ref_text.replace("##sequence-region ctgA 1 100\n", ""))
@@ -393,6 +398,48 @@ def test_partial_sequence_region_is_the_compared_span(tmp_path) -> None:
     # same TP/FP/FN as the whole record (every feature lies in 11-90); TN = 80 - 47 = 33
     ag = result["counts"]["nucleotide"]["strand_agnostic"]
     assert (ag["tp"], ag["fp"], ag["fn"], ag["tn"]) == (30, 7, 10, 33)
+
+
+def _region_run(tmp_path: Path, start: int, end: int) -> Path:
+    """CDS_PRED as ``annotate --region ctgA:START-END`` writes it: its line declares the
+    stretch, and only its features inside it."""
+    lines = CDS_PRED.read_text().splitlines(keepends=True)
+    kept = [
+        line
+        for line in lines[1:]
+        if line.startswith("#")
+        or start <= int(line.split("\t")[3]) <= int(line.split("\t")[4]) <= end
+    ]
+    pred = tmp_path / f"pred_{start}_{end}.gff3"
+    pred.write_text(lines[0] + f"##sequence-region ctgA {start} {end}\n" + "".join(kept))
+    return pred
+
+
+@pytest.mark.parametrize("stretch", [(1, 45), (21, 100), (61, 95)])
+def test_region_run_compares_its_stretch_like_region(tmp_path, stretch) -> None:
+    # a region run's prediction against a whole-sequence reference (GFF3 with a
+    # ##sequence-region line, or GTF with none) counts only the annotated stretch:
+    # the same figures as --region START-END (the reference outside is not missed)
+    start, end = stretch
+    pred = _region_run(tmp_path, start, end)
+    want = compare_files(pred, CDS_REF, region=f"ctgA:{start}-{end}")
+    for ref in (CDS_REF, _as_gtf(CDS_REF, tmp_path / "ref.gtf")):
+        got = compare_files(pred, ref)
+        assert got["sequence_scope"] == "predicted stretch"
+        assert got["region_from"] == f"{pred} line 2"
+        assert got["counts"] == want["counts"] and got["nucleotide"] == want["nucleotide"]
+        assert got["counts"]["bases"] == end - start + 1
+
+
+def test_region_runs_of_two_sequences_need_region(tmp_path) -> None:
+    pred = _region_run(tmp_path, 21, 100)
+    text = pred.read_text().replace(
+        "##sequence-region ctgA 21 100\n",
+        "##sequence-region ctgA 21 100\n##sequence-region ctgB 2 40\n",
+    )
+    pred.write_text(text)
+    with pytest.raises(UsageError, match="narrower than the reference.*--region"):
+        compare_files(pred, _ref_with_other_sequence(tmp_path))
 
 
 # ---------------------------------------------------------------- islands and intervals

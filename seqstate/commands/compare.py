@@ -554,11 +554,13 @@ def compare_files(
     chosen = choose_type(pred_types, ref_types, feature_type, pred_name, ref_name)
     spans: dict[str, Span] = {}
     declared: dict[str, set[str]] = {}
+    regions_of: dict[str, dict[str, tuple[int, int, int]]] = {}
     for source, name, path in (
         ("reference", ref_name, reference),
         ("predicted", pred_name, predicted),
     ):
         regions = {} if gtf[path] else read_sequence_regions(path)
+        regions_of[source] = regions
         declared[source] = set(regions)
         for seqid, (start0, end0, line0) in regions.items():
             if seqid not in spans:
@@ -571,5 +573,53 @@ def compare_files(
     )
     if all_sequences:
         return _compare(pred, ref, spans, chosen, reg, pred_name, ref_name, None, "all")
+    narrowed = None if reg is not None else _stretch_of_prediction(regions_of, ref, pred_name)
+    if narrowed is not None:
+        # the stretch bounds the comparison; it is not the sequence's length
+        if spans[narrowed.seqid].source == "predicted":
+            spans = {k: v for k, v in spans.items() if k != narrowed.seqid}
+        result = _compare(pred, ref, spans, chosen, narrowed.text(), pred_name, ref_name)
+        result["sequence_scope"] = "predicted stretch"
+        result["region_from"] = narrowed.note
+        return result
     only = declared["predicted"] | {f.seqid for f in pred}
     return _compare(pred, ref, spans, chosen, reg, pred_name, ref_name, only, "predicted")
+
+
+def _stretch_of_prediction(
+    regions_of: Mapping[str, Mapping[str, tuple[int, int, int]]],
+    ref: Iterable[Feature | Interval],
+    pred_name: str | None,
+) -> Span | None:
+    """The stretch a region run's prediction covers, when it is narrower than the reference.
+
+    A prediction of ``annotate --region`` declares the annotated stretch in its
+    ``##sequence-region`` line.  When that line differs from the reference's
+    (or the reference declares none and has features of that seqid outside
+    it), the comparison is restricted to the stretch, as ``--region`` would:
+    the whole-sequence reference is not counted against a partial prediction.
+    ``None`` when no such line exists; an error when several seqids would need
+    it (give ``--region``).
+    """
+    pred_regions, ref_regions = regions_of["predicted"], regions_of["reference"]
+    outside: dict[str, bool] = {}
+    for f in ref:
+        got = pred_regions.get(f.seqid)
+        if got is not None and (f.start0 < got[0] or f.end0 > got[1]):
+            outside[f.seqid] = True
+    narrow = []
+    for seqid, (start0, end0, line0) in pred_regions.items():
+        known = ref_regions.get(seqid)
+        if (known is not None and known[:2] != (start0, end0)) or (
+            known is None and outside.get(seqid)
+        ):
+            narrow.append(Span(seqid, start0, end0, "predicted", f"{pred_name} line {line0 + 1}"))
+    if not narrow:
+        return None
+    if len(narrow) > 1:
+        raise UsageError(
+            f"{pred_name} declares stretches of {len(narrow)} sequences narrower than the "
+            f"reference ({', '.join(s.text() for s in narrow[:3])}"
+            f"{', ...' if len(narrow) > 3 else ''}); compare one at a time with --region"
+        )
+    return narrow[0]

@@ -116,6 +116,8 @@ def report_table(result: dict) -> str:
         + (f"; {left} more declared, not compared (--all-sequences counts them)" if left else ""),
         "all": "every sequence either file declares",
         "region": "the region",
+        "predicted stretch": "the stretch the predicted file declares, "
+        + str(result.get("region_from", "")),
         "given": "as given",
     }.get(result.get("sequence_scope", "given"), "")
 
