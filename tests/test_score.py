@@ -390,6 +390,17 @@ def test_output_file_and_gff(demo_scores, tmp_path):
         assert f.get("segment_probability") == row["segment_probability"]
         assert f.get("scored_label") == "CpG_island"
     assert feats[0].strand == "+" and feats[3].strand == "-"
+    # provenance as annotate writes it: '#' comment lines after the '##' header
+    # (GFF3 1.26, Sequence Ontology gff3.md: a single '#' starts a comment)
+    from seqstate import __version__
+    from seqstate.io.tables import load_model, model_sha256
+
+    comments = [line for line in gff.read_text().splitlines() if line.startswith("# ")]
+    assert comments == [
+        f"# tool seqstate {__version__}",
+        "# model cpg-island",
+        f"# model_sha256 {model_sha256(load_model('cpg-island'))}",
+    ]
 
 
 def test_gff_to_stdout_needs_table_file(tmp_path):

@@ -23,13 +23,13 @@ from seqstate import __version__, log
 from seqstate.commands import annotate_run
 from seqstate.commands.annotate_run import Item, OutputWriter, Runner
 from seqstate.commands.inputs import alphabet_check_of
+from seqstate.commands.provenance import gff3_provenance
 from seqstate.commands.records import select_records
 from seqstate.engine import api, jitcache
 from seqstate.errors import ImpossibleSequenceError, UsageError, escape_text
 from seqstate.io import tracks
 from seqstate.io.atomic import OutputSet, check_outputs
 from seqstate.io.fasta import SequenceRecord, SkippedRecord, display_name, iter_sequences
-from seqstate.io.gff3 import comment_lines
 from seqstate.io.regions import Region, check_region, parse_region
 from seqstate.io.tables import load_model, model_sha256
 from seqstate.kinds import Group, group_index, kind_of, track_groups
@@ -500,13 +500,7 @@ def _region_item(
 def gff_provenance(report: AnnotateReport) -> str:
     """The ``#`` lines of an annotate GFF3 after its header: tool and version, model name
     and checksum (no time, no path: the same run gives the same bytes)."""
-    return comment_lines(
-        [
-            ("tool", f"{report.tool} {report.version}"),
-            ("model", report.model.name),
-            ("model_sha256", report.model.sha256),
-        ]
-    )
+    return gff3_provenance(report.model.name, report.model.sha256)
 
 
 def _check_gene_filters(opts: AnnotateOptions) -> None:

@@ -39,6 +39,7 @@ from seqstate.commands.inputs import (
     read_model_records,
     read_model_region,
 )
+from seqstate.commands.provenance import gff3_provenance
 from seqstate.engine import api
 from seqstate.errors import FeatureFormatError, ImpossibleSequenceError, UsageError
 from seqstate.io.atomic import OutputSet, check_outputs
@@ -47,7 +48,7 @@ from seqstate.io.files import display_name
 from seqstate.io.gff3 import Feature, GFF3Writer
 from seqstate.io.intervals import INTERVAL_FORMATS, read_interval_file
 from seqstate.io.regions import Region
-from seqstate.io.tables import load_model
+from seqstate.io.tables import load_model, model_sha256
 from seqstate.kinds import Kind, kind_of
 from seqstate.kinds.segments import LOG2E, SCORE_FORMATS, format_value, score_segment
 from seqstate.model import Model
@@ -432,6 +433,7 @@ def write_scored_gff3(
     used = {reg.seqid for reg in rf.regions}
     gff = GFF3Writer(handle)
     gff.header([(seqid, length) for seqid, length in lengths.items() if seqid in used])
+    handle.write(gff3_provenance(model.name, model_sha256(model)))
     for reg, sc in zip(rf.regions, scores):
         if rf.format != "bed":
             attrs = [(k, v) for k, v in reg.attributes if k not in ours]
