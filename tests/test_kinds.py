@@ -97,6 +97,7 @@ def test_annotate_report_is_the_json_written(tmp_path):
         "records",
         "skipped_records",
         "outputs",
+        "output_sha256",
     ]
     gff = read_gff3(out / "g.gff3")
     assert report.features == len(gff) == sum(r["features"] for r in written["records"])

@@ -8,6 +8,7 @@ output folder, --force, the selection).  Inputs are synthetic (``seqstate sample
 
 from __future__ import annotations
 
+import hashlib
 import json
 from pathlib import Path
 
@@ -203,23 +204,25 @@ def test_merge_missing_group_file(runs, tmp_path):
     for p in (runs / "g1").iterdir():
         if p.name != "asm.CpG_island.bedgraph":
             (copy / p.name).write_bytes(p.read_bytes())
-    message = one_error(run("merge", reports(runs)[0], copy / "asm.run.json", "-o", tmp_path / "m"))
+    message = one_error(
+        run("merge", reports(runs)[0], copy / "asm.run.json", "-o", tmp_path / "m"), code=1
+    )
     assert "asm.CpG_island.bedgraph" in message and "does not exist" in message
     assert not (tmp_path / "m").exists()
 
 
 @pytest.mark.parametrize(
-    "name, content, expected",
+    "name, content, expected, code",
     [
-        ("asm.run.json", "{not json", "line 1: not JSON"),
-        ("asm.run.json", '{"schema": "other/1"}', "schema 'other/1', expected"),
-        ("asm.json", "{}", "is not a run report (expected a file STEM.run.json)"),
+        ("asm.run.json", "{not json", "line 1: not JSON", 1),
+        ("asm.run.json", '{"schema": "other/1"}', "schema is 'other/1' (a string), expected", 1),
+        ("asm.json", "{}", "is not a run report (expected a file STEM.run.json)", 2),
     ],
 )
-def test_merge_bad_report(tmp_path, name, content, expected):
+def test_merge_bad_report(tmp_path, name, content, expected, code):
     path = tmp_path / name
     path.write_text(content)
-    assert expected in one_error(run("merge", path, "-o", tmp_path / "m"))
+    assert expected in one_error(run("merge", path, "-o", tmp_path / "m"), code=code)
     assert not (tmp_path / "m").exists()
 
 
@@ -358,6 +361,9 @@ def test_merge_refuses_groups_whose_gff3_model_checksum_differs(runs, tmp_path):
     text = gff.read_text()
     sha = next(line for line in text.splitlines() if line.startswith("# model_sha256 "))
     gff.write_text(text.replace(sha, "# model_sha256 " + "0" * 64))
+    data = json.loads(report.read_text())  # as a run would record the file it wrote
+    data["output_sha256"]["asm.gff3"] = hashlib.sha256(gff.read_bytes()).hexdigest()
+    report.write_text(json.dumps(data))
     message = one_error(
         run("merge", reports(runs)[0], report, reports(runs)[2], "-o", tmp_path / "m")
     )

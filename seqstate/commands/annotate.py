@@ -25,6 +25,7 @@ from seqstate.commands.annotate_run import Item, OutputWriter, Runner
 from seqstate.commands.inputs import alphabet_check_of
 from seqstate.commands.provenance import gff3_provenance
 from seqstate.commands.records import select_records
+from seqstate.commands.runreport import output_checksums
 from seqstate.engine import api, jitcache
 from seqstate.errors import ImpossibleSequenceError, UsageError, escape_text
 from seqstate.io import tracks
@@ -159,6 +160,8 @@ class AnnotateReport:
     records: list[RecordReport] = field(default_factory=list)
     skipped_records: list[SkippedReport] = field(default_factory=list)
     outputs: list[str] = field(default_factory=list)
+    #: SHA-256 (hex) of every output but the report itself, by file name
+    output_sha256: dict[str, str] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, Any]:
         """The JSON document: plain dicts and lists, keys in field order."""
@@ -731,6 +734,10 @@ def _write_set(
             if opts.report is not None and isinstance(tsv, _Tee):
                 with outs.open_text(opts.report) as fh:
                     _write_html(fh, opts, report, tsv.text(), gff_target)
+            for handle in (gff_target, tsv, *handles, writer.cds, writer.proteins):
+                if handle is not None:
+                    handle.flush()  # every output but the report is staged in gff_target's folder
+            report.output_sha256 = output_checksums(Path(gff_target.name).parent, names)
             with outs.open_text(f"{stem}.run.json") as fh:
                 json.dump(report.to_dict(), fh, indent=2, sort_keys=False)
                 fh.write("\n")
@@ -775,6 +782,9 @@ class _Tee:
     def write(self, text: str) -> int:
         self._parts.append(text)
         return self._handle.write(text)
+
+    def flush(self) -> None:
+        self._handle.flush()
 
     def text(self) -> str:
         return "".join(self._parts)

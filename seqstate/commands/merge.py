@@ -29,9 +29,16 @@ the same stem:
   None as in a run on every record, ``stem`` the merge's ``--stem`` if given, else
   the first group's; ``jobs`` as the first group gave it).
 
-Everything is checked before anything is written: every report and file
-exists, the groups agree on every other field of their reports and on their
-output files, and the records are those of the FASTA.  Nothing here reads bases.
+Everything is checked before anything is written: every report against the
+one schema of annotate's reports and every file it lists against the report
+(:mod:`seqstate.commands.runreport`: types and ranges, plain file names of the
+group's folder, the SHA-256 checksums annotate records, UTF-8, records and
+feature counts), the groups agree on every other field of their reports and on
+their output files, and the records are those of the FASTA.  The gathered
+report records the checksums of the gathered files.  Groups whose reports have
+no checksums (written before annotate recorded them) are checked line by line
+only, with a warning, and the gathered report then has none either.  Nothing
+here reads bases.
 """
 
 from __future__ import annotations
@@ -42,8 +49,16 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, TextIO
 
+from seqstate import log
 from seqstate.commands.annotate import REPORT_SCHEMA, check_stem
 from seqstate.commands.records import id_listing
+from seqstate.commands.runreport import (
+    ReportFormatError,
+    check_group_files,
+    check_report,
+    output_checksums,
+    read_report,
+)
 from seqstate.errors import UsageError, escape_text
 from seqstate.io import faidx, files, tracks
 from seqstate.io.atomic import OutputSet, check_outputs
@@ -53,7 +68,7 @@ from seqstate.io.atomic import OutputSet, check_outputs
 INVOCATION_OPTIONS = ("out_dir", "force", "records", "stem", "jobs")
 
 #: Report keys that are the groups' own (the rest must be equal in every group).
-OWN_KEYS = ("command_line", "options", "records", "skipped_records", "outputs")
+OWN_KEYS = ("command_line", "options", "records", "skipped_records", "outputs", "output_sha256")
 
 REPORT_SUFFIX = ".run.json"
 
@@ -104,6 +119,8 @@ class _Group:
     report_path: Path
     stem: str
     report: dict[str, Any]
+    #: the report's outputs, checked (plain names of its folder)
+    names: list[str] = field(default_factory=list)
 
     def file(self, suffix: str) -> Path:
         return self.report_path.parent / f"{self.stem}{suffix}"
@@ -119,39 +136,20 @@ def _load_group(path: str) -> _Group:
     if not p.name.endswith(REPORT_SUFFIX) or p.name == REPORT_SUFFIX:
         raise UsageError(f"'{shown}' is not a run report (expected a file STEM{REPORT_SUFFIX})")
     try:
-        text = p.read_text(encoding="utf-8")
+        report = read_report(p, shown)
     except FileNotFoundError:
         raise UsageError(f"run report '{shown}' does not exist") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        reason = getattr(exc, "strerror", None) or str(exc)
+    except OSError as exc:
+        reason = exc.strerror or str(exc)
         raise UsageError(f"run report '{shown}' cannot be read: {reason}") from None
-    try:
-        report = json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise UsageError(f"run report '{shown}' line {exc.lineno}: not JSON ({exc.msg})") from None
-    if not isinstance(report, dict) or report.get("schema") != REPORT_SCHEMA:
-        found = report.get("schema") if isinstance(report, dict) else type(report).__name__
-        raise UsageError(
-            f"run report '{shown}': schema {found!r}, expected {REPORT_SCHEMA!r} "
-            "(a report of seqstate annotate)"
-        )
-    for key in ("options", "records", "skipped_records", "outputs"):
-        if key not in report:
-            raise UsageError(f"run report '{shown}' has no '{key}' (expected an annotate report)")
-    return _Group(p, p.name[: -len(REPORT_SUFFIX)], report)
+    stem = p.name[: -len(REPORT_SUFFIX)]
+    names = check_report(report, shown, REPORT_SCHEMA, stem, p.parent)
+    return _Group(p, stem, report, names)
 
 
 def _suffixes(group: _Group) -> list[str]:
     """The group's output names without its stem (``.gff3``, ...), in report order."""
-    out = []
-    for name in group.report["outputs"]:
-        if not isinstance(name, str) or not name.startswith(group.stem + "."):
-            raise UsageError(
-                f"run report '{group.shown}': output {name!r} does not start with the "
-                f"report's stem '{group.stem}.'"
-            )
-        out.append(name[len(group.stem) :])
-    return out
+    return [name[len(group.stem) :] for name in group.names]
 
 
 def _check_groups(groups: list[_Group]) -> list[str]:
@@ -188,6 +186,13 @@ def _check_groups(groups: list[_Group]) -> list[str]:
             raise UsageError(
                 f"run report '{g.shown}' is a --region run: only whole records can be gathered"
             )
+        for i, rec in enumerate(g.report["records"]):
+            if rec["start_1based"] != 1 or rec["end_1based"] != rec["length"]:
+                raise ReportFormatError(
+                    f"'records[{i}]' spans {rec['start_1based']}-{rec['end_1based']}, expected "
+                    f"the whole record 1-{rec['length']} (only whole records can be gathered)",
+                    path=g.shown,
+                )
         for entry in g.report["records"] + g.report["skipped_records"]:
             rid = entry["id"]
             if rid in seen:
@@ -195,13 +200,18 @@ def _check_groups(groups: list[_Group]) -> list[str]:
                     f"record '{escape_text(rid)}' is in two groups: '{seen[rid]}' and '{g.shown}'"
                 )
             seen[rid] = g.shown
-        for suffix in suffixes:
-            path = g.file(suffix)
-            if not path.is_file():
-                raise UsageError(
-                    f"'{escape_text(str(path))}', an output listed in run report '{g.shown}', "
-                    "does not exist"
-                )
+    with_sums = [g for g in groups if "output_sha256" in g.report]
+    if with_sums and len(with_sums) != len(groups):
+        old = next(g for g in groups if "output_sha256" not in g.report)
+        raise UsageError(
+            f"run report '{with_sums[0].shown}' records output checksums and '{old.shown}' "
+            "does not: groups must be runs of the same seqstate version"
+        )
+    if not with_sums:
+        log.warn(
+            "the run reports record no output checksums (written by an older seqstate): "
+            "the group files are checked line by line only"
+        )
     return suffixes
 
 
@@ -387,8 +397,8 @@ def _write_gff3(groups: list[_Group], suffix: str, headers: list[_GffHeader], ou
                 out.write(line)
 
 
-def _write_table(groups: list[_Group], suffix: str, out: TextIO) -> None:
-    """Header (or track) line once, then every group's rows."""
+def _check_table_headers(groups: list[_Group], suffix: str) -> None:
+    """Every group's header (or track) line is the first group's."""
     header = _first_line(groups[0].file(suffix))
     for g in groups:
         path = g.file(suffix)
@@ -397,7 +407,11 @@ def _write_table(groups: list[_Group], suffix: str, out: TextIO) -> None:
                 f"'{escape_text(str(path))}' line 1 differs from "
                 f"'{escape_text(str(groups[0].file(suffix)))}' line 1 (expected the same header)"
             )
-    out.write(header)
+
+
+def _write_table(groups: list[_Group], suffix: str, out: TextIO) -> None:
+    """Header (or track) line once, then every group's rows (headers checked before)."""
+    out.write(_first_line(groups[0].file(suffix)))
     for g in groups:
         lines = _lines(g.file(suffix))
         next(lines, None)
@@ -423,11 +437,17 @@ def _write_bigwig(groups: list[_Group], suffix: str, path: Path) -> None:
             src_path = g.file(suffix)
             src = module.open(str(src_path))
             if src is None:
-                raise UsageError(f"'{escape_text(str(src_path))}' is not a readable bigWig")
+                raise ReportFormatError("cannot be read as a bigWig file", path=str(src_path))
             try:
                 for r in g.report["records"]:
                     name = escape_text(r["id"])
-                    runs = src.intervals(name) or ()
+                    try:
+                        runs = src.intervals(name) or ()
+                    except RuntimeError:
+                        raise ReportFormatError(
+                            f"the entries of record '{name}' cannot be read, expected a bigWig",
+                            path=str(src_path),
+                        ) from None
                     for lo in range(0, len(runs), tracks._ENTRIES):
                         block = runs[lo : lo + tracks._ENTRIES]
                         out.addEntries(
@@ -462,6 +482,11 @@ def merge(opts: MergeOptions) -> MergeReport:
     groups, reordered = _in_fasta_order(groups, _fasta_of(groups, opts.fasta))
     if any(s.endswith(".bw") for s in suffixes):
         tracks.require_bigwig()
+    for g in groups:
+        check_group_files(g.report, g.report_path.parent, g.names, g.shown)
+    for s in suffixes:
+        if s.endswith((".features.tsv", ".bedgraph")):
+            _check_table_headers(groups, s)
     names = [stem + s for s in suffixes]
     inputs = [str(g.report_path) for g in groups] + [
         str(g.file(s)) for g in groups for s in suffixes
@@ -484,19 +509,26 @@ def merge(opts: MergeOptions) -> MergeReport:
     report["outputs"] = sorted(names)
 
     with OutputSet(opts.out_dir, force=opts.force, inputs=inputs) as outs:
+        staged: dict[str, Path] = {}
         for suffix, name in zip(suffixes, names):
             if suffix == REPORT_SUFFIX:
-                with outs.open_text(name) as fh:
-                    json.dump(report, fh, indent=2, sort_keys=False)
-                    fh.write("\n")
-            elif suffix.endswith(".gff3"):
-                with outs.open_text(name) as fh:
+                continue  # written last, with the others' checksums
+            if suffix.endswith(".bw"):
+                staged[name] = outs.path(name)
+                _write_bigwig(groups, suffix, staged[name])
+                continue
+            with outs.open_text(name) as fh:
+                if suffix.endswith(".gff3"):
                     _write_gff3(groups, suffix, gff_headers[suffix], fh)
-            elif suffix.endswith(".bw"):
-                _write_bigwig(groups, suffix, outs.path(name))
-            else:  # .features.tsv, .bedgraph
-                with outs.open_text(name) as fh:
+                else:  # .features.tsv, .bedgraph
                     _write_table(groups, suffix, fh)
+            staged[name] = Path(fh.name)
+        if "output_sha256" in first:  # every staged file is in the one staging folder
+            folder = next(iter(staged.values())).parent
+            report["output_sha256"] = output_checksums(folder, list(staged))
+        with outs.open_text(stem + REPORT_SUFFIX) as fh:
+            json.dump(report, fh, indent=2, sort_keys=False)
+            fh.write("\n")
     return MergeReport(
         groups=len(groups),
         records=len(report["records"]),
