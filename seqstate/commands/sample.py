@@ -2,24 +2,28 @@
 
 from __future__ import annotations
 
-import io
+from collections.abc import Iterator
 from dataclasses import dataclass
 
 import numpy as np
 
 from seqstate.commands.inputs import model_inputs
 from seqstate.engine import api
-from seqstate.engine.sampling import sample_record
+from seqstate.engine.sampling import _CHUNK, _sample_chunk
 from seqstate.errors import UsageError
 from seqstate.io.atomic import OutputSet, check_outputs
-from seqstate.io.fasta import Record, write_fasta
+from seqstate.io.fasta_stream import FastaStreamWriter
 from seqstate.io.gff3 import GFF3Writer
 from seqstate.io.tables import load_model
-from seqstate.kinds import group_index, kind_of, track_groups
+from seqstate.kinds import Group, Kind, group_index, kind_of, track_groups
+from seqstate.model import Model
 
-#: Largest sample run: records x length, in bases (each base costs about 6 bytes of
-#: memory while it is drawn: the state path, the symbol and the FASTA text).
+#: Largest sample run: records x length, in bases.  Records are drawn and written a
+#: chunk of :data:`CHUNK_BASES` at a time, so memory does not grow with the length
+#: (about 40 MB of work arrays); the limit bounds the run's time and disk.
 MAX_SAMPLE_BASES = 250_000_000
+#: Bases drawn (state path, symbols, FASTA text) per step of a record.
+CHUNK_BASES = _CHUNK
 #: Most records one sample run draws.
 MAX_SAMPLE_RECORDS = 1_000_000
 
@@ -95,38 +99,132 @@ def sample(opts: SampleOptions) -> SampleReport:
         raise UsageError(
             f"--records {opts.records:,} x --length {opts.length:,} = "
             f"{opts.length * opts.records:,} bases is more than the limit of "
-            f"{MAX_SAMPLE_BASES:,} bases per sample run (about "
-            f"{MAX_SAMPLE_BASES * 6 / 2**30:.1f} GiB of memory); draw fewer or shorter records"
+            f"{MAX_SAMPLE_BASES:,} bases per sample run; draw fewer or shorter records"
         )
     check_outputs([opts.out_fasta, opts.truth_gff3], model_inputs(opts.model), force=opts.force)
     model = load_model(opts.model)
-    tables = api.prepare(model)
+    draw = Sampler(api.prepare(model))
     groups = track_groups(model)
-    state_group = group_index(model, groups)
     kind = kind_of(model)
     rng = np.random.default_rng(opts.seed)
     alphabet = np.frombuffer(model.alphabet.encode("ascii"), dtype=np.uint8)
-    records, truths = [], []
-    for r in range(opts.records):
-        rid = f"{opts.prefix}{r + 1}"
-        path, sym = sample_record(tables, opts.length, rng)
-        records.append(
-            Record(
-                rid,
-                f"synthetic, sampled from model {model.name} seed {opts.seed}",
-                alphabet[sym].tobytes(),
-            )
-        )
-        truths.append((rid, kind.truth_of(path, model, state_group)))
+    ids = [f"{opts.prefix}{r + 1}" for r in range(opts.records)]
+    desc = f"synthetic, sampled from model {model.name} seed {opts.seed}"
     n_features = 0
-    truth_text = io.StringIO()  # written with the FASTA below, as one output set
-    if opts.truth_gff3:
-        gff = GFF3Writer(truth_text)
-        gff.header([(rec.id, 1, len(rec.seq)) for rec in records])
-        for rid, truth in truths:
-            n_features += kind.write_truth(gff, model, groups, truth, rid)
     with OutputSet(force=opts.force, inputs=model_inputs(opts.model)) as outs:
-        write_fasta(outs.open_text(opts.out_fasta), records, width=opts.width)
+        fasta = FastaStreamWriter(outs.open_text(opts.out_fasta), width=opts.width)
+        gff = None
         if opts.truth_gff3:
-            outs.open_text(opts.truth_gff3).write(truth_text.getvalue())
+            gff = GFF3Writer(outs.open_text(opts.truth_gff3))
+            gff.header([(rid, 1, opts.length) for rid in ids])
+        for rid in ids:
+            fasta.start(rid, desc)
+            truth = None if gff is None else TruthPieces(kind, model, groups, gff, rid)
+            for path, sym in draw.chunks(opts.length, rng):
+                fasta.write(alphabet[sym].tobytes())
+                if truth is not None:
+                    truth.add(path)
+            fasta.end()
+            if truth is not None:
+                n_features += truth.finish()
     return SampleReport(opts.records, opts.length, n_features, opts.out_fasta, opts.truth_gff3)
+
+
+class Sampler:
+    """The draws of :func:`seqstate.engine.sampling.sample_record`, a chunk at a time.
+
+    The same cumulative tables and the same uniforms (two per base, drawn per chunk of
+    :data:`CHUNK_BASES`), so a seed gives the bytes ``sample_record`` gives, in pieces of
+    bounded memory; the tables are built once per run, not once per record.
+    """
+
+    def __init__(self, tables: api.EngineTables) -> None:
+        m, a = tables.n_states, tables.n_symbols
+        self.tables = tables
+        start = tables.start / tables.start.sum()
+        trans = tables.transitions / tables.transitions.sum(axis=1, keepdims=True)
+        self.start_cdf = np.cumsum(start)
+        self.trans_cdf = np.cumsum(trans, axis=1)
+        n_codes = tables.E.shape[0]
+        self.emit_cdf = np.zeros((n_codes, m))
+        for j in range(tables.order + 1):
+            lo, hi = tables.offsets[j], tables.offsets[j + 1]
+            block = tables.E[lo:hi].reshape(-1, a, m)
+            cdf = np.cumsum(block, axis=1) / block.sum(axis=1, keepdims=True)
+            self.emit_cdf[lo:hi] = cdf.reshape(-1, m)
+
+    def chunks(
+        self, length: int, rng: np.random.Generator
+    ) -> Iterator[tuple[np.ndarray, np.ndarray]]:
+        """One record of ``length`` bases: (state path int32, symbol indices int8) per chunk."""
+        t = self.tables
+        state, ctx = 0, 0
+        for lo in range(0, length, CHUNK_BASES):
+            hi = min(length, lo + CHUNK_BASES)
+            path = np.empty(hi - lo, dtype=np.int32)
+            sym = np.empty(hi - lo, dtype=np.int8)
+            u = rng.random(2 * (hi - lo))
+            state, ctx = _sample_chunk(
+                u,
+                lo,
+                state,
+                ctx,
+                self.start_cdf,
+                self.trans_cdf,
+                self.emit_cdf,
+                t.offsets,
+                t.order,
+                t.n_symbols,
+                path,
+                sym,
+            )
+            yield path, sym
+
+
+class TruthPieces:
+    """The truth of one record from its path in chunks, written piece by piece.
+
+    The path is cut between two positions in states of :meth:`Kind.truth_cuts` (no
+    feature crosses such a cut); each piece's truth is written as soon as the piece is
+    whole, numbered on from the pieces before.  Memory: the path since the last cut.
+    """
+
+    def __init__(
+        self, kind: Kind, model: Model, groups: list[Group], gff: GFF3Writer, seqid: str
+    ) -> None:
+        self.kind, self.model, self.groups, self.gff, self.seqid = kind, model, groups, gff, seqid
+        self.state_group = group_index(model, groups)
+        self.cut = kind.truth_cuts(model)
+        self.numbers: list[int] = []
+        self.pending: list[np.ndarray] = []
+        self.start0 = 0  # record position of the first pending base
+        self.written = 0
+
+    def add(self, path: np.ndarray) -> None:
+        """The next chunk of the path."""
+        c = self.cut[path]
+        ok = np.flatnonzero(c[1:] & c[:-1]) + 1  # cut before chunk position j
+        if self.pending and c[0] and self.cut[self.pending[-1][-1]]:
+            ok = np.concatenate([[0], ok])
+        if ok.shape[0] == 0:
+            self.pending.append(path)
+            return
+        j = int(ok[-1])
+        self.pending.append(path[:j])
+        self._write()
+        self.pending = [path[j:]]
+
+    def _write(self) -> None:
+        piece = np.concatenate(self.pending) if len(self.pending) > 1 else self.pending[0]
+        if piece.shape[0]:
+            truth = self.kind.truth_of(piece, self.model, self.state_group)
+            self.written += self.kind.write_truth(
+                self.gff, self.model, self.groups, truth, self.seqid, self.start0, self.numbers
+            )
+        self.start0 += piece.shape[0]
+
+    def finish(self) -> int:
+        """Write the last piece; the features written for the record."""
+        self._write()
+        self.pending = []
+        return self.written

@@ -162,9 +162,28 @@ class Kind(ABC):
 
     @abstractmethod
     def write_truth(
-        self, gff: GFF3Writer, model: Model, groups: list[Group], truth: list[Any], seqid: str
+        self,
+        gff: GFF3Writer,
+        model: Model,
+        groups: list[Group],
+        truth: list[Any],
+        seqid: str,
+        offset0: int = 0,
+        numbers: list[int] | None = None,
     ) -> int:
-        """Write the true features of one sampled record, unscored; the count written."""
+        """Write the true features of one sampled record, unscored; the count written.
+
+        ``truth`` may be that of one piece of the record's path (:meth:`truth_cuts`) that
+        starts ``offset0`` bases into the record; ``numbers`` (empty at the record's first
+        piece) carries the feature numbering from one piece to the next.
+        """
+
+    def truth_cuts(self, model: Model) -> np.ndarray:
+        """Per state, whether a sampled path may be cut between two positions in such
+        states, the truth of each piece written in turn (:meth:`write_truth` with its
+        offset and the carried numbers) giving the lines of the whole path: the states
+        without a label, which are in no feature of any kind."""
+        return np.array([s.label is None for s in model.states], dtype=bool)
 
     @abstractmethod
     def extra_columns(self, label: str) -> list[str]:

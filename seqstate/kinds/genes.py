@@ -899,16 +899,36 @@ class GeneKind(Kind):
         return genes_from_path(path, model)
 
     def write_truth(
-        self, gff: GFF3Writer, model: Model, groups: list[Group], truth: list[Any], seqid: str
+        self,
+        gff: GFF3Writer,
+        model: Model,
+        groups: list[Group],
+        truth: list[Any],
+        seqid: str,
+        offset0: int = 0,
+        numbers: list[int] | None = None,
     ) -> int:
-        # the true genes as a gene -> mRNA -> exon + CDS hierarchy, unscored
-        return write_genes(gff, None, model, None, None, None, groups, truth, seqid, 0)
+        # the true genes as a gene -> mRNA -> exon + CDS hierarchy, unscored, numbered
+        # on from the record's earlier pieces (numbers[0]: the last gene number written)
+        last = [0] if numbers is None else numbers
+        if not last:
+            last.append(0)
+        count = 0
+        for gp in truth:
+            last[0] += 1
+            count += write_gene(gff, None, gp, last[0], seqid, offset0, _unscored)
+        return count
 
     def extra_columns(self, label: str) -> list[str]:
         return label_columns(label)
 
     def extra_scores(self, label: str, seq: bytes) -> dict[str, Any]:
         return label_scores(label, seq)
+
+
+def _unscored(line: GeneLine, strand: str, k: int) -> dict | None:
+    """The scores of a sampled truth's line: none."""
+    return None
 
 
 #: The gene kind.

@@ -591,13 +591,22 @@ class SegmentKind(Kind):
         return segments_from_path(path, state_group)
 
     def write_truth(
-        self, gff: GFF3Writer, model: Model, groups: list[Group], truth: list[Any], seqid: str
+        self,
+        gff: GFF3Writer,
+        model: Model,
+        groups: list[Group],
+        truth: list[Any],
+        seqid: str,
+        offset0: int = 0,
+        numbers: list[int] | None = None,
     ) -> int:
-        counters = [0] * len(groups)
+        counters = [] if numbers is None else numbers  # per group, the last number written
+        if not counters:
+            counters.extend([0] * len(groups))
         for seg in truth:
             counters[seg.group] += 1
             seg.scores = {"length": seg.end0 - seg.start0}
-            feat = feature_of(seqid, 0, groups[seg.group], seg, counters[seg.group])
+            feat = feature_of(seqid, offset0, groups[seg.group], seg, counters[seg.group])
             feat.score = None
             gff.write(feat)
         return len(truth)
