@@ -519,13 +519,50 @@ def _check_bedgraph(path: Path, records: list[dict[str, Any]]) -> None:
         raise _wrong(path, None, "an empty file, expected a bedGraph track line")
 
 
+def _check_bigwig_layout(path: Path) -> None:
+    """The fixed header of a bigWig (Kent et al. 2010, Bioinformatics 26:2204; the
+    layout of the UCSC format description) and that every offset it and its zoom
+    headers give lies inside the file, with the chromosome tree and the data index
+    where they say: a file cut short or not a bigWig is refused here, before the
+    reading library (which does not check) is handed it."""
+    size = path.stat().st_size
+    with open(path, "rb") as fh:
+        head = fh.read(64)
+        if head[:4] != BIGWIG_MAGIC:
+            raise _wrong(
+                path, None, f"first bytes {head[:4].hex() or 'none'}, expected a bigWig file"
+            )
+        if len(head) < 64:
+            raise _wrong(path, None, f"{size} bytes, expected a bigWig header of 64 bytes")
+        zooms = int.from_bytes(head[6:8], "little")
+        chrom_tree, data, index = (int.from_bytes(head[k : k + 8], "little") for k in (8, 16, 24))
+        summary = int.from_bytes(head[44:52], "little")
+        zoom_heads = fh.read(24 * zooms)
+        offsets = [chrom_tree, data, index] + ([summary] if summary else [])
+        for z in range(len(zoom_heads) // 24):
+            entry = zoom_heads[24 * z : 24 * z + 24]
+            offsets += [
+                int.from_bytes(entry[8:16], "little"),
+                int.from_bytes(entry[16:24], "little"),
+            ]
+        magics = {}
+        for offset, magic in ((chrom_tree, 0x78CA8C91), (index, 0x2468ACE0)):
+            fh.seek(min(offset, size))
+            magics[offset] = (fh.read(4), magic.to_bytes(4, "little"))
+    if len(zoom_heads) < 24 * zooms or any(not 64 <= o < size for o in offsets):
+        raise _wrong(
+            path,
+            None,
+            f"{size} bytes, an offset of its header past them: expected a whole bigWig file",
+        )
+    if any(found != want for found, want in magics.values()):
+        raise _wrong(path, None, "no chromosome tree or data index where its header says")
+
+
 def _check_bigwig(path: Path, records: list[dict[str, Any]]) -> None:
     """The bigWig magic number, then (pyBigWig) one chromosome per record of the
     report with the record's length."""
-    with open(path, "rb") as fh:
-        head = fh.read(4)
-    if head != BIGWIG_MAGIC:
-        raise _wrong(path, None, f"first bytes {head.hex() or 'none'}, expected a bigWig file")
+    _check_bigwig_layout(path)
     module = tracks._import_pybigwig()
     try:
         bw = module.open(str(path))
