@@ -734,9 +734,9 @@ def _write_set(
             if opts.report is not None and isinstance(tsv, _Tee):
                 with outs.open_text(opts.report) as fh:
                     _write_html(fh, opts, report, tsv.text(), gff_target)
-            for handle in (gff_target, tsv, *handles, writer.cds, writer.proteins):
-                if handle is not None:
-                    handle.flush()  # every output but the report is staged in gff_target's folder
+            for written in (gff_target, tsv, *handles, writer.cds, writer.proteins):
+                if written is not None:
+                    written.flush()  # every output but the report is staged in gff_target's folder
             report.output_sha256 = output_checksums(Path(gff_target.name).parent, names)
             with outs.open_text(f"{stem}.run.json") as fh:
                 json.dump(report.to_dict(), fh, indent=2, sort_keys=False)
