@@ -31,7 +31,7 @@ from seqstate.engine import api
 from seqstate.io.tables import load_model
 from seqstate.model import Model
 
-#: 10 records of 200,000 bases = 2 Mbp per model (the issue's size), seeds 1 and 2 (a run
+#: 10 records of 200,000 bases = 2 Mbp per model (the size README.md states), seeds 1 and 2 (a run
 #: of the three models and both seeds takes about 10 s here after the kernels are compiled;
 #: seed 7 was also tried by hand and passes).
 LENGTH, RECORDS, SEEDS = 200_000, 10, (1, 2)
@@ -138,16 +138,18 @@ def test_calibrated_on_own_samples_and_wrong_model_detected(name: str, seed: int
     right = sampled(model, seed)
     label, stay = WRONG[name]
     (lab,) = [x for x in right if x.label == label]
-    # issue 14 target: ECE (Guo et al. 2017) at most 0.02 with 10 bins over 2 Mbp
+    # ECE (Guo et al. 2017) with 10 bins over 2 Mbp: at most 0.002, as README.md says
+    # (our bound; measured 0.00009-0.00144 over these models and seeds by
+    # benchmarks/calibration_ece.py, so the margin is at least 28 %)
     assert lab.bases.n == LENGTH * RECORDS
-    assert lab.bases.ece() <= 0.02
+    assert lab.bases.ece() <= 0.002
     assert lab.features.n == lab.n_features > 0
     wrong = sampled(model, seed, with_stay(model, label, stay))
     (bad,) = [x for x in wrong if x.label == label]
     # the wrong model, decoding the same samples: its base-level ECE (Guo et al. 2017) is at
-    # least 10 times the right model's (our threshold; measured 37-165x), and its decoded
-    # features are far from their segment probabilities (ECE >= 0.3; right models here:
-    # 0.004-0.09, measured)
+    # least 10 times the right model's (our threshold; measured 21.7-166x), and its decoded
+    # features are far from their segment probabilities (ECE >= 0.3, measured 0.63-0.78;
+    # right models here: 0.004-0.136; benchmarks/calibration_ece.py prints them)
     assert bad.bases.ece() >= 10 * lab.bases.ece()
     assert bad.features.ece() is not None and bad.features.ece() >= 0.3
     # Brier (Brier 1950): the wrong model forecasts worse on the same outcomes

@@ -236,3 +236,70 @@ def test_workflow_readme_documents_every_config_key():
         if isinstance(value, dict) and key != "resources":
             for sub in value:
                 assert re.search(rf"`{key}\.{sub}`|`\.{sub}`", doc), f"{key}.{sub}"
+
+
+# ---------------------------------------------------------------- fitted figures of the rows
+def _row(name: str) -> str:
+    return next(ln for ln in MODELS_README.splitlines() if ln.startswith(f"| `{name}` |"))
+
+
+def test_readme_gene_paragraph_order_is_the_model_order():
+    text = between(README, "The layout (ours) tracks codon position", "`gene-segment-layout` is")
+    assert one(r"order-(\d+) emissions", text) == load_model("gene-segment").order
+
+
+def test_models_readme_genes_used_are_the_provenance_of_each_fitted_model():
+    # every row that says "N genes used" states its model's [provenance.labelling] genes_used
+    rows = [ln for ln in MODELS_README.splitlines() if ln.startswith("| `") and "genes used" in ln]
+    assert any(r.startswith("| `gene-segment` |") for r in rows)
+    for row in rows:
+        name = row.split("|")[1].strip().strip("`")
+        used = one(r"(\d+) genes used", row.replace(",", ""))
+        assert used == load_model(name).provenance["labelling"]["genes_used"], name
+
+
+def test_models_readme_gene_segment_skips_and_intron_body():
+    model = load_model("gene-segment")
+    labelling = model.provenance["labelling"]
+    row = flat(_row("gene-segment"))
+    skipped = re.search(r"genes used; skipped: (.*?) \(the manifest", row)
+    assert skipped is not None, row
+    stated = sorted(int(n) for n in re.findall(r"(\d+) (?:whose|with)", skipped.group(1)))
+    assert stated == sorted(labelling["genes_skipped"].values()), (stated, labelling)
+    # "share one probability of staying (..., expected body 767 bases)": 1 / (1 - stay)
+    names = model.state_names
+    for strand in "+-":
+        stays = {
+            float(model.transitions[i, i])
+            for i, n in enumerate(names)
+            if n.endswith(f"_body{strand}")
+        }
+        assert len(stays) == 1, stays  # the six copies are tied
+    (stay,) = stays
+    assert one(r"expected body (\d+) bases", row) == round(1 / (1 - stay))
+    assert "`states_without_counts` in the provenance is empty" in row
+    assert model.provenance["states_without_counts"] == []
+
+
+# ---------------------------------------------------------------- score --flank on the demo
+def test_flank_500_gives_the_whole_record_values_to_about_1e9():
+    # README.md ("--flank N and what it changes"): for cpg-island on the demo, --flank 500
+    # or more gives the whole-record values "to about 1e-9" (our own claim, measured: the
+    # float32 posteriors are identical and segment probabilities agree to 3e-10); the
+    # regions are the demo's planted islands (examples/cex_draft1.truth.gff3)
+    from seqstate.commands.inputs import read_records
+    from seqstate.commands.score import read_regions, score_regions
+
+    text = between(README, "**`--flank N` and what it changes.**", "### plot options")
+    assert "`--flank 500` or more gives the whole-record values to about 1e-9" in text
+    model = load_model("cpg-island")
+    records = read_records(str(REPO / "examples" / "cex_draft1.fa.gz"), model)
+    regions = read_regions(str(REPO / "examples" / "cex_draft1.truth.gff3")).regions
+    whole = score_regions(model, records, regions, "CpG_island")
+    flanked = score_regions(model, records, regions, "CpG_island", flank=500)
+    assert len(whole) == len(flanked) == 11
+    keys = ("mean_posterior", "min_posterior", "max_posterior", "segment_probability")
+    worst = max(abs(w[k] - f[k]) for w, f in zip(whole, flanked) for k in keys)
+    assert worst <= 1e-9, worst
+    for w, f in zip(whole, flanked):
+        assert abs(w["log_odds_nat"] - f["log_odds_nat"]) <= 1e-9 * max(1.0, abs(w["log_odds_nat"]))
