@@ -86,8 +86,9 @@ _INNER_SPACE = b" \t\v\f"
 #: specification, section 4.1, "The BGZF compression format").
 _BGZF_MAGIC = b"\x1f\x8b\x08\x04"
 _BLOCK_MAX = 1 << 16
-#: How far before a record's first base its header line is looked for (bytes).
-_HEADER_WINDOW = 1 << 20
+#: What decompressing one bgzip block raises for corrupt data: Bio.bgzf's RuntimeError
+#: (a CRC or size that does not match), zlib's error (bad deflate data), OSError (the disk).
+_BLOCK_ERRORS = (RuntimeError, zlib.error, OSError)
 
 
 def fai_path(path: str | os.PathLike[str]) -> Path:
@@ -377,7 +378,7 @@ def _scan_lines(
             words = title.decode("utf-8").split(None, 1)
         except UnicodeDecodeError:
             raise _Unreadable from None
-        if not words or words[0] in seen or b"\r" in title.rstrip(b"\r\n"):
+        if not words or words[0] in seen or b"\r" in title.rstrip(b"\r\n") or b"\0" in title:
             raise _Unreadable
         seen.add(words[0])
         rec = _Open(words[0], line0, pos + header_end)
@@ -600,12 +601,19 @@ class FastaIndex:
                     f"cannot be read: {exc.strerror or exc}", path=str(self.path)
                 ) from None
         try:
-            with bgzf.BgzfReader(os.fspath(self.path), "rb") as reader:
+            with open(self.path, "rb") as raw, bgzf.BgzfReader(fileobj=raw, mode="rb") as reader:
                 reader.seek(self._virtual(start))
                 data = reader.read(end - start)
-        except (ValueError, EOFError, zlib.error) as exc:  # a block the .gzi misplaces
+        except (ValueError, EOFError) as exc:  # a block the .gzi misplaces
             raise _Stale(f"the .gzi index does not match the blocks ({exc})") from None
+        except _BLOCK_ERRORS as exc:
+            raise self._corrupt(exc) from None
         return data if isinstance(data, bytes) else data.encode("latin-1")
+
+    def _corrupt(self, exc: BaseException) -> SequenceFormatError:
+        """The error for a bgzip block that does not decompress (a bad CRC or size, bad
+        deflate data, a failing disk): the words of the stream reader for the same file."""
+        return files.read_error(exc, files.display_name(self.path), SequenceFormatError)
 
     def size(self) -> int:
         """Bytes of the uncompressed text."""
@@ -617,12 +625,18 @@ class FastaIndex:
                 last = self.gzi[-1] if self.gzi else (0, 0)
                 n = 0
                 try:
-                    with bgzf.BgzfReader(os.fspath(self.path), "rb") as reader:
+                    # the handle is ours: closed even when the reader fails on its first block
+                    with (
+                        open(self.path, "rb") as raw,
+                        bgzf.BgzfReader(fileobj=raw, mode="rb") as reader,
+                    ):
                         reader.seek(last[0] << 16)
                         while piece := reader.read(1 << 20):
                             n += len(piece)
-                except (ValueError, EOFError, zlib.error) as exc:
+                except (ValueError, EOFError) as exc:
                     raise _Stale(f"the .gzi index does not match the blocks ({exc})") from None
+                except _BLOCK_ERRORS as exc:
+                    raise self._corrupt(exc) from None
                 self._size = last[1] + n
         return self._size
 
@@ -679,6 +693,13 @@ def _check_index(index: FastaIndex, fai: Path) -> None:
         raise _Stale(f"the file has {size - end:,} bytes after its last indexed record")
     _check_entry(index, entries[0])
     _check_entry(index, last)
+    # an index cut short at a line boundary lists fewer records than the file holds:
+    # only line ends and blank space may follow the last record it lists
+    if size > end and index.read(end, size).strip(_WHITESPACE):
+        raise _Stale(
+            f"the file goes on after record '{last.name}', the last one the index lists "
+            "(the index lacks the records after it)"
+        )
 
 
 _MEMORY: dict[tuple[str, int, int], FastaIndex] = {}
@@ -765,6 +786,13 @@ def _read_index(
     try:
         entries = parse_fai(fai.read_text(encoding="utf-8"), str(fai))
         pairs = parse_gzi(gzi.read_bytes(), str(gzi)) if gzi is not None else None
+        if pairs and pairs[-1][0] >= stat.st_size:
+            k = next(i for i, (c, _) in enumerate(pairs) if c >= stat.st_size)
+            raise SequenceFormatError(
+                f"block {k + 1} starts at compressed byte {pairs[k][0]:,}, past the end of "
+                f"{os.fspath(path)} ({stat.st_size:,} bytes)",
+                path=str(gzi),
+            )
     except UnicodeDecodeError:
         raise SequenceFormatError(
             f"is not UTF-8 text (not a .fai index?); {_rebuild_hint(path)}", path=str(fai)
@@ -946,8 +974,13 @@ def record_source(
 
 
 def _header_line(index: FastaIndex, e: FaiEntry) -> bytes:
-    """The line that ends just before ``e``'s offset (its header, ``>`` included)."""
-    for window in (4096, _HEADER_WINDOW):
+    """The line that ends just before ``e``'s offset (its header, ``>`` included).
+
+    Looked for in windows that grow fourfold from 4 KiB: a header of any length is found
+    (the stream reader takes any), in reads of a few times its length at most.
+    """
+    window = 4096
+    while True:
         begin = max(0, e.offset - window)
         before = index.read(begin, e.offset)
         if not before.endswith(b"\n"):
@@ -958,7 +991,7 @@ def _header_line(index: FastaIndex, e: FaiEntry) -> bytes:
             if nl < 0 and line.startswith(files.UTF8_BOM):
                 line = line[len(files.UTF8_BOM) :]
             return line
-    raise _Stale(f"record '{e.name}': no header line ends at offset {e.offset}")
+        window *= 4
 
 
 def _header_of(index: FastaIndex, e: FaiEntry) -> str:

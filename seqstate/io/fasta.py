@@ -570,6 +570,14 @@ def _raise_bad_character(block: bytes, shown: str, rid: str, first_line0: int, d
 
 
 def _parse_header(raw: bytes, shown: str, line0: int) -> tuple[str, str]:
+    nul = raw.find(b"\0")
+    if nul >= 0:
+        raise SequenceFormatError(
+            f"header line has a NUL byte (0x00) at column {nul + 1}; expected text (a record "
+            "ID, then an optional description)",
+            path=shown,
+            line0=line0,
+        )
     try:
         title = raw[1:].decode("utf-8")
     except UnicodeDecodeError:
