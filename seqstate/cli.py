@@ -84,6 +84,18 @@ def say(quiet: bool, text: str) -> None:
         log.summary(text)
 
 
+def _debug_before_command(args: Sequence[str]) -> bool:
+    """True when ``--debug`` comes before the command name (the only place it means
+    anything); after it, it is an unknown option of the command: a usage error, never
+    a traceback."""
+    for arg in args:
+        if arg == "--debug":
+            return True
+        if not arg.startswith("-"):
+            return False
+    return False
+
+
 class _Group(click.Group):
     """A click group whose usage errors are one ``error:`` line, like our own errors."""
 
@@ -91,7 +103,7 @@ class _Group(click.Group):
         self, args: Sequence[str] | None = None, prog_name: str | None = None, **kwargs: Any
     ) -> Any:
         args = list(sys.argv[1:] if args is None else args)
-        debug = "--debug" in args
+        debug = _debug_before_command(args)
         try:
             kwargs.setdefault("obj", {"argv": list(args)})
             with signal_handlers():
@@ -119,6 +131,11 @@ class _Group(click.Group):
             if debug:
                 raise
             message = " ".join(exc.format_message().split())
+            if isinstance(exc, click.NoSuchOption) and exc.option_name == "--debug":
+                message = (
+                    "--debug is not an option of a command: it goes before the command name "
+                    "(seqstate --debug COMMAND ...)"
+                )
             click.echo(f"error: {message} (see 'seqstate --help')", err=True)
             sys.exit(2)
         except SeqstateError as exc:
