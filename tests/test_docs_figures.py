@@ -205,9 +205,10 @@ def test_models_readme_gene_rows(shipped):
 
 
 def test_models_readme_table_counts_states_and_order_of_every_builtin():
+    table = MODELS_README.split("Structure of `gene-segment`")[0]  # the first table only
     rows = {
         ln.split("|")[1].strip().strip("`"): ln.split("|")
-        for ln in MODELS_README.splitlines()
+        for ln in table.splitlines()
         if ln.startswith("| `")
     }
     assert sorted(rows) == sorted(list_builtin())
