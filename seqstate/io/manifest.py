@@ -9,6 +9,7 @@ shows it, the line.
 
 from __future__ import annotations
 
+import datetime as dt
 import math
 import re
 import sys
@@ -18,11 +19,12 @@ from seqstate.errors import ModelFormatError
 from seqstate.io import files
 from seqstate.io.tsv_tables import read_emissions, read_text, read_transitions, read_vector
 from seqstate.model import (
+    MAX_TRANSITION_CELLS,
     STRANDS,
     Model,
     State,
-    emission_size_problem,
     label_problem,
+    model_size_problem,
     normalize_rows,
     thresholds_problem,
     validate,
@@ -126,7 +128,45 @@ def _kind(value) -> str:
     return f"a {type(value).__name__} value"
 
 
+#: A ``[[states]]`` header line, counted before the TOML is parsed (see :func:`load_manifest`).
+_STATES_HEADER = re.compile(rb"^[ \t]*\[\[[ \t]*states[ \t]*\]\]", re.MULTILINE)
+
+
+def _confined_manifest(manifest: Path) -> None:
+    """Refuse a manifest that is a symbolic link leading out of its own folder.
+
+    The tables are confined to the manifest's folder (:func:`_inside`); the manifest
+    itself is too, so a model folder never makes seqstate read a file elsewhere.
+    """
+    if not manifest.is_symlink():
+        return
+    try:
+        resolved = manifest.resolve(strict=True)
+        root = manifest.parent.resolve()
+    except (OSError, RuntimeError) as exc:
+        raise ModelFormatError(
+            f"is a symbolic link that cannot be resolved ({exc}); expected the model's "
+            "TOML manifest inside its folder",
+            path=manifest,
+        ) from None
+    if not resolved.is_relative_to(root):
+        raise ModelFormatError(
+            "is a symbolic link that leads outside the model folder; the manifest and its "
+            "tables must stay inside the folder",
+            path=manifest,
+        )
+
+
 def load_manifest(manifest: Path) -> Model:
+    """Read, check and validate the model of ``manifest`` (a ``model.toml``).
+
+    Before the TOML is parsed, the file is refused when it is a symbolic link out of
+    its folder, not a regular file, bigger than :data:`MAX_MANIFEST_BYTES`, or declares
+    more ``[[states]]`` than the transition budget allows (:data:`MAX_TRANSITION_CELLS`);
+    after parsing, the model's shape is checked against the memory budget
+    (:func:`~seqstate.model.model_size_problem`) before any table is read.
+    """
+    _confined_manifest(manifest)
     try:
         size = manifest.stat().st_size
     except OSError:
@@ -138,6 +178,10 @@ def load_manifest(manifest: Path) -> Model:
             path=manifest,
         )
     data = read_text(manifest, ModelFormatError, "TOML manifest")
+    declared = len(_STATES_HEADER.findall(data))
+    if declared * declared > MAX_TRANSITION_CELLS:
+        problem = model_size_problem(declared, 1, 0)
+        raise ModelFormatError(f"declares {declared:,} [[states]]: {problem}", path=manifest)
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError as exc:
@@ -250,11 +294,19 @@ def load_manifest(manifest: Path) -> Model:
     defaults = doc.get("defaults", {})
     problem = thresholds_problem(defaults)
     if problem:
-        bad_key = next(
-            (k for k in defaults if problem.startswith(f"[defaults] {k} ") or f"'{k}'" in problem),
-            None,
-        )
-        line0 = _key_line(lines, "[defaults]", 0, bad_key) if isinstance(defaults, dict) else None
+        if isinstance(defaults, dict):
+            bad_key = next(
+                (
+                    k
+                    for k in defaults
+                    if problem.startswith(f"[defaults] {k} ") or f"'{k}'" in problem
+                ),
+                None,
+            )
+            line0 = _key_line(lines, "[defaults]", 0, bad_key)
+        else:
+            line0 = _key_line(lines, None, 0, "defaults")
+            problem = f"{problem}; found {_kind(defaults)} ({_toml_value_safe(defaults)})"
         raise ModelFormatError(problem, path=manifest, line0=line0)
     base = manifest.parent
     names = [s.name for s in states]
@@ -273,7 +325,7 @@ def load_manifest(manifest: Path) -> Model:
     if len(set(alphabet)) != len(alphabet) or not alphabet:
         raise ModelFormatError(f"alphabet {alphabet!r} must list distinct symbols", path=manifest)
     # refuse a bomb before any table is read or allocated
-    too_big = emission_size_problem(len(states), len(alphabet), order)
+    too_big = model_size_problem(len(states), len(alphabet), order)
     if too_big:
         raise ModelFormatError(too_big, path=manifest, line0=_key_line(lines, None, 0, "order"))
 
@@ -281,7 +333,7 @@ def load_manifest(manifest: Path) -> Model:
         rel = tables.get(key)
         if rel is None:
             default = base / TABLE_FILES[key]
-            if not required and not default.is_file() and not default.is_symlink():
+            if not required and not default.exists() and not default.is_symlink():
                 return None
             return _inside(base, default, TABLE_FILES[key], key, manifest, None)
         return _inside(base, base / rel, rel, key, manifest, _key_line(lines, "[tables]", 0, key))
@@ -387,7 +439,7 @@ def render_manifest(model: Model) -> str:
     for key in sorted(model.extra):
         value = model.extra[key]
         if not isinstance(value, dict):
-            lines.append(f"{key} = {_toml_value(value)}")
+            lines.append(f"{_toml_key(key)} = {_toml_value(value)}")
     lines.append("")
     lines.append("[tables]")
     lines.append(f"start = {_toml_value(TABLE_FILES['start'])}")
@@ -403,7 +455,7 @@ def render_manifest(model: Model) -> str:
         lines.append(f"strand = {_toml_value(s.strand or '.')}")
     for key in sorted(model.extra):
         if isinstance(model.extra[key], dict):
-            lines.extend(_toml_table(key, model.extra[key]))
+            lines.extend(_toml_table(_toml_key(key), model.extra[key]))
     if model.provenance:
         lines.extend(_toml_table("provenance", model.provenance))
     return "\n".join(lines) + "\n"
@@ -429,6 +481,8 @@ def _toml_key(key: str) -> str:
 
 
 def _toml_value(value) -> str:
+    """``value`` as TOML text: every kind tomllib reads (dates and times included, a table
+    inside a list as an inline table), so a manifest read is always written back."""
     if isinstance(value, bool):
         return "true" if value else "false"
     if isinstance(value, int):
@@ -458,4 +512,10 @@ def _toml_value(value) -> str:
         return "".join(out)
     if isinstance(value, (list, tuple)):
         return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    if isinstance(value, dict):
+        cells = ", ".join(f"{_toml_key(k)} = {_toml_value(v)}" for k, v in value.items())
+        return "{" + cells + "}" if cells else "{}"
+    if isinstance(value, (dt.datetime, dt.date, dt.time)):
+        # RFC 3339 text, as TOML writes offset/local date-times, local dates and times
+        return value.isoformat()
     raise TypeError(f"cannot write {type(value).__name__} to TOML")

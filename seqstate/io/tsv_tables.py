@@ -11,7 +11,9 @@ file and line.
 from __future__ import annotations
 
 import math
+import os
 import re
+import stat
 import sys
 from collections.abc import Iterator
 from pathlib import Path
@@ -35,9 +37,13 @@ EMPTY_CONTEXT = "."
 
 
 def read_text(path: Path, error_cls: type[ModelFormatError], what: str) -> bytes:
-    """The bytes of a manifest or table, after the checks every model file gets."""
+    """The bytes of a manifest or table, after the checks every model file gets.
+
+    Only a regular file is read: a FIFO, socket or device is refused without waiting on
+    it (opened non-blocking, then checked), so a model never blocks a run.
+    """
     try:
-        data = path.read_bytes()
+        data = _regular_bytes(path, error_cls, what)
     except FileNotFoundError:
         raise error_cls(f"{what} file not found", path=path) from None
     except IsADirectoryError:
@@ -55,6 +61,36 @@ def read_text(path: Path, error_cls: type[ModelFormatError], what: str) -> bytes
     if data.startswith(files.UTF8_BOM):
         data = data[len(files.UTF8_BOM) :]
     return data
+
+
+def _regular_bytes(path: Path, error_cls: type[ModelFormatError], what: str) -> bytes:
+    """The bytes of ``path`` if it is a regular file (symbolic links followed)."""
+    fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_NOCTTY", 0))
+    try:
+        mode = os.fstat(fd).st_mode
+        if stat.S_ISDIR(mode):
+            raise IsADirectoryError(str(path))
+        if not stat.S_ISREG(mode):
+            kind = "a FIFO (named pipe)" if stat.S_ISFIFO(mode) else "not a regular file"
+            raise error_cls(
+                f"is {kind}; expected a {what} file (a model's files are read as regular files)",
+                path=path,
+            )
+        with os.fdopen(fd, "rb", closefd=True) as handle:
+            fd = -1
+            return handle.read()
+    finally:
+        if fd >= 0:
+            os.close(fd)
+
+
+#: A number cell of a model table: decimal digits with an optional sign, point and
+#: exponent (``0.25``, ``1e-5``, ``.5``), plus the words ``inf`` and ``nan`` so that they
+#: get their own message.  Python's ``float`` also takes ``1_0`` (as 10), digits of other
+#: scripts and other spellings no table should hold; they are refused here.
+_NUMBER = re.compile(
+    r"[+-]?(?:(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?|inf(?:inity)?|nan)", re.I | re.A
+)
 
 
 def _lines(path: Path) -> Iterator[tuple[int, list[str]]]:
@@ -120,10 +156,15 @@ def _number(cell: str, path: Path, line0: int, what: str) -> float:
     if text == "":
         return 0.0
     try:
+        if not _NUMBER.fullmatch(text):
+            raise ValueError(text)
         value = float(text)
     except ValueError:
         raise TableFormatError(
-            f"{what}: '{text[:30]}' is not a number", path=path, line0=line0
+            f"{what}: '{text[:30]}' is not a number (expected digits with an optional sign, "
+            "point and exponent, such as 0.25 or 1e-5)",
+            path=path,
+            line0=line0,
         ) from None
     if not math.isfinite(value):
         raise TableFormatError(f"{what}: '{text}' is not a finite number", path=path, line0=line0)

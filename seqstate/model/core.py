@@ -43,6 +43,16 @@ STRANDS = ("+", "-")
 #: Largest emission table a model may declare: states x symbols**(order + 1)
 #: probabilities, 2**24 (128 MiB as float64).  Checked before anything is allocated.
 MAX_EMISSION_CELLS = 2**24
+#: Largest transition table a model may declare: states**2 probabilities, 2**24 (128 MiB as
+#: float64), that is at most 4,096 states.  Checked from the manifest alone, before any
+#: table is read or allocated.
+MAX_TRANSITION_CELLS = 2**24
+#: The memory budget of a model's arrays: transitions (states**2), emissions (states x
+#: symbols**(order + 1)) and back-off rows (states x symbols**j x symbols for each shorter
+#: context j), start and end (states each), all float64: at most 2**25 values (256 MiB).
+#: Preparing the engine makes a few working copies (log tables, move lists), so a run's
+#: model memory stays within a small multiple of this, whatever the sequence.
+MAX_MODEL_CELLS = 2**25
 #: A label (the feature type a state reports): a letter, then letters, digits, '_' or
 #: '-', at most 64 characters in all.  Labels become GFF3 column 3 values, parts of
 #: feature IDs, TSV cells and track file names, so nothing that breaks a file name or
@@ -212,6 +222,36 @@ def emission_size_problem(n_states: int, n_symbols: int, order: int) -> str | No
     )
 
 
+def model_size_problem(n_states: int, n_symbols: int, order: int) -> str | None:
+    """Why a model of this shape is refused, from its manifest alone (no table read).
+
+    Checks, in order, the emission table (:data:`MAX_EMISSION_CELLS`), the transition
+    table (:data:`MAX_TRANSITION_CELLS`) and the total of every array
+    (:data:`MAX_MODEL_CELLS`); None when the model fits the budget.
+    """
+    problem = emission_size_problem(n_states, n_symbols, order)
+    if problem:
+        return problem
+    square = n_states * n_states
+    if square > MAX_TRANSITION_CELLS:
+        return (
+            f"the transition table would hold {square:,} probabilities ({n_states:,} states "
+            f"squared), {_bytes(square * 8)} as float64; the limit is "
+            f"{MAX_TRANSITION_CELLS:,} ({_bytes(MAX_TRANSITION_CELLS * 8)}, at most "
+            f"{math.isqrt(MAX_TRANSITION_CELLS):,} states): use fewer states"
+        )
+    lower = sum(n_symbols ** (j + 1) for j in range(order))
+    total = square + n_states * (n_symbols ** (order + 1) + lower + 2)
+    if total > MAX_MODEL_CELLS:
+        return (
+            f"the model's arrays would hold {total:,} values ({_bytes(total * 8)} as float64: "
+            f"transitions, emissions with their back-off rows, start and end); the limit is "
+            f"{MAX_MODEL_CELLS:,} ({_bytes(MAX_MODEL_CELLS * 8)}): use fewer states or a "
+            "lower order"
+        )
+    return None
+
+
 def _bytes(n: int) -> str:
     size: float = n
     for unit in ("bytes", "KiB", "MiB", "GiB", "TiB", "PiB"):
@@ -340,7 +380,7 @@ def validate(model: Model, *, path: str | None = None) -> None:
         fail(f"alphabet symbol {bad[0]!r} is not allowed (printable ASCII other than '#' and '.')")
     if not 0 <= model.order <= MAX_ORDER:
         fail(f"emission order {model.order} is outside 0..{MAX_ORDER}")
-    size = emission_size_problem(model.n_states, len(alphabet), model.order)
+    size = model_size_problem(model.n_states, len(alphabet), model.order)
     if size:
         fail(size)
     if model.decode not in DECODINGS:
