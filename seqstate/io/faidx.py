@@ -44,7 +44,7 @@ import numpy as np
 from Bio import bgzf
 
 from seqstate import log
-from seqstate.errors import SequenceFormatError, UsageError
+from seqstate.errors import SeqstateError, SequenceFormatError, UsageError
 from seqstate.io import files
 from seqstate.io.atomic import OutputSet
 from seqstate.io.fasta import DNA_ALPHABET, Record, iter_fasta
@@ -610,7 +610,7 @@ class FastaIndex:
             raise self._corrupt(exc) from None
         return data if isinstance(data, bytes) else data.encode("latin-1")
 
-    def _corrupt(self, exc: BaseException) -> SequenceFormatError:
+    def _corrupt(self, exc: BaseException) -> SeqstateError:
         """The error for a bgzip block that does not decompress (a bad CRC or size, bad
         deflate data, a failing disk): the words of the stream reader for the same file."""
         return files.read_error(exc, files.display_name(self.path), SequenceFormatError)
