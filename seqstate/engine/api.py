@@ -41,6 +41,7 @@ __all__ = [
     "backoff_rows",
     "backend_of",
     "backward_vector",
+    "constrained_log_probability",
     "default_block",
     "default_kernels",
     "encode",
@@ -189,6 +190,42 @@ def backward_vector(
 ) -> tuple[np.ndarray, float]:
     """Scaled backward vector at ``pos`` and its natural-log scale."""
     return backend_of(tables).backward_vector(codes, post, pos)
+
+
+def constrained_log_probability(
+    tables: EngineTables,
+    codes: np.ndarray,
+    post: Posterior,
+    start0: int,
+    end0: int,
+    cls: np.ndarray,
+    allowed: np.ndarray,
+) -> float:
+    """log P(z_i in allowed[cls[i - start0]] for every i in [start0, end0) | x), natural
+    log; -inf if impossible.
+
+    ``cls`` (one integer per position of the stretch, in ``[0, K)``) names each
+    position's allowed set, ``allowed`` (K x states, booleans) lists each set's
+    states.  A forward pass through the allowed sets between the bounds, joined to
+    the unrestricted forward vector at ``start0 - 1`` and the backward vector at
+    ``end0 - 1``: exact.  One set for every position is
+    :func:`segment_log_probability`; a set per position following a decoded path (with
+    boundary positions outside it) gives the probability of that path's features.
+    """
+    if end0 <= start0:
+        return 0.0  # an empty stretch: the condition holds for every path
+    cls = np.ascontiguousarray(cls, dtype=np.int64)
+    allowed = np.ascontiguousarray(allowed, dtype=np.bool_)
+    if allowed.ndim != 2 or allowed.shape[1] != tables.n_states or allowed.shape[0] == 0:
+        raise ValueError(f"allowed must be a K x {tables.n_states} boolean array, K >= 1")
+    if cls.shape != (end0 - start0,):
+        raise ValueError(f"cls must hold one class per position of [{start0}, {end0})")
+    if int(cls.min()) < 0 or int(cls.max()) >= allowed.shape[0]:
+        raise ValueError(f"cls values must lie in [0, {allowed.shape[0]})")
+    if start0 < 0 or end0 > codes.shape[0]:
+        raise ValueError(f"[{start0}, {end0}) is not inside the record's {codes.shape[0]} bases")
+    backend = backend_of(tables)
+    return backend.constrained_log_probability(codes, post, start0, end0, cls, allowed)
 
 
 def segment_log_probability(

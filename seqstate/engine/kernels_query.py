@@ -1,5 +1,6 @@
 """Generic segment queries (numba): forward and backward vectors at a position, recomputed
-from a posterior's checkpoints, and forward passes restricted to a set of states.
+from a posterior's checkpoints, and forward passes constrained to an allowed set of
+states per position (one set for a plain segment, a class per position for a path).
 
 Tables, scaling and failure conventions are those of :mod:`seqstate.engine.kernels`.
 """
@@ -135,14 +136,27 @@ def backward_vector_at(
     return logscale
 
 
+def constrained_scratch(
+    m: int, nnz: int, n_classes: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Work arrays ``(ms, fsrc, fp)`` of :func:`constrained_forward` for ``n_classes``
+    allowed sets (``nnz`` allowed moves); empty below :data:`RESTRICTED_MASKED_MIN`
+    states, where they are not used."""
+    k = max(1, int(n_classes))
+    if m < RESTRICTED_MASKED_MIN:
+        m = nnz = 0
+    return work_buffer(k * m, np.int64), work_buffer(k * nnz, np.int64), work_buffer(k * nnz)
+
+
 @njit(**_JIT)
-def _restricted_masked(
+def _constrained_masked(
     codes,
     s0,
     e0,
     init,
     init_is_start,
-    mask,
+    cls,
+    allowed,
     use_emissions,
     E,
     pred_ptr,
@@ -153,48 +167,65 @@ def _restricted_masked(
     fsrc,
     fp,
 ):
-    """:func:`restricted_forward` for large models: the same values up to rounding.
+    """:func:`constrained_forward` for large models: the same values up to rounding.
 
-    The masked states and, for each, its masked predecessors are listed once per
-    call (an unmasked predecessor holds 0 after the first position, so leaving it
-    out adds nothing).  Every masked state is written at every position (0 where
-    it cannot emit), so no row is reset, and the rescaling total is summed by
-    four interleaved partial sums rather than one running sum.  Work arrays: ``ms``
-    (int64, M entries), ``fsrc`` (int64) and ``fp`` (float64), both as long as
-    ``pred_src``; only their first entries are used.
+    Per class, its allowed states and, for each, its predecessors allowed in the
+    same class are listed once per call.  Inside a run of one class a state sums
+    over those predecessors only (the others hold 0); at the first position of a
+    run (another class before it) it sums over every predecessor, the rows being 0
+    outside the class last written in them.  Every allowed state is written at
+    every position (0 where it cannot emit); a row is cleared only where it held
+    another class.  The rescaling total is summed by four interleaved partial sums.
+    Work arrays: ``ms`` (int64, K * M entries), ``fsrc`` (int64) and ``fp``
+    (float64), both K times as long as ``pred_src``; only their first entries are used.
     """
     m = init.shape[0]
+    nk = allowed.shape[0]
+    sptr = np.zeros(nk + 1, dtype=np.int64)
     nm = 0
-    for t in range(m):
-        if mask[t]:
-            nm += 1
+    for k in range(nk):
+        for t in range(m):
+            if allowed[k, t]:
+                nm += 1
+        sptr[k + 1] = nm
     fptr = np.zeros(nm + 1, dtype=np.int64)
     j = 0
-    for t in range(m):
-        if mask[t]:
-            ms[j] = t
-            cnt = 0
+    for k in range(nk):
+        for t in range(m):
+            if allowed[k, t]:
+                ms[j] = t
+                cnt = 0
+                for q in range(pred_ptr[t], pred_ptr[t + 1]):
+                    if allowed[k, pred_src[q]]:
+                        cnt += 1
+                fptr[j + 1] = fptr[j] + cnt
+                j += 1
+    j = 0
+    for k in range(nk):
+        for jj in range(sptr[k], sptr[k + 1]):
+            t = ms[jj]
+            kq = fptr[jj]
             for q in range(pred_ptr[t], pred_ptr[t + 1]):
-                if mask[pred_src[q]]:
-                    cnt += 1
-            fptr[j + 1] = fptr[j] + cnt
-            j += 1
-    for j in range(nm):
-        t = ms[j]
-        k = fptr[j]
-        for q in range(pred_ptr[t], pred_ptr[t + 1]):
-            if mask[pred_src[q]]:
-                fsrc[k] = pred_src[q]
-                fp[k] = pred_p[q]
-                k += 1
+                if allowed[k, pred_src[q]]:
+                    fsrc[kq] = pred_src[q]
+                    fp[kq] = pred_p[q]
+                    kq += 1
     a = np.zeros(m)
     b = np.zeros(m)
+    a_cls = -1  # the class whose states a row was last written at (-1: all 0)
+    b_cls = -1
     logscale = 0.0
     for i in range(s0, e0):
         c = uintp(codes[i])
+        k = cls[i - s0]
+        lo = sptr[k]
+        hi = sptr[k + 1]
+        if b_cls >= 0 and b_cls != k:
+            for jj in range(sptr[b_cls], sptr[b_cls + 1]):
+                b[uintp(ms[jj])] = 0.0
         if i == s0:
-            for j in range(nm):
-                t = uintp(ms[j])
+            for jj in range(lo, hi):
+                t = uintp(ms[jj])
                 if init_is_start:
                     acc = init[t]
                 else:
@@ -202,42 +233,90 @@ def _restricted_masked(
                     for q in range(uintp(pred_ptr[t]), uintp(pred_ptr[t + _ONE])):
                         acc += init[uintp(pred_src[q])] * pred_p[q]
                 b[t] = acc * E[c, t] if use_emissions else acc
-        elif use_emissions:
-            for j in range(nm):
-                t = uintp(ms[j])
+        elif a_cls != k:
+            for jj in range(lo, hi):
+                t = uintp(ms[jj])
                 acc = 0.0
-                for q in range(uintp(fptr[j]), uintp(fptr[j + 1])):
+                for q in range(uintp(pred_ptr[t]), uintp(pred_ptr[t + _ONE])):
+                    acc += a[uintp(pred_src[q])] * pred_p[q]
+                b[t] = acc * E[c, t] if use_emissions else acc
+        elif use_emissions:
+            for jj in range(lo, hi):
+                t = uintp(ms[jj])
+                acc = 0.0
+                for q in range(uintp(fptr[jj]), uintp(fptr[jj + 1])):
                     acc += a[uintp(fsrc[q])] * fp[q]
                 b[t] = acc * E[c, t]
         else:
-            for j in range(nm):
+            for jj in range(lo, hi):
                 acc = 0.0
-                for q in range(uintp(fptr[j]), uintp(fptr[j + 1])):
+                for q in range(uintp(fptr[jj]), uintp(fptr[jj + 1])):
                     acc += a[uintp(fsrc[q])] * fp[q]
-                b[uintp(ms[j])] = acc
+                b[uintp(ms[jj])] = acc
+        b_cls = k
         t0 = t1 = t2 = t3 = 0.0
-        j = 0
-        while j + 4 <= nm:
-            t0 += b[uintp(ms[j])]
-            t1 += b[uintp(ms[j + 1])]
-            t2 += b[uintp(ms[j + 2])]
-            t3 += b[uintp(ms[j + 3])]
-            j += 4
-        while j < nm:
-            t0 += b[uintp(ms[j])]
-            j += 1
+        jj = lo
+        while jj + 4 <= hi:
+            t0 += b[uintp(ms[jj])]
+            t1 += b[uintp(ms[jj + 1])]
+            t2 += b[uintp(ms[jj + 2])]
+            t3 += b[uintp(ms[jj + 3])]
+            jj += 4
+        while jj < hi:
+            t0 += b[uintp(ms[jj])]
+            jj += 1
         total = (t0 + t1) + (t2 + t3)
         if total == 0.0:
             out[:] = 0.0
             return -np.inf
         if total < RESCALE_BELOW:
             inv = 1.0 / total
-            for j in range(nm):
-                b[uintp(ms[j])] *= inv
+            for jj in range(lo, hi):
+                b[uintp(ms[jj])] *= inv
             logscale += math.log(total)
         a, b = b, a
+        a_cls, b_cls = b_cls, a_cls
     out[:] = a
     return logscale
+
+
+def constrained_forward(
+    codes: np.ndarray,
+    s0: int,
+    e0: int,
+    init: np.ndarray,
+    init_is_start: bool,
+    cls: np.ndarray,
+    allowed: np.ndarray,
+    use_emissions: bool,
+    E: np.ndarray,
+    nz_ptr: np.ndarray,
+    nz_state: np.ndarray,
+    pred_ptr: np.ndarray,
+    pred_src: np.ndarray,
+    pred_p: np.ndarray,
+    out: np.ndarray,
+    ms: np.ndarray,
+    fsrc: np.ndarray,
+    fp: np.ndarray,
+) -> float:
+    """Forward over positions s0..e0-1, position i through the states of
+    ``allowed[cls[i - s0]]`` only.
+
+    ``cls`` (int64, e0 - s0 entries) gives each position's class, ``allowed``
+    (bool, K x M) each class's states.  ``init`` is the start vector
+    (``init_is_start``) or the unrestricted forward vector at ``s0 - 1``.  With
+    ``use_emissions`` false every emission factor is 1, which gives the prior
+    probability of a path through the allowed sets.  Writes the final scaled vector
+    to ``out`` and returns its natural-log scale, or -inf if no allowed path exists.
+    Models of at least :data:`RESTRICTED_MASKED_MIN` states run
+    :func:`_constrained_masked`, which uses the work arrays ``ms``, ``fsrc`` and ``fp``
+    (see :func:`constrained_scratch`).
+    """
+    query = (codes, s0, e0, init, init_is_start, cls, allowed, use_emissions, E)
+    if init.shape[0] >= RESTRICTED_MASKED_MIN:
+        return _constrained_masked(*query, pred_ptr, pred_src, pred_p, out, ms, fsrc, fp)
+    return _constrained_plain(*query, nz_ptr, nz_state, pred_ptr, pred_src, pred_p, out)
 
 
 def restricted_forward(
@@ -259,30 +338,25 @@ def restricted_forward(
     fsrc: np.ndarray,
     fp: np.ndarray,
 ) -> float:
-    """Forward over positions s0..e0-1 through the states with ``mask[s]`` only.
-
-    ``init`` is the start vector (``init_is_start``) or the unrestricted forward
-    vector at ``s0 - 1``.  With ``use_emissions`` false every emission factor is 1,
-    which gives the prior probability of staying inside the mask.  Writes the
-    final scaled vector to ``out`` and returns its natural-log scale, or -inf if
-    no allowed path stays inside the mask.  Models of at least
-    :data:`RESTRICTED_MASKED_MIN` states run :func:`_restricted_masked`, which uses
-    the work arrays ``ms``, ``fsrc`` and ``fp`` (see :func:`restricted_scratch`).
-    """
-    query = (codes, s0, e0, init, init_is_start, mask, use_emissions, E)
-    if init.shape[0] >= RESTRICTED_MASKED_MIN:
-        return _restricted_masked(*query, pred_ptr, pred_src, pred_p, out, ms, fsrc, fp)
-    return _restricted_plain(*query, nz_ptr, nz_state, pred_ptr, pred_src, pred_p, out)
+    """Forward over positions s0..e0-1 through the states with ``mask[s]`` only: the
+    one-class case of :func:`constrained_forward` (same arguments otherwise; work
+    arrays as :func:`restricted_scratch` gives them)."""
+    cls = np.zeros(max(0, e0 - s0), dtype=np.int64)
+    allowed = np.asarray(mask, dtype=np.bool_).reshape(1, -1)
+    query = (codes, s0, e0, init, init_is_start, cls, allowed, use_emissions, E)
+    moves = (nz_ptr, nz_state, pred_ptr, pred_src, pred_p)
+    return constrained_forward(*query, *moves, out, ms, fsrc, fp)
 
 
 @njit(**_JIT)
-def _restricted_plain(
+def _constrained_plain(
     codes,
     s0,
     e0,
     init,
     init_is_start,
-    mask,
+    cls,
+    allowed,
     use_emissions,
     E,
     nz_ptr,
@@ -292,7 +366,7 @@ def _restricted_plain(
     pred_p,
     out,
 ):
-    """:func:`restricted_forward` for small models: the emitting masked states only.
+    """:func:`constrained_forward` for small models: the emitting allowed states only.
 
     Without emissions the step uses the unknown-symbol code (the last row of ``E``,
     all ones, every state emitting), so one loop serves both cases.
@@ -304,12 +378,13 @@ def _restricted_plain(
     logscale = 0.0
     for i in range(s0, e0):
         code = codes[i] if use_emissions else unknown
+        k = cls[i - s0]
         prev = init if i == s0 else a
         total = 0.0
         b[:] = 0.0
-        for k in range(nz_ptr[code], nz_ptr[code + 1]):
-            t = nz_state[k]
-            if not mask[t]:
+        for kk in range(nz_ptr[code], nz_ptr[code + 1]):
+            t = nz_state[kk]
+            if not allowed[k, t]:
                 continue
             if i == s0 and init_is_start:
                 acc = init[t]
@@ -329,3 +404,26 @@ def _restricted_plain(
         a, b = b, a
     out[:] = a
     return logscale
+
+
+def _restricted_plain(
+    codes: np.ndarray,
+    s0: int,
+    e0: int,
+    init: np.ndarray,
+    init_is_start: bool,
+    mask: np.ndarray,
+    use_emissions: bool,
+    E: np.ndarray,
+    nz_ptr: np.ndarray,
+    nz_state: np.ndarray,
+    pred_ptr: np.ndarray,
+    pred_src: np.ndarray,
+    pred_p: np.ndarray,
+    out: np.ndarray,
+) -> float:
+    """The small-model loop of :func:`restricted_forward` whatever the model's size."""
+    cls = np.zeros(max(0, e0 - s0), dtype=np.int64)
+    allowed = np.asarray(mask, dtype=np.bool_).reshape(1, -1)
+    query = (codes, s0, e0, init, init_is_start, cls, allowed, use_emissions, E)
+    return float(_constrained_plain(*query, nz_ptr, nz_state, pred_ptr, pred_src, pred_p, out))

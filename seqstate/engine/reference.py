@@ -163,3 +163,38 @@ def expected_counts(
         "end": gamma[-1].copy(),
         "emit": emit,
     }
+
+
+def constrained_log_probability(
+    start: np.ndarray,
+    trans: np.ndarray,
+    end: np.ndarray,
+    lattice: np.ndarray,
+    start0: int,
+    end0: int,
+    cls: np.ndarray,
+    allowed: np.ndarray,
+) -> float:
+    """Twin of :func:`seqstate.engine.api.constrained_log_probability` by whole-record
+    matrix products: the forward recursion with the lattice of position i zeroed
+    outside ``allowed[cls[i - start0]]`` for i in ``[start0, end0)``, its total over
+    the unconstrained total.  Natural log; -inf when no allowed path exists."""
+    n, _ = lattice.shape
+    lat = np.array(lattice, dtype=np.float64)
+    for i in range(start0, end0):
+        lat[i] = np.where(np.asarray(allowed)[int(cls[i - start0])], lat[i], 0.0)
+    _, _, _, total = _scaled_forward(start, trans, end, lattice)
+    a = start * lat[0]
+    acc = 0.0
+    for i in range(n):
+        if i > 0:
+            a = (a @ trans) * lat[i]
+        s = a.sum()
+        if s <= 0.0:
+            return -np.inf
+        a = a / s
+        acc += float(np.log(s))
+    final = float(a @ end)
+    if final <= 0.0:
+        return -np.inf
+    return acc + float(np.log(final)) - total

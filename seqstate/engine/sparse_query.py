@@ -322,12 +322,13 @@ def backward_advance(codes, i0, i1, R, v1, b_ptr, b_n0, b_dst, b_src, b_w, lim):
 
 
 @njit(**_JIT)
-def restricted_forward(
+def constrained_forward(
     codes,
     s0,
     e0,
     init,
     init_is_start,
+    cls,
     maskf,
     code,
     start,
@@ -341,17 +342,18 @@ def restricted_forward(
     lim,
     W,
 ):
-    """Forward over positions s0..e0-1 through the states whose slot has ``maskf`` 1.
+    """Forward over positions s0..e0-1, position i through the states whose slot has
+    ``maskf[cls[i - s0]]`` 1.
 
-    ``init`` is row 0 of an (x, M + 2) array holding the unrestricted forward vector
-    at ``s0 - 1`` in slots (unused when ``init_is_start``: the start vector then).
-    ``code`` >= 0 replaces every position's code (the unknown code, whose
-    emission factors are all 1, gives the prior probability of staying inside the
-    mask); -1 reads ``codes``.  ``maskf`` has M + 2 entries, 0 or 1, 0 in the
-    dummy slots.  The final scaled vector lands in row 0 of ``W`` (2, M + 2), whose
-    contents on entry are never read (its dummy slots are set to 0 first).
-    Returns its binary exponent as a float, or -inf if no allowed path stays
-    inside the mask.
+    ``cls`` (int64, e0 - s0 entries) is each position's class, ``maskf`` (K, M + 2)
+    the 0/1 factors per slot of each class (0 in the dummy slots).  ``init`` is row
+    0 of an (x, M + 2) array holding the unrestricted forward vector at ``s0 - 1``
+    in slots (unused when ``init_is_start``: the start vector then).  ``code`` >= 0
+    replaces every position's code (the unknown code, whose emission factors are
+    all 1, gives the prior probability of a path through the allowed sets); -1
+    reads ``codes``.  The final scaled vector lands in row 0 of ``W`` (2, M + 2),
+    whose contents on entry are never read (its dummy slots are set to 0 first).
+    Returns its binary exponent as a float, or -inf if no allowed path exists.
     """
     m = W.shape[1] - 2
     wi = W.view(np.int64)
@@ -375,8 +377,9 @@ def restricted_forward(
                 _step(init, 0, W, 0, c, m, 0, w1, f_ptr, f_n0, f_dst, f_src, f_w)
         else:
             _step(W, src, W, dst, c, m, 0, w1, f_ptr, f_n0, f_dst, f_src, f_w)
+        k = cls[i - s0]
         for s in range(1, m + 1):
-            W[dst, s] *= maskf[s]
+            W[dst, s] *= maskf[k, s]
         src = dst
         mx = _maxbits(wi, src, 1, m + 1)
         if mx == 0:

@@ -22,6 +22,13 @@ Checkpoints = tuple[Array, Array, Array, Array]
 Moves = tuple[Array, Array, Array, Array, Array, Array]
 
 
+def one_class(start0: int, end0: int, mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``(cls, allowed)`` of a segment whose every base is in ``mask``: class 0 at each
+    of its positions, ``mask`` the one allowed set."""
+    cls = np.zeros(max(0, end0 - start0), dtype=np.int64)
+    return cls, np.asarray(mask, dtype=np.bool_).reshape(1, -1)
+
+
 class GenericBackend:
     """The generic kernels (:mod:`seqstate.engine.kernels`) on one model's tables.
 
@@ -93,6 +100,29 @@ class GenericBackend:
         lg = kernels_query.backward_vector_at(codes, pos, *self.bwd, *ck, out, work_buffer(m))
         return out, lg
 
+    def constrained(
+        self,
+        codes: np.ndarray,
+        start0: int,
+        end0: int,
+        init: np.ndarray,
+        init_is_start: bool,
+        cls: np.ndarray,
+        allowed: np.ndarray,
+        use_emissions: bool,
+    ) -> tuple[np.ndarray, float]:
+        """Forward pass over ``[start0, end0)``, position i through the states of
+        ``allowed[cls[i - start0]]`` only, from ``init`` (the start factors when
+        ``init_is_start``); (scaled vector, log scale)."""
+        t = self.t
+        out = work_buffer(t.n_states)
+        scratch = kernels_query.constrained_scratch(
+            t.n_states, t.pred_src.shape[0], allowed.shape[0]
+        )
+        query = (codes, start0, end0, init, init_is_start, cls, allowed, use_emissions)
+        lg = kernels_query.constrained_forward(*query, *self.fwd, out, *scratch)
+        return out, lg
+
     def restricted(
         self,
         codes: np.ndarray,
@@ -105,12 +135,9 @@ class GenericBackend:
     ) -> tuple[np.ndarray, float]:
         """Forward pass over ``[start0, end0)`` through the ``mask`` states only, from
         ``init`` (the start factors when ``init_is_start``); (scaled vector, log scale)."""
-        t = self.t
-        out = work_buffer(t.n_states)
-        scratch = kernels_query.restricted_scratch(t.n_states, t.pred_src.shape[0])
-        query = (codes, start0, end0, init, init_is_start, mask, use_emissions)
-        lg = kernels_query.restricted_forward(*query, *self.fwd, out, *scratch)
-        return out, lg
+        cls, allowed = one_class(start0, end0, mask)
+        query = (codes, start0, end0, init, init_is_start, cls, allowed, use_emissions)
+        return self.constrained(*query)
 
     def _before(self, codes: np.ndarray, post: Posterior, start0: int) -> tuple:
         """(init, its log scale, init_is_start) of a segment starting at ``start0``."""
@@ -119,12 +146,20 @@ class GenericBackend:
         init, init_log = self.forward_vector(codes, post, start0 - 1)
         return init, init_log, False
 
-    def segment_log_probability(
-        self, codes: np.ndarray, post: Posterior, start0: int, end0: int, mask: np.ndarray
+    def constrained_log_probability(
+        self,
+        codes: np.ndarray,
+        post: Posterior,
+        start0: int,
+        end0: int,
+        cls: np.ndarray,
+        allowed: np.ndarray,
     ) -> float:
-        """log P(z_i in mask for every i in [start0, end0) | x); see the API."""
+        """log P(z_i in allowed[cls[i - start0]] for every i in [start0, end0) | x); see
+        the API."""
         init, init_log, is_start = self._before(codes, post, start0)
-        vec, lg = self.restricted(codes, start0, end0, init, is_start, mask, True)
+        query = (codes, start0, end0, init, is_start, cls, allowed, True)
+        vec, lg = self.constrained(*query)
         if lg == -np.inf:
             return -np.inf
         beta, blog = self.backward_vector(codes, post, end0 - 1)
@@ -132,6 +167,13 @@ class GenericBackend:
         if joint <= 0.0:
             return -np.inf
         return min(0.0, math.log(joint) + lg + init_log + blog - post.loglik)
+
+    def segment_log_probability(
+        self, codes: np.ndarray, post: Posterior, start0: int, end0: int, mask: np.ndarray
+    ) -> float:
+        """log P(z_i in mask for every i in [start0, end0) | x); see the API."""
+        cls, allowed = one_class(start0, end0, mask)
+        return self.constrained_log_probability(codes, post, start0, end0, cls, allowed)
 
     def segment_log_odds_terms(
         self, codes: np.ndarray, post: Posterior, start0: int, end0: int, mask: np.ndarray

@@ -9,7 +9,7 @@ import numpy as np
 
 from seqstate.engine import sparse, sparse_query
 from seqstate.engine._common import LN2
-from seqstate.engine.backends.generic import Array, Checkpoints, GenericBackend
+from seqstate.engine.backends.generic import Array, Checkpoints, GenericBackend, one_class
 from seqstate.engine.buffers import work_buffer
 
 if TYPE_CHECKING:
@@ -96,9 +96,36 @@ class SparseBackend(GenericBackend):
 
     def mask_slots(self, mask: np.ndarray) -> np.ndarray:
         """``mask`` (original order) as 0/1 factors per slot (dummy slots 0)."""
-        out = np.zeros(self.sp.n_states + 2)
-        out[1:-1] = np.asarray(mask, dtype=np.bool_)[self.sp.perm]
+        return self.allowed_slots(np.asarray(mask, dtype=np.bool_).reshape(1, -1))[0]
+
+    def allowed_slots(self, allowed: np.ndarray) -> np.ndarray:
+        """``allowed`` (K x M, original order) as 0/1 factors per slot, K x (M + 2)
+        (dummy slots 0)."""
+        allowed = np.asarray(allowed, dtype=np.bool_)
+        out = np.zeros((allowed.shape[0], self.sp.n_states + 2))
+        out[:, 1:-1] = allowed[:, self.sp.perm]
         return out
+
+    def constrained_slots(
+        self,
+        codes: np.ndarray,
+        start0: int,
+        end0: int,
+        init: np.ndarray,
+        init_is_start: bool,
+        cls: np.ndarray,
+        allowedf: np.ndarray,
+        use_emissions: bool,
+        work: np.ndarray,
+    ) -> float:
+        """Constrained forward in slots (result in row 0 of ``work``); natural-log scale
+        or -inf.  ``init`` is a slot row (ignored when ``init_is_start``), ``allowedf``
+        as :meth:`allowed_slots` gives it."""
+        sp = self.sp
+        skip = -1 if use_emissions else self.t.unknown_code
+        query = (codes, start0, end0, init, init_is_start, cls, allowedf, skip)
+        ex = sparse_query.constrained_forward(*query, sp.start, sp.E, *sp.fwd, self.lim, work)
+        return ex if ex == -np.inf else ex * LN2
 
     def restricted_slots(
         self,
@@ -111,22 +138,21 @@ class SparseBackend(GenericBackend):
         use_emissions: bool,
         work: np.ndarray,
     ) -> float:
-        """Restricted forward in slots (result in row 0 of ``work``); natural-log scale or
-        -inf.  ``init`` is a slot row (ignored when ``init_is_start``)."""
-        sp = self.sp
-        skip = -1 if use_emissions else self.t.unknown_code
-        query = (codes, start0, end0, init, init_is_start, maskf, skip)
-        ex = sparse_query.restricted_forward(*query, sp.start, sp.E, *sp.fwd, self.lim, work)
-        return ex if ex == -np.inf else ex * LN2
+        """:meth:`constrained_slots` with one allowed set, ``maskf`` (M + 2 factors)."""
+        cls = np.zeros(max(0, end0 - start0), dtype=np.int64)
+        allowedf = np.asarray(maskf, dtype=np.float64).reshape(1, -1)
+        query = (codes, start0, end0, init, init_is_start, cls, allowedf, use_emissions)
+        return self.constrained_slots(*query, work)
 
-    def restricted(
+    def constrained(
         self,
         codes: np.ndarray,
         start0: int,
         end0: int,
         init: np.ndarray,
         init_is_start: bool,
-        mask: np.ndarray,
+        cls: np.ndarray,
+        allowed: np.ndarray,
         use_emissions: bool,
     ) -> tuple[np.ndarray, float]:
         m = self.t.n_states
@@ -134,10 +160,9 @@ class SparseBackend(GenericBackend):
         if not init_is_start:
             sparse_query.to_slots(np.asarray(init, dtype=np.float64), self.sp.perm, row, 0)
         work = work_buffer((2, m + 2))
-        maskf = self.mask_slots(mask)
-        lg = self.restricted_slots(
-            codes, start0, end0, row, init_is_start, maskf, use_emissions, work
-        )
+        allowedf = self.allowed_slots(allowed)
+        query = (codes, start0, end0, row, init_is_start, cls, allowedf, use_emissions)
+        lg = self.constrained_slots(*query, work)
         out = np.zeros(m)
         if lg > -np.inf:
             sparse_query.from_slots(work, 0, self.sp.perm, out)
@@ -149,13 +174,20 @@ class SparseBackend(GenericBackend):
         init, init_log = cur.forward(start0 - 1)
         return init, init_log, False
 
-    def segment_log_probability(
-        self, codes: np.ndarray, post: Posterior, start0: int, end0: int, mask: np.ndarray
+    def constrained_log_probability(
+        self,
+        codes: np.ndarray,
+        post: Posterior,
+        start0: int,
+        end0: int,
+        cls: np.ndarray,
+        allowed: np.ndarray,
     ) -> float:
         cur = self.cursor(codes, post)
         init, init_log, is_start = self._slot_before(cur, start0)
-        maskf = self.mask_slots(mask)
-        lg = self.restricted_slots(codes, start0, end0, init, is_start, maskf, True, cur.work)
+        allowedf = self.allowed_slots(allowed)
+        query = (codes, start0, end0, init, is_start, cls, allowedf, True)
+        lg = self.constrained_slots(*query, cur.work)
         if lg == -np.inf:
             return -np.inf
         beta, blog = cur.backward(end0 - 1)
@@ -163,6 +195,12 @@ class SparseBackend(GenericBackend):
         if ld == -np.inf:
             return -np.inf
         return min(0.0, ld + lg + init_log + blog - post.loglik)
+
+    def segment_log_probability(
+        self, codes: np.ndarray, post: Posterior, start0: int, end0: int, mask: np.ndarray
+    ) -> float:
+        cls, allowed = one_class(start0, end0, mask)
+        return self.constrained_log_probability(codes, post, start0, end0, cls, allowed)
 
     def segment_log_odds_terms(
         self, codes: np.ndarray, post: Posterior, start0: int, end0: int, mask: np.ndarray
