@@ -23,6 +23,7 @@ from __future__ import annotations
 import hashlib
 import json
 import math
+import os
 import shutil
 import time
 from collections.abc import Callable, Iterator
@@ -397,7 +398,12 @@ def run_case(case: Case, base: Path, work: Path) -> Outcome:
     args = _fill(args, d_in, d_out)
     protected = _protected(case.command, args, d_in)
     before = _digests(d_in)
-    res = CliRunner().invoke(main, args, catch_exceptions=True)
+    cwd = os.getcwd()
+    os.chdir(d_out)  # relative names (a damaged option value) land in the run's folder
+    try:
+        res = CliRunner().invoke(main, args, catch_exceptions=True)
+    finally:
+        os.chdir(cwd)
     out = Outcome(case, res.exit_code)
     text = (res.stdout or "") + (res.stderr or "")
     if res.exit_code not in ALLOWED_EXIT:
