@@ -415,3 +415,88 @@ def test_debug_after_the_command_is_a_usage_error(tmp_path, args):
 def test_debug_before_the_command_still_shows_the_traceback(tmp_path):
     result = CliRunner().invoke(main, ["--debug", "annotate", str(tmp_path / "x.fa"), "--bogus"])
     assert result.exception is not None and not isinstance(result.exception, SystemExit)
+
+
+# ---------------------------------------------------------------- TSV outputs
+
+HOSTILE = ["a\tb", "a\nb", "a\rb", "a\\b", "a\\tb", "\x00\x1f\x7f\x85", "x\u2028y\u2029", "%0A", ""]
+
+
+@pytest.mark.parametrize("text", HOSTILE)
+def test_tsv_cell_is_one_cell_and_reads_back(text):
+    from seqstate.io.tsvtext import tsv_cell, tsv_row, unescape_cell
+
+    cell = tsv_cell(text)
+    assert "\t" not in cell and len(cell.splitlines()) <= 1  # splitlines: every line break
+    assert unescape_cell(cell) == text
+    row = tsv_row([text, text, 3])
+    assert row.endswith("\n") and len(row.splitlines()) == 1 and row.count("\t") == 2
+
+
+def test_tsv_cell_keeps_ordinary_text():
+    from seqstate.io.tsvtext import tsv_cell
+
+    for text in ("chr1", "ctg_12.3", "gène", "a b", "g%2Cx", "/data/x y.gff3"):
+        assert tsv_cell(text) == text
+
+
+def _table(path: Path) -> list[list[str]]:
+    """The rows of a TSV, each row's number of cells checked against the header's."""
+    lines = path.read_text(encoding="utf-8").split("\n")
+    assert lines[-1] == ""
+    rows = [line.split("\t") for line in lines[:-1]]
+    assert all(len(r) == len(rows[0]) for r in rows), rows
+    return rows
+
+
+def test_compare_writes_hostile_ids_and_paths_as_one_cell(tmp_path):
+    """Gene IDs whose GFF3 text decodes to a newline, a tab, a CR or a backslash
+    (``%0A``, ``%09``, ``%0D``, ``%5C``; GFF3 1.26 column 9 escaping), and a predicted
+    file whose name holds a tab and a newline: the report and the gene list keep their
+    rows, and each cell reads back to the ID."""
+    from test_compare import GENE_PRED, GENE_REF
+
+    from seqstate.io.tsvtext import unescape_cell
+
+    pred = tmp_path / "pred\tx\ny.gff3"
+    ref = tmp_path / "ref.gff3"
+    pred.write_text(GENE_PRED.replace("P4", "P%0A4%09x"))
+    ref.write_text(GENE_REF.replace("=C", "=C%5C%0D"))
+    report, listing = tmp_path / "r.tsv", tmp_path / "genes.tsv"
+    code, _, err = run(["compare", pred, ref, "-o", report, "--gene-list", listing])
+    assert code == 0, err
+    genes = _table(listing)
+    assert len(genes) == 4  # header and the three genes that are not right
+    ids = {unescape_cell(r[3]) for r in genes[1:]}
+    assert ids == {"C\\\r", "P3", "P\n4\tx"}
+    metrics = _table(report)
+    assert metrics[0] == ["metric", "value"]
+    values = {r[0]: unescape_cell(r[1]) for r in metrics[1:]}
+    assert str(pred) in values.values()
+
+
+def test_annotate_and_score_tables_keep_their_rows(tmp_path):
+    """A record ID with a backslash (FASTA IDs hold no white space) and a region name
+    with a tab, a newline and a backslash (a GFF3 Name decoded from %09 / %0A)."""
+    from seqstate.io.tsvtext import unescape_cell
+
+    seq = "AT" * 150 + "CG" * 200 + "TA" * 150
+    fa = tmp_path / "x.fa"
+    fa.write_text(fasta_text([("r\\1", seq)]))
+    out = tmp_path / "out"
+    code, _, err = run(["annotate", fa, "-o", out, "-q", "--min-length", "50"])
+    assert code == 0, err
+    rows = _table(out / "x.features.tsv")
+    assert len(rows) >= 2 and {unescape_cell(r[0]) for r in rows[1:]} == {"r\\1"}
+    regions = tmp_path / "r.gff3"
+    regions.write_text(
+        "##gff-version 3\n"
+        "r\\1\tt\tregion\t301\t700\t.\t.\t.\tID=a;Name=x%09y%0Az\\w\n"
+        "r\\1\tt\tregion\t1\t200\t.\t.\t.\tID=b\n"
+    )
+    scores = tmp_path / "s.tsv"
+    code, _, err = run(["score", fa, "--regions", regions, "-o", scores, "-q"])
+    assert code == 0, err
+    rows = _table(scores)
+    assert len(rows) == 3
+    assert unescape_cell(rows[1][0]) == "r\\1" and "\n" not in rows[1][3]

@@ -33,6 +33,7 @@ from seqstate.io.atomic import OutputSet, check_outputs
 from seqstate.io.fasta import SequenceRecord, SkippedRecord, display_name, iter_sequences
 from seqstate.io.regions import Region, check_region, parse_region
 from seqstate.io.tables import load_model, model_sha256
+from seqstate.io.tsvtext import tsv_row
 from seqstate.kinds import Group, group_index, kind_of, track_groups
 from seqstate.log import Progress, QuietProgress
 from seqstate.model import Model, resolve_thresholds
@@ -675,7 +676,7 @@ def _write_set(
             tsv = outs.open_text(tsv_name)
         if opts.report is not None:
             tsv = cast(TextIO, _Tee(tsv))
-        tsv.write("\t".join(runner.kind.feature_columns(groups)) + "\n")
+        tsv.write(tsv_row(runner.kind.feature_columns(groups)))
         bedgraphs = []
         handles = []
         bigwig_paths = []

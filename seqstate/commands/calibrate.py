@@ -45,6 +45,7 @@ from seqstate.engine.sampling import sample_record
 from seqstate.errors import FeatureFormatError, UsageError
 from seqstate.io.atomic import OutputSet, check_outputs
 from seqstate.io.tables import load_model
+from seqstate.io.tsvtext import tsv_row
 from seqstate.kinds import Group, group_index, track_groups
 from seqstate.kinds.segments import decode_segments
 from seqstate.model import Model
@@ -402,7 +403,7 @@ def _cell(value: float | int | None, spec: str) -> str:
 
 def write_tsv(handle: io.TextIOBase | Any, report: CalibrateReport) -> None:
     """The TSV report: per table its bins (empty cells for an empty bin), then an ``all`` row."""
-    handle.write("\t".join(TSV_COLUMNS) + "\n")
+    handle.write(tsv_row(TSV_COLUMNS))
     for lab in report.labels:
         for name, rel in (("bases", lab.bases), ("features", lab.features)):
             for row in rel.rows():
@@ -417,7 +418,7 @@ def write_tsv(handle: io.TextIOBase | Any, report: CalibrateReport) -> None:
                     "",
                     "",
                 ]
-                handle.write("\t".join(cells) + "\n")
+                handle.write(tsv_row(cells))
             n = rel.n
             cells = [
                 lab.track,
@@ -430,7 +431,7 @@ def write_tsv(handle: io.TextIOBase | Any, report: CalibrateReport) -> None:
                 _cell(rel.ece(), ".6f"),
                 _cell(rel.brier(), ".6f"),
             ]
-            handle.write("\t".join(cells) + "\n")
+            handle.write(tsv_row(cells))
 
 
 def write_json(handle: io.TextIOBase | Any, report: CalibrateReport) -> None:

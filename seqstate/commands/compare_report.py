@@ -8,6 +8,7 @@ from pathlib import Path
 from seqstate.errors import UsageError
 from seqstate.io.atomic import OutputSet, atomic_text
 from seqstate.io.gff3 import escape_column9
+from seqstate.io.tsvtext import tsv_cell, tsv_row
 
 __all__ = [
     "LISTED",
@@ -74,7 +75,7 @@ def report_tsv(result: dict) -> str:
     row each, the gene IDs joined the same way (empty when there is none).  Ratios
     have 6 decimals; an undefined value is ``NA``.
     """
-    rows = ["metric\tvalue"]
+    rows = [tsv_row(["metric", "value"])]
     flat = dict(result)
     if "sequences" in flat:
         flat["sequences"] = ",".join(escape_column9(s["seqid"]) for s in result["sequences"])
@@ -82,8 +83,8 @@ def report_tsv(result: dict) -> str:
         if key in flat:  # the IDs, comma-joined (the places: gene_list_tsv)
             flat[key] = ",".join(escape_column9(g["id"]) for g in result[key])
     for key, value in _flatten("", flat):
-        rows.append(f"{key}\t{_value(value, 6)}")
-    return "\n".join(rows) + "\n"
+        rows.append(tsv_row([key, _value(value, 6)]))
+    return "".join(rows)
 
 
 def report_json(result: dict) -> str:
@@ -295,7 +296,8 @@ def _report_text(result: dict | list[dict], path: str | Path) -> str:
         if tsv:
             rows = ["type\tmetric\tvalue"]
             for one in result:
-                rows += [f"{one['type']}\t{row}" for row in report_tsv(one).splitlines()[1:]]
+                body = report_tsv(one).split("\n")[1:-1]  # cells escaped: no newline inside
+                rows += [f"{tsv_cell(one['type'])}\t{row}" for row in body]
             text = "\n".join(rows) + "\n"
         else:
             text = json.dumps(result, indent=2, ensure_ascii=False) + "\n"
@@ -313,7 +315,7 @@ def gene_list_tsv(results: dict | list[dict]) -> str:
     ``overlapped`` (``yes`` when some exon of it overlaps one of the other file).
     Missed genes first, each list sorted by seqid, start, end, ID.  Results without
     a gene level (types other than CDS and exon) give no rows."""
-    rows = ["\t".join(GENE_LIST_COLUMNS)]
+    rows = [tsv_row(GENE_LIST_COLUMNS)]
     for one in results if isinstance(results, list) else [results]:
         for key, status, file in (
             ("missed_genes", "missed", "reference"),
@@ -321,7 +323,7 @@ def gene_list_tsv(results: dict | list[dict]) -> str:
         ):
             for g in one.get(key, []):
                 rows.append(
-                    "\t".join(
+                    tsv_row(
                         [
                             one["type"],
                             status,
@@ -336,7 +338,7 @@ def gene_list_tsv(results: dict | list[dict]) -> str:
                         ]
                     )
                 )
-    return "\n".join(rows) + "\n"
+    return "".join(rows)
 
 
 def write_gene_list(

@@ -49,6 +49,7 @@ from seqstate.io.gff3 import Feature, GFF3Writer
 from seqstate.io.intervals import INTERVAL_FORMATS, read_interval_file
 from seqstate.io.regions import Region
 from seqstate.io.tables import load_model, model_sha256
+from seqstate.io.tsvtext import tsv_row
 from seqstate.kinds import Kind, kind_of
 from seqstate.kinds.segments import LOG2E, SCORE_FORMATS, format_value, score_segment
 from seqstate.model import Model
@@ -401,14 +402,14 @@ def table_text(rf: RegionFile, model: Model, label: str, scores: list[dict]) -> 
     start_col, end_col = COORDINATE_COLUMNS[rf.format]
     keys = score_columns(model, label)
     header = ["seqid", start_col, end_col, "name", "label", "scored_strand", *keys]
-    lines = ["\t".join(header)]
+    lines = [tsv_row(header)]
     for reg, sc in zip(rf.regions, scores):
         start = reg.start0 if rf.format == "bed" else reg.start0 + 1
         name = " ".join(reg.name.replace("\t", " ").split())
         row = [reg.seqid, str(start), str(reg.end0), name, label, sc["scored_strand"]]
         row += [format_value(sc[k], FORMATS[k]) for k in keys]
-        lines.append("\t".join(row))
-    return "\n".join(lines) + "\n"
+        lines.append(tsv_row(row))
+    return "".join(lines)
 
 
 def write_scored_gff3(

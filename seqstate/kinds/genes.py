@@ -17,6 +17,7 @@ import numpy as np
 
 from seqstate.engine import api, mea, stream_paths
 from seqstate.io.gff3 import Feature, GFF3Writer
+from seqstate.io.tsvtext import tsv_row
 from seqstate.kinds.base import SOURCE, Group, Kind, RecordData
 from seqstate.kinds.segments import (
     SCORE_FORMATS,
@@ -645,7 +646,7 @@ def write_gene(
         )
         if tsv is not None:
             tsv.write(
-                "\t".join(
+                tsv_row(
                     [
                         seqid,
                         str(a + offset0 + 1),
@@ -661,7 +662,6 @@ def write_gene(
                         str(b - a),
                     ]
                 )
-                + "\n"
             )
         count += 1
     return count

@@ -16,8 +16,8 @@ from typing import Any, TextIO
 import numpy as np
 
 from seqstate.engine import api, stream_paths
-from seqstate.io import tracks
 from seqstate.io.gff3 import Feature, GFF3Writer
+from seqstate.io.tsvtext import tsv_row
 from seqstate.kinds.base import SOURCE, Group, Kind, RecordData, group_index, track_groups
 from seqstate.kinds.stream import RecordPass, StreamRecord, TrackSink, Window, unknown_count
 from seqstate.model import Model
@@ -401,17 +401,17 @@ def write_segment(
     feat = feature_of(seqid, offset0, groups[seg.group], seg, counters[seg.group], id_stem)
     gff.write(feat)
     row = [
-        tracks.escape_text(seqid),
+        seqid,
         str(feat.start0 + 1),
         str(feat.end0),
         feat.strand,
         feat.type,
-        tracks.escape_text(feat.get("ID") or ""),
+        feat.get("ID") or "",
     ]
     row += [
         format_value(seg.scores[c], SCORE_FORMATS[c]) if c in seg.scores else "" for c in score_cols
     ]
-    tsv.write("\t".join(row) + "\n")
+    tsv.write(tsv_row(row))
 
 
 def _order(seg: Segment) -> tuple[int, int, int]:
