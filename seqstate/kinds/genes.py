@@ -9,6 +9,7 @@ files, 0-based half-open inside.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass
 from typing import Any, TextIO
@@ -449,8 +450,108 @@ GENE_COLUMNS = [
     "mean_posterior",
     "min_posterior",
     "segment_probability",
+    "exon_probability",
+    "structure_probability",
     "length",
 ]
+
+
+#: Classes of the exact-feature queries (rows of :func:`exact_allowed`): a base outside
+#: the strand's CDS states; a CDS base at codon position 0, 1, 2 (in the transcript's own
+#: orientation); a base outside the strand's gene states (CDS and intron); an intron base.
+NOT_CDS, FRAME0, NOT_GENE, INTRON = 0, 1, 4, 5
+
+
+def exact_allowed(model: Model) -> dict[str, np.ndarray]:
+    """Per strand, the allowed sets (6 x states, booleans) of the exact-feature queries,
+    one row per class (:data:`NOT_CDS`, :data:`FRAME0` + codon position,
+    :data:`NOT_GENE`, :data:`INTRON`).  A CDS state without a codon position
+    (:func:`codon_positions` -1) is in all three frame rows."""
+    frame = codon_positions(model)
+    out = {}
+    for strand in "+-":
+        allowed = np.zeros((6, model.n_states), dtype=np.bool_)
+        for i, st in enumerate(model.states):
+            mine = st.strand == strand
+            cds = mine and st.label == "CDS"
+            allowed[NOT_CDS, i] = not cds
+            allowed[NOT_GENE, i] = not (mine and st.label in ("CDS", "intron"))
+            allowed[INTRON, i] = mine and st.label == "intron"
+            if cds:
+                for f in range(3) if frame[i] < 0 else (int(frame[i]),):
+                    allowed[FRAME0 + f, i] = True
+        out[strand] = allowed
+    return out
+
+
+def _frame_classes(cls: np.ndarray, lo: int, a: int, b: int, strand: str, phase: int) -> None:
+    # codon positions of the CDS piece [a, b) whose 5' base has GFF3 phase ``phase``
+    first = (3 - phase) % 3
+    steps = np.arange(b - a) if strand == "+" else np.arange(b - a)[::-1]
+    cls[a - lo : b - lo] = FRAME0 + (first + steps) % 3
+
+
+def exon_query(n: int, strand: str, a: int, b: int, phase: int) -> tuple[int, int, np.ndarray]:
+    """``(lo, hi, cls)`` of the query "an exon with exactly the bounds ``[a, b)`` and this
+    frame": every base a CDS state of the strand at the codon position that the GFF3
+    ``phase`` of the piece's 5' base gives, and the bases just outside (``a - 1`` and
+    ``b``, where inside the stretch ``[0, n)``) not CDS states of the strand.  0-based,
+    half-open; ``cls`` holds one class of :func:`exact_allowed` per position of
+    ``[lo, hi)``."""
+    lo, hi = max(0, a - 1), min(n, b + 1)
+    cls = np.full(hi - lo, NOT_CDS, dtype=np.int64)
+    _frame_classes(cls, lo, a, b, strand, phase)
+    return lo, hi, cls
+
+
+def structure_query(n: int, gene: GenePrediction) -> tuple[int, int, np.ndarray]:
+    """``(lo, hi, cls)`` of the query "a gene with exactly this structure": each CDS
+    piece in its frame (:func:`exon_query`), every base between two pieces an intron
+    state of the strand, and the bases just outside the gene's span not gene states of
+    the strand (where inside ``[0, n)``)."""
+    g0, g1 = gene.span
+    lo, hi = max(0, g0 - 1), min(n, g1 + 1)
+    cls = np.full(hi - lo, NOT_GENE, dtype=np.int64)
+    cls[g0 - lo : g1 - lo] = INTRON
+    for (a, b), phase in zip(gene.pieces, cds_phases(gene)):
+        _frame_classes(cls, lo, a, b, gene.strand, phase)
+    return lo, hi, cls
+
+
+#: ``exact(line, gene)``: the exact probability of one line's feature (the exon or CDS
+#: with its bounds and frame, the mRNA's whole structure), or None (other lines, unscored).
+ExactScore = Callable[[GeneLine, GenePrediction], float | None]
+
+
+def exact_scorer(
+    tables: api.EngineTables,
+    codes: np.ndarray,
+    post: api.Posterior,
+    allowed: dict[str, np.ndarray],
+    n: int,
+    origin0: int = 0,
+) -> ExactScore:
+    """The :data:`ExactScore` of genes on ``codes`` and ``post`` (a whole stretch of ``n``
+    bases, or a window's view whose local 0 is stretch position ``origin0``)."""
+
+    def exact(ln: GeneLine, gene: GenePrediction) -> float | None:
+        if ln.type == "mRNA":
+            lo, hi, cls = structure_query(n, gene)
+        elif ln.type in ("exon", "CDS") and ln.piece is not None:
+            phase = cds_phases(gene)[ln.piece]
+            lo, hi, cls = exon_query(n, gene.strand, ln.start0, ln.end0, phase)
+        else:
+            return None
+        lp = api.constrained_log_probability(
+            tables, codes, post, lo - origin0, hi - origin0, cls, allowed[gene.strand]
+        )
+        return math.exp(lp) if lp > -math.inf else 0.0
+
+    return exact
+
+
+#: Number format of ``exon_probability`` and ``structure_probability``.
+EXACT_FORMAT = ".4g"
 
 
 def write_genes(
@@ -486,8 +587,12 @@ def write_genes(
     gene and mRNA lines.  Scores (when ``post`` is given): the posterior of the
     strand's gene states (CDS and intron) on gene and mRNA, of the strand's CDS
     states on exon and CDS, and the exact probability that every base of the
-    feature is in those states; without ``post`` (a sampled truth) the score
-    column is ``.`` and only ``length`` is written.  ``tsv`` may be None.
+    feature is in those states (``segment_probability``); on exon and CDS the exact
+    probability of an exon with exactly these bounds and this frame
+    (``exon_probability``, :func:`exon_query`), on mRNA that of the whole structure
+    (``structure_probability``, :func:`structure_query`).  Without ``post`` (a
+    sampled truth) the score column is ``.`` and only ``length`` is written.  ``tsv``
+    may be None.
     """
     masks = gene_masks(model)
     values = {}
@@ -513,13 +618,18 @@ def write_genes(
             log_odds=False,
         )
 
+    exact = None
+    if post is not None and tables is not None and codes is not None:
+        exact = exact_scorer(tables, codes, post, exact_allowed(model), codes.shape[0])
     count = 0
     tally = _Tally(gene_filter, counts, written)
     for gp in predictions:
         scored = _memo(score_line)
         number = tally.keep(gp, scored)
         if number:
-            count += write_gene(gff, tsv, gp, number, seqid, offset0, scored, id_stem=id_stem)
+            count += write_gene(
+                gff, tsv, gp, number, seqid, offset0, scored, id_stem=id_stem, exact=exact
+            )
     return count
 
 
@@ -609,11 +719,13 @@ def write_gene(
     score_line: Callable[[GeneLine, str, int], dict | None],
     *,
     id_stem: str | None = None,
+    exact: ExactScore | None = None,
 ) -> int:
     """Write one gene's lines (see :func:`write_genes`); the count written.
 
     ``score_line(line, strand, k)`` gives the scores of one line (``k`` 0: scored on
-    the strand's gene states, 1: on its CDS states), or None for an unscored line.
+    the strand's gene states, 1: on its CDS states), or None for an unscored line;
+    ``exact`` the exon and structure probabilities of scored lines (None: none).
     IDs start with ``id_stem`` (default ``seqid``).
     """
     strand = gp.strand
@@ -624,9 +736,13 @@ def write_gene(
         attrs: list[tuple[str, str | list[str]]] = [("ID", ln.id)]
         if ln.parent:
             attrs.append(("Parent", ln.parent))
+        px = None if sc is None or exact is None else exact(ln, gp)
+        key_x = "structure_probability" if ln.type == "mRNA" else "exon_probability"
         if sc is not None:
             for key in ("mean_posterior", "min_posterior", "segment_probability"):
                 attrs.append((key, format_value(sc[key], SCORE_FORMATS[key])))
+            if px is not None:
+                attrs.append((key_x, format_value(px, EXACT_FORMAT)))
         attrs.append(("length", str(b - a)))
         if gp.partial and ln.type in ("gene", "mRNA"):
             attrs.append(("partial", "true"))
@@ -659,6 +775,12 @@ def write_gene(
                         format_value(sc["mean_posterior"], ".4f") if sc else "",
                         format_value(sc["min_posterior"], ".4f") if sc else "",
                         format_value(sc["segment_probability"], ".4g") if sc else "",
+                        format_value(px, EXACT_FORMAT)
+                        if px is not None and ln.type != "mRNA"
+                        else "",
+                        format_value(px, EXACT_FORMAT)
+                        if px is not None and ln.type == "mRNA"
+                        else "",
                         str(b - a),
                     ]
                 )
@@ -803,6 +925,7 @@ class _GeneStream:
         written: list[GenePrediction] = []
         tally = _Tally(rec.gene_filter, rec.counts, written)
         masks = gene_masks(rec.model)
+        allowed = exact_allowed(rec.model)
         cols = {strand: strand_columns(rec.groups, strand) for strand in "+-"}
         n_groups = len(rec.groups)
         count = unknown = 0
@@ -813,7 +936,11 @@ class _GeneStream:
                 track_sink(g, rec.offset0 + win.values0, win.values[:, g])
             while nxt < len(genes) and genes[nxt].span[1] <= win.end0:
                 g0, g1 = genes[nxt].span
-                w = win if win.holds(g0, g1) else rp.span(g0, g1, rec.state_group, n_groups)
+                # the exact queries read one base beyond each end of the gene
+                lo, hi = max(0, g0 - 1), min(rec.n, g1 + 1)
+                inside = win.holds(g0, g1) and hi <= win.end0
+                inside = inside and (lo > win.origin0 or win.origin0 == 0)
+                w = win if inside else rp.span(lo, hi, rec.state_group, n_groups)
 
                 def score_line(ln: GeneLine, strand: str, k: int, w: Window = w) -> dict:
                     gene_cols, cds_col = cols[strand]
@@ -837,6 +964,7 @@ class _GeneStream:
                 scored = _memo(score_line)
                 number = tally.keep(genes[nxt - 1], scored)
                 if number:
+                    exact = exact_scorer(rec.tables, w.codes, w.view, allowed, rec.n, w.origin0)
                     count += write_gene(
                         self.gff,
                         self.tsv,
@@ -846,6 +974,7 @@ class _GeneStream:
                         rec.offset0,
                         scored,
                         id_stem=rec.id_stem,
+                        exact=exact,
                     )
         if rec.on_genes is not None:
             rec.on_genes(written)
