@@ -31,6 +31,13 @@ from seqstate.engine.kernels import (
 RESTRICTED_MASKED_MIN = 32
 
 
+def one_class(start0: int, end0: int, mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``(cls, allowed)`` of a segment whose every base is in ``mask``: class 0 at each
+    of its positions, ``mask`` the one allowed set."""
+    cls = np.zeros(max(0, end0 - start0), dtype=np.int64)
+    return cls, np.asarray(mask, dtype=np.bool_).reshape(1, -1)
+
+
 def restricted_scratch(m: int, nnz: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Work arrays ``(ms, fsrc, fp)`` of :func:`restricted_forward` (``nnz`` allowed moves);
     empty below :data:`RESTRICTED_MASKED_MIN` states, where they are not used."""
@@ -341,9 +348,7 @@ def restricted_forward(
     """Forward over positions s0..e0-1 through the states with ``mask[s]`` only: the
     one-class case of :func:`constrained_forward` (same arguments otherwise; work
     arrays as :func:`restricted_scratch` gives them)."""
-    cls = np.zeros(max(0, e0 - s0), dtype=np.int64)
-    allowed = np.asarray(mask, dtype=np.bool_).reshape(1, -1)
-    query = (codes, s0, e0, init, init_is_start, cls, allowed, use_emissions, E)
+    query = (codes, s0, e0, init, init_is_start, *one_class(s0, e0, mask), use_emissions, E)
     moves = (nz_ptr, nz_state, pred_ptr, pred_src, pred_p)
     return constrained_forward(*query, *moves, out, ms, fsrc, fp)
 
@@ -423,7 +428,5 @@ def _restricted_plain(
     out: np.ndarray,
 ) -> float:
     """The small-model loop of :func:`restricted_forward` whatever the model's size."""
-    cls = np.zeros(max(0, e0 - s0), dtype=np.int64)
-    allowed = np.asarray(mask, dtype=np.bool_).reshape(1, -1)
-    query = (codes, s0, e0, init, init_is_start, cls, allowed, use_emissions, E)
+    query = (codes, s0, e0, init, init_is_start, *one_class(s0, e0, mask), use_emissions, E)
     return float(_constrained_plain(*query, nz_ptr, nz_state, pred_ptr, pred_src, pred_p, out))

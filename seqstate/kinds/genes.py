@@ -730,13 +730,23 @@ def write_gene(
     """
     strand = gp.strand
     count = 0
+    seen: dict[tuple[bool, int, int], float | None] = {}
     for ln in gene_lines(gp, seqid if id_stem is None else id_stem, number):
         a, b = ln.start0, ln.end0
+        # the exact query first: it reads the forward vector one base before the line's
+        # own segment query, so the queries' vector positions keep increasing
+        px = None
+        if exact is not None and ln.type != "gene":
+            which = (ln.type == "mRNA", a, b)  # exon and CDS lines share one query
+            if which not in seen:
+                seen[which] = exact(ln, gp)
+            px = seen[which]
         sc = score_line(ln, strand, 0 if ln.type in ("gene", "mRNA") else 1)
         attrs: list[tuple[str, str | list[str]]] = [("ID", ln.id)]
         if ln.parent:
             attrs.append(("Parent", ln.parent))
-        px = None if sc is None or exact is None else exact(ln, gp)
+        if sc is None:
+            px = None
         key_x = "structure_probability" if ln.type == "mRNA" else "exon_probability"
         if sc is not None:
             for key in ("mean_posterior", "min_posterior", "segment_probability"):

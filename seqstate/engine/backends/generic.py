@@ -10,6 +10,7 @@ import numpy as np
 from seqstate.engine import kernels, kernels_query
 from seqstate.engine._common import default_block, rescale_limit, smallest_factor
 from seqstate.engine.buffers import work_buffer
+from seqstate.engine.kernels_query import one_class
 
 if TYPE_CHECKING:
     from seqstate.engine.api import Posterior
@@ -20,13 +21,6 @@ Array = np.ndarray
 Checkpoints = tuple[Array, Array, Array, Array]
 #: Emission factors, the states that emit each code, and the moves into (or out of) a state.
 Moves = tuple[Array, Array, Array, Array, Array, Array]
-
-
-def one_class(start0: int, end0: int, mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """``(cls, allowed)`` of a segment whose every base is in ``mask``: class 0 at each
-    of its positions, ``mask`` the one allowed set."""
-    cls = np.zeros(max(0, end0 - start0), dtype=np.int64)
-    return cls, np.asarray(mask, dtype=np.bool_).reshape(1, -1)
 
 
 class GenericBackend:

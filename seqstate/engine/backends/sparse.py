@@ -9,8 +9,9 @@ import numpy as np
 
 from seqstate.engine import sparse, sparse_query
 from seqstate.engine._common import LN2
-from seqstate.engine.backends.generic import Array, Checkpoints, GenericBackend, one_class
+from seqstate.engine.backends.generic import Array, Checkpoints, GenericBackend
 from seqstate.engine.buffers import work_buffer
+from seqstate.engine.kernels_query import one_class
 
 if TYPE_CHECKING:
     from seqstate.engine.api import Posterior
@@ -139,7 +140,7 @@ class SparseBackend(GenericBackend):
         work: np.ndarray,
     ) -> float:
         """:meth:`constrained_slots` with one allowed set, ``maskf`` (M + 2 factors)."""
-        cls = np.zeros(max(0, end0 - start0), dtype=np.int64)
+        cls, _ = one_class(start0, end0, maskf)
         allowedf = np.asarray(maskf, dtype=np.float64).reshape(1, -1)
         query = (codes, start0, end0, init, init_is_start, cls, allowedf, use_emissions)
         return self.constrained_slots(*query, work)
