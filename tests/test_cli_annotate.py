@@ -872,6 +872,7 @@ def test_model_list_names_the_builtin_models():
         "cpg-island",
         "cpg-island-8",
         "gene-segment",
+        "gene-segment-athaliana",
         "gene-segment-layout",
     ]
 
