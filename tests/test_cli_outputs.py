@@ -260,9 +260,10 @@ def test_ids_with_control_characters_are_escaped_in_tsv_and_bedgraph(tmp_path):
     )
     rows = (out / "c.features.tsv").read_text().splitlines()[1:]
     bedgraph = (out / "c.CpG_island.bedgraph").read_text().splitlines()[1:]
-    # GFF3 1.26 percent-encodes control characters as %XX (uppercase hex): the same here
-    assert rows and all(r.split("\t")[0] == "a%01b" for r in rows)
-    assert rows[0].split("\t")[5] == "a%01b.CpG_island.1"
+    # TSV cells follow the project's one escaping rule (README "Outputs"): \xNN
+    assert rows and all(r.split("\t")[0] == "a\\x01b" for r in rows)
+    assert rows[0].split("\t")[5] == "a\\x01b.CpG_island.1"
+    # tracks: GFF3 1.26 percent-encodes control characters as %XX (uppercase hex): the same
     assert bedgraph and all(line.split("\t")[0] == "a%01b" for line in bedgraph)
     assert all(len(r.split("\t")) == len(rows[0].split("\t")) for r in rows)
 
