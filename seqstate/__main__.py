@@ -1,5 +1,5 @@
 """``python -m seqstate``: the same command line as the ``seqstate`` script."""
 
-from seqstate.cli import main
+from seqstate.launch import main
 
 main()

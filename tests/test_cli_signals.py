@@ -78,3 +78,87 @@ def test_an_interrupt_raised_inside_a_callback_from_c_is_not_reported_twice(monk
         hook(other)
     assert seen == [other]  # only the other one reaches the previous hook
     assert sys.unraisablehook == seen.append  # restored on leaving
+
+
+# ---------------------------------------------------------------- the whole process
+def _caught_signals(pid: int) -> int:
+    """The process's caught-signal mask (Linux /proc/PID/status SigCgt), 0 if gone."""
+    try:
+        with open(f"/proc/{pid}/status") as status:
+            for line in status:
+                if line.startswith("SigCgt:"):
+                    return int(line.split()[1], 16)
+    except OSError:
+        pass
+    return 0
+
+
+@pytest.mark.skipif(not __import__("os").path.exists("/proc/self/status"), reason="Linux /proc")
+@pytest.mark.parametrize("signum", [signal.SIGTERM, signal.SIGINT, signal.SIGHUP])
+def test_a_stop_signal_while_the_program_starts_is_an_interrupt(tmp_path, signum):
+    # the handler is installed before NumPy, numba and click are imported: a signal sent
+    # as soon as it is caught lands while the program is still starting
+    import subprocess
+    import sys
+    import time
+
+    (tmp_path / "in.fa").write_text(">r\nACGT\n")
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "seqstate", "annotate", "in.fa", "-o", "out"],
+        cwd=tmp_path,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
+    deadline = time.monotonic() + 30
+    # SIGHUP is the last the program takes (Python itself catches SIGINT from the start)
+    while not _caught_signals(proc.pid) & (1 << (signal.SIGHUP - 1)):
+        assert proc.poll() is None and time.monotonic() < deadline
+        time.sleep(0.001)
+    proc.send_signal(signum)
+    out, err = proc.communicate(timeout=60)
+    assert proc.returncode == 130, err
+    assert err.splitlines() == ["error: interrupted"]
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["in.fa"]
+
+
+def test_a_stop_signal_after_the_command_returned_is_an_interrupt():
+    # the command's own handlers are put away when it returns; the program's stays until
+    # exit, so a signal then still gives the one line and exit 130 (not death by signal)
+    import subprocess
+    import sys
+
+    code = (
+        "import os, signal, sys\n"
+        "from seqstate import launch\n"
+        "def command():\n"
+        "    print('done', flush=True)\n"
+        "    os.kill(os.getpid(), signal.SIGTERM)\n"
+        "    sys.exit(0)\n"
+        "launch.run(command)\n"
+    )
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60)
+    assert proc.returncode == 130
+    assert proc.stdout == "done\n"
+    assert proc.stderr.splitlines() == ["error: interrupted"]
+
+
+def test_the_program_passes_the_command_exit_code_through():
+    import subprocess
+    import sys
+
+    code = "import sys\nfrom seqstate import launch\nlaunch.run(lambda: sys.exit(3))\n"
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60)
+    assert (proc.returncode, proc.stderr) == (3, "")
+
+
+def test_the_launcher_imports_only_the_standard_library():
+    import subprocess
+    import sys
+
+    code = (
+        "import sys\nimport seqstate.launch\n"
+        "print(sorted(m for m in sys.modules if m.split('.')[0] in ('numpy', 'numba', 'click')))\n"
+    )
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60)
+    assert proc.stdout.strip() == "[]"
