@@ -665,6 +665,8 @@ def _write_set(
     out_dir = None if to_stdout else opts.out_dir  # nothing is staged with -o -
     with OutputSet(out_dir, force=opts.force, inputs=[opts.input]) as outs:
         scratch = None if to_stdout else outs.scratch_dir()
+        if not to_stdout:  # with --force, the earlier run's whole set is replaced
+            outs.replaces_set_of(f"{stem}.run.json")
         gff_name = f"{stem}.gff3"
         tsv_name = f"{stem}.features.tsv"
         names = [gff_name, tsv_name]

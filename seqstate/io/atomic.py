@@ -28,7 +28,12 @@ folder until the end.  Guarantee:
   also deletes ``.NAME.tmp-PID`` files that older versions left.  A run whose
   process id is still alive is never touched.
 
-Files of the folder that a run does not write are never touched.
+Files of the folder that a run does not write are never touched, with one exception:
+a set told the name of its run report (:meth:`OutputSet.replaces_set_of`) and run with
+``force`` replaces the whole earlier set that report owns.  The files the earlier report
+lists that this set does not write are removed in the same commit (and put back if it
+fails), but only those still holding the bytes that report recorded (``output_sha256``):
+a file changed since, or listed without a checksum, is kept.
 """
 
 from __future__ import annotations
@@ -65,6 +70,22 @@ __all__ = [
 STAGE_PREFIX = ".seqstate-stage-"
 JOURNAL = "COMMIT"
 _BACKUP = ".old-"
+#: Largest earlier run report read to find the set it owns (its files are listed there).
+MAX_REPORT_BYTES = 64 * 1024 * 1024
+#: A file name a run report may list as its own output: no folder part, not hidden.
+_PLAIN_NAME = re.compile(r"[^/\\\x00.][^/\\\x00]*")
+
+
+def _sha256(path: Path) -> str:
+    import hashlib
+
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        while block := fh.read(1 << 20):
+            digest.update(block)
+    return digest.hexdigest()
+
+
 _STAGE_RE = re.compile(r"^\.seqstate-stage-([0-9]+)$")
 _OLD_TEMP_RE = re.compile(r"^\..+\.tmp-([0-9]+)$")
 _HELD = tuple(getattr(signal, n) for n in ("SIGINT", "SIGTERM", "SIGHUP") if hasattr(signal, n))
@@ -345,6 +366,7 @@ class OutputSet:
         self._stages: dict[Path, Path] = {}  # folder -> its staging folder
         self._handles: list[TextIO] = []
         self._entered = False
+        self._report: str | None = None  # this set's run report (see replaces_set_of)
 
     # ------------------------------------------------------------ helpers
 
@@ -455,6 +477,57 @@ class OutputSet:
             raise self._fail(self._reason(exc)) from None
         return scratch
 
+    def replaces_set_of(self, report_name: str) -> None:
+        """With ``force``, this set replaces the whole earlier set of its run report.
+
+        ``report_name`` is a plain file name in ``out_dir``: the run report this set
+        writes, a JSON object whose ``outputs`` lists the set's file names and whose
+        ``output_sha256`` maps them to their checksums.  If such a report from an
+        earlier run is there at the commit, the files it lists that this set does not
+        write, and that still hold the bytes it recorded, are removed with the commit.
+        Two runs into one folder take turns for the commit, so the later one sees the
+        earlier one's report.
+        """
+        if self.out_dir is None or "/" in report_name or os.sep in report_name:
+            raise ValueError("replaces_set_of needs an output folder and a plain file name")
+        self._report = report_name
+
+    def _stale_outputs(self) -> list[Path]:
+        """The files of the earlier set (see :meth:`replaces_set_of`) this set drops."""
+        if not self.force or self._report is None or self.out_dir is None:
+            return []
+        try:
+            with open(self.out_dir / self._report, "rb") as fh:
+                data = fh.read(MAX_REPORT_BYTES + 1)
+            if len(data) > MAX_REPORT_BYTES:
+                return []
+            doc = json.loads(data)
+        except (OSError, ValueError, RecursionError):
+            return []
+        if not isinstance(doc, dict):
+            return []
+        listed, sums = doc.get("outputs"), doc.get("output_sha256")
+        if not isinstance(listed, list) or not isinstance(sums, dict):
+            return []
+        keep = {Path(os.path.abspath(final)) for final in self._temps}
+        stale: list[Path] = []
+        for name in listed:
+            if not isinstance(name, str) or not _PLAIN_NAME.fullmatch(name):
+                continue
+            path = self.out_dir / name
+            key = Path(os.path.abspath(path))
+            if key in keep or name == self._report or not isinstance(sums.get(name), str):
+                continue
+            if any(same_file(path, inp) for inp in self.inputs):
+                continue
+            try:
+                if path.is_symlink() or not path.is_file() or _sha256(path) != sums[name]:
+                    continue
+            except OSError:
+                continue
+            stale.append(path)
+        return stale
+
     def __enter__(self) -> OutputSet:
         if self.out_dir is not None:
             self._make_folder(self.out_dir)
@@ -521,6 +594,12 @@ class OutputSet:
                         journal = stage / f".{JOURNAL}.part"
                         journal.write_text(json.dumps(names), encoding="utf-8")
                         os.replace(journal, stage / JOURNAL)
+                    for stale in self._stale_outputs():
+                        folder_stage = self._stages[Path(os.path.abspath(stale.parent))]
+                        kept = folder_stage / f"{_BACKUP}{stale.name}"
+                        os.link(stale, kept, follow_symlinks=False)
+                        stale.unlink()
+                        done.append((stale, kept))
                     for final, temp in self._temps.items():
                         backup = None
                         if final.exists() and not final.is_dir():
