@@ -96,8 +96,19 @@ def _debug_before_command(args: Sequence[str]) -> bool:
     return False
 
 
+class _ReadEnded(Exception):
+    """An EOFError out of a command: a compressed input that ended early.  (click would
+    turn it into Abort, the same as Ctrl-C, after printing an empty line.)"""
+
+
 class _Group(click.Group):
     """A click group whose usage errors are one ``error:`` line, like our own errors."""
+
+    def invoke(self, ctx: click.Context) -> Any:
+        try:
+            return super().invoke(ctx)
+        except EOFError as exc:
+            raise _ReadEnded() from exc
 
     def main(  # type: ignore[override]
         self, args: Sequence[str] | None = None, prog_name: str | None = None, **kwargs: Any
@@ -124,6 +135,12 @@ class _Group(click.Group):
             return value
         except click.exceptions.Exit as exc:
             sys.exit(exc.exit_code)
+        except _ReadEnded as exc:
+            if debug:
+                raise
+            reason = str(exc.__cause__) or "input ended early"
+            click.echo(f"error: input cannot be read (truncated file?): {reason}", err=True)
+            sys.exit(1)
         except click.exceptions.Abort:
             click.echo("error: interrupted", err=True)
             sys.exit(EXIT_INTERRUPTED)
@@ -759,12 +776,14 @@ def compare_cmd(
 ) -> None:
     """Accuracy of PREDICTED features against REFERENCE features (GFF3 or GTF)."""
     from seqstate.commands.compare import compare_files, report_format, report_table, write_report
+    from seqstate.commands.inputs import read_set
     from seqstate.io.atomic import check_outputs
 
     if out is not None:
         report_format(out)
+    reads = read_set(files=[predicted, reference])
     if out is not None or gene_list is not None:
-        check_outputs([out, gene_list], [predicted, reference], force=force)
+        check_outputs([out, gene_list], reads, force=force)
     results = [
         compare_files(
             predicted, reference, feature_type=t, region=region, all_sequences=all_sequences
@@ -777,7 +796,7 @@ def compare_cmd(
         results[0] if len(results) == 1 else results,
         out,
         force=force,
-        inputs=[predicted, reference],
+        inputs=reads,
         gene_list=gene_list,
     )
     if not quiet:

@@ -11,14 +11,13 @@ from __future__ import annotations
 import datetime as dt
 import os
 import shutil
-import struct
 import subprocess
 import sys
-import tomllib
 from pathlib import Path
 
 import numpy as np
 import pytest
+import tomllib
 from Bio import bgzf
 from click.testing import CliRunner
 
@@ -102,7 +101,7 @@ def test_defaults_that_is_not_a_table(tmp_path, value):
 DATES = (
     "when = 1979-05-27T07:32:00Z\n"
     "local = 1979-05-27T07:32:00.25\n"
-    "moments = [{at = 2020-01-02, note = \"a\\tb\"}]\n"
+    'moments = [{at = 2020-01-02, note = "a\\tb"}]\n'
     '"odd key" = 3\n'
 )
 
@@ -144,7 +143,7 @@ def test_fit_writes_a_model_whose_start_model_holds_dates(tmp_path):
     shutil.copytree(FIT_DATA / "two-labels", start)
     text = (start / "model.toml").read_text(encoding="utf-8")
     (start / "model.toml").write_text(
-        text.replace('order = 0\n', 'order = 0\nmade = 2021-03-04\n', 1)
+        text.replace("order = 0\n", "order = 0\nmade = 2021-03-04\n", 1)
         + "\n[provenance]\nat = 2021-03-04T05:06:07Z\n",
         encoding="utf-8",
     )
@@ -500,3 +499,41 @@ def test_annotate_and_score_tables_keep_their_rows(tmp_path):
     rows = _table(scores)
     assert len(rows) == 3
     assert unescape_cell(rows[1][0]) == "r\\1" and "\n" not in rows[1][3]
+
+
+# ---------------------------------------------------------------- a gzip FASTA cut short
+def test_truncated_gzip_fasta_with_report_and_truth_is_an_error_line_not_an_interrupt(tmp_path):
+    # the truth check lists the FASTA's records first; a gzip stream that ends early
+    # (EOFError, which click would turn into "Abort") is a read error naming the file
+    import gzip
+
+    body = b"".join(b">r%d\n" % i + b"ACGTACGCGCGTTA" * 400 + b"\n" for i in range(4))
+    packed = gzip.compress(body, mtime=0)
+    fasta = tmp_path / "x.fa.gz"
+    fasta.write_bytes(packed[: len(packed) * 2 // 3])
+    truth = tmp_path / "t.gff3"
+    truth.write_text("##gff-version 3\nr0\tt\tCpG_island\t10\t200\t.\t.\t.\tID=a\n")
+    out = tmp_path / "o"
+    line = one_error(
+        ["annotate", fasta, "-o", out, "--report", "r.html", "--truth", truth],
+        1,
+        "x.fa.gz",
+        "truncated",
+        absent=(out,),
+    )
+    assert "interrupted" not in line
+
+
+def test_an_eof_error_from_a_command_is_an_error_line_not_an_interrupt(monkeypatch):
+    import seqstate.commands.annotate
+
+    def body(opts, **kwargs):
+        raise EOFError("Compressed file ended before the end-of-stream marker was reached")
+
+    monkeypatch.setattr(seqstate.commands.annotate, "annotate", body)
+    code, out, err = run(["annotate", "in.fa", "-o", "out"])
+    assert code == 1
+    assert err == [
+        "error: input cannot be read (truncated file?): Compressed file ended before the "
+        "end-of-stream marker was reached"
+    ]

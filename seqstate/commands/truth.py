@@ -194,11 +194,11 @@ def fasta_ids(path: str, lengths: dict[str, int] | None) -> list[str] | None:
     if path == "-":
         return None
     from seqstate.errors import SequenceFormatError
-    from seqstate.io.files import open_input
+    from seqstate.io.files import display_name, iter_lines, open_input
 
     ids: list[str] = []
     with open_input(path, SequenceFormatError, "FASTA") as handle:
-        for line in handle:
+        for _, line in iter_lines(handle, display_name(path), SequenceFormatError):
             if line.startswith(b">"):
                 words = line[1:].split(None, 1)
                 if words:
