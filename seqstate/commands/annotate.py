@@ -22,7 +22,7 @@ from typing import Any, TextIO, cast
 from seqstate import __version__, log
 from seqstate.commands import annotate_run
 from seqstate.commands.annotate_run import Item, OutputWriter, Runner
-from seqstate.commands.inputs import alphabet_check_of
+from seqstate.commands.inputs import alphabet_check_of, read_set
 from seqstate.commands.provenance import gff3_provenance
 from seqstate.commands.records import select_records
 from seqstate.commands.runreport import output_checksums
@@ -365,7 +365,10 @@ def annotate(
     if not to_stdout:
         names = output_names(stem, groups, want_bedgraph, want_bigwig)
         names += [n for n in (opts.cds, opts.proteins, opts.report) if n is not None]
-        check_outputs([Path(opts.out_dir) / n for n in names], [opts.input], force=opts.force)
+        reads = read_set(
+            fasta=opts.input, model=opts.model, files=[opts.truth], records=opts.records
+        )
+        check_outputs([Path(opts.out_dir) / n for n in names], reads, force=opts.force)
     if jobs_note:
         log.note(jobs_note)
     options = {
@@ -663,7 +666,8 @@ def _write_set(
     to_stdout = opts.out_dir == STDOUT
     groups = runner.groups
     out_dir = None if to_stdout else opts.out_dir  # nothing is staged with -o -
-    with OutputSet(out_dir, force=opts.force, inputs=[opts.input]) as outs:
+    reads = read_set(fasta=opts.input, model=opts.model, files=[opts.truth], records=opts.records)
+    with OutputSet(out_dir, force=opts.force, inputs=reads) as outs:
         scratch = None if to_stdout else outs.scratch_dir()
         if not to_stdout:  # with --force, the earlier run's whole set is replaced
             outs.replaces_set_of(f"{stem}.run.json")

@@ -34,9 +34,9 @@ from seqstate import log
 from seqstate.commands.calibration import Reliability
 from seqstate.commands.inputs import (
     indexed_lengths,
-    model_inputs,
     read_model_records,
     read_model_region,
+    read_set,
 )
 from seqstate.commands.records import choose_stretches
 from seqstate.commands.truth import TruthSet, read_truth
@@ -600,8 +600,9 @@ def _check(opts: CalibrateOptions) -> None:
 def calibrate(opts: CalibrateOptions, quiet: bool = True) -> CalibrateReport:
     """Run ``seqstate calibrate``: check, measure, then write report and figure together."""
     _check(opts)
-    inputs: list[Any] = list(model_inputs(opts.model))
-    inputs += [p for p in (opts.fasta, opts.truth) if p]
+    inputs = read_set(
+        fasta=opts.fasta, model=opts.model, files=[opts.truth], records=opts.record_ids
+    )
     check_outputs([opts.out, opts.figure], inputs, force=opts.force)
     if opts.figure is not None:
         from seqstate.commands.plot import require_matplotlib

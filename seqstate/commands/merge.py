@@ -51,6 +51,7 @@ from typing import Any, TextIO
 
 from seqstate import log
 from seqstate.commands.annotate import REPORT_SCHEMA, check_stem
+from seqstate.commands.inputs import read_set
 from seqstate.commands.records import id_listing
 from seqstate.commands.runreport import (
     ReportFormatError,
@@ -479,7 +480,8 @@ def merge(opts: MergeOptions) -> MergeReport:
         raise UsageError(
             f"the run reports have different stems ({', '.join(sorted(stems))}): give --stem"
         )
-    groups, reordered = _in_fasta_order(groups, _fasta_of(groups, opts.fasta))
+    fasta = _fasta_of(groups, opts.fasta)
+    groups, reordered = _in_fasta_order(groups, fasta)
     if any(s.endswith(".bw") for s in suffixes):
         tracks.require_bigwig()
     for g in groups:
@@ -488,9 +490,8 @@ def merge(opts: MergeOptions) -> MergeReport:
         if s.endswith((".features.tsv", ".bedgraph")):
             _check_table_headers(groups, s)
     names = [stem + s for s in suffixes]
-    inputs = [str(g.report_path) for g in groups] + [
-        str(g.file(s)) for g in groups for s in suffixes
-    ]
+    group_files = [g.report_path for g in groups] + [g.file(s) for g in groups for s in suffixes]
+    inputs = read_set(fasta=fasta, files=group_files)
     check_outputs([Path(opts.out_dir) / n for n in names], inputs, force=opts.force)
     gff_headers = {s: _gff3_headers(groups, s) for s in suffixes if s.endswith(".gff3")}
 

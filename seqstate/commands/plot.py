@@ -49,9 +49,9 @@ import numpy as np
 from seqstate import __version__
 from seqstate.commands.inputs import (
     indexed_lengths,
-    model_inputs,
     read_model_records,
     read_model_region,
+    read_set,
 )
 from seqstate.commands.score import read_regions
 from seqstate.engine import api
@@ -221,7 +221,7 @@ def _check_options(opts: PlotOptions) -> None:
 
 
 def _inputs(opts: PlotOptions) -> list:
-    return [opts.input, opts.reference, *model_inputs(opts.model)]
+    return read_set(fasta=opts.input, model=opts.model, files=[opts.reference])
 
 
 def plot_data(opts: PlotOptions) -> PlotData:

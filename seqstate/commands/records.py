@@ -31,6 +31,14 @@ _R = TypeVar("_R", bound=_HasId)
 _S = TypeVar("_S", bound=_HasId)
 
 
+class RecordSelection(list[str]):
+    """The record IDs of ``--records-file``: a list that also knows the file it was read
+    from (``source``), so that the file is among the inputs no output may replace
+    (:func:`seqstate.commands.inputs.read_set`)."""
+
+    source: str | None = None
+
+
 def _check_id(rid: str, where: str) -> None:
     if not rid:
         raise UsageError(f"{where}: an empty record ID (expected ID or ID,ID,...)")
@@ -107,7 +115,9 @@ def records_selection(records: str | None, records_file: str | None) -> list[str
     if records is not None:
         return parse_records_option(records)
     if records_file is not None:
-        return read_records_file(records_file)
+        selection = RecordSelection(read_records_file(records_file))
+        selection.source = records_file
+        return selection
     return None
 
 

@@ -7,7 +7,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from seqstate.commands.inputs import model_inputs
+from seqstate.commands.inputs import read_set
 from seqstate.engine import api
 from seqstate.engine.sampling import _CHUNK, _sample_chunk
 from seqstate.errors import UsageError
@@ -101,7 +101,8 @@ def sample(opts: SampleOptions) -> SampleReport:
             f"{opts.length * opts.records:,} bases is more than the limit of "
             f"{MAX_SAMPLE_BASES:,} bases per sample run; draw fewer or shorter records"
         )
-    check_outputs([opts.out_fasta, opts.truth_gff3], model_inputs(opts.model), force=opts.force)
+    reads = read_set(model=opts.model)
+    check_outputs([opts.out_fasta, opts.truth_gff3], reads, force=opts.force)
     model = load_model(opts.model)
     draw = Sampler(api.prepare(model))
     groups = track_groups(model)
@@ -111,7 +112,7 @@ def sample(opts: SampleOptions) -> SampleReport:
     ids = [f"{opts.prefix}{r + 1}" for r in range(opts.records)]
     desc = f"synthetic, sampled from model {model.name} seed {opts.seed}"
     n_features = 0
-    with OutputSet(force=opts.force, inputs=model_inputs(opts.model)) as outs:
+    with OutputSet(force=opts.force, inputs=reads) as outs:
         fasta = FastaStreamWriter(outs.open_text(opts.out_fasta), width=opts.width)
         gff = None
         if opts.truth_gff3:

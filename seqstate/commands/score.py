@@ -28,16 +28,15 @@ import io
 import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import Any, TextIO
 
 import numpy as np
 
 from seqstate.commands.inputs import (
     indexed_lengths,
-    model_inputs,
     read_model_records,
     read_model_region,
+    read_set,
 )
 from seqstate.commands.provenance import gff3_provenance
 from seqstate.engine import api
@@ -556,7 +555,7 @@ def score(opts: ScoreOptions) -> ScoreReport:
         raise UsageError(
             "the table and --gff cannot both go to standard output: give -o a file name"
         )
-    inputs: list[str | Path] = [opts.input, opts.regions, *model_inputs(opts.model)]
+    inputs = read_set(fasta=opts.input, model=opts.model, files=[opts.regions])
     check_outputs([tsv_file, opts.out_gff], inputs, force=opts.force)
     model = load_model(opts.model)
     label = choose_label(model, opts.label)

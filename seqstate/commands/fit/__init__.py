@@ -235,9 +235,11 @@ def _read_sequences(path: str, model: Model) -> list:
 
 
 def _fit_inputs(opts: FitOptions) -> list[str | os.PathLike | None]:
-    from seqstate.commands.inputs import model_inputs
+    from seqstate.commands.inputs import read_set
 
-    return [opts.fasta, opts.labels, *model_inputs(opts.model)]
+    return [
+        *read_set(fasta=opts.fasta, model=opts.model, files=[opts.labels], records=opts.records)
+    ]
 
 
 def check_options(opts: FitOptions) -> None:
