@@ -20,7 +20,7 @@ from collections import deque
 from collections.abc import Callable, Iterator
 from concurrent.futures import Future, ThreadPoolExecutor
 from concurrent.futures import TimeoutError as FutureTimeout
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, TextIO
 
@@ -529,7 +529,8 @@ class OutputWriter:
             self.bigwigs[g].end_record(out.id, out.length)
         self.regions.append((out.id, out.start0 + 1, out.end0))
         hold_point("record-written")  # test-only, see seqstate.io.atomic.hold_point
-        return out
+        # the report keeps the figures only: text written is not held for the whole run
+        return replace(out, gff="", tsv="", bedgraph=[], bigwig=[], cds="", proteins="")
 
     def track_piece(self, g: int, seqid: str, offset0: int, values: np.ndarray) -> None:
         """Consecutive values of a long record's track group ``g`` (record coordinates)."""
