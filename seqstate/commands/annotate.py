@@ -168,6 +168,20 @@ class AnnotateReport:
         """The JSON document: plain dicts and lists, keys in field order."""
         return asdict(self)
 
+    def write_json(self, handle: TextIO) -> None:
+        """Write :meth:`to_dict` as ``json.dump(..., indent=2)`` would, byte for byte,
+        each record converted only as it is written (a run of a million records never
+        holds the whole document twice)."""
+        text = json.dumps(asdict(replace(self, records=[])), indent=2)
+        marker = '\n  "records": [],\n'
+        cut = text.index(marker)
+        handle.write(text[:cut] + '\n  "records": [')
+        for i, rec in enumerate(self.records):
+            body = json.dumps(asdict(rec), indent=2).replace("\n", "\n    ")
+            handle.write(("," if i else "") + "\n    " + body)
+        handle.write(("\n  ]" if self.records else "]") + ",\n" + text[cut + len(marker) :])
+        handle.write("\n")
+
     @property
     def features(self) -> int:
         """Features written, over every record."""
@@ -746,8 +760,7 @@ def _write_set(
                     written.flush()  # every output but the report is staged in gff_target's folder
             report.output_sha256 = output_checksums(Path(gff_target.name).parent, names)
             with outs.open_text(f"{stem}.run.json") as fh:
-                json.dump(report.to_dict(), fh, indent=2, sort_keys=False)
-                fh.write("\n")
+                report.write_json(fh)
     return text
 
 
