@@ -129,7 +129,8 @@ def check_transcript(
     """Why this transcript cannot be labelled (None if it can).
 
     Checks: CDS length a multiple of 3, GFF3 phases consistent with the lengths,
-    ATG start, a stop codon at the end and none inside, GT..AG introns of at least
+    ATG start, a stop codon at the end and none inside, GT..AG introns (and GC..AG
+    with ``shape.gc_donor``) of at least
     ``shape.min_intron`` bases, no intron inside the start or stop codon, clean
     start and stop flanks.
     """
@@ -165,12 +166,13 @@ def check_transcript(
         return "stop flank runs off the record"
     if set(s[pieces[-1][1] : pieces[-1][1] + down_flank].upper()) - set(b"ACGT"):
         return "unknown bases in the stop flank"
+    donors = (b"GT", b"GC") if shape.gc_donor else (b"GT",)
     for (_, b0), (a1, _) in zip(pieces, pieces[1:]):
         intron = s[b0:a1].upper()
         if len(intron) < min_intron:
             return f"intron shorter than {min_intron} bases"
-        if intron[:2] != b"GT" or intron[-2:] != b"AG":
-            return "intron not GT..AG"
+        if intron[-2:] != b"AG" or intron[:2] not in donors:
+            return "intron not GT..AG" + (" or GC..AG" if shape.gc_donor else "")
     return None
 
 
@@ -225,6 +227,8 @@ def plus_path(
             a1 = pieces[k + 1][0]
             intron = list(range(b, a1))
             donor = [f"{copy}_d{i}" for i in range(1, 3 + shape.donor_flank)]
+            if up[b + 1 : b + 2] == b"C":  # a GC donor (check_transcript allowed it)
+                donor[1] = f"{copy}_d2c"
             acceptor = [f"{copy}_a{i}" for i in range(1, shape.acceptor_flank + 3)]
             n_body = len(intron) - len(donor) - len(acceptor)
             labels = donor + body_labels(n_body, shape, copy) + acceptor
@@ -233,7 +237,61 @@ def plus_path(
     end = pieces[-1][1]
     for i in range(shape.down_flank):
         out.append((end + i, names[f"down{i + 1}"]))
+    if shape.start_codons or shape.exon_codons:
+        out = _prefix_states(out, pieces, shape, names)
     return out
+
+
+def _prefix_states(
+    out: list[tuple[int, int]], pieces, shape: GeneShape, names: dict[str, int]
+) -> list[tuple[int, int]]:
+    """The path with the minimum-length prefixes of the layout in place.
+
+    The first ``shape.start_codons`` whole codons after the start codon, and in every
+    exon after an intron the rest of a codon the intron split (``cds2_x0`` and
+    ``cds3_x0`` where the free ``cds2``/``cds3`` stood) and the next
+    ``shape.exon_codons`` whole codons, get the prefix states; other states stay.
+    An exon too short for its prefix keeps free states where the prefix would go on,
+    and the layout's moves then refuse the path (the gene is skipped).
+    """
+    from seqstate.kinds.gene_layout import prefix_names
+
+    state_of = dict(out)
+    plain = {names[f"cds{j}"]: j for j in (1, 2, 3)}
+    x0 = {2: names.get("cds2_x0"), 3: names.get("cds3_x0")}
+    stages = {k: prefix_names(shape, k) for k in "sx"}
+    coding = [pos for a, b in pieces for pos in range(a, b)]
+    piece_of = [k for k, (a, b) in enumerate(pieces) for _ in range(a, b)]
+    i = 3  # the first base after the start codon
+    stage = 0
+    while i < len(coding) and stage < len(stages["s"]) and piece_of[i] == 0:
+        j = plain.get(state_of[coding[i]])
+        if j is None:
+            break
+        state_of[coding[i]] = names[stages["s"][stage][j - 1]]
+        stage += j == 3
+        i += 1
+    if stages["x"]:
+        first = {a for a, _ in pieces[1:]}
+        for i, pos in enumerate(coding):
+            if pos not in first:
+                continue
+            # the rest of the split codon, then whole codons
+            q = i
+            while q < len(coding) and q % 3 != 0:
+                j = plain.get(state_of[coding[q]])
+                if j is not None and x0[j] is not None:
+                    state_of[coding[q]] = int(x0[j])  # type: ignore[arg-type]
+                q += 1
+            stage = 0
+            while q < len(coding) and stage < len(stages["x"]):
+                j = plain.get(state_of[coding[q]])
+                if j is None:
+                    break
+                state_of[coding[q]] = names[stages["x"][stage][j - 1]]
+                stage += j == 3
+                q += 1
+    return [(pos, state_of[pos]) for pos, _ in out]
 
 
 def _codon_bases(pieces, up, coding_index: int) -> bytes:

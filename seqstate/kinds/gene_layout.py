@@ -40,6 +40,7 @@ GFF3 coordinates are 1-based closed in files, 0-based half-open inside.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -75,6 +76,17 @@ class GeneShape:
     are fitted from the annotation's transposable elements and pseudogenes
     (:data:`REPEAT_TYPES`), so that their open reading frames are not taken for
     genes.
+
+    Minimum structure and splice classes (all off in the defaults):
+    ``start_codons``: codons after the start codon (states ``cds1_s1..``) from which
+    the gene cannot reach its stop codon (it may leave for an intron), so a gene
+    of one coding exon has at least ``6 + 3 * start_codons`` coding bases.
+    ``exon_codons``: codons after an intron (states ``cds1_x1..``, after the rest of
+    a codon split by the intron, ``cds2_x0``/``cds3_x0``) from which the exon cannot
+    leave for another intron (it may reach the stop codon), so an internal exon has
+    at least ``3 * exon_codons`` coding bases.  ``gc_donor``: beside GT donors a
+    second donor class GC (state ``{copy}_d2c``, entered from ``d1`` with its own
+    fitted probability), a minor class in plants and animals (common practice).
     """
 
     up_flank: int = UP_FLANK
@@ -84,6 +96,9 @@ class GeneShape:
     body_stages: tuple[int, ...] = (1,)
     signal_order: int = 0
     repeat: bool = False
+    start_codons: int = 0
+    exon_codons: int = 0
+    gc_donor: bool = False
 
     @property
     def min_intron(self) -> int:
@@ -144,7 +159,29 @@ def shape_of(names: list[str]) -> GeneShape:
             branches.append(count(f"i0_body{b}_{{}}+"))
             b += 1
         stages = tuple(branches)
-    return GeneShape(up, down, donor, acceptor, stages, 0, "repeat" in have)
+    return GeneShape(
+        up,
+        down,
+        donor,
+        acceptor,
+        stages,
+        0,
+        "repeat" in have,
+        start_codons=count("cds1_s{}+"),
+        exon_codons=count("cds1_x{}+"),
+        gc_donor="i0_d2c+" in have,
+    )
+
+
+def prefix_names(shape: GeneShape, kind: str) -> list[list[str]]:
+    """The codon stages of a minimum-length prefix (names without strand), 5' to 3'.
+
+    ``kind`` ``"s"``: the codons after the start codon (``shape.start_codons``);
+    ``"x"``: the codons after an intron (``shape.exon_codons``).  One list of
+    three names (codon positions 1, 2, 3) per stage.
+    """
+    k = shape.start_codons if kind == "s" else shape.exon_codons
+    return [[f"cds{j}_{kind}{i}" for j in (1, 2, 3)] for i in range(1, k + 1)]
 
 
 @dataclass
@@ -190,6 +227,15 @@ def _plus_layout(shape: GeneShape = DEFAULT_SHAPE) -> _Plus:
     p.add("cds2_Y_j1T", "CDS", "CT")
     p.add("cds3_Y", "CDS", "CT")  # after TA: not A, not G
     p.add("cds3_B", "CDS", "CGT")  # after TG: not A
+    # minimum-length prefixes: codons after the start codon, the rest of a codon split
+    # by an intron, then codons after an intron
+    stages_s, stages_x = prefix_names(shape, "s"), prefix_names(shape, "x")
+    if stages_x:
+        p.add("cds2_x0", "CDS")
+        p.add("cds3_x0", "CDS")
+    for stage in stages_s + stages_x:
+        for name in stage:
+            p.add(name, "CDS")
     p.add("stop_T", "CDS", "T")
     p.add("stop_A", "CDS", "A")
     p.add("stop_G", "CDS", "G")
@@ -200,6 +246,8 @@ def _plus_layout(shape: GeneShape = DEFAULT_SHAPE) -> _Plus:
     for c in INTRON_COPIES:
         p.add(f"{c}_d1", "intron", "G")
         p.add(f"{c}_d2", "intron", "T")
+        if shape.gc_donor:
+            p.add(f"{c}_d2c", "intron", "C")
         for i in range(3, 3 + donor_flank):
             p.add(f"{c}_d{i}", "intron")
         for branch in shape.body_names(c):
@@ -213,9 +261,32 @@ def _plus_layout(shape: GeneShape = DEFAULT_SHAPE) -> _Plus:
     chain = [f"up{i}" for i in range(1, up_flank + 1)] + ["start_A", "start_T", "start_G"]
     for a, b in zip(chain, chain[1:]):
         p.move(a, b)
-    codon_next = ["cds1", "cds1_T_i1", "cds1_V_i1", "cds1_T_i2", "cds1_V_i2", "i0_d1", "stop_T"]
-    for end in ("start_G", "cds3", "cds3_Y", "cds3_B"):
-        p.move(end, *codon_next)
+    leave = ["cds1_T_i1", "cds1_V_i1", "cds1_T_i2", "cds1_V_i2", "i0_d1"]
+    codon_next = ["cds1", *leave, "stop_T"]
+    p.move("cds3", *codon_next)
+    # after the start codon: the start prefix (no stop), then the free codons
+    ends = ["start_G"] + [st[2] for st in stages_s]
+    for end, stage in zip(ends, stages_s):
+        p.move(end, stage[0], *leave)
+    p.move(ends[-1], *codon_next)
+    # after an intron: the exon prefix (no intron), then the free codons
+    after = ["cds3_Y", "cds3_B"]
+    if stages_x:
+        ends = ["cds3_x0"] + [st[2] for st in stages_x]
+        for end, stage in zip(ends, stages_x):
+            p.move(end, stage[0], "stop_T")
+        p.move(ends[-1], *codon_next)
+        for end in after:
+            p.move(end, stages_x[0][0], "stop_T")
+        p.move("cds2_x0", "cds3_x0")
+    else:
+        for end in after:
+            p.move(end, *codon_next)
+    for stage in stages_s + stages_x:
+        p.move(stage[0], stage[1])
+        p.move(stage[1], stage[2])
+    cds2_in = "cds2_x0" if stages_x else "cds2"  # the second codon base after an intron
+    cds3_in = "cds3_x0" if stages_x else "cds3"  # the third
     p.move("cds1", "cds2")
     p.move("cds2", "cds3")
     p.move("cds1_T_i1", "i1T_d1")
@@ -232,6 +303,9 @@ def _plus_layout(shape: GeneShape = DEFAULT_SHAPE) -> _Plus:
         for chain in (donor, acceptor):
             for a, b in zip(chain, chain[1:]):
                 p.move(a, b)
+        if shape.gc_donor:
+            p.move(donor[0], f"{c}_d2c")
+            p.move(f"{c}_d2c", donor[2])
         for branch in shape.body_names(c):
             p.move(donor[-1], branch[0])
             for a, b in zip(branch, branch[1:]):
@@ -240,15 +314,18 @@ def _plus_layout(shape: GeneShape = DEFAULT_SHAPE) -> _Plus:
                 p.move(name, name)
             p.move(branch[-1], acceptor[0])
     last = f"_a{acceptor_flank + 2}"
-    p.move("i0" + last, *[t for t in codon_next if t != "i0_d1"])
+    if stages_x:
+        p.move("i0" + last, stages_x[0][0], "stop_T")
+    else:
+        p.move("i0" + last, *[t for t in codon_next if t != "i0_d1"])
     p.move("i1T" + last, "cds2_A_j1T", "cds2_G_j1T", "cds2_Y_j1T")
     p.move("cds2_A_j1T", "cds3_Y")
     p.move("cds2_G_j1T", "cds3_B")
-    p.move("cds2_Y_j1T", "cds3")
-    p.move("i1V" + last, "cds2")
+    p.move("cds2_Y_j1T", cds3_in)
+    p.move("i1V" + last, cds2_in)
     p.move("i2TA" + last, "cds3_Y")
     p.move("i2TG" + last, "cds3_B")
-    p.move("i2N" + last, "cds3")
+    p.move("i2N" + last, cds3_in)
     p.move("stop_T", "stop_A", "stop_G")
     p.move("stop_A", "stop_AR")
     p.move("stop_G", "stop_GA")
@@ -317,15 +394,21 @@ def mirror_index(states: list[State]) -> np.ndarray:
     return out
 
 
+#: A codon state of a minimum-length prefix, without its strand (``cds3_s4``, ``cds1_x2``).
+_PREFIX_CODON = re.compile(r"cds[123]_[sx]\d+")
+
+
 def _allowed(name: str, bases: str, context: str) -> str:
     """Bases a state may emit after ``context`` (stop codons impossible inside exons)."""
-    if name == "cds3+":
+    core, strand = name[:-1], name[-1:]
+    free = core[:4] if core in ("cds1", "cds3") or _PREFIX_CODON.fullmatch(core) else ""
+    if free == "cds3" and strand == "+":
         last2 = context[-2:]
         if last2 == "TA":
             return "".join(b for b in bases if b not in "AG")
         if last2 == "TG":
             return "".join(b for b in bases if b != "A")
-    if name == "cds1-":
+    if free == "cds1" and strand == "-":
         # reading the plus strand, a minus codon ends here: its reverse complement is
         # x y z = comp(third) comp(second) comp(first); stops TAA TAG TGA read TTA CTA TCA
         last2 = context[-2:]
@@ -352,6 +435,8 @@ def build_layout(
     """
     if order < 2:
         raise ValueError("the gene-segment layout needs emission order >= 2 (stop codons)")
+    if shape.gc_donor and shape.donor_flank < 1:
+        raise ValueError("a GC donor class needs a donor flank of at least 1 base")
     if shape.signal_order > order:
         raise ValueError(f"signal order {shape.signal_order} is above the emission order {order}")
     states, moves, bases = layout_states(shape)
@@ -408,6 +493,18 @@ def build_layout(
                 else ""
             )
             + (
+                f", at least {shape.start_codons} codons between start codon and stop codon"
+                if shape.start_codons
+                else ""
+            )
+            + (
+                f", at least {shape.exon_codons} codons in an exon after an intron "
+                "before the next intron"
+                if shape.exon_codons
+                else ""
+            )
+            + (", GC donors beside GT donors" if shape.gc_donor else "")
+            + (
                 ", an intron body of "
                 + " or ".join(f"{r} chained states" for r in shape.body_stages)
                 if shape.body_stages != (1,)
@@ -432,6 +529,9 @@ def content_states(states: list[State], shape: GeneShape = DEFAULT_SHAPE) -> lis
     out = ["intergenic", "repeat"]
     for strand in "+-":
         out += [f"cds{i}{strand}" for i in (1, 2, 3)]
+        if shape.exon_codons:
+            out += [f"cds2_x0{strand}", f"cds3_x0{strand}"]
+        out += [f"{n}{strand}" for k in "sx" for st in prefix_names(shape, k) for n in st]
         out += [f"{n}{strand}" for c in INTRON_COPIES for b in shape.body_names(c) for n in b]
     have = {s.name for s in states}
     return [n for n in out if n in have]
@@ -466,8 +566,14 @@ def fit_rules(
     ties: list[list[str]] = []
     orders: dict[str, int] = {}
     j = shape.signal_order
+    stages = prefix_names(shape, "s") + prefix_names(shape, "x")
     for strand in "+-":
         ties.append([f"{n}{strand}" for c in INTRON_COPIES for b in shape.body_names(c) for n in b])
+        if stages:
+            # the prefix codons emit as the free codon positions do
+            for j in (1, 2, 3):
+                extra = [f"cds{j}_x0{strand}"] if shape.exon_codons and j > 1 else []
+                ties.append([f"cds{j}{strand}", *extra, *(f"{st[j - 1]}{strand}" for st in stages)])
         for i in list(range(3, 3 + shape.donor_flank)):
             ties.append([f"{c}_d{i}{strand}" for c in INTRON_COPIES])
         for i in range(1, shape.acceptor_flank + 1):
@@ -482,3 +588,41 @@ def fit_rules(
             for i in range(1, shape.acceptor_flank + 1):
                 orders[f"{c}_a{i}{strand}"] = j
     return ties, orders
+
+
+def coding_run_pmf(model: Model, entry: str, n_max: int) -> tuple[np.ndarray, np.ndarray]:
+    """Length distribution of one coding exon (CDS piece) of a plus-strand gene, from the
+    model's transition matrix (exact, no sampling).
+
+    The path starts at state ``entry`` (``start_A+`` for the first exon of a gene; an
+    acceptor's last state such as ``i0_a30+`` for an exon after an intron, whose moves
+    then lead into the exon) and walks the plus-strand CDS states.  Returns
+    ``(to_intron, to_end)``, indexed by the exon length in bases (0..n_max):
+    the probability that the exon has that length and is followed by an intron
+    (initial or internal exons), or by the end of the coding sequence (single or
+    terminal exons: the stop codon's last base is the exon's last).  Both are
+    unnormalised joint probabilities; mass of exons longer than ``n_max`` is left out.
+    """
+    names = model.state_names
+    idx = {n: i for i, n in enumerate(names)}
+    cds = [i for i, s in enumerate(model.states) if s.label == "CDS" and s.strand == "+"]
+    intron = [i for i, s in enumerate(model.states) if s.label == "intron" and s.strand == "+"]
+    local = {s: k for k, s in enumerate(cds)}
+    T = np.asarray(model.transitions, dtype=np.float64)
+    other = sorted(set(range(len(names))) - set(cds) - set(intron))
+    inner = T[np.ix_(cds, cds)]
+    into_intron = T[np.ix_(cds, intron)].sum(axis=1)
+    leave = T[np.ix_(cds, other)].sum(axis=1)  # summed, not 1 - the rest: exact zeros
+    e = idx[entry]
+    v = np.zeros(len(cds))
+    if e in local:
+        v[local[e]] = 1.0
+    else:
+        v = T[e, cds].copy()
+    to_intron = np.zeros(n_max + 1)
+    to_end = np.zeros(n_max + 1)
+    for n in range(1, n_max + 1):
+        to_intron[n] = float(v @ into_intron)
+        to_end[n] = float(v @ leave)
+        v = v @ inner
+    return to_intron, to_end
