@@ -230,10 +230,11 @@ def masked_option(command: F) -> F:
     """--masked, shared by every command that reads sequences."""
     return click.option(
         "--masked",
-        type=click.Choice(["base", "unknown"]),
+        type=click.Choice(["base", "unknown", "evidence"]),
         default="base",
         show_default=True,
-        help="Read lowercase (soft-masked) bases as their base or as unknown.",
+        help="Read lowercase (soft-masked) bases as their base, as unknown, or as "
+        "evidence scored by the model's mask table (P(masked | state)).",
     )(command)
 
 

@@ -23,10 +23,11 @@ from seqstate import __version__, log
 from seqstate.commands import annotate_run
 from seqstate.commands.annotate_run import Item, OutputWriter, Runner
 from seqstate.commands.inputs import alphabet_check_of, read_set
+from seqstate.commands.masking import check_masked, prepare_masked
 from seqstate.commands.provenance import gff3_provenance
 from seqstate.commands.records import select_records
 from seqstate.commands.runreport import output_checksums
-from seqstate.engine import api, jitcache
+from seqstate.engine import jitcache
 from seqstate.errors import ImpossibleSequenceError, UsageError, escape_text
 from seqstate.io import tracks
 from seqstate.io.atomic import OutputSet, check_outputs
@@ -295,6 +296,7 @@ def annotate(
         raise UsageError("-o/--out is empty: expected a folder name, or '-' for stdout")
     if opts.region is not None and not opts.region.strip():
         raise UsageError("--region is empty: expected ID:START-END or ID")
+    check_masked(opts.masked)
     to_stdout = opts.out_dir == STDOUT
     if to_stdout and opts.tracks != "none":
         raise UsageError(
@@ -339,7 +341,7 @@ def annotate(
         raise UsageError(f"--min-length {min_length} must be at least 1")
     if opts.split_unknown < 1:
         raise UsageError(f"--split-unknown {opts.split_unknown} must be at least 1")
-    tables = api.prepare(model)
+    tables = prepare_masked(model, opts.masked)
     groups = track_groups(model)
     if not groups:
         raise UsageError(f"model '{model.name}' has no labelled states: nothing to annotate")

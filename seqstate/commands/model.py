@@ -66,6 +66,10 @@ def summary(m: Model, path: str, sha: str) -> str:
         lines.append("end       none given: any state may end a record")
     else:
         lines.append("end       P(record ends | state) given per state")
+    if m.mask is not None:
+        lines.append(
+            "mask      P(base soft-masked | state) given per state (used by --masked evidence)"
+        )
     lines.append(f"sha256    {sha}")
     lines.append("")
     stay = m.expected_stay()
@@ -75,14 +79,16 @@ def summary(m: Model, path: str, sha: str) -> str:
     lw = max(5, max(len(x) for x in labels))
     lines.append(
         f"{'state':<{w}}  {'label':<{lw}}  strand  {'start':>10}  {'end':>10}  "
-        f"expected stay (bases)"
+        + ("" if m.mask is None else f"{'masked':>10}  ")
+        + "expected stay (bases)"
     )
     for i, s in enumerate(m.states):
         end = "-" if m.end is None else f"{m.end[i]:.4g}"
         st = "inf" if stay[i] == float("inf") else f"{stay[i]:.4g}"
+        pm = "" if m.mask is None else f"{m.mask[i]:>10.4g}  "
         lines.append(
             f"{s.name:<{w}}  {labels[i]:<{lw}}  {s.strand or '.':<6}  "
-            f"{m.start[i]:>10.4g}  {end:>10}  {st}"
+            f"{m.start[i]:>10.4g}  {end:>10}  {pm}{st}"
         )
     allowed = m.allowed_transitions()
     lines.append("")

@@ -53,6 +53,7 @@ from seqstate.commands.inputs import (
     read_model_region,
     read_set,
 )
+from seqstate.commands.masking import check_masked, prepare_masked
 from seqstate.commands.score import read_regions
 from seqstate.engine import api
 from seqstate.errors import ImpossibleSequenceError, OptionalDependencyError, UsageError
@@ -214,8 +215,7 @@ def _check_options(opts: PlotOptions) -> None:
         raise UsageError(f"--min-length {opts.min_length} must be at least 1")
     if opts.split_unknown < 1:
         raise UsageError(f"--split-unknown {opts.split_unknown} must be at least 1")
-    if opts.masked not in ("base", "unknown"):
-        raise UsageError(f"--masked {opts.masked!r} is not base or unknown")
+    check_masked(opts.masked)
     if opts.reference == "-" and opts.input == "-":
         raise UsageError("FASTA and --reference cannot both be standard input ('-')")
 
@@ -277,7 +277,7 @@ def plot_data(opts: PlotOptions) -> PlotData:
         got = read_model_region(opts.input, model, Region(seqid, w0, w1))
         assert got is not None  # the index was there a moment ago
         window = got.seq
-    tables = api.prepare(model)
+    tables = prepare_masked(model, opts.masked)
     state_group = group_index(model, groups)
     unknown_masked = opts.masked == "unknown"
     codes = api.encode(tables, window, masked_unknown=unknown_masked)

@@ -109,6 +109,7 @@ def sample(opts: SampleOptions) -> SampleReport:
     kind = kind_of(model)
     rng = np.random.default_rng(opts.seed)
     alphabet = np.frombuffer(model.alphabet.encode("ascii"), dtype=np.uint8)
+    masker = _Masker(model, opts.seed)
     ids = [f"{opts.prefix}{r + 1}" for r in range(opts.records)]
     desc = f"synthetic, sampled from model {model.name} seed {opts.seed}"
     n_features = 0
@@ -122,13 +123,36 @@ def sample(opts: SampleOptions) -> SampleReport:
             fasta.start(rid, desc)
             truth = None if gff is None else TruthPieces(kind, model, groups, gff, rid)
             for path, sym in draw.chunks(opts.length, rng):
-                fasta.write(alphabet[sym].tobytes())
+                fasta.write(masker.letters(alphabet[sym], path))
                 if truth is not None:
                     truth.add(path)
             fasta.end()
             if truth is not None:
                 n_features += truth.finish()
     return SampleReport(opts.records, opts.length, n_features, opts.out_fasta, opts.truth_gff3)
+
+
+class _Masker:
+    """Soft-masking of sampled bases by the model's mask table (P(masked | state)).
+
+    A model without a mask table writes its letters as they are.  With one, each base
+    is written in lower case with its state's probability, from a generator of its own
+    (seeded by the run's seed and a constant), so the bases and states drawn are those
+    of a run without the mask table, case apart.
+    """
+
+    def __init__(self, model: Model, seed: int) -> None:
+        self.mask = model.mask
+        self.rng = np.random.default_rng([seed, 0x6D61736B]) if self.mask is not None else None
+
+    def letters(self, letters: np.ndarray, path: np.ndarray) -> bytes:
+        """The bytes of one chunk: ``letters`` (upper case) with its masked bases lowered."""
+        if self.mask is None or self.rng is None:
+            return letters.tobytes()
+        masked = self.rng.random(path.shape[0]) < self.mask[path]
+        out = letters.copy()
+        out[masked] = np.frombuffer(bytes(out[masked]).lower(), dtype=np.uint8)
+        return out.tobytes()
 
 
 class Sampler:

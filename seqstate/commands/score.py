@@ -38,6 +38,7 @@ from seqstate.commands.inputs import (
     read_model_region,
     read_set,
 )
+from seqstate.commands.masking import check_masked, prepare_masked
 from seqstate.commands.provenance import gff3_provenance
 from seqstate.engine import api
 from seqstate.errors import FeatureFormatError, ImpossibleSequenceError, UsageError
@@ -300,8 +301,9 @@ def score_regions(
     window ``[start0 - N, end0 + N)`` cut at the record ends, as if the window
     were a record: the model's start probabilities apply at its first base, its
     end probabilities (if any) at its last, and the first ``order`` bases use
-    the shorter-context emission rows.  ``masked`` is ``"base"`` or
-    ``"unknown"`` (lowercase bases read as unknown), as in annotate.
+    the shorter-context emission rows.  ``masked`` is ``"base"``,
+    ``"unknown"`` (lowercase bases read as unknown) or ``"evidence"`` (the model's mask
+    table scores them, :mod:`seqstate.commands.masking`), as in annotate.
 
     With ``flank=N``, ``read_window(seqid, w0, w1)`` (the bases ``[w0, w1)`` of
     a record, e.g. through the FASTA index) and ``lengths`` (record ID ->
@@ -310,7 +312,7 @@ def score_regions(
     """
     if flank is not None and flank < 0:
         raise UsageError(f"--flank {flank} must be 0 or more")
-    tables = api.prepare(model)
+    tables = prepare_masked(model, masked)
     unknown = masked == "unknown"
     kind = kind_of(model)
     masks = {strand: strand_mask(model, label, strand) for strand in {r.strand for r in regions}}
@@ -548,8 +550,7 @@ def score(opts: ScoreOptions) -> ScoreReport:
     """
     if opts.input == "-" and opts.regions == "-":
         raise UsageError("FASTA and --regions cannot both be standard input ('-')")
-    if opts.masked not in ("base", "unknown"):
-        raise UsageError(f"--masked {opts.masked!r} is not base or unknown")
+    check_masked(opts.masked)
     tsv_file = None if opts.out_tsv in (None, "-") else opts.out_tsv
     if opts.out_gff == "-" and tsv_file is None:
         raise UsageError(

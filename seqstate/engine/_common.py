@@ -97,7 +97,7 @@ def transition_lists(
 
 
 def code_table(
-    model: Model, lower: dict[int, np.ndarray]
+    model: Model, lower: dict[int, np.ndarray], *, mask: np.ndarray | None = None
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """The emission factor of every code in every state, and its non-zero lists.
 
@@ -106,6 +106,11 @@ def code_table(
     * A + symbol`` reads the order-j row (see :mod:`seqstate.engine.tables`), the last
     code is the unknown symbol (factor 1 in every state), and ``nz_state[nz_ptr[c]:
     nz_ptr[c + 1]]`` are the states with a non-zero factor for code ``c``.
+
+    With ``mask`` (P(masked | state), one per state) the U = ``offsets[k + 1]`` base
+    codes are doubled: code c < U is the unmasked base, factor ``E[c] * (1 - mask)``,
+    code ``U + c`` the same base soft-masked, factor ``E[c] * mask``; the unknown code
+    (now 2U) keeps factor 1, so an unknown base carries no mask evidence.
     """
     m, a, k = model.n_states, len(model.alphabet), model.order
     offsets = np.zeros(k + 2, dtype=np.int64)
@@ -117,6 +122,14 @@ def code_table(
         rows = model.emissions if j == k else lower[j]  # (m, a**j, a)
         E[offsets[j] : offsets[j + 1], :] = rows.reshape(m, a ** (j + 1)).T  # code-major
     E[n_codes - 1, :] = 1.0
+    if mask is not None:
+        u = n_codes - 1
+        pm = np.asarray(mask, dtype=np.float64)[None, :]
+        doubled = np.zeros((2 * u + 1, m))
+        doubled[:u] = E[:u] * (1.0 - pm)
+        doubled[u : 2 * u] = E[:u] * pm
+        doubled[2 * u] = 1.0
+        E, n_codes = doubled, 2 * u + 1
     nz = [np.flatnonzero(E[c] > 0) for c in range(n_codes)]
     nz_ptr = np.zeros(n_codes + 1, dtype=np.int64)
     nz_ptr[1:] = np.cumsum([len(v) for v in nz])

@@ -27,6 +27,7 @@ from seqstate.engine.tables import (
     default_kernels,
     encode,
     encode_symbols,
+    mask_evidence_codes,
     prepare,
     symbols_of,
 )
@@ -48,6 +49,7 @@ __all__ = [
     "encode_symbols",
     "forward_vector",
     "loglik",
+    "mask_evidence_codes",
     "posterior",
     "prepare",
     "segment_log_odds",

@@ -100,7 +100,11 @@ def build(tables: EngineTables) -> SmallTables | None:
     K = emit.sum(axis=1).astype(np.int64)
     wide = K > 2
     k = tables.order
-    if wide[int(tables.offsets[k]) : int(tables.offsets[k + 1])].any():
+    full = [(int(tables.offsets[k]), int(tables.offsets[k + 1]))]
+    if tables.mask_codes:  # the soft-masked copies of the full-order codes
+        u = tables.mask_codes
+        full.append((u + full[0][0], u + full[0][1]))
+    if any(wide[lo:hi].any() for lo, hi in full):
         return None
     kmax = max(2, int(K.max()))
     # emitting states in increasing order first (stable sort), padded with the first

@@ -17,6 +17,18 @@ weighted by the stationary k-mer frequencies of that state's own order-k chain:
 ``u c'`` that end in ``c'`` (uniform weights if every such k-mer has zero
 frequency).  The stationary frequencies are found by power iteration of the
 lazy chain ``(I + P) / 2``, which has the same fixed point and always converges.
+
+Mask evidence
+-------------
+Tables prepared with ``mask=True`` (a model with a mask table, ``--masked
+evidence``) read a soft-masked (lowercase) base as evidence: the U = ``mask_codes``
+codes above are doubled, code c for the base unmasked (factor ``E * (1 - P(masked |
+state))``) and ``U + c`` for the same base and context soft-masked (``E * P(masked |
+state)``); the unknown code is last (2U) with factor 1, so the mask of an unknown base
+is ignored.  The context of a code reads the bases only, whatever their case.  On such
+tables :func:`symbols_of` gives a lowercase base the symbol index plus A (still >= 0,
+so "negative: unknown" holds everywhere) and :func:`encode_symbols` turns it into the
+masked code.
 """
 
 from __future__ import annotations
@@ -82,6 +94,9 @@ class EngineTables:
     symbol_lookup: np.ndarray
     transitions: np.ndarray
     choice: str = "auto"
+    #: U, the number of base codes, when the tables read the mask as evidence (codes
+    #: ``[U, 2U)`` are soft-masked bases; see the module docstring); 0 otherwise
+    mask_codes: int = 0
     generic: Backend = field(init=False, repr=False, compare=False)
     backend: Backend = field(init=False, repr=False, compare=False)
 
@@ -98,21 +113,29 @@ class EngineTables:
         return self.backend.name
 
 
-def prepare(model: Model, *, kernels: str | None = None) -> EngineTables:
+def prepare(model: Model, *, kernels: str | None = None, mask: bool = False) -> EngineTables:
     """Build the kernel arrays of ``model`` (once per model, cheap) and choose its kernels.
 
     ``kernels`` is one of :data:`KERNEL_CHOICES`: "auto" (the default, unless the
     environment variable ``SEQSTATE_KERNELS`` says otherwise) takes the two-state
     kernels when the model fits them, else the chain-sparse kernels when it fits
     those, else the generic ones; a named family must fit (ValueError otherwise).
+    ``mask`` reads soft-masked bases as evidence through the model's mask table
+    (module docstring); ValueError when the model has none.
     """
     choice = default_kernels() if kernels is None else kernels
     if choice not in KERNEL_CHOICES:
         raise ValueError(f"kernels must be one of {', '.join(KERNEL_CHOICES)}, not {choice!r}")
+    if mask and model.mask is None:
+        raise ValueError(f"model '{model.name}' has no mask table")
+    if mask and (2 * len(model.alphabet) > 127 or any(c.islower() for c in model.alphabet)):
+        raise ValueError("mask evidence needs an upper-case alphabet of at most 63 symbols")
     m = model.n_states
     T = np.ascontiguousarray(model.transitions, dtype=np.float64)
     pred_ptr, pred_src, pred_p, succ_ptr, succ_dst, succ_p = transition_lists(T)
-    offsets, E, nz_ptr, nz_state = code_table(model, backoff_rows(model))
+    offsets, E, nz_ptr, nz_state = code_table(
+        model, backoff_rows(model), mask=model.mask if mask else None
+    )
     end = np.ones(m) if model.end is None else np.asarray(model.end, dtype=np.float64)
     lookup = np.full(256, -1, dtype=np.int8)
     fold = not any(ch.islower() for ch in model.alphabet)
@@ -144,6 +167,7 @@ def prepare(model: Model, *, kernels: str | None = None) -> EngineTables:
         symbol_lookup=lookup,
         transitions=T,
         choice=choice,
+        mask_codes=int(offsets[-1]) if mask else 0,
     )
 
 
@@ -152,7 +176,9 @@ def symbols_of(
 ) -> np.ndarray:
     """Symbol index per position (int8), -1 for anything outside the alphabet.
 
-    Lowercase (soft-masked) bases read as their base unless ``masked_unknown``.
+    Lowercase (soft-masked) bases read as their base unless ``masked_unknown``; on
+    tables that read the mask as evidence (``tables.mask_codes``) a lowercase base
+    gets its symbol index plus A (module docstring).
     """
     if isinstance(seq, str):
         seq = seq.encode("ascii")
@@ -161,6 +187,9 @@ def symbols_of(
     if masked_unknown:
         lower = (raw >= ord("a")) & (raw <= ord("z"))
         sym = np.where(lower, np.int8(-1), sym)
+    elif tables.mask_codes:
+        lower = (raw >= ord("a")) & (raw <= ord("z")) & (sym >= 0)
+        sym = np.where(lower, sym + np.int8(tables.n_symbols), sym).astype(np.int8)
     return sym
 
 
@@ -171,12 +200,44 @@ def encode(
     return encode_symbols(tables, symbols_of(tables, seq, masked_unknown=masked_unknown))
 
 
+def mask_evidence_codes(
+    tables: EngineTables, seq: bytes | str | np.ndarray, codes: np.ndarray
+) -> np.ndarray:
+    """The codes that tables of the same model prepared with ``mask=True`` give ``seq``,
+    from ``codes``, its codes under ``tables`` (prepared without): U is added at every
+    lowercase base that is not unknown and the unknown code becomes 2U (see the module
+    docstring).  Used where one model's codes serve both (``seqstate fit``)."""
+    if tables.mask_codes:
+        raise ValueError("the codes already read the mask as evidence")
+    if isinstance(seq, str):
+        seq = seq.encode("ascii")
+    raw = np.frombuffer(seq, dtype=np.uint8) if isinstance(seq, (bytes, bytearray)) else seq
+    u = tables.unknown_code
+    n_codes = 2 * u + 1
+    dtype = np.uint8 if n_codes <= 256 else np.uint16 if n_codes <= 65536 else np.int32
+    c = codes.astype(dtype)
+    unknown = codes == u
+    lower = (raw >= ord("a")) & (raw <= ord("z")) & ~unknown
+    c[lower] += dtype(u)
+    c[unknown] = 2 * u
+    return c
+
+
 def encode_symbols(tables: EngineTables, sym: np.ndarray) -> np.ndarray:
-    """Emission codes from symbol indices (int8, -1 unknown) as :func:`symbols_of` gives."""
+    """Emission codes from symbol indices (int8, -1 unknown) as :func:`symbols_of` gives.
+
+    On tables that read the mask as evidence, a symbol of A or more (a soft-masked
+    base) gives the masked code of its base; its context reads the bases only.
+    """
     n_codes = tables.unknown_code + 1
     dtype = np.uint8 if n_codes <= 256 else np.uint16 if n_codes <= 65536 else np.int32
     out = work_buffer(sym.shape[0], dtype)
-    kernels.encode_codes(
-        sym, tables.order, tables.n_symbols, tables.offsets, tables.unknown_code, out
-    )
+    a = tables.n_symbols
+    if tables.mask_codes:
+        masked = sym >= a
+        base = np.where(masked, sym - np.int8(a), sym).astype(np.int8)
+        kernels.encode_codes(base, tables.order, a, tables.offsets, tables.unknown_code, out)
+        out[masked] += dtype(tables.mask_codes)  # a masked base is never unknown
+        return out
+    kernels.encode_codes(sym, tables.order, a, tables.offsets, tables.unknown_code, out)
     return out

@@ -107,17 +107,21 @@ class Accumulators:
 
 
 def training_tables(
-    model: Model, lower: dict[int, np.ndarray], *, mode: int | None = None
+    model: Model, lower: dict[int, np.ndarray], *, mode: int | None = None, mask: bool = False
 ) -> TrainingTables:
     """Kernel arrays of ``model`` with the given back-off rows.
 
     ``lower[j]`` (shape ``(M, A**j, A)``, complete, for every ``j < order``) are
     the emission rows of positions with a context of only j symbols: EM holds
     them fixed (see :mod:`seqstate.commands.fit`).  ``mode`` forces a loop layout
-    (:data:`MODE_PAIRS` or :data:`MODE_LISTS`); by default the cheaper one.
+    (:data:`MODE_PAIRS` or :data:`MODE_LISTS`); by default the cheaper one.  ``mask``:
+    the codes read the mask as evidence through the model's mask table (the doubled
+    code layout of :mod:`seqstate.engine.tables`).
     """
     m = model.n_states
-    offsets, E, nz_ptr, nz_state = code_table(model, lower)
+    if mask and model.mask is None:
+        raise ValueError(f"model '{model.name}' has no mask table")
+    offsets, E, nz_ptr, nz_state = code_table(model, lower, mask=model.mask if mask else None)
     T = np.ascontiguousarray(model.transitions, dtype=np.float64)
     pred_ptr, pred_src, pred_p, succ_ptr, succ_dst, succ_p = transition_lists(T)
     if mode is None:

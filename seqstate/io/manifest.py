@@ -53,6 +53,7 @@ TABLE_FILES = {
     "transitions": "transitions.tsv",
     "emissions": "emissions.tsv",
     "end": "end.tsv",
+    "mask": "mask.tsv",
 }
 #: Largest manifest read (16 MiB): a model.toml is a few kilobytes; a bigger file given
 #: as a manifest by mistake (a genome, say) is refused before it is read.
@@ -351,6 +352,8 @@ def load_manifest(manifest: Path) -> Model:
     transitions = read_transitions(trans_path, names, end, strict)
     emis_path = required_path("emissions")
     emissions, lower = read_emissions(emis_path, names, alphabet, order, strict)
+    mask_path = table_path("mask", False)
+    mask = read_vector(mask_path, names, "mask", False) if mask_path is not None else None
     provenance = doc.get("provenance", {})
     if not isinstance(provenance, dict):
         raise ModelFormatError("[provenance] must be a table of key = value lines", path=manifest)
@@ -370,6 +373,7 @@ def load_manifest(manifest: Path) -> Model:
         background_label=background or None,
         provenance=provenance,
         extra=extra,
+        mask=mask,
     )
     if normalize:
         try:
@@ -447,6 +451,8 @@ def render_manifest(model: Model) -> str:
     lines.append(f"emissions = {_toml_value(TABLE_FILES['emissions'])}")
     if model.end is not None:
         lines.append(f"end = {_toml_value(TABLE_FILES['end'])}")
+    if model.mask is not None:
+        lines.append(f"mask = {_toml_value(TABLE_FILES['mask'])}")
     for s in model.states:
         lines.append("")
         lines.append("[[states]]")

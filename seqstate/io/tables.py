@@ -8,6 +8,7 @@ Layout (our own)::
       end.tsv           state <TAB> end          (optional)
       transitions.tsv   from <TAB> to-state ...  (rows = from, columns = to; empty = 0 = forbidden)
       emissions.tsv     state <TAB> context <TAB> one column per symbol
+      mask.tsv          state <TAB> mask         (optional: P(soft-masked base | state))
 
 A model may also be given as the path of its manifest file; table paths are
 relative to the manifest's folder.  Lines starting with ``#`` and blank lines
@@ -139,13 +140,21 @@ def render_tables(model: Model) -> list[tuple[str, str]]:
             ctx = model.context_string(model.order, c) or EMPTY_CONTEXT
             lines.append(f"{n}\t{ctx}\t" + "\t".join(_fmt(v) for v in model.emissions[i, c]) + "\n")
     out.append((TABLE_FILES["emissions"], "".join(lines)))
+    if model.mask is not None:
+        out.append(
+            (
+                TABLE_FILES["mask"],
+                "state\tmask\n" + "".join(f"{n}\t{_fmt(v)}\n" for n, v in zip(names, model.mask)),
+            )
+        )
     return out
 
 
 def model_sha256(model: Model) -> str:
     """SHA-256 of the model's canonical text (:func:`render_tables`): the manifest as seqstate
     writes it (name, description, alphabet, order, decoding, states and every table of the
-    manifest, ``[provenance]`` included) and the start, end, transition and emission tables,
+    manifest, ``[provenance]`` included) and the start, end, transition, emission and mask
+    tables,
     each value in shortest round-trip form.  A new name or description changes it; comments,
     table file names, row and column order and number spelling in the folder do not."""
     return sha256_of_text(render_tables(model))

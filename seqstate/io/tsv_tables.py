@@ -1,6 +1,6 @@
 """The TSV tables of a model folder: reading and checking them, cell by cell.
 
-``start.tsv`` and ``end.tsv`` (state, value), ``transitions.tsv`` (a square table,
+``start.tsv``, ``end.tsv`` and ``mask.tsv`` (state, value), ``transitions.tsv`` (a square table,
 rows = from, columns = to; an empty cell is 0) and ``emissions.tsv`` (state,
 context, one column per symbol); the layout is described in
 :mod:`seqstate.io.tables`.  Lines starting with ``#`` and blank lines are
@@ -216,8 +216,22 @@ def read_vector(path: Path, names: list[str], column: str, strict: bool) -> np.n
             raise TableFormatError(f"duplicate row for state '{names[s]}'", path=path, line0=line0)
         given[s] = True
         values[s] = _number(fields[1], path, line0, f"state '{names[s]}'")
+        if column == "mask" and values[s] > 1:
+            raise TableFormatError(
+                f"state '{names[s]}': P(masked) {fields[1].strip()} is above 1, expected a "
+                "probability from 0 to 1",
+                path=path,
+                line0=line0,
+            )
     if not header_seen:
         raise TableFormatError("table is empty", path=path)
+    if column == "mask" and not given.all():
+        missing = names[int(np.argmin(given))]
+        raise TableFormatError(
+            f"no row for state '{missing}': the mask table gives P(masked) for every state",
+            path=path,
+            line0=last_line0,
+        )
     total = _total(values)
     _check_total(total, f"{column} values (all rows)", path, last_line0)
     if column == "start" and not strict and total <= 0:

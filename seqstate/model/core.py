@@ -15,7 +15,11 @@ as plain NumPy arrays:
   symbols are ``c % A**j``;
 * ``lower_emissions[j]`` (optional, ``j < order``) -- rows for shorter contexts,
   shape ``(M, A**j, A)``, NaN where a row was not given.  The engine uses them
-  where a context is cut short (record start, unknown base) and derives the rest.
+  where a context is cut short (record start, unknown base) and derives the rest;
+* ``mask[s]`` (optional) -- P(a base is soft-masked, lowercase | z_i = s): the mask as
+  an observed channel beside the base, used when a run reads lowercase bases as
+  evidence (``--masked evidence``); the base and its mask are independent given
+  the state, and an unknown base carries no mask evidence.
 
 Probabilities are plain (not log) float64.  Nothing here reads files or
 sequences; :func:`validate` checks the semantic rules every model must meet.
@@ -112,6 +116,7 @@ class Model:
     background_label: str | None = None
     provenance: dict = field(default_factory=dict)
     extra: dict = field(default_factory=dict)
+    mask: np.ndarray | None = None
 
     # -- derived views -------------------------------------------------
     @property
@@ -173,10 +178,14 @@ class Model:
             return False
         if (self.end is None) != (other.end is None):
             return False
+        if (self.mask is None) != (other.mask is None):
+            return False
         arrays = [(self.start, other.start), (self.transitions, other.transitions)]
         arrays.append((self.emissions, other.emissions))
         if self.end is not None and other.end is not None:
             arrays.append((self.end, other.end))
+        if self.mask is not None and other.mask is not None:
+            arrays.append((self.mask, other.mask))
         if set(self.lower_emissions) != set(other.lower_emissions):
             return False
         for j in self.lower_emissions:
@@ -323,6 +332,7 @@ def make_model(
     background_label: str | None = None,
     provenance: dict | None = None,
     extra: dict | None = None,
+    mask: ArrayLike | None = None,
     check: bool = True,
 ) -> Model:
     """Build and validate a model from arrays.
@@ -356,6 +366,7 @@ def make_model(
         background_label=background_label,
         provenance=dict(provenance or {}),
         extra=dict(extra or {}),
+        mask=None if mask is None else np.asarray(mask, dtype=np.float64).copy(),
     )
     if check:
         validate(model)
@@ -415,6 +426,8 @@ def validate(model: Model, *, path: str | None = None) -> None:
     }
     if model.end is not None:
         shapes["end"] = (model.end, (m,))
+    if model.mask is not None:
+        shapes["mask"] = (model.mask, (m,))
     for j, arr in model.lower_emissions.items():
         if not 0 <= j < k:
             fail(f"lower-order emission rows of order {j} given for an order-{k} model")
@@ -432,6 +445,12 @@ def validate(model: Model, *, path: str | None = None) -> None:
         if abs(total - 1.0) > SUM_TOLERANCE:
             fail(f"{what} sums to {total:.9g}, expected 1 (tolerance {SUM_TOLERANCE:g})")
 
+    if model.mask is not None and np.any(model.mask > 1):
+        i = int(np.argmax(model.mask > 1))
+        fail(
+            f"mask table: state {names[i]!r} has P(masked) = {float(model.mask[i])!r}, "
+            "expected a probability from 0 to 1"
+        )
     check_sum(float(model.start.sum()), "start probabilities")
     for i, n in enumerate(names):
         total = float(model.transitions[i].sum())

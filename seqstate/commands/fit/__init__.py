@@ -19,6 +19,15 @@ contexts only and back-off rows are not re-estimated (:mod:`.counting`, :mod:`.e
 The model folder and its provenance are written by :mod:`.writing`; nothing is
 written unless the whole run succeeds.
 
+**The mask table** (``--masked evidence``): counting adds, per state, the known bases
+of the labelled path in upper case and soft-masked, pooled by label
+(:func:`.estimation.estimate_mask`) with the counting pseudocount, and writes the
+model's mask table; Baum–Welch then runs on codes that read the mask as evidence and
+re-estimates the mask table from the expected counts, pooled the same way.  EM
+without labels starts every state from the soft-masked share of all known bases
+(when the start model has no mask table).  With ``base`` or ``unknown`` a mask table
+of the start model is copied unchanged.
+
 Memory: the records are read whole; EM keeps their emission codes (one byte per
 base for models with up to 255 codes) and works in O(M sqrt N) per record.
 
@@ -40,6 +49,7 @@ import numpy as np
 from seqstate.commands.fit.counting import (
     Counts,
     chain_runs,
+    count_mask,
     count_path,
     pool_counts,
     states_without_counts,
@@ -89,6 +99,7 @@ from seqstate.commands.fit.writing import (
     provenance,
     write_model_folder,
 )
+from seqstate.commands.masking import check_masked
 from seqstate.commands.records import choose_stretches, describe_stretches
 from seqstate.engine import api
 from seqstate.errors import (
@@ -213,6 +224,8 @@ class FitRun:
     loglik: float = math.nan
     iterations: int = 0
     stop_reason: str = "counting only (no EM)"
+    #: how the mask table was made (``--masked evidence``), for the provenance
+    mask_note: str = ""
 
 
 def _read_sequences(path: str, model: Model) -> list:
@@ -254,8 +267,7 @@ def check_options(opts: FitOptions) -> None:
         opts.pseudocount >= 0 and math.isfinite(opts.pseudocount)
     ):
         raise UsageError(f"--pseudocount {opts.pseudocount} must be a finite number >= 0")
-    if opts.masked not in ("base", "unknown"):
-        raise UsageError(f"--masked {opts.masked!r} is not base or unknown")
+    check_masked(opts.masked)
     if opts.em and opts.max_iter < 0:
         raise UsageError(f"--max-iter {opts.max_iter} must be at least 0")
     if opts.em and not opts.tol >= 0:
@@ -309,10 +321,23 @@ def fit(opts: FitOptions, *, log: Log = quiet) -> FitReport:
         _count_labels(run, records, tables, opts.labels, rule, opts, log)
     else:
         by_id = {r.id: r for r in records}
-        run.codes = [
-            api.encode(tables, by_id[g.seqid].seq[g.start0 : g.end0], masked_unknown=masked)
-            for g in regions
-        ]
+        run.codes = []
+        lower = known = 0
+        for g in regions:
+            seq = by_id[g.seqid].seq[g.start0 : g.end0]
+            codes = api.encode(tables, seq, masked_unknown=masked)
+            if opts.masked == "evidence":
+                codes = api.mask_evidence_codes(tables, seq, codes)
+                u = tables.unknown_code  # masked codes are [u, 2u), unknown 2u
+                known += int(np.count_nonzero(codes != 2 * u))
+                lower += int(np.count_nonzero((codes >= u) & (codes != 2 * u)))
+            run.codes.append(codes)
+        if opts.masked == "evidence" and run.model.mask is None:
+            share = lower / known if known else 0.5
+            run.model = replace_tables(run.model, mask=np.full(run.model.n_states, share))
+            run.mask_note = (
+                f"every state started from the soft-masked share of all known bases ({share:.6g})"
+            )
     del records
     if run.unseen:
         log(
@@ -322,7 +347,7 @@ def fit(opts: FitOptions, *, log: Log = quiet) -> FitReport:
     if opts.em:
         _refine_by_em(run, opts, log)
     else:
-        _score_counted(run, log)
+        _score_counted(run, log, mask=opts.masked == "evidence")
     prov = provenance(opts, run)
     final = fitted_model(opts, run, prov)
     write_model_folder(final, out, force=opts.force, inputs=inputs)
@@ -376,9 +401,13 @@ def _count_genes(
         rid = records[k // 2].id + ("" if k % 2 == 0 else " (reverse complement)")
         codes = api.encode(tables, seq, masked_unknown=masked)
         counts.add(count_path(start_model, tables, codes, states, record=rid, path=path))
+        if opts.masked == "evidence":
+            counts.add(_mask_only(start_model, count_mask(tables, seq, states)))
         for group, lengths in chain_runs(start_model, states).items():
             runs.setdefault(group, []).extend(lengths)
         if k % 2 == 0:
+            if opts.masked == "evidence":
+                codes = api.mask_evidence_codes(tables, seq, codes)
             run.codes.extend(codes[g.start0 : g.end0] for g in stretch.on(records[k // 2].id))
     pool_counts(start_model, counts)
     _estimate_counted(run, counts, "counting from a gene annotation")
@@ -436,6 +465,9 @@ def _count_labels(
         counts.add(
             count_path(start_model, tables, codes, states, record=rec.id, path=path, track=track)
         )
+        if opts.masked == "evidence":
+            counts.add(_mask_only(start_model, count_mask(tables, rec.seq, states)))
+            codes = api.mask_evidence_codes(tables, rec.seq, codes)
         run.codes.extend(codes[g.start0 : g.end0] for g in stretch.on(rec.id))
     _estimate_counted(run, counts, "counting from labels")
     log(
@@ -457,6 +489,7 @@ def _refine_by_em(run: FitRun, opts: FitOptions, log: Log) -> None:
             record_ids=run.ids,
             path=opts.fasta,
             log=log,
+            mask=opts.masked == "evidence",
         )
     except ImpossibleSequenceError as exc:
         if opts.labels:
@@ -476,9 +509,16 @@ def _refine_by_em(run: FitRun, opts: FitOptions, log: Log) -> None:
     log(f"em: {run.stop_reason}")
 
 
-def _score_counted(run: FitRun, log: Log) -> None:
+def _mask_only(model: Model, mask: np.ndarray) -> Counts:
+    """Counts that hold only the mask counts ``mask`` (``(M, 2)``)."""
+    out = Counts.zeros(model)
+    out.mask = mask
+    return out
+
+
+def _score_counted(run: FitRun, log: Log, *, mask: bool = False) -> None:
     """The log-likelihood of the records under the counted model (no EM)."""
-    fitted_tables = api.prepare(run.model)
+    fitted_tables = api.prepare(run.model, mask=mask)
     try:
         run.loglik = float(sum(api.loglik(fitted_tables, c) for c in run.codes))
     except ImpossibleSequenceError:

@@ -28,6 +28,9 @@ class Counts:
     ``start[s]``, ``transitions[s, t]``, ``end[s]`` (records ending in s) and
     ``emissions[s, c, x]`` (order-k context c, symbol x; full-order positions
     only).  ``loglik`` is the natural-log likelihood behind expected counts.
+    ``mask[s]`` (``--masked evidence`` only, else None): the known bases of state s
+    in upper case (column 0) and soft-masked (column 1), every position, whatever its
+    context.
     """
 
     start: np.ndarray
@@ -35,11 +38,12 @@ class Counts:
     end: np.ndarray
     emissions: np.ndarray
     loglik: float = 0.0
+    mask: np.ndarray | None = None
 
     @classmethod
     def zeros(cls, model: Model) -> Counts:
         m, a, k = model.n_states, len(model.alphabet), model.order
-        return cls(np.zeros(m), np.zeros((m, m)), np.zeros(m), np.zeros((m, a**k, a)))
+        return cls(np.zeros(m), np.zeros((m, m)), np.zeros(m), np.zeros((m, a**k, a)), mask=None)
 
     def add(self, other: Counts) -> None:
         self.start += other.start
@@ -47,6 +51,25 @@ class Counts:
         self.end += other.end
         self.emissions += other.emissions
         self.loglik += other.loglik
+        if other.mask is not None:
+            self.mask = other.mask.copy() if self.mask is None else self.mask + other.mask
+
+
+def count_mask(tables: api.EngineTables, seq: bytes, states: np.ndarray) -> np.ndarray:
+    """Per state, its known bases in upper case and soft-masked: ``(M, 2)`` counts.
+
+    ``states`` is the record's known path (-1: no state, skipped); unknown bases (N,
+    ambiguity codes, in either case) are skipped, as the engine ignores their mask.
+    """
+    m = tables.n_states
+    raw = np.frombuffer(seq, dtype=np.uint8)
+    known = (tables.symbol_lookup[raw] >= 0) & (states >= 0)
+    lower = (raw >= ord("a")) & (raw <= ord("z"))
+    st = states.astype(np.int64)
+    out = np.zeros((m, 2))
+    out[:, 0] = np.bincount(st[known & ~lower], minlength=m)[:m]
+    out[:, 1] = np.bincount(st[known & lower], minlength=m)[:m]
+    return out
 
 
 def pool_counts(model: Model, counts: Counts) -> None:

@@ -8,7 +8,12 @@ been made.  The back-off rows (contexts shorter than k) are held fixed at the EM
 start model's values (explicit rows as given, otherwise derived from its order-k
 table) and written explicitly, so that every EM update is an exact EM step (the
 log-likelihood never decreases) and the written model reproduces the reported
-log-likelihood.  With a pseudocount p > 0 the update maximises
+log-likelihood.  With ``mask`` (``--masked evidence``) the codes read soft-masked
+bases as evidence (the doubled code layout of :mod:`seqstate.engine.tables`): the
+emission counts of a base are the sum of its two codes, and the mask table is
+re-estimated from the expected masked and unmasked bases of each state, pooled as
+counting pools them (:func:`.estimation.estimate_mask`), every position counted.
+With a pseudocount p > 0 the update maximises
 ``LL + p * sum(log theta)`` over the cells that receive it (a Dirichlet prior);
 that objective, not LL itself, is then the one that never decreases, and the stop
 rule uses it.  Log-likelihoods are natural logs.
@@ -75,14 +80,16 @@ def expected_counts(
     record_ids: Sequence[str] | None = None,
     path: str | None = None,
     mode: int | None = None,
+    mask: bool = False,
 ) -> Counts:
     """E-step: expected counts pooled over records, and the total log-likelihood (nat).
 
     ``lower`` are the back-off rows in use (see :func:`fixed_backoff`).  Raises
     ImpossibleSequenceError (naming the record and ``path``) for a record of
-    probability zero.
+    probability zero.  ``mask``: the codes read the mask as evidence (module
+    docstring); the counts then hold the expected mask counts too.
     """
-    tt = training.training_tables(model, lower, mode=mode)
+    tt = training.training_tables(model, lower, mode=mode, mask=mask)
     acc = training.Accumulators.zeros(tt)
     total = 0.0
     for r, codes in enumerate(codes_list):
@@ -103,8 +110,14 @@ def expected_counts(
         total += ll
     m, a, k = model.n_states, len(model.alphabet), model.order
     lo, hi = int(tt.offsets[k]), int(tt.offsets[k + 1])
-    emis = acc.emit[lo:hi].reshape(a**k, a, m).transpose(2, 0, 1).copy()
-    return Counts(acc.start.copy(), acc.trans.copy(), acc.end.copy(), emis, total)
+    emit = acc.emit[lo:hi]
+    mask_counts = None
+    if mask:
+        u = int(tt.offsets[k + 1])
+        emit = emit + acc.emit[u + lo : u + hi]
+        mask_counts = np.stack([acc.emit[:u].sum(axis=0), acc.emit[u : 2 * u].sum(axis=0)], 1)
+    emis = emit.reshape(a**k, a, m).transpose(2, 0, 1).copy()
+    return Counts(acc.start.copy(), acc.trans.copy(), acc.end.copy(), emis, total, mask=mask_counts)
 
 
 def em_step(
@@ -117,10 +130,11 @@ def em_step(
     record_ids: Sequence[str] | None = None,
     path: str | None = None,
     mode: int | None = None,
+    mask: bool = False,
 ) -> tuple[Model, float, list[str]]:
     """One Baum–Welch update: (new model, log-likelihood of ``model``, rows kept)."""
     counts = expected_counts(
-        model, codes_list, lower=lower, record_ids=record_ids, path=path, mode=mode
+        model, codes_list, lower=lower, record_ids=record_ids, path=path, mode=mode, mask=mask
     )
     new, kept = estimate(model, counts, pseudocount=pseudocount, frozen=frozen, lower=lower)
     return new, counts.loglik, kept
@@ -181,6 +195,7 @@ def baum_welch(
     path: str | None = None,
     log: Log = quiet,
     mode: int | None = None,
+    mask: bool = False,
 ) -> EMResult:
     """Baum–Welch from ``model`` over the encoded records (pooled).
 
@@ -190,7 +205,9 @@ def baum_welch(
     is positive).  Stops when the relative gain is below ``tol`` ("converged")
     or after ``max_iter`` updates.  If the objective ever falls (rounding), the
     better previous model is kept.  Back-off rows are held fixed (module
-    docstring).  Forbidden transitions and zero emissions stay exactly zero.
+    docstring).  Forbidden transitions and zero emissions stay exactly zero.  ``mask``:
+    the codes read the mask as evidence and the mask table is re-estimated (module
+    docstring).
     """
     if max_iter < 0:
         raise UsageError(f"--max-iter {max_iter} must be at least 0")
@@ -207,10 +224,16 @@ def baum_welch(
     while True:
         t0 = time.perf_counter()
         counts = expected_counts(
-            current, codes_list, lower=lower, record_ids=record_ids, path=path, mode=mode
+            current,
+            codes_list,
+            lower=lower,
+            record_ids=record_ids,
+            path=path,
+            mode=mode,
+            mask=mask,
         )
         ll = counts.loglik
-        obj = objective(current, ll, pseudocount=pseudocount, frozen=frozen)
+        obj = objective(current, ll, pseudocount=pseudocount, frozen=frozen, mask=mask)
         history.append((it, ll, obj))
         gain = _log_iteration(log, it, ll, obj, prev_obj, pseudocount, t0)
         what = "objective" if pseudocount else "log-likelihood"

@@ -16,6 +16,14 @@
 * Length chains (``[fit] length_chains``): the moves into, along and out of
   chained states are set from the lengths of the labelled runs through them
   (:func:`set_length_chains`, :mod:`seqstate.model.lengths`), not from counts.
+* The mask table (``--masked evidence``, P(masked | state)): the soft-masked share
+  of each pool's known bases plus the pseudocount on both sides,
+  ``(masked + p) / (known + 2p)``; a pool is the states of one label (all CDS
+  states, all intron states, ...) or, for the unlabelled states, of one name stem
+  (the name without its digits and strand sign: ``up1+`` ... ``up12-`` are one pool,
+  ``intergenic`` and ``repeat`` one each), so thin states get a stable value
+  (:func:`mask_pools`).  A pool without counts keeps the start model's values (0.5
+  when it has none); frozen emissions keep the mask, a frozen state its own value.
 * Back-off rows (contexts shorter than k) are not re-estimated: counting drops
   any explicit back-off rows so that the engine derives them from the counted
   order-k table; EM passes the rows it holds fixed (:mod:`.em`).
@@ -55,6 +63,7 @@ def replace_tables(model: Model, **changes: Any) -> Model:
         "background_label": model.background_label,
         "provenance": dict(model.provenance),
         "extra": dict(model.extra),
+        "mask": model.mask,
     }
     fields.update(changes)
     return make_model(**fields, check=False)
@@ -170,6 +179,51 @@ def _interpolation(model: Model) -> tuple[float, set[int]]:
     return strength, states
 
 
+def mask_pools(model: Model) -> tuple[np.ndarray, list[str]]:
+    """The mask-table pool of every state (see the module docstring) and the pool names.
+
+    Returns ``(pool, names)``: ``pool[s]`` indexes ``names``; a pool is named by its
+    label, or by ``name stem`` for unlabelled states.
+    """
+    keys: list[str] = []
+    pool = np.zeros(model.n_states, dtype=np.int64)
+    for s, st in enumerate(model.states):
+        if st.label is not None:
+            key = st.label
+        else:
+            stem = "".join(ch for ch in st.name if not ch.isdigit()).rstrip("+-") or st.name
+            key = f"{stem} (unlabelled)"
+        if key not in keys:
+            keys.append(key)
+        pool[s] = keys.index(key)
+    return pool, keys
+
+
+def estimate_mask(
+    model: Model, counts: np.ndarray, *, pseudocount: float, frozen: Frozen = NOTHING_FROZEN
+) -> tuple[np.ndarray, list[str]]:
+    """The mask table from ``counts`` (``(M, 2)``: upper-case and soft-masked known
+    bases per state), pooled by :func:`mask_pools`; returns (table, pools kept)."""
+    old = model.mask if model.mask is not None else np.full(model.n_states, 0.5)
+    if frozen.emissions and model.mask is not None:
+        return old.copy(), []
+    pool, names = mask_pools(model)
+    pc = float(pseudocount)
+    out = old.copy()
+    kept: list[str] = []
+    for g, name in enumerate(names):
+        members = pool == g
+        n0, n1 = (float(v) for v in counts[members].sum(axis=0))
+        total = n0 + n1 + 2 * pc
+        if total > 0:
+            out[members] = (n1 + pc) / total
+        else:
+            kept.append(f"mask of {name}")
+    for s in frozen.states:
+        out[s] = old[s]
+    return out, kept
+
+
 def estimate(
     model: Model,
     counts: Counts,
@@ -240,16 +294,29 @@ def estimate(
                 new_lower[j] = keep
     else:
         new_lower = {j: v.copy() for j, v in lower.items()}
+    mask = model.mask
+    if counts.mask is not None:
+        mask, mask_kept = estimate_mask(model, counts.mask, pseudocount=pc, frozen=frozen)
+        kept.extend(mask_kept)
     new = replace_tables(
-        model, start=start, transitions=trans, emissions=emis, end=end, lower_emissions=new_lower
+        model,
+        start=start,
+        transitions=trans,
+        emissions=emis,
+        end=end,
+        lower_emissions=new_lower,
+        mask=mask,
     )
     return new, kept
 
 
-def objective(model: Model, loglik: float, *, pseudocount: float, frozen: Frozen) -> float:
+def objective(
+    model: Model, loglik: float, *, pseudocount: float, frozen: Frozen, mask: bool = False
+) -> float:
     """``loglik + p * sum(log theta)`` over the re-estimated cells that get the pseudocount p.
 
-    Equal to ``loglik`` when p = 0.  Natural logs.
+    Equal to ``loglik`` when p = 0.  Natural logs.  ``mask``: the mask table is
+    re-estimated too (one P(masked) and one P(unmasked) per pool).
     """
     if pseudocount == 0:
         return loglik
@@ -269,6 +336,11 @@ def objective(model: Model, loglik: float, *, pseudocount: float, frozen: Frozen
                 total += add(model.end[s : s + 1])
         if not (frozen.emissions or s in frozen.states):
             total += add(model.emissions[s])
+    if mask and model.mask is not None and not frozen.emissions:
+        pool, _ = mask_pools(model)
+        first = np.unique(pool, return_index=True)[1]
+        values = model.mask[first]
+        total += add(values) + add(1.0 - values)
     return loglik + pseudocount * total
 
 

@@ -111,6 +111,24 @@ def provenance(opts: FitOptions, run: FitRun) -> dict[str, Any]:
     prov["bases"] = run.bases
     prov["stretch"] = run.stretch
     prov["masked"] = opts.masked
+    if opts.masked == "evidence":
+        from seqstate.commands.fit.estimation import mask_pools
+
+        how = []
+        if run.mask_note:
+            how.append(run.mask_note)
+        if opts.labels:
+            how.append(
+                "counted from the labelled bases (soft-masked share of the known bases, "
+                f"pseudocount {run.pc_count:g} on both sides)"
+            )
+        if opts.em:
+            how.append("re-estimated by Baum-Welch from the expected masked and unmasked bases")
+        prov["mask_table"] = "; ".join(how) + "; pooled by " + ", ".join(mask_pools(start_model)[1])
+    elif start_model.mask is not None:
+        prov["mask_table"] = "copied from the start model (not used with --masked " + (
+            opts.masked + ")"
+        )
     if opts.em:
         prov.update(
             {
