@@ -3,10 +3,12 @@
 Oracle: with a mask table P(masked | state), a hidden Markov model over (base, mask)
 pairs whose emission factor is P(base | context, state) * P(mask | state) -- the
 product alphabet, the mask independent of the base given the state, an unknown base
-carrying no mask evidence (factor 1).  Likelihoods, posteriors and the best path are
-then sums and maxima over every state path (exhaustive enumeration,
-``seqstate.engine.reference.brute_force``; common practice), built here from the
-model's own tables and the record's letters, never from the engine's code table.
+carrying no mask evidence (factor 1).  A mask chain conditions P(mask | state) on the
+previous position too (none or unknown, masked, unmasked), read from the letters.
+Likelihoods, posteriors and the best path are then sums and maxima over every state
+path (exhaustive enumeration, ``seqstate.engine.reference.brute_force``; common
+practice), built here from the model's own tables and the record's letters, never from
+the engine's code table.
 The chain-sparse family needs 32 states or more, too many to enumerate: it is checked
 against the plain-NumPy scaled forward-backward and Viterbi of
 :mod:`seqstate.engine.reference` (Rabiner 1989, section V.A) on the same lattice.
@@ -30,10 +32,12 @@ from seqstate.model import State, make_model
 TOL = 1e-10
 
 
-def _with_mask(model, rng):
-    """``model`` with a random mask table (values away from 0 and 1) and explicit
-    back-off rows (so that the oracle reads them as the engine does)."""
+def _with_mask(model, rng, chain=False):
+    """``model`` with a random mask table (values away from 0 and 1; ``chain``: a mask
+    chain, shape (M, 3)) and explicit back-off rows (so that the oracle reads them as the
+    engine does)."""
     rows = api.backoff_rows(model)
+    shape = (model.n_states, 3) if chain else (model.n_states,)
     return make_model(
         name=model.name,
         alphabet=model.alphabet,
@@ -44,8 +48,19 @@ def _with_mask(model, rng):
         end=model.end,
         order=model.order,
         lower_emissions={j: v.copy() for j, v in rows.items()},
-        mask=rng.uniform(0.05, 0.95, size=model.n_states),
+        mask=rng.uniform(0.05, 0.95, size=shape),
     )
+
+
+def _pm(model, seq: str, i: int) -> np.ndarray:
+    """P(masked | state) at position i: the table, or the chain's column for what the
+    position before holds (columns: none or unknown, masked, unmasked)."""
+    if model.mask.ndim == 1:
+        return model.mask
+    before = seq[i - 1] if i > 0 else "N"
+    if before.upper() not in model.alphabet:
+        return model.mask[:, 0]
+    return model.mask[:, 1] if before.islower() else model.mask[:, 2]
 
 
 def _lattice(model, seq: str) -> np.ndarray:
@@ -65,8 +80,8 @@ def _lattice(model, seq: str) -> np.ndarray:
         for q in ctx_syms:
             ctx = ctx * a + q
         rows = model.emissions if j == k else lower[j]
-        pm = model.mask if ch.islower() else 1.0 - model.mask
-        out[i] = rows[:, ctx, x] * pm
+        p = _pm(model, seq, i)
+        out[i] = rows[:, ctx, x] * (p if ch.islower() else 1.0 - p)
         run.append(x)
     return out
 
@@ -91,25 +106,26 @@ CASES = [
 ]
 
 
+@pytest.mark.parametrize("chain", [False, True], ids=["table", "chain"])
 @pytest.mark.parametrize("m,n,k,with_end,seed,family", CASES)
-def test_engine_equals_enumeration(random_model, m, n, k, with_end, seed, family):
+def test_engine_equals_enumeration(random_model, m, n, k, with_end, seed, family, chain):
     rng = np.random.default_rng(seed)
     narrow = 2 if family == "small" and m > 2 else None
     base = random_model(
         rng, n_states=m, order=k, with_end=with_end, p_forbid=0.2, max_emitters=narrow
     )
-    model = _with_mask(base, rng)
+    model = _with_mask(base, rng, chain)
     tables = api.prepare(model, mask=True, kernels=family)
     assert kernel_family(tables) == family
     for _ in range(200):
         seq = _record(rng, n)
         lattice = _lattice(model, seq)
         bf = reference.brute_force(model.start, model.transitions, _end(model), lattice)
-        if bf["total"] > 0:
+        both = any(ch.islower() for ch in seq) and any(ch.isupper() for ch in seq)
+        if bf["total"] > 0 and both:
             break
     else:
-        raise AssertionError("no possible record drawn")
-    assert any(ch.islower() for ch in seq) and any(ch.isupper() for ch in seq)
+        raise AssertionError("no possible record with both cases drawn")
     codes = api.encode(tables, seq)
     assert np.allclose(tables.E[codes.astype(np.int64)], lattice, rtol=1e-13, atol=0)
     assert api.loglik(tables, codes) == pytest.approx(bf["loglik"], abs=TOL)
@@ -120,10 +136,11 @@ def test_engine_equals_enumeration(random_model, m, n, k, with_end, seed, family
     assert lp == pytest.approx(bf["best_logp"], abs=TOL)
 
 
-def test_sparse_family_equals_reference(random_model):
+@pytest.mark.parametrize("chain", [False, True], ids=["table", "chain"])
+def test_sparse_family_equals_reference(random_model, chain):
     rng = np.random.default_rng(41)
     base = random_model(rng, n_states=40, order=2, with_end=True, layout="chains")
-    model = _with_mask(base, rng)
+    model = _with_mask(base, rng, chain)
     tables = api.prepare(model, mask=True, kernels="sparse")
     assert kernel_family(tables) == "sparse"
     plain = api.prepare(model)
@@ -146,8 +163,9 @@ def test_sparse_family_equals_reference(random_model):
     assert lp == pytest.approx(lp_ref, abs=1e-8)
 
 
+@pytest.mark.parametrize("chain", [False, True], ids=["table", "chain"])
 @pytest.mark.parametrize("family", ["generic", "small", "sparse"])
-def test_even_mask_changes_nothing_but_the_likelihood(random_model, family):
+def test_even_mask_changes_nothing_but_the_likelihood(random_model, family, chain):
     """P(masked | state) = 0.5 in every state: the mask says nothing about the state, so
     posteriors and the best path equal those without the mask; the log-likelihood is
     lower by ln 2 per known base."""
@@ -165,7 +183,7 @@ def test_even_mask_changes_nothing_but_the_likelihood(random_model, family):
         emissions=base.emissions,
         end=base.end,
         order=base.order,
-        mask=np.full(base.n_states, 0.5),
+        mask=np.full((base.n_states, 3) if chain else base.n_states, 0.5),
     )
     plain = api.prepare(model, kernels=family)
     masked = api.prepare(model, mask=True, kernels=family)
@@ -182,20 +200,21 @@ def test_even_mask_changes_nothing_but_the_likelihood(random_model, family):
     assert api.viterbi(plain, c0)[0].tolist() == api.viterbi(masked, c1)[0].tolist()
 
 
-def test_streaming_in_chunks_equals_the_whole_record(random_model):
-    """Codes read window by window (with the context before each window, as the
-    long-record path of annotate reads them) equal the whole record's, and the streamed
-    checkpoints equal the whole-record posterior's."""
+@pytest.mark.parametrize("order,chain", [(2, False), (2, True), (0, True)])
+def test_streaming_in_chunks_equals_the_whole_record(random_model, order, chain):
+    """Codes read window by window (with the context before each window, at least one
+    base, as the long-record path of annotate reads them) equal the whole record's, and
+    the streamed checkpoints equal the whole-record posterior's."""
     rng = np.random.default_rng(61)
-    base = random_model(rng, n_states=40, order=2, with_end=True, layout="chains")
-    model = _with_mask(base, rng)
+    base = random_model(rng, n_states=40, order=order, with_end=True, layout="chains")
+    model = _with_mask(base, rng, chain)
     tables = api.prepare(model, mask=True)
     plain = api.prepare(model)
     seq = sample_record(rng, 5000, p_unknown=0.01, model=model, tables=plain, n_run=4)
     text = str(seq)
     text = "".join(c.lower() if (i // 211) % 2 else c for i, c in enumerate(text))
     whole = api.encode(tables, text)
-    k = tables.order
+    k = max(tables.order, 1)
     for step in (7, 1000, 4096):
         pieces = []
         for a in range(0, len(text), step):
@@ -240,6 +259,14 @@ def test_mask_table_round_trip(tmp_path):
     back = load_model(tmp_path / "m")
     assert back.equals(model)
     assert not back.equals(_two_state())
+    chain = _two_state(mask=[[0.5, 0.25, 0.125], [0.75, 0.875, 0.0625]])
+    save_model(chain, tmp_path / "c")
+    assert (tmp_path / "c" / "mask.tsv").read_text() == (
+        "state\tmask\tafter_masked\tafter_unmasked\n"
+        "gene\t0.5\t0.25\t0.125\nrep\t0.75\t0.875\t0.0625\n"
+    )
+    back = load_model(tmp_path / "c")
+    assert back.equals(chain) and not back.equals(model)
     plain = save_model(_two_state(), tmp_path / "p")
     assert not (tmp_path / "p" / "mask.tsv").exists()
     assert load_model(plain).mask is None
@@ -252,6 +279,11 @@ def test_mask_table_round_trip(tmp_path):
         ("state\tmask\ngene\t0.1\n", "no row for state 'rep'"),
         ("state\tmask\ngene\t0.1\nrep\t-0.2\n", "is negative"),
         ("state\tP\ngene\t0.1\nrep\t0.2\n", "expected 'state<TAB>mask'"),
+        ("state\tmask\ngene\t0.1\t0.2\nrep\t0.2\n", "found 3 columns, expected 2"),
+        (
+            "state\tmask\tafter_masked\tafter_unmasked\ngene\t0.1\t2\t0.3\nrep\t0\t0\t0\n",
+            "P(masked) 2 is above 1",
+        ),
     ],
 )
 def test_bad_mask_table_is_one_error_line(tmp_path, text, expected):
@@ -301,11 +333,26 @@ def test_fit_counts_the_mask_per_label(tmp_path):
     res = _cli(["fit", "-m", TWO, fasta, "--labels", bed, "--masked", "evidence", "-o", out])
     assert res.exit_code == 0, res.output
     model = load_model(out)
-    # hand counts, pseudocount 1 on both sides: (masked + 1) / (known + 2)
-    expected = {"a": 5 / 12, "b": 11 / 12, "bg": 6 / 41}
-    assert model.mask is not None
+    # a mask chain, pseudocount 1 on both sides: (masked + 1) / (known + 2) per state and
+    # column (no known base before, after a masked one, after an unmasked one), counted
+    # here letter by letter
+    label = ["bg"] * 60
+    label[4:14] = ["a"] * 10
+    label[30:40] = ["b"] * 10
+    tally = {(s, j): [0, 0] for s in ("a", "b", "bg") for j in range(3)}
+    for i, ch in enumerate(R1):
+        if ch.upper() not in "ACGT":
+            continue
+        before = R1[i - 1] if i else "N"
+        j = 0 if before.upper() not in "ACGT" else 1 if before.islower() else 2
+        tally[label[i], j][ch.islower()] += 1
+    assert tally["a", 2] == [5, 1] and tally["a", 1] == [1, 3]  # the hand count of alpha
+    assert model.mask is not None and model.mask.shape == (3, 3)
     for s, name in enumerate(model.state_names):
-        assert model.mask[s] == pytest.approx(expected[name], rel=1e-12), name
+        for j in range(3):
+            n0, n1 = tally[name, j]
+            want = (n1 + 1) / (n0 + n1 + 2)
+            assert model.mask[s, j] == pytest.approx(want, rel=1e-12), (name, j)
     prov = model.provenance
     assert prov["masked"] == "evidence"
     assert "counted from the labelled bases" in prov["mask_table"]
@@ -418,10 +465,13 @@ def test_other_commands_refuse_evidence_without_a_mask_table(tmp_path, command):
 
 
 # ---------------------------------------------------------------- sample
-def test_sample_soft_masks_by_the_mask_table(tmp_path):
+@pytest.mark.parametrize(
+    "mask", [[1.0, 0.0], [[1.0, 1.0, 1.0], [0.0, 0.0, 0.0]]], ids=["table", "chain"]
+)
+def test_sample_soft_masks_by_the_mask_table(tmp_path, mask):
     """P(masked) 1 in one state and 0 in the other: the lowercase bases are exactly the
     true features of the first; the bases themselves are those drawn without a mask."""
-    masked = save_model(_two_state(mask=[1.0, 0.0], name="m"), tmp_path / "m").parent
+    masked = save_model(_two_state(mask=mask, name="m"), tmp_path / "m").parent
     plain = save_model(_two_state(name="m"), tmp_path / "p").parent
     runs = {}
     for name, folder in (("m", masked), ("p", plain)):
@@ -459,3 +509,17 @@ def test_base_and_unknown_ignore_a_mask_table(tmp_path, masked):
         assert res.exit_code == 0, res.output
         gffs.append((out / "r.features.tsv").read_bytes())
     assert gffs[0] == gffs[1]
+
+
+def test_sample_follows_the_mask_chain(tmp_path):
+    """A chain that never unmasks after a masked base and never masks after an unmasked
+    one, started masked: every base of every record is lower case; started unmasked:
+    none is."""
+    for first, want in ((1.0, True), (0.0, False)):
+        chain = [[first, 1.0, 0.0], [first, 1.0, 0.0]]
+        folder = save_model(_two_state(mask=chain, name="c"), tmp_path / f"c{first}").parent
+        fa = tmp_path / f"c{first}.fa"
+        args = ["sample", folder, "--length", 3000, "--records", 2, "--seed", 3, "-o", fa]
+        assert _cli(args).exit_code == 0
+        seq = "".join(ln for ln in fa.read_text().splitlines() if not ln.startswith(">"))
+        assert len(seq) == 6000 and all(c.islower() == want for c in seq)

@@ -351,7 +351,7 @@ class Runner:
             return api.symbols_of(tables, read_bases(a, b), masked_unknown=self.masked_unknown)
 
         def read_codes(a: int, b: int) -> np.ndarray:
-            lo = max(0, a - order)
+            lo = max(0, a - max(order, 1))  # a mask chain reads the base before too
             codes = api.encode_symbols(tables, read_symbols(lo, b))
             return codes[a - lo :]
 

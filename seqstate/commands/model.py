@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import numpy as np
+
 from seqstate.io.tables import list_builtin, load_model, model_sha256, resolve_model_path
 from seqstate.model import Model, default_thresholds
 
@@ -69,6 +71,7 @@ def summary(m: Model, path: str, sha: str) -> str:
     if m.mask is not None:
         lines.append(
             "mask      P(base soft-masked | state) given per state (used by --masked evidence)"
+            + ("" if m.mask.ndim == 1 else "; a chain: also after a masked and an unmasked base")
         )
     lines.append(f"sha256    {sha}")
     lines.append("")
@@ -85,7 +88,7 @@ def summary(m: Model, path: str, sha: str) -> str:
     for i, s in enumerate(m.states):
         end = "-" if m.end is None else f"{m.end[i]:.4g}"
         st = "inf" if stay[i] == float("inf") else f"{stay[i]:.4g}"
-        pm = "" if m.mask is None else f"{m.mask[i]:>10.4g}  "
+        pm = "" if m.mask is None else f"{float(np.ravel(m.mask[i])[0]):>10.4g}  "
         lines.append(
             f"{s.name:<{w}}  {labels[i]:<{lw}}  {s.strand or '.':<6}  "
             f"{m.start[i]:>10.4g}  {end:>10}  {pm}{st}"

@@ -9,7 +9,7 @@ import numpy as np
 
 from seqstate.commands.inputs import read_set
 from seqstate.engine import api
-from seqstate.engine.sampling import _CHUNK, _sample_chunk
+from seqstate.engine.sampling import _CHUNK, _sample_chunk, chain_mask
 from seqstate.errors import UsageError
 from seqstate.io.atomic import OutputSet, check_outputs
 from seqstate.io.fasta_stream import FastaStreamWriter
@@ -121,6 +121,7 @@ def sample(opts: SampleOptions) -> SampleReport:
             gff.header([(rid, 1, opts.length) for rid in ids])
         for rid in ids:
             fasta.start(rid, desc)
+            masker.start()
             truth = None if gff is None else TruthPieces(kind, model, groups, gff, rid)
             for path, sym in draw.chunks(opts.length, rng):
                 fasta.write(masker.letters(alphabet[sym], path))
@@ -136,20 +137,31 @@ class _Masker:
     """Soft-masking of sampled bases by the model's mask table (P(masked | state)).
 
     A model without a mask table writes its letters as they are.  With one, each base
-    is written in lower case with its state's probability, from a generator of its own
-    (seeded by the run's seed and a constant), so the bases and states drawn are those
-    of a run without the mask table, case apart.
+    is written in lower case with its state's probability (for a mask chain, the
+    column of what the base before was: none at the record start, masked, unmasked),
+    from a generator of its own (seeded by the run's seed and a constant), so the bases
+    and states drawn are those of a run without the mask table, case apart.
     """
 
     def __init__(self, model: Model, seed: int) -> None:
         self.mask = model.mask
         self.rng = np.random.default_rng([seed, 0x6D61736B]) if self.mask is not None else None
+        self.prev = 0  # mask chain: what the base before was (0 none, 1 masked, 2 unmasked)
+
+    def start(self) -> None:
+        """A new record: no base before the first."""
+        self.prev = 0
 
     def letters(self, letters: np.ndarray, path: np.ndarray) -> bytes:
         """The bytes of one chunk: ``letters`` (upper case) with its masked bases lowered."""
         if self.mask is None or self.rng is None:
             return letters.tobytes()
-        masked = self.rng.random(path.shape[0]) < self.mask[path]
+        u = self.rng.random(path.shape[0])
+        if self.mask.ndim == 1:
+            masked = u < self.mask[path]
+        else:
+            masked = np.empty(path.shape[0], dtype=np.bool_)
+            self.prev = chain_mask(u, path, self.mask, self.prev, masked)
         out = letters.copy()
         out[masked] = np.frombuffer(bytes(out[masked]).lower(), dtype=np.uint8)
         return out.tobytes()

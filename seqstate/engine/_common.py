@@ -96,6 +96,24 @@ def transition_lists(
     return pred_ptr, pred_src, pred_p, succ_ptr, succ_dst, succ_p
 
 
+def mask_blocks(mask: np.ndarray) -> int:
+    """Code blocks of a mask table: 2 for one P(masked) per state, 6 for a mask chain."""
+    return 2 if np.ndim(mask) == 1 else 6
+
+
+#: Per mask-chain block q (previous position: 0 none or unknown, 1 unmasked, 2 masked),
+#: the column of the ``(M, 3)`` mask table that gives P(masked).
+CHAIN_COLUMN = (0, 2, 1)
+
+
+def mask_block_probability(mask: np.ndarray, block: int) -> np.ndarray:
+    """Per state, the mask factor of the codes of ``block`` (see :func:`code_table`)."""
+    mask = np.asarray(mask, dtype=np.float64)
+    cur = block % 2
+    p = mask if mask.ndim == 1 else mask[:, CHAIN_COLUMN[block // 2]]
+    return p if cur else 1.0 - p
+
+
 def code_table(
     model: Model, lower: dict[int, np.ndarray], *, mask: np.ndarray | None = None
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -110,7 +128,11 @@ def code_table(
     With ``mask`` (P(masked | state), one per state) the U = ``offsets[k + 1]`` base
     codes are doubled: code c < U is the unmasked base, factor ``E[c] * (1 - mask)``,
     code ``U + c`` the same base soft-masked, factor ``E[c] * mask``; the unknown code
-    (now 2U) keeps factor 1, so an unknown base carries no mask evidence.
+    (now 2U) keeps factor 1, so an unknown base carries no mask evidence.  With a mask
+    chain (``mask`` of shape ``(M, 3)``: P(masked) with no known base before, after a
+    masked base, after an unmasked one) there are six blocks: code ``(2q + m) U + c``
+    for the previous position's class q (0 none or unknown, 1 unmasked, 2 masked) and
+    the base's own mask m; the unknown code is 6U (:func:`mask_block_probability`).
     """
     m, a, k = model.n_states, len(model.alphabet), model.order
     offsets = np.zeros(k + 2, dtype=np.int64)
@@ -124,12 +146,12 @@ def code_table(
     E[n_codes - 1, :] = 1.0
     if mask is not None:
         u = n_codes - 1
-        pm = np.asarray(mask, dtype=np.float64)[None, :]
-        doubled = np.zeros((2 * u + 1, m))
-        doubled[:u] = E[:u] * (1.0 - pm)
-        doubled[u : 2 * u] = E[:u] * pm
-        doubled[2 * u] = 1.0
-        E, n_codes = doubled, 2 * u + 1
+        blocks = mask_blocks(mask)
+        doubled = np.zeros((blocks * u + 1, m))
+        for b in range(blocks):
+            doubled[b * u : (b + 1) * u] = E[:u] * mask_block_probability(mask, b)[None, :]
+        doubled[blocks * u] = 1.0
+        E, n_codes = doubled, blocks * u + 1
     nz = [np.flatnonzero(E[c] > 0) for c in range(n_codes)]
     nz_ptr = np.zeros(n_codes + 1, dtype=np.int64)
     nz_ptr[1:] = np.cumsum([len(v) for v in nz])

@@ -104,3 +104,16 @@ def sample_record(
             sym[lo:hi],
         )
     return path, sym
+
+
+@njit(cache=jitcache.CACHE, nogil=True)
+def chain_mask(u, path, mask, prev, out):
+    """Soft-masks drawn along a state path by a mask chain (``mask`` of shape ``(M, 3)``:
+    P(masked) with no base before, after a masked base, after an unmasked one):
+    ``out[i] = u[i] < mask[path[i], column]``, the column following base i - 1 (``prev``
+    for the first: 0 none, 1 masked, 2 unmasked); returns the column after the last."""
+    for i in range(path.shape[0]):
+        m = u[i] < mask[path[i], prev]
+        out[i] = m
+        prev = 1 if m else 2
+    return prev

@@ -28,7 +28,11 @@ state)``); the unknown code is last (2U) with factor 1, so the mask of an unknow
 is ignored.  The context of a code reads the bases only, whatever their case.  On such
 tables :func:`symbols_of` gives a lowercase base the symbol index plus A (still >= 0,
 so "negative: unknown" holds everywhere) and :func:`encode_symbols` turns it into the
-masked code.
+masked code.  A mask chain (a mask table of shape ``(M, 3)``) has six blocks of U codes
+instead of two, ``(2q + m) U + c``, q naming the position before (0: none or unknown, 1:
+unmasked, 2: masked) and m the base's own mask; the unknown code is 6U.  Its codes read
+one base before the position, so a window's codes are read from at least one base
+before it.
 """
 
 from __future__ import annotations
@@ -39,7 +43,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from seqstate.engine import kernels
+from seqstate.engine import _common, kernels
 from seqstate.engine._common import code_table, log0, transition_lists
 from seqstate.engine.buffers import work_buffer
 from seqstate.model import Model
@@ -97,6 +101,9 @@ class EngineTables:
     #: U, the number of base codes, when the tables read the mask as evidence (codes
     #: ``[U, 2U)`` are soft-masked bases; see the module docstring); 0 otherwise
     mask_codes: int = 0
+    #: code blocks of the mask: 2 (one P(masked) per state) or 6 (a mask chain); 1 without
+    #: mask evidence
+    mask_blocks: int = 1
     generic: Backend = field(init=False, repr=False, compare=False)
     backend: Backend = field(init=False, repr=False, compare=False)
 
@@ -168,6 +175,7 @@ def prepare(model: Model, *, kernels: str | None = None, mask: bool = False) -> 
         transitions=T,
         choice=choice,
         mask_codes=int(offsets[-1]) if mask else 0,
+        mask_blocks=_common.mask_blocks(model.mask) if mask and model.mask is not None else 1,
     )
 
 
@@ -201,26 +209,37 @@ def encode(
 
 
 def mask_evidence_codes(
-    tables: EngineTables, seq: bytes | str | np.ndarray, codes: np.ndarray
+    tables: EngineTables, seq: bytes | str | np.ndarray, codes: np.ndarray, blocks: int = 2
 ) -> np.ndarray:
     """The codes that tables of the same model prepared with ``mask=True`` give ``seq``,
     from ``codes``, its codes under ``tables`` (prepared without): U is added at every
     lowercase base that is not unknown and the unknown code becomes 2U (see the module
-    docstring).  Used where one model's codes serve both (``seqstate fit``)."""
+    docstring; ``blocks`` 6 for a mask chain).  Used where one model's codes serve both
+    (``seqstate fit``)."""
     if tables.mask_codes:
         raise ValueError("the codes already read the mask as evidence")
     if isinstance(seq, str):
         seq = seq.encode("ascii")
     raw = np.frombuffer(seq, dtype=np.uint8) if isinstance(seq, (bytes, bytearray)) else seq
     u = tables.unknown_code
-    n_codes = 2 * u + 1
+    known = codes != u
+    lower = (raw >= ord("a")) & (raw <= ord("z")) & known
+    return _mask_blocks_of(codes, known, lower, u, blocks)
+
+
+def _mask_blocks_of(
+    codes: np.ndarray, known: np.ndarray, lower: np.ndarray, u: int, blocks: int
+) -> np.ndarray:
+    """Base codes (< U where ``known``) moved to their mask block; unknown -> blocks * U."""
+    n_codes = blocks * u + 1
     dtype = np.uint8 if n_codes <= 256 else np.uint16 if n_codes <= 65536 else np.int32
-    c = codes.astype(dtype)
-    unknown = codes == u
-    lower = (raw >= ord("a")) & (raw <= ord("z")) & ~unknown
-    c[lower] += dtype(u)
-    c[unknown] = 2 * u
-    return c
+    block = lower.astype(np.int64)
+    if blocks == 6:
+        prev = np.zeros(codes.shape[0], dtype=np.int64)  # 0: no known base before
+        prev[1:] = np.where(known[:-1], 1 + lower[:-1], 0)
+        block = block + 2 * prev
+    out = np.where(known, codes.astype(np.int64) + u * block, blocks * u).astype(dtype)
+    return out
 
 
 def encode_symbols(tables: EngineTables, sym: np.ndarray) -> np.ndarray:
@@ -236,8 +255,12 @@ def encode_symbols(tables: EngineTables, sym: np.ndarray) -> np.ndarray:
     if tables.mask_codes:
         masked = sym >= a
         base = np.where(masked, sym - np.int8(a), sym).astype(np.int8)
-        kernels.encode_codes(base, tables.order, a, tables.offsets, tables.unknown_code, out)
-        out[masked] += dtype(tables.mask_codes)  # a masked base is never unknown
-        return out
+        u = tables.mask_codes
+        kernels.encode_codes(base, tables.order, a, tables.offsets, u, out)
+        if tables.mask_blocks == 2:
+            out[masked] += dtype(u)  # a masked base is never unknown
+            out[base < 0] = tables.unknown_code
+            return out
+        return _mask_blocks_of(out, base >= 0, masked, u, tables.mask_blocks)
     kernels.encode_codes(sym, tables.order, a, tables.offsets, tables.unknown_code, out)
     return out

@@ -17,7 +17,13 @@ from pathlib import Path
 
 from seqstate.errors import ModelFormatError
 from seqstate.io import files
-from seqstate.io.tsv_tables import read_emissions, read_text, read_transitions, read_vector
+from seqstate.io.tsv_tables import (
+    read_emissions,
+    read_mask,
+    read_text,
+    read_transitions,
+    read_vector,
+)
 from seqstate.model import (
     MAX_TRANSITION_CELLS,
     STRANDS,
@@ -353,7 +359,7 @@ def load_manifest(manifest: Path) -> Model:
     emis_path = required_path("emissions")
     emissions, lower = read_emissions(emis_path, names, alphabet, order, strict)
     mask_path = table_path("mask", False)
-    mask = read_vector(mask_path, names, "mask", False) if mask_path is not None else None
+    mask = read_mask(mask_path, names) if mask_path is not None else None
     provenance = doc.get("provenance", {})
     if not isinstance(provenance, dict):
         raise ModelFormatError("[provenance] must be a table of key = value lines", path=manifest)

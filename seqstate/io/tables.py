@@ -8,7 +8,8 @@ Layout (our own)::
       end.tsv           state <TAB> end          (optional)
       transitions.tsv   from <TAB> to-state ...  (rows = from, columns = to; empty = 0 = forbidden)
       emissions.tsv     state <TAB> context <TAB> one column per symbol
-      mask.tsv          state <TAB> mask         (optional: P(soft-masked base | state))
+      mask.tsv          state <TAB> mask [<TAB> after_masked <TAB> after_unmasked]
+                        (optional: P(soft-masked base | state), or a mask chain)
 
 A model may also be given as the path of its manifest file; table paths are
 relative to the manifest's folder.  Lines starting with ``#`` and blank lines
@@ -141,12 +142,11 @@ def render_tables(model: Model) -> list[tuple[str, str]]:
             lines.append(f"{n}\t{ctx}\t" + "\t".join(_fmt(v) for v in model.emissions[i, c]) + "\n")
     out.append((TABLE_FILES["emissions"], "".join(lines)))
     if model.mask is not None:
-        out.append(
-            (
-                TABLE_FILES["mask"],
-                "state\tmask\n" + "".join(f"{n}\t{_fmt(v)}\n" for n, v in zip(names, model.mask)),
-            )
-        )
+        rows = model.mask.reshape(len(names), -1)
+        cols = ["mask"] if model.mask.ndim == 1 else ["mask", "after_masked", "after_unmasked"]
+        head = "state\t" + "\t".join(cols) + "\n"
+        body = "".join(n + "".join(f"\t{_fmt(v)}" for v in r) + "\n" for n, r in zip(names, rows))
+        out.append((TABLE_FILES["mask"], head + body))
     return out
 
 

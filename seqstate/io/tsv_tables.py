@@ -190,6 +190,58 @@ def _check_sum(total: float, what: str, path: Path, line0: int | None) -> None:
         )
 
 
+#: The columns of a mask chain's table (``mask.tsv``), after ``state``.
+MASK_CHAIN_COLUMNS = ["mask", "after_masked", "after_unmasked"]
+
+
+def read_mask(path: Path, names: list[str]) -> np.ndarray:
+    """``mask.tsv``: ``state<TAB>mask`` (one P(masked) per state, shape ``(M,)``) or
+    ``state<TAB>mask<TAB>after_masked<TAB>after_unmasked`` (a mask chain, ``(M, 3)``);
+    every state once, every value a probability from 0 to 1."""
+    lines = list(_lines(path))
+    if not lines:
+        raise TableFormatError("table is empty", path=path)
+    line0, head = lines[0]
+    head = [f.strip() for f in head]
+    if head[1:] not in (["mask"], MASK_CHAIN_COLUMNS) or head[0] != "state":
+        raise TableFormatError(
+            f"header is {_shown_cells(lines[0][1])}, expected 'state<TAB>mask' or "
+            "'state<TAB>mask<TAB>after_masked<TAB>after_unmasked'",
+            path=path,
+            line0=line0,
+        )
+    width = len(head) - 1
+    index = {n: i for i, n in enumerate(names)}
+    values = np.zeros((len(names), width))
+    given = np.zeros(len(names), dtype=bool)
+    for line0, fields in lines[1:]:
+        if len(fields) != width + 1:
+            raise TableFormatError(
+                f"found {len(fields)} columns, expected {width + 1}", path=path, line0=line0
+            )
+        s = _state_index(fields[0].strip(), index, path, line0)
+        if given[s]:
+            raise TableFormatError(f"duplicate row for state '{names[s]}'", path=path, line0=line0)
+        given[s] = True
+        for j, cell in enumerate(fields[1:]):
+            values[s, j] = _number(cell, path, line0, f"state '{names[s]}'")
+            if values[s, j] > 1:
+                raise TableFormatError(
+                    f"state '{names[s]}': P(masked) {cell.strip()} is above 1, expected a "
+                    "probability from 0 to 1",
+                    path=path,
+                    line0=line0,
+                )
+    if not given.all():
+        missing = names[int(np.argmin(given))]
+        raise TableFormatError(
+            f"no row for state '{missing}': the mask table gives P(masked) for every state",
+            path=path,
+            line0=lines[-1][0],
+        )
+    return values[:, 0].copy() if width == 1 else values
+
+
 def read_vector(path: Path, names: list[str], column: str, strict: bool) -> np.ndarray:
     index = {n: i for i, n in enumerate(names)}
     values = np.zeros(len(names))
@@ -216,22 +268,8 @@ def read_vector(path: Path, names: list[str], column: str, strict: bool) -> np.n
             raise TableFormatError(f"duplicate row for state '{names[s]}'", path=path, line0=line0)
         given[s] = True
         values[s] = _number(fields[1], path, line0, f"state '{names[s]}'")
-        if column == "mask" and values[s] > 1:
-            raise TableFormatError(
-                f"state '{names[s]}': P(masked) {fields[1].strip()} is above 1, expected a "
-                "probability from 0 to 1",
-                path=path,
-                line0=line0,
-            )
     if not header_seen:
         raise TableFormatError("table is empty", path=path)
-    if column == "mask" and not given.all():
-        missing = names[int(np.argmin(given))]
-        raise TableFormatError(
-            f"no row for state '{missing}': the mask table gives P(masked) for every state",
-            path=path,
-            line0=last_line0,
-        )
     total = _total(values)
     _check_total(total, f"{column} values (all rows)", path, last_line0)
     if column == "start" and not strict and total <= 0:

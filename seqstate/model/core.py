@@ -19,7 +19,10 @@ as plain NumPy arrays:
 * ``mask[s]`` (optional) -- P(a base is soft-masked, lowercase | z_i = s): the mask as
   an observed channel beside the base, used when a run reads lowercase bases as
   evidence (``--masked evidence``); the base and its mask are independent given
-  the state, and an unknown base carries no mask evidence.
+  the state, and an unknown base carries no mask evidence.  A mask *chain* has shape
+  ``(M, 3)``: P(masked | s) at a base with no known base before it (record start,
+  after an unknown base), after a masked base, and after an unmasked one: soft-masking
+  comes in runs, and the chain scores a run by its start and length, not base by base.
 
 Probabilities are plain (not log) float64.  Nothing here reads files or
 sequences; :func:`validate` checks the semantic rules every model must meet.
@@ -427,7 +430,7 @@ def validate(model: Model, *, path: str | None = None) -> None:
     if model.end is not None:
         shapes["end"] = (model.end, (m,))
     if model.mask is not None:
-        shapes["mask"] = (model.mask, (m,))
+        shapes["mask"] = (model.mask, (m,) if model.mask.ndim == 1 else (m, 3))
     for j, arr in model.lower_emissions.items():
         if not 0 <= j < k:
             fail(f"lower-order emission rows of order {j} given for an order-{k} model")
@@ -446,10 +449,10 @@ def validate(model: Model, *, path: str | None = None) -> None:
             fail(f"{what} sums to {total:.9g}, expected 1 (tolerance {SUM_TOLERANCE:g})")
 
     if model.mask is not None and np.any(model.mask > 1):
-        i = int(np.argmax(model.mask > 1))
+        i = int(np.argwhere(model.mask > 1)[0][0])
         fail(
-            f"mask table: state {names[i]!r} has P(masked) = {float(model.mask[i])!r}, "
-            "expected a probability from 0 to 1"
+            f"mask table: state {names[i]!r} has P(masked) = "
+            f"{float(np.max(model.mask[i]))!r}, expected a probability from 0 to 1"
         )
     check_sum(float(model.start.sum()), "start probabilities")
     for i, n in enumerate(names):

@@ -19,10 +19,11 @@ contexts only and back-off rows are not re-estimated (:mod:`.counting`, :mod:`.e
 The model folder and its provenance are written by :mod:`.writing`; nothing is
 written unless the whole run succeeds.
 
-**The mask table** (``--masked evidence``): counting adds, per state, the known bases
-of the labelled path in upper case and soft-masked, pooled by label
-(:func:`.estimation.estimate_mask`) with the counting pseudocount, and writes the
-model's mask table; Baum–Welch then runs on codes that read the mask as evidence and
+**The mask table** (``--masked evidence``): a mask chain (P(masked | state) with no
+known base before, after a masked base, after an unmasked one).  Counting adds, per
+state and column, the known bases of the labelled path in upper case and soft-masked,
+pooled by label (:func:`.estimation.estimate_mask`) with the counting pseudocount, and
+writes the model's mask table; Baum–Welch then runs on codes that read the mask as evidence and
 re-estimates the mask table from the expected counts, pooled the same way.  EM
 without labels starts every state from the soft-masked share of all known bases
 (when the start model has no mask table).  With ``base`` or ``unknown`` a mask table
@@ -327,14 +328,15 @@ def fit(opts: FitOptions, *, log: Log = quiet) -> FitReport:
             seq = by_id[g.seqid].seq[g.start0 : g.end0]
             codes = api.encode(tables, seq, masked_unknown=masked)
             if opts.masked == "evidence":
-                codes = api.mask_evidence_codes(tables, seq, codes)
-                u = tables.unknown_code  # masked codes are [u, 2u), unknown 2u
-                known += int(np.count_nonzero(codes != 2 * u))
-                lower += int(np.count_nonzero((codes >= u) & (codes != 2 * u)))
+                raw = np.frombuffer(seq, dtype=np.uint8)
+                ok = codes != tables.unknown_code
+                known += int(np.count_nonzero(ok))
+                lower += int(np.count_nonzero(ok & (raw >= ord("a")) & (raw <= ord("z"))))
+                codes = api.mask_evidence_codes(tables, seq, codes, MASK_BLOCKS)
             run.codes.append(codes)
         if opts.masked == "evidence" and run.model.mask is None:
             share = lower / known if known else 0.5
-            run.model = replace_tables(run.model, mask=np.full(run.model.n_states, share))
+            run.model = replace_tables(run.model, mask=np.full((run.model.n_states, 3), share))
             run.mask_note = (
                 f"every state started from the soft-masked share of all known bases ({share:.6g})"
             )
@@ -402,12 +404,12 @@ def _count_genes(
         codes = api.encode(tables, seq, masked_unknown=masked)
         counts.add(count_path(start_model, tables, codes, states, record=rid, path=path))
         if opts.masked == "evidence":
-            counts.add(_mask_only(start_model, count_mask(tables, seq, states)))
+            counts.add(_mask_only(start_model, count_mask(tables, seq, states, chain=True)))
         for group, lengths in chain_runs(start_model, states).items():
             runs.setdefault(group, []).extend(lengths)
         if k % 2 == 0:
             if opts.masked == "evidence":
-                codes = api.mask_evidence_codes(tables, seq, codes)
+                codes = api.mask_evidence_codes(tables, seq, codes, MASK_BLOCKS)
             run.codes.extend(codes[g.start0 : g.end0] for g in stretch.on(records[k // 2].id))
     pool_counts(start_model, counts)
     _estimate_counted(run, counts, "counting from a gene annotation")
@@ -466,8 +468,8 @@ def _count_labels(
             count_path(start_model, tables, codes, states, record=rec.id, path=path, track=track)
         )
         if opts.masked == "evidence":
-            counts.add(_mask_only(start_model, count_mask(tables, rec.seq, states)))
-            codes = api.mask_evidence_codes(tables, rec.seq, codes)
+            counts.add(_mask_only(start_model, count_mask(tables, rec.seq, states, chain=True)))
+            codes = api.mask_evidence_codes(tables, rec.seq, codes, MASK_BLOCKS)
         run.codes.extend(codes[g.start0 : g.end0] for g in stretch.on(rec.id))
     _estimate_counted(run, counts, "counting from labels")
     log(
@@ -507,6 +509,11 @@ def _refine_by_em(run: FitRun, opts: FitOptions, log: Log) -> None:
     run.stop_reason = res.stop_reason
     run.methods.append("Baum-Welch (EM)")
     log(f"em: {run.stop_reason}")
+
+
+#: ``fit --masked evidence`` writes a mask chain (6 code blocks; see
+#: :func:`seqstate.engine._common.code_table`).
+MASK_BLOCKS = 6
 
 
 def _mask_only(model: Model, mask: np.ndarray) -> Counts:

@@ -55,21 +55,32 @@ class Counts:
             self.mask = other.mask.copy() if self.mask is None else self.mask + other.mask
 
 
-def count_mask(tables: api.EngineTables, seq: bytes, states: np.ndarray) -> np.ndarray:
-    """Per state, its known bases in upper case and soft-masked: ``(M, 2)`` counts.
+def count_mask(
+    tables: api.EngineTables, seq: bytes, states: np.ndarray, *, chain: bool = False
+) -> np.ndarray:
+    """Per state, its known bases in upper case and soft-masked: ``(M, 2)`` counts, or
+    with ``chain`` ``(M, 3, 2)``: the same split by what precedes the base (the columns
+    of a mask chain: no known base, a masked one, an unmasked one).
 
     ``states`` is the record's known path (-1: no state, skipped); unknown bases (N,
     ambiguity codes, in either case) are skipped, as the engine ignores their mask.
     """
     m = tables.n_states
     raw = np.frombuffer(seq, dtype=np.uint8)
-    known = (tables.symbol_lookup[raw] >= 0) & (states >= 0)
+    base = tables.symbol_lookup[raw] >= 0
+    known = base & (states >= 0)
     lower = (raw >= ord("a")) & (raw <= ord("z"))
     st = states.astype(np.int64)
-    out = np.zeros((m, 2))
-    out[:, 0] = np.bincount(st[known & ~lower], minlength=m)[:m]
-    out[:, 1] = np.bincount(st[known & lower], minlength=m)[:m]
-    return out
+    if not chain:
+        out = np.zeros((m, 2))
+        out[:, 0] = np.bincount(st[known & ~lower], minlength=m)[:m]
+        out[:, 1] = np.bincount(st[known & lower], minlength=m)[:m]
+        return out
+    col = np.zeros(raw.shape[0], dtype=np.int64)  # 0: no known base before
+    col[1:] = np.where(base[:-1], np.where(lower[:-1], 1, 2), 0)
+    cell = (st * 3 + col) * 2 + lower
+    counts = np.bincount(cell[known], minlength=m * 6)[: m * 6]
+    return counts.reshape(m, 3, 2).astype(np.float64)
 
 
 def pool_counts(model: Model, counts: Counts) -> None:

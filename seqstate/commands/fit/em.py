@@ -37,6 +37,7 @@ from seqstate.commands.fit.estimation import (
     replace_tables,
 )
 from seqstate.engine import api, training
+from seqstate.engine._common import CHAIN_COLUMN, mask_blocks
 from seqstate.errors import ImpossibleSequenceError, UsageError
 from seqstate.model import Model
 
@@ -114,8 +115,16 @@ def expected_counts(
     mask_counts = None
     if mask:
         u = int(tt.offsets[k + 1])
-        emit = emit + acc.emit[u + lo : u + hi]
-        mask_counts = np.stack([acc.emit[:u].sum(axis=0), acc.emit[u : 2 * u].sum(axis=0)], 1)
+        assert model.mask is not None  # training_tables refuses a model without one
+        blocks = mask_blocks(model.mask)
+        emit = sum((acc.emit[b * u + lo : b * u + hi] for b in range(blocks)), np.zeros_like(emit))
+        per_block = [acc.emit[b * u : (b + 1) * u].sum(axis=0) for b in range(blocks)]
+        if blocks == 2:
+            mask_counts = np.stack(per_block, 1)
+        else:
+            mask_counts = np.zeros((m, 3, 2))
+            for b, v in enumerate(per_block):
+                mask_counts[:, CHAIN_COLUMN[b // 2], b % 2] += v
     emis = emit.reshape(a**k, a, m).transpose(2, 0, 1).copy()
     return Counts(acc.start.copy(), acc.trans.copy(), acc.end.copy(), emis, total, mask=mask_counts)
 

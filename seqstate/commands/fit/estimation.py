@@ -203,22 +203,31 @@ def estimate_mask(
     model: Model, counts: np.ndarray, *, pseudocount: float, frozen: Frozen = NOTHING_FROZEN
 ) -> tuple[np.ndarray, list[str]]:
     """The mask table from ``counts`` (``(M, 2)``: upper-case and soft-masked known
-    bases per state), pooled by :func:`mask_pools`; returns (table, pools kept)."""
-    old = model.mask if model.mask is not None else np.full(model.n_states, 0.5)
-    if frozen.emissions and model.mask is not None:
+    bases per state; ``(M, 3, 2)`` for a mask chain, one pair per column), pooled by
+    :func:`mask_pools`; returns (table, pools kept)."""
+    counts = np.asarray(counts, dtype=np.float64)
+    chain = counts.ndim == 3
+    shape = (model.n_states, 3) if chain else (model.n_states,)
+    old = model.mask
+    if old is None or old.shape != shape:
+        old = np.full(shape, 0.5)
+    if frozen.emissions and model.mask is not None and model.mask.shape == shape:
         return old.copy(), []
     pool, names = mask_pools(model)
     pc = float(pseudocount)
     out = old.copy()
     kept: list[str] = []
+    cells = counts.reshape(model.n_states, -1, 2)
+    view = out.reshape(model.n_states, -1)
     for g, name in enumerate(names):
         members = pool == g
-        n0, n1 = (float(v) for v in counts[members].sum(axis=0))
-        total = n0 + n1 + 2 * pc
-        if total > 0:
-            out[members] = (n1 + pc) / total
-        else:
-            kept.append(f"mask of {name}")
+        for j in range(cells.shape[1]):
+            n0, n1 = (float(v) for v in cells[members, j].sum(axis=0))
+            total = n0 + n1 + 2 * pc
+            if total > 0:
+                view[members, j] = (n1 + pc) / total
+            else:
+                kept.append(f"mask of {name}" + (f" ({j + 1} of 3)" if chain else ""))
     for s in frozen.states:
         out[s] = old[s]
     return out, kept
@@ -339,7 +348,7 @@ def objective(
     if mask and model.mask is not None and not frozen.emissions:
         pool, _ = mask_pools(model)
         first = np.unique(pool, return_index=True)[1]
-        values = model.mask[first]
+        values = np.ravel(model.mask[first])
         total += add(values) + add(1.0 - values)
     return loglik + pseudocount * total
 

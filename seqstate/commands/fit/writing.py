@@ -119,7 +119,8 @@ def provenance(opts: FitOptions, run: FitRun) -> dict[str, Any]:
             how.append(run.mask_note)
         if opts.labels:
             how.append(
-                "counted from the labelled bases (soft-masked share of the known bases, "
+                "a mask chain counted from the labelled bases (soft-masked share of the known "
+                "bases by what precedes them, "
                 f"pseudocount {run.pc_count:g} on both sides)"
             )
         if opts.em:
