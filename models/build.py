@@ -1,9 +1,10 @@
 """Rebuild the derived built-in models from their sources.
 
 Run from the repository root:  python models/build.py
-Writes models/cpg-island-8 from models/cpg-island, and models/gene-segment-layout (the
+Writes models/cpg-island-8 from models/cpg-island, models/gene-segment-layout (the
 gene-segment skeleton, uniform over its allowed moves and bases; seqstate fit turns it into
-models/gene-segment, see models/README.md).
+models/gene-segment, see models/README.md) and models/gene-segment-layout-plant (the same
+skeleton with GC donors beside GT donors; fitted into models/gene-segment-athaliana).
 """
 
 from pathlib import Path
@@ -45,9 +46,26 @@ def build_gene_layout():
     return layout
 
 
+def build_plant_layout():
+    from seqstate.kinds.gene_layout import PLANT_LAYOUT_NAME, PLANT_SHAPE, SHIPPED_INTERPOLATION
+    from seqstate.kinds.gene_layout import build_layout
+
+    layout = build_layout(
+        3, shape=PLANT_SHAPE, interpolation=SHIPPED_INTERPOLATION, name=PLANT_LAYOUT_NAME
+    )
+    layout.provenance = {
+        "source": "seqstate.kinds.gene_layout.build_layout(3, shape=PLANT_SHAPE, "
+        "interpolation=SHIPPED_INTERPOLATION, name=PLANT_LAYOUT_NAME) via models/build.py; "
+        "uniform over the allowed moves and bases (fit with seqstate fit, see "
+        "models/README.md)",
+    }
+    return layout
+
+
 def main() -> None:
     save_model(build_cpg8(), HERE / "cpg-island-8")
     save_model(build_gene_layout(), HERE / "gene-segment-layout")
+    save_model(build_plant_layout(), HERE / "gene-segment-layout-plant")
 
 
 if __name__ == "__main__":

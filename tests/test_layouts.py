@@ -114,3 +114,19 @@ def test_shipped_cpg8_equals_fresh_build():
     # the files on disk are exactly what models/build.py writes
     for name, text in render_tables(fresh):
         assert (REPO / "models" / "cpg-island-8" / name).read_text(encoding="utf-8") == text
+
+
+def test_shipped_plant_layout_equals_fresh_build():
+    fresh = _build_module().build_plant_layout()
+    shipped = load_model(REPO / "models" / "gene-segment-layout-plant")
+    assert shipped.equals(fresh)
+    # GC donors are what sets the plant layout apart from gene-segment-layout
+    assert any(name.startswith("i0_d2c") for name in shipped.state_names)
+    assert not any(
+        name.startswith("i0_d2c")
+        for name in load_model(REPO / "models" / "gene-segment-layout").state_names
+    )
+    for name, text in render_tables(fresh):
+        assert (REPO / "models" / "gene-segment-layout-plant" / name).read_text(
+            encoding="utf-8"
+        ) == text
