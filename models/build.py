@@ -47,8 +47,12 @@ def build_gene_layout():
 
 
 def build_plant_layout():
-    from seqstate.kinds.gene_layout import PLANT_LAYOUT_NAME, PLANT_SHAPE, SHIPPED_INTERPOLATION
-    from seqstate.kinds.gene_layout import build_layout
+    from seqstate.kinds.gene_layout import (
+        PLANT_LAYOUT_NAME,
+        PLANT_SHAPE,
+        SHIPPED_INTERPOLATION,
+        build_layout,
+    )
 
     layout = build_layout(
         3, shape=PLANT_SHAPE, interpolation=SHIPPED_INTERPOLATION, name=PLANT_LAYOUT_NAME
