@@ -34,36 +34,34 @@ def build_cpg8():
     return eight
 
 
-def build_gene_layout():
-    from seqstate.kinds.gene_layout import SHIPPED_INTERPOLATION, SHIPPED_SHAPE, build_layout
+def _gene_layout(shape_name, name_arg=""):
+    """A gene layout of ``seqstate.kinds.gene_layout`` built from the shape of that name."""
+    from seqstate.kinds import gene_layout
 
-    layout = build_layout(3, shape=SHIPPED_SHAPE, interpolation=SHIPPED_INTERPOLATION)
-    layout.provenance = {
-        "source": "seqstate.kinds.gene_layout.build_layout(3, shape=SHIPPED_SHAPE, "
-        "interpolation=SHIPPED_INTERPOLATION) via models/build.py; uniform over the "
-        "allowed moves and bases (fit with seqstate fit, see models/README.md)",
-    }
-    return layout
-
-
-def build_plant_layout():
-    from seqstate.kinds.gene_layout import (
-        PLANT_LAYOUT_NAME,
-        PLANT_SHAPE,
-        SHIPPED_INTERPOLATION,
-        build_layout,
+    kwargs = {"name": getattr(gene_layout, name_arg)} if name_arg else {}
+    layout = gene_layout.build_layout(
+        3,
+        shape=getattr(gene_layout, shape_name),
+        interpolation=gene_layout.SHIPPED_INTERPOLATION,
+        **kwargs,
     )
-
-    layout = build_layout(
-        3, shape=PLANT_SHAPE, interpolation=SHIPPED_INTERPOLATION, name=PLANT_LAYOUT_NAME
+    call = f"3, shape={shape_name}, interpolation=SHIPPED_INTERPOLATION" + (
+        f", name={name_arg}" if name_arg else ""
     )
     layout.provenance = {
-        "source": "seqstate.kinds.gene_layout.build_layout(3, shape=PLANT_SHAPE, "
-        "interpolation=SHIPPED_INTERPOLATION, name=PLANT_LAYOUT_NAME) via models/build.py; "
+        "source": f"seqstate.kinds.gene_layout.build_layout({call}) via models/build.py; "
         "uniform over the allowed moves and bases (fit with seqstate fit, see "
         "models/README.md)",
     }
     return layout
+
+
+def build_gene_layout():
+    return _gene_layout("SHIPPED_SHAPE")
+
+
+def build_plant_layout():
+    return _gene_layout("PLANT_SHAPE", "PLANT_LAYOUT_NAME")
 
 
 def main() -> None:

@@ -41,8 +41,8 @@ EXON_SN_FLOOR, EXON_SP_FLOOR = 0.70, 0.76
 def test_provenance_is_the_training_half_and_the_readme_counts_it():
     prov = load_model(NAME).provenance
     assert prov["stretch"] == "NC_003070.9:1-15000000"
-    # the plant layout (gene_layout.PLANT_SHAPE: the fly layout with GC donors), built
-    # in memory by the command in models/README.md
+    # the plant layout (models/gene-segment-layout-plant, gene_layout.PLANT_SHAPE: the fly
+    # layout with GC donors), written by models/build.py
     assert prov["start_model"] == gene_layout.PLANT_LAYOUT_NAME
     assert gene_layout.shape_of(list(load_model(NAME).state_names)) == dataclasses.replace(
         gene_layout.PLANT_SHAPE, signal_order=0
