@@ -874,6 +874,7 @@ def test_model_list_names_the_builtin_models():
         "gene-segment",
         "gene-segment-athaliana",
         "gene-segment-layout",
+        "gene-segment-layout-plant",
     ]
 
 

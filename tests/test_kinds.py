@@ -25,9 +25,11 @@ from seqstate.kinds.segments import BASE_COLUMNS, CPG_COLUMNS, ID_COLUMNS
         ("cpg-island", SEGMENTS),
         ("cpg-island-8", SEGMENTS),
         ("casino", SEGMENTS),
-        # both gene models declare [annotate] features = "gene_structure"
+        # every gene model declares [annotate] features = "gene_structure"
         ("gene-segment", GENES),
         ("gene-segment-layout", GENES),
+        ("gene-segment-athaliana", GENES),
+        ("gene-segment-layout-plant", GENES),
     ],
 )
 def test_kind_of_the_builtin_models(name, kind):
