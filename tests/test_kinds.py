@@ -96,6 +96,10 @@ def test_annotate_report_is_the_json_written(tmp_path):
         "thresholds",
         "log_base",
         "coordinates",
+        "totals",
+        "records_table",
+        "records_limit",
+        "records_truncated",
         "records",
         "skipped_records",
         "outputs",
@@ -103,4 +107,5 @@ def test_annotate_report_is_the_json_written(tmp_path):
     ]
     gff = read_gff3(out / "g.gff3")
     assert report.features == len(gff) == sum(r["features"] for r in written["records"])
+    assert written["totals"]["features"] == report.features
     assert report.summary("x/").endswith(f"{report.features} features -> x/")
