@@ -11,12 +11,12 @@ Run from the repository root::
 Each ``--row NAME[:KEY=JSON,KEY=JSON...]`` is one layout: ``SHIPPED_SHAPE`` (interpolation
 strength 32) with the given :class:`~seqstate.kinds.gene_layout.GeneShape` fields replaced
 (``body_stages``, ``start_codons``, ``exon_codons``, ``gc_donor``, ...; ``interpolation``
-too); ``--set`` is one unnamed row.  Every row is measured on the same split.  The key
-``masked`` (``"base"``, ``"unknown"`` or ``"evidence"``) is not a layout field: it is the
-``--masked`` of both ``fit`` and ``annotate`` (``evidence``: the fit writes a mask table
-and annotate reads soft-masked bases as evidence)::
+and the content ``order`` too); ``--set`` is one unnamed row.  Every row is measured on the
+same split.  The key ``masked`` (``"base"``, ``"unknown"`` or ``"evidence"``) is not a layout
+field: it is the ``--masked`` of both ``fit`` and ``annotate`` (``evidence``: the fit writes
+a mask table and annotate reads soft-masked bases as evidence)::
 
-    PYTHONPATH=. python benchmarks/accuracy_plant.py --row "gc:gc_donor=true" \
+    PYTHONPATH=. python benchmarks/accuracy_plant.py --row "gc:gc_donor=true" \\
         --row "gcmask:gc_donor=true,masked=\"evidence\""
 
 Data (the rule of the project): positions 1-15,000,000 of *A. thaliana* chromosome 1
@@ -98,16 +98,18 @@ def parse_row(text: str) -> tuple[str, dict]:
 
 
 def layout_for(settings: dict):
-    """``build_layout(3, shape=SHIPPED_SHAPE with settings, interpolation=...)``."""
+    """``build_layout(order, shape=SHIPPED_SHAPE with settings, interpolation=...)``
+    (``order`` and ``interpolation`` are settings too: 3 and 32 unless given)."""
     settings = dict(settings)
     interpolation = float(settings.pop("interpolation", SHIPPED_INTERPOLATION))
+    order = int(settings.pop("order", 3))
     if "body_stages" in settings:
         settings["body_stages"] = tuple(settings["body_stages"])
     known = {f.name for f in dataclasses.fields(SHIPPED_SHAPE)}
     if set(settings) - known:
         sys.exit(f"error: {sorted(set(settings) - known)[0]} is not a GeneShape field")
     shape = dataclasses.replace(SHIPPED_SHAPE, **settings)
-    return build_layout(3, shape=shape, interpolation=interpolation), shape
+    return build_layout(order, shape=shape, interpolation=interpolation), shape
 
 
 def region_text(half: str) -> str:

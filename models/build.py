@@ -1,9 +1,10 @@
 """Rebuild the derived built-in models from their sources.
 
 Run from the repository root:  python models/build.py
-Writes models/cpg-island-8 from models/cpg-island, and models/gene-segment-layout (the
+Writes models/cpg-island-8 from models/cpg-island, models/gene-segment-layout (the
 gene-segment skeleton, uniform over its allowed moves and bases; seqstate fit turns it into
-models/gene-segment, see models/README.md).
+models/gene-segment, see models/README.md) and models/gene-segment-layout-plant (the same
+skeleton with GC donors beside GT donors; fitted into models/gene-segment-athaliana).
 """
 
 from pathlib import Path
@@ -33,21 +34,40 @@ def build_cpg8():
     return eight
 
 
-def build_gene_layout():
-    from seqstate.kinds.gene_layout import SHIPPED_INTERPOLATION, SHIPPED_SHAPE, build_layout
+def _gene_layout(shape_name, name_arg=""):
+    """A gene layout of ``seqstate.kinds.gene_layout`` built from the shape of that name."""
+    from seqstate.kinds import gene_layout
 
-    layout = build_layout(3, shape=SHIPPED_SHAPE, interpolation=SHIPPED_INTERPOLATION)
+    kwargs = {"name": getattr(gene_layout, name_arg)} if name_arg else {}
+    layout = gene_layout.build_layout(
+        3,
+        shape=getattr(gene_layout, shape_name),
+        interpolation=gene_layout.SHIPPED_INTERPOLATION,
+        **kwargs,
+    )
+    call = f"3, shape={shape_name}, interpolation=SHIPPED_INTERPOLATION" + (
+        f", name={name_arg}" if name_arg else ""
+    )
     layout.provenance = {
-        "source": "seqstate.kinds.gene_layout.build_layout(3, shape=SHIPPED_SHAPE, "
-        "interpolation=SHIPPED_INTERPOLATION) via models/build.py; uniform over the "
-        "allowed moves and bases (fit with seqstate fit, see models/README.md)",
+        "source": f"seqstate.kinds.gene_layout.build_layout({call}) via models/build.py; "
+        "uniform over the allowed moves and bases (fit with seqstate fit, see "
+        "models/README.md)",
     }
     return layout
+
+
+def build_gene_layout():
+    return _gene_layout("SHIPPED_SHAPE")
+
+
+def build_plant_layout():
+    return _gene_layout("PLANT_SHAPE", "PLANT_LAYOUT_NAME")
 
 
 def main() -> None:
     save_model(build_cpg8(), HERE / "cpg-island-8")
     save_model(build_gene_layout(), HERE / "gene-segment-layout")
+    save_model(build_plant_layout(), HERE / "gene-segment-layout-plant")
 
 
 if __name__ == "__main__":

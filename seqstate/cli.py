@@ -410,7 +410,7 @@ def annotate_cmd(
     )
     gff_out = io.StringIO() if to_stdout else None
     report = annotate(opts, progress=log.progress_for(quiet, "annotate"), stdout=gff_out)
-    warn_skipped(opts.input, report.skipped_records)
+    warn_skipped(opts.input, report.skipped_records, total=report.totals.skipped_records)
     if gff_out is not None:
         echo_stdout(gff_out.getvalue())
     say(quiet, report.summary("stdout" if to_stdout else f"{opts.out_dir}/"))

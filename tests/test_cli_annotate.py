@@ -395,6 +395,7 @@ def test_stranded_features_follow_the_states_strands(stranded):
         "st.G_run.plus.bedgraph",
         "st.features.tsv",
         "st.gff3",
+        "st.records.tsv",
         "st.run.json",
     ]
     # the run_plus state is G-rich and run_minus C-rich (test model): a '+' feature has
@@ -700,9 +701,10 @@ def test_viterbi_features_are_the_label_runs_of_the_path(tmp_path, sampled, mode
 def test_region_keeps_record_coordinates(tmp_path, rid, start, end, stem):
     out = annotate_ok(GOLDEN_FASTA, tmp_path / "out", "--region", f"{rid}:{start}-{end}")
     assert sorted(p.name for p in out.iterdir()) == sorted(
-        f"{stem}.{x}" for x in ("gff3", "features.tsv", "CpG_island.bedgraph", "run.json")
+        f"{stem}.{x}"
+        for x in ("gff3", "features.tsv", "records.tsv", "CpG_island.bedgraph", "run.json")
     )
-    for suffix in ("gff3", "features.tsv", "CpG_island.bedgraph", "run.json"):
+    for suffix in ("gff3", "features.tsv", "records.tsv", "CpG_island.bedgraph", "run.json"):
         (out / f"{stem}.{suffix}").rename(out / f"small.{suffix}")
     gff_text = (out / "small.gff3").read_text(encoding="utf-8").splitlines()
     escaped = urllib.parse.quote(rid, safe=SEQID_SAFE)  # GFF3 1.26 column 1 escaping
@@ -783,6 +785,7 @@ def test_tracks_none_writes_no_track(tmp_path):
     assert sorted(p.name for p in out.iterdir()) == [
         "small.features.tsv",
         "small.gff3",
+        "small.records.tsv",
         "small.run.json",
     ]
     assert_same_bytes(out / "small.gff3", EXPECTED / "small.gff3")
@@ -844,6 +847,7 @@ def test_console_script_and_python_m_write_the_same_outputs(tmp_path):
         "small.CpG_island.bedgraph",
         "small.features.tsv",
         "small.gff3",
+        "small.records.tsv",
         "small.run.json",
     ]
     assert outputs[0] == outputs[1]
@@ -874,6 +878,7 @@ def test_model_list_names_the_builtin_models():
         "gene-segment",
         "gene-segment-athaliana",
         "gene-segment-layout",
+        "gene-segment-layout-plant",
     ]
 
 

@@ -204,5 +204,6 @@ def test_good_input_passes_the_same_checks(tmp_path, out):
         "good.CpG_island.bedgraph",
         "good.features.tsv",
         "good.gff3",
+        "good.records.tsv",
         "good.run.json",
     ]

@@ -87,7 +87,7 @@ def test_many_empty_records_warn_five_times_then_count(tmp_path):
     assert code == 0, err
     assert len(err) == 6 and "record 'e4'" in err[4], err
     assert err[5] == (
-        "warning: 3 more record(s) with no sequence skipped (all are listed in the run report)"
+        "warning: 3 more record(s) with no sequence skipped (all are listed in the records table)"
     )
 
 

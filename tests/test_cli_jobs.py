@@ -91,7 +91,8 @@ def test_two_jobs_write_the_bytes_of_one_job_on_many_records(tmp_path, many_reco
         assert res.exit_code == 0, res.output
         outs[jobs] = files_of(out)
     assert outs[1].keys() == outs[2].keys() == outs[3].keys()
-    assert len(outs[1]) == 5  # gff3, feature table, bedGraph, bigWig, run report
+    # gff3, feature and records tables, bedGraph, bigWig, run report
+    assert len(outs[1]) == 6
     for name in outs[1]:
         assert outs[2][name] == outs[1][name], name
         assert outs[3][name] == outs[1][name], name

@@ -398,7 +398,8 @@ def test_stale_staging_folder_of_a_killed_run_is_cleaned_by_the_next_run(tmp_pat
     (out / f".small.gff3.tmp-{proc.pid}").write_text("from an older version")
     assert run(["annotate", GOLDEN_FASTA, "-o", out, "-q"]).exit_code == 0
     assert listing(out) == sorted(
-        f"small.{x}" for x in ("gff3", "features.tsv", "CpG_island.bedgraph", "run.json")
+        f"small.{x}"
+        for x in ("gff3", "features.tsv", "records.tsv", "CpG_island.bedgraph", "run.json")
     )
 
 

@@ -25,9 +25,11 @@ from seqstate.kinds.segments import BASE_COLUMNS, CPG_COLUMNS, ID_COLUMNS
         ("cpg-island", SEGMENTS),
         ("cpg-island-8", SEGMENTS),
         ("casino", SEGMENTS),
-        # both gene models declare [annotate] features = "gene_structure"
+        # every gene model declares [annotate] features = "gene_structure"
         ("gene-segment", GENES),
         ("gene-segment-layout", GENES),
+        ("gene-segment-athaliana", GENES),
+        ("gene-segment-layout-plant", GENES),
     ],
 )
 def test_kind_of_the_builtin_models(name, kind):
@@ -94,6 +96,10 @@ def test_annotate_report_is_the_json_written(tmp_path):
         "thresholds",
         "log_base",
         "coordinates",
+        "totals",
+        "records_table",
+        "records_limit",
+        "records_truncated",
         "records",
         "skipped_records",
         "outputs",
@@ -101,4 +107,5 @@ def test_annotate_report_is_the_json_written(tmp_path):
     ]
     gff = read_gff3(out / "g.gff3")
     assert report.features == len(gff) == sum(r["features"] for r in written["records"])
+    assert written["totals"]["features"] == report.features
     assert report.summary("x/").endswith(f"{report.features} features -> x/")

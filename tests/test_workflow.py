@@ -35,7 +35,14 @@ import split_groups  # noqa: E402
 from sheet import SheetError, read_sheet  # noqa: E402
 
 SEQSTATE = [sys.executable, "-m", "seqstate.cli"]
-OUTPUT_SUFFIXES = (".gff3", ".features.tsv", ".CpG_island.bedgraph", ".run.json", ".fai")
+OUTPUT_SUFFIXES = (
+    ".gff3",
+    ".features.tsv",
+    ".records.tsv",
+    ".CpG_island.bedgraph",
+    ".run.json",
+    ".fai",
+)
 
 
 def env() -> dict[str, str]:
@@ -249,8 +256,9 @@ def test_summary_table(project):
         assert int(row["features"]) == len(feats) == sum(r["features"] for r in report["records"])
         assert row["model_sha256"] == report["model"]["sha256"]
         assert row["seqstate_version"] == report["version"]
-        assert int(row["records"]) == len(report["records"])
+        assert int(row["records"]) == len(report["records"]) == report["totals"]["records"]
         assert int(row["total_bases"]) == sum(r["length"] for r in report["records"])
+        assert int(row["total_bases"]) == report["totals"]["bases"]
         if feats:
             bases = sum(int(f["length"]) for f in feats)
             weighted = sum(float(f["mean_posterior"]) * int(f["length"]) for f in feats)

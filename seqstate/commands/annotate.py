@@ -26,6 +26,14 @@ from seqstate.commands.inputs import alphabet_check_of, read_set
 from seqstate.commands.masking import check_masked, prepare_masked
 from seqstate.commands.provenance import gff3_provenance
 from seqstate.commands.records import select_records
+from seqstate.commands.records_table import (
+    LISTED_RECORDS,
+    TABLE_SUFFIX,
+    RecordReport,
+    RecordsLog,
+    SkippedReport,
+    Totals,
+)
 from seqstate.commands.runreport import output_checksums
 from seqstate.engine import jitcache
 from seqstate.errors import ImpossibleSequenceError, UsageError, escape_text
@@ -39,7 +47,20 @@ from seqstate.kinds import Group, group_index, kind_of, track_groups
 from seqstate.log import Progress, QuietProgress
 from seqstate.model import Model, resolve_thresholds
 
-REPORT_SCHEMA = "seqstate-run-report/1"
+#: Version 2: ``totals``, the records table (``records_table``, every record) and
+#: ``records`` / ``skipped_records`` cut to the first ``records_limit`` entries.
+REPORT_SCHEMA = "seqstate-run-report/2"
+
+__all__ = [
+    "LISTED_RECORDS",
+    "REPORT_SCHEMA",
+    "AnnotateOptions",
+    "AnnotateReport",
+    "RecordReport",
+    "SkippedReport",
+    "Totals",
+    "annotate",
+]
 
 #: Default ``--min-cds-length`` (coding bases per mRNA, stop codon included): of the
 #: RefSeq mRNAs of D. melanogaster chr 4 none has fewer, of A. thaliana chr 1
@@ -105,33 +126,6 @@ class ModelSummary:
     states: int
 
 
-@dataclass
-class RecordReport:
-    """One annotated record (or region of it): 1-based closed bounds and counts."""
-
-    id: str
-    length: int
-    start_1based: int
-    end_1based: int
-    unknown_bases: int
-    loglik_nat: float
-    features: int
-    #: gene models (None otherwise): genes and mRNAs written, and genes dropped by
-    #: each filter (``min_cds_length``, ``min_gene_posterior``)
-    genes: int | None = None
-    mrnas: int | None = None
-    filtered_genes: dict[str, int] | None = None
-
-
-@dataclass
-class SkippedReport:
-    """A FASTA record skipped for having no sequence (``line`` is 1-based)."""
-
-    id: str
-    line: int
-    reason: str
-
-
 #: How each output names its coordinates (written into every run report).
 COORDINATES = {
     "gff3": "1-based closed",
@@ -146,7 +140,10 @@ class AnnotateReport:
 
     Its fields, in order, are the keys of the JSON document (:meth:`to_dict`);
     ``thresholds["from"]`` says for each threshold whether it came from an
-    ``option`` or the ``model``.
+    ``option`` or the ``model``.  ``totals`` counts every record; ``records`` and
+    ``skipped_records`` list only the first ``records_limit`` of each
+    (``records_truncated`` says whether some were left out); the records table
+    ``records_table`` (:mod:`seqstate.commands.records_table`) has every one.
     """
 
     schema: str
@@ -159,6 +156,11 @@ class AnnotateReport:
     thresholds: dict[str, Any]
     log_base: str
     coordinates: dict[str, str]
+    totals: Totals = field(default_factory=Totals)
+    #: the records table's file name (in the output folder; None with ``-o -``)
+    records_table: str | None = None
+    records_limit: int = LISTED_RECORDS
+    records_truncated: bool = False
     records: list[RecordReport] = field(default_factory=list)
     skipped_records: list[SkippedReport] = field(default_factory=list)
     outputs: list[str] = field(default_factory=list)
@@ -186,38 +188,40 @@ class AnnotateReport:
     @property
     def features(self) -> int:
         """Features written, over every record."""
-        return sum(r.features for r in self.records)
+        return self.totals.features
 
     @property
     def bases(self) -> int:
         """Bases annotated, over every record (the region's, with ``--region``)."""
-        return sum(r.end_1based - r.start_1based + 1 for r in self.records)
+        return self.totals.bases
 
     def summary(self, where: str) -> str:
         """The summary line (after ``seqstate: ``); ``where`` names the output.  For a
         gene model it counts genes and mRNAs (and the genes the filters dropped)."""
-        n = len(self.records)
+        t = self.totals
         genes = ""
-        if self.records and all(r.genes is not None for r in self.records):
-            n_genes = sum(r.genes or 0 for r in self.records)
-            n_mrnas = sum(r.mrnas or 0 for r in self.records)
-            dropped = sum(sum((r.filtered_genes or {}).values()) for r in self.records)
-            genes = f"{n_genes} gene(s), {n_mrnas} mRNA(s), {dropped} gene(s) filtered out, "
-        return f"{n} record(s), {self.bases} bases, {genes}{self.features} features -> {where}"
+        if t.genes is not None:
+            dropped = sum((t.filtered_genes or {}).values())
+            genes = f"{t.genes} gene(s), {t.mrnas} mRNA(s), {dropped} gene(s) filtered out, "
+        return f"{t.records} record(s), {t.bases} bases, {genes}{t.features} features -> {where}"
 
 
-def warn_skipped(fasta: str, skipped: list[SkippedReport], shown: int = 5) -> None:
-    """One warning line per skipped record (the first ``shown``; the run report has all)."""
+def warn_skipped(
+    fasta: str, skipped: list[SkippedReport], shown: int = 5, total: int | None = None
+) -> None:
+    """One warning line per skipped record (the first ``shown`` of ``total``, by default
+    ``len(skipped)``; the records table has all)."""
+    total = len(skipped) if total is None else total
     for sk in skipped[:shown]:
         text = f"{display_name(fasta)} line {sk.line}, record '{sk.id}'"
         log.warn(
             f"{escape_text(text)}: a header with no sequence, skipped "
             "(--empty-records error refuses such records)"
         )
-    if len(skipped) > shown:
+    if total > shown:
         log.warn(
-            f"{len(skipped) - shown} more record(s) with no sequence skipped "
-            "(all are listed in the run report)"
+            f"{total - shown} more record(s) with no sequence skipped "
+            "(all are listed in the records table)"
         )
 
 
@@ -272,7 +276,7 @@ def output_names(
     stem: str, groups: list[Group], want_bedgraph: bool, want_bigwig: bool
 ) -> list[str]:
     """Every file name an annotate run writes into its output folder, in writing order."""
-    names = [f"{stem}.gff3", f"{stem}.features.tsv"]
+    names = [f"{stem}.gff3", f"{stem}.features.tsv", f"{stem}{TABLE_SUFFIX}"]
     for grp in groups:
         if want_bedgraph:
             names.append(f"{stem}.{grp.track_name}.bedgraph")
@@ -442,7 +446,6 @@ def annotate(
         _write(opts, model, runner, report, stem, region_item, skipped, long_above, stdout)
     except ImpossibleSequenceError as exc:
         raise ImpossibleSequenceError(exc.message, path=opts.input) from None
-    report.skipped_records = [SkippedReport(sk.id, sk.line0 + 1, sk.reason) for sk in skipped]
     return report
 
 
@@ -615,7 +618,13 @@ def _stream_items(
     scratch: Path | None,
 ) -> Iterator[Item]:
     """The records of the FASTA, one at a time, as items to annotate (a long record's
-    bases spilled into ``scratch`` while it is read)."""
+    bases spilled into ``scratch`` while it is read).
+
+    Each item carries the records skipped just before it (``skipped_before``, taken
+    out of ``skipped``, so the list never holds more than the records between two
+    annotated ones); when the FASTA ends, ``skipped`` holds the ones after the last.
+    With ``opts.records`` only the selected records and skipped records are kept.
+    """
     check = alphabet_check_of(model)
     records = iter_sequences(
         opts.input,
@@ -626,24 +635,33 @@ def _stream_items(
         spill_dir=scratch,
     )
     want = None if opts.records is None else set(opts.records)
-    seen: list[str] = []
+    found: set[str] = set()  # the selected IDs the FASTA has (records or skipped)
+
+    def take() -> list[SkippedRecord]:
+        new = [sk for sk in skipped if want is None or sk.id in want]
+        if want is not None:
+            found.update(sk.id for sk in new)
+        del skipped[:]
+        return new
+
     try:
         for rec in records:
             if want is not None:
-                seen.append(rec.id)
                 if rec.id not in want:
                     rec.source.close()
                     continue
+                found.add(rec.id)
             long = rec.length > long_above
-            yield Item(rec.id, rec.length, 0, rec.length, rec.read, rec.source.close, long)
+            item = Item(rec.id, rec.length, 0, rec.length, rec.read, rec.source.close, long)
+            item.skipped_before = take()
+            yield item
     finally:
         _close(records)
+    skipped[:] = take()
     if opts.records is not None:
         # an ID the FASTA lacks is an error (the run's outputs are then discarded)
-        known = [SimpleNamespace(id=rid) for rid in seen]
-        select_records(known, skipped, opts.records, opts.input)
-        wanted = set(opts.records)
-        skipped[:] = [sk for sk in skipped if sk.id in wanted]
+        known = [SimpleNamespace(id=rid) for rid in opts.records if rid in found]
+        select_records(known, [], opts.records, opts.input)
 
 
 def _write(
@@ -689,13 +707,17 @@ def _write_set(
             outs.replaces_set_of(f"{stem}.run.json")
         gff_name = f"{stem}.gff3"
         tsv_name = f"{stem}.features.tsv"
+        table_name = f"{stem}{TABLE_SUFFIX}"
         names = [gff_name, tsv_name]
         if to_stdout:
             gff_target: TextIO = sys.stdout
             tsv: TextIO = io.StringIO()  # the feature table is not written with -o -
+            table = RecordsLog(None)  # nor the records table
         else:
             gff_target = outs.open_text(gff_name)
             tsv = outs.open_text(tsv_name)
+            table = RecordsLog(outs.open_text(table_name))
+            names.append(table_name)
         if opts.report is not None:
             tsv = cast(TextIO, _Tee(tsv))
         tsv.write(tsv_row(runner.kind.feature_columns(groups)))
@@ -733,37 +755,50 @@ def _write_set(
                 items: Iterator[Item] = iter([region_item])
             else:
                 items = _stream_items(opts, model, skipped, long_above, scratch)
-            done = runner.run(items, writer)
+            runner.run(items, writer, lambda item, out: _log_record(table, item, out))
+            for sk in skipped:  # after the last record (a --region run: every one)
+                table.add_skipped(SkippedReport(sk.id, sk.line0 + 1, sk.reason))
+            del skipped[:]
             text = writer.finish()
         except BaseException:
             writer.abandon()
             raise
-        for out in done:
-            report.records.append(
-                RecordReport(
-                    out.id,
-                    out.length,
-                    out.start0 + 1,
-                    out.end0,
-                    out.unknown,
-                    out.loglik,
-                    out.features,
-                    **_gene_counts(out.counts),
-                )
-            )
-        report.skipped_records = [SkippedReport(sk.id, sk.line0 + 1, sk.reason) for sk in skipped]
+        report.totals = table.totals
+        report.records = table.records
+        report.skipped_records = table.skipped
+        report.records_limit = table.limit
+        report.records_truncated = table.truncated
         if not to_stdout:
+            report.records_table = table_name
             report.outputs = sorted(names + [f"{stem}.run.json"])
             if opts.report is not None and isinstance(tsv, _Tee):
                 with outs.open_text(opts.report) as fh:
                     _write_html(fh, opts, report, tsv.text(), gff_target)
-            for written in (gff_target, tsv, *handles, writer.cds, writer.proteins):
+            for written in (gff_target, tsv, table.handle, *handles, writer.cds, writer.proteins):
                 if written is not None:
                     written.flush()  # every output but the report is staged in gff_target's folder
             report.output_sha256 = output_checksums(Path(gff_target.name).parent, names)
             with outs.open_text(f"{stem}.run.json") as fh:
                 report.write_json(fh)
     return text
+
+
+def _log_record(table: RecordsLog, item: Item, out: annotate_run.RecordOutput) -> None:
+    """One record done: the rows of the records skipped before it, then its own."""
+    for sk in item.skipped_before:
+        table.add_skipped(SkippedReport(sk.id, sk.line0 + 1, sk.reason))
+    table.add_record(
+        RecordReport(
+            out.id,
+            out.length,
+            out.start0 + 1,
+            out.end0,
+            out.unknown,
+            out.loglik,
+            out.features,
+            **_gene_counts(out.counts),
+        )
+    )
 
 
 def _known_total(path: str, region_item: Item | None, records: Sequence[str] | None = None) -> int:

@@ -119,6 +119,8 @@ class Item:
     long: bool
     #: feature IDs start with this (None: ``id``); ``ID:START-END`` for a region run
     id_stem: str | None = None
+    #: the records the reader skipped just before this one (header-only records)
+    skipped_before: list[Any] = field(default_factory=list)
 
     @property
     def bases(self) -> int:
@@ -412,38 +414,47 @@ class Runner:
         return out
 
     # ------------------------------------------------------------ the loop
-    def run(self, items: Iterator[Item], writer: OutputWriter) -> list[RecordOutput]:
-        """Every item through the engine, outputs written in input order."""
-        done: list[RecordOutput] = []
+    def run(
+        self,
+        items: Iterator[Item],
+        writer: OutputWriter,
+        on_record: Callable[[Item, RecordOutput], None],
+    ) -> None:
+        """Every item through the engine, outputs written in input order; ``on_record``
+        is told each item and its figures as it is written (nothing is kept here)."""
         if self.jobs <= 1:
             for item in items:
                 _stop_check()
                 if item.long:
-                    done.append(self.long_record(item, writer))
+                    on_record(item, self.long_record(item, writer))
                 else:
-                    done.append(writer.put(self.short_record(item)))
-            return done
+                    on_record(item, writer.put(self.short_record(item)))
+            return
         pool = ThreadPoolExecutor(max_workers=self.jobs, thread_name_prefix="seqstate-record")
         pending: deque[tuple[Item, Future[RecordOutput]]] = deque()
+
+        def write_first() -> None:
+            item, fut = pending.popleft()
+            on_record(item, writer.put(_result(fut, pending)))
+
         try:
             for item in items:
                 _stop_check()
                 if item.long:
                     while pending:
-                        done.append(writer.put(_result(pending.popleft()[1], pending)))
-                    done.append(self.long_record(item, writer))
+                        write_first()
+                    on_record(item, self.long_record(item, writer))
                     continue
                 pending.append((item, pool.submit(self.short_record, item)))
                 while len(pending) > self.jobs:
-                    done.append(writer.put(_result(pending.popleft()[1], pending)))
+                    write_first()
             while pending:
-                done.append(writer.put(_result(pending.popleft()[1], pending)))
+                write_first()
         finally:
             for item, fut in pending:
                 fut.cancel()
                 item.close()
             pool.shutdown(wait=False, cancel_futures=True)
-        return done
 
 
 def _stop_check() -> None:
@@ -505,6 +516,8 @@ class OutputWriter:
             DeferredBigWig(p, _scratch_file(scratch, f"track{i}.runs"), precision)
             for i, p in enumerate(bigwig_paths)
         ]
+        #: ``##sequence-region`` entries kept in memory (standard output only; an output
+        #: folder's go to the GFF3's scratch file as they come)
         self.regions: list[tuple[str, int, int]] = []
         self.cds: TextIO | None = None
         self.proteins: TextIO | None = None
@@ -527,7 +540,7 @@ class OutputWriter:
         for g, runs in enumerate(out.bigwig):
             self.bigwigs[g].add_runs(runs)
             self.bigwigs[g].end_record(out.id, out.length)
-        self.regions.append((out.id, out.start0 + 1, out.end0))
+        self.note_region(out.id, out.start0, out.end0)
         hold_point("record-written")  # test-only, see seqstate.io.atomic.hold_point
         # the report keeps the figures only: text written is not held for the whole run
         return replace(out, gff="", tsv="", bedgraph=[], bigwig=[], cds="", proteins="")
@@ -548,7 +561,11 @@ class OutputWriter:
             bw.end_record(seqid, length)
 
     def note_region(self, seqid: str, start0: int, end0: int) -> None:
-        self.regions.append((seqid, start0 + 1, end0))
+        """The ``##sequence-region`` of one stretch (0-based half-open in)."""
+        if self._gff is not None:
+            self._gff.add_region(seqid, start0 + 1, end0)
+        else:
+            self.regions.append((seqid, start0 + 1, end0))
 
     def finish(self) -> str | None:
         """Write the GFF3 header and lines, and the bigWig files; with standard output,
@@ -556,7 +573,7 @@ class OutputWriter:
         for bw in self.bigwigs:
             bw.finish()
         if self._gff is not None:
-            self._gff.finish(self.regions)
+            self._gff.finish()
             return None
         assert self._gff_body is not None
         return header_text(self.regions) + self._gff_body.getvalue()

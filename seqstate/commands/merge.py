@@ -21,8 +21,11 @@ the same stem:
   of every group in order;
 - bigWig tracks: one file with every record's header entry and the merged runs
   read back from the group files (pyBigWig);
-- run report: the groups' report with ``records`` and ``skipped_records``
-  concatenated in order.  Its fields equal those of a direct run except the ones
+- records table: the header line once, then every group's rows in order;
+- run report: the groups' report with ``totals`` added up and ``records`` and
+  ``skipped_records`` the first ``records_limit`` entries of the groups' in order
+  (each group lists its first ones, so the gathered first ones are among them).
+  Its fields equal those of a direct run except the ones
   that describe how a run was invoked rather than what it computed:
   ``command_line`` (the merge's), and in ``options`` the keys of
   :data:`INVOCATION_OPTIONS` (``out_dir`` and ``force`` of the merge, ``records``
@@ -33,31 +36,34 @@ Everything is checked before anything is written: every report against the
 one schema of annotate's reports and every file it lists against the report
 (:mod:`seqstate.commands.runreport`: types and ranges, plain file names of the
 group's folder, the SHA-256 checksums annotate records, UTF-8, records and
-feature counts), the groups agree on every other field of their reports and on
-their output files, and the records are those of the FASTA.  The gathered
-report records the checksums of the gathered files.  Groups whose reports have
-no checksums (written before annotate recorded them) are checked line by line
-only, with a warning, and the gathered report then has none either.  Nothing
-here reads bases.
+feature counts), every group's records table row by row (types, ranges, escaping,
+its totals and first entries against the report:
+:mod:`seqstate.commands.records_table`), the groups agree on every other field of
+their reports and on their output files, and the records are those of the
+FASTA.  The gathered report records the checksums of the gathered files.
+Reports of an older schema (no records table) are refused.  Nothing here reads
+bases.
 """
 
 from __future__ import annotations
 
 import json
 from collections.abc import Iterator
-from dataclasses import dataclass, field
+from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any, TextIO
 
-from seqstate import log
 from seqstate.commands.annotate import REPORT_SCHEMA, check_stem
 from seqstate.commands.inputs import read_set
 from seqstate.commands.records import id_listing
+from seqstate.commands.records_table import TABLE_SUFFIX, TableRecords, Totals
 from seqstate.commands.runreport import (
+    BIGWIG_MAX_LENGTH,
     ReportFormatError,
     check_group_files,
     check_report,
     output_checksums,
+    read_group_records,
     read_report,
 )
 from seqstate.errors import UsageError, escape_text
@@ -69,7 +75,17 @@ from seqstate.io.atomic import OutputSet, check_outputs
 INVOCATION_OPTIONS = ("out_dir", "force", "records", "stem", "jobs")
 
 #: Report keys that are the groups' own (the rest must be equal in every group).
-OWN_KEYS = ("command_line", "options", "records", "skipped_records", "outputs", "output_sha256")
+OWN_KEYS = (
+    "command_line",
+    "options",
+    "totals",
+    "records_table",
+    "records_truncated",
+    "records",
+    "skipped_records",
+    "outputs",
+    "output_sha256",
+)
 
 REPORT_SUFFIX = ".run.json"
 
@@ -122,6 +138,20 @@ class _Group:
     report: dict[str, Any]
     #: the report's outputs, checked (plain names of its folder)
     names: list[str] = field(default_factory=list)
+    #: every record of its records table, checked against the report
+    table: TableRecords = field(default_factory=lambda: TableRecords([], [], Totals(), [], []))
+
+    def rows(self) -> list[tuple[int, str]]:
+        """``(0-based line, record ID)`` of every row of the records table, in its order."""
+        t = self.table
+        rows = [(n, e["id"]) for n, e in zip(t.record_lines, t.records)]
+        rows += [(n, e["id"]) for n, e in zip(t.skipped_lines, t.skipped)]
+        return sorted(rows)
+
+    @property
+    def ids(self) -> list[str]:
+        """Every record ID of the group (annotated and skipped), in table order."""
+        return [rid for _, rid in self.rows()]
 
     def file(self, suffix: str) -> Path:
         return self.report_path.parent / f"{self.stem}{suffix}"
@@ -145,7 +175,9 @@ def _load_group(path: str) -> _Group:
         raise UsageError(f"run report '{shown}' cannot be read: {reason}") from None
     stem = p.name[: -len(REPORT_SUFFIX)]
     names = check_report(report, shown, REPORT_SCHEMA, stem, p.parent)
-    return _Group(p, stem, report, names)
+    high = BIGWIG_MAX_LENGTH if any(n.endswith(".bw") for n in names) else None
+    table = read_group_records(report, p.parent, shown, max_length=high)
+    return _Group(p, stem, report, names, table)
 
 
 def _suffixes(group: _Group) -> list[str]:
@@ -187,32 +219,21 @@ def _check_groups(groups: list[_Group]) -> list[str]:
             raise UsageError(
                 f"run report '{g.shown}' is a --region run: only whole records can be gathered"
             )
-        for i, rec in enumerate(g.report["records"]):
+        for rec, line0 in zip(g.table.records, g.table.record_lines):
             if rec["start_1based"] != 1 or rec["end_1based"] != rec["length"]:
                 raise ReportFormatError(
-                    f"'records[{i}]' spans {rec['start_1based']}-{rec['end_1based']}, expected "
-                    f"the whole record 1-{rec['length']} (only whole records can be gathered)",
-                    path=g.shown,
+                    f"record '{escape_text(rec['id'])}' spans {rec['start_1based']}-"
+                    f"{rec['end_1based']}, expected the whole record 1-{rec['length']} (only "
+                    "whole records can be gathered)",
+                    path=escape_text(str(g.file(TABLE_SUFFIX))),
+                    line0=line0,
                 )
-        for entry in g.report["records"] + g.report["skipped_records"]:
-            rid = entry["id"]
+        for rid in g.ids:
             if rid in seen:
                 raise UsageError(
                     f"record '{escape_text(rid)}' is in two groups: '{seen[rid]}' and '{g.shown}'"
                 )
             seen[rid] = g.shown
-    with_sums = [g for g in groups if "output_sha256" in g.report]
-    if with_sums and len(with_sums) != len(groups):
-        old = next(g for g in groups if "output_sha256" not in g.report)
-        raise UsageError(
-            f"run report '{with_sums[0].shown}' records output checksums and '{old.shown}' "
-            "does not: groups must be runs of the same seqstate version"
-        )
-    if not with_sums:
-        log.warn(
-            "the run reports record no output checksums (written by an older seqstate): "
-            "the group files are checked line by line only"
-        )
     return suffixes
 
 
@@ -287,13 +308,23 @@ def _in_fasta_order(groups: list[_Group], fasta: str) -> tuple[list[_Group], boo
     place = {rid: i for i, rid in enumerate(ids)}
     starts: list[int] = []
     for g in groups:
-        held = [entry["id"] for entry in g.report["records"] + g.report["skipped_records"]]
+        held = g.ids
         unknown = [rid for rid in held if rid not in place]
         if unknown:
             raise UsageError(
                 f"run report '{g.shown}' has record(s) {id_listing(unknown)} that FASTA "
                 f"'{shown}' does not have: the groups must be runs on this FASTA (--fasta)"
             )
+        previous = -1
+        for line0, rid in g.rows():
+            if place[rid] < previous:
+                raise ReportFormatError(
+                    f"record '{escape_text(rid)}' comes after record "
+                    f"'{escape_text(ids[previous])}', expected the FASTA's record order",
+                    path=escape_text(str(g.file(TABLE_SUFFIX))),
+                    line0=line0,
+                )
+            previous = place[rid]
         at = sorted(place[rid] for rid in held)
         for a, b in zip(at, at[1:]):
             if b != a + 1:
@@ -304,8 +335,7 @@ def _in_fasta_order(groups: list[_Group], fasta: str) -> tuple[list[_Group], boo
                     "a consecutive stretch of the FASTA's records"
                 )
         starts.append(at[0] if at else len(ids))
-    covered = {entry["id"] for g in groups for entry in g.report["records"]}
-    covered |= {entry["id"] for g in groups for entry in g.report["skipped_records"]}
+    covered = {rid for g in groups for rid in g.ids}
     missing = [rid for rid in ids if rid not in covered]
     if missing:
         raise UsageError(
@@ -428,7 +458,7 @@ def _write_bigwig(groups: list[_Group], suffix: str, path: Path) -> None:
     annotate writer uses, so the file equals a direct run's.
     """
     module = tracks._import_pybigwig()
-    sizes = [(r["id"], int(r["length"])) for g in groups for r in g.report["records"]]
+    sizes = [(r["id"], int(r["length"])) for g in groups for r in g.table.records]
     out = module.open(str(path), "w")
     if out is None:
         raise OSError(f"pyBigWig could not open {str(path)!r} for writing")
@@ -440,7 +470,7 @@ def _write_bigwig(groups: list[_Group], suffix: str, path: Path) -> None:
             if src is None:
                 raise ReportFormatError("cannot be read as a bigWig file", path=str(src_path))
             try:
-                for r in g.report["records"]:
+                for r in g.table.records:
                     name = escape_text(r["id"])
                     try:
                         runs = src.intervals(name) or ()
@@ -485,9 +515,9 @@ def merge(opts: MergeOptions) -> MergeReport:
     if any(s.endswith(".bw") for s in suffixes):
         tracks.require_bigwig()
     for g in groups:
-        check_group_files(g.report, g.report_path.parent, g.names, g.shown)
+        check_group_files(g.report, g.report_path.parent, g.names, g.shown, g.table.records)
     for s in suffixes:
-        if s.endswith((".features.tsv", ".bedgraph")):
+        if s.endswith((".features.tsv", TABLE_SUFFIX, ".bedgraph")):
             _check_table_headers(groups, s)
     names = [stem + s for s in suffixes]
     group_files = [g.report_path for g in groups] + [g.file(s) for g in groups for s in suffixes]
@@ -505,8 +535,16 @@ def merge(opts: MergeOptions) -> MergeReport:
     if "stem" in options:
         options["stem"] = stem if opts.stem is not None else options["stem"]
     report["options"] = options
-    report["records"] = [r for g in groups for r in g.report["records"]]
-    report["skipped_records"] = [r for g in groups for r in g.report["skipped_records"]]
+    limit = first["records_limit"]
+    totals = Totals()
+    for g in groups:
+        totals = totals.merged(Totals(**g.report["totals"]))
+    report["totals"] = asdict(totals)
+    report["records_table"] = stem + TABLE_SUFFIX
+    report["records_truncated"] = totals.records > limit or totals.skipped_records > limit
+    # each group lists its first entries, so the first ``limit`` of all are among them
+    report["records"] = [r for g in groups for r in g.report["records"]][:limit]
+    report["skipped_records"] = [r for g in groups for r in g.report["skipped_records"]][:limit]
     report["outputs"] = sorted(names)
 
     with OutputSet(opts.out_dir, force=opts.force, inputs=inputs) as outs:
@@ -521,19 +559,18 @@ def merge(opts: MergeOptions) -> MergeReport:
             with outs.open_text(name) as fh:
                 if suffix.endswith(".gff3"):
                     _write_gff3(groups, suffix, gff_headers[suffix], fh)
-                else:  # .features.tsv, .bedgraph
+                else:  # .features.tsv, .records.tsv, .bedgraph
                     _write_table(groups, suffix, fh)
             staged[name] = Path(fh.name)
-        if "output_sha256" in first:  # every staged file is in the one staging folder
-            folder = next(iter(staged.values())).parent
-            report["output_sha256"] = output_checksums(folder, list(staged))
+        folder = next(iter(staged.values())).parent  # every staged file is in one folder
+        report["output_sha256"] = output_checksums(folder, list(staged))
         with outs.open_text(stem + REPORT_SUFFIX) as fh:
             json.dump(report, fh, indent=2, sort_keys=False)
             fh.write("\n")
     return MergeReport(
         groups=len(groups),
-        records=len(report["records"]),
-        features=sum(int(r["features"]) for r in report["records"]),
+        records=totals.records,
+        features=totals.features,
         out_dir=opts.out_dir,
         outputs=report["outputs"],
         reordered=reordered,

@@ -7,18 +7,21 @@ writes (types, ranges, output names that are plain file names of the report's
 folder).  :func:`check_group_files` then reads each listed file once and checks
 it against the report: its SHA-256 checksum (``output_sha256``, which annotate
 records for every output but the report itself), UTF-8 text, and the lines or
-entries the report implies (records, their spans, features per record).  Every
+entries the records imply (records, their spans, features per record).  The
+records come from the run's records table (:func:`read_group_records`: every
+record, checked against the report's ``totals`` and first entries).  Every
 failure is one :class:`ReportFormatError` line naming the file (and the line),
 what was found and what was expected.
 
-Reports written before ``output_sha256`` existed have no checksums: their files
-are checked line by line only (the caller warns).
+Reports of an older schema (``seqstate-run-report/1``: every record listed in the
+report, no records table) are refused with a line that says so.
 """
 
 from __future__ import annotations
 
 import hashlib
 import json
+import math
 import os
 import re
 import stat
@@ -26,6 +29,13 @@ from collections.abc import Callable, Iterator, Sequence
 from pathlib import Path
 from typing import Any
 
+from seqstate.commands.records_table import (
+    FILTERS,
+    TABLE_SUFFIX,
+    TableRecords,
+    check_against_report,
+    read_table,
+)
 from seqstate.errors import SeqstateError, escape_text
 from seqstate.io import tracks
 from seqstate.io.gff3 import escape_seqid
@@ -52,14 +62,20 @@ REPORT_KEYS = (
     "thresholds",
     "log_base",
     "coordinates",
+    "totals",
+    "records_table",
+    "records_limit",
+    "records_truncated",
     "records",
     "skipped_records",
     "outputs",
     "output_sha256",
 )
 
-#: Keys a report may lack (older reports have no checksums).
-OPTIONAL_KEYS = ("output_sha256",)
+#: Schemas of older annotate reports, and what they lack (refused with this said).
+OLD_SCHEMAS = {
+    "seqstate-run-report/1": "every record listed in the report, no records table",
+}
 
 _HEX64 = re.compile(r"[0-9a-f]{64}")
 _BLOCK = 1 << 20
@@ -198,11 +214,6 @@ class _Checker:
             raise self.fail(where, value, text)
         return int(value)
 
-    def optional_count(self, obj: dict[str, Any], key: str, where: str) -> None:
-        value = obj.get(key)
-        if value is not None:
-            self.integer(obj, key, where, 0, None)
-
     def strings(self, value: Any, where: str) -> None:
         if not isinstance(value, list):
             raise self.fail(where, value, "a list of strings")
@@ -223,13 +234,27 @@ def check_report(
     feature table, and is a regular file.
     """
     c = _Checker(shown)
-    if report.get("schema") != schema:
+    found = report.get("schema")
+    if isinstance(found, str) and found in OLD_SCHEMAS:
+        raise ReportFormatError(
+            f"schema {found!r} is a run report of an older seqstate ({OLD_SCHEMAS[found]}), "
+            f"expected {schema!r}: annotate the groups again with this version",
+            path=shown,
+        )
+    if found != schema:
         raise ReportFormatError(
             f"schema is {_kind(report.get('schema'))}, expected {schema!r} "
             "(a report of seqstate annotate)",
             path=shown,
         )
     extra = [k for k in report if k not in REPORT_KEYS]
+    missing = [k for k in REPORT_KEYS if k not in report]
+    if missing:
+        raise ReportFormatError(
+            f"'{missing[0]}' is missing, expected every key of an annotate report "
+            f"({', '.join(REPORT_KEYS)})",
+            path=shown,
+        )
     if extra:
         raise ReportFormatError(
             f"unknown key {escape_text(extra[0])!r}, expected only the keys of an annotate "
@@ -258,7 +283,30 @@ def check_report(
     bigwig = any(n.endswith(".bw") for n in names)
     high = BIGWIG_MAX_LENGTH if bigwig else None
 
+    totals = _check_totals(c, report)
+    table = c.typed(report, "records_table", "records_table", str, "a file name")
+    if table != stem + TABLE_SUFFIX or table not in names:
+        raise c.fail(
+            "records_table", table, f"'{escape_text(stem + TABLE_SUFFIX)}', one of 'outputs'"
+        )
+    limit = c.integer(report, "records_limit", "records_limit", 1, None)
+    truncated = c.typed(report, "records_truncated", "records_truncated", bool, "true or false")
+    want_cut = totals["records"] > limit or totals["skipped_records"] > limit
+    if truncated != want_cut:
+        raise c.fail(
+            "records_truncated",
+            truncated,
+            f"{str(want_cut).lower()} ('totals' against 'records_limit' {limit})",
+        )
+
     records = c.typed(report, "records", "records", list, "a list of records")
+    if len(records) != min(totals["records"], limit):
+        raise c.fail(
+            "records",
+            records,
+            f"the first {min(totals['records'], limit)} record(s) "
+            f"(totals.records {totals['records']}, records_limit {limit})",
+        )
     seen: set[str] = set()
     for i, rec in enumerate(records):
         where = f"records[{i}]"
@@ -274,18 +322,24 @@ def check_report(
         start = c.integer(rec, "start_1based", f"{where}.start_1based", 1, length)
         end = c.integer(rec, "end_1based", f"{where}.end_1based", start, length)
         c.integer(rec, "unknown_bases", f"{where}.unknown_bases", 0, end - start + 1)
-        c.typed(rec, "loglik_nat", f"{where}.loglik_nat", (int, float), "a number")
+        loglik = c.typed(rec, "loglik_nat", f"{where}.loglik_nat", (int, float), "a number")
+        try:
+            finite = math.isfinite(float(loglik))
+        except OverflowError:  # an integer past what a float holds
+            finite = False
+        if not finite:
+            raise c.fail(f"{where}.loglik_nat", loglik, "a finite number")
         c.integer(rec, "features", f"{where}.features", 0, None)
-        c.optional_count(rec, "genes", f"{where}.genes")
-        c.optional_count(rec, "mrnas", f"{where}.mrnas")
-        filtered = rec.get("filtered_genes")
-        if filtered is not None:
-            if not isinstance(filtered, dict):
-                raise c.fail(f"{where}.filtered_genes", filtered, "null or an object of counts")
-            for key in filtered:
-                c.integer(filtered, key, f"{where}.filtered_genes.{key}", 0, None)
+        _check_gene_counts(c, rec, where)
 
     skipped = c.typed(report, "skipped_records", "skipped_records", list, "a list of records")
+    if len(skipped) != min(totals["skipped_records"], limit):
+        raise c.fail(
+            "skipped_records",
+            skipped,
+            f"the first {min(totals['skipped_records'], limit)} skipped record(s) "
+            f"(totals.skipped_records {totals['skipped_records']}, records_limit {limit})",
+        )
     for i, sk in enumerate(skipped):
         where = f"skipped_records[{i}]"
         if not isinstance(sk, dict):
@@ -295,25 +349,86 @@ def check_report(
             raise c.fail(f"{where}.id", rid, "each record once (records and skipped_records)")
         seen.add(rid)
         c.integer(sk, "line", f"{where}.line", 1, None)
-        c.typed(sk, "reason", f"{where}.reason", str, "a string")
+        reason = c.typed(sk, "reason", f"{where}.reason", str, "a non-empty string")
+        if not reason or reason == ".":
+            raise c.fail(f"{where}.reason", reason, "a non-empty string")
 
-    if "output_sha256" in report:
-        sums = c.typed(report, "output_sha256", "output_sha256", dict, "an object (name -> sha256)")
-        want = sorted(n for n in names if not n.endswith(".run.json"))
-        if sorted(sums) != want:
-            raise ReportFormatError(
-                f"'output_sha256' names {sorted(sums)}, expected one checksum for each output "
-                f"but the report ({want})",
-                path=shown,
-            )
-        for name, value in sums.items():
-            if not isinstance(value, str) or not _HEX64.fullmatch(value):
-                raise c.fail(f"output_sha256.{name}", value, "64 lowercase hex digits")
+    sums = c.typed(report, "output_sha256", "output_sha256", dict, "an object (name -> sha256)")
+    want = sorted(n for n in names if not n.endswith(".run.json"))
+    if sorted(sums) != want:
+        raise ReportFormatError(
+            f"'output_sha256' names {sorted(sums)}, expected one checksum for each output "
+            f"but the report ({want})",
+            path=shown,
+        )
+    for name, value in sums.items():
+        if not isinstance(value, str) or not _HEX64.fullmatch(value):
+            raise c.fail(f"output_sha256.{name}", value, "64 lowercase hex digits")
     return names
 
 
+def _check_gene_counts(c: _Checker, obj: dict[str, Any], where: str) -> None:
+    """``genes``, ``mrnas`` and ``filtered_genes`` (one count per gene filter): all null
+    (a segment model) or all given."""
+    keys = ("genes", "mrnas", "filtered_genes")
+    given = [obj.get(k) is not None for k in keys]
+    if any(given) and not all(given):
+        key = keys[given.index(False)]
+        raise c.fail(f"{where}.{key}", obj.get(key), "a count, as 'genes' is given")
+    if not any(given):
+        return
+    c.integer(obj, "genes", f"{where}.genes", 0, None)
+    c.integer(obj, "mrnas", f"{where}.mrnas", 0, None)
+    filtered = obj["filtered_genes"]
+    if not isinstance(filtered, dict) or sorted(filtered) != sorted(FILTERS):
+        raise c.fail(
+            f"{where}.filtered_genes",
+            filtered,
+            f"null or an object of counts ({', '.join(FILTERS)})",
+        )
+    for key in FILTERS:
+        c.integer(filtered, key, f"{where}.filtered_genes.{key}", 0, None)
+
+
+def _check_totals(c: _Checker, report: dict[str, Any]) -> dict[str, Any]:
+    totals = c.typed(report, "totals", "totals", dict, "an object of counts")
+    keys = ("records", "skipped_records", "bases", "features", "genes", "mrnas", "filtered_genes")
+    extra = [k for k in totals if k not in keys]
+    if extra:
+        raise ReportFormatError(
+            f"unknown key 'totals.{escape_text(extra[0])}', expected only {', '.join(keys)}",
+            path=c.shown,
+        )
+    for key in keys[:4]:
+        c.integer(totals, key, f"totals.{key}", 0, None)
+    _check_gene_counts(c, totals, "totals")
+    return totals
+
+
+def read_group_records(
+    report: dict[str, Any], folder: Path, shown: str, *, max_length: int | None = None
+) -> TableRecords:
+    """Every record of a checked report's records table: its SHA-256 first (the one the
+    report records), then every row (:func:`seqstate.commands.records_table.read_table`),
+    then its totals and first entries against the report's."""
+    path = folder / report["records_table"]
+    path_shown = escape_text(str(path))
+    want = report["output_sha256"][report["records_table"]]
+    found = file_sha256(path)
+    if found != want:
+        raise _wrong(
+            path,
+            None,
+            f"SHA-256 {found}, expected {want} as run report '{shown}' records "
+            "(the file changed after the run)",
+        )
+    table = read_table(path, path_shown, max_length=max_length)
+    check_against_report(table, report, path_shown, shown)
+    return table
+
+
 #: Output kinds a report may list, by the end of the name after ``STEM``.
-_KINDS = (".run.json", ".gff3", ".features.tsv", ".bedgraph", ".bw")
+_KINDS = (".run.json", ".gff3", ".features.tsv", TABLE_SUFFIX, ".bedgraph", ".bw")
 
 
 def _check_outputs(c: _Checker, outputs: list[Any], stem: str, folder: Path) -> list[str]:
@@ -335,11 +450,12 @@ def _check_outputs(c: _Checker, outputs: list[Any], stem: str, folder: Path) -> 
         if name in names:
             raise c.fail(where, name, "each output once")
         names.append(name)
-    for required in (".run.json", ".gff3", ".features.tsv"):
+    for required in (".run.json", ".gff3", ".features.tsv", TABLE_SUFFIX):
         if stem + required not in names:
             raise ReportFormatError(
                 f"'outputs' does not list '{escape_text(stem + required)}', expected every "
-                "output of the run (the report, the GFF3 and the feature table at least)",
+                "output of the run (the report, the GFF3, the feature and records tables "
+                "at least)",
                 path=c.shown,
             )
     for name in names:
@@ -596,25 +712,28 @@ _CHECKS: dict[str, Callable[[Path, list[dict[str, Any]]], None]] = {
 
 
 def check_group_files(
-    report: dict[str, Any], folder: Path, names: Sequence[str], shown: str
+    report: dict[str, Any],
+    folder: Path,
+    names: Sequence[str],
+    shown: str,
+    records: list[dict[str, Any]],
 ) -> None:
-    """Check every output of a checked report (see the module docstring): first its
-    checksum, when the report has them (so no library reads a changed file), then
-    UTF-8 and the lines or entries the report implies."""
-    sums = report.get("output_sha256")
-    records = report["records"]
+    """Check every output of a checked report (see the module docstring) against
+    ``records`` (every annotated record, from its records table): first its checksum
+    (so no library reads a changed file), then UTF-8 and the lines or entries the
+    records imply.  The records table itself is checked by :func:`read_group_records`."""
+    sums = report["output_sha256"]
     for name in names:
         check = next((f for end, f in _CHECKS.items() if name.endswith(end)), None)
-        if check is None:  # the report itself
+        if check is None:  # the report itself, the records table
             continue
         path = folder / name
-        if sums is not None:
-            found = file_sha256(path)
-            if found != sums[name]:
-                raise _wrong(
-                    path,
-                    None,
-                    f"SHA-256 {found}, expected {sums[name]} as run report '{shown}' records "
-                    "(the file changed after the run)",
-                )
+        found = file_sha256(path)
+        if found != sums[name]:
+            raise _wrong(
+                path,
+                None,
+                f"SHA-256 {found}, expected {sums[name]} as run report '{shown}' records "
+                "(the file changed after the run)",
+            )
         check(path, records)

@@ -24,36 +24,52 @@ from seqstate.io.gff3 import GFF3Writer, header_text
 __all__ = ["DeferredBigWig", "DeferredGFF3", "RunCarry"]
 
 _COPY = 1 << 22
+_VERSION = header_text([])  # "##gff-version 3\n"
 
 
 class DeferredGFF3:
     """A GFF3 output whose header is written last: :attr:`writer` takes features now.
 
     ``target`` is the output's open text handle; ``scratch`` a file path for the
-    lines until :meth:`finish` (header, then the lines, copied in blocks).
+    lines until :meth:`finish` (header, then the lines, copied in blocks).  The
+    ``##sequence-region`` lines given to :meth:`add_region` go to a second scratch
+    file beside it (``scratch`` + ``.regions``), so memory does not grow with the
+    number of records.
     """
 
     def __init__(self, target: TextIO, scratch: Path) -> None:
         self._target = target
         self._scratch = scratch
+        self._regions_path = scratch.with_name(scratch.name + ".regions")
         self._body: TextIO = open(scratch, "w", encoding="utf-8", newline="\n")
+        self._regions: TextIO = open(self._regions_path, "w", encoding="utf-8", newline="\n")
         self.writer = GFF3Writer(self._body, body_only=True)
 
     def write_text(self, text: str) -> None:
         """Feature lines already formatted (from a worker's own writer)."""
         self._body.write(text)
 
-    def finish(self, sequence_regions: list[tuple[str, int, int]]) -> None:
-        """Write the header for ``sequence_regions`` (1-based closed), then every line."""
+    def add_region(self, seqid: str, start: int, end: int) -> None:
+        """The ``##sequence-region`` line of one record (1-based closed), in order."""
+        self._regions.write(header_text([(seqid, start, end)])[len(_VERSION) :])
+
+    def finish(self) -> None:
+        """Write the version line, the ``##sequence-region`` lines of :meth:`add_region`,
+        then every line."""
         self._body.close()
-        self._target.write(header_text(sequence_regions))
+        self._regions.close()
+        self._target.write(_VERSION)
+        with open(self._regions_path, encoding="utf-8", newline="\n") as lines:
+            shutil.copyfileobj(lines, self._target, _COPY)
         with open(self._scratch, encoding="utf-8", newline="\n") as body:
             shutil.copyfileobj(body, self._target, _COPY)
         self._scratch.unlink()
+        self._regions_path.unlink()
 
     def abandon(self) -> None:
-        """Close the scratch file (the caller's folder removal deletes it)."""
+        """Close the scratch files (the caller's folder removal deletes them)."""
         self._body.close()
+        self._regions.close()
 
 
 class RunCarry:

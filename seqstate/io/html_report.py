@@ -685,6 +685,10 @@ def write_html_report(
     bases = 0
     for rec in _records(records):
         bases += rec[1]
+    n_records = len(records)
+    totals = report_dict.get("totals")
+    if isinstance(totals, Mapping):  # the report lists only the first records
+        n_records, bases = totals.get("records", n_records), totals.get("bases", bases)
     per_type = _type_counts(features_rows)
     title = f"seqstate run report: {model.get('name', 'model')}"
     out: list[str] = [
@@ -696,7 +700,7 @@ def write_html_report(
         "<section id='summary'><h2>Run summary</h2>",
     ]
     summary: list[tuple[str, Any]] = [
-        ("records", len(records)),
+        ("records", n_records),
         ("bases", bases),
         ("features", len(features_rows)),
         ("model", model.get("name", "")),

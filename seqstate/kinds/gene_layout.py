@@ -40,6 +40,7 @@ GFF3 coordinates are 1-based closed in files, 0-based half-open inside.
 
 from __future__ import annotations
 
+import dataclasses
 import re
 from dataclasses import dataclass, field
 
@@ -131,6 +132,17 @@ SHIPPED_SHAPE = GeneShape(
 )
 #: ``[fit] interpolate`` strength of the shipped layout.
 SHIPPED_INTERPOLATION = 32.0
+
+#: The shape of the plant layout ``gene-segment-layout-plant`` and of the plant model
+#: ``gene-segment-athaliana`` fitted from it: :data:`SHIPPED_SHAPE` with GC donors
+#: beside GT donors.  Chosen by cross-validation inside A. thaliana chromosome 1
+#: positions 1-15,000,000 (halves 1-7,500,000 and 7,500,001-15,000,000, both ways,
+#: ``benchmarks/accuracy_plant.py``): exact-exon Sn 0.679 -> 0.686 and 0.716 -> 0.725,
+#: gene Sn 0.397 -> 0.401 and 0.393 -> 0.400 (models/README.md has the table).
+PLANT_SHAPE = dataclasses.replace(SHIPPED_SHAPE, gc_donor=True)
+#: The name of the plant start layout (``models/gene-segment-layout-plant``, written by
+#: models/build.py).
+PLANT_LAYOUT_NAME = "gene-segment-layout-plant"
 
 #: GFF3 types whose spans the ``repeat`` state is fitted from (Sequence Ontology terms).
 REPEAT_TYPES = ("mobile_genetic_element", "transposable_element", "pseudogene")

@@ -64,10 +64,10 @@ def rows_of(name: str, run_json: str, features_tsv: str, compare_json: str | Non
             acc[1] += length
             if has_post and row["mean_posterior"] not in ("", "NA", "."):
                 acc[2] += float(row["mean_posterior"]) * length
-    records = report["records"]
+    totals = report["totals"]  # the report lists only the first records; totals count all
     common = {
-        "records": str(len(records)),
-        "total_bases": str(sum(r["end_1based"] - r["start_1based"] + 1 for r in records)),
+        "records": str(totals["records"]),
+        "total_bases": str(totals["bases"]),
         "model": report["model"]["name"],
         "model_sha256": report["model"]["sha256"],
         "seqstate_version": report["version"],
