@@ -434,7 +434,7 @@ def test_annotate_evidence_runs_and_is_deterministic(tmp_path):
         res = _annotate(model, fasta, out, "--masked", "evidence")
         assert res.exit_code == 0, res.output
         outs.append({p.name: p.read_bytes() for p in sorted(out.iterdir())})
-    assert sorted(outs[0]) == ["r.features.tsv", "r.gff3", "r.run.json"]
+    assert sorted(outs[0]) == ["r.features.tsv", "r.gff3", "r.records.tsv", "r.run.json"]
     for name in ("r.features.tsv", "r.gff3"):
         assert outs[0][name] == outs[1][name], name
     report = json.loads(outs[0]["r.run.json"])
