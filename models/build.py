@@ -4,7 +4,8 @@ Run from the repository root:  python models/build.py
 Writes models/cpg-island-8 from models/cpg-island, models/gene-segment-layout (the
 gene-segment skeleton, uniform over its allowed moves and bases; seqstate fit turns it into
 models/gene-segment, see models/README.md) and models/gene-segment-layout-plant (the same
-skeleton with GC donors beside GT donors; fitted into models/gene-segment-athaliana).
+skeleton with GC donors beside GT donors, a minimum exon length after an intron and order-4
+content; fitted into models/gene-segment-athaliana).
 """
 
 from pathlib import Path
@@ -34,18 +35,20 @@ def build_cpg8():
     return eight
 
 
-def _gene_layout(shape_name, name_arg=""):
-    """A gene layout of ``seqstate.kinds.gene_layout`` built from the shape of that name."""
+def _gene_layout(shape_name, name_arg="", order_name=""):
+    """A gene layout of ``seqstate.kinds.gene_layout`` built from the shape of that name
+    (and the content order of that name; 3 without one)."""
     from seqstate.kinds import gene_layout
 
     kwargs = {"name": getattr(gene_layout, name_arg)} if name_arg else {}
+    order = getattr(gene_layout, order_name) if order_name else 3
     layout = gene_layout.build_layout(
-        3,
+        order,
         shape=getattr(gene_layout, shape_name),
         interpolation=gene_layout.SHIPPED_INTERPOLATION,
         **kwargs,
     )
-    call = f"3, shape={shape_name}, interpolation=SHIPPED_INTERPOLATION" + (
+    call = f"{order_name or 3}, shape={shape_name}, interpolation=SHIPPED_INTERPOLATION" + (
         f", name={name_arg}" if name_arg else ""
     )
     layout.provenance = {
@@ -61,7 +64,7 @@ def build_gene_layout():
 
 
 def build_plant_layout():
-    return _gene_layout("PLANT_SHAPE", "PLANT_LAYOUT_NAME")
+    return _gene_layout("PLANT_SHAPE", "PLANT_LAYOUT_NAME", "PLANT_ORDER")
 
 
 def main() -> None:
