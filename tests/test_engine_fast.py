@@ -26,12 +26,11 @@ from helpers import kernel_family, random_model, random_rows, sample_record
 from seqstate.engine import (
     _common,
     api,
-    kernels,
     kernels_query,
     reference,
     small,
     sparse,
-    sparse_query,
+    stream_paths,
 )
 from seqstate.engine.buffers import work_buffer
 from seqstate.errors import ImpossibleSequenceError
@@ -86,70 +85,36 @@ def _limit(t):
 
 
 def _generic_loglik(t, codes):
-    return kernels.forward_loglik(
-        codes,
-        t.start,
-        t.end,
-        t.E,
-        t.nz_ptr,
-        t.nz_state,
-        t.pred_ptr,
-        t.pred_src,
-        t.pred_p,
-        _limit(t),
-    )
+    """The generic family's forward pass (its own rescaling threshold, see _limit)."""
+    return t.generic.loglik(codes)
 
 
 def _generic_posterior(t, codes, group, n_groups, block):
+    """The generic family's whole-record posterior (backward pass, then the fused
+    forward-and-combine sweep of seqstate.engine.passes)."""
     n = codes.shape[0]
     nb = (n + block - 1) // block
     m = t.n_states
     out = np.zeros((n, n_groups), dtype=np.float64)
     ack, bck = np.zeros((nb, m)), np.zeros((nb, m))
     alog, blog = np.zeros(nb), np.zeros(nb)
-    ll, pos = kernels.posterior_checkpointed(
-        codes,
-        t.start,
-        t.end,
-        t.E,
-        t.nz_ptr,
-        t.nz_state,
-        t.pred_ptr,
-        t.pred_src,
-        t.pred_p,
-        t.succ_ptr,
-        t.succ_dst,
-        t.succ_p,
-        block,
-        group,
-        out,
-        ack,
-        alog,
-        bck,
-        blog,
-        *kernels.posterior_scratch(n, m, block),
-        _limit(t),
-    )
+    ll, pos = t.generic.posterior(codes, group, n_groups, block, out, (ack, alog, bck, blog))
     return ll, pos, out, ack, alog, bck, blog
 
 
 def _generic_viterbi(t, codes, block):
-    path = work_buffer(codes.shape[0], np.int16)
-    lp, pos = kernels.viterbi_checkpointed(
-        codes,
-        t.log_start,
-        t.log_end,
-        t.logE,
-        t.nz_ptr,
-        t.nz_state,
-        t.pred_ptr,
-        t.pred_src,
-        t.pred_logp,
-        block,
-        path,
-        *kernels.viterbi_scratch(codes.shape[0], t.n_states, block),
-    )
-    return path, lp, pos
+    """The generic family's Viterbi (the streaming kernels of seqstate.engine.stream_viterbi);
+    (path, log probability, failing position 0-based or -1)."""
+    try:
+        lp, pieces = stream_paths.viterbi_pieces(
+            t, codes.shape[0], lambda a, b: codes[a:b], block=block, generic=True
+        )
+    except ImpossibleSequenceError as err:
+        return None, -np.inf, int(str(err).split("position ")[-1]) - 1
+    path = np.zeros(codes.shape[0], dtype=np.int16)
+    for piece in pieces:
+        path[piece.start0 : piece.end0] = piece.states
+    return path, lp, -1
 
 
 def _log_vectors(vec, logs):
@@ -638,41 +603,9 @@ def test_chain_sparse_impossible_record_reports_the_generic_positions(specialise
     ):
         with pytest.raises(ImpossibleSequenceError, match="position 58"):
             call()
-    sp = t.backend.sp
-    lim = _limit(t)
-    assert (
-        sparse.forward_loglik(
-            bad, sp.start, sp.end, sp.E, sp.w1, sp.f_ptr, sp.f_n0, sp.f_dst, sp.f_src, sp.f_w, lim
-        )[1]
-        == _generic_loglik(t, bad)[1]
-    )
+    assert t.backend.loglik(bad)[1] == _generic_loglik(t, bad)[1]
     for block in (1, 5, 1000):
-        path = work_buffer(bad.shape[0], np.int16)
-        got = sparse_query.viterbi_checkpointed(
-            bad,
-            sp.log_start,
-            sp.log_end,
-            sp.logE,
-            sp.perm,
-            sp.inv,
-            sp.la1,
-            sp.f_ptr,
-            sp.f_n0,
-            sp.f_dst,
-            sp.f_src,
-            sp.f_lp,
-            sp.f_rank,
-            sp.f_col,
-            sp.tb_prev,
-            sp.tb_col,
-            sp.p_ptr,
-            sp.p_src,
-            sp.p_lp,
-            block,
-            *sparse_query.viterbi_scratch(sp, bad.shape[0], block),
-            path,
-        )
-        assert got[1] == _generic_viterbi(t, bad, block)[2] == 57
+        assert _generic_viterbi(t, bad, block)[2] == 57
 
 
 # ----------------------------------------------------------------- the gene-segment model

@@ -2,9 +2,10 @@
 kernels of seqstate (api.viterbi, mea.mea), for every kernel family.
 
 Every expected value here comes from the project's own existing code: the whole-record
-Viterbi kernels of seqstate (api.viterbi and the generic kernels.viterbi_checkpointed) and the
-whole-record MEA kernel of seqstate (mea.mea), or from a plain-NumPy run-length encoding written
-in this file.  Models and records are the tests' own random draws (tests/helpers.py).
+Viterbi of seqstate (api.viterbi; the generic family's steps via viterbi_pieces(generic=True))
+and the whole-record MEA kernel of seqstate (mea.mea), or from a plain-NumPy run-length
+encoding written in this file.  Models and records are the tests' own random draws
+(tests/helpers.py).
 """
 
 from __future__ import annotations

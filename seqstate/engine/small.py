@@ -37,7 +37,6 @@ and vector queries work on them unchanged.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
@@ -45,8 +44,7 @@ import numpy as np
 from numba import njit
 
 from seqstate.engine._common import JIT as _JIT
-from seqstate.engine._common import RESCALE_BELOW, rescale_limit, smallest_factor
-from seqstate.engine.buffers import work_buffer
+from seqstate.engine._common import rescale_limit, smallest_factor
 
 if TYPE_CHECKING:
     from seqstate.engine.tables import EngineTables
@@ -179,18 +177,6 @@ def group_table(small: SmallTables, group: np.ndarray) -> np.ndarray:
     return gc
 
 
-def viterbi_scratch(
-    small: SmallTables, n: int, block: int
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Work arrays ``(ck, da, va)`` of :func:`viterbi_checkpointed` for N = ``n``."""
-    nblocks = (n + block - 1) // block
-    return (
-        work_buffer((nblocks, small.kmax)),
-        work_buffer(small.kmax),
-        work_buffer(small.kmax),
-    )
-
-
 # ----------------------------------------------------------------- wide steps
 @njit(**_JIT)
 def _wide_forward(ua, cp, va, c, K, st, T, E):
@@ -269,225 +255,4 @@ def _wide_viterbi(da, cp, va, bpa, c, K, st, logT, logE):
     return best_any
 
 
-# ----------------------------------------------------------------- forward
-# The forward step is written out in forward_loglik and again in the posterior kernel
-# (small_posterior.py) on purpose.  Measured on the development machine (1 Mbp, cpg-island,
-# median of 5): the step as one helper with @njit(inline="always") made forward_loglik 60x
-# slower (2.0 ms -> 120 ms; a plain @njit helper too); a helper for the rare wide step
-# alone kept forward_loglik at 2.0 ms but made the posterior 2x slower (15.9 -> 32.3 ms).
-@njit(**_JIT)
-def forward_loglik(codes, start, end, K, st, wide, cls, W, T, E, lim=RESCALE_BELOW):
-    """Total log-likelihood (natural log); (loglik, fail_position) as the generic kernel."""
-    n = codes.shape[0]
-    kmax = st.shape[1]
-    ua = np.zeros(kmax)
-    va = np.zeros(kmax)
-    logscale = 0.0
-    c = codes[0]
-    total = 0.0
-    for k in range(K[c]):
-        v = start[st[c, k]] * E[c, st[c, k]]
-        ua[k] = v
-        total += v
-    if total == 0.0:
-        return -np.inf, 0
-    if total < lim:
-        inv = 1.0 / total
-        for k in range(kmax):
-            ua[k] *= inv
-        logscale += math.log(total)
-    u0 = ua[0]
-    u1 = ua[1]
-    cp = c
-    for i in range(1, n):
-        c = codes[i]
-        if wide[cp] or wide[c]:
-            if not wide[cp]:
-                ua[0] = u0
-                ua[1] = u1
-            s = _wide_forward(ua, cp, va, c, K, st, T, E)
-            if s < lim:
-                if s == 0.0:
-                    return -np.inf, i
-                inv = 1.0 / s
-                for k in range(kmax):
-                    va[k] *= inv
-                logscale += math.log(s)
-            for k in range(kmax):
-                ua[k] = va[k]
-            u0 = ua[0]
-            u1 = ua[1]
-        else:
-            q = cls[cp]
-            v0 = u0 * W[q, c, 0] + u1 * W[q, c, 2]
-            v1 = u0 * W[q, c, 1] + u1 * W[q, c, 3]
-            s = v0 + v1
-            if s < lim:
-                if s == 0.0:
-                    return -np.inf, i
-                inv = 1.0 / s
-                v0 *= inv
-                v1 *= inv
-                logscale += math.log(s)
-            u0 = v0
-            u1 = v1
-        cp = c
-    if not wide[cp]:
-        ua[0] = u0
-        ua[1] = u1
-    final = 0.0
-    for k in range(K[cp]):
-        final += ua[k] * end[st[cp, k]]
-    if final == 0.0:
-        return -np.inf, n
-    return math.log(final) + logscale, -1
-
-
 # ----------------------------------------------------------------- Viterbi
-@njit(**_JIT)
-def viterbi_checkpointed(
-    codes, log_start, log_end, K, st, wide, cls, LT, LE, logT, logE, block, path, ck, da, va
-):
-    """Most probable path into ``path``; (log probability, fail_position), generic tie rule.
-
-    The compact delta vector is kept at the first position of every block; the
-    traceback recomputes each block with its back-pointers (compact indices).
-    ``ck``, ``da`` and ``va`` are work arrays (see :func:`viterbi_scratch`).
-    """
-    n = codes.shape[0]
-    kmax = st.shape[1]
-    nblocks = (n + block - 1) // block
-    bpa = np.zeros(kmax, dtype=np.int8)
-    c = codes[0]
-    anyv = -np.inf
-    for k in range(kmax):
-        if k < K[c]:
-            v = log_start[st[c, k]] + logE[c, st[c, k]]
-        else:
-            v = -np.inf
-        da[k] = v
-        if v > anyv:
-            anyv = v
-    if anyv == -np.inf:
-        return -np.inf, 0
-    ck[0, :] = da
-    ckpos = block
-    d0 = da[0]
-    d1 = da[1]
-    cp = c
-    for i in range(1, n):
-        c = codes[i]
-        if wide[cp] or wide[c]:
-            if not wide[cp]:
-                da[0] = d0
-                da[1] = d1
-            anyv = _wide_viterbi(da, cp, va, bpa, c, K, st, logT, logE)
-            if anyv == -np.inf:
-                return -np.inf, i
-            for k in range(kmax):
-                da[k] = va[k]
-            d0 = da[0]
-            d1 = da[1]
-        else:
-            q = cls[cp]
-            r = cls[c]
-            a0 = d0 + LT[q, r, 0]
-            a1 = d1 + LT[q, r, 2]
-            m0 = a1 if a1 > a0 else a0
-            a0 = d0 + LT[q, r, 1]
-            a1 = d1 + LT[q, r, 3]
-            m1 = a1 if a1 > a0 else a0
-            d0 = m0 + LE[c, 0]
-            d1 = m1 + LE[c, 1]
-            if d0 == -np.inf and d1 == -np.inf:
-                return -np.inf, i
-        cp = c
-        if i == ckpos:
-            ckpos += block
-            if not wide[c]:
-                da[0] = d0
-                da[1] = d1
-                for k in range(2, kmax):
-                    da[k] = -np.inf
-            ck[i // block, :] = da
-    if not wide[cp]:
-        da[0] = d0
-        da[1] = d1
-        for k in range(2, kmax):
-            da[k] = -np.inf
-    best = -np.inf
-    kbest = -1
-    for k in range(K[cp]):
-        v = da[k] + log_end[st[cp, k]]
-        if v > best:
-            best = v
-            kbest = k
-    if kbest < 0:
-        return -np.inf, n
-    # ---- traceback, one block at a time from the end
-    bps = np.zeros((min(block, n), kmax), dtype=np.int8)
-    kcur = kbest
-    for bk in range(nblocks - 1, -1, -1):
-        b0 = bk * block
-        b1 = min(n, b0 + block)
-        for k in range(kmax):
-            da[k] = ck[bk, k]
-        d0 = da[0]
-        d1 = da[1]
-        cp = codes[b0]
-        for i in range(b0 + 1, b1):
-            c = codes[i]
-            r = i - b0
-            if wide[cp] or wide[c]:
-                if not wide[cp]:
-                    da[0] = d0
-                    da[1] = d1
-                _wide_viterbi(da, cp, va, bpa, c, K, st, logT, logE)
-                for k in range(kmax):
-                    bps[r, k] = bpa[k]
-                for k in range(kmax):
-                    da[k] = va[k]
-                d0 = da[0]
-                d1 = da[1]
-            else:
-                q = cls[cp]
-                q2 = cls[c]
-                a0 = d0 + LT[q, q2, 0]
-                a1 = d1 + LT[q, q2, 2]
-                if a1 > a0:
-                    m0 = a1
-                    bps[r, 0] = 1
-                else:
-                    m0 = a0
-                    bps[r, 0] = 0
-                a0 = d0 + LT[q, q2, 1]
-                a1 = d1 + LT[q, q2, 3]
-                if a1 > a0:
-                    m1 = a1
-                    bps[r, 1] = 1
-                else:
-                    m1 = a0
-                    bps[r, 1] = 0
-                d0 = m0 + LE[c, 0]
-                d1 = m1 + LE[c, 1]
-            cp = c
-        if not wide[cp]:
-            da[0] = d0
-            da[1] = d1
-        if bk < nblocks - 1:
-            # the state at b1 is known: pick its best predecessor at b1 - 1
-            c = codes[b1]
-            t = st[c, kcur]
-            bestp = -np.inf
-            arg = -1
-            for j in range(K[cp]):
-                v = da[j] + logT[st[cp, j], t]
-                if v > bestp:
-                    bestp = v
-                    arg = j
-            kcur = arg if arg >= 0 else 0
-        path[b1 - 1] = st[cp, kcur]
-        for i in range(b1 - 1, b0, -1):
-            kcur = bps[i - b0, kcur]
-            path[i - 1] = st[codes[i - 1], kcur]
-    return best, -1

@@ -239,6 +239,7 @@ def viterbi_pieces(
     block: int | None = None,
     chunk: int = 1 << 20,
     record: str | None = None,
+    generic: bool = False,
 ) -> tuple[float, Iterator[PathPiece]]:
     """Forward max-product pass over code chunks storing checkpoints (O(nblocks*M) memory),
     returns the path's log probability (natural log) and an iterator of pieces from the LAST
@@ -249,14 +250,15 @@ def viterbi_pieces(
     The last blocks whose back-pointers fit :data:`BACKPOINTER_BUDGET` keep them from the
     forward pass instead (no second pass over them).  ``chunk``: codes read per call of the
     forward pass.  The failing position of an impossible record is the first position at
-    which every state's max-product score is -inf, read from this pass."""
+    which every state's max-product score is -inf, read from this pass.  ``generic``: the
+    generic family's steps whatever family serves the model (same path; for tests)."""
     if n <= 0:
         raise ValueError("empty record")
     if chunk < 1:
         raise ValueError(f"chunk must be a positive number of positions, got {chunk}")
     block = _block_of(n, block)
     nblocks = (n + block - 1) // block
-    fam = _family(tables, n, block)
+    fam = _Generic(tables, n, block) if generic else _family(tables, n, block)
     per_block = block * fam.width * fam.bp_dtype.itemsize
     kept = min(nblocks, BACKPOINTER_BUDGET // max(per_block, 1))
     tail0 = (nblocks - kept) * block

@@ -186,7 +186,7 @@ def small_forward(
     logT, logE,
 ):  # fmt: skip
     """Forward over ``[i0, i0 + len(codes))`` in compact indices (the steps of
-    :func:`seqstate.engine.small.viterbi_checkpointed`); ``da`` holds the compact delta row of
+    the compact tables of :mod:`seqstate.engine.small`); ``da`` holds the compact delta row of
     ``i0 - 1`` and ``carry[0]`` its code.  Returns -1 or the failing position."""
     n1 = codes.shape[0]
     kmax = st.shape[1]
@@ -387,7 +387,7 @@ def sparse_forward(
     f_col,
 ):
     """Forward over ``[i0, i0 + len(codes))`` in the renumbered slots (the steps of
-    :func:`seqstate.engine.sparse_query.viterbi_checkpointed`); ``rows`` (2, M + 2), the row
+    the chain-sparse layout of :mod:`seqstate.engine.sparse`); ``rows`` (2, M + 2), the row
     of ``i0 - 1`` in row ``carry[0]``.  Impossibility is checked at every block end and at the
     call's end (as that kernel does): returns -1, or a position at or after the first failing
     one (:func:`sparse_locate` finds it)."""
