@@ -32,5 +32,10 @@ class SmallBackend(GenericBackend):
         sm = small.build(tables)
         return None if sm is None else cls(tables, sm)
 
+    def loglik(self, codes: np.ndarray) -> tuple[float, int]:
+        # the family's own whole-record forward (kept for speed, see engine.small)
+        sm = self.sm
+        return small.forward_loglik(codes, sm.start, sm.end, *self.steps, sm.lim)
+
     def passes_for(self, group: Array | None = None, n_groups: int = 0) -> passes._Generic:
         return passes._Small(self.t, self)
