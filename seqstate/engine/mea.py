@@ -13,19 +13,15 @@ is recomputed once during the traceback, so memory is O(M * (N / block + block))
 Ties go to the lowest predecessor index at every step and to the lowest state
 index at the end, as in Viterbi.  Arrays in, arrays out; nothing here prints.
 
-Two implementations of the same path:
-
-* :func:`mea_path` -- the first whole-record kernel (every state's predecessors visited
-  at every position, one back-pointer per state); kept as the compiled twin of the
-  streaming kernels in tests, with :func:`mea_reference` (plain NumPy) as their oracle;
-* the streaming kernels (:func:`stream_forward`, :func:`stream_block_path`,
-  :func:`stream_tail_path`) driven by :func:`path_blocks`: codes and gain rows are read
-  through callables in windows, the score row is checkpointed every ``block`` positions,
-  and the path comes out block by block from the end.  A state with one predecessor needs
-  no search and no back-pointer; the others store the rank of the winner in their
-  predecessor list (one byte), so the back-pointers of the last positions of a record can
-  be kept from the forward pass (up to a budget) and those blocks need no second pass.
-  :func:`mea` runs them over a record held in memory.
+One implementation (:func:`mea_reference`, plain NumPy, is its oracle in the tests): the
+streaming kernels (:func:`stream_forward`, :func:`stream_block_path`,
+:func:`stream_tail_path`) driven by :func:`path_blocks`: codes and gain rows are read
+through callables in windows, the score row is checkpointed every ``block`` positions, and
+the path comes out block by block from the end.  A state with one predecessor needs no
+search and no back-pointer; the others store the rank of the winner in their predecessor
+list (one byte), so the back-pointers of the last positions of a record can be kept from
+the forward pass (up to a budget) and those blocks need no second pass.
+:func:`mea` runs them over a record held in memory.
 """
 
 from __future__ import annotations
@@ -45,93 +41,6 @@ NEG = -math.inf
 WINDOW = 1 << 16
 #: Bytes of back-pointers kept from the forward pass for the last blocks of a record.
 BACKPOINTER_BUDGET = 64 << 20
-
-
-@nb.njit(**_JIT)
-def _step(prev, cur, bp, t, codes, gain, cls, E, p_ptr, p_src, m):
-    c = codes[t]
-    any_ok = False
-    for j in range(m):
-        best = NEG
-        arg = -1
-        if E[c, j] > 0.0:
-            for q in range(p_ptr[j], p_ptr[j + 1]):
-                i = p_src[q]
-                v = prev[i]
-                if v > best:
-                    best = v
-                    arg = i
-        if arg >= 0:
-            cur[j] = best + gain[t, cls[j]]
-            any_ok = True
-        else:
-            cur[j] = NEG
-        bp[j] = arg
-    return any_ok
-
-
-@nb.njit(**_JIT)
-def _first(cur, codes, gain, cls, E, start_ok, m):
-    c = codes[0]
-    any_ok = False
-    for j in range(m):
-        if start_ok[j] and E[c, j] > 0.0:
-            cur[j] = gain[0, cls[j]]
-            any_ok = True
-        else:
-            cur[j] = NEG
-    return any_ok
-
-
-@nb.njit(**_JIT)
-def mea_path(codes, gain, cls, E, start_ok, end_ok, p_ptr, p_src, block, path):
-    """Fill ``path`` (length N) with the best path; return (total gain, failed position).
-
-    ``gain[t, k]``: posterior of class k at position t; ``cls[j]``: class of state j;
-    ``E[code, j]``: emission factor; ``p_ptr``/``p_src``: predecessors of each state
-    (CSR, sources in increasing index).  The failed position is -1 on success, else
-    the first position no allowed path reaches (the path is then left unfilled).
-    """
-    n = codes.shape[0]
-    m = cls.shape[0]
-    nblocks = (n + block - 1) // block
-    ck = np.zeros((nblocks, m))
-    cur = np.zeros(m)
-    prev = np.zeros(m)
-    bp_row = np.zeros(m, dtype=np.int64)
-    if not _first(cur, codes, gain, cls, E, start_ok, m):
-        return NEG, 0
-    ck[0, :] = cur
-    for t in range(1, n):
-        prev[:] = cur
-        if not _step(prev, cur, bp_row, t, codes, gain, cls, E, p_ptr, p_src, m):
-            return NEG, t
-        if t % block == 0:
-            ck[t // block, :] = cur
-    best = NEG
-    last = -1
-    for j in range(m):
-        if end_ok[j] and cur[j] > best:
-            best = cur[j]
-            last = j
-    if last < 0:
-        return NEG, n - 1
-    bps = np.zeros((block, m), dtype=np.int64)
-    state = last
-    hi = n - 1  # path[hi] is ``state``, not yet written
-    for b in range(nblocks - 1, -1, -1):
-        t0 = b * block
-        cur[:] = ck[b, :]
-        for t in range(t0 + 1, hi + 1):
-            prev[:] = cur
-            _step(prev, cur, bp_row, t, codes, gain, cls, E, p_ptr, p_src, m)
-            bps[t - t0 - 1, :] = bp_row
-        for t in range(hi, t0, -1):
-            path[t] = state
-            state = bps[t - t0 - 1, state]
-        hi = t0
-    path[0] = state
-    return best, -1
 
 
 # ----------------------------------------------------------------- streaming kernels
