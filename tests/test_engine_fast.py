@@ -26,13 +26,12 @@ from helpers import kernel_family, random_model, random_rows, sample_record
 from seqstate.engine import (
     _common,
     api,
-    kernels_query,
     reference,
     small,
-    sparse,
     stream_paths,
 )
 from seqstate.engine.buffers import work_buffer
+from seqstate.engine.generic import queries as kernels_query
 from seqstate.errors import ImpossibleSequenceError
 from seqstate.io.tables import load_model
 from seqstate.model import State, make_model
@@ -561,7 +560,7 @@ def test_chain_sparse_viterbi_checkpointed_when_pointers_exceed_budget(monkeypat
     assert _sparse_kernels_used(t)
     codes = _possible(t, np.random.default_rng(31), 900)
     one_pass = api.viterbi(t, codes)
-    monkeypatch.setattr(sparse, "BACKPOINTER_BUDGET", 16)
+    monkeypatch.setattr(stream_paths, "BACKPOINTER_BUDGET", 16)
     checkpointed = api.viterbi(t, codes)
     assert np.array_equal(one_pass[0], checkpointed[0]) and one_pass[1] == checkpointed[1]
     gpath, glp, _ = _generic_viterbi(t, codes, api.default_block(codes.shape[0]))

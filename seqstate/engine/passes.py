@@ -12,7 +12,7 @@ streaming posterior (:mod:`seqstate.engine.stream`).
   that writes ``alpha_ck`` and the posteriors block by block (``span`` in fill mode; no
   separate forward pass), then the log-likelihood.
 
-Kernels: :mod:`.stream_generic`, :mod:`.stream_small`, :mod:`.stream_sparse`.
+Kernels: :mod:`.generic.posterior`, :mod:`.small.posterior`, :mod:`.sparse.posterior`.
 Coordinates are 0-based, half-open; a failing position is returned (never raised) as
 the kernels return it: -1 none, ``n`` when no state may end the record.
 """
@@ -21,11 +21,12 @@ from __future__ import annotations
 
 import numpy as np
 
-from seqstate.engine import small, sparse
-from seqstate.engine import stream_generic as sg
-from seqstate.engine import stream_small as ss
-from seqstate.engine import stream_sparse as sst
 from seqstate.engine._common import RESCALE_BELOW
+from seqstate.engine.generic import posterior as sg
+from seqstate.engine.small import posterior as ss
+from seqstate.engine.small import tables as small
+from seqstate.engine.sparse import posterior as sst
+from seqstate.engine.sparse import tables as sparse
 
 
 def _whole(codes: np.ndarray):
@@ -57,7 +58,7 @@ def _chunks_backward(n: int, chunk: int):
 
 # ----------------------------------------------------------------- families
 class _Generic:
-    """The streaming passes of the generic family (:mod:`seqstate.engine.stream_generic`)."""
+    """The streaming passes of the generic family (:mod:`seqstate.engine.generic.posterior`)."""
 
     def __init__(self, tables, backend) -> None:
         self.t = tables
@@ -163,7 +164,7 @@ class _Generic:
 
 
 class _Small(_Generic):
-    """The streaming passes of the two-state-per-code family (:mod:`.stream_small`)."""
+    """The streaming passes of the two-state-per-code family (:mod:`.small.posterior`)."""
 
     def __init__(self, tables, backend) -> None:
         self.t = tables
@@ -221,7 +222,7 @@ class _Small(_Generic):
 
 
 class _Sparse(_Generic):
-    """The streaming passes of the chain-sparse family (:mod:`.stream_sparse`), in the
+    """The streaming passes of the chain-sparse family (:mod:`.sparse.posterior`), in the
     numbering the whole-record posterior uses for ``group``."""
 
     def __init__(self, tables, backend, group, n_groups) -> None:

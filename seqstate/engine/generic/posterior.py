@@ -17,7 +17,7 @@ vector and the block's backward vectors recomputed from its checkpoint.  Here:
   mode it is that sweep (pass 2 of the whole-record posterior).
 
 The step helpers, their order of operations and the rescaling decisions are those of
-:mod:`seqstate.engine.kernels`.  Coordinates are 0-based record positions; chunks and
+:mod:`seqstate.engine.generic.kernels`.  Coordinates are 0-based record positions; chunks and
 spans are half-open.  Kernels return the first failing position (0-based) or -1.
 """
 
@@ -31,7 +31,7 @@ from numba import njit, uintp
 from seqstate.engine._common import JIT as _JIT
 from seqstate.engine._common import RESCALE_BELOW
 from seqstate.engine.buffers import work_buffer
-from seqstate.engine.kernels import (
+from seqstate.engine.generic.kernels import (
     _ONE,
     _backward_gather,
     _backward_scatter,

@@ -18,7 +18,7 @@ import numpy as np
 from numba import njit, uintp
 
 from seqstate.engine._common import JIT as _JIT
-from seqstate.engine.sparse_query import _all_impossible
+from seqstate.engine.sparse.queries import _all_impossible
 
 _ONE = uintp(1)
 

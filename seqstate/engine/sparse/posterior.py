@@ -2,7 +2,7 @@
 implementation of its forward, backward and posterior passes (driven by
 :mod:`seqstate.engine.passes`).
 
-Same split as :mod:`seqstate.engine.stream_generic`, in the renumbered slots of
+Same split as :mod:`seqstate.engine.generic.posterior`, in the renumbered slots of
 :mod:`seqstate.engine.sparse` (state ``t`` in slot ``t + 1``, dummy slots 0 and M + 1
 holding 0), with its rescaling rule (largest entry below the threshold, powers of two,
 an integer binary exponent).  Checkpoints are written in the original state order
@@ -24,7 +24,7 @@ from seqstate.engine._common import JIT as _JIT
 from seqstate.engine._common import LN2 as _LN2
 from seqstate.engine._common import RESCALE_BELOW
 from seqstate.engine.buffers import work_buffer
-from seqstate.engine.sparse import _bits_of, _dot, _first, _maxbits, _rescale, _step
+from seqstate.engine.sparse.tables import _bits_of, _dot, _first, _maxbits, _rescale, _step
 
 __all__ = ["backward_chunk", "backward_init", "forward_chunk", "forward_final", "span"]
 
@@ -237,7 +237,7 @@ def span(
     is the record length; ``runs`` from :func:`seqstate.engine.sparse.group_runs`.  Each
     block starts from its checkpoints.  ``buf``, ``fwd``, ``sums``: work arrays
     (:func:`span_scratch`).  ``fill``: the forward checkpoints are made here, as
-    :func:`seqstate.engine.stream_generic.span` does (:func:`forward_chunk` reaches each
+    :func:`seqstate.engine.generic.posterior.span` does (:func:`forward_chunk` reaches each
     block's first position from ``fwd[ic[0]]``, binary exponent ``ic[1]``; then
     :func:`forward_final` gives the log-likelihood).  Returns the failing position or -1.
     """

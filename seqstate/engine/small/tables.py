@@ -27,7 +27,7 @@ Tables (built by :func:`build` from an :class:`~seqstate.engine.tables.EngineTab
   over predecessors in increasing order with strict ``>``, then ``+ log e``), so
   its values and paths are identical to the generic kernel's.
 
-Scaling and failure conventions are those of :mod:`seqstate.engine.kernels`
+Scaling and failure conventions are those of :mod:`seqstate.engine.generic.kernels`
 (lazy rescaling below ``RESCALE_BELOW``, natural logs, the failing position is
 returned instead of raising).  Checkpoints are written as full M-vectors with
 the same meaning as the generic kernels' (scaled vector times exp(log scale)
@@ -258,7 +258,7 @@ def _wide_viterbi(da, cp, va, bpa, c, K, st, logT, logE):
 
 # ----------------------------------------------------------------- forward
 # Kept for speed: the whole-record log-likelihood of this family, a copy of the forward
-# recursion of seqstate.engine.stream_small.forward_chunk without its checkpoint test.
+# recursion of seqstate.engine.small.posterior.forward_chunk without its checkpoint test.
 # Measured (2 Mbp, median of 9, same process, shared 2-core machine): forward_chunk as the
 # whole-record loglik took 9.8 ms against 4.5 ms here (cpg-island) and 9.8 against 7.8 ms
 # (cpg-island-8); the bench_engine forward ratio against hmmlearn fell 64.9x -> 40.1x.

@@ -7,10 +7,11 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from seqstate.engine import kernels_query, passes
+from seqstate.engine import passes
 from seqstate.engine._common import rescale_limit, smallest_factor
 from seqstate.engine.buffers import work_buffer
-from seqstate.engine.kernels_query import one_class
+from seqstate.engine.generic import queries as kernels_query
+from seqstate.engine.generic.queries import one_class
 
 if TYPE_CHECKING:
     from seqstate.engine.api import Posterior
@@ -24,7 +25,7 @@ Moves = tuple[Array, Array, Array, Array, Array, Array]
 
 
 class GenericBackend:
-    """The generic kernels (:mod:`seqstate.engine.kernels`) on one model's tables.
+    """The generic kernels (:mod:`seqstate.engine.generic.kernels`) on one model's tables.
 
     Every method takes an encoded record and returns what the kernels return: a
     failing position instead of an error (the API turns it into one).  The

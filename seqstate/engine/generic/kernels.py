@@ -1,7 +1,7 @@
 """The generic family's compiled steps (numba): one forward, backward and Viterbi step each,
 and the emission encoder.  The passes built from them are in
-:mod:`seqstate.engine.stream_generic` (forward, backward, posterior) and
-:mod:`seqstate.engine.stream_viterbi` (Viterbi).  Arrays in, numbers out: no files, no
+:mod:`seqstate.engine.generic.posterior` (forward, backward, posterior) and
+:mod:`seqstate.engine.generic.viterbi` (Viterbi).  Arrays in, numbers out: no files, no
 labels, no printing.
 
 Every step works on one record encoded as ``codes`` (one integer per position,

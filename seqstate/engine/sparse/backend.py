@@ -7,11 +7,13 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from seqstate.engine import passes, sparse, sparse_query
+from seqstate.engine import passes
 from seqstate.engine._common import LN2
-from seqstate.engine.backends.generic import Array, GenericBackend
 from seqstate.engine.buffers import work_buffer
-from seqstate.engine.kernels_query import one_class
+from seqstate.engine.generic.backend import Array, GenericBackend
+from seqstate.engine.generic.queries import one_class
+from seqstate.engine.sparse import queries as sparse_query
+from seqstate.engine.sparse import tables as sparse
 
 if TYPE_CHECKING:
     from seqstate.engine.api import Posterior

@@ -2,7 +2,7 @@
 implementation of its forward, backward and posterior passes (driven by
 :mod:`seqstate.engine.passes`).
 
-Same split as :mod:`seqstate.engine.stream_generic` (forward pass, backward pass read
+Same split as :mod:`seqstate.engine.generic.posterior` (forward pass, backward pass read
 from the end, per-block posteriors from the checkpoints), on the compact tables of
 :mod:`seqstate.engine.small`; the checkpoints, the log-likelihood and the posteriors do
 not depend on the chunks (bit for bit).
@@ -22,7 +22,7 @@ from numba import njit
 
 from seqstate.engine._common import JIT as _JIT
 from seqstate.engine.buffers import work_buffer
-from seqstate.engine.small import _full_backward, _wide_backward, _wide_forward
+from seqstate.engine.small.tables import _full_backward, _wide_backward, _wide_forward
 
 __all__ = ["backward_chunk", "forward_chunk", "forward_final", "span", "span_scratch"]
 
@@ -329,7 +329,7 @@ def span(
     ``codes[j]`` is the code of record position ``base + j`` and ``out[j]`` its row; ``n``
     is the record length; ``gc`` from :func:`seqstate.engine.small.group_table`.  Each
     block starts from its checkpoints.  ``fill``: the forward checkpoints are made here,
-    as :func:`seqstate.engine.stream_generic.span` does (:func:`forward_chunk` reaches
+    as :func:`seqstate.engine.generic.posterior.span` does (:func:`forward_chunk` reaches
     each block's first position from the carried state ``ua``, ``fc``, ``ic``; then
     :func:`forward_final` gives the log-likelihood).  Returns the failing position or -1.
     """

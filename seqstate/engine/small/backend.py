@@ -6,8 +6,9 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from seqstate.engine import passes, small
-from seqstate.engine.backends.generic import Array, GenericBackend
+from seqstate.engine import passes
+from seqstate.engine.generic.backend import Array, GenericBackend
+from seqstate.engine.small import tables as small
 
 if TYPE_CHECKING:
     from seqstate.engine.tables import EngineTables

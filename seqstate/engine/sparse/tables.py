@@ -3,7 +3,7 @@
 Gene-structure layouts are long chains: in the gene-segment model 256 of 289
 states have exactly one predecessor and one successor, and most of its 371
 allowed transitions are those chain links.  The generic kernels of
-:mod:`seqstate.engine.kernels` search every state's predecessor list (a compare
+:mod:`seqstate.engine.generic.kernels` search every state's predecessor list (a compare
 and a branch per transition), reset every row and, in Viterbi, recompute the
 whole record for the traceback.  Here:
 
@@ -47,7 +47,7 @@ whole record for the traceback.  Here:
   blocks are recomputed during the traceback, as in the generic kernel.
 
 Scaling, failure and checkpoint conventions are those of
-:mod:`seqstate.engine.kernels` (a vector is rescaled when its largest entry,
+:mod:`seqstate.engine.generic.kernels` (a vector is rescaled when its largest entry,
 rather than its sum, falls below the threshold, which rescales at least as
 often); checkpoints are written in the original state order, so the generic
 segment and vector queries work on them unchanged.
@@ -72,9 +72,6 @@ if TYPE_CHECKING:
 MIN_CHAIN_SHARE = 0.5
 #: Smallest model for which these kernels are used (below, the generic ones do as well).
 MIN_STATES = 32
-#: Bytes of Viterbi back-pointers the default (``block=None``) may hold for a whole record;
-#: longer records are checkpointed (two passes).
-BACKPOINTER_BUDGET = 256 << 20
 
 
 @dataclass(frozen=True, eq=False)

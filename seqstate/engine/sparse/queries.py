@@ -12,7 +12,7 @@ from numba import njit, uintp
 
 from seqstate.engine._common import JIT as _JIT
 from seqstate.engine._common import LN2 as _LN2
-from seqstate.engine.sparse import (
+from seqstate.engine.sparse.tables import (
     _ONE,
     _bits_of,
     _dot_scaled,
