@@ -8,7 +8,7 @@ Three implementations are compared on random models and records:
   :mod:`seqstate.engine.sparse` for large models made mostly of chains (random
   chain models and the built-in gene-segment model); the dispatch is checked per
   case below, so a test cannot pass by silently running the generic kernel twice;
-* the generic kernels of :mod:`seqstate.engine.kernels`, called directly;
+* the generic family (:mod:`seqstate.engine.generic`), called directly;
 * the plain NumPy oracle :mod:`seqstate.engine.reference` (full lattices).
 
 Posteriors and checkpoint vectors must agree within 1e-10, log-likelihoods within
@@ -102,7 +102,7 @@ def _generic_posterior(t, codes, group, n_groups, block):
 
 
 def _generic_viterbi(t, codes, block):
-    """The generic family's Viterbi (the streaming kernels of seqstate.engine.stream_viterbi);
+    """The generic family's Viterbi (the streaming kernels of seqstate.engine.generic.viterbi);
     (path, log probability, failing position 0-based or -1)."""
     try:
         lp, pieces = stream_paths.viterbi_pieces(
