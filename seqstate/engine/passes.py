@@ -19,6 +19,8 @@ the kernels return it: -1 none, ``n`` when no state may end the record.
 
 from __future__ import annotations
 
+from collections.abc import Iterable
+
 import numpy as np
 
 from seqstate.engine._common import RESCALE_BELOW
@@ -41,6 +43,12 @@ def first_failure(tables, read, n: int, chunk: int) -> int:
     ck = np.zeros((1, tables.n_states)), np.zeros(1)
     _, pos = fam.forward(read, n, n, chunk, *ck, lim=RESCALE_BELOW)
     return pos
+
+
+def _first_failure(positions: Iterable[int]) -> int:
+    """The first failing position (>= 0) among ``positions``, consumed lazily (the passes
+    over the later chunks do not run), or -1."""
+    return next((p for p in positions if p >= 0), -1)
 
 
 def _chunks_forward(n: int, chunk: int):
@@ -73,22 +81,13 @@ class _Generic:
         carry = np.zeros(1)
         icarry = np.zeros(1, dtype=np.int64)
         fwd = (t.E, t.nz_ptr, t.nz_state, t.pred_ptr, t.pred_src, t.pred_p)
-        for a, b in _chunks_forward(n, chunk):
-            pos = sg.forward_chunk(
-                read(a, b),
-                a,
-                rows,
-                carry,
-                icarry,
-                block,
-                alpha_ck,
-                alpha_ck_log,
-                t.start,
-                *fwd,
-                lim,
-            )
-            if pos >= 0:
-                return -np.inf, pos
+        ck = (block, alpha_ck, alpha_ck_log)
+        pos = _first_failure(
+            sg.forward_chunk(read(a, b), a, rows, carry, icarry, *ck, t.start, *fwd, lim)
+            for a, b in _chunks_forward(n, chunk)
+        )
+        if pos >= 0:
+            return -np.inf, pos
         ll, ok = sg.forward_final(rows, icarry, carry, t.end)
         return (ll, -1) if ok else (-np.inf, n)
 
@@ -107,22 +106,18 @@ class _Generic:
         w = np.zeros(m)
         moves = (t.E, t.nz_ptr, t.nz_state, t.pred_ptr, t.pred_src, t.pred_p)
         moves += (t.succ_ptr, t.succ_dst, t.succ_p)
-        p = n - 1
-        for a, b in _chunks_backward(n, chunk):
-            pos = sg.backward_chunk(
-                read(a, b), a, p, rows, carry, icarry, block, beta_ck, beta_ck_log,
-                self.scatter, *moves, w, self.lim,
-            )  # fmt: skip
-            if pos >= 0:
-                return pos
-            p = max(a - 1, 0)
-        return -1
+        cks = (block, beta_ck, beta_ck_log, self.scatter)
+        return _first_failure(
+            sg.backward_chunk(read(a, b), a, b - 1, rows, carry, icarry, *cks, *moves, w, self.lim)
+            for a, b in _chunks_backward(n, chunk)
+        )
 
     def span(self, codes, base, ck, first_block, stop_block, group, n_groups, out):
         """Posteriors of blocks ``[first_block, stop_block)`` into ``out`` (zero), whose
         row 0 and ``codes[0]`` are record position ``base``."""
-        ckd = (ck.n, ck.block, ck.alpha_ck, ck.alpha_ck_log, ck.beta_ck)
-        return self._span(codes, base, *ckd, first_block, stop_block, group, n_groups, out)
+        cks = (ck.alpha_ck, ck.alpha_ck_log, ck.beta_ck)
+        blocks = (first_block, stop_block)
+        return self._span(codes, base, ck.n, ck.block, cks, blocks, group, n_groups, out)
 
     def posterior(self, codes, block, group, n_groups, out, ck) -> tuple[float, int]:
         """The whole-record posterior into ``out`` (zero) and the checkpoints ``ck``
@@ -132,7 +127,7 @@ class _Generic:
         if pos >= 0:
             return -np.inf, pos
         nb = (n + block - 1) // block
-        pos = self._span(codes, 0, n, block, ck[0], ck[1], ck[2], 0, nb, group, n_groups, out, True)
+        pos = self._span(codes, 0, n, block, ck[:3], (0, nb), group, n_groups, out, True)
         if pos >= 0:
             return -np.inf, pos
         ll, ok = self.final()
@@ -143,8 +138,10 @@ class _Generic:
         n = codes.shape[0]
         return self.forward(_whole(codes), n, n, n, np.zeros((1, self.t.n_states)), np.zeros(1))
 
-    def _span(self, codes, base, n, block, alpha_ck, alpha_ck_log, beta_ck, first_block,
-              stop_block, group, n_groups, out, fill=False):  # fmt: skip
+    def _span(self, codes, base, n, block, cks, blocks, group, n_groups, out, fill=False):
+        """``cks``: (alpha_ck, alpha_ck_log, beta_ck); ``blocks``: (first, stop)."""
+        alpha_ck, alpha_ck_log, beta_ck = cks
+        first_block, stop_block = blocks
         t = self.t
         m = t.n_states
         scratch = sg.span_scratch(m, min(block, n))
@@ -178,13 +175,13 @@ class _Small(_Generic):
         ua, va = np.zeros(kmax), np.zeros(kmax)
         fc = np.zeros(3)
         ic = np.zeros(1, dtype=np.int64)
-        for a, b in _chunks_forward(n, chunk):
-            pos = ss.forward_chunk(
-                read(a, b), a, ua, va, fc, ic, block, alpha_ck, alpha_ck_log, sm.start,
-                *self.steps, self.lim,
-            )  # fmt: skip
-            if pos >= 0:
-                return -np.inf, pos
+        cks = (block, alpha_ck, alpha_ck_log, sm.start)
+        pos = _first_failure(
+            ss.forward_chunk(read(a, b), a, ua, va, fc, ic, *cks, *self.steps, self.lim)
+            for a, b in _chunks_forward(n, chunk)
+        )
+        if pos >= 0:
+            return -np.inf, pos
         ll, ok = ss.forward_final(ua, fc, ic, sm.K, sm.st, sm.wide, sm.end)
         return (ll, -1) if ok else (-np.inf, n)
 
@@ -195,17 +192,16 @@ class _Small(_Generic):
         ba, bb = np.zeros(kmax), np.zeros(kmax)
         fc = np.zeros(3)
         ic = np.zeros(1, dtype=np.int64)
-        for a, b in _chunks_backward(n, chunk):
-            pos = ss.backward_chunk(
-                read(a, b), a, b, n, full, ba, bb, fc, ic, block, beta_ck, beta_ck_log,
-                sm.end, *self.steps, self.lim,
-            )  # fmt: skip
-            if pos >= 0:
-                return pos
-        return -1
+        work = (full, ba, bb, fc, ic)
+        cks = (block, beta_ck, beta_ck_log, sm.end)
+        return _first_failure(
+            ss.backward_chunk(read(a, b), a, b, n, *work, *cks, *self.steps, self.lim)
+            for a, b in _chunks_backward(n, chunk)
+        )
 
-    def _span(self, codes, base, n, block, alpha_ck, alpha_ck_log, beta_ck, first_block,
-              stop_block, group, n_groups, out, fill=False):  # fmt: skip
+    def _span(self, codes, base, n, block, cks, blocks, group, n_groups, out, fill=False):
+        alpha_ck, alpha_ck_log, beta_ck = cks
+        first_block, stop_block = blocks
         sm = self.sm
         gc = small.group_table(sm, group)
         scratch = ss.span_scratch(sm.kmax, min(block, n))
@@ -238,13 +234,13 @@ class _Sparse(_Generic):
         sp = self.sp
         rows = np.zeros((2, sp.n_states + 2))
         ic = np.zeros(2, dtype=np.int64)
-        for a, b in _chunks_forward(n, chunk):
-            pos = sst.forward_chunk(
-                read(a, b), a, rows, ic, block, alpha_ck, alpha_ck_log, sp.start, sp.E,
-                sp.perm, *sp.fwd, self.lim,
-            )  # fmt: skip
-            if pos >= 0:
-                return -np.inf, pos
+        cks = (block, alpha_ck, alpha_ck_log, sp.start, sp.E, sp.perm)
+        pos = _first_failure(
+            sst.forward_chunk(read(a, b), a, rows, ic, *cks, *sp.fwd, self.lim)
+            for a, b in _chunks_forward(n, chunk)
+        )
+        if pos >= 0:
+            return -np.inf, pos
         ll, ok = sst.forward_final(rows, ic, sp.end)
         return (ll, -1) if ok else (-np.inf, n)
 
@@ -254,17 +250,15 @@ class _Sparse(_Generic):
         ic = np.zeros(2, dtype=np.int64)
         if not sst.backward_init(rows, ic, sp.end, sp.perm, beta_ck, beta_ck_log, self.lim):
             return n
-        for a, b in _chunks_backward(n, chunk):
-            pos = sst.backward_chunk(
-                read(a, b), a, b - 1, rows, ic, block, beta_ck, beta_ck_log, sp.perm,
-                *sp.bwd, self.lim,
-            )  # fmt: skip
-            if pos >= 0:
-                return pos
-        return -1
+        cks = (block, beta_ck, beta_ck_log, sp.perm)
+        return _first_failure(
+            sst.backward_chunk(read(a, b), a, b - 1, rows, ic, *cks, *sp.bwd, self.lim)
+            for a, b in _chunks_backward(n, chunk)
+        )
 
-    def _span(self, codes, base, n, block, alpha_ck, alpha_ck_log, beta_ck, first_block,
-              stop_block, group, n_groups, out, fill=False):  # fmt: skip
+    def _span(self, codes, base, n, block, cks, blocks, group, n_groups, out, fill=False):
+        alpha_ck, alpha_ck_log, beta_ck = cks
+        first_block, stop_block = blocks
         sp = self.sp
         runs = sparse.group_runs(sp, group, n_groups)
         scratch = sst.span_scratch(sp.n_states, min(block, n), n_groups)

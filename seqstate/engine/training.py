@@ -185,7 +185,8 @@ def accumulate(
 # ----------------------------------------------------------------- kernels
 # The two layouts are written out in full (no helper calls in the inner loops: numba
 # does not inline them reliably, and a call per position costs more than the work; for
-# the two-state kernels a shared step made the forward pass 60x slower, see small.py).
+# the two-state kernels a shared step made the forward pass 60x slower, see
+# engine/small/posterior.py).
 
 
 @njit(**_JIT)
