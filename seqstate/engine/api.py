@@ -165,7 +165,7 @@ def viterbi(
     from seqstate.engine import stream_paths  # it is built on this module
 
     lp, pieces = stream_paths.viterbi_pieces(
-        tables, n, lambda a, b: codes[a:b], block=block, chunk=max(n, 1), record=record
+        tables, n, lambda a, b: codes[a:b], block=block, chunk=n, record=record, one_piece=True
     )
     path = work_buffer(n, np.int16 if tables.n_states < 32768 else np.int32)
     for piece in pieces:

@@ -242,6 +242,7 @@ def viterbi_pieces(
     chunk: int = 1 << 20,
     record: str | None = None,
     generic: bool = False,
+    one_piece: bool = False,
 ) -> tuple[float, Iterator[PathPiece]]:
     """Forward max-product pass over code chunks storing checkpoints (O(nblocks*M) memory),
     returns the path's log probability (natural log) and an iterator of pieces from the LAST
@@ -253,14 +254,21 @@ def viterbi_pieces(
     forward pass instead (no second pass over them).  ``chunk``: codes read per call of the
     forward pass.  The failing position of an impossible record is the first position at
     which every state's max-product score is -inf, read from this pass.  ``generic``: the
-    generic family's steps whatever family serves the model (same path; for tests)."""
+    generic family's steps whatever family serves the model (same path; for tests).
+    ``one_piece`` (with ``block=None``, for callers that hold the whole path anyway, as
+    :func:`api.viterbi` does): when the back-pointers of the whole record fit the budget,
+    the record is one block and comes out as one piece (no per-block calls)."""
     if n <= 0:
         raise ValueError("empty record")
     if chunk < 1:
         raise ValueError(f"chunk must be a positive number of positions, got {chunk}")
+    one_piece = one_piece and block is None
     block = _block_of(n, block)
     nblocks = (n + block - 1) // block
     fam = _Generic(tables, n, block) if generic else _family(tables, n, block)
+    if one_piece and nblocks > 1 and n * fam.width * fam.bp_dtype.itemsize <= BACKPOINTER_BUDGET:
+        block, nblocks = n, 1
+        fam = _Generic(tables, n, block) if generic else _family(tables, n, block)
     per_block = block * fam.width * fam.bp_dtype.itemsize
     kept = min(nblocks, BACKPOINTER_BUDGET // max(per_block, 1))
     tail0 = (nblocks - kept) * block
