@@ -55,6 +55,14 @@ def span_scratch(m: int, block: int) -> tuple[np.ndarray, np.ndarray, np.ndarray
 
 
 @njit(**_JIT)
+def _keep(ck, ck_log, bk, rows, r, log_scale):
+    """Checkpoint ``bk``: row ``r`` of ``rows`` and its natural-log scale."""
+    for s in range(ck.shape[1]):
+        ck[bk, s] = rows[r, s]
+    ck_log[bk] = log_scale
+
+
+@njit(**_JIT)
 def forward_chunk(
     codes,
     i0,
@@ -82,7 +90,6 @@ def forward_chunk(
     Returns the first position where every state is impossible, or -1.
     """
     n = codes.shape[0]
-    m = start.shape[0]
     fsrc = icarry[0]
     flog = carry[0]
     nxt = ((i0 + block - 1) // block) * block  # the next block start at or after i0
@@ -106,11 +113,8 @@ def forward_chunk(
             _scale(rows, fsrc, total)
             flog += math.log(total)
         if i == nxt:
-            bk = i // block
+            _keep(alpha_ck, alpha_ck_log, i // block, rows, fsrc, flog)
             nxt += block
-            for s in range(m):
-                alpha_ck[bk, s] = rows[fsrc, s]
-            alpha_ck_log[bk] = flog
     icarry[0] = fsrc
     carry[0] = flog
     return -1
@@ -183,7 +187,6 @@ def backward_chunk(
     position) the vector goes to ``beta_ck[i // block]``.  ``w``: M work entries.
     Returns the failing position (the one whose code made every state impossible) or -1.
     """
-    m = rows.shape[1]
     src = icarry[0]
     logscale = carry[0]
     lo = a - 1 if a > 0 else 0
@@ -208,11 +211,8 @@ def backward_chunk(
             logscale += math.log(bsum)
         src = dst
         if i + 1 == ckpos:
-            bk = i // block
+            _keep(beta_ck, beta_ck_log, i // block, rows, dst, logscale)
             ckpos -= block
-            for s in range(m):
-                beta_ck[bk, s] = rows[dst, s]
-            beta_ck_log[bk] = logscale
     icarry[0] = src
     carry[0] = logscale
     return -1

@@ -35,6 +35,15 @@ def span_scratch(m: int, block: int, n_groups: int) -> tuple[np.ndarray, ...]:
 
 
 @njit(**_JIT)
+def _keep(ck, ck_log, bk, rows, r, perm, ex):
+    """Checkpoint ``bk`` in the original state order: slot row ``r`` of ``rows`` and its
+    binary exponent ``ex`` (kept as a natural log)."""
+    for s in range(perm.shape[0]):
+        ck[bk, perm[s]] = rows[r, s + 1]
+    ck_log[bk] = ex * _LN2
+
+
+@njit(**_JIT)
 def forward_chunk(
     codes,
     i0,
@@ -87,11 +96,8 @@ def forward_chunk(
                 break
             ex += _rescale(rows, fsrc, 1, m + 1, mx, tmpi, tmpf)
         if i == nxt:
-            bk = i // block
+            _keep(alpha_ck, alpha_ck_log, i // block, rows, fsrc, perm, ex)
             nxt += block
-            for s in range(m):
-                alpha_ck[bk, perm[s]] = rows[fsrc, s + 1]
-            alpha_ck_log[bk] = ex * _LN2
     ic[0] = fsrc
     ic[1] = ex
     return fail
@@ -185,11 +191,8 @@ def backward_chunk(
                 break
             ex += _rescale(rows, dst, 1, m + 1, mx, tmpi, tmpf)
         if i + 1 == ckpos:
-            bk = i // block
+            _keep(beta_ck, beta_ck_log, i // block, rows, dst, perm, ex)
             ckpos -= block
-            for s in range(m):
-                beta_ck[bk, perm[s]] = rows[dst, s + 1]
-            beta_ck_log[bk] = ex * _LN2
     ic[0] = src
     ic[1] = ex
     return fail
