@@ -13,9 +13,8 @@ after one warm-up call on a 5 kb prefix (compilation is not timed), in Mbp/s of 
 * ``api.viterbi`` (whole record in memory) and ``viterbi_pieces`` (chunks of codes, pieces
   consumed one by one), with the default back-pointer budget and with none (every block
   recomputed from its checkpoint: the cost on records far beyond the budget);
-* for gene-segment, the MEA path: the first whole-record kernel (``mea.mea_path``) and
-  ``mea.mea`` / ``mea_pieces`` (the streaming kernels), on the posteriors of the gene
-  model's decoding classes.
+* for gene-segment, the MEA path: ``mea.mea`` (whole record in memory) and ``mea_pieces``
+  (the same streaming kernels), on the posteriors of the gene model's decoding classes.
 
 The shared machines are noisy: compare only numbers from one run.
 """
@@ -48,16 +47,6 @@ def _consume(pieces) -> int:
     for p in pieces:
         k += p.states.shape[0]
     return k
-
-
-def _old_mea(t, codes, gain, cls):
-    n = codes.shape[0]
-    ptr, src = mea.predecessors(t.transitions)
-    path = np.zeros(n, dtype=np.int32)
-    mea.mea_path(
-        codes, gain, cls, t.E, t.start > 0, t.end > 0, ptr, src, api.default_block(n), path
-    )
-    return path
 
 
 def _rows(name: str, n: int) -> list[tuple[str, object]]:
@@ -96,11 +85,9 @@ def _rows(name: str, n: int) -> list[tuple[str, object]]:
         def greader(a: int, b: int) -> np.ndarray:
             return gain[a:b]
 
-        _old_mea(t, warm, gain[:5000], cls)
         mea.mea(t, warm, gain[:5000], cls)
         rows += [
-            ("mea.mea_path (first kernel)", lambda: _old_mea(t, codes, gain, cls)),
-            ("mea.mea (streaming kernels)", lambda: mea.mea(t, codes, gain, cls)),
+            ("mea.mea", lambda: mea.mea(t, codes, gain, cls)),
             ("mea_pieces", lambda: _consume(stream_paths.mea_pieces(t, n, reader, greader, cls))),
         ]
     return rows

@@ -8,7 +8,7 @@ Three implementations are compared on random models and records:
   :mod:`seqstate.engine.sparse` for large models made mostly of chains (random
   chain models and the built-in gene-segment model); the dispatch is checked per
   case below, so a test cannot pass by silently running the generic kernel twice;
-* the generic kernels of :mod:`seqstate.engine.kernels`, called directly;
+* the generic family (:mod:`seqstate.engine.generic`), called directly;
 * the plain NumPy oracle :mod:`seqstate.engine.reference` (full lattices).
 
 Posteriors and checkpoint vectors must agree within 1e-10, log-likelihoods within
@@ -26,14 +26,12 @@ from helpers import kernel_family, random_model, random_rows, sample_record
 from seqstate.engine import (
     _common,
     api,
-    kernels,
-    kernels_query,
     reference,
     small,
-    sparse,
-    sparse_query,
+    stream_paths,
 )
 from seqstate.engine.buffers import work_buffer
+from seqstate.engine.generic import queries as kernels_query
 from seqstate.errors import ImpossibleSequenceError
 from seqstate.io.tables import load_model
 from seqstate.model import State, make_model
@@ -86,70 +84,36 @@ def _limit(t):
 
 
 def _generic_loglik(t, codes):
-    return kernels.forward_loglik(
-        codes,
-        t.start,
-        t.end,
-        t.E,
-        t.nz_ptr,
-        t.nz_state,
-        t.pred_ptr,
-        t.pred_src,
-        t.pred_p,
-        _limit(t),
-    )
+    """The generic family's forward pass (its own rescaling threshold, see _limit)."""
+    return t.generic.loglik(codes)
 
 
 def _generic_posterior(t, codes, group, n_groups, block):
+    """The generic family's whole-record posterior (backward pass, then the fused
+    forward-and-combine sweep of seqstate.engine.passes)."""
     n = codes.shape[0]
     nb = (n + block - 1) // block
     m = t.n_states
     out = np.zeros((n, n_groups), dtype=np.float64)
     ack, bck = np.zeros((nb, m)), np.zeros((nb, m))
     alog, blog = np.zeros(nb), np.zeros(nb)
-    ll, pos = kernels.posterior_checkpointed(
-        codes,
-        t.start,
-        t.end,
-        t.E,
-        t.nz_ptr,
-        t.nz_state,
-        t.pred_ptr,
-        t.pred_src,
-        t.pred_p,
-        t.succ_ptr,
-        t.succ_dst,
-        t.succ_p,
-        block,
-        group,
-        out,
-        ack,
-        alog,
-        bck,
-        blog,
-        *kernels.posterior_scratch(n, m, block),
-        _limit(t),
-    )
+    ll, pos = t.generic.posterior(codes, group, n_groups, block, out, (ack, alog, bck, blog))
     return ll, pos, out, ack, alog, bck, blog
 
 
 def _generic_viterbi(t, codes, block):
-    path = work_buffer(codes.shape[0], np.int16)
-    lp, pos = kernels.viterbi_checkpointed(
-        codes,
-        t.log_start,
-        t.log_end,
-        t.logE,
-        t.nz_ptr,
-        t.nz_state,
-        t.pred_ptr,
-        t.pred_src,
-        t.pred_logp,
-        block,
-        path,
-        *kernels.viterbi_scratch(codes.shape[0], t.n_states, block),
-    )
-    return path, lp, pos
+    """The generic family's Viterbi (the streaming kernels of seqstate.engine.generic.viterbi);
+    (path, log probability, failing position 0-based or -1)."""
+    try:
+        lp, pieces = stream_paths.viterbi_pieces(
+            t, codes.shape[0], lambda a, b: codes[a:b], block=block, generic=True
+        )
+    except ImpossibleSequenceError as err:
+        return None, -np.inf, int(str(err).split("position ")[-1]) - 1
+    path = np.zeros(codes.shape[0], dtype=np.int16)
+    for piece in pieces:
+        path[piece.start0 : piece.end0] = piece.states
+    return path, lp, -1
 
 
 def _log_vectors(vec, logs):
@@ -596,7 +560,7 @@ def test_chain_sparse_viterbi_checkpointed_when_pointers_exceed_budget(monkeypat
     assert _sparse_kernels_used(t)
     codes = _possible(t, np.random.default_rng(31), 900)
     one_pass = api.viterbi(t, codes)
-    monkeypatch.setattr(sparse, "BACKPOINTER_BUDGET", 16)
+    monkeypatch.setattr(stream_paths, "BACKPOINTER_BUDGET", 16)
     checkpointed = api.viterbi(t, codes)
     assert np.array_equal(one_pass[0], checkpointed[0]) and one_pass[1] == checkpointed[1]
     gpath, glp, _ = _generic_viterbi(t, codes, api.default_block(codes.shape[0]))
@@ -638,41 +602,9 @@ def test_chain_sparse_impossible_record_reports_the_generic_positions(specialise
     ):
         with pytest.raises(ImpossibleSequenceError, match="position 58"):
             call()
-    sp = t.backend.sp
-    lim = _limit(t)
-    assert (
-        sparse.forward_loglik(
-            bad, sp.start, sp.end, sp.E, sp.w1, sp.f_ptr, sp.f_n0, sp.f_dst, sp.f_src, sp.f_w, lim
-        )[1]
-        == _generic_loglik(t, bad)[1]
-    )
+    assert t.backend.loglik(bad)[1] == _generic_loglik(t, bad)[1]
     for block in (1, 5, 1000):
-        path = work_buffer(bad.shape[0], np.int16)
-        got = sparse_query.viterbi_checkpointed(
-            bad,
-            sp.log_start,
-            sp.log_end,
-            sp.logE,
-            sp.perm,
-            sp.inv,
-            sp.la1,
-            sp.f_ptr,
-            sp.f_n0,
-            sp.f_dst,
-            sp.f_src,
-            sp.f_lp,
-            sp.f_rank,
-            sp.f_col,
-            sp.tb_prev,
-            sp.tb_col,
-            sp.p_ptr,
-            sp.p_src,
-            sp.p_lp,
-            block,
-            *sparse_query.viterbi_scratch(sp, bad.shape[0], block),
-            path,
-        )
-        assert got[1] == _generic_viterbi(t, bad, block)[2] == 57
+        assert _generic_viterbi(t, bad, block)[2] == 57
 
 
 # ----------------------------------------------------------------- the gene-segment model

@@ -28,7 +28,9 @@ import numpy as np
 import pytest
 from helpers import kernel_family, sample_record
 
-from seqstate.engine import api, buffers, kernels_query, reference, sparse_query
+from seqstate.engine import api, buffers, reference
+from seqstate.engine.generic import queries as kernels_query
+from seqstate.engine.sparse import queries as sparse_query
 from seqstate.io.tables import load_model
 
 ENGINE = Path(api.__file__).resolve().parent

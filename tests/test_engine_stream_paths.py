@@ -2,9 +2,10 @@
 kernels of seqstate (api.viterbi, mea.mea), for every kernel family.
 
 Every expected value here comes from the project's own existing code: the whole-record
-Viterbi kernels of seqstate (api.viterbi and the generic kernels.viterbi_checkpointed) and the
-whole-record MEA kernel of seqstate (mea.mea), or from a plain-NumPy run-length encoding written
-in this file.  Models and records are the tests' own random draws (tests/helpers.py).
+Viterbi of seqstate (api.viterbi; the generic family's steps via viterbi_pieces(generic=True))
+and the whole-record MEA kernel of seqstate (mea.mea), or from a plain-NumPy run-length
+encoding written in this file.  Models and records are the tests' own random draws
+(tests/helpers.py).
 """
 
 from __future__ import annotations
@@ -91,18 +92,17 @@ def _joined(pieces, n: int) -> np.ndarray:
     return np.concatenate([p.states for p in reversed(got)]) if got else np.zeros(0, np.int32)
 
 
-def _old_mea(t, codes, gain, cls, block=None):
-    """The first whole-record MEA kernel of seqstate (mea.mea_path), called as mea.mea did."""
-    n = codes.shape[0]
-    block = api.default_block(n) if block is None else block
-    ptr, src = mea.predecessors(t.transitions)
-    path = np.zeros(n, dtype=np.int32)
-    _, failed = mea.mea_path(
-        codes, np.ascontiguousarray(gain), np.asarray(cls, dtype=np.int64), t.E,
-        np.asarray(t.start) > 0, np.asarray(t.end) > 0, ptr, src, block, path,
-    )  # fmt: skip
-    assert failed == -1
+def _ref_mea(t, codes, gain, cls):
+    """The plain-NumPy oracle of the MEA kernels (mea.mea_reference, full N x M tables)."""
+    path, _ = mea.mea_reference(codes, gain, np.asarray(cls), t.E, t.transitions, t.start, t.end)
     return path
+
+
+def _generic_mea(t, codes, gain, cls):
+    """mea.mea on the generic family's kernels (independent of the chain-sparse slot ones);
+    for records too long for the NumPy oracle."""
+    with api_generic():
+        return mea.mea(t, codes, gain, cls)
 
 
 def _rle(path: np.ndarray, key: np.ndarray) -> list[tuple[int, int, int, int, int]]:
@@ -349,11 +349,11 @@ def mea_budget(request, monkeypatch):
 @pytest.mark.parametrize("family", ["generic", "small", "sparse"])
 @pytest.mark.parametrize("n", LENGTHS)
 def test_mea_pieces_equal_the_whole_record_kernel(family, n, mea_budget):
-    """Pieces joined = the first whole-record MEA kernel of seqstate (mea.mea_path) = mea.mea."""
+    """Pieces joined = the plain-NumPy oracle (mea.mea_reference) = mea.mea."""
     t = _tables(family, 21 + n)
     codes = _codes(t, 200 + n, n)
     cls, gain = _gain(t, codes, n, 3)
-    want = _old_mea(t, codes, gain, cls)
+    want = _ref_mea(t, codes, gain, cls)
     assert np.array_equal(mea.mea(t, codes, gain, cls), want)
     for block in (B, 5, None):
         greader = Reader(gain)
@@ -369,7 +369,7 @@ def test_mea_kernels_equal_the_numpy_reference(family):
     codes = _codes(t, 78, n)
     cls, gain = _gain(t, codes, 79, 4)
     ref, _ = mea.mea_reference(codes, gain, cls, t.E, t.transitions, t.start, t.end)
-    assert np.array_equal(_old_mea(t, codes, gain, cls), ref)
+    assert np.array_equal(_ref_mea(t, codes, gain, cls), ref)
     got = _joined(mea_pieces(t, n, Reader(codes), Reader(gain), cls, block=13), n)
     assert np.array_equal(got, ref)
 
@@ -386,7 +386,7 @@ def test_mea_pieces_ties_and_float64_gain(mea_budget):
         rng.integers(0, 2, size=(n, 4)).astype(np.float64),
         rng.integers(0, 3, size=(n, 4)).astype(np.float32),
     ):
-        want = _old_mea(t, codes, gain, cls)
+        want = _ref_mea(t, codes, gain, cls)
         if n <= 2000:
             ref, _ = mea.mea_reference(codes, gain, cls, t.E, t.transitions, t.start, t.end)
             assert np.array_equal(ref, want)
@@ -401,7 +401,7 @@ def test_mea_pieces_read_gain_in_bounded_windows(monkeypatch):
     n = 12_000
     codes = _codes(t, 10, n)
     cls, gain = _gain(t, codes, 11, 5)
-    want = _old_mea(t, codes, gain, cls)
+    want = _generic_mea(t, codes, gain, cls)
     creader, greader = Reader(codes), Reader(gain)
     pieces = mea_pieces(t, n, creader, greader, cls, block=100)
     assert greader.longest <= 1000 and creader.longest <= 1000
@@ -420,7 +420,7 @@ def test_mea_pieces_gene_segment(mea_budget):
     codes = _codes(t, 31, n, p_unknown=0.001)
     cls, n_cls = decoding_classes(model)
     gain = api.posterior(t, codes, group=cls, n_groups=n_cls).values
-    want = _old_mea(t, codes, gain, cls)
+    want = _generic_mea(t, codes, gain, cls)
     assert np.array_equal(mea.mea(t, codes, gain, cls), want)
     assert kernel_family(t) == "sparse"  # the slot kernels (mea_sparse) serve it
     got = _joined(mea_pieces(t, n, Reader(codes), Reader(gain), cls, block=777), n)
@@ -439,10 +439,8 @@ def test_mea_pieces_impossible_record(monkeypatch):
         codes = api.encode(t, seq)
         n = codes.shape[0]
         gain = np.ones((n, 2))
-        ptr, src = mea.predecessors(t.transitions)
-        path = np.zeros(n, dtype=np.int32)
-        _, failed = mea.mea_path(codes, gain, cls, t.E, t.start > 0, t.end > 0, ptr, src, 4, path)
-        assert failed == pos - 1
+        with pytest.raises(ValueError, match=f"reaches position {pos}$"):
+            mea.mea_reference(codes, gain, cls, t.E, t.transitions, t.start, t.end)
         with pytest.raises(ValueError, match=f"reaches position {pos}$"):
             mea.mea(t, codes, gain, cls)
         with pytest.raises(ValueError, match=f"reaches position {pos}$"):
@@ -457,12 +455,8 @@ def test_mea_pieces_impossible_record(monkeypatch):
         seq = good[: pos - 1] + ALPHABET[(pos - 1 + 2) % 4] + good[pos:]
         codes = api.encode(ring, seq)
         gain = np.ones((3000, 1))
-        ptr, src = mea.predecessors(ring.transitions)
-        path = np.zeros(3000, dtype=np.int32)
-        _, failed = mea.mea_path(
-            codes, gain, cls, ring.E, ring.start > 0, ring.end > 0, ptr, src, 64, path
-        )
-        assert failed == pos - 1
+        with pytest.raises(ValueError, match=f"reaches position {pos}$"):
+            mea.mea_reference(codes, gain, cls, ring.E, ring.transitions, ring.start, ring.end)
         for generic in (False, True):
             with api_generic() if generic else _null():
                 with pytest.raises(ValueError, match=f"reaches position {pos}$"):

@@ -22,7 +22,7 @@ import pytest
 from Bio import bgzf
 
 from seqstate.errors import SequenceFormatError, UsageError
-from seqstate.io import faidx
+from seqstate.io import faidx, faidx_build
 from seqstate.io.fasta import iter_fasta
 from seqstate.io.regions import TO_END, Region
 
@@ -210,7 +210,7 @@ def test_index_checks_the_fasta_with_the_readers_words(tmp_path, text):
 
 
 def test_bad_character_split_across_read_chunks(tmp_path, monkeypatch):
-    monkeypatch.setattr(faidx, "_CHUNK", 64)
+    monkeypatch.setattr(faidx_build, "_CHUNK", 64)
     seq = b"ACGT" * 100
     text = b">a\n" + b"\n".join(seq[i : i + 50] for i in range(0, 400, 50)) + b"\n>b\nAAXA\n"
     fa = tmp_path / "x.fa"
@@ -226,7 +226,7 @@ def test_small_read_chunks_give_the_same_index(tmp_path, monkeypatch):
     data, fai = fasta_text(random_records(9, n=6), 11, b"\r\n")
     fa = tmp_path / "x.fa"
     fa.write_bytes(data)
-    monkeypatch.setattr(faidx, "_CHUNK", 5)
+    monkeypatch.setattr(faidx_build, "_CHUNK", 5)
     faidx.build_index(fa)
     assert (tmp_path / "x.fa.fai").read_text() == "\n".join(fai) + "\n"
 

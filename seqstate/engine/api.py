@@ -17,7 +17,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import DTypeLike
 
-from seqstate.engine import kernels
+from seqstate.engine import passes
 from seqstate.engine._common import MIN_BLOCK, default_block
 from seqstate.engine.backends import Backend
 from seqstate.engine.buffers import work_buffer
@@ -72,17 +72,8 @@ def backend_of(tables: EngineTables) -> Backend:
 
 
 def _raise_impossible(tables: EngineTables, codes: np.ndarray, record: str | None) -> None:
-    _, pos = kernels.forward_loglik(
-        codes,
-        tables.start,
-        tables.end,
-        tables.E,
-        tables.nz_ptr,
-        tables.nz_state,
-        tables.pred_ptr,
-        tables.pred_src,
-        tables.pred_p,
-    )
+    n = codes.shape[0]
+    pos = passes.first_failure(tables, lambda a, b: codes[a:b], n, n)
     name = f"record '{record}'" if record else "the record"
     if pos >= codes.shape[0] or pos < 0:
         msg = "no state that may end the sequence can be reached at its last base"
@@ -171,12 +162,14 @@ def viterbi(
     n = codes.shape[0]
     if n == 0:
         raise ValueError("empty record")
-    backend = backend_of(tables)
-    block = backend.viterbi_block(n, block)
+    from seqstate.engine import stream_paths  # it is built on this module
+
+    lp, pieces = stream_paths.viterbi_pieces(
+        tables, n, lambda a, b: codes[a:b], block=block, chunk=n, record=record, one_piece=True
+    )
     path = work_buffer(n, np.int16 if tables.n_states < 32768 else np.int32)
-    lp, pos = backend.viterbi(codes, block, path)
-    if pos >= 0:
-        _raise_impossible(tables, codes, record)
+    for piece in pieces:
+        path[piece.start0 : piece.end0] = piece.states
     return path, lp
 
 

@@ -122,14 +122,15 @@ CACHE = PLAN.enabled
 
 
 def kernels_cached(modules: Sequence[str] = ("kernels",)) -> bool:
-    """Whether compiled kernels of the engine modules ``modules`` (``"kernels"``,
-    ``"sparse"``, ...) are found in the on-disk cache, i.e. whether a run starts without
-    compiling them.  A guess from the cache's index files (``MODULE.FUNCTION-LINE.pyXY.nbi``),
+    """Whether compiled kernels of the engine modules or family packages ``modules``
+    (``"kernels"``, ``"small"``, ``"sparse"``, ...) are found in the on-disk cache, i.e.
+    whether a run starts without compiling them.  A guess from the cache's index files
+    (``MODULE.FUNCTION-LINE.pyXY.nbi``, in a folder of the package's name for a family),
     for the message a command shows before the first, slow compile; never raises."""
     if not CACHE:
         return False
     here = os.path.dirname(os.path.abspath(__file__))
-    folders = [os.path.join(here, "__pycache__")]
+    folders = [here]  # the engine's __pycache__ folders, its family packages' too
     custom = os.environ.get("NUMBA_CACHE_DIR")
     if custom:
         folders.append(custom)
@@ -138,8 +139,12 @@ def kernels_cached(modules: Sequence[str] = ("kernels",)) -> bool:
         found = False
         for folder in folders:
             try:
-                for _root, _dirs, names in os.walk(folder):
-                    if any(n.startswith(module + ".") and n.endswith(tag) for n in names):
+                for root, _dirs, names in os.walk(folder):
+                    in_package = module in root.split(os.sep)
+                    if any(
+                        (in_package or n.startswith(module + ".")) and n.endswith(tag)
+                        for n in names
+                    ):
                         found = True
                         break
             except OSError:

@@ -13,19 +13,15 @@ is recomputed once during the traceback, so memory is O(M * (N / block + block))
 Ties go to the lowest predecessor index at every step and to the lowest state
 index at the end, as in Viterbi.  Arrays in, arrays out; nothing here prints.
 
-Two implementations of the same path:
-
-* :func:`mea_path` -- the first whole-record kernel (every state's predecessors visited
-  at every position, one back-pointer per state); kept as the compiled twin of the
-  streaming kernels in tests, with :func:`mea_reference` (plain NumPy) as their oracle;
-* the streaming kernels (:func:`stream_forward`, :func:`stream_block_path`,
-  :func:`stream_tail_path`) driven by :func:`path_blocks`: codes and gain rows are read
-  through callables in windows, the score row is checkpointed every ``block`` positions,
-  and the path comes out block by block from the end.  A state with one predecessor needs
-  no search and no back-pointer; the others store the rank of the winner in their
-  predecessor list (one byte), so the back-pointers of the last positions of a record can
-  be kept from the forward pass (up to a budget) and those blocks need no second pass.
-  :func:`mea` runs them over a record held in memory.
+One implementation (:func:`mea_reference`, plain NumPy, is its oracle in the tests): the
+streaming kernels (:func:`stream_forward`, :func:`stream_block_path`,
+:func:`stream_tail_path`) driven by :func:`path_blocks`: codes and gain rows are read
+through callables in windows, the score row is checkpointed every ``block`` positions, and
+the path comes out block by block from the end.  A state with one predecessor needs no
+search and no back-pointer; the others store the rank of the winner in their predecessor
+list (one byte), so the back-pointers of the last positions of a record can be kept from
+the forward pass (up to a budget) and those blocks need no second pass.
+:func:`mea` runs them over a record held in memory.
 """
 
 from __future__ import annotations
@@ -33,12 +29,15 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Iterator
 
-import numba as nb
 import numpy as np
-from numba import uintp
 
-from seqstate.engine._common import JIT as _JIT
 from seqstate.engine.buffers import work_buffer
+from seqstate.engine.generic.mea import (
+    stream_block_path,
+    stream_final,
+    stream_forward,
+    stream_tail_path,
+)
 
 NEG = -math.inf
 #: Positions of codes and gain rows read at a time by the forward pass of :func:`path_blocks`.
@@ -47,248 +46,7 @@ WINDOW = 1 << 16
 BACKPOINTER_BUDGET = 64 << 20
 
 
-@nb.njit(**_JIT)
-def _step(prev, cur, bp, t, codes, gain, cls, E, p_ptr, p_src, m):
-    c = codes[t]
-    any_ok = False
-    for j in range(m):
-        best = NEG
-        arg = -1
-        if E[c, j] > 0.0:
-            for q in range(p_ptr[j], p_ptr[j + 1]):
-                i = p_src[q]
-                v = prev[i]
-                if v > best:
-                    best = v
-                    arg = i
-        if arg >= 0:
-            cur[j] = best + gain[t, cls[j]]
-            any_ok = True
-        else:
-            cur[j] = NEG
-        bp[j] = arg
-    return any_ok
-
-
-@nb.njit(**_JIT)
-def _first(cur, codes, gain, cls, E, start_ok, m):
-    c = codes[0]
-    any_ok = False
-    for j in range(m):
-        if start_ok[j] and E[c, j] > 0.0:
-            cur[j] = gain[0, cls[j]]
-            any_ok = True
-        else:
-            cur[j] = NEG
-    return any_ok
-
-
-@nb.njit(**_JIT)
-def mea_path(codes, gain, cls, E, start_ok, end_ok, p_ptr, p_src, block, path):
-    """Fill ``path`` (length N) with the best path; return (total gain, failed position).
-
-    ``gain[t, k]``: posterior of class k at position t; ``cls[j]``: class of state j;
-    ``E[code, j]``: emission factor; ``p_ptr``/``p_src``: predecessors of each state
-    (CSR, sources in increasing index).  The failed position is -1 on success, else
-    the first position no allowed path reaches (the path is then left unfilled).
-    """
-    n = codes.shape[0]
-    m = cls.shape[0]
-    nblocks = (n + block - 1) // block
-    ck = np.zeros((nblocks, m))
-    cur = np.zeros(m)
-    prev = np.zeros(m)
-    bp_row = np.zeros(m, dtype=np.int64)
-    if not _first(cur, codes, gain, cls, E, start_ok, m):
-        return NEG, 0
-    ck[0, :] = cur
-    for t in range(1, n):
-        prev[:] = cur
-        if not _step(prev, cur, bp_row, t, codes, gain, cls, E, p_ptr, p_src, m):
-            return NEG, t
-        if t % block == 0:
-            ck[t // block, :] = cur
-    best = NEG
-    last = -1
-    for j in range(m):
-        if end_ok[j] and cur[j] > best:
-            best = cur[j]
-            last = j
-    if last < 0:
-        return NEG, n - 1
-    bps = np.zeros((block, m), dtype=np.int64)
-    state = last
-    hi = n - 1  # path[hi] is ``state``, not yet written
-    for b in range(nblocks - 1, -1, -1):
-        t0 = b * block
-        cur[:] = ck[b, :]
-        for t in range(t0 + 1, hi + 1):
-            prev[:] = cur
-            _step(prev, cur, bp_row, t, codes, gain, cls, E, p_ptr, p_src, m)
-            bps[t - t0 - 1, :] = bp_row
-        for t in range(hi, t0, -1):
-            path[t] = state
-            state = bps[t - t0 - 1, state]
-        hi = t0
-    path[0] = state
-    return best, -1
-
-
 # ----------------------------------------------------------------- streaming kernels
-@nb.njit(**_JIT)
-def _mea_step(X, xr, Y, yr, B, br, c, G, gr, cls, emit, p_ptr, p_src, col):
-    """One step X[xr] -> Y[yr] with gain row G[gr] (array and index: no row view); the
-    winners' ranks of multi-predecessor states into B[br, col[j]].  The operations and tie
-    rule of :func:`_step`: the best predecessor (strictly greater replaces, so the lowest
-    index wins), then the gain of the state's class.
-    Returns True when some state is reachable."""
-    m = Y.shape[1]
-    c = uintp(c)
-    any_ok = False
-    for j in range(m):
-        if emit[c, j]:
-            lo = uintp(p_ptr[j])
-            hi = uintp(p_ptr[j + 1])
-            if hi - lo == 1:
-                v = X[xr, uintp(p_src[lo])]
-                if v > NEG:
-                    Y[yr, j] = v + G[gr, uintp(cls[j])]
-                    any_ok = True
-                else:
-                    Y[yr, j] = NEG
-            else:
-                best = NEG
-                arg = -1
-                for q in range(lo, hi):
-                    v = X[xr, uintp(p_src[q])]
-                    if v > best:
-                        best = v
-                        arg = q - lo
-                if arg >= 0:
-                    Y[yr, j] = best + G[gr, uintp(cls[j])]
-                    B[br, uintp(col[j])] = arg
-                    any_ok = True
-                else:
-                    Y[yr, j] = NEG
-        else:
-            Y[yr, j] = NEG
-    return any_ok
-
-
-@nb.njit(**_JIT)
-def _pred(state, B, br, p_ptr, p_src, col):
-    """The predecessor of ``state`` recorded in B[br] (one-predecessor states: their only one)."""
-    lo = p_ptr[state]
-    if p_ptr[state + 1] - lo == 1:
-        return p_src[lo]
-    return p_src[lo + B[br, col[state]]]
-
-
-@nb.njit(**_JIT)
-def stream_forward(
-    codes, gain, i0, block, tail0, rows, carry, ck, tail, cls, emit, start_ok, p_ptr, p_src, col
-):
-    """Forward over positions ``[i0, i0 + len(codes))`` (``gain`` their rows); ``rows`` (2, M)
-    holds the score row of ``i0 - 1`` in row ``carry[0]`` (updated on return).  The row at
-    every block start goes to ``ck``; from ``tail0`` on the ranks go to ``tail`` row
-    ``i - tail0 + 1`` (row 0 takes the earlier writes).  Returns -1 or the first position
-    no allowed path reaches."""
-    n1 = codes.shape[0]
-    m = rows.shape[1]
-    src = carry[0]
-    j0 = 0
-    if i0 == 0:
-        c = uintp(codes[0])
-        any_ok = False
-        for j in range(m):
-            if start_ok[j] and emit[c, j]:
-                rows[0, j] = gain[0, cls[j]]
-                any_ok = True
-            else:
-                rows[0, j] = NEG
-        if not any_ok:
-            return 0
-        for j in range(m):
-            ck[0, j] = rows[0, j]
-        src = 0
-        j0 = 1
-    first = i0 if i0 > 1 else 1
-    ckpos = ((first + block - 1) // block) * block
-    for r in range(j0, n1):
-        i = i0 + r
-        dst = 1 - src
-        br = i - tail0 + 1 if i >= tail0 else 0
-        if not _mea_step(rows, src, rows, dst, tail, br, codes[r], gain, r, cls, emit, p_ptr,
-                         p_src, col):  # fmt: skip
-            return i
-        src = dst
-        if i == ckpos:
-            bk = i // block
-            for j in range(m):
-                ck[bk, j] = rows[dst, j]
-            ckpos += block
-    carry[0] = src
-    return -1
-
-
-@nb.njit(**_JIT)
-def stream_final(rows, carry, end_ok):
-    """(total gain, best final state or -1): the lowest index among equal totals."""
-    src = carry[0]
-    best = NEG
-    last = -1
-    for j in range(rows.shape[1]):
-        if end_ok[j] and rows[src, j] > best:
-            best = rows[src, j]
-            last = j
-    return best, last
-
-
-@nb.njit(**_JIT)
-def stream_block_path(
-    codes, gain, ck, bk, known, nxt, rows, bps, out, cls, emit, p_ptr, p_src, col
-):
-    """Block ``bk`` (``codes``/``gain`` its positions) recomputed from ``ck[bk]`` and traced
-    into ``out``: the state at its last position is ``known`` (>= 0) or the best predecessor
-    of ``nxt``, the state at the position after the block."""
-    n1 = codes.shape[0]
-    m = rows.shape[1]
-    for j in range(m):
-        rows[0, j] = ck[bk, j]
-    src = 0
-    for r in range(1, n1):
-        dst = 1 - src
-        _mea_step(rows, src, rows, dst, bps, r, codes[r], gain, r, cls, emit, p_ptr, p_src, col)
-        src = dst
-    state = known
-    if state < 0:
-        lo = p_ptr[nxt]
-        state = p_src[lo]
-        best = NEG
-        for q in range(lo, p_ptr[nxt + 1]):
-            v = rows[src, p_src[q]]
-            if v > best:
-                best = v
-                state = p_src[q]
-    out[n1 - 1] = state
-    for r in range(n1 - 1, 0, -1):
-        state = _pred(state, bps, r, p_ptr, p_src, col)
-        out[r - 1] = state
-
-
-@nb.njit(**_JIT)
-def stream_tail_path(b0, b1, tail0, tail, known, out, p_ptr, p_src, col):
-    """Trace ``[b0, b1)`` through the kept ranks; returns the state at ``b0 - 1`` (-1 at 0)."""
-    state = known
-    out[b1 - b0 - 1] = state
-    for i in range(b1 - 1, b0, -1):
-        state = _pred(state, tail, i - tail0 + 1, p_ptr, p_src, col)
-        out[i - 1 - b0] = state
-    if b0 == 0:
-        return -1
-    return _pred(state, tail, b0 - tail0 + 1, p_ptr, p_src, col)
-
-
 def predecessors(transitions: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """CSR predecessor lists of the allowed moves (sources in increasing index)."""
     allowed = np.asarray(transitions) > 0
@@ -462,7 +220,7 @@ class Stream:
 
 class SlotStream(Stream):
     """:class:`Stream` in the renumbered slots of the chain-sparse family
-    (:mod:`seqstate.engine.mea_sparse`): the same path, fewer operations per base."""
+    (:mod:`seqstate.engine.sparse.mea`): the same path, fewer operations per base."""
 
     def __init__(
         self,
@@ -476,7 +234,7 @@ class SlotStream(Stream):
         window: int | None = None,
         budget: int | None = None,
     ) -> None:
-        from seqstate.engine import mea_sparse
+        from seqstate.engine.sparse import mea as mea_sparse
 
         window = WINDOW if window is None else window
         budget = BACKPOINTER_BUDGET if budget is None else budget
@@ -523,7 +281,7 @@ class SlotStream(Stream):
             self.failed = n - 1
 
     def _locate(self, fail: int) -> int:
-        from seqstate.engine import mea_sparse
+        from seqstate.engine.sparse import mea as mea_sparse
 
         if fail == 0:
             return 0
@@ -540,7 +298,8 @@ class SlotStream(Stream):
         return fail if pos < 0 else int(pos)
 
     def blocks(self) -> Iterator[tuple[int, int, np.ndarray]]:
-        from seqstate.engine import mea_sparse, stream_viterbi
+        from seqstate.engine.sparse import mea as mea_sparse
+        from seqstate.engine.sparse import viterbi as sparse_viterbi
 
         self.check()
         n, block, sp = self.n, self.block, self.sp
@@ -551,7 +310,7 @@ class SlotStream(Stream):
             out = work_buffer(b1 - b0, np.int32)
             if b0 >= self.tail0:
                 known = int(
-                    stream_viterbi.sparse_tail_path(
+                    sparse_viterbi.tail_path(
                         b0, b1, self.tail0, self.tail, known, out, sp.perm, *self.tb
                     )
                 )
@@ -592,7 +351,7 @@ def path_blocks(
     if n <= 0:
         raise ValueError("empty record")
     from seqstate.engine.api import backend_of
-    from seqstate.engine.backends import SparseBackend
+    from seqstate.engine.sparse.backend import SparseBackend
 
     block = default_block(n) if block is None else max(1, min(int(block), n))
     backend = backend_of(tables)

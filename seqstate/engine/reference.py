@@ -109,7 +109,7 @@ def brute_force(start: np.ndarray, trans: np.ndarray, end: np.ndarray, lattice: 
 def encode_codes(
     sym: np.ndarray, order: int, n_symbols: int, offsets: np.ndarray, unknown_code: int
 ) -> np.ndarray:
-    """Pure-Python twin of :func:`seqstate.engine.kernels.encode_codes`."""
+    """Pure-Python twin of :func:`seqstate.engine.generic.kernels.encode_codes`."""
     out = work_buffer(len(sym), np.int64)
     for i, x in enumerate(sym):
         if x < 0:

@@ -41,11 +41,9 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import DTypeLike
 
-from seqstate.engine import api, small, sparse
-from seqstate.engine import stream_generic as sg
-from seqstate.engine import stream_small as ss
-from seqstate.engine import stream_sparse as sst
-from seqstate.engine._common import RESCALE_BELOW, default_block
+from seqstate.engine import api
+from seqstate.engine._common import default_block
+from seqstate.engine.passes import _Generic, _Small, _Sparse, first_failure
 from seqstate.engine.tables import EngineTables
 from seqstate.errors import ImpossibleSequenceError
 
@@ -160,197 +158,6 @@ def _threads(threads: int) -> int:
     return min(2, int(threads))
 
 
-def _chunks_forward(n: int, chunk: int):
-    for a in range(0, n, chunk):
-        yield a, min(n, a + chunk)
-
-
-def _chunks_backward(n: int, chunk: int):
-    b = n
-    while b > 0:
-        a = max(0, b - chunk)
-        yield a, b
-        b = a
-
-
-# ----------------------------------------------------------------- families
-class _Generic:
-    """The streaming passes of the generic family (:mod:`seqstate.engine.stream_generic`)."""
-
-    def __init__(self, tables: EngineTables, backend) -> None:
-        self.t = tables
-        self.lim = backend.lim
-        self.scatter = sg.scatter_table(tables)
-
-    def forward(self, read, n, block, chunk, alpha_ck, alpha_ck_log, lim=None):
-        """Forward pass; returns (loglik, fail position or -1)."""
-        t = self.t
-        lim = self.lim if lim is None else lim
-        rows = np.zeros((2, t.n_states))
-        carry = np.zeros(1)
-        icarry = np.zeros(1, dtype=np.int64)
-        fwd = (t.E, t.nz_ptr, t.nz_state, t.pred_ptr, t.pred_src, t.pred_p)
-        for a, b in _chunks_forward(n, chunk):
-            pos = sg.forward_chunk(
-                read(a, b),
-                a,
-                rows,
-                carry,
-                icarry,
-                block,
-                alpha_ck,
-                alpha_ck_log,
-                t.start,
-                *fwd,
-                lim,
-            )
-            if pos >= 0:
-                return -np.inf, pos
-        ll, ok = sg.forward_final(rows, icarry, carry, t.end)
-        return (ll, -1) if ok else (-np.inf, n)
-
-    def backward(self, read, n, block, chunk, beta_ck, beta_ck_log):
-        """Backward pass; returns the fail position or -1."""
-        t = self.t
-        m = t.n_states
-        rows = np.zeros((2, m))
-        carry = np.zeros(1)
-        icarry = np.zeros(1, dtype=np.int64)
-        if not sg.backward_init(rows, carry, icarry, t.end, self.lim):
-            return n
-        last = (n - 1) // block
-        beta_ck[last] = rows[0]
-        beta_ck_log[last] = carry[0]
-        w = np.zeros(m)
-        moves = (t.E, t.nz_ptr, t.nz_state, t.pred_ptr, t.pred_src, t.pred_p)
-        moves += (t.succ_ptr, t.succ_dst, t.succ_p)
-        p = n - 1
-        for a, b in _chunks_backward(n, chunk):
-            pos = sg.backward_chunk(
-                read(a, b), a, p, rows, carry, icarry, block, beta_ck, beta_ck_log,
-                self.scatter, *moves, w, self.lim,
-            )  # fmt: skip
-            if pos >= 0:
-                return pos
-            p = max(a - 1, 0)
-        return -1
-
-    def span(self, codes, base, ck, first_block, stop_block, group, n_groups, out):
-        """Posteriors of blocks ``[first_block, stop_block)`` into ``out`` (zero), whose
-        row 0 and ``codes[0]`` are record position ``base``."""
-        t = self.t
-        scratch = sg.span_scratch(t.n_states, min(ck.block, ck.n))
-        moves = (t.E, t.nz_ptr, t.nz_state, t.pred_ptr, t.pred_src, t.pred_p)
-        moves += (t.succ_ptr, t.succ_dst, t.succ_p)
-        return sg.span(
-            codes, base, ck.n, first_block, stop_block, ck.block, *moves, self.scatter,
-            group, out, ck.alpha_ck, ck.beta_ck, *scratch, self.lim,
-        )  # fmt: skip
-
-
-class _Small:
-    """The streaming passes of the two-state-per-code family (:mod:`.stream_small`)."""
-
-    def __init__(self, tables: EngineTables, backend) -> None:
-        self.t = tables
-        sm = self.sm = backend.sm
-        self.lim = sm.lim
-        self.steps = (sm.K, sm.st, sm.wide, sm.cls, sm.W, sm.T, sm.E)
-
-    def forward(self, read, n, block, chunk, alpha_ck, alpha_ck_log):
-        sm = self.sm
-        kmax = sm.kmax
-        ua, va = np.zeros(kmax), np.zeros(kmax)
-        fc = np.zeros(3)
-        ic = np.zeros(1, dtype=np.int64)
-        for a, b in _chunks_forward(n, chunk):
-            pos = ss.forward_chunk(
-                read(a, b), a, ua, va, fc, ic, block, alpha_ck, alpha_ck_log, sm.start,
-                *self.steps, self.lim,
-            )  # fmt: skip
-            if pos >= 0:
-                return -np.inf, pos
-        ll, ok = ss.forward_final(ua, fc, ic, sm.K, sm.st, sm.wide, sm.end)
-        return (ll, -1) if ok else (-np.inf, n)
-
-    def backward(self, read, n, block, chunk, beta_ck, beta_ck_log):
-        sm = self.sm
-        kmax = sm.kmax
-        full = np.zeros(self.t.n_states)
-        ba, bb = np.zeros(kmax), np.zeros(kmax)
-        fc = np.zeros(3)
-        ic = np.zeros(1, dtype=np.int64)
-        for a, b in _chunks_backward(n, chunk):
-            pos = ss.backward_chunk(
-                read(a, b), a, b, n, full, ba, bb, fc, ic, block, beta_ck, beta_ck_log,
-                sm.end, *self.steps, self.lim,
-            )  # fmt: skip
-            if pos >= 0:
-                return pos
-        return -1
-
-    def span(self, codes, base, ck, first_block, stop_block, group, n_groups, out):
-        sm = self.sm
-        gc = small.group_table(sm, group)
-        scratch = ss.span_scratch(sm.kmax, min(ck.block, ck.n))
-        return ss.span(
-            codes, base, ck.n, first_block, stop_block, ck.block, *self.steps, gc, out,
-            ck.alpha_ck, ck.beta_ck, *scratch, self.lim,
-        )  # fmt: skip
-
-
-class _Sparse:
-    """The streaming passes of the chain-sparse family (:mod:`.stream_sparse`), in the
-    numbering the whole-record posterior uses for ``group``."""
-
-    def __init__(self, tables: EngineTables, backend, group, n_groups) -> None:
-        self.t = tables
-        self.lim = backend.lim
-        if n_groups <= sparse.MAX_KEYED_GROUPS:
-            self.sp = backend.keyed(group, n_groups)
-            self.key = sparse.group_key(group, n_groups).tobytes()
-        else:
-            self.sp, self.key = backend.sp, b""
-
-    def forward(self, read, n, block, chunk, alpha_ck, alpha_ck_log):
-        sp = self.sp
-        rows = np.zeros((2, sp.n_states + 2))
-        ic = np.zeros(2, dtype=np.int64)
-        for a, b in _chunks_forward(n, chunk):
-            pos = sst.forward_chunk(
-                read(a, b), a, rows, ic, block, alpha_ck, alpha_ck_log, sp.start, sp.E,
-                sp.perm, *sp.fwd, self.lim,
-            )  # fmt: skip
-            if pos >= 0:
-                return -np.inf, pos
-        ll, ok = sst.forward_final(rows, ic, sp.end)
-        return (ll, -1) if ok else (-np.inf, n)
-
-    def backward(self, read, n, block, chunk, beta_ck, beta_ck_log):
-        sp = self.sp
-        rows = np.zeros((2, sp.n_states + 2))
-        ic = np.zeros(2, dtype=np.int64)
-        if not sst.backward_init(rows, ic, sp.end, sp.perm, beta_ck, beta_ck_log, self.lim):
-            return n
-        for a, b in _chunks_backward(n, chunk):
-            pos = sst.backward_chunk(
-                read(a, b), a, b - 1, rows, ic, block, beta_ck, beta_ck_log, sp.perm,
-                *sp.bwd, self.lim,
-            )  # fmt: skip
-            if pos >= 0:
-                return pos
-        return -1
-
-    def span(self, codes, base, ck, first_block, stop_block, group, n_groups, out):
-        sp = self.sp
-        runs = sparse.group_runs(sp, group, n_groups)
-        scratch = sst.span_scratch(sp.n_states, min(ck.block, ck.n), n_groups)
-        return sst.span(
-            codes, base, ck.n, first_block, stop_block, ck.block, sp.perm, *sp.fwd, *sp.bwd,
-            runs, n_groups, out, ck.alpha_ck, ck.beta_ck, *scratch, self.lim,
-        )  # fmt: skip
-
-
 def _family(tables: EngineTables, group: np.ndarray, n_groups: int):
     """The streaming passes of the family that serves ``tables`` now (``api.backend_of``)."""
     backend = api.backend_of(tables)
@@ -359,16 +166,6 @@ def _family(tables: EngineTables, group: np.ndarray, n_groups: int):
     if backend.name == "sparse":
         return _Sparse(tables, backend, group, n_groups)
     return _Generic(tables, backend)
-
-
-def _first_failure(tables: EngineTables, read, n: int, chunk: int) -> int:
-    """The failing position as the whole-record API reports it (the generic forward pass
-    at the default rescaling threshold: -1 none, ``n`` at the end)."""
-    fam = _Generic(tables, tables.generic)
-    nblocks = 1
-    ck = np.zeros((nblocks, tables.n_states)), np.zeros(nblocks)
-    _, pos = fam.forward(read, n, n, chunk, *ck, lim=RESCALE_BELOW)
-    return pos
 
 
 def _forward_job(fam, read, n, block, chunk, alpha_ck, alpha_ck_log) -> tuple[float, int]:
@@ -464,7 +261,7 @@ def checkpoints(
             else fam.forward(read, n, block, chunk, alpha_ck, alpha_ck_log)
         )
     if bpos >= 0 or fpos >= 0:
-        pos = _first_failure(tables, _Reader(codes, n), n, chunk)
+        pos = first_failure(tables, _Reader(codes, n), n, chunk)
         raise ImpossibleSequenceError(_impossible_message(record, pos, n))
     key = getattr(fam, "key", b"")
     return RecordCheckpoints(n, block, float(ll), alpha_ck, alpha_ck_log, beta_ck, beta_ck_log, key)

@@ -23,9 +23,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from seqstate.engine import api, mea, stream_viterbi
-from seqstate.engine.backends import SmallBackend, SparseBackend
+from seqstate.engine import api, mea
 from seqstate.engine.buffers import work_buffer
+from seqstate.engine.generic import viterbi as generic_viterbi
+from seqstate.engine.small import viterbi as small_viterbi
+from seqstate.engine.small.backend import SmallBackend
+from seqstate.engine.sparse import viterbi as sparse_viterbi
+from seqstate.engine.sparse.backend import SparseBackend
 from seqstate.errors import ImpossibleSequenceError
 
 __all__ = [
@@ -111,21 +115,21 @@ class _Generic:
     def forward(self, codes: np.ndarray, i0: int, block: int) -> int:
         t = self.t
         args = (self.rows, self.carry, self.ck, self.tail, t.log_start, *self.steps)
-        return stream_viterbi.generic_forward(codes, i0, block, self.tail0, *args)
+        return generic_viterbi.forward(codes, i0, block, self.tail0, *args)
 
     def locate(self, fail: int, reader: CodeReader, block: int) -> int:
         return fail
 
     def final(self) -> tuple[float, int]:
-        return stream_viterbi.generic_final(self.rows, self.carry, self.t.log_end)
+        return generic_viterbi.final(self.rows, self.carry, self.t.log_end)
 
     def block_path(self, codes: np.ndarray, bk: int, known: int, nxt: int, out: np.ndarray) -> None:
-        stream_viterbi.generic_block_path(
+        generic_viterbi.block_path(
             codes, self.ck, bk, known, nxt, self.rows, self.bps, out, *self.steps
         )
 
     def tail_path(self, reader: CodeReader, b0: int, b1: int, known: int, out: np.ndarray) -> int:
-        return stream_viterbi.generic_tail_path(b0, b1, self.tail0, self.tail, known, out)
+        return generic_viterbi.tail_path(b0, b1, self.tail0, self.tail, known, out)
 
     def native(self, state: int) -> int:
         return state
@@ -149,21 +153,19 @@ class _Small(_Generic):
     def forward(self, codes: np.ndarray, i0: int, block: int) -> int:
         sm = self.sm
         args = (self.da, self.va, self.bpa, self.carry, self.ck, self.tail, sm.log_start)
-        return stream_viterbi.small_forward(codes, i0, block, self.tail0, *args, *self.steps)
+        return small_viterbi.forward(codes, i0, block, self.tail0, *args, *self.steps)
 
     def final(self) -> tuple[float, int]:
         sm = self.sm
-        return stream_viterbi.small_final(self.da, self.carry, sm.K, sm.st, sm.log_end)
+        return small_viterbi.final(self.da, self.carry, sm.K, sm.st, sm.log_end)
 
     def block_path(self, codes: np.ndarray, bk: int, known: int, nxt: int, out: np.ndarray) -> None:
         work = (self.da, self.va, self.bpa, self.bps, out)
-        stream_viterbi.small_block_path(codes, self.ck, bk, known, nxt, *work, *self.steps)
+        small_viterbi.block_path(codes, self.ck, bk, known, nxt, *work, *self.steps)
 
     def tail_path(self, reader: CodeReader, b0: int, b1: int, known: int, out: np.ndarray) -> int:
         codes = _read(reader, b0, b1, "codes")
-        return stream_viterbi.small_tail_path(
-            codes, b0, self.tail0, self.tail, known, self.sm.st, out
-        )
+        return small_viterbi.tail_path(codes, b0, self.tail0, self.tail, known, self.sm.st, out)
 
 
 class _Sparse(_Generic):
@@ -185,7 +187,7 @@ class _Sparse(_Generic):
     def forward(self, codes: np.ndarray, i0: int, block: int) -> int:
         sp = self.sp
         args = (self.rows, self.carry, self.ck, self.tail, sp.log_start, sp.logE, *self.fix[:1])
-        return stream_viterbi.sparse_forward(codes, i0, block, self.tail0, *args, *self.fix[2:])
+        return sparse_viterbi.forward(codes, i0, block, self.tail0, *args, *self.fix[2:])
 
     def locate(self, fail: int, reader: CodeReader, block: int) -> int:
         if fail == 0:
@@ -195,23 +197,23 @@ class _Sparse(_Generic):
             k -= 1
         codes = _read(reader, k * block, fail + 1, "codes")
         work = work_buffer((2, self.sp.n_states + 2))
-        pos = stream_viterbi.sparse_locate(codes, k * block, self.ck[k], work, self.bps, *self.fix)
+        pos = sparse_viterbi.locate(codes, k * block, self.ck[k], work, self.bps, *self.fix)
         return fail if pos < 0 else pos
 
     def final(self) -> tuple[float, int]:
         sp = self.sp
-        return stream_viterbi.sparse_final(self.rows, self.carry, sp.inv, sp.log_end)
+        return sparse_viterbi.final(self.rows, self.carry, sp.inv, sp.log_end)
 
     def block_path(self, codes: np.ndarray, bk: int, known: int, nxt: int, out: np.ndarray) -> None:
         sp = self.sp
-        stream_viterbi.sparse_block_path(
+        sparse_viterbi.block_path(
             codes, self.ck, bk, known, nxt, self.rows, self.bps, out, sp.perm, *self.fix,
             *self.tb, sp.p_lp,
         )  # fmt: skip
 
     def tail_path(self, reader: CodeReader, b0: int, b1: int, known: int, out: np.ndarray) -> int:
         sp = self.sp
-        return stream_viterbi.sparse_tail_path(
+        return sparse_viterbi.tail_path(
             b0, b1, self.tail0, self.tail, known, out, sp.perm, *self.tb
         )
 
@@ -239,6 +241,8 @@ def viterbi_pieces(
     block: int | None = None,
     chunk: int = 1 << 20,
     record: str | None = None,
+    generic: bool = False,
+    one_piece: bool = False,
 ) -> tuple[float, Iterator[PathPiece]]:
     """Forward max-product pass over code chunks storing checkpoints (O(nblocks*M) memory),
     returns the path's log probability (natural log) and an iterator of pieces from the LAST
@@ -249,14 +253,22 @@ def viterbi_pieces(
     The last blocks whose back-pointers fit :data:`BACKPOINTER_BUDGET` keep them from the
     forward pass instead (no second pass over them).  ``chunk``: codes read per call of the
     forward pass.  The failing position of an impossible record is the first position at
-    which every state's max-product score is -inf, read from this pass."""
+    which every state's max-product score is -inf, read from this pass.  ``generic``: the
+    generic family's steps whatever family serves the model (same path; for tests).
+    ``one_piece`` (with ``block=None``, for callers that hold the whole path anyway, as
+    :func:`api.viterbi` does): when the back-pointers of the whole record fit the budget,
+    the record is one block and comes out as one piece (no per-block calls)."""
     if n <= 0:
         raise ValueError("empty record")
     if chunk < 1:
         raise ValueError(f"chunk must be a positive number of positions, got {chunk}")
+    one_piece = one_piece and block is None
     block = _block_of(n, block)
     nblocks = (n + block - 1) // block
-    fam = _family(tables, n, block)
+    fam = _Generic(tables, n, block) if generic else _family(tables, n, block)
+    if one_piece and nblocks > 1 and n * fam.width * fam.bp_dtype.itemsize <= BACKPOINTER_BUDGET:
+        block, nblocks = n, 1
+        fam = _Generic(tables, n, block) if generic else _family(tables, n, block)
     per_block = block * fam.width * fam.bp_dtype.itemsize
     kept = min(nblocks, BACKPOINTER_BUDGET // max(per_block, 1))
     tail0 = (nblocks - kept) * block

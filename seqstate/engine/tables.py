@@ -43,9 +43,10 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from seqstate.engine import _common, kernels
+from seqstate.engine import _common
 from seqstate.engine._common import code_table, log0, transition_lists
 from seqstate.engine.buffers import work_buffer
+from seqstate.engine.generic import kernels
 from seqstate.model import Model
 from seqstate.model.emissions import backoff_rows
 

@@ -20,7 +20,7 @@ checkpoint, then runs the backward recursion through the block and adds each
 position's posterior and each step's pair posterior
 ``xi_i(s, t) = alpha_i(s) a(s, t) e_{i+1}(t) beta_{i+1}(t) / sum_s alpha_i(s) beta_i(s)``.
 Working memory is O(M * (N / block + block)), O(M sqrt N) with the default
-``block`` of about sqrt(N).  Scaling follows :mod:`seqstate.engine.kernels`:
+``block`` of about sqrt(N).  Scaling follows :mod:`seqstate.engine.generic.kernels`:
 vectors are rescaled lazily when their sum falls below :data:`RESCALE_BELOW`; each
 posterior is normalised at its own position, so the scales cancel.
 
@@ -185,7 +185,8 @@ def accumulate(
 # ----------------------------------------------------------------- kernels
 # The two layouts are written out in full (no helper calls in the inner loops: numba
 # does not inline them reliably, and a call per position costs more than the work; for
-# the two-state kernels a shared step made the forward pass 60x slower, see small.py).
+# the two-state kernels a shared step made the forward pass 60x slower, see
+# engine/small/posterior.py).
 
 
 @njit(**_JIT)

@@ -14,9 +14,9 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING
 
-from seqstate.engine.backends.generic import GenericBackend
-from seqstate.engine.backends.small import SmallBackend
-from seqstate.engine.backends.sparse import SparseBackend
+from seqstate.engine.generic.backend import GenericBackend
+from seqstate.engine.small.backend import SmallBackend
+from seqstate.engine.sparse.backend import SparseBackend
 
 if TYPE_CHECKING:
     from seqstate.engine.tables import EngineTables

@@ -6,7 +6,7 @@ linked to the one numbered before (``(x[t] + lin[t]) + ge[t]``, ``lin`` 0 where 
 -inf elsewhere, ``ge`` the position's gain of the state's class, -inf where it cannot emit),
 then the other states from their predecessor lists per code (first predecessor assigned,
 later ones replace it only when strictly greater, so the lowest original index wins).  Values
-equal :func:`seqstate.engine.mea._step`'s exactly (adding 0.0 changes no value), so the
+equal :func:`seqstate.engine.mea._mea_step`'s exactly (adding 0.0 changes no value), so the
 paths are identical.  Impossibility is checked at block ends, as the sparse Viterbi kernels
 do; :func:`slot_locate` finds the first failing position.  No I/O, work arrays from the
 caller.  Coordinates 0-based.
@@ -18,7 +18,7 @@ import numpy as np
 from numba import njit, uintp
 
 from seqstate.engine._common import JIT as _JIT
-from seqstate.engine.sparse_query import _all_impossible
+from seqstate.engine.sparse.queries import _all_impossible
 
 _ONE = uintp(1)
 

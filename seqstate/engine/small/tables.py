@@ -27,7 +27,7 @@ Tables (built by :func:`build` from an :class:`~seqstate.engine.tables.EngineTab
   over predecessors in increasing order with strict ``>``, then ``+ log e``), so
   its values and paths are identical to the generic kernel's.
 
-Scaling and failure conventions are those of :mod:`seqstate.engine.kernels`
+Scaling and failure conventions are those of :mod:`seqstate.engine.generic.kernels`
 (lazy rescaling below ``RESCALE_BELOW``, natural logs, the failing position is
 returned instead of raising).  Checkpoints are written as full M-vectors with
 the same meaning as the generic kernels' (scaled vector times exp(log scale)
@@ -46,7 +46,6 @@ from numba import njit
 
 from seqstate.engine._common import JIT as _JIT
 from seqstate.engine._common import RESCALE_BELOW, rescale_limit, smallest_factor
-from seqstate.engine.buffers import work_buffer
 
 if TYPE_CHECKING:
     from seqstate.engine.tables import EngineTables
@@ -179,18 +178,6 @@ def group_table(small: SmallTables, group: np.ndarray) -> np.ndarray:
     return gc
 
 
-def viterbi_scratch(
-    small: SmallTables, n: int, block: int
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Work arrays ``(ck, da, va)`` of :func:`viterbi_checkpointed` for N = ``n``."""
-    nblocks = (n + block - 1) // block
-    return (
-        work_buffer((nblocks, small.kmax)),
-        work_buffer(small.kmax),
-        work_buffer(small.kmax),
-    )
-
-
 # ----------------------------------------------------------------- wide steps
 @njit(**_JIT)
 def _wide_forward(ua, cp, va, c, K, st, T, E):
@@ -270,11 +257,11 @@ def _wide_viterbi(da, cp, va, bpa, c, K, st, logT, logE):
 
 
 # ----------------------------------------------------------------- forward
-# The forward step is written out in forward_loglik and again in the posterior kernel
-# (small_posterior.py) on purpose.  Measured on the development machine (1 Mbp, cpg-island,
-# median of 5): the step as one helper with @njit(inline="always") made forward_loglik 60x
-# slower (2.0 ms -> 120 ms; a plain @njit helper too); a helper for the rare wide step
-# alone kept forward_loglik at 2.0 ms but made the posterior 2x slower (15.9 -> 32.3 ms).
+# Kept for speed: the whole-record log-likelihood of this family, a copy of the forward
+# recursion of seqstate.engine.small.posterior.forward_chunk without its checkpoint test.
+# Measured (2 Mbp, median of 9, same process, shared 2-core machine): forward_chunk as the
+# whole-record loglik took 9.8 ms against 4.5 ms here (cpg-island) and 9.8 against 7.8 ms
+# (cpg-island-8); the bench_engine forward ratio against hmmlearn fell 64.9x -> 40.1x.
 @njit(**_JIT)
 def forward_loglik(codes, start, end, K, st, wide, cls, W, T, E, lim=RESCALE_BELOW):
     """Total log-likelihood (natural log); (loglik, fail_position) as the generic kernel."""
@@ -344,150 +331,3 @@ def forward_loglik(codes, start, end, K, st, wide, cls, W, T, E, lim=RESCALE_BEL
 
 
 # ----------------------------------------------------------------- Viterbi
-@njit(**_JIT)
-def viterbi_checkpointed(
-    codes, log_start, log_end, K, st, wide, cls, LT, LE, logT, logE, block, path, ck, da, va
-):
-    """Most probable path into ``path``; (log probability, fail_position), generic tie rule.
-
-    The compact delta vector is kept at the first position of every block; the
-    traceback recomputes each block with its back-pointers (compact indices).
-    ``ck``, ``da`` and ``va`` are work arrays (see :func:`viterbi_scratch`).
-    """
-    n = codes.shape[0]
-    kmax = st.shape[1]
-    nblocks = (n + block - 1) // block
-    bpa = np.zeros(kmax, dtype=np.int8)
-    c = codes[0]
-    anyv = -np.inf
-    for k in range(kmax):
-        if k < K[c]:
-            v = log_start[st[c, k]] + logE[c, st[c, k]]
-        else:
-            v = -np.inf
-        da[k] = v
-        if v > anyv:
-            anyv = v
-    if anyv == -np.inf:
-        return -np.inf, 0
-    ck[0, :] = da
-    ckpos = block
-    d0 = da[0]
-    d1 = da[1]
-    cp = c
-    for i in range(1, n):
-        c = codes[i]
-        if wide[cp] or wide[c]:
-            if not wide[cp]:
-                da[0] = d0
-                da[1] = d1
-            anyv = _wide_viterbi(da, cp, va, bpa, c, K, st, logT, logE)
-            if anyv == -np.inf:
-                return -np.inf, i
-            for k in range(kmax):
-                da[k] = va[k]
-            d0 = da[0]
-            d1 = da[1]
-        else:
-            q = cls[cp]
-            r = cls[c]
-            a0 = d0 + LT[q, r, 0]
-            a1 = d1 + LT[q, r, 2]
-            m0 = a1 if a1 > a0 else a0
-            a0 = d0 + LT[q, r, 1]
-            a1 = d1 + LT[q, r, 3]
-            m1 = a1 if a1 > a0 else a0
-            d0 = m0 + LE[c, 0]
-            d1 = m1 + LE[c, 1]
-            if d0 == -np.inf and d1 == -np.inf:
-                return -np.inf, i
-        cp = c
-        if i == ckpos:
-            ckpos += block
-            if not wide[c]:
-                da[0] = d0
-                da[1] = d1
-                for k in range(2, kmax):
-                    da[k] = -np.inf
-            ck[i // block, :] = da
-    if not wide[cp]:
-        da[0] = d0
-        da[1] = d1
-        for k in range(2, kmax):
-            da[k] = -np.inf
-    best = -np.inf
-    kbest = -1
-    for k in range(K[cp]):
-        v = da[k] + log_end[st[cp, k]]
-        if v > best:
-            best = v
-            kbest = k
-    if kbest < 0:
-        return -np.inf, n
-    # ---- traceback, one block at a time from the end
-    bps = np.zeros((min(block, n), kmax), dtype=np.int8)
-    kcur = kbest
-    for bk in range(nblocks - 1, -1, -1):
-        b0 = bk * block
-        b1 = min(n, b0 + block)
-        for k in range(kmax):
-            da[k] = ck[bk, k]
-        d0 = da[0]
-        d1 = da[1]
-        cp = codes[b0]
-        for i in range(b0 + 1, b1):
-            c = codes[i]
-            r = i - b0
-            if wide[cp] or wide[c]:
-                if not wide[cp]:
-                    da[0] = d0
-                    da[1] = d1
-                _wide_viterbi(da, cp, va, bpa, c, K, st, logT, logE)
-                for k in range(kmax):
-                    bps[r, k] = bpa[k]
-                for k in range(kmax):
-                    da[k] = va[k]
-                d0 = da[0]
-                d1 = da[1]
-            else:
-                q = cls[cp]
-                q2 = cls[c]
-                a0 = d0 + LT[q, q2, 0]
-                a1 = d1 + LT[q, q2, 2]
-                if a1 > a0:
-                    m0 = a1
-                    bps[r, 0] = 1
-                else:
-                    m0 = a0
-                    bps[r, 0] = 0
-                a0 = d0 + LT[q, q2, 1]
-                a1 = d1 + LT[q, q2, 3]
-                if a1 > a0:
-                    m1 = a1
-                    bps[r, 1] = 1
-                else:
-                    m1 = a0
-                    bps[r, 1] = 0
-                d0 = m0 + LE[c, 0]
-                d1 = m1 + LE[c, 1]
-            cp = c
-        if not wide[cp]:
-            da[0] = d0
-            da[1] = d1
-        if bk < nblocks - 1:
-            # the state at b1 is known: pick its best predecessor at b1 - 1
-            c = codes[b1]
-            t = st[c, kcur]
-            bestp = -np.inf
-            arg = -1
-            for j in range(K[cp]):
-                v = da[j] + logT[st[cp, j], t]
-                if v > bestp:
-                    bestp = v
-                    arg = j
-            kcur = arg if arg >= 0 else 0
-        path[b1 - 1] = st[cp, kcur]
-        for i in range(b1 - 1, b0, -1):
-            kcur = bps[i - b0, kcur]
-            path[i - 1] = st[codes[i - 1], kcur]
-    return best, -1

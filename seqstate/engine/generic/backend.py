@@ -7,10 +7,11 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from seqstate.engine import kernels, kernels_query
-from seqstate.engine._common import default_block, rescale_limit, smallest_factor
+from seqstate.engine import passes
+from seqstate.engine._common import rescale_limit, smallest_factor
 from seqstate.engine.buffers import work_buffer
-from seqstate.engine.kernels_query import one_class
+from seqstate.engine.generic import queries as kernels_query
+from seqstate.engine.generic.queries import one_class
 
 if TYPE_CHECKING:
     from seqstate.engine.api import Posterior
@@ -24,7 +25,7 @@ Moves = tuple[Array, Array, Array, Array, Array, Array]
 
 
 class GenericBackend:
-    """The generic kernels (:mod:`seqstate.engine.kernels`) on one model's tables.
+    """The generic kernels (:mod:`seqstate.engine.generic.kernels`) on one model's tables.
 
     Every method takes an encoded record and returns what the kernels return: a
     failing position instead of an error (the API turns it into one).  The
@@ -35,44 +36,32 @@ class GenericBackend:
     #: argument groups of the kernels (see ``__init__``)
     fwd: Moves
     bwd: Moves
-    vit: tuple[np.ndarray, ...]
 
     def __init__(self, tables: EngineTables) -> None:
         t = self.t = tables
         #: the rescaling threshold of these tables (see :func:`_common.rescale_limit`)
         self.lim = rescale_limit(smallest_factor(t.pred_p, t.E))
         # the kernels' argument lists, written once: emissions and moves into a state
-        # (forward), out of a state (backward), and their logs (Viterbi)
+        # (forward) and out of a state (backward)
         self.fwd = (t.E, t.nz_ptr, t.nz_state, t.pred_ptr, t.pred_src, t.pred_p)
         self.bwd = (t.E, t.nz_ptr, t.nz_state, t.succ_ptr, t.succ_dst, t.succ_p)
-        self.vit = (t.log_start, t.log_end, t.logE, t.nz_ptr, t.nz_state, t.pred_ptr)
-        self.vit += (t.pred_src, t.pred_logp)
 
     # ------------------------------------------------------------- whole-record passes
+    def passes_for(self, group: Array | None = None, n_groups: int = 0) -> passes._Generic:
+        """The posterior passes of this family (:mod:`seqstate.engine.passes`) for the
+        posterior columns ``group`` (only the chain-sparse numbering depends on them)."""
+        return passes._Generic(self.t, self)
+
     def loglik(self, codes: np.ndarray) -> tuple[float, int]:
         """(log-likelihood, fail position or -1) of one record."""
-        return kernels.forward_loglik(codes, self.t.start, self.t.end, *self.fwd, self.lim)
+        return self.passes_for().loglik(codes)
 
     def posterior(
         self, codes: Array, group: Array, n_groups: int, block: int, out: Array, ck: Checkpoints
     ) -> tuple[float, int]:
         """Posteriors summed by ``group`` into ``out``; checkpoints into ``ck`` (alpha,
         alpha log, beta, beta log).  Returns (log-likelihood, fail position or -1)."""
-        t = self.t
-        scratch = kernels.posterior_scratch(codes.shape[0], t.n_states, block)
-        moves = (*self.fwd, *self.bwd[3:])
-        return kernels.posterior_checkpointed(
-            codes, t.start, t.end, *moves, block, group, out, *ck, *scratch, self.lim
-        )
-
-    def viterbi_block(self, n: int, block: int | None) -> int:
-        """The checkpoint block of a Viterbi run on ``n`` positions."""
-        return default_block(n) if block is None else max(1, min(int(block), n))
-
-    def viterbi(self, codes: np.ndarray, block: int, path: np.ndarray) -> tuple[float, int]:
-        """Most probable path into ``path``; (log probability, fail position or -1)."""
-        scratch = kernels.viterbi_scratch(codes.shape[0], self.t.n_states, block)
-        return kernels.viterbi_checkpointed(codes, *self.vit, block, path, *scratch)
+        return self.passes_for(group, n_groups).posterior(codes, block, group, n_groups, out, ck)
 
     # ------------------------------------------------------------- vectors and segments
     def forward_vector(

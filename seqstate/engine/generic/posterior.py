@@ -1,10 +1,11 @@
-"""Streaming kernels of the generic family: the passes of
-:func:`seqstate.engine.kernels.posterior_checkpointed`, cut into chunks of codes.
+"""The posterior kernels of the generic family, in chunks of codes: the only implementation
+of its forward, backward and posterior passes (whole-record and streaming alike, driven by
+:mod:`seqstate.engine.passes`).
 
-The whole-record kernel runs a backward pass (pass 1) keeping the backward vector at
-each block's last position, then a forward pass (pass 2) that keeps the forward vector
-at each block's first position and writes each block's posteriors from the running
-forward vector and the block's backward vectors recomputed from its checkpoint.  Here:
+A posterior runs a backward pass (pass 1) keeping the backward vector at each block's
+last position, then a forward pass (pass 2) that keeps the forward vector at each
+block's first position and writes each block's posteriors from the running forward
+vector and the block's backward vectors recomputed from its checkpoint.  Here:
 
 * :func:`forward_chunk` -- pass 2's forward recursion over positions ``[i0, i0 + len)``,
   carrying the running vector, its log scale and the row index between calls, and
@@ -12,10 +13,11 @@ forward vector and the block's backward vectors recomputed from its checkpoint. 
 * :func:`backward_chunk` -- pass 1 over a chunk read from the end of the record;
 * :func:`span` -- pass 2's posterior of whole blocks, each started from its two
   checkpoints (the forward vector AT the block's first position is exactly the running
-  vector there, so the values are those of the whole-record kernel, bit for bit).
+  vector there, so the values are those of one whole-record sweep, bit for bit); in fill
+  mode it is that sweep (pass 2 of the whole-record posterior).
 
 The step helpers, their order of operations and the rescaling decisions are those of
-:mod:`seqstate.engine.kernels`.  Coordinates are 0-based record positions; chunks and
+:mod:`seqstate.engine.generic.kernels`.  Coordinates are 0-based record positions; chunks and
 spans are half-open.  Kernels return the first failing position (0-based) or -1.
 """
 
@@ -29,7 +31,7 @@ from numba import njit, uintp
 from seqstate.engine._common import JIT as _JIT
 from seqstate.engine._common import RESCALE_BELOW
 from seqstate.engine.buffers import work_buffer
-from seqstate.engine.kernels import (
+from seqstate.engine.generic.kernels import (
     _ONE,
     _backward_gather,
     _backward_scatter,
@@ -50,6 +52,14 @@ def scatter_table(tables) -> np.ndarray:
 def span_scratch(m: int, block: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Work arrays ``(w, buf, gamma, fw)`` of :func:`span` (M = ``m`` states)."""
     return work_buffer(m), work_buffer((block, m)), work_buffer(m), work_buffer((2, m))
+
+
+@njit(**_JIT)
+def _keep(ck, ck_log, bk, rows, r, log_scale):
+    """Checkpoint ``bk``: row ``r`` of ``rows`` and its natural-log scale."""
+    for s in range(ck.shape[1]):
+        ck[bk, s] = rows[r, s]
+    ck_log[bk] = log_scale
 
 
 @njit(**_JIT)
@@ -80,9 +90,9 @@ def forward_chunk(
     Returns the first position where every state is impossible, or -1.
     """
     n = codes.shape[0]
-    m = start.shape[0]
     fsrc = icarry[0]
     flog = carry[0]
+    nxt = ((i0 + block - 1) // block) * block  # the next block start at or after i0
     for j in range(n):
         i = i0 + j
         if i == 0:
@@ -102,11 +112,9 @@ def forward_chunk(
                 return i
             _scale(rows, fsrc, total)
             flog += math.log(total)
-        if i % block == 0:
-            bk = i // block
-            for s in range(m):
-                alpha_ck[bk, s] = rows[fsrc, s]
-            alpha_ck_log[bk] = flog
+        if i == nxt:
+            _keep(alpha_ck, alpha_ck_log, i // block, rows, fsrc, flog)
+            nxt += block
     icarry[0] = fsrc
     carry[0] = flog
     return -1
@@ -179,10 +187,10 @@ def backward_chunk(
     position) the vector goes to ``beta_ck[i // block]``.  ``w``: M work entries.
     Returns the failing position (the one whose code made every state impossible) or -1.
     """
-    m = rows.shape[1]
     src = icarry[0]
     logscale = carry[0]
     lo = a - 1 if a > 0 else 0
+    ckpos = (p // block) * block  # the next (going down) block start at or below p
     for i in range(p - 1, lo - 1, -1):
         dst = 1 - src
         cn = codes[i + 1 - a]
@@ -202,11 +210,9 @@ def backward_chunk(
             _scale(rows, dst, bsum)
             logscale += math.log(bsum)
         src = dst
-        if (i + 1) % block == 0:
-            bk = i // block
-            for s in range(m):
-                beta_ck[bk, s] = rows[dst, s]
-            beta_ck_log[bk] = logscale
+        if i + 1 == ckpos:
+            _keep(beta_ck, beta_ck_log, i // block, rows, dst, logscale)
+            ckpos -= block
     icarry[0] = src
     carry[0] = logscale
     return -1
@@ -238,20 +244,41 @@ def span(
     buf,
     gamma,
     fw,
-    lim=RESCALE_BELOW,
+    lim,
+    fill,
+    start,
+    alpha_ck_log,
+    carry,
+    icarry,
 ):
     """Posteriors of blocks ``[first_block, stop_block)`` into ``out`` (zero on entry).
 
     ``codes[j]`` is the code of record position ``base + j`` and ``out[j]`` its row;
     ``n`` is the record length.  Each block starts from ``alpha_ck[bk]`` (the forward
     vector at its first position) and ``beta_ck[bk]`` (the backward vector at its
-    last one), and combines them as pass 2 of the whole-record kernel does.
-    Returns the failing position (0-based, record coordinates) or -1.
+    last one), and combines them.
+
+    ``fill``: the forward checkpoints are not known yet (the whole-record posterior):
+    each block's first position is reached by :func:`forward_chunk` from the running
+    vector (``fw[icarry[0]]``, log scale ``carry[0]``, both carried on; ``start`` the
+    start factors), which writes ``alpha_ck[bk]`` and ``alpha_ck_log[bk]``; after the
+    last block, :func:`forward_final` gives the log-likelihood.  The forward vector at a
+    block's first position is the running vector there, so both ways give the same
+    values bit for bit.  Returns the failing position (0-based, record coordinates) or -1.
     """
     m = alpha_ck.shape[1]
+    flog = 0.0
     for bk in range(first_block, stop_block):
         b0 = bk * block
         b1 = min(n, b0 + block)
+        if fill:
+            pos = forward_chunk(
+                codes[b0 - base : b0 - base + 1], b0, fw, carry, icarry, block, alpha_ck,
+                alpha_ck_log, start, E, nz_ptr, nz_state, pred_ptr, pred_src, pred_p, lim,
+            )  # fmt: skip
+            if pos >= 0:
+                return pos
+            flog = carry[0]
         for s in range(m):
             buf[b1 - 1 - b0, s] = beta_ck[bk, s]
         for i in range(b1 - 2, b0 - 1, -1):
@@ -291,6 +318,7 @@ def span(
                     if total == 0.0:
                         return i
                     _scale(fw, fsrc, total)
+                    flog += math.log(total)
             r = i - b0
             norm = 0.0
             c = uintp(codes[i - base])
@@ -310,4 +338,7 @@ def span(
                 col = group[s]
                 if col >= 0:
                     out[row, col] += gamma[s] * inv
+        if fill:
+            icarry[0] = fsrc
+            carry[0] = flog
     return -1

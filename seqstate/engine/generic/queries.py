@@ -2,7 +2,7 @@
 from a posterior's checkpoints, and forward passes constrained to an allowed set of
 states per position (one set for a plain segment, a class per position for a path).
 
-Tables, scaling and failure conventions are those of :mod:`seqstate.engine.kernels`.
+Tables, scaling and failure conventions are those of :mod:`seqstate.engine.generic.kernels`.
 """
 
 from __future__ import annotations
@@ -15,7 +15,7 @@ from numba import njit, uintp
 from seqstate.engine._common import JIT as _JIT
 from seqstate.engine._common import RESCALE_BELOW
 from seqstate.engine.buffers import work_buffer
-from seqstate.engine.kernels import (
+from seqstate.engine.generic.kernels import (
     _ONE,
     _backward_gather,
     _backward_gather_wide,

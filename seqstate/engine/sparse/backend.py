@@ -7,11 +7,13 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from seqstate.engine import sparse, sparse_query
+from seqstate.engine import passes
 from seqstate.engine._common import LN2
-from seqstate.engine.backends.generic import Array, Checkpoints, GenericBackend
 from seqstate.engine.buffers import work_buffer
-from seqstate.engine.kernels_query import one_class
+from seqstate.engine.generic.backend import Array, GenericBackend
+from seqstate.engine.generic.queries import one_class
+from seqstate.engine.sparse import queries as sparse_query
+from seqstate.engine.sparse import tables as sparse
 
 if TYPE_CHECKING:
     from seqstate.engine.api import Posterior
@@ -49,31 +51,10 @@ class SparseBackend(GenericBackend):
         return sp
 
     # ------------------------------------------------------------- whole-record passes
-    def loglik(self, codes: np.ndarray) -> tuple[float, int]:
-        sp = self.sp
-        return sparse.forward_loglik(codes, sp.start, sp.end, sp.E, *sp.fwd, self.lim)
-
-    def posterior(
-        self, codes: Array, group: Array, n_groups: int, block: int, out: Array, ck: Checkpoints
-    ) -> tuple[float, int]:
-        sp = self.keyed(group, n_groups) if n_groups <= sparse.MAX_KEYED_GROUPS else self.sp
-        runs = sparse.group_runs(sp, group, n_groups)
-        tabs = (sp.start, sp.end, sp.E, sp.perm, *sp.fwd, *sp.bwd)
-        return sparse.posterior_checkpointed(
-            codes, *tabs, block, runs, n_groups, out, *ck, self.lim
-        )
-
-    def viterbi_block(self, n: int, block: int | None) -> int:
-        if block is None:
-            # one pass when the whole record's back-pointers fit the budget
-            sp = self.sp
-            bp_bytes = n * (sp.n_multi + 1) * np.dtype(sp.bp_dtype).itemsize
-            block = n if bp_bytes <= sparse.BACKPOINTER_BUDGET else None
-        return super().viterbi_block(n, block)
-
-    def viterbi(self, codes: np.ndarray, block: int, path: np.ndarray) -> tuple[float, int]:
-        scratch = sparse_query.viterbi_scratch(self.sp, codes.shape[0], block)
-        return sparse_query.viterbi_checkpointed(codes, *self.sp.vit, block, *scratch, path)
+    def passes_for(self, group: Array | None = None, n_groups: int = 0) -> passes._Generic:
+        if group is None:  # the default numbering (more columns than are ever keyed)
+            group, n_groups = np.arange(self.t.n_states), sparse.MAX_KEYED_GROUPS + 1
+        return passes._Sparse(self.t, self, group, n_groups)
 
     # ------------------------------------------------------------- vectors and segments
     def cursor(self, codes: np.ndarray, post: Posterior) -> Cursor:

@@ -1,10 +1,11 @@
-"""Streaming kernels of the two-state-per-code family: the passes of
-:func:`seqstate.engine.small_posterior.posterior_checkpointed`, cut into chunks of codes.
+"""The posterior kernels of the two-state-per-code family, in chunks of codes: the only
+implementation of its forward, backward and posterior passes (driven by
+:mod:`seqstate.engine.passes`).
 
-Same split as :mod:`seqstate.engine.stream_generic` (forward pass, backward pass read
+Same split as :mod:`seqstate.engine.generic.posterior` (forward pass, backward pass read
 from the end, per-block posteriors from the checkpoints), on the compact tables of
-:mod:`seqstate.engine.small`.  Each loop body is the whole-record kernel's, statement for
-statement, so the checkpoints, the log-likelihood and the posteriors are bit-identical.
+:mod:`seqstate.engine.small`; the checkpoints, the log-likelihood and the posteriors do
+not depend on the chunks (bit for bit).
 
 Carried between chunks: the compact vector (array ``ua`` or ``ba`` plus the two scalars
 the narrow steps keep), its natural-log scale and the previous (forward) or next
@@ -20,9 +21,8 @@ import numpy as np
 from numba import njit
 
 from seqstate.engine._common import JIT as _JIT
-from seqstate.engine._common import RESCALE_BELOW
 from seqstate.engine.buffers import work_buffer
-from seqstate.engine.small import _full_backward, _wide_backward, _wide_forward
+from seqstate.engine.small.tables import _full_backward, _wide_backward, _wide_forward
 
 __all__ = ["backward_chunk", "forward_chunk", "forward_final", "span", "span_scratch"]
 
@@ -57,6 +57,7 @@ def forward_chunk(
     flog = fc[2]
     cp = ic[0]
     fail = -1
+    nxt = ((i0 + block - 1) // block) * block  # the next block start at or after i0
     for j in range(n):
         i = i0 + j
         c = codes[j]
@@ -113,8 +114,9 @@ def forward_chunk(
             u0 = v0
             u1 = v1
         cp = c
-        if i % block == 0:
+        if i == nxt:
             bk = i // block
+            nxt += block
             if not wide[c]:
                 ua[0] = u0
                 ua[1] = u1
@@ -210,9 +212,11 @@ def backward_chunk(
         cn = ic[0]
         top = b - 1
     fail = -1
+    ckpos = ((top + 1) // block) * block  # the next (going down) block start at or below top + 1
     for i in range(top, a - 1, -1):
         c = codes[i - a]
-        if (i + 1) % block == 0:
+        if i + 1 == ckpos:
+            ckpos -= block
             # checkpoint: the full backward vector at i, the compact one from it
             if not wide[cn]:
                 ba[0] = b0v
@@ -283,6 +287,12 @@ def backward_chunk(
     return fail
 
 
+# The forward step is written out in forward_chunk and again in span (and the backward
+# step in backward_chunk and span) on purpose: kept for speed.  Measured on the development
+# machine (1 Mbp, cpg-island, median of 5): the step as one helper with
+# @njit(inline="always") made the forward pass 60x slower (2.0 ms -> 120 ms; a plain @njit
+# helper too); a helper for the rare wide step alone kept the forward pass at 2.0 ms but
+# made the posterior 2x slower (15.9 -> 32.3 ms).
 @njit(**_JIT)
 def span(
     codes,
@@ -307,19 +317,35 @@ def span(
     bb,
     ua,
     va,
-    lim=RESCALE_BELOW,
+    lim,
+    fill,
+    start,
+    alpha_ck_log,
+    fc,
+    ic,
 ):
     """Posteriors of blocks ``[first_block, stop_block)`` into ``out`` (zero on entry).
 
     ``codes[j]`` is the code of record position ``base + j`` and ``out[j]`` its row; ``n``
     is the record length; ``gc`` from :func:`seqstate.engine.small.group_table`.  Each
-    block runs pass 2 of the whole-record kernel from its checkpoints.  Returns the
-    failing position or -1.
+    block starts from its checkpoints.  ``fill``: the forward checkpoints are made here,
+    as :func:`seqstate.engine.generic.posterior.span` does (:func:`forward_chunk` reaches
+    each block's first position from the carried state ``ua``, ``fc``, ``ic``; then
+    :func:`forward_final` gives the log-likelihood).  Returns the failing position or -1.
     """
     kmax = st.shape[1]
+    flog = 0.0
     for bk in range(first_block, stop_block):
         b0 = bk * block
         b1 = min(n, b0 + block)
+        if fill:
+            pos = forward_chunk(
+                codes[b0 - base : b0 - base + 1], b0, ua, va, fc, ic, block, alpha_ck,
+                alpha_ck_log, start, K, st, wide, cls, W, T, E, lim,
+            )  # fmt: skip
+            if pos >= 0:
+                return pos
+            flog = fc[2]
         # compact backward vectors of the block, from its checkpoint
         c = codes[b1 - 1 - base]
         r = b1 - 1 - b0
@@ -380,6 +406,7 @@ def span(
                     inv = 1.0 / s
                     for k in range(kmax):
                         va[k] *= inv
+                    flog += math.log(s)
                 for k in range(kmax):
                     ua[k] = va[k]
                 u0 = ua[0]
@@ -395,6 +422,7 @@ def span(
                     inv = 1.0 / s
                     v0 *= inv
                     v1 *= inv
+                    flog += math.log(s)
                 u0 = v0
                 u1 = v1
             cp = c
@@ -423,4 +451,9 @@ def span(
                 col = gc[c, 1]
                 if col >= 0:
                     out[row, col] += g1 * inv
+        if fill:
+            fc[0] = u0
+            fc[1] = u1
+            fc[2] = flog
+            ic[0] = cp
     return -1

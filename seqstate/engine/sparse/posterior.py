@@ -1,7 +1,8 @@
-"""Streaming kernels of the chain-sparse family: the passes of
-:func:`seqstate.engine.sparse.posterior_checkpointed`, cut into chunks of codes.
+"""The posterior kernels of the chain-sparse family, in chunks of codes: the only
+implementation of its forward, backward and posterior passes (driven by
+:mod:`seqstate.engine.passes`).
 
-Same split as :mod:`seqstate.engine.stream_generic`, in the renumbered slots of
+Same split as :mod:`seqstate.engine.generic.posterior`, in the renumbered slots of
 :mod:`seqstate.engine.sparse` (state ``t`` in slot ``t + 1``, dummy slots 0 and M + 1
 holding 0), with its rescaling rule (largest entry below the threshold, powers of two,
 an integer binary exponent).  Checkpoints are written in the original state order
@@ -23,7 +24,7 @@ from seqstate.engine._common import JIT as _JIT
 from seqstate.engine._common import LN2 as _LN2
 from seqstate.engine._common import RESCALE_BELOW
 from seqstate.engine.buffers import work_buffer
-from seqstate.engine.sparse import _bits_of, _dot, _first, _maxbits, _rescale, _step
+from seqstate.engine.sparse.tables import _bits_of, _dot, _first, _maxbits, _rescale, _step
 
 __all__ = ["backward_chunk", "backward_init", "forward_chunk", "forward_final", "span"]
 
@@ -31,6 +32,15 @@ __all__ = ["backward_chunk", "backward_init", "forward_chunk", "forward_final", 
 def span_scratch(m: int, block: int, n_groups: int) -> tuple[np.ndarray, ...]:
     """Work arrays ``(buf, fwd, sums)`` of :func:`span` (M = ``m`` states)."""
     return work_buffer((block, m + 2)), work_buffer((2, m + 2)), work_buffer(n_groups + 1)
+
+
+@njit(**_JIT)
+def _keep(ck, ck_log, bk, rows, r, perm, ex):
+    """Checkpoint ``bk`` in the original state order: slot row ``r`` of ``rows`` and its
+    binary exponent ``ex`` (kept as a natural log)."""
+    for s in range(perm.shape[0]):
+        ck[bk, perm[s]] = rows[r, s + 1]
+    ck_log[bk] = ex * _LN2
 
 
 @njit(**_JIT)
@@ -68,6 +78,7 @@ def forward_chunk(
     fsrc = ic[0]
     ex = ic[1]
     fail = -1
+    nxt = ((i0 + block - 1) // block) * block  # the next block start at or after i0
     for j in range(n):
         i = i0 + j
         if i == 0:
@@ -84,11 +95,9 @@ def forward_chunk(
                 fail = i
                 break
             ex += _rescale(rows, fsrc, 1, m + 1, mx, tmpi, tmpf)
-        if i % block == 0:
-            bk = i // block
-            for s in range(m):
-                alpha_ck[bk, perm[s]] = rows[fsrc, s + 1]
-            alpha_ck_log[bk] = ex * _LN2
+        if i == nxt:
+            _keep(alpha_ck, alpha_ck_log, i // block, rows, fsrc, perm, ex)
+            nxt += block
     ic[0] = fsrc
     ic[1] = ex
     return fail
@@ -170,6 +179,7 @@ def backward_chunk(
     ex = ic[1]
     lo = a - 1 if a > 0 else 0
     fail = -1
+    ckpos = (p // block) * block  # the next (going down) block start at or below p
     for i in range(p - 1, lo - 1, -1):
         dst = 1 - src
         _step(rows, src, rows, dst, codes[i + 1 - a], m, 2, v1, b_ptr, b_n0, b_dst, b_src, b_w)
@@ -180,11 +190,9 @@ def backward_chunk(
                 fail = i + 1
                 break
             ex += _rescale(rows, dst, 1, m + 1, mx, tmpi, tmpf)
-        if (i + 1) % block == 0:
-            bk = i // block
-            for s in range(m):
-                beta_ck[bk, perm[s]] = rows[dst, s + 1]
-            beta_ck_log[bk] = ex * _LN2
+        if i + 1 == ckpos:
+            _keep(beta_ck, beta_ck_log, i // block, rows, dst, perm, ex)
+            ckpos -= block
     ic[0] = src
     ic[1] = ex
     return fail
@@ -219,15 +227,22 @@ def span(
     buf,
     fwd,
     sums,
-    lim=RESCALE_BELOW,
+    lim,
+    fill,
+    start,
+    E,
+    alpha_ck_log,
+    ic,
 ):
     """Posteriors of blocks ``[first_block, stop_block)`` into ``out``.
 
     ``codes[j]`` is the code of record position ``base + j`` and ``out[j]`` its row; ``n``
     is the record length; ``runs`` from :func:`seqstate.engine.sparse.group_runs`.  Each
-    block runs pass 2 of the whole-record kernel from its checkpoints.  ``buf``,
-    ``fwd``, ``sums``: work arrays (:func:`span_scratch`).  Returns the failing position
-    or -1.
+    block starts from its checkpoints.  ``buf``, ``fwd``, ``sums``: work arrays
+    (:func:`span_scratch`).  ``fill``: the forward checkpoints are made here, as
+    :func:`seqstate.engine.generic.posterior.span` does (:func:`forward_chunk` reaches each
+    block's first position from ``fwd[ic[0]]``, binary exponent ``ic[1]``; then
+    :func:`forward_final` gives the log-likelihood).  Returns the failing position or -1.
     """
     m = perm.shape[0]
     ng = n_groups
@@ -242,9 +257,18 @@ def span(
     for r in range(2):
         fwd[r, 0] = 0.0
         fwd[r, m + 1] = 0.0
+    ex = 0
     for bk in range(first_block, stop_block):
         b0 = bk * block
         b1 = min(n, b0 + block)
+        if fill:
+            pos = forward_chunk(
+                codes[b0 - base : b0 - base + 1], b0, fwd, ic, block, alpha_ck, alpha_ck_log,
+                start, E, perm, w1, f_ptr, f_n0, f_dst, f_src, f_w, lim,
+            )  # fmt: skip
+            if pos >= 0:
+                return pos
+            ex = ic[1]
         r = b1 - 1 - b0
         for s in range(m):
             buf[r, s + 1] = beta_ck[bk, perm[s]]
@@ -268,7 +292,7 @@ def span(
                 if mx < limbits:
                     if mx == 0:
                         return i
-                    _rescale(fwd, fsrc, 1, m + 1, mx, tmpi, tmpf)
+                    ex += _rescale(fwd, fsrc, 1, m + 1, mx, tmpi, tmpf)
             r = i - b0
             for k in range(ng + 1):
                 sums[k] = 0.0
@@ -283,4 +307,7 @@ def span(
             row = i - base
             for k in range(ng):
                 out[row, k] = sums[k] * inv
+        if fill:
+            ic[0] = fsrc
+            ic[1] = ex
     return -1

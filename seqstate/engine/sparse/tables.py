@@ -3,7 +3,7 @@
 Gene-structure layouts are long chains: in the gene-segment model 256 of 289
 states have exactly one predecessor and one successor, and most of its 371
 allowed transitions are those chain links.  The generic kernels of
-:mod:`seqstate.engine.kernels` search every state's predecessor list (a compare
+:mod:`seqstate.engine.generic.kernels` search every state's predecessor list (a compare
 and a branch per transition), reset every row and, in Viterbi, recompute the
 whole record for the traceback.  Here:
 
@@ -47,7 +47,7 @@ whole record for the traceback.  Here:
   blocks are recomputed during the traceback, as in the generic kernel.
 
 Scaling, failure and checkpoint conventions are those of
-:mod:`seqstate.engine.kernels` (a vector is rescaled when its largest entry,
+:mod:`seqstate.engine.generic.kernels` (a vector is rescaled when its largest entry,
 rather than its sum, falls below the threshold, which rescales at least as
 often); checkpoints are written in the original state order, so the generic
 segment and vector queries work on them unchanged.
@@ -63,8 +63,6 @@ import numpy as np
 from numba import njit, uintp
 
 from seqstate.engine._common import JIT as _JIT
-from seqstate.engine._common import LN2 as _LN2
-from seqstate.engine._common import RESCALE_BELOW
 from seqstate.engine.buffers import work_buffer
 
 if TYPE_CHECKING:
@@ -74,9 +72,6 @@ if TYPE_CHECKING:
 MIN_CHAIN_SHARE = 0.5
 #: Smallest model for which these kernels are used (below, the generic ones do as well).
 MIN_STATES = 32
-#: Bytes of Viterbi back-pointers the default (``block=None``) may hold for a whole record;
-#: longer records are checkpointed (two passes).
-BACKPOINTER_BUDGET = 256 << 20
 
 
 @dataclass(frozen=True, eq=False)
@@ -494,169 +489,3 @@ def _first(S, yr, c, m, start, E):
     c = uintp(c)
     for t in range(m):
         S[yr, t + 1] = start[t] * E[c, t]
-
-
-# ----------------------------------------------------------------- forward
-@njit(**_JIT)
-def forward_loglik(codes, start, end, E, w1, f_ptr, f_n0, f_dst, f_src, f_w, lim=RESCALE_BELOW):
-    """Total log-likelihood (natural log); (loglik, fail_position) as the generic kernel."""
-    n = codes.shape[0]
-    m = start.shape[0]
-    rows = np.zeros((2, m + 2))
-    ri = rows.view(np.int64)
-    tmpi = np.zeros(1, dtype=np.int64)
-    tmpf = tmpi.view(np.float64)
-    limbits = _bits_of(lim, tmpi, tmpf)
-    ex = 0
-    _first(rows, 0, codes[0], m, start, E)
-    src = 0
-    for i in range(n):
-        if i > 0:
-            dst = 1 - src
-            _step(rows, src, rows, dst, codes[i], m, 0, w1, f_ptr, f_n0, f_dst, f_src, f_w)
-            src = dst
-        mx = _maxbits(ri, src, 1, m + 1)
-        if mx < limbits:
-            if mx == 0:
-                return -np.inf, i
-            ex += _rescale(rows, src, 1, m + 1, mx, tmpi, tmpf)
-    final = 0.0
-    for s in range(m):
-        final += rows[src, s + 1] * end[s]
-    if final == 0.0:
-        return -np.inf, n
-    return math.log(final) + ex * _LN2, -1
-
-
-# ----------------------------------------------------------------- posterior
-@njit(**_JIT)
-def posterior_checkpointed(
-    codes,
-    start,
-    end,
-    E,
-    perm,
-    w1,
-    f_ptr,
-    f_n0,
-    f_dst,
-    f_src,
-    f_w,
-    v1,
-    b_ptr,
-    b_n0,
-    b_dst,
-    b_src,
-    b_w,
-    block,
-    runs,
-    n_groups,
-    out,
-    alpha_ck,
-    alpha_ck_log,
-    beta_ck,
-    beta_ck_log,
-    lim=RESCALE_BELOW,
-):
-    """Posteriors summed per group into ``out[i, k]``; contract of the generic kernel.
-
-    ``runs`` (see :func:`group_runs`): slot ranges ``[lo, hi)`` and their output
-    column; column ``n_groups``, not written, holds the states of no group.
-    Checkpoints are written in the original state order.  Returns (loglik,
-    fail_position); ``out`` is overwritten.
-    """
-    n = codes.shape[0]
-    m = start.shape[0]
-    ng = n_groups
-    nblocks = (n + block - 1) // block
-    tmpi = np.zeros(1, dtype=np.int64)
-    tmpf = tmpi.view(np.float64)
-    limbits = _bits_of(lim, tmpi, tmpf)
-    sums = np.zeros(ng + 1)
-    # ---- pass 1: backward, checkpoint at each block's last position
-    rows = np.zeros((2, m + 2))
-    ri = rows.view(np.int64)
-    src = 0
-    for s in range(m):
-        rows[0, s + 1] = end[s]
-    ex = 0
-    mx = _maxbits(ri, 0, 1, m + 1)
-    if mx < limbits:
-        if mx == 0:
-            return -np.inf, n
-        ex += _rescale(rows, 0, 1, m + 1, mx, tmpi, tmpf)
-    last_block = nblocks - 1
-    for s in range(m):
-        beta_ck[last_block, perm[s]] = rows[0, s + 1]
-    beta_ck_log[last_block] = ex * _LN2
-    ckpos = ((n - 1) // block) * block
-    for i in range(n - 2, -1, -1):
-        dst = 1 - src
-        _step(rows, src, rows, dst, codes[i + 1], m, 2, v1, b_ptr, b_n0, b_dst, b_src, b_w)
-        src = dst
-        mx = _maxbits(ri, dst, 1, m + 1)
-        if mx < limbits:
-            if mx == 0:
-                return -np.inf, i + 1
-            ex += _rescale(rows, dst, 1, m + 1, mx, tmpi, tmpf)
-        if i + 1 == ckpos:
-            bk = ckpos // block - 1
-            ckpos -= block
-            for s in range(m):
-                beta_ck[bk, perm[s]] = rows[dst, s + 1]
-            beta_ck_log[bk] = ex * _LN2
-    # ---- pass 2: forward with per-block backward recomputation
-    buf = np.zeros((min(block, n), m + 2))
-    bufi = buf.view(np.int64)
-    fwd = np.zeros((2, m + 2))
-    fi = fwd.view(np.int64)
-    fsrc = 0
-    ex = 0
-    for bk in range(nblocks):
-        b0 = bk * block
-        b1 = min(n, b0 + block)
-        r = b1 - 1 - b0
-        for s in range(m):
-            buf[r, s + 1] = beta_ck[bk, perm[s]]
-        for i in range(b1 - 2, b0 - 1, -1):
-            r = i - b0
-            _step(buf, r + 1, buf, r, codes[i + 1], m, 2, v1, b_ptr, b_n0, b_dst, b_src, b_w)
-            mx = _maxbits(bufi, r, 1, m + 1)
-            if mx < limbits and mx > 0:
-                _rescale(buf, r, 1, m + 1, mx, tmpi, tmpf)  # a row's scale is irrelevant
-        for i in range(b0, b1):
-            if i == 0:
-                _first(fwd, 0, codes[0], m, start, E)
-                fsrc = 0
-            else:
-                fdst = 1 - fsrc
-                _step(fwd, fsrc, fwd, fdst, codes[i], m, 0, w1, f_ptr, f_n0, f_dst, f_src, f_w)
-                fsrc = fdst
-            mx = _maxbits(fi, fsrc, 1, m + 1)
-            if mx < limbits:
-                if mx == 0:
-                    return -np.inf, i
-                ex += _rescale(fwd, fsrc, 1, m + 1, mx, tmpi, tmpf)
-            if i == b0:
-                for s in range(m):
-                    alpha_ck[bk, perm[s]] = fwd[fsrc, s + 1]
-                alpha_ck_log[bk] = ex * _LN2
-            r = i - b0
-            for k in range(ng + 1):
-                sums[k] = 0.0
-            for j in range(runs.shape[0]):
-                sums[runs[j, 2]] += _dot(fwd, fsrc, buf, r, runs[j, 0], runs[j, 1])
-            norm = 0.0
-            for k in range(ng + 1):
-                norm += sums[k]
-            if norm == 0.0:
-                return -np.inf, i
-            inv = 1.0 / norm
-            for k in range(ng):
-                out[i, k] = sums[k] * inv
-    final = 0.0
-    for s in range(m):
-        final += fwd[fsrc, s + 1] * end[s]
-    if final == 0.0:
-        return -np.inf, n
-    return math.log(final) + ex * _LN2, -1
