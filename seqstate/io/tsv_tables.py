@@ -93,12 +93,14 @@ _NUMBER = re.compile(
 )
 
 
-def _lines(path: Path) -> Iterator[tuple[int, list[str]]]:
-    """Yield (line0, fields) for non-blank, non-comment lines of a TSV file.
+def _lines(path: Path, data: bytes | None = None) -> Iterator[tuple[int, list[str]]]:
+    """Yield (line0, fields) for non-blank, non-comment lines of a TSV file (``data``: its
+    bytes as :func:`read_text` gave them, when already read).
 
     LF, CRLF and CR line ends are all read; a UTF-8 byte-order mark is dropped.
     """
-    data = read_text(path, TableFormatError, "TSV table")
+    if data is None:
+        data = read_text(path, TableFormatError, "TSV table")
     for line0, raw in enumerate(data.splitlines()):
         try:
             line = raw.decode("utf-8")
@@ -339,6 +341,108 @@ def read_transitions(
 def read_emissions(
     path: Path, names: list[str], alphabet: str, order: int, strict: bool
 ) -> tuple[np.ndarray, dict[int, np.ndarray]]:
+    """``emissions.tsv``: (full-context rows ``(M, A**order, A)``, back-off rows by context
+    length), rows as written (not normalised).  A table as ``save_model`` writes it is read
+    by a fast path (:func:`_emissions_fast`); anything it does not accept is read line by
+    line, which gives the same arrays or the error of the first bad line."""
+    data = read_text(path, TableFormatError, "TSV table")
+    fast = _emissions_fast(data, names, alphabet, order, strict)
+    if fast is not None:
+        return fast
+    return _emissions_by_line(path, data, names, alphabet, order, strict)
+
+
+#: Characters that end a line for ``str.splitlines`` but not for ``bytes.splitlines``.
+_OTHER_LINE_ENDS = re.compile("[\x0b\x0c\x1c\x1d\x1e\x85\u2028\u2029]")
+#: A character no number cell of the fast path holds.
+_NOT_PLAIN = re.compile(r"[^0-9.eE+-]")
+
+
+def _emissions_fast(
+    data: bytes, names: list[str], alphabet: str, order: int, strict: bool
+) -> tuple[np.ndarray, dict[int, np.ndarray]] | None:
+    """:func:`read_emissions` of a well-formed table in bulk, or None when anything is
+    unusual (then the line-by-line reader gives the same result or the exact error)."""
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError:
+        return None
+    if _OTHER_LINE_ENDS.search(text):
+        return None
+    rows = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
+    if not rows:
+        return None
+    m, a = len(names), len(alphabet)
+    head = [f.strip() for f in rows[0].split("\t")]
+    if head[:2] != ["state", "context"] or sorted(head[2:]) != sorted(alphabet):
+        return None
+    if len(head) != a + 2:
+        return None
+    columns = np.array([alphabet.index(c) for c in head[2:]], dtype=np.int64)
+    body = rows[1:]
+    n, w = len(body), a + 2
+    if any(line.count("\t") != w - 1 for line in body):
+        return None
+    fields = np.array("\t".join(body).split("\t"), dtype=object).reshape(n, w)
+    index = {nm: i for i, nm in enumerate(names)}
+    found = [index.get(v) for v in fields[:, 0].tolist()]
+    if None in found:
+        return None
+    state = np.array(found, dtype=np.int64)
+    sym = {c: i for i, c in enumerate(alphabet)}
+    codes: dict[str, tuple[int, int]] = {}
+    for ctx in set(fields[:, 1].tolist()):
+        word = "" if ctx == EMPTY_CONTEXT else ctx
+        if len(word) > order or any(ch not in sym for ch in word):
+            return None
+        c = 0
+        for ch in word:
+            c = c * a + sym[ch]
+        codes[ctx] = (len(word), c)
+    where = np.array([codes[v] for v in fields[:, 1].tolist()], dtype=np.int64).reshape(n, 2)
+    level, context = where[:, 0], where[:, 1]
+    cells = fields[:, 2:].ravel().tolist()
+    # digits, point, exponent and sign only: then float() accepts exactly the cells that
+    # _NUMBER does (no spaces, underscores or words), with the same values
+    if _NOT_PLAIN.search("".join(cells)):
+        return None
+    try:
+        values = np.array(list(map(float, cells)), dtype=np.float64).reshape(n, a)
+    except ValueError:
+        return None
+    if not np.all(np.isfinite(values)) or np.any(values < 0):
+        return None
+    totals = values.sum(axis=1)
+    if not np.all(np.isfinite(totals)):
+        return None
+    if strict:
+        # exact sums only where the rounding of the plain sum could matter
+        near = np.flatnonzero(np.abs(np.abs(totals - 1.0) - SUM_TOLERANCE) < 1e-9)
+        totals[near] = [_total(values[i].tolist()) for i in near]
+        if np.any(np.abs(totals - 1.0) > SUM_TOLERANCE):
+            return None
+    elif np.any(values.max(axis=1) <= 0):
+        return None
+    full = np.full((m, a**order, a), np.nan)
+    lower = {j: np.full((m, a**j, a), np.nan) for j in range(order)}
+    for j in range(order + 1):
+        pick = level == j
+        key = state[pick] * a**j + context[pick]
+        if np.unique(key).shape[0] != key.shape[0]:
+            return None  # a duplicate row
+        if j == order and key.shape[0] != m * a**order:
+            return None  # a missing context
+        target = full if j == order else lower[j]
+        placed = np.full((key.shape[0], a), np.nan)
+        placed[:, columns] = values[pick]
+        target[state[pick], context[pick]] = placed
+    lower = {j: arr for j, arr in lower.items() if not np.all(np.isnan(arr))}
+    return full, lower
+
+
+def _emissions_by_line(
+    path: Path, data: bytes, names: list[str], alphabet: str, order: int, strict: bool
+) -> tuple[np.ndarray, dict[int, np.ndarray]]:
     index = {n: i for i, n in enumerate(names)}
     m, a = len(names), len(alphabet)
     sym = {c: i for i, c in enumerate(alphabet)}
@@ -347,7 +451,7 @@ def read_emissions(
     given = {j: np.zeros((m, a**j), dtype=bool) for j in range(order + 1)}
     context_index: dict[str, int] = {}
     columns: list[int] | None = None
-    for line0, fields in _lines(path):
+    for line0, fields in _lines(path, data):
         if columns is None:
             head = [f.strip() for f in fields]
             if head[:2] != ["state", "context"]:
