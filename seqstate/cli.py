@@ -920,6 +920,29 @@ def merge_cmd(obj: dict | None, quiet: bool, **options: Any) -> None:
     callback=not_empty,
     help="Reliability diagram, .png, .svg or .pdf (needs matplotlib).",
 )
+@click.option(
+    "--fit-into",
+    default=None,
+    callback=not_empty,
+    metavar="MODEL_DIR",
+    help="Also fit a recalibration table on these forecasts (isotonic or temperature per "
+    "score, chosen on held-out folds) and write MODEL with it as a new model folder.",
+)
+@click.option(
+    "--folds",
+    type=int,
+    default=5,
+    show_default=True,
+    help="With --fit-into: folds of the held-out choice between the two kinds of map.",
+)
+@click.option(
+    "--fold-block",
+    "block",
+    type=int,
+    default=100_000,
+    show_default=True,
+    help="With --fit-into: bases per block; blocks are dealt to the folds in turn.",
+)
 @force_option
 @quiet_option
 def calibrate_cmd(
