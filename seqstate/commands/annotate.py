@@ -720,7 +720,7 @@ def _write_set(
             names.append(table_name)
         if opts.report is not None:
             tsv = cast(TextIO, _Tee(tsv))
-        tsv.write(tsv_row(runner.kind.feature_columns(groups)))
+        tsv.write(tsv_row(runner.kind.feature_columns(groups, model.recalibration is not None)))
         bedgraphs = []
         handles = []
         bigwig_paths = []
