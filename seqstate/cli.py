@@ -290,6 +290,13 @@ def model_check(model: str) -> None:
     help="Per-base posterior track format [default: bedgraph; none with -o -].",
 )
 @click.option(
+    "--calibrated-tracks",
+    is_flag=True,
+    default=False,
+    help="A recalibrated model: also write each track's calibrated posterior "
+    "(STEM.TRACK.calibrated.bedgraph or .bw).",
+)
+@click.option(
     "--stem",
     default=None,
     callback=not_empty,

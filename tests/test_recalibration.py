@@ -366,3 +366,93 @@ def test_bad_table_is_one_error_line(tmp_path: Path, casino_recal: Path, case: s
     (folder / "recalibration.tsv").write_text(text)
     line = one_error(["model", "check", folder], "recalibration.tsv", must)
     assert "line" in line or case in ("empty",), line
+
+
+# ---------------------------------------------------------------- tracks, streaming, report
+def _annotate(fa: Path, model: Path | str, out: Path, *extra) -> None:
+    code, lines = run(["annotate", fa, "-m", model, "-o", out, "--quiet", *extra])
+    assert code == 0, lines
+
+
+def test_calibrated_tracks_are_the_map_of_the_raw_track(casino_recal: Path, tmp_path: Path) -> None:
+    fa = tmp_path / "s.fa"
+    assert run(["sample", "casino", "--length", 3000, "--seed", 5, "-o", fa])[0] == 0
+    _annotate(fa, casino_recal, tmp_path / "a", "--calibrated-tracks", "--precision", 6)
+    raw = (tmp_path / "a" / "s.loaded.bedgraph").read_text().splitlines()[1:]
+    cal = (tmp_path / "a" / "s.loaded.calibrated.bedgraph").read_text().splitlines()[1:]
+    m = load_model(casino_recal).recalibration.get("loaded", "posterior")  # type: ignore[union-attr]
+    assert m is not None
+
+    def per_base(lines: list[str]) -> np.ndarray:
+        out = np.full(3000, np.nan)
+        for ln in lines:
+            _, a, b, v = ln.split("\t")
+            out[int(a) : int(b)] = float(v)
+        return out
+
+    r, c = per_base(raw), per_base(cal)
+    assert not np.isnan(r).any() and not np.isnan(c).any()
+    assert np.max(np.abs(m.apply(r) - c)) < 2e-6  # rounding to 6 digits, both sides
+    one_error(
+        ["annotate", fa, "-m", "casino", "-o", tmp_path / "b", "--calibrated-tracks"],
+        "needs a recalibrated model",
+    )
+
+
+@pytest.mark.parametrize("name", ["casino", "gene-segment"])
+def test_streaming_path_writes_the_same_calibrated_scores(
+    name: str, casino_recal: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from seqstate.commands import annotate_run
+
+    if name == "casino":
+        model = casino_recal
+        fa = tmp_path / "s.fa"
+        assert run(["sample", "casino", "--length", 30_000, "--seed", 6, "-o", fa])[0] == 0
+    else:
+        model = tmp_path / "gs-r"
+        code, lines = run(
+            ["calibrate", "gene-segment", "--length", 60_000, "--records", 2, "--seed", 4]
+            + ["--fit-into", model, "--quiet"]
+        )
+        assert code == 0, lines
+        fa = tmp_path / "s.fa"
+        assert run(["sample", "gene-segment", "--length", 60_000, "--seed", 8, "-o", fa])[0] == 0
+    _annotate(fa, model, tmp_path / "whole", "--calibrated-tracks")
+    monkeypatch.setattr(annotate_run, "long_threshold", lambda *a: 1000)
+    monkeypatch.setattr(annotate_run, "window_length", lambda *a: 8192)
+    _annotate(fa, model, tmp_path / "stream", "--calibrated-tracks")
+    for f in sorted((tmp_path / "whole").iterdir()):
+        if f.suffix in (".tsv", ".gff3", ".bedgraph") and "records" not in f.name:
+            assert f.read_text() == (tmp_path / "stream" / f.name).read_text(), f.name
+    tsv = (tmp_path / "whole" / "s.features.tsv").read_text()
+    assert "calibrated_segment_probability" in tsv.splitlines()[0]
+    if name == "gene-segment":
+        head = tsv.splitlines()[0].split("\t")
+        assert head[head.index("exon_probability") + 1] == "calibrated_exon_probability"
+        assert "calibrated_structure_probability" in head
+        assert "calibrated_exon_probability=" in (tmp_path / "whole" / "s.gff3").read_text()
+
+
+def test_html_report_shows_raw_and_calibrated_reliability(tmp_path: Path) -> None:
+    pytest.importorskip("matplotlib")
+    fa, truth = tmp_path / "s.fa", tmp_path / "s.gff3"
+    assert (
+        run(["sample", "casino", "--length", 40_000, "--seed", 3, "-o", fa, "--truth", truth])[0]
+        == 0
+    )
+    model = tmp_path / "r"
+    code, lines = run(
+        ["calibrate", "casino", "--fasta", fa, "--truth", truth, "--region", "sim1:1-20000"]
+        + ["--fit-into", model, "--fold-block", 2000, "--quiet"]
+    )
+    assert code == 0, lines
+    out = tmp_path / "a"
+    _annotate(
+        fa, model, out, "--region", "sim1:20001-40000", "--report", "r.html", "--truth", truth
+    )
+    page = (out / "r.html").read_text()
+    assert "calibrated bases" in page and "calibrated features" in page
+    assert "in-sample" not in page
+    _annotate(fa, model, tmp_path / "b", "--report", "r.html", "--truth", truth)
+    assert "in-sample" in (tmp_path / "b" / "r.html").read_text()  # marked, not refused

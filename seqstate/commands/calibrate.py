@@ -42,7 +42,9 @@ from seqstate.commands.recalibrate import (
     Collector,
     check_out_of_sample,
     fit_recalibration,
+    overlaps,
     recalibrated_model,
+    stretches_of,
     write_recalibrated,
 )
 from seqstate.commands.records import choose_stretches
@@ -161,6 +163,9 @@ class CalibrateOptions:
     fit_into: str | None = None
     folds: int = 5
     block: int = 100_000
+    #: a recalibrated model on the bases its table was fitted on: measure, and mark the
+    #: report in-sample (False: refuse)
+    in_sample: bool = False
 
 
 @dataclass
@@ -181,6 +186,9 @@ class CalibrateReport:
     #: with --fit-into: the folder written and the table's maps
     fitted_into: str | None = None
     maps: int = 0
+    #: a recalibrated model measured on bases its table was fitted on (allowed only by
+    #: :attr:`CalibrateOptions.in_sample`)
+    in_sample: bool = False
 
     def summary(self) -> str:
         """The summary line (after ``seqstate: ``)."""
@@ -211,6 +219,7 @@ class CalibrateReport:
             "bins": self.bins,
             "seed": self.seed,
             "stretch": self.stretch,
+            **({"in_sample": True} if self.in_sample else {}),
             "labels": [
                 {
                     "track": lab.track,
@@ -596,10 +605,15 @@ def reliability_figure(report: CalibrateReport) -> Any:
         ax = fig.add_subplot(grid[0, col])
         bar = fig.add_subplot(grid[1, col], sharex=ax)
         ax.plot([0, 1], [0, 1], linestyle=":", color="0.5", linewidth=1, label="ideal")
-        styles = (
+        styles: list[tuple[str, Reliability, str, str, str, float | None]] = [
             ("bases", lab.bases, "o", "-", "0.0", -width / 4),
             ("features", lab.features, "s", "--", "0.55", width / 4),
-        )
+        ]
+        if lab.calibrated_bases is not None and lab.calibrated_features is not None:
+            styles += [
+                ("calibrated bases", lab.calibrated_bases, "^", "-.", "0.25", None),
+                ("calibrated features", lab.calibrated_features, "v", ":", "0.7", None),
+            ]
         for name, rel, marker, line, colour, shift in styles:
             rows = [r for r in rel.rows() if r["count"]]
             xs = [r["mean_forecast"] for r in rows]
@@ -615,6 +629,8 @@ def reliability_figure(report: CalibrateReport) -> Any:
                 markersize=5,
                 label=f"{name} (n={rel.n:,}, ECE {shown})",
             )
+            if shift is None:  # calibrated curves: the bars stay those of the raw forecasts
+                continue
             lows = np.array([r["bin_low"] for r in rel.rows()]) + width / 2 + shift
             counts = rel.count
             bar.bar(lows, np.where(counts > 0, counts, np.nan), width=width / 2, color=colour)
@@ -628,7 +644,13 @@ def reliability_figure(report: CalibrateReport) -> Any:
         bar.set_ylabel("count")
         bar.set_xlabel("forecast probability (bin)")
     fig.suptitle(
-        f"Calibration of {report.model} ({report.source}, {report.bases:,} bases)",
+        f"Calibration of {report.model} ({report.source}, {report.bases:,} bases"
+        + (
+            ", in-sample: the recalibration table was fitted on these bases"
+            if report.in_sample
+            else ""
+        )
+        + ")",
         fontsize="medium",
     )
     return fig
@@ -780,8 +802,7 @@ def calibrate(opts: CalibrateOptions, quiet: bool = True) -> CalibrateReport:
         )
         total = sum(int(r.symbols.shape[0]) for r in recs)
         measured = measured_stretches(opts, recs)
-        if model.recalibration is not None:
-            check_out_of_sample(model, measured)
+        in_sample = _in_sample(model, measured, opts)
         labs, n_rec, n_bases = calibrate_records(model, recs, opts.bins, progress, total, collector)
         labs = [labs[k] for k in keep]
         report = CalibrateReport(model.name, "truth", n_rec, n_bases, opts.bins, None, labs)
@@ -794,11 +815,11 @@ def calibrate(opts: CalibrateOptions, quiet: bool = True) -> CalibrateReport:
         it = sampled_records(model, opts.length, opts.records, opts.seed)
         total = opts.length * opts.records
         measured = measured_stretches(opts, None)
-        if model.recalibration is not None:
-            check_out_of_sample(model, measured)
+        in_sample = _in_sample(model, measured, opts)
         labs, n_rec, n_bases = calibrate_records(model, it, opts.bins, progress, total, collector)
         report = CalibrateReport(model.name, "sampled", n_rec, n_bases, opts.bins, opts.seed, labs)
     report.out, report.figure = opts.out, opts.figure
+    report.in_sample = in_sample
     new_model = None
     if collector is not None and opts.fit_into is not None:
         new_model = fitted_model(opts, model, collector, measured)
@@ -820,6 +841,17 @@ def calibrate(opts: CalibrateOptions, quiet: bool = True) -> CalibrateReport:
         if fig is not None and opts.figure is not None:
             _save_figure(fig, outs.path(opts.figure), _suffix(opts.figure, FIGURE_FORMATS, "x"))
     return report
+
+
+def _in_sample(model: Model, measured: list[str], opts: CalibrateOptions) -> bool:
+    """Whether a recalibrated ``model`` is measured on bases its table was fitted on:
+    refused, unless ``opts.in_sample`` (then the report is marked)."""
+    if model.recalibration is None:
+        return False
+    if not opts.in_sample:
+        check_out_of_sample(model, measured)
+        return False
+    return bool(overlaps(stretches_of(model), measured))
 
 
 def fitted_model(
