@@ -24,7 +24,10 @@ fitted on forecasts of bases the forecasting model was not fitted on, and only i
    ``WORK/gene-segment-athaliana`` (with ``--ship``: ``models/gene-segment-athaliana``);
 4. ``seqstate calibrate WORK/gene-segment-athaliana --fasta G --truth A --type CDS --region
    NC_003070.9:15000001-30427671 -o WORK/measured.json``: base and feature ECE and Brier
-   per label, raw and calibrated, in one run.
+   per label, raw and calibrated, in one run;
+5. the gene-level scores on the same stretch (in process: ``exon_probability`` of each
+   decoded CDS piece, ``structure_probability`` of each decoded gene, as
+   :func:`seqstate.commands.calibrate.gene_forecasts` scores them), raw and calibrated.
 
 Steps whose output is already in ``WORK`` are not run again (delete it to start over).
 """
@@ -38,12 +41,16 @@ import shlex
 import subprocess
 import sys
 import time
+from collections.abc import Sequence
 from pathlib import Path
+
+import numpy as np
 
 REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 
 from seqstate.commands.calibrate import calibrate_records, file_records  # noqa: E402
+from seqstate.commands.calibration import Reliability  # noqa: E402
 from seqstate.commands.fit.writing import file_sha256  # noqa: E402
 from seqstate.commands.recalibrate import (  # noqa: E402
     Collector,
@@ -71,6 +78,29 @@ def run(cmd: list[str]) -> None:
     t0 = time.perf_counter()
     subprocess.run(cmd, check=True, cwd=REPO)
     print(f"  ({time.perf_counter() - t0:.0f} s)", flush=True)
+
+
+class KeepFeatures(Collector):
+    """A collector that keeps every feature forecast as it is (and skips the bases)."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.kept: dict[tuple[str, str], tuple[list[float], list[bool]]] = {}
+
+    def add_bases(self, group: str, prob: np.ndarray, outcome: np.ndarray) -> None:
+        return None
+
+    def add_features(
+        self,
+        group: str,
+        score: str,
+        starts: Sequence[int],
+        prob: Sequence[float],
+        right: Sequence[bool],
+    ) -> None:
+        got = self.kept.setdefault((group, score), ([], []))
+        got[0].extend(float(p) for p in prob)
+        got[1].extend(bool(r) for r in right)
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -160,6 +190,27 @@ def main(argv: list[str] | None = None) -> int:
             f"{f['brier']:.4f} -> {cal['features']['brier']:.4f} | {f['decoded']:,} |"
         )
     del choices
+    # 5. the gene-level scores, raw and calibrated
+    model = load_model(target)
+    keep = KeepFeatures()
+    t0 = time.perf_counter()
+    recs, _ = file_records(model, fasta, labels, types=("CDS",), region=f"{SEQID}:{TEST}")
+    calibrate_records(model, recs, 10, collector=keep)
+    print(f"\ngene-level scores on {SEQID}:{TEST} ({time.perf_counter() - t0:.0f} s)")
+    print("| group | score | forecasts | true | ECE | Brier |\n|---|---|---|---|---|---|")
+    for (group, score), (p, y) in sorted(keep.kept.items()):
+        if score not in ("exon_probability", "structure_probability"):
+            continue
+        assert model.recalibration is not None
+        m = model.recalibration.get(group, score)
+        raw, cal = Reliability(10), Reliability(10)
+        pa, ya = np.array(p), np.array(y)
+        raw.add(pa, ya)
+        cal.add(pa if m is None else m.apply(pa), ya)
+        print(
+            f"| {group} | {score} | {raw.n:,} | {int(ya.sum()):,} | "
+            f"{raw.ece():.4f} -> {cal.ece():.4f} | {raw.brier():.4f} -> {cal.brier():.4f} |"
+        )
     return 0
 
 
