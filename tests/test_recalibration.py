@@ -456,3 +456,20 @@ def test_html_report_shows_raw_and_calibrated_reliability(tmp_path: Path) -> Non
     assert "in-sample" not in page
     _annotate(fa, model, tmp_path / "b", "--report", "r.html", "--truth", truth)
     assert "in-sample" in (tmp_path / "b" / "r.html").read_text()  # marked, not refused
+
+
+def test_shipped_plant_table_is_fitted_inside_the_training_half() -> None:
+    from seqstate.commands.recalibrate import overlaps, stretches_of
+
+    m = load_model("gene-segment-athaliana")
+    assert m.recalibration is not None and len(m.recalibration.maps) == 12
+    fitted = stretches_of(m)
+    assert sorted(fitted) == ["NC_003070.9:1-7500000", "NC_003070.9:7500001-15000000"]
+    # the data rule: fitting and tuning only on positions 1-15,000,000
+    assert overlaps(fitted, ["NC_003070.9:15000001-30427671"]) == []
+    assert overlaps(fitted, ["NC_003070.9:14999000-15001000"]) != []
+    assert overlaps(fitted, ["NC_003070.9"]) != []  # a whole record holds them
+    g = np.sort(_grid())
+    for mp in m.recalibration.maps.values():
+        v = mp.apply(g)
+        assert np.all(np.diff(v) >= 0) and v.min() >= 0 and v.max() <= 1

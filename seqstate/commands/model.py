@@ -135,11 +135,15 @@ def recalibration_lines(m: Model) -> list[str]:
     ]
     w = max(len(f"{g} {s}") for g, s in recal.maps)
     at = " ".join(f"{p:g}" for p in SHOWN_AT)
-    lines.append(f"          {'map':<{w}}  kind         values at {at}")
+    lines.append(f"          {'map':<{w}}  {'kind':<20}  values at {at}")
     for (group, score), mp in recal.maps.items():
-        kind = f"T={mp.temperature:.4g}" if mp.kind == "temperature" else f"{len(mp.knots_x)} knots"
+        kind = (
+            f"temperature {mp.temperature:.4g}"
+            if mp.kind == "temperature"
+            else f"isotonic, {len(mp.knots_x)} knots"
+        )
         vals = " ".join(f"{mp.value(p):.3f}" for p in SHOWN_AT)
-        lines.append(f"          {group + ' ' + score:<{w}}  {mp.kind[:4]} {kind:<8} {vals}")
+        lines.append(f"          {group + ' ' + score:<{w}}  {kind:<20}  {vals}")
     for note in recal.notes:
         lines.append(f"          # {note}")
     return lines

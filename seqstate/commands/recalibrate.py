@@ -116,8 +116,9 @@ def fit_recalibration(
     keys = sorted(collector.bins, key=lambda k: (order[k[1]], k[0]))
     choices = {k: choose_map(collector.bins[k]) for k in keys if collector.bins[k].n > 0}
     notes = [
-        f"fitted on {collector.offset:,} bases; each map chosen between isotonic "
-        f"(pool-adjacent-violators) and temperature by the Brier score on held-out folds "
+        f"fitted on {collector.offset:,} bases; each map chosen among isotonic "
+        "(pool-adjacent-violators), temperature and the raw scores (identity) by the Brier "
+        "score on held-out folds "
         f"({collector.folds} folds of {collector.block:,}-base blocks)",
     ]
     notes += [c.note(k[0], k[1], collector.folds) for k, c in choices.items()]
