@@ -938,17 +938,16 @@ def merge_cmd(obj: dict | None, quiet: bool, **options: Any) -> None:
 @click.option(
     "--folds",
     type=int,
-    default=5,
-    show_default=True,
-    help="With --fit-into: folds of the held-out choice between the two kinds of map.",
+    default=None,
+    help="With --fit-into: folds of the held-out choice of each map.  [default: 5]",
 )
 @click.option(
     "--fold-block",
     "block",
     type=int,
-    default=100_000,
-    show_default=True,
-    help="With --fit-into: bases per block; blocks are dealt to the folds in turn.",
+    default=None,
+    help="With --fit-into: bases per block; blocks are dealt to the folds in turn.  "
+    "[default: 100000]",
 )
 @force_option
 @quiet_option
@@ -979,6 +978,12 @@ def calibrate_cmd(
                     f"--records {records_text!r}: sampling takes a number of records (record "
                     "IDs only apply with --fasta)"
                 ) from None
+    if options["fit_into"] is None:
+        given = [n for n, k in (("--folds", "folds"), ("--fold-block", "block")) if options[k]]
+        if given:
+            raise UsageError(f"{', '.join(given)} only apply to --fit-into")
+    options["folds"] = 5 if options["folds"] is None else options["folds"]
+    options["block"] = 100_000 if options["block"] is None else options["block"]
     opts = CalibrateOptions(records=count, record_ids=record_ids, types=tuple(types), **options)
     say(quiet, calibrate(opts, quiet=quiet).summary())
 

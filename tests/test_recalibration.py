@@ -473,3 +473,16 @@ def test_shipped_plant_table_is_fitted_inside_the_training_half() -> None:
     for mp in m.recalibration.maps.values():
         v = mp.apply(g)
         assert np.all(np.diff(v) >= 0) and v.min() >= 0 and v.max() <= 1
+
+
+@pytest.mark.parametrize("opt", [["--folds", 3], ["--fold-block", 1000]])
+def test_fold_options_need_fit_into(opt: list) -> None:
+    one_error(["calibrate", "casino", "--length", 1000, *opt], "only apply to --fit-into")
+
+
+@pytest.mark.parametrize(
+    "opt, must", [(["--folds", 1], "--folds 1"), (["--fold-block", 0], "--fold-block 0")]
+)
+def test_fold_options_are_checked(tmp_path: Path, opt: list, must: str) -> None:
+    one_error(["calibrate", "casino", "--length", 1000, "--fit-into", tmp_path / "x", *opt], must)
+    assert not (tmp_path / "x").exists()

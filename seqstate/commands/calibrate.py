@@ -16,6 +16,11 @@ group) and ``features`` (each decoded feature's ``segment_probability`` against
 whether every base of its run truly carries the group).  Features are decoded as
 ``annotate`` decodes them with the model's own defaults.  Coordinates: 0-based
 half-open inside.
+
+With ``--fit-into MODEL_DIR`` the run's forecasts also fit a recalibration table
+(:mod:`seqstate.commands.recalibrate`), written with the model as a new folder.  A
+recalibrated model gets the same tables for its calibrated forecasts, and is never
+measured on the stretches its table was fitted on (refused, or marked in-sample).
 """
 
 from __future__ import annotations
