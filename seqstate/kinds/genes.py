@@ -608,7 +608,11 @@ def write_genes(
             )
 
     recal = model.recalibration
-    cds_track = {strand: groups[strand_columns(groups, strand)[1]].track_name for strand in "+-"}
+    cds_track = (
+        {}
+        if recal is None
+        else {strand: groups[strand_columns(groups, strand)[1]].track_name for strand in "+-"}
+    )
 
     def score_line(ln: GeneLine, strand: str, k: int) -> dict | None:
         if post is None or tables is None or codes is None:
@@ -648,7 +652,7 @@ def write_genes(
                 id_stem=id_stem,
                 exact=exact,
                 recal=recal,
-                cds_track=cds_track[gp.strand],
+                cds_track=cds_track.get(gp.strand),
             )
     return count
 
@@ -997,7 +1001,11 @@ class _GeneStream:
         allowed = exact_allowed(rec.model)
         cols = {strand: strand_columns(rec.groups, strand) for strand in "+-"}
         recal = rec.model.recalibration
-        cds_track = {strand: rec.groups[cols[strand][1]].track_name for strand in "+-"}
+        cds_track = (
+            {}
+            if recal is None
+            else {strand: rec.groups[cols[strand][1]].track_name for strand in "+-"}
+        )
         n_groups = len(rec.groups)
         count = unknown = 0
         nxt = 0
@@ -1050,7 +1058,7 @@ class _GeneStream:
                         id_stem=rec.id_stem,
                         exact=exact,
                         recal=recal,
-                        cds_track=cds_track[genes[nxt - 1].strand],
+                        cds_track=cds_track.get(genes[nxt - 1].strand),
                     )
         if rec.on_genes is not None:
             rec.on_genes(written)
