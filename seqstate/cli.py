@@ -290,6 +290,13 @@ def model_check(model: str) -> None:
     help="Per-base posterior track format [default: bedgraph; none with -o -].",
 )
 @click.option(
+    "--calibrated-tracks",
+    is_flag=True,
+    default=False,
+    help="A recalibrated model: also write each track's calibrated posterior "
+    "(STEM.TRACK.calibrated.bedgraph or .bw).",
+)
+@click.option(
     "--stem",
     default=None,
     callback=not_empty,
@@ -920,6 +927,28 @@ def merge_cmd(obj: dict | None, quiet: bool, **options: Any) -> None:
     callback=not_empty,
     help="Reliability diagram, .png, .svg or .pdf (needs matplotlib).",
 )
+@click.option(
+    "--fit-into",
+    default=None,
+    callback=not_empty,
+    metavar="MODEL_DIR",
+    help="Also fit a recalibration table on these forecasts (isotonic or temperature per "
+    "score, chosen on held-out folds) and write MODEL with it as a new model folder.",
+)
+@click.option(
+    "--folds",
+    type=int,
+    default=None,
+    help="With --fit-into: folds of the held-out choice of each map.  [default: 5]",
+)
+@click.option(
+    "--fold-block",
+    "block",
+    type=int,
+    default=None,
+    help="With --fit-into: bases per block; blocks are dealt to the folds in turn.  "
+    "[default: 100000]",
+)
 @force_option
 @quiet_option
 def calibrate_cmd(
@@ -949,6 +978,12 @@ def calibrate_cmd(
                     f"--records {records_text!r}: sampling takes a number of records (record "
                     "IDs only apply with --fasta)"
                 ) from None
+    if options["fit_into"] is None:
+        given = [n for n, k in (("--folds", "folds"), ("--fold-block", "block")) if options[k]]
+        if given:
+            raise UsageError(f"{', '.join(given)} only apply to --fit-into")
+    options["folds"] = 5 if options["folds"] is None else options["folds"]
+    options["block"] = 100_000 if options["block"] is None else options["block"]
     opts = CalibrateOptions(records=count, record_ids=record_ids, types=tuple(types), **options)
     say(quiet, calibrate(opts, quiet=quiet).summary())
 

@@ -46,6 +46,7 @@ from seqstate.io.tsvtext import tsv_row
 from seqstate.kinds import Group, group_index, kind_of, track_groups
 from seqstate.log import Progress, QuietProgress
 from seqstate.model import Model, resolve_thresholds
+from seqstate.model.recalibration import Map
 
 #: Version 2: ``totals``, the records table (``records_table``, every record) and
 #: ``records`` / ``skipped_records`` cut to the first ``records_limit`` entries.
@@ -113,6 +114,9 @@ class AnnotateOptions:
     #: None: the defaults (:data:`DEFAULT_MIN_CDS_LENGTH`, 0)
     min_cds_length: int | None = None
     min_gene_posterior: float | None = None
+    #: a recalibrated model: also write each track's calibrated posterior
+    #: (``STEM.TRACK.calibrated.bedgraph`` / ``.bw``, in --tracks' format)
+    calibrated_tracks: bool = False
 
 
 @dataclass
@@ -273,16 +277,48 @@ def check_stem(stem: str) -> str:
 
 
 def output_names(
-    stem: str, groups: list[Group], want_bedgraph: bool, want_bigwig: bool
+    stem: str,
+    groups: list[Group],
+    want_bedgraph: bool,
+    want_bigwig: bool,
+    calibrated: Sequence[int] = (),
 ) -> list[str]:
-    """Every file name an annotate run writes into its output folder, in writing order."""
+    """Every file name an annotate run writes into its output folder, in writing order;
+    ``calibrated``: the groups whose calibrated posterior is also written."""
     names = [f"{stem}.gff3", f"{stem}.features.tsv", f"{stem}{TABLE_SUFFIX}"]
     for grp in groups:
         if want_bedgraph:
             names.append(f"{stem}.{grp.track_name}.bedgraph")
         if want_bigwig:
             names.append(f"{stem}.{grp.track_name}.bw")
+    for g in calibrated:
+        if want_bedgraph:
+            names.append(f"{stem}.{groups[g].track_name}{CALIBRATED_TRACK}.bedgraph")
+        if want_bigwig:
+            names.append(f"{stem}.{groups[g].track_name}{CALIBRATED_TRACK}.bw")
     return names + [f"{stem}.run.json"]
+
+
+#: Part of a calibrated track's file name after the track name.
+CALIBRATED_TRACK = ".calibrated"
+
+
+def calibrated_groups(opts: AnnotateOptions, model: Model, groups: list[Group]) -> list[int]:
+    """The groups whose calibrated posterior ``--calibrated-tracks`` writes (those the
+    model's recalibration table has a ``posterior`` map for); checks the option."""
+    if not opts.calibrated_tracks:
+        return []
+    recal = model.recalibration
+    if recal is None:
+        raise UsageError(
+            f"--calibrated-tracks needs a recalibrated model; model '{model.name}' has no "
+            "recalibration table (calibrate --fit-into writes one)"
+        )
+    if opts.tracks == "none" or opts.out_dir == STDOUT:
+        raise UsageError(
+            "--calibrated-tracks writes tracks: give --tracks bedgraph, bigwig or both"
+        )
+    return [g for g, grp in enumerate(groups) if recal.get(grp.track_name, "posterior")]
 
 
 def annotate(
@@ -382,8 +418,9 @@ def annotate(
     extras = [n for n in (opts.cds, opts.proteins, opts.report) if n is not None]
     if len(set(extras)) < len(extras):
         raise UsageError("--cds, --proteins and --report must name different files")
+    cal_groups = calibrated_groups(opts, model, groups)
     if not to_stdout:
-        names = output_names(stem, groups, want_bedgraph, want_bigwig)
+        names = output_names(stem, groups, want_bedgraph, want_bigwig, cal_groups)
         names += [n for n in (opts.cds, opts.proteins, opts.report) if n is not None]
         reads = read_set(
             fasta=opts.input, model=opts.model, files=[opts.truth], records=opts.records
@@ -394,7 +431,7 @@ def annotate(
     options = {
         k: list(v) if isinstance(v, tuple) else v  # as JSON reads it back
         for k, v in asdict(given).items()
-        if k not in ("command_line", "jobs")
+        if k not in ("command_line", "jobs") and not (k == "calibrated_tracks" and not v)
     }
     options["decode"] = decode
     options["cds"], options["proteins"] = opts.cds, opts.proteins  # the names written
@@ -441,6 +478,7 @@ def annotate(
         want_proteins=opts.proteins is not None,
         translation_table=opts.translation_table,
         gene_filter=gene_filter,
+        calibrated=[(g, recal_map(model, groups[g].track_name)) for g in cal_groups],
     )
     try:
         _write(opts, model, runner, report, stem, region_item, skipped, long_above, stdout)
@@ -720,7 +758,7 @@ def _write_set(
             names.append(table_name)
         if opts.report is not None:
             tsv = cast(TextIO, _Tee(tsv))
-        tsv.write(tsv_row(runner.kind.feature_columns(groups)))
+        tsv.write(tsv_row(runner.kind.feature_columns(groups, model.recalibration is not None)))
         bedgraphs = []
         handles = []
         bigwig_paths = []
@@ -735,6 +773,23 @@ def _write_set(
                 bedgraphs.append(tracks.BedGraphTrack(handle, grp.track_name, desc, opts.precision))
             if runner.want_bigwig:
                 name = f"{stem}.{grp.track_name}.bw"
+                names.append(name)
+                bigwig_paths.append(outs.path(name))
+        for g, _ in runner.calibrated:
+            grp = groups[g]
+            desc = f"calibrated posterior of {grp.label}" + (
+                f" ({grp.strand} strand)" if grp.strand else ""
+            )
+            desc += f" under model {model.name} (its recalibration table)"
+            track = f"{grp.track_name}{CALIBRATED_TRACK}"
+            if runner.want_bedgraph:
+                name = f"{stem}.{track}.bedgraph"
+                names.append(name)
+                handle = outs.open_text(name)
+                handles.append(handle)
+                bedgraphs.append(tracks.BedGraphTrack(handle, track, desc, opts.precision))
+            if runner.want_bigwig:
+                name = f"{stem}.{track}.bw"
                 names.append(name)
                 bigwig_paths.append(outs.path(name))
         writer = OutputWriter(
@@ -875,6 +930,7 @@ def _write_html(
                 types=tuple(opts.truth_types),
                 region=opts.region,
                 record_ids=opts.records,
+                in_sample=True,  # the page marks it in-sample rather than failing late
             )
         )
         truth = display_name(opts.truth)
@@ -934,3 +990,11 @@ def _truth_accuracy(gff: str, truth: str, region: str | None, rows: list) -> dic
         return compare_files(gff, truth, ftype, region)
     except SeqstateError as exc:
         return {"error": f"no accuracy: {exc}".replace(gff, "this run's GFF3")}
+
+
+def recal_map(model: Model, track: str) -> Map:
+    """The posterior map of ``track`` in ``model``'s recalibration table."""
+    assert model.recalibration is not None
+    m = model.recalibration.get(track, "posterior")
+    assert m is not None
+    return m

@@ -234,6 +234,9 @@ class Runner:
     translation_table: int = 1
     #: gene models: which decoded genes are written (:class:`seqstate.kinds.genes.GeneFilter`)
     gene_filter: Any = None
+    #: --calibrated-tracks: (group, its posterior map) per calibrated track, written after
+    #: the raw tracks (track index ``len(groups) + i``)
+    calibrated: list[tuple[int, Any]] = field(default_factory=list)
 
     def _gene_writer(
         self, item: Item, read: Callable[[int, int], bytes], cds: Any, prot: Any
@@ -325,8 +328,9 @@ class Runner:
             (item.start0 + a, item.start0 + b)
             for a, b in track_spans(lambda a, b: sym[a:b], n, 0, n, self.split_unknown)
         ]
-        for g in range(len(groups)):
-            values = post.values[:, g]
+        columns = [post.values[:, g] for g in range(len(groups))]
+        columns += [m.apply(post.values[:, g]).astype(np.float32) for g, m in self.calibrated]
+        for values in columns:
             if self.want_bedgraph:
                 out.bedgraph.append(
                     bedgraph_text(item.id, values, item.start0, self.precision, spans)
@@ -394,9 +398,12 @@ class Runner:
                 b = a - start0 + key[1]
                 piece_spans[key] = track_spans(read_symbols, n, a - start0, b, self.split_unknown)
             for s0, e0 in piece_spans[key]:
-                writer.track_piece(
-                    g, item.id, start0 + s0, values[s0 - (a - start0) : e0 - (a - start0)]
-                )
+                piece = values[s0 - (a - start0) : e0 - (a - start0)]
+                writer.track_piece(g, item.id, start0 + s0, piece)
+                for i, (cg, m) in enumerate(self.calibrated):
+                    if cg == g:
+                        cal = m.apply(piece).astype(np.float32)
+                        writer.track_piece(len(self.groups) + i, item.id, start0 + s0, cal)
             if g == 0:
                 self.progress.advance(int(values.shape[0]), item.id)
                 _stop_check()  # a stop signal swallowed on the way still ends a long record

@@ -16,6 +16,11 @@ group) and ``features`` (each decoded feature's ``segment_probability`` against
 whether every base of its run truly carries the group).  Features are decoded as
 ``annotate`` decodes them with the model's own defaults.  Coordinates: 0-based
 half-open inside.
+
+With ``--fit-into MODEL_DIR`` the run's forecasts also fit a recalibration table
+(:mod:`seqstate.commands.recalibrate`), written with the model as a new folder.  A
+recalibrated model gets the same tables for its calibrated forecasts, and is never
+measured on the stretches its table was fitted on (refused, or marked in-sample).
 """
 
 from __future__ import annotations
@@ -38,6 +43,15 @@ from seqstate.commands.inputs import (
     read_model_region,
     read_set,
 )
+from seqstate.commands.recalibrate import (
+    Collector,
+    check_out_of_sample,
+    fit_recalibration,
+    overlaps,
+    recalibrated_model,
+    stretches_of,
+    write_recalibrated,
+)
 from seqstate.commands.records import choose_stretches
 from seqstate.commands.truth import TruthSet, read_truth
 from seqstate.engine import api
@@ -46,7 +60,7 @@ from seqstate.errors import FeatureFormatError, UsageError
 from seqstate.io.atomic import OutputSet, check_outputs
 from seqstate.io.tables import load_model
 from seqstate.io.tsvtext import tsv_row
-from seqstate.kinds import Group, group_index, track_groups
+from seqstate.kinds import GENES, Group, group_index, track_groups
 from seqstate.kinds.segments import decode_segments
 from seqstate.model import Model
 from seqstate.model.core import default_thresholds
@@ -125,6 +139,9 @@ class LabelCalibration:
     #: decoded features, and those whose whole run is truly the group
     n_features: int = 0
     n_correct: int = 0
+    #: with a recalibrated model: the same tables for the calibrated forecasts
+    calibrated_bases: Reliability | None = None
+    calibrated_features: Reliability | None = None
 
 
 @dataclass
@@ -147,6 +164,13 @@ class CalibrateOptions:
     #: with --fasta: one stretch (``ID:START-END``, 1-based inclusive) or these records
     region: str | None = None
     record_ids: list[str] | None = None
+    #: fit a recalibration table and write MODEL with it into this folder
+    fit_into: str | None = None
+    folds: int = 5
+    block: int = 100_000
+    #: a recalibrated model on the bases its table was fitted on: measure, and mark the
+    #: report in-sample (False: refuse)
+    in_sample: bool = False
 
 
 @dataclass
@@ -164,14 +188,27 @@ class CalibrateReport:
     figure: str | None = None
     #: with a truth file: the stretches calibrated on (1-based inclusive) or None (all)
     stretch: str | None = None
+    #: with --fit-into: the folder written and the table's maps
+    fitted_into: str | None = None
+    maps: int = 0
+    #: a recalibrated model measured on bases its table was fitted on (allowed only by
+    #: :attr:`CalibrateOptions.in_sample`)
+    in_sample: bool = False
 
     def summary(self) -> str:
         """The summary line (after ``seqstate: ``)."""
         parts = []
         for lab in self.labels:
             ece = lab.bases.ece()
-            parts.append(f"{lab.track} ECE {'NA' if ece is None else f'{ece:.4f}'}")
-        dest = ", ".join(p for p in (self.out, self.figure) if p) or "no file"
+            part = f"{lab.track} ECE {'NA' if ece is None else f'{ece:.4f}'}"
+            if lab.calibrated_bases is not None:
+                cal = lab.calibrated_bases.ece()
+                part += f" (calibrated {'NA' if cal is None else f'{cal:.4f}'})"
+            parts.append(part)
+        files = [self.out, self.figure]
+        if self.fitted_into:
+            files.append(f"{self.fitted_into}/ ({self.maps} recalibration maps)")
+        dest = ", ".join(p for p in files if p) or "no file"
         return (
             f"{self.records} {self.source} record(s), {self.bases} bases, "
             f"{'; '.join(parts) or 'no label'} -> {dest}"
@@ -187,6 +224,7 @@ class CalibrateReport:
             "bins": self.bins,
             "seed": self.seed,
             "stretch": self.stretch,
+            **({"in_sample": True} if self.in_sample else {}),
             "labels": [
                 {
                     "track": lab.track,
@@ -198,6 +236,16 @@ class CalibrateReport:
                         "whole_run_correct": lab.n_correct,
                         **lab.features.summary(),
                     },
+                    **(
+                        {
+                            "calibrated": {
+                                "bases": lab.calibrated_bases.summary(),
+                                "features": lab.calibrated_features.summary(),
+                            }
+                        }
+                        if lab.calibrated_bases is not None and lab.calibrated_features is not None
+                        else {}
+                    ),
                 }
                 for lab in self.labels
             ],
@@ -329,11 +377,14 @@ def calibrate_records(
     bins: int,
     progress: log.Progress | None = None,
     total_bases: int = 0,
+    collector: Collector | None = None,
 ) -> tuple[list[LabelCalibration], int, int]:
     """Decode every record with ``model`` and fill one pair of tables per track group.
 
     Returns (tables, records, bases).  Records are handled one at a time, so memory is
-    that of the longest record.
+    that of the longest record.  With a recalibrated model each group also gets the
+    tables of its calibrated forecasts; ``collector`` gathers the forecasts a
+    recalibration table is fitted on (:mod:`seqstate.commands.recalibrate`).
     """
     tables = api.prepare(model)
     groups = track_groups(model)
@@ -350,6 +401,11 @@ def calibrate_records(
         )
         for grp in groups
     ]
+    recal = model.recalibration
+    if recal is not None:
+        for lab in out:
+            lab.calibrated_bases, lab.calibrated_features = Reliability(bins), Reliability(bins)
+    gene_scores = GENES.claims(model) and (collector is not None or recal is not None)
     progress = progress or log.QuietProgress()
     progress.start(total_bases)
     n_rec = n_bases = 0
@@ -371,25 +427,112 @@ def calibrate_records(
         )
         for k, lab in enumerate(out):
             lab.bases.add(post.values[:, k], rec.carries(k))
+            if collector is not None:
+                collector.add_bases(lab.track, post.values[:, k], rec.carries(k))
+            m = None if recal is None else recal.get(lab.track, "posterior")
+            if lab.calibrated_bases is not None:
+                col = post.values[:, k]
+                lab.calibrated_bases.add(col if m is None else m.apply(col), rec.carries(k))
         probs: list[list[float]] = [[] for _ in groups]
         right: list[list[bool]] = [[] for _ in groups]
+        starts: list[list[int]] = [[] for _ in groups]
         for seg in segs:
             lp = api.segment_log_probability(
                 tables, codes, post, seg.start0, seg.end0, masks[seg.group]
             )
             probs[seg.group].append(math.exp(lp) if lp > -math.inf else 0.0)
             right[seg.group].append(bool(rec.carries(seg.group, seg.start0, seg.end0).all()))
+            starts[seg.group].append(seg.start0)
         for k, lab in enumerate(out):
             if probs[k]:
                 lab.features.add(np.array(probs[k]), np.array(right[k]))
                 lab.n_features += len(probs[k])
                 lab.n_correct += int(sum(right[k]))
+                if collector is not None:
+                    collector.add_features(
+                        lab.track, "segment_probability", starts[k], probs[k], right[k]
+                    )
+                if lab.calibrated_features is not None:
+                    m = None if recal is None else recal.get(lab.track, "segment_probability")
+                    p = np.array(probs[k])
+                    lab.calibrated_features.add(p if m is None else m.apply(p), np.array(right[k]))
+        if gene_scores and collector is not None:
+            for key, (st, pr, ok) in gene_forecasts(
+                model, tables, codes, post, rec, groups
+            ).items():
+                collector.add_features(key[0], key[1], st, pr, ok)
+        if collector is not None:
+            collector.next_record(int(rec.symbols.shape[0]))
         n_rec += 1
         n_bases += int(rec.symbols.shape[0])
         progress.advance(int(rec.symbols.shape[0]), rec.id)
         del post, codes
     progress.finish()
     return out, n_rec, n_bases
+
+
+def gene_forecasts(
+    model: Model,
+    tables: api.EngineTables,
+    codes: np.ndarray,
+    post: api.Posterior,
+    rec: TruthRecord,
+    groups: list[Group],
+) -> dict[tuple[str, str], tuple[list[int], list[float], list[bool]]]:
+    """A gene model's exact forecasts on one record, as annotate scores its genes, with
+    their outcomes against the truth (:mod:`seqstate.commands.recalibrate`): per
+    (``CDS.plus``, ``exon_probability``) one entry per decoded CDS piece, per
+    (``mRNA.plus``, ``structure_probability``) one per decoded gene; (first bases,
+    forecasts, outcomes)."""
+    from seqstate.kinds.genes import (
+        decode_genes,
+        exact_allowed,
+        exact_scorer,
+        gene_lines,
+        strand_columns,
+    )
+
+    n = int(rec.symbols.shape[0])
+    genes = decode_genes(model, tables, codes, rec.symbols < 0, model.decode, 10, rec.id)
+    exact = exact_scorer(tables, codes, post, exact_allowed(model), n)
+    names = {g: grp.track_name for g, grp in enumerate(groups)}
+    out: dict[tuple[str, str], tuple[list[int], list[float], list[bool]]] = {}
+
+    def mark(k: int, a: int, b: int) -> np.ndarray:
+        return rec.carries(k, a, b)
+
+    for gp in genes:
+        gene_cols, cds = strand_columns(groups, gp.strand)
+        intron = next((c for c in gene_cols if c != cds), None)
+        word = "plus" if gp.strand == "+" else "minus"
+        for ln in gene_lines(gp, rec.id, 1):
+            if ln.type not in ("mRNA", "CDS"):
+                continue
+            p = exact(ln, gp)
+            if p is None:
+                continue
+            a, b = ln.start0, ln.end0
+            edge_ok = (a == 0 or not mark(cds, a - 1, a).any()) and (
+                b >= n or not mark(cds, b, b + 1).any()
+            )
+            if ln.type == "CDS":
+                ok = bool(mark(cds, a, b).all()) and edge_ok
+                key = (names[cds], "exon_probability")
+            else:
+                inside = np.zeros(b - a, dtype=np.bool_)
+                for p0, p1 in gp.pieces:
+                    inside[p0 - a : p1 - a] = True
+                ok = bool(np.array_equal(mark(cds, a, b), inside)) and edge_ok
+                if intron is not None:
+                    ok = ok and bool(np.array_equal(mark(intron, a, b), ~inside))
+                    ok = ok and (a == 0 or not mark(intron, a - 1, a).any())
+                    ok = ok and (b >= n or not mark(intron, b, b + 1).any())
+                key = (f"mRNA.{word}", "structure_probability")
+            got = out.setdefault(key, ([], [], []))
+            got[0].append(a)
+            got[1].append(float(p))
+            got[2].append(ok)
+    return out
 
 
 # ---------------------------------------------------------------- writing
@@ -405,7 +548,13 @@ def write_tsv(handle: io.TextIOBase | Any, report: CalibrateReport) -> None:
     """The TSV report: per table its bins (empty cells for an empty bin), then an ``all`` row."""
     handle.write(tsv_row(TSV_COLUMNS))
     for lab in report.labels:
-        for name, rel in (("bases", lab.bases), ("features", lab.features)):
+        tables: list[tuple[str, Reliability]] = [("bases", lab.bases), ("features", lab.features)]
+        if lab.calibrated_bases is not None and lab.calibrated_features is not None:
+            tables += [
+                ("calibrated_bases", lab.calibrated_bases),
+                ("calibrated_features", lab.calibrated_features),
+            ]
+        for name, rel in tables:
             for row in rel.rows():
                 cells = [
                     lab.track,
@@ -461,10 +610,15 @@ def reliability_figure(report: CalibrateReport) -> Any:
         ax = fig.add_subplot(grid[0, col])
         bar = fig.add_subplot(grid[1, col], sharex=ax)
         ax.plot([0, 1], [0, 1], linestyle=":", color="0.5", linewidth=1, label="ideal")
-        styles = (
+        styles: list[tuple[str, Reliability, str, str, str, float | None]] = [
             ("bases", lab.bases, "o", "-", "0.0", -width / 4),
             ("features", lab.features, "s", "--", "0.55", width / 4),
-        )
+        ]
+        if lab.calibrated_bases is not None and lab.calibrated_features is not None:
+            styles += [
+                ("calibrated bases", lab.calibrated_bases, "^", "-.", "0.25", None),
+                ("calibrated features", lab.calibrated_features, "v", ":", "0.7", None),
+            ]
         for name, rel, marker, line, colour, shift in styles:
             rows = [r for r in rel.rows() if r["count"]]
             xs = [r["mean_forecast"] for r in rows]
@@ -480,6 +634,8 @@ def reliability_figure(report: CalibrateReport) -> Any:
                 markersize=5,
                 label=f"{name} (n={rel.n:,}, ECE {shown})",
             )
+            if shift is None:  # calibrated curves: the bars stay those of the raw forecasts
+                continue
             lows = np.array([r["bin_low"] for r in rel.rows()]) + width / 2 + shift
             counts = rel.count
             bar.bar(lows, np.where(counts > 0, counts, np.nan), width=width / 2, color=colour)
@@ -493,7 +649,13 @@ def reliability_figure(report: CalibrateReport) -> Any:
         bar.set_ylabel("count")
         bar.set_xlabel("forecast probability (bin)")
     fig.suptitle(
-        f"Calibration of {report.model} ({report.source}, {report.bases:,} bases)",
+        f"Calibration of {report.model} ({report.source}, {report.bases:,} bases"
+        + (
+            ", in-sample: the recalibration table was fitted on these bases"
+            if report.in_sample
+            else ""
+        )
+        + ")",
         fontsize="medium",
     )
     return fig
@@ -593,8 +755,22 @@ def _check(opts: CalibrateOptions) -> None:
         _suffix(opts.out, REPORT_FORMATS, "report")
     if opts.figure is not None:
         _suffix(opts.figure, FIGURE_FORMATS, "figure")
-    if "-" in (opts.out, opts.figure):
+    if "-" in (opts.out, opts.figure, opts.fit_into):
         raise UsageError("calibrate writes files: '-' (standard output) is not accepted")
+    if not 2 <= opts.folds <= 100:
+        raise UsageError(f"--folds {opts.folds} must be between 2 and 100")
+    if opts.block < 1:
+        raise UsageError(f"--fold-block {opts.block} must be at least 1 base")
+
+
+def measured_stretches(opts: CalibrateOptions, recs: Sequence[TruthRecord] | None) -> list[str]:
+    """The stretches a run measures (or fits on): ``ID:START-END`` / record IDs, or the
+    sampled records' description (``sampled:seed=S,records=N,length=L``)."""
+    if recs is None:
+        return [f"sampled:seed={opts.seed},records={opts.records},length={opts.length}"]
+    if opts.region is not None:
+        return [opts.region.strip()]
+    return [r.id for r in recs]
 
 
 def calibrate(opts: CalibrateOptions, quiet: bool = True) -> CalibrateReport:
@@ -604,11 +780,21 @@ def calibrate(opts: CalibrateOptions, quiet: bool = True) -> CalibrateReport:
         fasta=opts.fasta, model=opts.model, files=[opts.truth], records=opts.record_ids
     )
     check_outputs([opts.out, opts.figure], inputs, force=opts.force)
+    if opts.fit_into is not None:
+        from seqstate.commands.fit.writing import check_model_folder
+
+        check_model_folder(Path(opts.fit_into), opts.force, inputs)
     if opts.figure is not None:
         from seqstate.commands.plot import require_matplotlib
 
         require_matplotlib()
     model = load_model(opts.model)
+    collector = Collector(opts.folds, opts.block) if opts.fit_into is not None else None
+    if collector is not None and model.recalibration is not None:
+        # forecasts are the raw scores: the old table is replaced, never stacked
+        import dataclasses
+
+        model = dataclasses.replace(model, recalibration=None)
     progress = log.progress_for(quiet, "calibrate")
     if opts.fasta is not None and opts.truth is not None:
         recs, keep = file_records(
@@ -620,7 +806,9 @@ def calibrate(opts: CalibrateOptions, quiet: bool = True) -> CalibrateReport:
             record_ids=opts.record_ids,
         )
         total = sum(int(r.symbols.shape[0]) for r in recs)
-        labs, n_rec, n_bases = calibrate_records(model, recs, opts.bins, progress, total)
+        measured = measured_stretches(opts, recs)
+        in_sample = _in_sample(model, measured, opts)
+        labs, n_rec, n_bases = calibrate_records(model, recs, opts.bins, progress, total, collector)
         labs = [labs[k] for k in keep]
         report = CalibrateReport(model.name, "truth", n_rec, n_bases, opts.bins, None, labs)
         if opts.region is not None:
@@ -631,12 +819,23 @@ def calibrate(opts: CalibrateOptions, quiet: bool = True) -> CalibrateReport:
         assert opts.length is not None and opts.records is not None and opts.seed is not None
         it = sampled_records(model, opts.length, opts.records, opts.seed)
         total = opts.length * opts.records
-        labs, n_rec, n_bases = calibrate_records(model, it, opts.bins, progress, total)
+        measured = measured_stretches(opts, None)
+        in_sample = _in_sample(model, measured, opts)
+        labs, n_rec, n_bases = calibrate_records(model, it, opts.bins, progress, total, collector)
         report = CalibrateReport(model.name, "sampled", n_rec, n_bases, opts.bins, opts.seed, labs)
     report.out, report.figure = opts.out, opts.figure
+    report.in_sample = in_sample
+    new_model = None
+    if collector is not None and opts.fit_into is not None:
+        new_model = fitted_model(opts, model, collector, measured)
+        report.fitted_into, report.maps = opts.fit_into, len(new_model.recalibration.maps)  # type: ignore[union-attr]
     if opts.out is None and opts.figure is None:
+        if new_model is not None and opts.fit_into is not None:
+            write_recalibrated(new_model, opts.fit_into, opts.force, inputs)
         return report
     fig = reliability_figure(report) if opts.figure is not None else None
+    if new_model is not None and opts.fit_into is not None:
+        write_recalibrated(new_model, opts.fit_into, opts.force, inputs)
     with OutputSet(force=opts.force, inputs=inputs) as outs:
         if opts.out is not None:
             handle = outs.open_text(opts.out)
@@ -647,3 +846,46 @@ def calibrate(opts: CalibrateOptions, quiet: bool = True) -> CalibrateReport:
         if fig is not None and opts.figure is not None:
             _save_figure(fig, outs.path(opts.figure), _suffix(opts.figure, FIGURE_FORMATS, "x"))
     return report
+
+
+def _in_sample(model: Model, measured: list[str], opts: CalibrateOptions) -> bool:
+    """Whether a recalibrated ``model`` is measured on bases its table was fitted on:
+    refused, unless ``opts.in_sample`` (then the report is marked)."""
+    if model.recalibration is None:
+        return False
+    if not opts.in_sample:
+        check_out_of_sample(model, measured)
+        return False
+    return bool(overlaps(stretches_of(model), measured))
+
+
+def fitted_model(
+    opts: CalibrateOptions, model: Model, collector: Collector, measured: list[str]
+) -> Model:
+    """``model`` with a recalibration table fitted on ``collector``'s forecasts, named
+    after the ``--fit-into`` folder; its ``[recalibration]`` table names the truth and
+    FASTA (with their SHA-256) and the stretches fitted on."""
+    import dataclasses
+
+    from seqstate.commands.fit.writing import file_sha256
+    from seqstate.io.tables import model_sha256
+
+    recal, _ = fit_recalibration(collector)
+    assert opts.fit_into is not None
+    meta: dict[str, Any] = {"forecasts_of": model.name, "forecasts_sha256": model_sha256(model)}
+    if opts.truth is not None and opts.fasta is not None:
+        meta.update(
+            {
+                "truth": str(opts.truth),
+                "truth_sha256": file_sha256(opts.truth),
+                "fasta": str(opts.fasta),
+                "fasta_sha256": file_sha256(opts.fasta),
+            }
+        )
+        if opts.types:
+            meta["types"] = list(opts.types)
+    else:
+        meta["truth"] = "the model's own samples (sampled paths)"
+    meta.update({"stretches": measured, "folds": opts.folds, "fold_block": opts.block})
+    name = Path(opts.fit_into).name or model.name
+    return recalibrated_model(dataclasses.replace(model, name=name), recal, meta)

@@ -159,14 +159,19 @@ def model_inputs(spec: str | os.PathLike) -> list[Path]:
     unknown one raises :class:`~seqstate.errors.UsageError` as the model loader does.
     The tables are those the manifest's ``[tables]`` names (every key, the optional
     ``end`` and ``mask`` too), relative to its folder, and the default file name of
-    each table it does not name; when the manifest cannot be parsed, every default
-    name (:data:`~seqstate.io.manifest.TABLE_FILES`).
+    each table it does not name (but ``recalibration``, read only when named); when
+    the manifest cannot be parsed, every default name
+    (:data:`~seqstate.io.manifest.TABLE_FILES`).
     """
     from seqstate.io.tables import TABLE_FILES, resolve_model_path
 
     manifest = resolve_model_path(spec)
     named = _named_tables(manifest)
-    names = {**TABLE_FILES, **(named or {})}
+    if named is None:
+        names = dict(TABLE_FILES)
+    else:  # the recalibration table is read only when [tables] names it
+        defaults = {k: v for k, v in TABLE_FILES.items() if k != "recalibration"}
+        names = {**defaults, **named}
     tables = [manifest.parent / rel for rel in dict.fromkeys(names.values())]
     return [manifest, *tables]
 

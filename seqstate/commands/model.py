@@ -73,6 +73,8 @@ def summary(m: Model, path: str, sha: str) -> str:
             "mask      P(base soft-masked | state) given per state (used by --masked evidence)"
             + ("" if m.mask.ndim == 1 else "; a chain: also after a masked and an unmasked base")
         )
+    if m.recalibration is not None:
+        lines.extend(recalibration_lines(m))
     lines.append(f"sha256    {sha}")
     lines.append("")
     stay = m.expected_stay()
@@ -109,3 +111,39 @@ def summary(m: Model, path: str, sha: str) -> str:
         for key, value in m.provenance.items():
             lines.append(f"  {key}: {value}")
     return "\n".join(lines)
+
+
+#: Forecasts at which ``model check`` shows each map.
+SHOWN_AT = (0.05, 0.25, 0.5, 0.75, 0.9, 0.99)
+
+
+def recalibration_lines(m: Model) -> list[str]:
+    """The ``recalibration`` lines of a model summary: where the table was fitted, and
+    per map its kind and its values at :data:`SHOWN_AT`."""
+    from seqstate.io.manifest import TABLE_FILES
+
+    recal = m.recalibration
+    assert recal is not None
+    meta = m.extra.get("recalibration", {})
+    meta = meta if isinstance(meta, dict) else {}
+    stretches = meta.get("stretches", [])
+    where = ", ".join(str(s) for s in stretches) if isinstance(stretches, list) else "?"
+    lines = [
+        f"recalib.  {TABLE_FILES['recalibration']}: {len(recal.maps)} maps, fitted on {where} "
+        f"against {meta.get('truth', '?')} (sha256 {meta.get('truth_sha256', '-')}); "
+        "annotate writes calibrated_ scores beside the raw ones"
+    ]
+    w = max(len(f"{g} {s}") for g, s in recal.maps)
+    at = " ".join(f"{p:g}" for p in SHOWN_AT)
+    lines.append(f"          {'map':<{w}}  {'kind':<20}  values at {at}")
+    for (group, score), mp in recal.maps.items():
+        kind = (
+            f"temperature {mp.temperature:.4g}"
+            if mp.kind == "temperature"
+            else f"isotonic, {len(mp.knots_x)} knots"
+        )
+        vals = " ".join(f"{mp.value(p):.3f}" for p in SHOWN_AT)
+        lines.append(f"          {group + ' ' + score:<{w}}  {kind:<20}  {vals}")
+    for note in recal.notes:
+        lines.append(f"          # {note}")
+    return lines

@@ -550,12 +550,17 @@ def _calibration_section(calibration: Any, truth_name: str | None) -> str:
     )
     rows = []
     for lab in data.get("labels", []):
-        for name in ("bases", "features"):
-            part = lab.get(name, {})
+        parts = [(name, lab.get(name, {})) for name in ("bases", "features")]
+        cal = lab.get("calibrated")
+        if isinstance(cal, dict):  # a recalibrated model: its calibrated forecasts too
+            parts += [(f"calibrated {name}", cal.get(name, {})) for name in ("bases", "features")]
+        for name, part in parts:
             cells = [lab.get("track"), name, part.get("forecasts"), part.get("ece")]
             cells += [part.get("brier"), part.get("max_gap")]
             rows.append(f"<tr>{_cells(cells, 2, 'NA')}</tr>")
     src = truth_name or data.get("source", "")
+    if data.get("in_sample"):
+        src += " (in-sample: the model's recalibration table was fitted on these bases)"
     return (
         "<section id='calibration'><h2>Calibration</h2>"
         f"<p class='note'>Truth: <span id='truth-name'>{_e(src)}</span>; "

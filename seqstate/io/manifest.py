@@ -60,6 +60,7 @@ TABLE_FILES = {
     "emissions": "emissions.tsv",
     "end": "end.tsv",
     "mask": "mask.tsv",
+    "recalibration": "recalibration.tsv",
 }
 #: Largest manifest read (16 MiB): a model.toml is a few kilobytes; a bigger file given
 #: as a manifest by mistake (a genome, say) is refused before it is read.
@@ -360,6 +361,17 @@ def load_manifest(manifest: Path) -> Model:
     emissions, lower = read_emissions(emis_path, names, alphabet, order, strict)
     mask_path = table_path("mask", False)
     mask = read_mask(mask_path, names) if mask_path is not None else None
+    recalibration = None
+    if "recalibration" in tables:  # read only when the manifest names it
+        from seqstate.io.recal_table import group_names, read_recalibration
+
+        gene_model = (
+            isinstance(doc.get("annotate"), dict)
+            and doc["annotate"].get("features") == "gene_structure"
+        )
+        recalibration = read_recalibration(
+            required_path("recalibration"), group_names(tuple(states), gene_model)
+        )
     provenance = doc.get("provenance", {})
     if not isinstance(provenance, dict):
         raise ModelFormatError("[provenance] must be a table of key = value lines", path=manifest)
@@ -380,6 +392,7 @@ def load_manifest(manifest: Path) -> Model:
         provenance=provenance,
         extra=extra,
         mask=mask,
+        recalibration=recalibration,
     )
     if normalize:
         try:
@@ -459,6 +472,8 @@ def render_manifest(model: Model) -> str:
         lines.append(f"end = {_toml_value(TABLE_FILES['end'])}")
     if model.mask is not None:
         lines.append(f"mask = {_toml_value(TABLE_FILES['mask'])}")
+    if model.recalibration is not None:
+        lines.append(f"recalibration = {_toml_value(TABLE_FILES['recalibration'])}")
     for s in model.states:
         lines.append("")
         lines.append("[[states]]")

@@ -10,6 +10,9 @@ Layout (our own)::
       emissions.tsv     state <TAB> context <TAB> one column per symbol
       mask.tsv          state <TAB> mask [<TAB> after_masked <TAB> after_unmasked]
                         (optional: P(soft-masked base | state), or a mask chain)
+      recalibration.tsv group <TAB> score <TAB> method <TAB> temperature <TAB> forecast
+                        <TAB> calibrated (optional, read only when [tables] names it:
+                        monotone maps of the scores, :mod:`seqstate.io.recal_table`)
 
 A model may also be given as the path of its manifest file; table paths are
 relative to the manifest's folder.  Lines starting with ``#`` and blank lines
@@ -147,6 +150,10 @@ def render_tables(model: Model) -> list[tuple[str, str]]:
         head = "state\t" + "\t".join(cols) + "\n"
         body = "".join(n + "".join(f"\t{_fmt(v)}" for v in r) + "\n" for n, r in zip(names, rows))
         out.append((TABLE_FILES["mask"], head + body))
+    if model.recalibration is not None:
+        from seqstate.io.recal_table import render_recalibration
+
+        out.append((TABLE_FILES["recalibration"], render_recalibration(model.recalibration)))
     return out
 
 

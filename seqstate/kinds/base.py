@@ -134,8 +134,9 @@ class Kind(ABC):
         """Whether ``model`` is of this kind."""
 
     @abstractmethod
-    def feature_columns(self, groups: list[Group]) -> list[str]:
-        """The header of annotate's feature table (TSV) for a model with these groups."""
+    def feature_columns(self, groups: list[Group], calibrated: bool = False) -> list[str]:
+        """The header of annotate's feature table (TSV) for a model with these groups;
+        ``calibrated``: a recalibrated model, a ``calibrated_`` column after each score."""
 
     @abstractmethod
     def write_record(self, rec: RecordData, gff: GFF3Writer, tsv: TextIO) -> int:

@@ -22,14 +22,17 @@ from seqstate.io.tsvtext import tsv_row
 from seqstate.kinds.base import SOURCE, Group, Kind, RecordData
 from seqstate.kinds.segments import (
     SCORE_FORMATS,
+    add_calibrated,
     format_value,
     label_columns,
     label_scores,
     score_segment,
     segment_scores,
+    with_calibrated,
 )
 from seqstate.kinds.stream import RecordPass, StreamRecord, TrackSink, Window, unknown_count
 from seqstate.model import Model
+from seqstate.model.recalibration import Recalibration
 
 #: ``[annotate] features`` value of a manifest whose model is of this kind.
 FEATURES = "gene_structure"
@@ -604,10 +607,17 @@ def write_genes(
                 post.values[:, cds_col],
             )
 
+    recal = model.recalibration
+    cds_track = (
+        {}
+        if recal is None
+        else {strand: groups[strand_columns(groups, strand)[1]].track_name for strand in "+-"}
+    )
+
     def score_line(ln: GeneLine, strand: str, k: int) -> dict | None:
         if post is None or tables is None or codes is None:
             return None
-        return score_segment(
+        sc = score_segment(
             tables,
             codes,
             post,
@@ -617,6 +627,10 @@ def write_genes(
             ln.end0,
             log_odds=False,
         )
+        if recal is not None and k == 1:  # CDS lines: the strand's CDS track
+            vals = values[strand][k][ln.start0 : ln.end0]
+            sc = add_calibrated(sc, vals, recal, cds_track[strand])
+        return sc
 
     exact = None
     if post is not None and tables is not None and codes is not None:
@@ -628,7 +642,17 @@ def write_genes(
         number = tally.keep(gp, scored)
         if number:
             count += write_gene(
-                gff, tsv, gp, number, seqid, offset0, scored, id_stem=id_stem, exact=exact
+                gff,
+                tsv,
+                gp,
+                number,
+                seqid,
+                offset0,
+                scored,
+                id_stem=id_stem,
+                exact=exact,
+                recal=recal,
+                cds_track=cds_track.get(gp.strand),
             )
     return count
 
@@ -720,8 +744,16 @@ def write_gene(
     *,
     id_stem: str | None = None,
     exact: ExactScore | None = None,
+    recal: Recalibration | None = None,
+    cds_track: str | None = None,
 ) -> int:
     """Write one gene's lines (see :func:`write_genes`); the count written.
+
+    With a recalibration table ``recal`` (``cds_track``: the gene strand's CDS track
+    name) each score gets a ``calibrated_`` counterpart after it where the table has a
+    map (:func:`~seqstate.kinds.segments.add_calibrated`; ``score_line`` adds those of
+    the posterior scores): ``exon_probability`` by the CDS track's map,
+    ``structure_probability`` by ``mRNA.plus``/``mRNA.minus``'s.
 
     ``score_line(line, strand, k)`` gives the scores of one line (``k`` 0: scored on
     the strand's gene states, 1: on its CDS states), or None for an unscored line;
@@ -748,11 +780,21 @@ def write_gene(
         if sc is None:
             px = None
         key_x = "structure_probability" if ln.type == "mRNA" else "exon_probability"
+        cal_x = None
+        if recal is not None and px is not None:
+            word = "plus" if strand == "+" else "minus"
+            m = recal.get(f"mRNA.{word}" if ln.type == "mRNA" else str(cds_track), key_x)
+            cal_x = None if m is None else m.value(px)
         if sc is not None:
             for key in ("mean_posterior", "min_posterior", "segment_probability"):
                 attrs.append((key, format_value(sc[key], SCORE_FORMATS[key])))
+                if "calibrated_" + key in sc:
+                    c_key = "calibrated_" + key
+                    attrs.append((c_key, format_value(sc[c_key], SCORE_FORMATS[c_key])))
             if px is not None:
                 attrs.append((key_x, format_value(px, EXACT_FORMAT)))
+                if cal_x is not None:
+                    attrs.append(("calibrated_" + key_x, format_value(cal_x, EXACT_FORMAT)))
         attrs.append(("length", str(b - a)))
         if gp.partial and ln.type in ("gene", "mRNA"):
             attrs.append(("partial", "true"))
@@ -770,7 +812,28 @@ def write_gene(
                 attributes=attrs,
             )
         )
-        if tsv is not None:
+        if tsv is not None and recal is not None:
+            cells = {
+                **({} if sc is None else sc),
+                **({key_x: px} if px is not None else {}),
+                **({"calibrated_" + key_x: cal_x} if cal_x is not None else {}),
+            }
+            row = [
+                seqid,
+                str(a + offset0 + 1),
+                str(b + offset0),
+                strand,
+                ln.type,
+                ln.id,
+                ln.parent or "",
+                "." if ln.phase is None else str(ln.phase),
+            ]
+            for col in with_calibrated(GENE_COLUMNS[8:-1]):
+                v = cells.get(col)
+                fmt = EXACT_FORMAT if "exon_" in col or "structure_" in col else SCORE_FORMATS[col]
+                row.append("" if v is None else format_value(v, fmt))
+            tsv.write(tsv_row([*row, str(b - a)]))
+        elif tsv is not None:
             tsv.write(
                 tsv_row(
                     [
@@ -937,6 +1000,12 @@ class _GeneStream:
         masks = gene_masks(rec.model)
         allowed = exact_allowed(rec.model)
         cols = {strand: strand_columns(rec.groups, strand) for strand in "+-"}
+        recal = rec.model.recalibration
+        cds_track = (
+            {}
+            if recal is None
+            else {strand: rec.groups[cols[strand][1]].track_name for strand in "+-"}
+        )
         n_groups = len(rec.groups)
         count = unknown = 0
         nxt = 0
@@ -959,7 +1028,7 @@ class _GeneStream:
                         vals = rows[:, gene_cols].sum(axis=1, dtype=np.float64)
                     else:
                         vals = rows[:, cds_col]
-                    return segment_scores(
+                    sc = segment_scores(
                         rec.tables,
                         w.codes,
                         w.view,
@@ -969,6 +1038,9 @@ class _GeneStream:
                         ln.end0 - w.origin0,
                         log_odds=False,
                     )
+                    if recal is not None and k == 1:
+                        sc = add_calibrated(sc, vals, recal, cds_track[strand])
+                    return sc
 
                 nxt += 1
                 scored = _memo(score_line)
@@ -985,6 +1057,8 @@ class _GeneStream:
                         scored,
                         id_stem=rec.id_stem,
                         exact=exact,
+                        recal=recal,
+                        cds_track=cds_track.get(genes[nxt - 1].strand),
                     )
         if rec.on_genes is not None:
             rec.on_genes(written)
@@ -1001,7 +1075,9 @@ class GeneKind(Kind):
         table = model.extra.get("annotate", {})
         return isinstance(table, dict) and table.get("features") == FEATURES
 
-    def feature_columns(self, groups: list[Group]) -> list[str]:
+    def feature_columns(self, groups: list[Group], calibrated: bool = False) -> list[str]:
+        if calibrated:
+            return GENE_COLUMNS[:8] + with_calibrated(GENE_COLUMNS[8:-1]) + GENE_COLUMNS[-1:]
         return list(GENE_COLUMNS)
 
     def write_record(self, rec: RecordData, gff: GFF3Writer, tsv: TextIO) -> int:

@@ -21,14 +21,17 @@ from seqstate.io.tsvtext import tsv_row
 from seqstate.kinds.base import SOURCE, Group, Kind, RecordData, group_index, track_groups
 from seqstate.kinds.stream import RecordPass, StreamRecord, TrackSink, Window, unknown_count
 from seqstate.model import Model
+from seqstate.model.recalibration import Recalibration
 
 __all__ = [
     "BASE_COLUMNS",
+    "CALIBRATED",
     "CPG_COLUMNS",
     "CPG_LABEL",
     "SCORE_FORMATS",
     "SEGMENTS",
     "UNKNOWN_SPLIT",
+    "add_calibrated",
     "Group",
     "Segment",
     "SegmentKind",
@@ -47,6 +50,7 @@ __all__ = [
     "segments_from_posterior",
     "split_at_unknown",
     "track_groups",
+    "with_calibrated",
 ]
 
 LOG2E = 1.0 / math.log(2.0)
@@ -252,6 +256,56 @@ SCORE_FORMATS = {
     "meets_ggf1987": "",
     "meets_tj2002": "",
 }
+#: Scores that get a ``calibrated_`` counterpart from a recalibrated model, and the
+#: score of the recalibration table (:mod:`seqstate.model.recalibration`) each uses.
+CALIBRATED = {
+    "mean_posterior": "posterior",
+    "min_posterior": "posterior",
+    "segment_probability": "segment_probability",
+    "exon_probability": "exon_probability",
+    "structure_probability": "structure_probability",
+}
+for _key in CALIBRATED:
+    SCORE_FORMATS["calibrated_" + _key] = SCORE_FORMATS.get(_key, ".4g")
+
+
+def with_calibrated(columns: list[str]) -> list[str]:
+    """``columns`` with a ``calibrated_`` column after each score of :data:`CALIBRATED`."""
+    out = []
+    for c in columns:
+        out.append(c)
+        if c in CALIBRATED:
+            out.append("calibrated_" + c)
+    return out
+
+
+def add_calibrated(
+    scores: dict, values: np.ndarray | None, recal: Recalibration | None, group: str
+) -> dict:
+    """``scores`` with the ``calibrated_`` counterparts a recalibration table gives for
+    ``group`` (a track name, or ``mRNA.plus``/``mRNA.minus``), each right after its raw
+    score; ``values`` are the feature's per-base posteriors of the track (None: no
+    per-base counterparts).  The mean of the calibrated per-base posteriors, the map
+    of the minimum (a monotone map keeps the minimum), the map of each probability.
+    Without a table (None) ``scores`` is returned as it is."""
+    if recal is None:
+        return scores
+    out = {}
+    for key, value in scores.items():
+        out[key] = value
+        which = CALIBRATED.get(key)
+        m = None if which is None else recal.get(group, which)
+        if m is None:
+            continue
+        if key == "mean_posterior":
+            if values is None:
+                continue
+            out["calibrated_" + key] = float(m.apply(values).mean())
+        else:
+            out["calibrated_" + key] = m.value(float(value))
+    return out
+
+
 #: Columns of annotate's feature table before the scores (1-based closed coordinates).
 ID_COLUMNS = ["seqid", "start_1based", "end_1based", "strand", "type", "id"]
 #: Score columns of every segment feature.
@@ -341,6 +395,9 @@ def score_segments(
         grp = groups[seg.group]
         sc = score_segment(
             tables, codes, post, post.values[:, seg.group], masks[seg.group], seg.start0, seg.end0
+        )
+        sc = add_calibrated(
+            sc, post.values[seg.start0 : seg.end0, seg.group], model.recalibration, grp.track_name
         )
         sc["length"] = seg.end0 - seg.start0
         sc.update(label_scores(grp.label, seq[seg.start0 : seg.end0]))
@@ -433,7 +490,9 @@ class _SegmentStream:
 
     def __init__(self, kind: SegmentKind, rec: StreamRecord, gff: GFF3Writer, tsv: TextIO):
         self.rec, self.gff, self.tsv = rec, gff, tsv
-        self.score_cols = kind.feature_columns(rec.groups)[len(ID_COLUMNS) :]
+        self.score_cols = kind.feature_columns(rec.groups, rec.model.recalibration is not None)[
+            len(ID_COLUMNS) :
+        ]
         self.counters = [0] * len(rec.groups)
         self.masks = group_masks(rec.model, rec.groups)
         self.pending: list[Segment] = []
@@ -509,15 +568,17 @@ class _SegmentStream:
             s0, e0 = piece.start0 + seg.start0, piece.end0 + seg.start0
             w = win if win.holds(s0, e0) else self.rp.span(s0, e0, rec.state_group, len(rec.groups))
             grp = rec.groups[seg.group]
+            col = w.column(seg.group, s0, e0)
             sc = segment_scores(
                 rec.tables,
                 w.codes,
                 w.view,
-                w.column(seg.group, s0, e0),
+                col,
                 self.masks[seg.group],
                 s0 - w.origin0,
                 e0 - w.origin0,
             )
+            sc = add_calibrated(sc, col, rec.model.recalibration, grp.track_name)
             sc["length"] = e0 - s0
             if label_columns(grp.label):
                 sc.update(label_scores(grp.label, rec.read_bases(s0, e0)))
@@ -554,11 +615,12 @@ class SegmentKind(Kind):
     def claims(self, model: Model) -> bool:
         return True  # the default kind
 
-    def feature_columns(self, groups: list[Group]) -> list[str]:
+    def feature_columns(self, groups: list[Group], calibrated: bool = False) -> list[str]:
         extra: list[str] = []
         for grp in groups:
             extra += [c for c in label_columns(grp.label) if c not in extra]
-        return ID_COLUMNS + BASE_COLUMNS + extra
+        base = with_calibrated(BASE_COLUMNS) if calibrated else BASE_COLUMNS
+        return ID_COLUMNS + base + extra
 
     def write_record(self, rec: RecordData, gff: GFF3Writer, tsv: TextIO) -> int:
         segs = decode_segments(
@@ -574,7 +636,9 @@ class SegmentKind(Kind):
             record=rec.seqid,
         )
         score_segments(rec.model, rec.tables, rec.codes, rec.post, rec.groups, segs, rec.seq)
-        score_cols = self.feature_columns(rec.groups)[len(ID_COLUMNS) :]
+        score_cols = self.feature_columns(rec.groups, rec.model.recalibration is not None)[
+            len(ID_COLUMNS) :
+        ]
         counters = [0] * len(rec.groups)
         for seg in segs:
             write_segment(

@@ -40,6 +40,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from seqstate.errors import ModelFormatError
+from seqstate.model.recalibration import Recalibration
 
 #: Tolerance on every probability row sum.
 SUM_TOLERANCE = 1e-6
@@ -120,6 +121,8 @@ class Model:
     provenance: dict = field(default_factory=dict)
     extra: dict = field(default_factory=dict)
     mask: np.ndarray | None = None
+    #: the recalibration table (:mod:`seqstate.model.recalibration`), or None
+    recalibration: Recalibration | None = None
 
     # -- derived views -------------------------------------------------
     @property
@@ -182,6 +185,10 @@ class Model:
         if (self.end is None) != (other.end is None):
             return False
         if (self.mask is None) != (other.mask is None):
+            return False
+        if (self.recalibration is None) != (other.recalibration is None):
+            return False
+        if self.recalibration is not None and not self.recalibration.equals(other.recalibration):
             return False
         arrays = [(self.start, other.start), (self.transitions, other.transitions)]
         arrays.append((self.emissions, other.emissions))
