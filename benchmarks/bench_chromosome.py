@@ -20,17 +20,14 @@ from __future__ import annotations
 
 import argparse
 import importlib.util
-import os
 import shutil
-import subprocess
 import sys
 import tempfile
-import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from benchutil import markdown_table, print_header  # noqa: E402
+from benchutil import markdown_table, print_header, run_child  # noqa: E402
 
 GENE_MODELS = ("gene-segment", "gene-segment-athaliana")
 
@@ -44,18 +41,6 @@ def default_fasta() -> Path:
         / "data"
         / "AthaTAIR10_chr1_GCF_000001735.4_TAIR10.1_genomic.fna.gz"
     )
-
-
-def run_child(cmd: list[str]) -> tuple[float, float]:
-    """Wall seconds and peak RSS (MiB) of one child (its own rusage, via wait4)."""
-    t0 = time.perf_counter()
-    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-    _, status, usage = os.wait4(proc.pid, 0)
-    wall = time.perf_counter() - t0
-    err = proc.stderr.read().decode() if proc.stderr else ""
-    if status != 0:
-        raise SystemExit(f"error: {' '.join(cmd)} failed:\n{err}")
-    return wall, usage.ru_maxrss / 1024
 
 
 def main() -> int:

@@ -55,3 +55,21 @@ def markdown_table(head: list[str], rows: list[list[str]]) -> str:
     lines = ["| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
     lines += ["| " + " | ".join(row) + " |" for row in rows]
     return "\n".join(lines)
+
+
+def run_child(cmd: list[str]) -> tuple[float, float]:
+    """Wall seconds and peak RSS (MiB) of one child process (its own rusage, via wait4);
+    exits with the child's standard error when it fails.  Standard error is read before
+    the wait, so a child that writes much of it cannot stall on a full pipe."""
+    import subprocess
+    import time
+
+    t0 = time.perf_counter()
+    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    assert proc.stderr is not None
+    err = proc.stderr.read().decode(errors="replace")
+    _, status, usage = os.wait4(proc.pid, 0)
+    wall = time.perf_counter() - t0
+    if os.waitstatus_to_exitcode(status) != 0:
+        sys.exit(f"benchmark child failed: {' '.join(cmd)}\n{err}")
+    return wall, usage.ru_maxrss / 1024.0
