@@ -59,6 +59,7 @@ from seqstate.commands.recalibrate import (  # noqa: E402
     write_recalibrated,
 )
 from seqstate.io.tables import load_model, model_sha256  # noqa: E402
+from seqstate.model.recalibration import Recalibration  # noqa: E402
 
 SEQID = "NC_003070.9"
 HALVES = {"first": "1-7500000", "second": "7500001-15000000"}
@@ -103,6 +104,46 @@ class KeepFeatures(Collector):
         got[1].extend(bool(r) for r in right)
 
 
+def cross_fitted(
+    pairs: Sequence[tuple[Path, str]], fasta: str, labels: str, folds: int, block: int
+) -> tuple[Recalibration, dict, list[str]]:
+    """The recalibration table fitted on the pooled forecasts of each (model folder,
+    stretch) pair against the annotation (CDS and derived introns), one map per track
+    and score chosen on ``folds`` held-out folds of ``block``-base blocks."""
+    col = Collector(folds, block)
+    stretches = []
+    for folder, region in pairs:
+        model = load_model(folder)
+        t0 = time.perf_counter()
+        recs, _ = file_records(model, fasta, labels, types=("CDS",), region=region)
+        calibrate_records(model, recs, 10, collector=col)
+        stretches.append(region)
+        print(
+            f"forecasts of {folder.name} on {region} ({time.perf_counter() - t0:.0f} s)", flush=True
+        )
+    recal, choices = fit_recalibration(col)
+    return recal, choices, stretches
+
+
+def print_measured(report: Path, title: str) -> None:
+    """Print the per-label table of a ``seqstate calibrate`` JSON report (raw -> calibrated)."""
+    got = json.loads(report.read_text())
+    print()
+    print(title)
+    print(
+        "| label | base ECE | feature ECE | base Brier | feature Brier | features decoded |\n"
+        "|---|---|---|---|---|---|"
+    )
+    for lab in got["labels"]:
+        b, f, cal = lab["bases"], lab["features"], lab["calibrated"]
+        print(
+            f"| {lab['track']} | {b['ece']:.4f} -> {cal['bases']['ece']:.4f} | "
+            f"{f['ece']:.4f} -> {cal['features']['ece']:.4f} | "
+            f"{b['brier']:.5f} -> {cal['bases']['brier']:.5f} | "
+            f"{f['brier']:.4f} -> {cal['features']['brier']:.4f} | {f['decoded']:,} |"
+        )
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--work", default="/tmp/seqstate-recalibrate-plant")
@@ -131,20 +172,11 @@ def main(argv: list[str] | None = None) -> int:
     shipped = load_model(SHIPPED)
     target = REPO / "models" / SHIPPED if args.ship else work / SHIPPED
     if args.ship or not (target / "recalibration.tsv").is_file():
-        col = Collector(args.folds, args.fold_block)
-        stretches = []
-        for model_half, test_half in (("first", "second"), ("second", "first")):
-            model = load_model(work / f"model-{model_half}")
-            region = f"{SEQID}:{HALVES[test_half]}"
-            t0 = time.perf_counter()
-            recs, _ = file_records(model, fasta, labels, types=("CDS",), region=region)
-            calibrate_records(model, recs, 10, collector=col)
-            stretches.append(region)
-            print(
-                f"forecasts of model-{model_half} on {region} ({time.perf_counter() - t0:.0f} s)",
-                flush=True,
-            )
-        recal, choices = fit_recalibration(col)
+        pairs = [
+            (work / f"model-{m}", f"{SEQID}:{HALVES[t]}")
+            for m, t in (("first", "second"), ("second", "first"))
+        ]
+        recal, choices, stretches = cross_fitted(pairs, fasta, labels, args.folds, args.fold_block)
         meta = {
             "forecasts_of": "gene-segment-layout-plant fitted on the other half of "
             f"{SEQID}:1-15000000 (fit --region {HALVES['first']} forecasting "
@@ -174,21 +206,7 @@ def main(argv: list[str] | None = None) -> int:
         [*cli, "calibrate", str(target), "--fasta", fasta, "--truth", labels, "--type", "CDS",
          "--region", f"{SEQID}:{TEST}", "-o", str(report), "--force", "--quiet"]
     )  # fmt: skip
-    got = json.loads(report.read_text())
-    print()
-    print(f"A. thaliana {SEQID}:{TEST}, model {SHIPPED}, raw -> calibrated")
-    print(
-        "| label | base ECE | feature ECE | base Brier | feature Brier | features decoded |\n"
-        "|---|---|---|---|---|---|"
-    )
-    for lab in got["labels"]:
-        b, f, cal = lab["bases"], lab["features"], lab["calibrated"]
-        print(
-            f"| {lab['track']} | {b['ece']:.4f} -> {cal['bases']['ece']:.4f} | "
-            f"{f['ece']:.4f} -> {cal['features']['ece']:.4f} | "
-            f"{b['brier']:.5f} -> {cal['bases']['brier']:.5f} | "
-            f"{f['brier']:.4f} -> {cal['features']['brier']:.4f} | {f['decoded']:,} |"
-        )
+    print_measured(report, f"A. thaliana {SEQID}:{TEST}, model {SHIPPED}, raw -> calibrated")
     del choices
     # 5. the gene-level scores, raw and calibrated
     model = load_model(target)

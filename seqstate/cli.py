@@ -949,6 +949,13 @@ def merge_cmd(obj: dict | None, quiet: bool, **options: Any) -> None:
     help="With --fit-into: bases per block; blocks are dealt to the folds in turn.  "
     "[default: 100000]",
 )
+@click.option(
+    "--in-sample",
+    is_flag=True,
+    default=False,
+    help="Measure even on bases MODEL's recalibration table was fitted on; the report "
+    "marks the figures in-sample (refused otherwise).",
+)
 @force_option
 @quiet_option
 def calibrate_cmd(

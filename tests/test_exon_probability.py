@@ -390,7 +390,8 @@ def _written(model, seq: str) -> list[tuple[str, dict[str, str]]]:
         attrs = _attrs(ln)
         kind = ln.split("\t")[2]
         # the feature table carries the same numbers in its own columns
-        col = dict(zip(gk.GENE_COLUMNS, row, strict=True))
+        names = gk.GeneKind().feature_columns(groups, model.recalibration is not None)
+        col = dict(zip(names, row, strict=True))
         assert col["exon_probability"] == attrs.get("exon_probability", "")
         assert col["structure_probability"] == attrs.get("structure_probability", "")
         out.append((kind, attrs))

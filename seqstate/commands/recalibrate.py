@@ -183,5 +183,6 @@ def check_out_of_sample(model: Model, measured: Sequence[str]) -> None:
         raise UsageError(
             f"model '{model.name}' was recalibrated on {', '.join(stretches_of(model))}: "
             f"calibration measured on {', '.join(shared)} would be in-sample; choose bases "
-            "the table was not fitted on (--region, --records, or another --seed)"
+            "the table was not fitted on (--region, --records, or another --seed), or mark the "
+            "figures with --in-sample"
         )
