@@ -818,6 +818,42 @@ def test_chain_sparse_segment_queries_equal_generic(monkeypatch, name, seed, n, 
         _close_to_row_max(bv * np.exp(bl - gbl), gbv, 1e-10)
 
 
+@pytest.mark.parametrize("block", [40, 300, 1000])
+def test_cursor_backward_snapshots_equal_one_pass_from_the_checkpoint(monkeypatch, block):
+    """The chain-sparse cursor's backward vectors (from the snapshots it keeps inside a
+    block, or continued from its last query) are, to the bit, those of one backward pass
+    from the block's checkpoint, whatever the order of the queries."""
+    from seqstate.engine.sparse import queries as sparse_query
+
+    model = load_model("gene-segment")
+    monkeypatch.setattr(api, "_USE_SMALL", True)
+    t = api.prepare(model)
+    assert _sparse_kernels_used(t)
+    rng = np.random.default_rng(block)
+    n = 2500
+    codes = _possible(t, rng, n, p_unknown=0.01)
+    post = api.posterior(t, codes, block=block, dtype=np.float64)
+    cur = api.backend_of(t).cursor(codes, post)
+    sp = cur.sp
+
+    def one_pass(pos):
+        bk = pos // post.block
+        rows = np.zeros_like(cur.b)
+        sparse_query.to_slots(post.beta_ck[bk], sp.perm, rows, 0)
+        top = min(n, bk * post.block + post.block) - 1
+        ex = sparse_query.backward_advance(codes, top, pos, rows, *sp.bwd, cur.lim)
+        return rows[0].copy(), float(post.beta_ck_log[bk]) + ex * np.log(2.0)
+
+    positions = list(rng.integers(0, n, 150)) + list(range(0, n, 7))
+    rng.shuffle(positions)
+    sorted_run = sorted(int(p) for p in rng.integers(0, n, 100))
+    for pos in [*positions, *sorted_run]:
+        vec, lg = cur.backward(int(pos))
+        want, want_log = one_pass(int(pos))
+        assert np.array_equal(vec[0], want), pos
+        assert lg == pytest.approx(want_log, rel=0, abs=1e-9), pos
+
+
 def test_chain_sparse_restricted_equals_generic_kernel(specialised):
     """The chain-sparse backend's restricted forward against kernels_query.restricted_forward
     (the generic kernel as oracle), with and without emissions."""

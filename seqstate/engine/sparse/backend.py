@@ -226,6 +226,14 @@ class Cursor:
         self.f_log = self.b_log = 0.0
         self.work = np.zeros((2, m + 2))
         self.ones = np.ones((1, m + 2))
+        # backward vectors of the current block every `sub` positions, from its last
+        # position down to `snap_low` (filled as queries need them): a query steps back
+        # from the nearest one at or after it instead of from the block's end
+        self.sub = max(16, math.isqrt(max(post.block, 1)) + 1)
+        self.snaps = np.zeros((post.block // self.sub + 2, m + 2))
+        self.snap_log = np.zeros(self.snaps.shape[0])
+        self.snap_bk = -1
+        self.snap_hi = self.snap_low = -1
 
     def serves(self, backend: SparseBackend, codes: np.ndarray, post: Posterior) -> bool:
         """True while this cursor was made for these very tables, record and checkpoints."""
@@ -252,17 +260,47 @@ class Cursor:
         return self.f, self.f_log
 
     def backward(self, pos: int) -> tuple[np.ndarray, float]:
-        """Row 0 of the returned array: scaled backward vector at ``pos`` in slots; log scale."""
+        """Row 0 of the returned array: scaled backward vector at ``pos`` in slots; log scale.
+
+        Every vector is the one a single backward pass from the block's checkpoint reaches
+        (a step and its rescaling depend only on the vector stepped), whether it continues
+        the last query, a snapshot of the block or the checkpoint itself.
+        """
         post, sp = self.post, self.sp
-        n = self.codes.shape[0]
         bk = pos // post.block
-        if not (self.b_pos >= pos and self.b_pos // post.block == bk):
-            sparse_query.to_slots(post.beta_ck[bk], sp.perm, self.b, 0)
-            self.b_pos = min(n, bk * post.block + post.block) - 1
-            self.b_log = float(post.beta_ck_log[bk])
+        if not (
+            self.b_pos >= pos and self.b_pos // post.block == bk and self.b_pos - pos < self.sub
+        ):
+            self._from_snapshot(bk, pos)
         if pos < self.b_pos:
             ex = sparse_query.backward_advance(
                 self.codes, self.b_pos, pos, self.b, *sp.bwd, self.lim
             )
             self.b_pos, self.b_log = pos, self.b_log + ex * LN2
         return self.b, self.b_log
+
+    def _from_snapshot(self, bk: int, pos: int) -> None:
+        """Put in ``self.b`` the snapshot of block ``bk`` nearest at or after ``pos``,
+        stepping the block's snapshots down to ``pos`` first where they do not reach it."""
+        post, sp, sub, snaps = self.post, self.sp, self.sub, self.snaps
+        if self.snap_bk != bk:
+            sparse_query.to_slots(post.beta_ck[bk], sp.perm, self.b, 0)
+            self.snap_hi = self.snap_low = (
+                min(self.codes.shape[0], bk * post.block + post.block) - 1
+            )
+            snaps[0] = self.b[0]
+            self.snap_log[0] = float(post.beta_ck_log[bk])
+            self.snap_bk = bk
+        while self.snap_low - sub >= pos:  # one snapshot further down the block
+            j = (self.snap_hi - self.snap_low) // sub
+            self.b[0] = snaps[j]
+            lo = self.snap_low - sub
+            ex = sparse_query.backward_advance(
+                self.codes, self.snap_low, lo, self.b, *sp.bwd, self.lim
+            )
+            snaps[j + 1] = self.b[0]
+            self.snap_log[j + 1] = self.snap_log[j] + ex * LN2
+            self.snap_low = lo
+        j = (self.snap_hi - pos) // sub
+        self.b[0] = snaps[j]
+        self.b_pos, self.b_log = self.snap_hi - j * sub, float(self.snap_log[j])
