@@ -819,9 +819,9 @@ def test_chain_sparse_segment_queries_equal_generic(monkeypatch, name, seed, n, 
 
 
 @pytest.mark.parametrize("block", [40, 300, 1000])
-def test_cursor_backward_snapshots_equal_one_pass_from_the_checkpoint(monkeypatch, block):
-    """The chain-sparse cursor's backward vectors (from the snapshots it keeps inside a
-    block, or continued from its last query) are, to the bit, those of one backward pass
+def test_cursor_snapshots_equal_one_pass_from_the_checkpoint(monkeypatch, block):
+    """The chain-sparse cursor's forward and backward vectors (from the snapshots it keeps
+    inside a block, or continued from its last query) are, to the bit, those of one pass
     from the block's checkpoint, whatever the order of the queries."""
     from seqstate.engine.sparse import queries as sparse_query
 
@@ -836,9 +836,13 @@ def test_cursor_backward_snapshots_equal_one_pass_from_the_checkpoint(monkeypatc
     cur = api.backend_of(t).cursor(codes, post)
     sp = cur.sp
 
-    def one_pass(pos):
+    def one_pass(pos, forward):
         bk = pos // post.block
         rows = np.zeros_like(cur.b)
+        if forward:
+            sparse_query.to_slots(post.alpha_ck[bk], sp.perm, rows, 0)
+            ex = sparse_query.forward_advance(codes, bk * post.block, pos, rows, *sp.fwd, cur.lim)
+            return rows[0].copy(), float(post.alpha_ck_log[bk]) + ex * np.log(2.0)
         sparse_query.to_slots(post.beta_ck[bk], sp.perm, rows, 0)
         top = min(n, bk * post.block + post.block) - 1
         ex = sparse_query.backward_advance(codes, top, pos, rows, *sp.bwd, cur.lim)
@@ -847,11 +851,12 @@ def test_cursor_backward_snapshots_equal_one_pass_from_the_checkpoint(monkeypatc
     positions = list(rng.integers(0, n, 150)) + list(range(0, n, 7))
     rng.shuffle(positions)
     sorted_run = sorted(int(p) for p in rng.integers(0, n, 100))
-    for pos in [*positions, *sorted_run]:
-        vec, lg = cur.backward(int(pos))
-        want, want_log = one_pass(int(pos))
-        assert np.array_equal(vec[0], want), pos
-        assert lg == pytest.approx(want_log, rel=0, abs=1e-9), pos
+    for pos in [*positions, *sorted_run, *sorted_run[::-1]]:
+        for forward in (True, False):
+            vec, lg = cur.forward(int(pos)) if forward else cur.backward(int(pos))
+            want, want_log = one_pass(int(pos), forward)
+            assert np.array_equal(vec[0], want), (pos, forward)
+            assert lg == pytest.approx(want_log, rel=0, abs=1e-9), (pos, forward)
 
 
 def test_chain_sparse_restricted_equals_generic_kernel(specialised):

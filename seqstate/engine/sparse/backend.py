@@ -205,14 +205,67 @@ class SparseBackend(GenericBackend):
         return terms
 
 
+class _Snapshots:
+    """The vectors of one direction inside one checkpoint block every ``sub`` positions,
+    stepped from the block's checkpoint as far as queries have needed them.
+
+    Forward (``step = 1``): snapshot ``j`` is the vector at ``block start + j * sub``;
+    backward (``step = -1``): at ``block end - 1 - j * sub``.  Each is the vector one pass
+    from the checkpoint reaches (a step and its rescaling depend only on the vector
+    stepped), so a query that continues from one gets the same vector to the bit.
+    """
+
+    def __init__(self, cur: Cursor, step: int) -> None:
+        post, m = cur.post, cur.sp.n_states
+        self.cur, self.step = cur, step
+        self.sub = max(16, math.isqrt(max(post.block, 1)) + 1)
+        self.vecs = np.zeros((post.block // self.sub + 2, m + 2))
+        self.logs = np.zeros(self.vecs.shape[0])
+        self.bk = -1
+        self.anchor = self.reach = -1  # snapshot 0's position; the furthest one's
+        if step > 0:
+            self.ck, self.ck_log = post.alpha_ck, post.alpha_ck_log
+            self.advance, self.tables = sparse_query.forward_advance, cur.sp.fwd
+        else:
+            self.ck, self.ck_log = post.beta_ck, post.beta_ck_log
+            self.advance, self.tables = sparse_query.backward_advance, cur.sp.bwd
+
+    def load(self, bk: int, pos: int, rows: np.ndarray) -> tuple[int, float]:
+        """Put in row 0 of ``rows`` the snapshot of block ``bk`` nearest ``pos`` on the
+        checkpoint's side (stepping further snapshots first where they do not reach it);
+        returns its position and log scale."""
+        cur, sub, st, vecs = self.cur, self.sub, self.step, self.vecs
+        if self.bk != bk:
+            block = cur.post.block
+            sparse_query.to_slots(self.ck[bk], cur.sp.perm, rows, 0)
+            first = bk * block
+            self.anchor = first if st > 0 else min(cur.codes.shape[0], first + block) - 1
+            self.reach = self.anchor
+            vecs[0] = rows[0]
+            self.logs[0] = float(self.ck_log[bk])
+            self.bk = bk
+        while (pos - self.reach) * st >= sub:  # one snapshot further into the block
+            j = (self.reach - self.anchor) * st // sub
+            rows[0] = vecs[j]
+            nxt = self.reach + st * sub
+            ex = self.advance(cur.codes, self.reach, nxt, rows, *self.tables, cur.lim)
+            vecs[j + 1] = rows[0]
+            self.logs[j + 1] = self.logs[j] + ex * LN2
+            self.reach = nxt
+        j = (pos - self.anchor) * st // sub
+        rows[0] = vecs[j]
+        return self.anchor + st * j * sub, float(self.logs[j])
+
+
 class Cursor:
     """Forward and backward vectors of one posterior in the chain-sparse slots, reused.
 
     Segment queries arrive mostly in position order, so the last forward vector
     (and the last backward vector) recomputed from a checkpoint is kept: a later
-    query in the same block continues from it instead of from the checkpoint.
-    The steps and the rescaling decisions are those of a pass from the
-    checkpoint, so the result does not depend on the order of the queries.
+    query near it in the same block continues from it; any other starts from the
+    nearest snapshot of the block (:class:`_Snapshots`).  The steps and the rescaling
+    decisions are those of a pass from the checkpoint, so the result does not depend
+    on the order of the queries.
     """
 
     def __init__(self, backend: SparseBackend, codes: np.ndarray, post: Posterior) -> None:
@@ -226,14 +279,9 @@ class Cursor:
         self.f_log = self.b_log = 0.0
         self.work = np.zeros((2, m + 2))
         self.ones = np.ones((1, m + 2))
-        # backward vectors of the current block every `sub` positions, from its last
-        # position down to `snap_low` (filled as queries need them): a query steps back
-        # from the nearest one at or after it instead of from the block's end
-        self.sub = max(16, math.isqrt(max(post.block, 1)) + 1)
-        self.snaps = np.zeros((post.block // self.sub + 2, m + 2))
-        self.snap_log = np.zeros(self.snaps.shape[0])
-        self.snap_bk = -1
-        self.snap_hi = self.snap_low = -1
+        # snapshots of the current block's vectors: a query steps from the nearest one
+        # on the checkpoint's side instead of from the checkpoint
+        self.f_snaps, self.b_snaps = _Snapshots(self, 1), _Snapshots(self, -1)
 
     def serves(self, backend: SparseBackend, codes: np.ndarray, post: Posterior) -> bool:
         """True while this cursor was made for these very tables, record and checkpoints."""
@@ -249,9 +297,9 @@ class Cursor:
         """Row 0 of the returned array: scaled forward vector at ``pos`` in slots; log scale."""
         post, sp = self.post, self.sp
         bk = pos // post.block
-        if not (0 <= self.f_pos <= pos and self.f_pos // post.block == bk):
-            sparse_query.to_slots(post.alpha_ck[bk], sp.perm, self.f, 0)
-            self.f_pos, self.f_log = bk * post.block, float(post.alpha_ck_log[bk])
+        near = 0 <= self.f_pos <= pos and pos - self.f_pos < self.f_snaps.sub
+        if not (near and self.f_pos // post.block == bk):
+            self.f_pos, self.f_log = self.f_snaps.load(bk, pos, self.f)
         if pos > self.f_pos:
             ex = sparse_query.forward_advance(
                 self.codes, self.f_pos, pos, self.f, *sp.fwd, self.lim
@@ -268,39 +316,12 @@ class Cursor:
         """
         post, sp = self.post, self.sp
         bk = pos // post.block
-        if not (
-            self.b_pos >= pos and self.b_pos // post.block == bk and self.b_pos - pos < self.sub
-        ):
-            self._from_snapshot(bk, pos)
+        near = self.b_pos >= pos and self.b_pos - pos < self.b_snaps.sub
+        if not (near and self.b_pos // post.block == bk):
+            self.b_pos, self.b_log = self.b_snaps.load(bk, pos, self.b)
         if pos < self.b_pos:
             ex = sparse_query.backward_advance(
                 self.codes, self.b_pos, pos, self.b, *sp.bwd, self.lim
             )
             self.b_pos, self.b_log = pos, self.b_log + ex * LN2
         return self.b, self.b_log
-
-    def _from_snapshot(self, bk: int, pos: int) -> None:
-        """Put in ``self.b`` the snapshot of block ``bk`` nearest at or after ``pos``,
-        stepping the block's snapshots down to ``pos`` first where they do not reach it."""
-        post, sp, sub, snaps = self.post, self.sp, self.sub, self.snaps
-        if self.snap_bk != bk:
-            sparse_query.to_slots(post.beta_ck[bk], sp.perm, self.b, 0)
-            self.snap_hi = self.snap_low = (
-                min(self.codes.shape[0], bk * post.block + post.block) - 1
-            )
-            snaps[0] = self.b[0]
-            self.snap_log[0] = float(post.beta_ck_log[bk])
-            self.snap_bk = bk
-        while self.snap_low - sub >= pos:  # one snapshot further down the block
-            j = (self.snap_hi - self.snap_low) // sub
-            self.b[0] = snaps[j]
-            lo = self.snap_low - sub
-            ex = sparse_query.backward_advance(
-                self.codes, self.snap_low, lo, self.b, *sp.bwd, self.lim
-            )
-            snaps[j + 1] = self.b[0]
-            self.snap_log[j + 1] = self.snap_log[j] + ex * LN2
-            self.snap_low = lo
-        j = (self.snap_hi - pos) // sub
-        self.b[0] = snaps[j]
-        self.b_pos, self.b_log = self.snap_hi - j * sub, float(self.snap_log[j])
