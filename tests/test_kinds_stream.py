@@ -21,7 +21,15 @@ from seqstate.engine import api, sampling
 from seqstate.errors import ImpossibleSequenceError
 from seqstate.io.gff3 import GFF3Writer
 from seqstate.io.tables import load_model
-from seqstate.kinds import GENES, SEGMENTS, RecordData, group_index, kind_of, track_groups
+from seqstate.kinds import (
+    GENES,
+    SEGMENTS,
+    RecordData,
+    gene_stream,
+    group_index,
+    kind_of,
+    track_groups,
+)
 from seqstate.kinds import genes as gene_kind
 from seqstate.kinds import stream as stream_kind
 from seqstate.kinds.stream import StreamRecord, write_stream_record
@@ -343,7 +351,7 @@ def test_genes_mea_traceback_reads_gain_windows(monkeypatch):
 
     monkeypatch.setattr(mea, "WINDOW", 1000)
     monkeypatch.setattr(mea, "BACKPOINTER_BUDGET", 0)
-    monkeypatch.setattr(gene_kind, "GAIN_WINDOW", 1500)
+    monkeypatch.setattr(gene_stream, "GAIN_WINDOW", 1500)
     model, tables, seq = _gene_record(30_000, seed=12, unknown=10)
     feats = _compare(GENES, model, tables, seq, "posterior", 0.5, 1, 10, 400, 2000)
     assert len(feats) >= 8
@@ -373,7 +381,7 @@ def test_gain_reader_serves_rows_in_both_directions():
         block=300,
     )
     rp = stream_kind.RecordPass(rec)
-    reader = gene_kind._GainReader(rp, cls, k)
+    reader = gene_stream.GainReader(rp, cls, k)
     computed = []
     real = rp.values
     rp.values = lambda *args: computed.append(args[:2]) or real(*args)
