@@ -9,14 +9,18 @@ Coordinates: 0-based half-open positions of the annotated stretch.
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Iterator
+import dataclasses
+from collections.abc import Callable, Iterable, Iterator
+from concurrent.futures import ThreadPoolExecutor
 from typing import TextIO
 
 import numpy as np
 
+from seqstate.engine import stream as engine_stream
 from seqstate.engine import stream_paths
 from seqstate.io.gff3 import GFF3Writer
 from seqstate.kinds.genes import (
+    ExactScore,
     GeneLine,
     GenePrediction,
     _memo,
@@ -24,6 +28,7 @@ from seqstate.kinds.genes import (
     decoding_classes,
     exact_allowed,
     exact_scorer,
+    gene_lines,
     gene_masks,
     genes_from_runs,
     run_key,
@@ -144,69 +149,144 @@ class GeneStream:
         genes = self.predictions(rp)
         written: list[GenePrediction] = []
         tally = _Tally(rec.gene_filter, rec.counts, written)
-        masks = gene_masks(rec.model)
-        allowed = exact_allowed(rec.model)
-        cols = {strand: strand_columns(rec.groups, strand) for strand in "+-"}
+        self.masks = gene_masks(rec.model)
+        self.allowed = exact_allowed(rec.model)
+        self.cols = {strand: strand_columns(rec.groups, strand) for strand in "+-"}
         recal = rec.model.recalibration
-        cds_track = (
+        self.cds_track = (
             {}
             if recal is None
-            else {strand: rec.groups[cols[strand][1]].track_name for strand in "+-"}
+            else {strand: rec.groups[self.cols[strand][1]].track_name for strand in "+-"}
         )
         n_groups = len(rec.groups)
         count = unknown = 0
         nxt = 0
-        for win in rp.windows(rec.state_group, n_groups):
-            unknown += unknown_count(rec, win.start0, win.end0)
-            for g in range(n_groups):
-                track_sink(g, rec.offset0 + win.values0, win.values[:, g])
-            while nxt < len(genes) and genes[nxt].span[1] <= win.end0:
-                g0, g1 = genes[nxt].span
-                # the exact queries read one base beyond each end of the gene
-                lo, hi = max(0, g0 - 1), min(rec.n, g1 + 1)
-                inside = win.holds(g0, g1) and hi <= win.end0
-                inside = inside and (lo > win.origin0 or win.origin0 == 0)
-                w = win if inside else rp.span(lo, hi, rec.state_group, n_groups)
-
-                def score_line(ln: GeneLine, strand: str, k: int, w: Window = w) -> dict:
-                    gene_cols, cds_col = cols[strand]
-                    rows = w.values[ln.start0 - w.values0 : ln.end0 - w.values0]
-                    if k == 0:
-                        vals = rows[:, gene_cols].sum(axis=1, dtype=np.float64)
-                    else:
-                        vals = rows[:, cds_col]
-                    sc = segment_scores(
-                        rec.tables,
-                        w.codes,
-                        w.view,
-                        vals,
-                        masks[strand][k],
-                        ln.start0 - w.origin0,
-                        ln.end0 - w.origin0,
-                        log_odds=False,
-                    )
-                    if recal is not None and k == 1:
-                        sc = add_calibrated(sc, vals, recal, cds_track[strand])
-                    return sc
-
-                nxt += 1
-                scored = _memo(score_line)
-                number = tally.keep(genes[nxt - 1], scored)
-                if number:
-                    exact = exact_scorer(rec.tables, w.codes, w.view, allowed, rec.n, w.origin0)
-                    count += write_gene(
-                        self.gff,
-                        self.tsv,
-                        genes[nxt - 1],
-                        number,
-                        rec.seqid,
-                        rec.offset0,
-                        scored,
-                        id_stem=rec.id_stem,
-                        exact=exact,
-                        recal=recal,
-                        cds_track=cds_track.get(genes[nxt - 1].strand),
-                    )
+        with ThreadPoolExecutor(max_workers=1, thread_name_prefix="seqstate-genes") as pool:
+            for win in rp.windows(rec.state_group, n_groups):
+                unknown += unknown_count(rec, win.start0, win.end0)
+                for g in range(n_groups):
+                    track_sink(g, rec.offset0 + win.values0, win.values[:, g])
+                batch: list[tuple[GenePrediction, Window]] = []
+                while nxt < len(genes) and genes[nxt].span[1] <= win.end0:
+                    g0, g1 = genes[nxt].span
+                    # the exact queries read one base beyond each end of the gene
+                    lo, hi = max(0, g0 - 1), min(rec.n, g1 + 1)
+                    inside = win.holds(g0, g1) and hi <= win.end0
+                    inside = inside and (lo > win.origin0 or win.origin0 == 0)
+                    w = win if inside else rp.span(lo, hi, rec.state_group, n_groups)
+                    batch.append((genes[nxt], w))
+                    nxt += 1
+                for (gp, _), (scored, exact) in zip(
+                    batch, self.scorers(batch, rp, win, pool), strict=True
+                ):
+                    number = tally.keep(gp, scored)
+                    if number:
+                        count += write_gene(
+                            self.gff,
+                            self.tsv,
+                            gp,
+                            number,
+                            rec.seqid,
+                            rec.offset0,
+                            scored,
+                            id_stem=rec.id_stem,
+                            exact=exact,
+                            recal=recal,
+                            cds_track=self.cds_track.get(gp.strand),
+                        )
         if rec.on_genes is not None:
             rec.on_genes(written)
         return count, rp.loglik, unknown
+
+    def scorer(self, w: Window) -> tuple[ScoreLine, ExactScore]:
+        """The (remembering) line scores and exact probabilities of genes on ``w``."""
+        rec, cols, masks, recal = self.rec, self.cols, self.masks, self.rec.model.recalibration
+
+        def score_line(ln: GeneLine, strand: str, k: int) -> dict:
+            gene_cols, cds_col = cols[strand]
+            rows = w.values[ln.start0 - w.values0 : ln.end0 - w.values0]
+            if k == 0:
+                vals = rows[:, gene_cols].sum(axis=1, dtype=np.float64)
+            else:
+                vals = rows[:, cds_col]
+            sc = segment_scores(
+                rec.tables,
+                w.codes,
+                w.view,
+                vals,
+                masks[strand][k],
+                ln.start0 - w.origin0,
+                ln.end0 - w.origin0,
+                log_odds=False,
+            )
+            if recal is not None and k == 1:
+                sc = add_calibrated(sc, vals, recal, self.cds_track[strand])
+            return sc
+
+        exact = exact_scorer(rec.tables, w.codes, w.view, self.allowed, rec.n, w.origin0)
+        return _memo(score_line), _memo_exact(exact)
+
+    def scorers(
+        self,
+        batch: list[tuple[GenePrediction, Window]],
+        rp: RecordPass,
+        win: Window,
+        pool: ThreadPoolExecutor,
+    ) -> list[tuple[ScoreLine, ExactScore]]:
+        """One scorer per gene of ``batch`` (gene, the window it is scored on).
+
+        With two threads the genes after the middle of the batch (by length) are scored
+        ahead on the second thread, on a view of ``win`` of its own (a view's query
+        vectors are its own; span windows are one gene's), while this thread scores the
+        first part; every score is what the lazy scorer gives, to the bit (the engine's
+        queries do not depend on their order).
+        """
+        if self.rec.threads < 2 or len(batch) < SCORE_AHEAD_MIN:
+            return [self.scorer(w) for _, w in batch]
+        sizes = np.cumsum([gp.span[1] - gp.span[0] for gp, _ in batch])
+        cut = int(np.searchsorted(sizes, sizes[-1] / 2.0)) + 1
+        blk = rp.block
+        own = engine_stream.view(
+            rp.tables, rp.ck, win.codes, win.origin0 // blk, (win.end0 + blk - 1) // blk, None
+        )
+        win2 = dataclasses.replace(win, view=own)
+        second = [(gp, win2 if w is win else w) for gp, w in batch[cut:]]
+        fut = pool.submit(self._ahead, second)
+        try:
+            first = self._ahead(batch[:cut])
+        finally:
+            later = fut.result()
+        return first + later
+
+    def _ahead(
+        self, batch: list[tuple[GenePrediction, Window]]
+    ) -> list[tuple[ScoreLine, ExactScore]]:
+        out = []
+        for gp, w in batch:
+            scored, exact = self.scorer(w)
+            for ln in gene_lines(gp, "", 1):
+                scored(ln, gp.strand, 0 if ln.type in ("gene", "mRNA") else 1)
+                if ln.type != "gene":
+                    exact(ln, gp)
+            out.append((scored, exact))
+        return out
+
+
+#: Fewest genes in a window worth scoring on two threads.
+SCORE_AHEAD_MIN = 4
+
+#: ``score_line(line, strand, k)``: a line's posterior scores (see :func:`write_gene`).
+ScoreLine = Callable[[GeneLine, str, int], dict | None]
+
+
+def _memo_exact(exact: ExactScore) -> ExactScore:
+    """``exact`` remembering its answers for one gene (exon and CDS lines share one)."""
+    seen: dict[tuple[bool, int, int], float | None] = {}
+
+    def remembered(ln: GeneLine, gene: GenePrediction) -> float | None:
+        key = (ln.type == "mRNA", ln.start0, ln.end0)
+        if key not in seen:
+            seen[key] = exact(ln, gene)
+        return seen[key]
+
+    return remembered
