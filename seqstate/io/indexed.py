@@ -9,13 +9,15 @@ record by record, by start) and its ``track`` line.  The copy is BGZF-compressed
 record over 2^29 bases (512 Mbp), which the tabix index cannot address.
 
 Why pysam (its ``tabix_compress`` / ``tabix_index``, htslib inside) rather than
-Debian's ``bgzip``/``tabix`` programs: measured on a 114 MB GFF3 and a 58 MB bedGraph
-(``benchmarks`` note in the README), pysam 0.24.1 takes 1.4 s + 0.3 s against the
-programs' 1.2 s + 0.25 s, and its files are about 18 % larger on the GFF3 (its wheel
-is built without libdeflate), but it is one pip-installable wheel (14 MB installed,
-no dependencies) that works wherever the rest of seqstate installs, with no system
-package, no subprocess and no second version of htslib to keep in step; both give
-byte-identical files on a rerun.
+Debian's ``bgzip``/``tabix`` programs (htslib 1.16): measured on a 114 MB GFF3 (1 M lines)
+and a 58 MB bedGraph (2 M lines), pysam 0.24.1 takes 1.4 s + 0.3 s (GFF3) and 2.5 s +
+0.3 s (bedGraph) against the programs' 1.2 s + 0.25 s and 1.9 s + 0.25 s; its files are
+18 % larger on the GFF3 (15.0 against 12.7 MB: its wheel is built without libdeflate)
+and 2 % smaller on the bedGraph.  Against that, pysam is one pip-installable wheel
+(14 MB installed, no dependencies) that works wherever the rest of seqstate installs:
+no system package (Debian's is 2.2 MB but needs root and apt in CI), no subprocess, and
+the bytes depend on one pinned Python package rather than on each machine's htslib.
+Both give byte-identical files on a rerun.
 
 Every file is written to paths the caller stages (:class:`seqstate.io.atomic.OutputSet`),
 so the indexed outputs appear with the rest of the run or not at all.
