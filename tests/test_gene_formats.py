@@ -31,8 +31,14 @@ from click.testing import CliRunner
 
 from seqstate.cli import main
 from seqstate.commands.compare import compare_files
-from seqstate.errors import FeatureFormatError
-from seqstate.io.gene_formats import iter_transcripts, read_bed12
+from seqstate.errors import FeatureFormatError, UsageError
+from seqstate.io.gene_formats import (
+    Transcript,
+    bed12_line,
+    gtf_lines,
+    iter_transcripts,
+    read_bed12,
+)
 from seqstate.io.gff3 import read_gff3
 from seqstate.io.intervals import read_gene_features
 
@@ -196,20 +202,24 @@ def test_gtf_follows_gtf_2_2(gene_run):
     assert complete >= 2
 
 
-def test_gtf_of_a_gene_cut_at_the_record_end_has_no_codon_there(gene_run):
-    # the cut end has no codon line (GTF 2.2 writes codons only where they are)
+def test_gtf_of_a_partial_gene_has_no_codon_lines(gene_run):
+    # GTF 2.2 writes codons only where they are; the GFF3 does not say which end of a
+    # partial gene was cut, so a partial gene has none, and its CDS keeps every base
+    partial = 0
+    rows = gtf_rows(gene_run["gtf"])
     for tx in iter_transcripts(gene_run["gff3"]):
-        rows = [r for r in gtf_rows(gene_run["gtf"]) if f'"{tx.mrna_id}"' in r[8]]
-        kinds = {r[2] for r in rows}
-        if not (tx.cut5 or tx.cut3):
+        mine = [r for r in rows if f'"{tx.mrna_id}"' in r[8]]
+        kinds = {r[2] for r in mine}
+        coding = sum(int(r[4]) - int(r[3]) + 1 for r in mine if r[2] == "CDS")
+        assert tx.cut5 == tx.cut3
+        if tx.cut5:
+            partial += 1
+            assert not kinds & {"start_codon", "stop_codon"}
+            assert coding == sum(b - a for a, b, _ in tx.cds)
+        else:
             assert {"start_codon", "stop_codon"} <= kinds
-            continue
-        touches_end = tx.end0 == 30000 or tx.start0 == 0
-        assert touches_end
-        assert ("start_codon" in kinds) == (not tx.cut5)
-        assert ("stop_codon" in kinds) == (not tx.cut3)
-        high_is_5 = tx.strand == "-"
-        assert tx.cut5 == (high_is_5 and tx.end0 == 30000 or not high_is_5 and tx.start0 == 0)
+            assert coding == sum(b - a for a, b, _ in tx.cds) - 3
+    assert partial >= 1
 
 
 def test_gtf_read_back_by_our_reader_gives_the_gff3_structure(gene_run):
@@ -329,3 +339,82 @@ def test_existing_gene_file_needs_force(gene_run, tmp_path):
     assert result.exit_code == 2 and "already exists" in result.output
     assert sorted(p.name for p in out.iterdir()) == ["g.genes.gtf"]
     assert (out / "g.genes.gtf").read_text() == "keep\n"
+
+
+# ---------------------------------------------------------------- codons split by introns
+
+
+def test_split_codons_get_one_line_per_piece_with_their_frames():
+    # GTF 2.2 (Brent lab definition): a codon split by an intron is one line per piece,
+    # frame = bases before the first whole codon; the CDS leaves the stop codon out.
+    # Minus strand, coding bases (0-based half-open) 100-102 | 200-260 | 300-302 read
+    # 3'->5' in genomic order: the 5' end is at 302 (start codon: 300-302 and one base
+    # at 259), the 3' end at 100 (stop codon: 100-102 and one base at 200).
+    tx = Transcript("c", "-", "g1", "m1", 100, 302, 0.5)
+    tx.exons = [(100, 102, "0.5"), (200, 260, "0.5"), (300, 302, "0.5")]
+    tx.cds = [(100, 102, "0.5"), (200, 260, "0.5"), (300, 302, "0.5")]
+    tx.phases = [1, 1, 0]  # 2 + 60 = 62 bases before the last piece: (3 - 62 % 3) % 3 = 1
+    rows = [line.split("\t") for _, line in gtf_lines(tx)]
+    got = [(r[2], int(r[3]), int(r[4]), r[7]) for r in rows]  # 1-based closed
+    assert ("start_codon", 301, 302, "0") in got and ("start_codon", 260, 260, "1") in got
+    assert ("stop_codon", 201, 201, "0") in got and ("stop_codon", 101, 102, "2") in got
+    cds = [g for g in got if g[0] == "CDS"]
+    assert cds == [("CDS", 202, 260, "1"), ("CDS", 301, 302, "0")]
+    assert sum(b - a + 1 for _, a, b, _ in cds) == 64 - 3
+    assert [g[0] for g in got].count("exon") == 3
+    assert [int(r[3]) for r in rows] == sorted(int(r[3]) for r in rows)
+
+
+def test_cut_ends_give_no_codons_and_keep_the_whole_cds():
+    tx = Transcript("c", "+", "g1", "m1", 0, 30, None, cut5=True, cut3=True)
+    tx.exons = [(0, 30, ".")]
+    tx.cds = [(0, 30, ".")]
+    tx.phases = [2]
+    got = [
+        (line.split("\t")[2], line.split("\t")[3], line.split("\t")[4]) for _, line in gtf_lines(tx)
+    ]
+    assert got == [("exon", "1", "30"), ("CDS", "1", "30")]
+    assert bed12_line(tx).split("\t")[4] == "0"  # unscored: score 0
+
+
+def test_a_quote_in_an_id_is_refused_in_gtf():
+    tx = Transcript("c", "+", 'g"1', "m1", 0, 30, None)
+    with pytest.raises(UsageError, match="cannot be written in GTF"):
+        gtf_lines(tx)
+
+
+# ---------------------------------------------------------------- region runs, unknown runs
+
+
+def test_region_run_and_a_gene_cut_by_unknown_bases(gene_run, tmp_path):
+    # a run of N inside a gene cuts it (partial_reason unknown_run), a --region run cuts
+    # a gene at its end (here in an intron: the last CDS line ends 169 bases before it);
+    # partial genes have no codon lines, and compare gives the GFF3's figures
+    seqs = read_fasta(gene_run["fasta"])
+    seq = list(seqs["sim1"])
+    seq[5000:5600] = "N" * 600  # inside sim1.gene.1 (2303-19626)
+    fasta = tmp_path / "n.fa"
+    fasta.write_text(
+        "".join(f">{k}\n{''.join(seq) if k == 'sim1' else v}\n" for k, v in seqs.items())
+    )
+    for extra in ([], ["--region", "sim1:1-29000", "--min-cds-length", "0"]):
+        out = tmp_path / ("region" if extra else "whole")
+        ok("annotate", fasta, "-m", "gene-segment", "-o", out, "--stem", "n", "--tracks",
+           "none", "--gene-formats", "gtf,bed12", "-q", *extra)  # fmt: skip
+        feats = read_gff3(out / "n.gff3")
+        reasons = {r for f in feats if f.type == "mRNA" for r in f.values("partial_reason")}
+        assert reasons >= ({"record_end", "unknown_run"} if extra else {"unknown_run"})
+        txs = list(iter_transcripts(out / "n.gff3"))
+        for t in txs:
+            rows = [r for r in gtf_rows(out / "n.genes.gtf") if f'"{t.mrna_id}"' in r[8]]
+            kinds = {r[2] for r in rows}
+            assert bool(kinds & {"start_codon", "stop_codon"}) == (not t.cut5)
+        if extra:
+            cut = [t for t in txs if t.strand == "-" and t.cut5]
+            assert cut and max(b for _, b, _ in cut[0].cds) < 29000
+        # a GTF has no ##sequence-region: the stretch of a region run is given to compare
+        region = "sim1:1-29000" if extra else None
+        a = compare_files(out / "n.gff3", gene_run["truth"], "CDS", region)
+        b = compare_files(out / "n.genes.gtf", gene_run["truth"], "CDS", region)
+        a.pop("inputs"), b.pop("inputs")
+        assert a == b

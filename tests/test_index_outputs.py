@@ -111,6 +111,14 @@ def test_sorting_is_by_record_order_then_start_and_stable(tmp_path):
     src.write_text(head + "".join(body))
     indexed.sort_gff_lines(src, dest)
     assert dest.read_text() == head + "".join(body[i] for i in (0, 1, 3, 4, 5, 2, 6))
+    # records in one block each keep the file's order; a record whose lines come back
+    # after another's is sorted whole, records in ##sequence-region order
+    src.write_text(head + "".join(body[i] for i in (6, 0, 1, 2, 3, 4, 5)))
+    indexed.sort_gff_lines(src, dest)
+    assert dest.read_text() == head + "".join(body[i] for i in (6, 0, 1, 3, 4, 5, 2))
+    src.write_text(head + "".join(body[i] for i in (0, 1, 6, 2, 3, 4, 5)))
+    indexed.sort_gff_lines(src, dest)
+    assert dest.read_text() == head + "".join(body[i] for i in (0, 1, 3, 4, 5, 2, 6))
 
 
 def overlapping(lines: list[str], seqid: str, start0: int, end0: int, zero: bool) -> list[str]:

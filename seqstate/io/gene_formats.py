@@ -17,11 +17,11 @@ the CDS); a codon split by an intron is written as one line per piece, each with
 frame of its first base.  Every line has ``gene_id "GENE"; transcript_id "MRNA";``
 (the GFF3 IDs).  Scores: those of the GFF3 exon and CDS lines; codons ``.``.
 
-The ends of a partial gene (``partial=true`` in the GFF3): an end at the bound of its
-annotated stretch (the ``##sequence-region``) is cut; with ``partial_reason``
-``unknown_run`` no end can be told intact from the GFF3 alone, so both ends count as
-cut.  A cut 5' end gets no ``start_codon``; a cut 3' end no ``stop_codon``, and its
-CDS keeps every coding base.  ``seqstate compare`` joins a GTF's stop codons to its
+A partial gene (``partial=true`` in the GFF3) gets no codon lines and its CDS keeps
+every coding base: the GFF3 does not say which end was cut (a gene that runs into the
+end of the stretch may end there in a CDS or in an intron, and one cut at a run of
+unknown bases may lose either end), and a codon line at a cut end would be wrong.
+``seqstate compare`` joins a GTF's stop codons to its
 CDS, so the GTF gives the same figures as the GFF3 it came from.
 """
 
@@ -34,7 +34,7 @@ from typing import TextIO
 
 from seqstate.errors import FeatureFormatError, UsageError
 from seqstate.io.files import display_name, open_input, text_lines
-from seqstate.io.gff3 import Feature, iter_gff3, read_sequence_regions
+from seqstate.io.gff3 import Feature, iter_gff3
 
 __all__ = [
     "GENE_FORMATS",
@@ -53,7 +53,6 @@ __all__ = [
 GENE_FORMATS = ("bed12", "gtf")
 SUFFIXES = {"bed12": ".genes.bed", "gtf": ".genes.gtf"}
 SOURCE = "seqstate"
-_PARTIAL_UNKNOWN_RUN = "unknown_run"
 
 
 def parse_gene_formats(text: str | None) -> tuple[str, ...]:
@@ -83,7 +82,7 @@ class Transcript:
 
     ``exons`` and ``cds`` are in genomic order, each ``(start0, end0, score text)``;
     ``phases`` the CDS phases (GFF3 column 8); ``cut5`` / ``cut3`` whether the
-    transcript's 5' / 3' end is cut (see the module docstring).
+    transcript's 5' / 3' end may be cut (no codon line there; see the module docstring).
     """
 
     seqid: str
@@ -112,7 +111,6 @@ def iter_transcripts(gff3: str | Path) -> Iterator[Transcript]:
     Raises :class:`FeatureFormatError` for an mRNA whose gene is not the gene line
     before it, or an exon/CDS whose mRNA is not in the current gene.
     """
-    bounds = {k: (a, b) for k, (a, b, _) in read_sequence_regions(gff3).items()}
     shown = display_name(gff3)
     current: dict[str, Transcript] = {}
     gene: Feature | None = None
@@ -127,7 +125,7 @@ def iter_transcripts(gff3: str | Path) -> Iterator[Transcript]:
                 raise FeatureFormatError(
                     "mRNA line does not follow its gene line", path=shown, line0=f.line0
                 )
-            cut5, cut3 = _cut_ends(f, bounds.get(f.seqid))
+            cut5, cut3 = _cut_ends(f)
             current[str(f.get("ID"))] = Transcript(
                 f.seqid,
                 f.strand,
@@ -156,15 +154,11 @@ def iter_transcripts(gff3: str | Path) -> Iterator[Transcript]:
     yield from current.values()
 
 
-def _cut_ends(mrna: Feature, bound: tuple[int, int] | None) -> tuple[bool, bool]:
-    """(5' end cut, 3' end cut) of a GFF3 mRNA line (see the module docstring)."""
-    if mrna.get("partial") != "true":
-        return False, False
-    if _PARTIAL_UNKNOWN_RUN in mrna.values("partial_reason") or bound is None:
-        return True, True
-    low = mrna.start0 <= bound[0]
-    high = mrna.end0 >= bound[1]
-    return (low, high) if mrna.strand != "-" else (high, low)
+def _cut_ends(mrna: Feature) -> tuple[bool, bool]:
+    """(5' end cut, 3' end cut) of a GFF3 mRNA line: both for a partial one (see the
+    module docstring), neither for a complete one."""
+    partial = mrna.get("partial") == "true"
+    return partial, partial
 
 
 # ---------------------------------------------------------------- BED12
@@ -313,7 +307,8 @@ def _take(pieces: list[tuple[int, int]], n: int, strand: str, from_5: bool) -> l
         if done == n:
             break
         k = min(n - done, b - a)
-        out.append([a, a + k, done] if low_first else [b - k, b, done])
+        before = done if from_5 else n - done - k  # bases of the codon 5' of the piece
+        out.append([a, a + k, before] if low_first else [b - k, b, before])
         done += k
     return out
 

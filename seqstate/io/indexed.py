@@ -83,31 +83,58 @@ def index_names(name: str) -> list[str]:
 
 def sort_gff_lines(src: Path, dest: Path, start_column: int = 3) -> None:
     """Write ``src`` (a GFF3 or GTF; a BED with ``start_column`` 1) to ``dest`` sorted for
-    tabix: the header ``#`` lines first, then the lines of each seqid (in the order of
-    the ``##sequence-region`` lines, then of first appearance) by start, stably."""
+    tabix: the header ``#`` lines first, then the lines of each seqid by start, stably.
+
+    Seqids keep the order of the file (seqstate writes records in FASTA order, which its
+    ``##sequence-region`` lines follow too) and memory holds one seqid's lines; a file
+    whose seqids come back after others is sorted whole in memory, its seqids in the
+    order of its ``##sequence-region`` lines, then of first appearance.
+    """
     order: dict[str, int] = {}
     header: list[str] = []
-    blocks: dict[str, list[tuple[int, int, str]]] = {}
+    runs: list[str] = []  # seqids in file order, one entry per contiguous block
     with open(src, encoding="utf-8", newline="\n") as fh:
-        for k, line in enumerate(fh):
+        body = False
+        for line in fh:
             if line.startswith("#"):
-                if not blocks:
+                if not body and line.startswith("##sequence-region"):
+                    parts = line.split()
+                    if len(parts) > 1:
+                        order.setdefault(parts[1], len(order))
+                if not body:
                     header.append(line)
-                    if line.startswith("##sequence-region"):
-                        parts = line.split()
-                        if len(parts) > 1:
-                            order.setdefault(parts[1], len(order))
                 continue
-            if not line.strip():
-                continue
-            start = int(line.split("\t", start_column + 1)[start_column])
-            seqid = line.split("\t", 1)[0]
-            blocks.setdefault(seqid, []).append((start, k, line))
-            order.setdefault(seqid, len(order))
-    with open(dest, "w", encoding="utf-8", newline="\n") as out:
+            if line.strip():
+                body = True
+                seqid = line.split("\t", 1)[0]
+                if not runs or runs[-1] != seqid:
+                    runs.append(seqid)
+    contiguous = len(set(runs)) == len(runs)
+    for seqid in runs:
+        order.setdefault(seqid, len(order))
+    with (
+        open(src, encoding="utf-8", newline="\n") as fh,
+        open(dest, "w", encoding="utf-8", newline="\n") as out,
+    ):
         out.writelines(header)
+        block: list[tuple[int, int, str]] = []
+        blocks: dict[str, list[tuple[int, int, str]]] = {}
+        current = None
+        for k, line in enumerate(fh):
+            if line.startswith("#") or not line.strip():
+                continue  # the header is written; later comments are dropped
+            seqid = line.split("\t", 1)[0]
+            start = int(line.split("\t", start_column + 1)[start_column])
+            if not contiguous:
+                blocks.setdefault(seqid, []).append((start, k, line))
+                continue
+            if seqid != current:
+                out.writelines(text for _, _, text in sorted(block))
+                block, current = [], seqid
+            block.append((start, k, line))
+        out.writelines(text for _, _, text in sorted(block))
         for seqid in sorted(blocks, key=order.__getitem__):
-            out.writelines(line for _, _, line in sorted(blocks.pop(seqid)))
+            out.writelines(text for _, _, text in sorted(blocks.pop(seqid)))
 
 
 def _leading_header_lines(path: Path) -> int:
