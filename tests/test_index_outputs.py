@@ -17,6 +17,7 @@ import json
 import os
 import random
 import shutil
+import signal
 import subprocess
 import sys
 from pathlib import Path
@@ -278,3 +279,18 @@ def test_index_outputs_without_pysam_is_one_error_line(runs, tmp_path, monkeypat
         "error: --index-outputs needs the optional extra: pip install 'seqstate[index]' (pysam)"
     ]
     assert not out.exists()
+
+
+def test_a_stop_signal_at_the_commit_leaves_the_earlier_set(runs, tmp_path, held_run):
+    # held once every file (the indexed copies too) is staged, just before the commit
+    out = tmp_path / "o"
+    shutil.copytree(runs["cpg-island"], out)
+    before = {p.name: p.read_bytes() for p in out.iterdir()}
+    args = ["annotate", runs["cpg-island.fasta"], "-o", out, "--stem", "x", "--force"]
+    proc = held_run([*args, "--index-outputs", "--precision", "2", "-q"], "commit")
+    staged = [p for p in out.iterdir() if p.name.startswith(".seqstate-stage-")]
+    assert staged and (staged[0] / "x.gff3.gz.tbi").is_file()
+    proc.send_signal(signal.SIGTERM)
+    _, err = proc.communicate(timeout=120)
+    assert proc.returncode == 130, err
+    assert {p.name: p.read_bytes() for p in out.iterdir()} == before
