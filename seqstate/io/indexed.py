@@ -1,12 +1,13 @@
 """Sorted, bgzip-compressed, tabix-indexed copies of text outputs (``--index-outputs``).
 
-A GFF3 (or GTF) is sorted by seqid in the order the file first names them (its
-``##sequence-region`` lines, which follow the FASTA), then by start (a stable sort:
-a gene stays before its mRNA and first exon); ``#`` lines before the first feature
-are kept as the header.  A bedGraph or BED keeps its order (seqstate writes them
+A GFF3, GTF or BED12 is sorted for tabix (:func:`sort_gff_lines`): its records in
+the file's order (FASTA order for seqstate's files), each record's lines by start (a
+stable sort: a gene stays before its mRNA and first exon); ``#`` lines before the
+first feature are kept as the header.  A bedGraph keeps its order (seqstate writes it
 record by record, by start) and its ``track`` line.  The copy is BGZF-compressed
-(``NAME.gz``) and indexed: ``NAME.gz.tbi``, or ``NAME.gz.csi`` when the run has a
-record over 2^29 bases (512 Mbp), which the tabix index cannot address.
+(``NAME.gz``) and indexed: ``NAME.gz.tbi``, or ``NAME.gz.csi`` when a record of the
+run (its GFF3's ``##sequence-region`` end) passes 2^29 bases (512 Mbp), which the
+tabix index cannot address.
 
 Why pysam (its ``tabix_compress`` / ``tabix_index``, htslib inside) rather than
 Debian's ``bgzip``/``tabix`` programs (htslib 1.16): measured on a 114 MB GFF3 (1 M lines)
@@ -16,7 +17,7 @@ and a 58 MB bedGraph (2 M lines), pysam 0.24.1 takes 1.4 s + 0.3 s (GFF3) and 2.
 and 2 % smaller on the bedGraph.  Against that, pysam is one pip-installable wheel
 (14 MB installed, no dependencies) that works wherever the rest of seqstate installs:
 no system package (Debian's is 2.2 MB but needs root and apt in CI), no subprocess, and
-the bytes depend on one pinned Python package rather than on each machine's htslib.
+the bytes depend on the pysam release rather than on each machine's htslib build.
 Both give byte-identical files on a rerun.
 
 Every file is written to paths the caller stages (:class:`seqstate.io.atomic.OutputSet`),
