@@ -418,3 +418,25 @@ def test_region_run_and_a_gene_cut_by_unknown_bases(gene_run, tmp_path):
         b = compare_files(out / "n.genes.gtf", gene_run["truth"], "CDS", region)
         a.pop("inputs"), b.pop("inputs")
         assert a == b
+
+
+def test_record_ids_with_a_quote_or_a_control_character(gene_run, tmp_path):
+    # a quote has no escape in a GTF value: one error line, nothing written; a control
+    # character is written %XX in BED12 and GTF, as the tracks write it
+    seqs = read_fasta(gene_run["fasta"])
+    for rid, want in (('s"1', None), ("s\x011", "s%011")):
+        fasta = tmp_path / "q.fa"
+        fasta.write_text(f">{rid}\n{seqs['sim1']}\n")
+        out = tmp_path / f"o{len(str(want))}"
+        result = run("annotate", fasta, "-m", "gene-segment", "-o", out, "--tracks", "none",
+                     "--gene-formats", "bed12,gtf", "-q")  # fmt: skip
+        if want is None:
+            assert result.exit_code == 2
+            lines = result.output.strip().splitlines()
+            assert len(lines) == 1 and lines[0].startswith("error: mRNA ID 's\"1.mRNA.1'")
+            assert not out.exists() or not list(out.iterdir())
+        else:
+            assert result.exit_code == 0, result.output
+            assert (out / "q.genes.bed").read_text().startswith(f"{want}\t")
+            rows = gtf_rows(out / "q.genes.gtf")
+            assert rows and all(r[0] == want and f'"{want}.mRNA.' in r[8] for r in rows)

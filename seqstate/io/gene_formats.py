@@ -16,6 +16,7 @@ three coding bases, included in the CDS) and a ``stop_codon`` (the last three, n
 the CDS); a codon split by an intron is written as one line per piece, each with the
 frame of its first base.  Every line has ``gene_id "GENE"; transcript_id "MRNA";``
 (the GFF3 IDs).  Scores: those of the GFF3 exon and CDS lines; codons ``.``.
+In both, control characters of record IDs are written ``%XX``, as in the tracks.
 
 A partial gene (``partial=true`` in the GFF3) gets no codon lines and its CDS keeps
 every coding base: the GFF3 does not say which end was cut (a gene that runs into the
@@ -35,6 +36,7 @@ from typing import TextIO
 from seqstate.errors import FeatureFormatError, UsageError
 from seqstate.io.files import display_name, open_input, text_lines
 from seqstate.io.gff3 import Feature, iter_gff3
+from seqstate.io.tracks import escape_text
 
 __all__ = [
     "GENE_FORMATS",
@@ -173,10 +175,10 @@ def bed12_line(tx: Transcript) -> str:
         thick = (tx.start0, tx.start0)
     score = 0 if tx.score is None else int(round(1000 * min(1.0, max(0.0, tx.score))))
     cells = [
-        tx.seqid,
+        escape_text(tx.seqid),
         str(tx.start0),
         str(tx.end0),
-        tx.mrna_id,
+        escape_text(tx.mrna_id),
         str(score),
         tx.strand,
         str(thick[0]),
@@ -319,12 +321,14 @@ def _frame(before: int) -> int:
 
 def gtf_lines(tx: Transcript) -> list[tuple[int, str]]:
     """The GTF 2.2 lines of one mRNA as ``(start0, text)``, in genomic order."""
-    if any(c in s for s in (tx.gene_id, tx.mrna_id) for c in '"\t\n'):
+    if '"' in tx.gene_id or '"' in tx.mrna_id:
         raise UsageError(
-            f"mRNA ID {tx.mrna_id!r} (gene {tx.gene_id!r}) cannot be written in GTF: "
-            "an ID with '\"', a tab or a line break"
+            f"mRNA ID {tx.mrna_id!r} (gene {tx.gene_id!r}) cannot be written in GTF: a "
+            "GTF value is quoted and has no escape for '\"' (rename the FASTA record)"
         )
-    attrs = f'gene_id "{tx.gene_id}"; transcript_id "{tx.mrna_id}";'
+    gene, mrna = escape_text(tx.gene_id), escape_text(tx.mrna_id)
+    attrs = f'gene_id "{gene}"; transcript_id "{mrna}";'
+    seqid = escape_text(tx.seqid)  # control characters as %XX, as the tracks write them
     pieces = [(a, b) for a, b, _ in tx.cds]
     coding = sum(b - a for a, b in pieces)
     rows: list[tuple[int, int, str, int, str, str]] = []  # start0, rank, type, end0, score, frame
@@ -350,7 +354,7 @@ def gtf_lines(tx: Transcript) -> list[tuple[int, str]]:
     return [
         (
             a,
-            "\t".join([tx.seqid, SOURCE, kind, str(a + 1), str(b), score, tx.strand, frame, attrs])
+            "\t".join([seqid, SOURCE, kind, str(a + 1), str(b), score, tx.strand, frame, attrs])
             + "\n",
         )
         for a, _, kind, b, score, frame in rows
