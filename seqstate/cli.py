@@ -395,6 +395,21 @@ def model_check(model: str) -> None:
     callback=not_empty,
     help="Only the record IDs listed in this file, one per line.",
 )
+@click.option(
+    "--index-outputs",
+    is_flag=True,
+    default=False,
+    help="Also write the GFF3, bedGraphs and gene files sorted, bgzip-compressed and "
+    "tabix-indexed (NAME.gz + NAME.gz.tbi, or .csi past 512 Mbp; needs pysam).",
+)
+@click.option(
+    "--gene-formats",
+    default=None,
+    metavar="bed12,gtf",
+    callback=lambda _ctx, _param, value: () if value is None else tuple(value.split(",")),
+    help="Gene models: also write the gene structures as BED12 (STEM.genes.bed) and/or "
+    "GTF 2.2 (STEM.genes.gtf).",
+)
 @quiet_option
 @click.pass_obj
 def annotate_cmd(

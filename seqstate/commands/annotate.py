@@ -37,7 +37,7 @@ from seqstate.commands.records_table import (
 from seqstate.commands.runreport import output_checksums
 from seqstate.engine import jitcache
 from seqstate.errors import ImpossibleSequenceError, UsageError, escape_text
-from seqstate.io import tracks
+from seqstate.io import indexed, tracks
 from seqstate.io.atomic import OutputSet, check_outputs
 from seqstate.io.fasta import SequenceRecord, SkippedRecord, display_name, iter_sequences
 from seqstate.io.regions import Region, check_region, parse_region
@@ -117,6 +117,10 @@ class AnnotateOptions:
     #: a recalibrated model: also write each track's calibrated posterior
     #: (``STEM.TRACK.calibrated.bedgraph`` / ``.bw``, in --tracks' format)
     calibrated_tracks: bool = False
+    #: --index-outputs: GFF3 and bedGraphs also sorted, bgzip-compressed and tabix-indexed;
+    #: --gene-formats: gene structures also as these (seqstate.io.gene_formats)
+    index_outputs: bool = False
+    gene_formats: tuple[str, ...] = ()
 
 
 @dataclass
@@ -391,6 +395,7 @@ def annotate(
             f"--cds and --proteins need a gene model; model '{model.name}' has no genes"
         )
     gene_filter = _gene_filter(opts, given, kind.name, model.name)
+    opts = replace(opts, gene_formats=_browser_checks(opts, kind.name, model.name))
     if opts.cds is not None or opts.proteins is not None:
         from seqstate.io.cds import check_table
 
@@ -422,6 +427,7 @@ def annotate(
     if not to_stdout:
         names = output_names(stem, groups, want_bedgraph, want_bigwig, cal_groups)
         names += [n for n in (opts.cds, opts.proteins, opts.report) if n is not None]
+        names += indexed.browser_names(stem, names, opts.index_outputs, opts.gene_formats)
         reads = read_set(
             fasta=opts.input, model=opts.model, files=[opts.truth], records=opts.records
         )
@@ -431,7 +437,8 @@ def annotate(
     options = {
         k: list(v) if isinstance(v, tuple) else v  # as JSON reads it back
         for k, v in asdict(given).items()
-        if k not in ("command_line", "jobs") and not (k == "calibrated_tracks" and not v)
+        if k not in ("command_line", "jobs")
+        and not (k in ("calibrated_tracks", "index_outputs", "gene_formats") and not v)
     }
     options["decode"] = decode
     options["cds"], options["proteins"] = opts.cds, opts.proteins  # the names written
@@ -565,6 +572,21 @@ def gff_provenance(report: AnnotateReport) -> str:
     """The ``#`` lines of an annotate GFF3 after its header: tool and version, model name
     and checksum (no time, no path: the same run gives the same bytes)."""
     return gff3_provenance(report.model.name, report.model.sha256)
+
+
+def _browser_checks(opts: AnnotateOptions, kind: str, model: str) -> tuple[str, ...]:
+    """--index-outputs and --gene-formats checked; returns the gene formats in order."""
+    from seqstate.io.gene_formats import parse_gene_formats
+
+    formats = parse_gene_formats(",".join(opts.gene_formats)) if opts.gene_formats else ()
+    for option, asked in (("--index-outputs", opts.index_outputs), ("--gene-formats", formats)):
+        if asked and opts.out_dir == STDOUT:
+            raise UsageError(f"{option} needs an output folder (not -o -)")
+    if formats and kind != "genes":
+        raise UsageError(f"--gene-formats writes gene structures; model '{model}' has no genes")
+    if opts.index_outputs:
+        indexed.require_pysam()
+    return formats
 
 
 def _check_gene_filters(opts: AnnotateOptions) -> None:
@@ -824,6 +846,14 @@ def _write_set(
         report.records_limit = table.limit
         report.records_truncated = table.truncated
         if not to_stdout:
+            names += indexed.write_browser_outputs(
+                outs,
+                stem,
+                gff_target,
+                handles,
+                index=opts.index_outputs,
+                gene_formats=opts.gene_formats,
+            )
             report.records_table = table_name
             report.outputs = sorted(names + [f"{stem}.run.json"])
             if opts.report is not None and isinstance(tsv, _Tee):
