@@ -359,6 +359,18 @@ def output_files(workdir: Path) -> dict[str, bytes]:
     }
 
 
+def job_started(cluster: Cluster, job: str) -> bool:
+    """Whether a running job's script has begun: its log has the job script's first line."""
+    text = cluster.run("scontrol", "show", "job", "-o", job)
+    m = re.search(r"StdOut=(\S+)", text)
+    if m is None or "JobState=RUNNING" not in text:
+        return False
+    try:
+        return Path(m[1]).read_text().startswith("seqstate-slurm-job: ")
+    except FileNotFoundError:
+        return False
+
+
 @pytest.fixture(scope="module")
 def inputs(tmp_path_factory) -> Path:
     """The sample sheet: the demo, "big" (8 records, scattered into 3 groups), "small"."""
@@ -408,10 +420,10 @@ def test_workflow_on_slurm(slurm_cluster, inputs, tmp_path):
             queue = slurm_cluster.run("squeue", "-h", "-o", "%i %j %T").split("\n")
             for line in queue:
                 parts = line.split()
-                # a running job: its log exists, and it is killed part way
                 if parts[1:] == ["seqstate-annotate_group", "RUNNING"]:
-                    slurm_cluster.run("scancel", parts[0])
-                    cancelled = parts[0]
+                    if job_started(slurm_cluster, parts[0]):
+                        slurm_cluster.run("scancel", parts[0])
+                        cancelled = parts[0]
                     break
             time.sleep(0.1)
         first_out, _ = proc.communicate(timeout=300)
@@ -422,6 +434,8 @@ def test_workflow_on_slurm(slurm_cluster, inputs, tmp_path):
     assert cancelled is not None, "no annotate job was seen in the queue:\n" + first_out[-3000:]
     assert proc.returncode != 0, first_out[-3000:]  # a job failed: the run says so
     assert f"external jobid '{cancelled}'" in first_out
+    # it was killed part way, not after it ended
+    assert "JobState=CANCELLED" in slurm_cluster.run("scontrol", "show", "job", "-o", cancelled)
     first_seconds = time.monotonic() - started
     logs = job_logs(remote)
     (lost,) = [f for f in logs.values() if f["job"] == cancelled]
