@@ -318,13 +318,15 @@ def run_env(cluster: Cluster) -> dict[str, str]:
     return out
 
 
-#: threads and mem_mb of the rules in workflow/config.yaml (`resources:`)
-RESOURCES = {
-    "index": (1, 500),
-    "annotate_group": (2, 2000),
-    "merge": (1, 500),
-    "compare": (1, 2000),
-}
+def rule_resources() -> dict[str, tuple[int, int]]:
+    """Threads and mem_mb of the submitted rules, from workflow/config.yaml (`resources:`)."""
+    import yaml  # a dependency of snakemake
+
+    table = yaml.safe_load((WORKFLOW / "config.yaml").read_text())["resources"]
+    rules = {"index": "index", "annotate_group": "annotate", "merge": "merge", "compare": "compare"}
+    return {rule: (table[key]["threads"], table[key]["mem_mb"]) for rule, key in rules.items()}
+
+
 LOG_NAME = re.compile(r"(?P<rule>[a-z_]+)-(?P<wildcards>.*)-(?P<job>[0-9]+)\.log")
 
 
@@ -338,12 +340,14 @@ def job_logs(workdir: Path) -> dict[Path, dict[str, str]]:
     return out
 
 
-def check_slurm_jobs(logs: dict[Path, dict[str, str]]) -> None:
+def check_slurm_jobs(
+    logs: dict[Path, dict[str, str]], resources: dict[str, tuple[int, int]]
+) -> None:
     """Each log's first line is the job script's: the log's SLURM job ID, the rule's
     CPUs and memory (the SLURM_* variables slurmstepd sets in a job)."""
     for path, fields in logs.items():
         first = path.read_text().splitlines()[0]
-        threads, mem_mb = RESOURCES[fields["rule"]]
+        threads, mem_mb = resources[fields["rule"]]
         assert first.startswith("seqstate-slurm-job: ") and first.split()[1:] == [
             "id", fields["job"], "node", first.split()[4], "cpus", str(threads),
             "mem_mb", str(mem_mb),
@@ -458,8 +462,9 @@ def test_workflow_on_slurm(slurm_cluster, inputs, tmp_path):
     assert {(f["rule"], f["wildcards"]) for f in new.values()} == expected
     every = job_logs(remote)
     # every job of the workflow ran as a SLURM job (split and summary run where snakemake runs)
-    assert {f["rule"] for f in every.values()} == set(RESOURCES)
-    check_slurm_jobs(every)
+    resources = rule_resources()
+    assert {f["rule"] for f in every.values()} == set(resources)
+    check_slurm_jobs(every, resources)
 
     # 3. the outputs equal the local run's, byte for byte
     ours, theirs = output_files(remote), output_files(local)
