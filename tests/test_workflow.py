@@ -436,3 +436,12 @@ def test_gene_and_exon_accuracy_in_the_summary(gene_project):
     assert {r["type"] for r in others if r["assembly"] == "genes"} >= {"gene", "mRNA"}
     for r in others:
         assert r["exon_sensitivity"] == r["gene_specificity"] == "NA", r
+
+
+def test_bad_gene_output_key_fails_before_any_job(gene_project, tmp_path):
+    work = tmp_path / "work"
+    result = snakemake(work, gene_project["sheet"], config=("annotate={'cds': 'maybe'}",))
+    assert result.returncode != 0
+    lines = result.stderr.strip().splitlines()
+    assert lines == ["error: config annotate.cds is 'maybe', expected true or false"], result.stderr
+    assert not (work / "results").exists()
