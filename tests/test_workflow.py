@@ -147,6 +147,10 @@ def write(path: Path, text: str) -> Path:
         ("assembly\tfasta\tmodel\nx y\ta.fa\t\n", "line 2 (assembly 'x y'): the assembly name"),
         ("assembly\tfasta\tmodel\n\ta.fa\t\n", "line 2: the 'assembly' cell is empty"),
         ("assembly\tfasta\tmodel\treference\nx\ta.fa\t\tr.gff3\n", "reference"),
+        (
+            "assembly\tfasta\tmodel\tcds\nx\ta.fa\t\tmaybe\n",
+            "line 2 (assembly 'x'): the 'cds' cell is 'maybe', expected yes or no",
+        ),
     ],
 )
 def test_sheet_errors(tmp_path, rows, message):
@@ -163,6 +167,20 @@ def test_sheet_resolves_paths_from_its_folder(tmp_path):
     (row,) = read_sheet(sheet, default_model="casino")
     assert Path(row.fasta).resolve() == (tmp_path / "a.fa").resolve()
     assert row.model == "casino" and row.reference is None and row.line == 2
+
+
+def test_sheet_gene_output_cells(tmp_path):
+    """cds, proteins, report: yes / no per row; an empty cell or no column is the default."""
+    write(tmp_path / "a.fa", ">a\nACGT\n")
+    sheet = write(
+        tmp_path / "s.tsv",
+        "assembly\tfasta\tmodel\tcds\treport\nx\ta.fa\t\tYes\t0\ny\ta.fa\t\t\tfalse\n",
+    )
+    x, y = read_sheet(sheet)
+    assert x.outputs == {"cds": True, "proteins": None, "report": False}
+    assert y.outputs == {"cds": None, "proteins": None, "report": False}
+    assert x.wants("cds", False) and not x.wants("report", True) and x.wants("proteins", True)
+    assert y.wants("cds", True) and not y.wants("cds", False)
 
 
 # ---------------------------------------------------------------- the workflow end to end
@@ -268,6 +286,10 @@ def test_summary_table(project):
     compare = json.loads((results / "cex_draft1" / "cex_draft1.compare.json").read_text())
     sn = compare["nucleotide"]["strand_aware"]["sensitivity"]
     assert demo["type"] == "CpG_island" and demo["nucleotide_sensitivity"] == f"{sn:.4f}"
+    # islands are compared by overlap: no exon or gene figures
+    assert [
+        demo[f"{level}_{m}"] for level in ("exon", "gene") for m in ("sensitivity", "specificity")
+    ] == ["NA"] * 4
     assert rows[2]["nucleotide_sensitivity"] == "NA"  # no reference for "small"
 
 
@@ -337,3 +359,89 @@ def test_fit_first_annotates_with_the_fitted_model(project):
 def test_snakemake_is_importable():
     """snakemake is in the test extra (pyproject.toml), so this test cannot be skipped."""
     assert importlib.util.find_spec("snakemake") is not None
+
+
+# ---------------------------------------------------------------- gene outputs
+
+
+@pytest.fixture(scope="module")
+def gene_project(tmp_path_factory):
+    """A gene-model assembly with its synthetic truth (``seqstate sample --truth``), the CDS
+    and proteins asked for in the sample sheet and the HTML page by the config key."""
+    root = tmp_path_factory.mktemp("wf-genes")
+    data = root / "data"
+    data.mkdir()
+    seqstate("sample", "gene-segment", "--length", 20000, "--records", 3, "--seed", 5,
+             "--prefix", "gx", "-o", data / "g.fa", "--truth", data / "g.truth.gff3")  # fmt: skip
+    seqstate("sample", "cpg-island", "--length", 15000, "--records", 2, "--seed", 13,
+             "--prefix", "smol", "-o", data / "small.fa")  # fmt: skip
+    sheet = write(
+        data / "samples.tsv",
+        "assembly\tfasta\tmodel\treference\tcds\tproteins\treport\n"
+        "genes\tg.fa\tgene-segment\tg.truth.gff3\tyes\tyes\t\n"
+        "small\tsmall.fa\tcpg-island\t\t\t\tno\n",
+    )
+    work = root / "work"
+    result = snakemake(work, sheet, config=("annotate={'report': True, 'tracks': 'bedgraph'}",))
+    assert result.returncode == 0, result.stderr[-3000:]
+    return {"data": data, "sheet": sheet, "work": work}
+
+
+def test_gene_outputs_equal_a_direct_run(gene_project, tmp_path, monkeypatch):
+    """The assembly with gene outputs is annotated whole: the same files, byte for byte, as
+    one ``seqstate annotate --cds --proteins --report`` into the same relative folder with
+    --force (the page shows both); the run report differs only in its command line."""
+    results = gene_project["work"] / "results" / "genes"
+    assert not (results / "groups.d").exists()  # not scattered
+    report = json.loads((results / "genes.run.json").read_text())
+    monkeypatch.chdir(tmp_path)
+    seqstate("annotate", report["options"]["input"], "-m", "gene-segment", "-o", "results/genes",
+             "--stem", "genes", "--cds", "genes.cds.fna", "--proteins", "genes.proteins.faa",
+             "--report", "genes.report.html", "--jobs", 2, "--force", "-q")  # fmt: skip
+    direct = tmp_path / "results" / "genes"
+    names = sorted(p.name for p in direct.iterdir())
+    assert {"genes.cds.fna", "genes.proteins.faa", "genes.report.html"} <= set(names)
+    for name in names:
+        if not name.endswith(".run.json"):
+            assert (results / name).read_bytes() == (direct / name).read_bytes(), name
+    want = json.loads((direct / "genes.run.json").read_text())
+    report.pop("command_line"), want.pop("command_line")
+    assert report == want
+    # the scattered one writes none (its sheet cell says no to the config's report)
+    small = gene_project["work"] / "results" / "small"
+    assert (small / "groups.d").is_dir()
+    assert not list(small.glob("*.html")) and not list(small.glob("*.f?a"))
+
+
+def test_gene_and_exon_accuracy_in_the_summary(gene_project):
+    """The CDS row of an assembly with a reference has the exon- and gene-level figures of
+    its `seqstate compare` report; rows of other types and assemblies have NA."""
+    results = gene_project["work"] / "results"
+    compare = json.loads((results / "genes" / "genes.compare.json").read_text())
+    assert compare["type"] == "CDS" and compare["rule"] == "exon"
+    with open(results / "summary.tsv", newline="") as fh:
+        rows = list(csv.DictReader(fh, delimiter="\t"))
+    (cds,) = [r for r in rows if r["assembly"] == "genes" and r["type"] == "CDS"]
+    assert cds["exon_sensitivity"] == f"{compare['feature']['sensitivity']:.4f}"
+    assert cds["exon_specificity"] == f"{compare['feature']['specificity']:.4f}"
+    assert cds["gene_sensitivity"] == f"{compare['gene']['sensitivity']:.4f}"
+    assert cds["gene_specificity"] == f"{compare['gene']['specificity']:.4f}"
+    # the figures are counts over the sampled truth's genes: a fraction with that denominator
+    genes = compare["counts"]["gene"]
+    assert genes["reference"] > 0
+    assert float(cds["gene_sensitivity"]) == pytest.approx(
+        genes["matched_reference"] / genes["reference"], abs=5e-5
+    )
+    others = [r for r in rows if r is not cds]
+    assert {r["type"] for r in others if r["assembly"] == "genes"} >= {"gene", "mRNA"}
+    for r in others:
+        assert r["exon_sensitivity"] == r["gene_specificity"] == "NA", r
+
+
+def test_bad_gene_output_key_fails_before_any_job(gene_project, tmp_path):
+    work = tmp_path / "work"
+    result = snakemake(work, gene_project["sheet"], config=("annotate={'cds': 'maybe'}",))
+    assert result.returncode != 0
+    lines = result.stderr.strip().splitlines()
+    assert lines == ["error: config annotate.cds is 'maybe', expected true or false"], result.stderr
+    assert not (work / "results").exists()

@@ -12,6 +12,10 @@ order; other columns are ignored):
   the config's ``default_model``.
 - ``reference`` (optional): a trusted GFF3 annotation; when given, the assembly's
   features are compared with it and the accuracy goes into the summary table.
+- ``cds``, ``proteins``, ``report`` (optional): ``yes`` or ``no`` (also ``true``/
+  ``false``, ``1``/``0``): write the spliced CDS, the protein translations (gene
+  models) or the HTML page of the run for this assembly; an empty cell (or no
+  column): the config's default.
 
 Blank lines and lines starting with ``#`` are skipped.  Every problem is a
 :class:`SheetError` whose message names the sheet, the 1-based line and the
@@ -22,11 +26,14 @@ from __future__ import annotations
 
 import csv
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 REQUIRED = ("assembly", "fasta", "model")
-OPTIONAL = ("reference",)
+GENE_OUTPUTS = ("cds", "proteins", "report")
+OPTIONAL = ("reference", *GENE_OUTPUTS)
+YES = ("yes", "true", "1")
+NO = ("no", "false", "0")
 NAME = re.compile(r"[A-Za-z0-9._-]+")
 
 
@@ -44,6 +51,13 @@ class Assembly:
     model: str
     reference: str | None
     line: int
+    #: the gene output cells: True, False or None (empty: the config's default), by column
+    outputs: dict[str, bool | None] = field(default_factory=dict)
+
+    def wants(self, output: str, default: bool) -> bool:
+        """Whether this assembly writes ``output`` (cds, proteins or report)."""
+        value = self.outputs.get(output)
+        return default if value is None else value
 
 
 def _resolve(base: Path, value: str) -> str:
@@ -118,7 +132,16 @@ def read_sheet(path: str | Path, default_model: str = "cpg-island") -> list[Asse
             reference = _resolve(base, reference)
             if not Path(reference).is_file():
                 raise SheetError(f"{where}: reference '{reference}' does not exist")
-        out.append(Assembly(name, fasta, model, reference, line))
+        outputs: dict[str, bool | None] = {}
+        for column in GENE_OUTPUTS:
+            cell = row.get(column, "").lower()
+            if cell and cell not in YES + NO:
+                raise SheetError(
+                    f"{where}: the '{column}' cell is {row[column]!r}, expected yes or no "
+                    "(or empty: the config's default)"
+                )
+            outputs[column] = None if not cell else cell in YES
+        out.append(Assembly(name, fasta, model, reference, line, outputs))
     if not out:
         raise SheetError(f"sample sheet '{shown}' has a header and no rows")
     return out

@@ -11,7 +11,11 @@ features: the length-weighted mean of the table's ``mean_posterior``; NA when th
 table has no such column), records, total_bases (bases annotated), the accuracy
 against the reference for the compared type (strand-aware nucleotide and
 feature sensitivity and specificity from ``seqstate compare``; NA otherwise),
-model, model_sha256, seqstate_version (from the run report).
+exon_sensitivity, exon_specificity (exact-exon figures: the feature figures of a
+``CDS`` or ``exon`` comparison, whose rule matches both ends; NA for other types),
+gene_sensitivity, gene_specificity (genes with a right transcript, from the
+``gene`` figures of such a comparison; NA otherwise), model, model_sha256,
+seqstate_version (from the run report).
 Numbers are written with 4 decimals; the file has no timestamp.
 """
 
@@ -34,6 +38,10 @@ COLUMNS = [
     "nucleotide_specificity",
     "feature_sensitivity",
     "feature_specificity",
+    "exon_sensitivity",
+    "exon_specificity",
+    "gene_sensitivity",
+    "gene_specificity",
     "model",
     "model_sha256",
     "seqstate_version",
@@ -76,6 +84,8 @@ def rows_of(name: str, run_json: str, features_tsv: str, compare_json: str | Non
     for t in types:
         count, bases, weighted = per_type.get(t, [0, 0, 0.0])
         acc = accuracy.get(t)
+        exon = acc["feature"] if acc and acc.get("rule") == "exon" else None
+        gene = acc.get("gene") if acc else None
         yield {
             "assembly": name,
             "type": t,
@@ -90,6 +100,10 @@ def rows_of(name: str, run_json: str, features_tsv: str, compare_json: str | Non
             ),
             "feature_sensitivity": _num(acc["feature"]["sensitivity"] if acc else None),
             "feature_specificity": _num(acc["feature"]["specificity"] if acc else None),
+            "exon_sensitivity": _num(exon["sensitivity"] if exon else None),
+            "exon_specificity": _num(exon["specificity"] if exon else None),
+            "gene_sensitivity": _num(gene["sensitivity"] if gene else None),
+            "gene_specificity": _num(gene["specificity"] if gene else None),
             **common,
         }
 
