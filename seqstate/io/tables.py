@@ -125,24 +125,28 @@ def render_tables(model: Model) -> list[tuple[str, str]]:
                 "state\tend\n" + "".join(f"{n}\t{_fmt(v)}\n" for n, v in zip(names, model.end)),
             )
         )
+    # values go through .tolist() (Python floats: repr is _fmt's text) row by row, the
+    # contexts are spelled once per order: the same text, about 3x faster on 800 states
     lines = ["from\t" + "\t".join(names) + "\n"]
-    for i, n in enumerate(names):
-        cells = ["" if v == 0 else _fmt(v) for v in model.transitions[i]]
-        lines.append(n + "\t" + "\t".join(cells) + "\n")
+    for n, row in zip(names, model.transitions.tolist()):
+        lines.append(n + "\t" + "\t".join(["" if v == 0 else repr(v) for v in row]) + "\n")
     out.append((TABLE_FILES["transitions"], "".join(lines)))
     a = len(model.alphabet)
+
+    def contexts(j: int) -> list[str]:
+        return [model.context_string(j, c) or EMPTY_CONTEXT for c in range(a**j)]
+
+    lower = {j: (contexts(j), model.lower_emissions[j]) for j in sorted(model.lower_emissions)}
+    top = contexts(model.order)
     lines = ["state\tcontext\t" + "\t".join(model.alphabet) + "\n"]
     for i, n in enumerate(names):
-        for j in sorted(model.lower_emissions):
-            arr = model.lower_emissions[j]
-            for c in range(a**j):
-                if np.all(np.isnan(arr[i, c])):
-                    continue
-                ctx = model.context_string(j, c) or EMPTY_CONTEXT
-                lines.append(f"{n}\t{ctx}\t" + "\t".join(_fmt(v) for v in arr[i, c]) + "\n")
-        for c in range(a**model.order):
-            ctx = model.context_string(model.order, c) or EMPTY_CONTEXT
-            lines.append(f"{n}\t{ctx}\t" + "\t".join(_fmt(v) for v in model.emissions[i, c]) + "\n")
+        for ctxs, arr in lower.values():
+            given = ~np.all(np.isnan(arr[i]), axis=-1)
+            for c, (ctx, row) in enumerate(zip(ctxs, arr[i].tolist())):
+                if given[c]:
+                    lines.append(f"{n}\t{ctx}\t" + "\t".join(map(repr, row)) + "\n")
+        for ctx, row in zip(top, model.emissions[i].tolist()):
+            lines.append(f"{n}\t{ctx}\t" + "\t".join(map(repr, row)) + "\n")
     out.append((TABLE_FILES["emissions"], "".join(lines)))
     if model.mask is not None:
         rows = model.mask.reshape(len(names), -1)

@@ -48,8 +48,12 @@ def backoff_rows(model: Model) -> dict[int, np.ndarray]:
     if k == 0:
         return out
     weights = np.zeros((m, a**k))  # every row is written below
+    seen: dict[bytes, np.ndarray] = {}  # states that share a table share its k-mers
     for s in range(m):
-        weights[s] = stationary_kmers(model.emissions[s], a, k)
+        key = model.emissions[s].tobytes()
+        if key not in seen:
+            seen[key] = stationary_kmers(model.emissions[s], a, k)
+        weights[s] = seen[key]
     for j in range(k):
         # group the k-mers by their last j symbols: index = c % a**j
         w = weights.reshape(m, a ** (k - j), a**j)
