@@ -859,6 +859,32 @@ def test_cursor_snapshots_equal_one_pass_from_the_checkpoint(monkeypatch, block)
             assert lg == pytest.approx(want_log, rel=0, abs=1e-9), (pos, forward)
 
 
+@pytest.mark.parametrize("block", [17, 40, 333])
+def test_sparse_span_in_sub_blocks_is_the_same_to_the_bit(monkeypatch, block):
+    """The chain-sparse posterior swept in sub-blocks (what blocks over SPAN_SWEEP_MAX get)
+    gives exactly the values of one sweep per block, and matches the generic kernels."""
+    from seqstate.engine.sparse import posterior as sparse_posterior
+
+    model = load_model("gene-segment")
+    monkeypatch.setattr(api, "_USE_SMALL", True)
+    t = api.prepare(model)
+    assert _sparse_kernels_used(t)
+    rng = np.random.default_rng(block)
+    codes = _possible(t, rng, 3000, p_unknown=0.01)
+    group = np.arange(t.n_states) % 5
+    one = api.posterior(t, codes, group=group, n_groups=5, block=block, dtype=np.float64)
+    for rows in (1, 2, 7, block - 1):
+        monkeypatch.setattr(sparse_posterior, "SPAN_SWEEP_MAX", 8)
+        monkeypatch.setattr(sparse_posterior, "SPAN_ROWS", rows)
+        sub = api.posterior(t, codes, group=group, n_groups=5, block=block, dtype=np.float64)
+        assert np.array_equal(sub.values, one.values), rows
+        assert sub.loglik == one.loglik
+    monkeypatch.setattr(api, "_USE_SMALL", False)
+    ref = api.posterior(t, codes, group=group, n_groups=5, block=block, dtype=np.float64)
+    # the generic kernels as oracle
+    np.testing.assert_allclose(one.values, ref.values, rtol=0, atol=1e-9)
+
+
 def test_chain_sparse_restricted_equals_generic_kernel(specialised):
     """The chain-sparse backend's restricted forward against kernels_query.restricted_forward
     (the generic kernel as oracle), with and without emissions."""
