@@ -417,3 +417,27 @@ def test_kind_without_a_windowed_decoder_uses_the_whole_record_path():
     model, tables, seq = _cpg_record("cpg-island", 20_000, seed=33, unknown=5)
     feats = _compare(Plain(), model, tables, seq, "posterior", 0.5, 50, 10, 500, 1000, 99)
     assert len(feats) >= 1
+
+
+def test_genes_on_two_threads_raise_the_checkpoints_error(monkeypatch):
+    """With two threads a Viterbi decoding runs beside the checkpoint passes; when the
+    checkpoints fail, their error is the one raised (as on one thread), after the decoding
+    thread has stopped, and nothing reaches the writers."""
+    model, tables, seq = _gene_record(20_000, seed=31)
+    decoding = []
+    real = gene_stream.GeneStream.predictions
+
+    def predictions(self, rp, block):
+        decoding.append(block)
+        return real(self, rp, block)
+
+    def failing(rec, threads=None):
+        assert threads == 1  # the other thread decodes
+        raise ImpossibleSequenceError("record 'chrS' has probability zero (test)")
+
+    monkeypatch.setattr(gene_stream.GeneStream, "predictions", predictions)
+    monkeypatch.setattr(gene_stream, "RecordPass", failing)
+    with pytest.raises(ImpossibleSequenceError, match=r"\(test\)"):
+        _streamed(GENES, model, tables, seq, "viterbi", 0.5, 1, 10, 600, 1800,
+                  sink_log=(log := []), threads=2)  # fmt: skip
+    assert decoding == [600] and log == []

@@ -40,6 +40,12 @@ def default_block(n: int, minimum: int = MIN_BLOCK) -> int:
     return max(minimum, int(math.isqrt(max(n, 1))) + 1)
 
 
+def block_of(n: int, block: int | None) -> int:
+    """The checkpoint block length of an ``n``-position record: ``block`` (clipped to
+    1..n), or :func:`default_block` of ``n`` for None."""
+    return default_block(n) if block is None else max(1, min(int(block), n))
+
+
 def rescale_limit(smallest_factor: float) -> float:
     """Rescaling threshold that keeps one step's product above :data:`SAFE_FLOOR`.
 

@@ -18,7 +18,7 @@ import numpy as np
 from numpy.typing import DTypeLike
 
 from seqstate.engine import passes
-from seqstate.engine._common import MIN_BLOCK, default_block
+from seqstate.engine._common import MIN_BLOCK, block_of, default_block
 from seqstate.engine.backends import Backend
 from seqstate.engine.buffers import work_buffer
 from seqstate.engine.tables import (
@@ -142,7 +142,7 @@ def posterior(
     if group.shape != (m,) or (m and (int(group.max()) >= n_groups or int(group.min()) < -1)):
         # the kernels write out[i, group[s]] without bounds checks
         raise ValueError(f"group must hold one column in [-1, {n_groups}) per state")
-    block = default_block(n) if block is None else max(1, min(int(block), n))
+    block = block_of(n, block)
     nblocks = (n + block - 1) // block
     out = np.zeros((n, n_groups), dtype=dtype)
     ck = (np.zeros((nblocks, m)), np.zeros(nblocks), np.zeros((nblocks, m)), np.zeros(nblocks))

@@ -42,7 +42,7 @@ import numpy as np
 from numpy.typing import DTypeLike
 
 from seqstate.engine import api
-from seqstate.engine._common import default_block
+from seqstate.engine._common import block_of
 from seqstate.engine.passes import _Generic, _Small, _Sparse, first_failure
 from seqstate.engine.tables import EngineTables
 from seqstate.errors import ImpossibleSequenceError
@@ -50,6 +50,7 @@ from seqstate.errors import ImpossibleSequenceError
 __all__ = [
     "CodeReader",
     "RecordCheckpoints",
+    "block_of",
     "checkpoints",
     "posterior_blocks",
     "view",
@@ -230,7 +231,7 @@ def checkpoints(
         raise ValueError(f"chunk must be at least 1, not {chunk}")
     m = tables.n_states
     group, n_groups = _check_group(m, group, n_groups)
-    block = default_block(n) if block is None else max(1, min(int(block), n))
+    block = block_of(n, block)
     nblocks = (n + block - 1) // block
     read = _Reader(codes, n)
     fam = _family(tables, group, n_groups)

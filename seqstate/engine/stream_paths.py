@@ -24,6 +24,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from seqstate.engine import api, mea
+from seqstate.engine._common import block_of
 from seqstate.engine.buffers import work_buffer
 from seqstate.engine.generic import viterbi as generic_viterbi
 from seqstate.engine.small import viterbi as small_viterbi
@@ -59,10 +60,6 @@ class PathPiece:
     start0: int
     end0: int
     states: np.ndarray
-
-
-def _block_of(n: int, block: int | None) -> int:
-    return api.default_block(n) if block is None else max(1, min(int(block), n))
 
 
 def _read(reader: Callable[[int, int], np.ndarray], a: int, b: int, what: str) -> np.ndarray:
@@ -263,7 +260,7 @@ def viterbi_pieces(
     if chunk < 1:
         raise ValueError(f"chunk must be a positive number of positions, got {chunk}")
     one_piece = one_piece and block is None
-    block = _block_of(n, block)
+    block = block_of(n, block)
     nblocks = (n + block - 1) // block
     fam = _Generic(tables, n, block) if generic else _family(tables, n, block)
     if one_piece and nblocks > 1 and n * fam.width * fam.bp_dtype.itemsize <= BACKPOINTER_BUDGET:

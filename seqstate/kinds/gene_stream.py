@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import dataclasses
 from collections.abc import Callable, Iterable, Iterator
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import ThreadPoolExecutor, wait
 from typing import TextIO
 
 import numpy as np
@@ -119,13 +119,16 @@ class GeneStream:
     def __init__(self, rec: StreamRecord, gff: GFF3Writer, tsv: TextIO) -> None:
         self.rec, self.gff, self.tsv = rec, gff, tsv
 
-    def predictions(self, rp: RecordPass) -> list[GenePrediction]:
+    def predictions(self, rp: RecordPass | None, block: int) -> list[GenePrediction]:
+        """The record's genes, decoded with checkpoint blocks of ``block`` bases (``rp``:
+        the record's checkpoints, which posterior decoding needs and Viterbi does not)."""
         rec = self.rec
         if rec.decode == "viterbi":
             _, pieces = stream_paths.viterbi_pieces(
-                rec.tables, rec.n, rec.read_codes, block=rp.block, record=rec.seqid
+                rec.tables, rec.n, rec.read_codes, block=block, record=rec.seqid
             )
         else:
+            assert rp is not None
             cls, n_cls = decoding_classes(rec.model)
             gain = GainReader(rp, cls, n_cls)
             pieces = stream_paths.mea_pieces(
@@ -145,8 +148,7 @@ class GeneStream:
 
     def run(self, track_sink: TrackSink) -> tuple[int, float, int]:
         rec = self.rec
-        rp = RecordPass(rec)
-        genes = self.predictions(rp)
+        rp, genes = self.decoded()
         written: list[GenePrediction] = []
         tally = _Tally(rec.gene_filter, rec.counts, written)
         self.masks = gene_masks(rec.model)
@@ -197,6 +199,31 @@ class GeneStream:
         if rec.on_genes is not None:
             rec.on_genes(written)
         return count, rp.loglik, unknown
+
+    def decoded(self) -> tuple[RecordPass, list[GenePrediction]]:
+        """The record's checkpoints and genes.
+
+        With two threads a Viterbi decoding runs on the second thread while this one
+        makes the forward and then the backward checkpoints (three passes on two threads
+        instead of two, then one); a failing record raises the checkpoints' error, as on
+        one thread.
+        """
+        rec = self.rec
+        if rec.threads < 2 or rec.decode != "viterbi":
+            rp = RecordPass(rec)
+            return rp, self.predictions(rp, rp.block)
+        block = engine_stream.block_of(rec.n, rec.block)
+        with ThreadPoolExecutor(max_workers=1, thread_name_prefix="seqstate-viterbi") as pool:
+            fut = pool.submit(self.predictions, None, block)
+            try:
+                rp = RecordPass(rec, threads=1)
+            except BaseException:
+                fut.cancel()
+                wait([fut])
+                raise
+            genes = fut.result()
+        assert rp.block == block
+        return rp, genes
 
     def scorer(self, w: Window) -> tuple[ScoreLine, ExactScore]:
         """The (remembering) line scores and exact probabilities of genes on ``w``."""

@@ -67,7 +67,8 @@ class StreamRecord:
     ``seqid``.  The readers take 0-based half-open positions ``[a, b)`` of the
     stretch: ``read_bases`` its raw bases (bytes), ``read_codes`` its emission codes
     (as ``api.encode`` of the whole stretch gives them, order-k context included),
-    ``read_symbols`` its symbol indices (negative for an unknown base).
+    ``read_symbols`` its symbol indices (negative for an unknown base); the readers
+    may be called from two threads at once (annotate's read by position).
     ``decode``, ``min_posterior``, ``min_length`` and ``split_unknown`` are annotate's
     options; ``threads`` (1 or 2) the threads the engine may use; ``window`` the
     window length in bases (whole blocks; at least one block); ``block`` the
@@ -132,7 +133,9 @@ class Window:
 class RecordPass:
     """The checkpoints of one record and the windows and span views made from them."""
 
-    def __init__(self, rec: StreamRecord) -> None:
+    def __init__(self, rec: StreamRecord, threads: int | None = None) -> None:
+        """The checkpoints of ``rec`` on ``threads`` threads (None: ``rec.threads``; the
+        windows use ``rec.threads`` either way)."""
         if rec.n <= 0:
             raise ValueError("empty record")
         self.rec = rec
@@ -142,7 +145,7 @@ class RecordPass:
             rec.n,
             rec.read_codes,
             block=rec.block,
-            threads=rec.threads,
+            threads=rec.threads if threads is None else threads,
             record=rec.seqid,
         )
         self.n = rec.n
