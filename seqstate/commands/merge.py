@@ -22,6 +22,13 @@ the same stem:
 - bigWig tracks: one file with every record's header entry and the merged runs
   read back from the group files (pyBigWig);
 - records table: the header line once, then every group's rows in order;
+- gene models (:mod:`seqstate.commands.merge_outputs`): the CDS and protein FASTA
+  (``--cds``/``--proteins``) and ``STEM.genes.bed`` whole, one group after another;
+  ``STEM.genes.gtf`` its version line once, then every group's lines; the
+  ``--index-outputs`` copies (``NAME.gz`` + ``.tbi``/``.csi``) made again from the
+  gathered plain files.  Which of them are written is read from the groups' reports
+  (their options), which must agree; a group run with ``--report`` (an HTML page of
+  one run) is refused: the page is made by annotating the whole assembly;
 - run report: the groups' report with ``totals`` added up and ``records`` and
   ``skipped_records`` the first ``records_limit`` entries of the groups' in order
   (each group lists its first ones, so the gathered first ones are among them).
