@@ -256,3 +256,43 @@ def test_output_names_and_kinds():
         "bed12",
         "bed",
     ]
+
+
+def test_index_kind_follows_the_whole_set(tmp_path, monkeypatch):
+    """A group whose longest record passes the tabix limit has ``.csi`` copies, one
+    without has ``.tbi``: the gathered set has the kind of a whole run (``.csi``).  The
+    limit is lowered to 25 kb here (it is 2^29 bases) so two sampled records show it."""
+    from seqstate.io import indexed
+
+    monkeypatch.setattr(indexed, "CSI_ABOVE", 25000)
+    ok("sample", "gene-segment", "--length", 30000, "--records", 1, "--seed", 7,
+       "--prefix", "long", "-o", tmp_path / "a.fa")  # fmt: skip
+    ok("sample", "gene-segment", "--length", 20000, "--records", 2, "--seed", 8,
+       "--prefix", "short", "-o", tmp_path / "b.fa")  # fmt: skip
+    fasta = tmp_path / "ab.fa"
+    fasta.write_text((tmp_path / "a.fa").read_text() + (tmp_path / "b.fa").read_text())
+    opts = ["--stem", "ab", "--gene-formats", "gtf", "--index-outputs", *COMMON]
+    ok("annotate", fasta, "-o", tmp_path / "direct", *opts)
+    ok("annotate", fasta, "-o", tmp_path / "g0", "--records", "long1", *opts)
+    ok("annotate", fasta, "-o", tmp_path / "g1", "--records", "short1,short2", *opts)
+    assert (tmp_path / "g0" / "ab.gff3.gz.csi").is_file()
+    assert (tmp_path / "g1" / "ab.gff3.gz.tbi").is_file()
+    given = [tmp_path / "g1" / "ab.run.json", tmp_path / "g0" / "ab.run.json"]  # reordered
+    ok("merge", *given, "-o", tmp_path / "m", "-q")
+    names = same_files(tmp_path / "m", tmp_path / "direct")
+    assert "ab.gff3.gz.csi" in names and not [n for n in names if n.endswith(".tbi")]
+    merged = json.loads((tmp_path / "m" / "ab.run.json").read_text())
+    want = json.loads((tmp_path / "direct" / "ab.run.json").read_text())
+    assert without_invocation(merged) == without_invocation(want)
+
+
+def test_force_replaces_the_earlier_set(runs, tmp_path):
+    """With --force, a file the earlier run's report lists and this set does not write (a
+    page of a whole run) goes with the commit, as annotate --force replaces its set."""
+    out = tmp_path / "m"
+    ok("annotate", runs / "g.fa", "-o", out, "--stem", "asm", "--report", "asm.html", *GENES,
+       *COMMON)  # fmt: skip
+    assert (out / "asm.html").is_file()
+    ok("merge", *reports(runs), "-o", out, "--force", "-q")
+    assert not (out / "asm.html").exists()
+    same_files(out, runs / "direct")
