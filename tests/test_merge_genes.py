@@ -296,3 +296,25 @@ def test_force_replaces_the_earlier_set(runs, tmp_path):
     ok("merge", *reports(runs), "-o", out, "--force", "-q")
     assert not (out / "asm.html").exists()
     same_files(out, runs / "direct")
+
+
+@pytest.mark.parametrize(
+    "option, value, expected",
+    [
+        (
+            "cds",
+            "asm.gff3",
+            "'options.cds' is 'asm.gff3' (a string), expected a file name of its own",
+        ),
+        ("proteins", "asm.cds.fna", "'options.proteins' is 'asm.cds.fna' (a string), expected a"),
+        ("cds", "../x.fna", "'options.cds' is '../x.fna' (a string), expected a plain file name"),
+    ],
+    ids=["an-own-output", "another-option", "a-path"],
+)
+def test_report_whose_named_output_is_not_its_own_file(runs, tmp_path, option, value, expected):
+    report = _copy_group(runs / "g1", tmp_path / "g1")
+    doc = json.loads(report.read_text())
+    doc["options"][option] = value
+    report.write_text(json.dumps(doc, indent=2) + "\n")
+    message = one_error(run("merge", report, "-o", tmp_path / "m"), code=1)
+    assert message.startswith(f"error: {report}: ") and expected in message, message

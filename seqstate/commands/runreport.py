@@ -434,6 +434,8 @@ _INDEXED = tuple(
     for end in (".gz", ".gz.tbi", ".gz.csi")
 )
 _KINDS = _PLAIN_KINDS + _GENE_KINDS + _INDEXED
+#: Outputs every annotate run writes (after ``STEM``).
+_REQUIRED = (".run.json", ".gff3", ".features.tsv", TABLE_SUFFIX)
 #: Options of a report that name an output file of the run's folder (or are null).
 NAMED_OUTPUTS = ("cds", "proteins", "report")
 
@@ -456,6 +458,13 @@ def _check_outputs(
         value = report["options"].get(option)
         if value is not None:
             named[option] = _plain_name(c, f"options.{option}", value)
+            own = [stem + end for end in _REQUIRED]
+            if value in own or list(named.values()).count(value) > 1:
+                raise c.fail(
+                    f"options.{option}",
+                    value,
+                    f"a file name of its own (not {', '.join(own)} nor another option's)",
+                )
     for i, name in enumerate(outputs):
         where = f"outputs[{i}]"
         _plain_name(c, where, name)
@@ -478,7 +487,7 @@ def _check_outputs(
                 f"'options.{option}', expected every output of the run",
                 path=c.shown,
             )
-    for required in (".run.json", ".gff3", ".features.tsv", TABLE_SUFFIX):
+    for required in _REQUIRED:
         if stem + required not in names:
             raise ReportFormatError(
                 f"'outputs' does not list '{escape_text(stem + required)}', expected every "
