@@ -151,6 +151,11 @@ def write(path: Path, text: str) -> Path:
             "assembly\tfasta\tmodel\tcds\nx\ta.fa\t\tmaybe\n",
             "line 2 (assembly 'x'): the 'cds' cell is 'maybe', expected yes or no",
         ),
+        (
+            "assembly\tfasta\tmodel\tgene_formats\nx\ta.fa\t\tgtf,gtf\n",
+            "line 2 (assembly 'x'): the 'gene_formats' cell is 'gtf,gtf', expected bed12, gtf, "
+            "bed12,gtf or none",
+        ),
     ],
 )
 def test_sheet_errors(tmp_path, rows, message):
@@ -181,6 +186,18 @@ def test_sheet_gene_output_cells(tmp_path):
     assert y.outputs == {"cds": None, "proteins": None, "report": False}
     assert x.wants("cds", False) and not x.wants("report", True) and x.wants("proteins", True)
     assert y.wants("cds", True) and not y.wants("cds", False)
+
+
+def test_sheet_gene_formats_cells(tmp_path):
+    """gene_formats: the formats, none (no format) or empty (None: the config's)."""
+    write(tmp_path / "a.fa", ">a\nACGT\n")
+    sheet = write(
+        tmp_path / "s.tsv",
+        "assembly\tfasta\tmodel\tgene_formats\nx\ta.fa\t\tgtf,bed12\ny\ta.fa\t\tNone\n"
+        "z\ta.fa\t\t\n",
+    )
+    x, y, z = read_sheet(sheet)
+    assert (x.gene_formats, y.gene_formats, z.gene_formats) == (("gtf", "bed12"), (), None)
 
 
 # ---------------------------------------------------------------- the workflow end to end
@@ -366,51 +383,106 @@ def test_snakemake_is_importable():
 
 @pytest.fixture(scope="module")
 def gene_project(tmp_path_factory):
-    """A gene-model assembly with its synthetic truth (``seqstate sample --truth``), the CDS
-    and proteins asked for in the sample sheet and the HTML page by the config key."""
+    """A gene-model assembly with its synthetic truth (``seqstate sample --truth``) that asks
+    for the CDS and proteins in the sample sheet (scattered into two groups), the same FASTA
+    with the HTML page (the config's report: annotated whole) and a CpG-island assembly;
+    the config asks for the BED12 and GTF gene files and the indexed copies of every one."""
     root = tmp_path_factory.mktemp("wf-genes")
     data = root / "data"
     data.mkdir()
-    seqstate("sample", "gene-segment", "--length", 20000, "--records", 3, "--seed", 5,
+    seqstate("sample", "gene-segment", "--length", 30000, "--records", 5, "--seed", 5,
              "--prefix", "gx", "-o", data / "g.fa", "--truth", data / "g.truth.gff3")  # fmt: skip
     seqstate("sample", "cpg-island", "--length", 15000, "--records", 2, "--seed", 13,
              "--prefix", "smol", "-o", data / "small.fa")  # fmt: skip
     sheet = write(
         data / "samples.tsv",
-        "assembly\tfasta\tmodel\treference\tcds\tproteins\treport\n"
-        "genes\tg.fa\tgene-segment\tg.truth.gff3\tyes\tyes\t\n"
-        "small\tsmall.fa\tcpg-island\t\t\t\tno\n",
+        "assembly\tfasta\tmodel\treference\tcds\tproteins\treport\tgene_formats\n"
+        "genes\tg.fa\tgene-segment\tg.truth.gff3\tyes\tyes\tno\t\n"
+        "paged\tg.fa\tgene-segment\t\tyes\t\t\tgtf\n"
+        "small\tsmall.fa\tcpg-island\t\t\t\tno\tnone\n",
     )
     work = root / "work"
-    result = snakemake(work, sheet, config=("annotate={'report': True, 'tracks': 'bedgraph'}",))
+    config = (
+        "annotate={'report': True, 'tracks': 'bedgraph', 'gene_formats': 'bed12,gtf', "
+        "'index_outputs': True}"
+    )
+    result = snakemake(work, sheet, config=(config,))
     assert result.returncode == 0, result.stderr[-3000:]
     return {"data": data, "sheet": sheet, "work": work}
 
 
-def test_gene_outputs_equal_a_direct_run(gene_project, tmp_path, monkeypatch):
-    """The assembly with gene outputs is annotated whole: the same files, byte for byte, as
-    one ``seqstate annotate --cds --proteins --report`` into the same relative folder with
-    --force (the page shows both); the run report differs only in its command line."""
-    results = gene_project["work"] / "results" / "genes"
-    assert not (results / "groups.d").exists()  # not scattered
-    report = json.loads((results / "genes.run.json").read_text())
-    monkeypatch.chdir(tmp_path)
-    seqstate("annotate", report["options"]["input"], "-m", "gene-segment", "-o", "results/genes",
-             "--stem", "genes", "--cds", "genes.cds.fna", "--proteins", "genes.proteins.faa",
-             "--report", "genes.report.html", "--jobs", 2, "--force", "-q")  # fmt: skip
-    direct = tmp_path / "results" / "genes"
+def _same_as_direct(results: Path, direct: Path) -> list[str]:
+    """Both folders hold the same names (but the workflow's own files), and every file
+    but the run report has the same bytes; the reports differ only in how they were run."""
     names = sorted(p.name for p in direct.iterdir())
-    assert {"genes.cds.fna", "genes.proteins.faa", "genes.report.html"} <= set(names)
+    ours = {p.name for p in results.iterdir() if p.is_file() and not p.name.endswith(
+        (".fai", ".compare.json"))}  # fmt: skip
+    assert sorted(ours) == names
     for name in names:
         if not name.endswith(".run.json"):
             assert (results / name).read_bytes() == (direct / name).read_bytes(), name
-    want = json.loads((direct / "genes.run.json").read_text())
-    report.pop("command_line"), want.pop("command_line")
+    stem = results.name
+    report = json.loads((results / f"{stem}.run.json").read_text())
+    want = json.loads((direct / f"{stem}.run.json").read_text())
+    for r in (report, want):
+        r.pop("command_line"), r["options"].pop("out_dir"), r["options"].pop("force")
     assert report == want
-    # the scattered one writes none (its sheet cell says no to the config's report)
+    return names
+
+
+def test_gene_outputs_are_scattered_and_gathered(gene_project, tmp_path):
+    """The assembly with CDS and proteins (no page) is scattered like the others: its
+    gathered files (the FASTA, BED12, GTF and the bgzip/tabix copies too) equal one
+    ``seqstate annotate`` of the whole FASTA with the same options, byte for byte."""
+    results = gene_project["work"] / "results" / "genes"
+    assert len(list((results / "groups.d").glob("g*.txt"))) == 2  # 150 kb in 100 kb groups
+    report = json.loads((results / "genes.run.json").read_text())
+    direct = tmp_path / "direct"
+    seqstate("annotate", report["options"]["input"], "-m", "gene-segment", "-o", direct,
+             "--stem", "genes", "--cds", "genes.cds.fna", "--proteins", "genes.proteins.faa",
+             "--gene-formats", "bed12,gtf", "--index-outputs", "--tracks", "bedgraph",
+             "-q")  # fmt: skip
+    names = _same_as_direct(results, direct)
+    for name in ("genes.cds.fna", "genes.proteins.faa", "genes.genes.bed", "genes.genes.gtf",
+                 "genes.gff3.gz", "genes.gff3.gz.tbi", "genes.genes.gtf.gz.tbi"):  # fmt: skip
+        assert name in names, name
+    # both groups have genes: the gathered CDS file holds records of each
+    groups = [g.read_text().split() for g in sorted((results / "groups.d").glob("g*.txt"))]
+    cds = (results / "genes.cds.fna").read_text()
+    on = {line[1:].split(".mRNA.")[0] for line in cds.splitlines() if line.startswith(">")}
+    assert all(on & set(g) for g in groups), (on, groups)
+
+
+def test_page_assembly_is_annotated_whole(gene_project, tmp_path, monkeypatch):
+    """The assembly with the HTML page is annotated whole: the same files, byte for byte,
+    as one ``seqstate annotate --cds --report --gene-formats gtf --index-outputs`` into the
+    same relative folder with --force (the page shows both); the run report differs only in
+    its command line."""
+    results = gene_project["work"] / "results" / "paged"
+    assert not (results / "groups.d").exists()  # not scattered
+    report = json.loads((results / "paged.run.json").read_text())
+    monkeypatch.chdir(tmp_path)
+    seqstate("annotate", report["options"]["input"], "-m", "gene-segment", "-o", "results/paged",
+             "--stem", "paged", "--cds", "paged.cds.fna", "--report", "paged.report.html",
+             "--gene-formats", "gtf", "--index-outputs", "--tracks", "bedgraph", "--jobs", 2,
+             "--force", "-q")  # fmt: skip
+    direct = tmp_path / "results" / "paged"
+    names = _same_as_direct(results, direct)
+    assert {"paged.cds.fna", "paged.report.html", "paged.genes.gtf"} <= set(names)
+    assert "paged.proteins.faa" not in names and "paged.genes.bed" not in names
+    want = json.loads((direct / "paged.run.json").read_text())
+    assert report["options"] == want["options"]  # the same folder and --force
+
+
+def test_cpg_assembly_writes_no_gene_files(gene_project):
+    """The sheet says no to the config's page and its gene formats; the indexed copies of
+    the config apply to every assembly."""
     small = gene_project["work"] / "results" / "small"
     assert (small / "groups.d").is_dir()
     assert not list(small.glob("*.html")) and not list(small.glob("*.f?a"))
+    assert not list(small.glob("*.genes.*"))
+    assert (small / "small.gff3.gz.tbi").is_file()
+    assert (small / "small.CpG_island.bedgraph.gz").is_file()
 
 
 def test_gene_and_exon_accuracy_in_the_summary(gene_project):
@@ -438,10 +510,26 @@ def test_gene_and_exon_accuracy_in_the_summary(gene_project):
         assert r["exon_sensitivity"] == r["gene_specificity"] == "NA", r
 
 
-def test_bad_gene_output_key_fails_before_any_job(gene_project, tmp_path):
+@pytest.mark.parametrize(
+    "config, expected",
+    [
+        ("annotate={'cds': 'maybe'}", "config annotate.cds is 'maybe', expected true or false"),
+        (
+            "annotate={'index_outputs': 'maybe'}",
+            "config annotate.index_outputs is 'maybe', expected true or false",
+        ),
+        (
+            "annotate={'gene_formats': 'bed12,gff'}",
+            "config annotate.gene_formats is 'bed12,gff', expected null or one or both of "
+            "bed12, gtf (comma-separated or a list)",
+        ),
+    ],
+    ids=["cds", "index_outputs", "gene_formats"],
+)
+def test_bad_gene_output_key_fails_before_any_job(gene_project, tmp_path, config, expected):
     work = tmp_path / "work"
-    result = snakemake(work, gene_project["sheet"], config=("annotate={'cds': 'maybe'}",))
+    result = snakemake(work, gene_project["sheet"], config=(config,))
     assert result.returncode != 0
     lines = result.stderr.strip().splitlines()
-    assert lines == ["error: config annotate.cds is 'maybe', expected true or false"], result.stderr
+    assert lines == [f"error: {expected}"], result.stderr
     assert not (work / "results").exists()

@@ -22,6 +22,13 @@ the same stem:
 - bigWig tracks: one file with every record's header entry and the merged runs
   read back from the group files (pyBigWig);
 - records table: the header line once, then every group's rows in order;
+- gene models (:mod:`seqstate.commands.merge_outputs`): the CDS and protein FASTA
+  (``--cds``/``--proteins``) and ``STEM.genes.bed`` whole, one group after another;
+  ``STEM.genes.gtf`` its version line once, then every group's lines; the
+  ``--index-outputs`` copies (``NAME.gz`` + ``.tbi``/``.csi``) made again from the
+  gathered plain files.  Which of them are written is read from the groups' reports
+  (their options), which must agree; a group run with ``--report`` (an HTML page of
+  one run) is refused: the page is made by annotating the whole assembly;
 - run report: the groups' report with ``totals`` added up and ``records`` and
   ``skipped_records`` the first ``records_limit`` entries of the groups' in order
   (each group lists its first ones, so the gathered first ones are among them).
@@ -53,21 +60,22 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any, TextIO
 
+from seqstate.commands import merge_outputs as mo
 from seqstate.commands.annotate import REPORT_SCHEMA, check_stem
+from seqstate.commands.groupfiles import check_group_files, output_role
 from seqstate.commands.inputs import read_set
 from seqstate.commands.records import id_listing
 from seqstate.commands.records_table import TABLE_SUFFIX, TableRecords, Totals
 from seqstate.commands.runreport import (
     BIGWIG_MAX_LENGTH,
     ReportFormatError,
-    check_group_files,
     check_report,
     output_checksums,
     read_group_records,
     read_report,
 )
 from seqstate.errors import UsageError, escape_text
-from seqstate.io import faidx, files, tracks
+from seqstate.io import faidx, files, indexed, tracks
 from seqstate.io.atomic import OutputSet, check_outputs
 
 #: ``options`` keys of a run report that say how a run was invoked (they may differ
@@ -154,6 +162,9 @@ class _Group:
         return [rid for _, rid in self.rows()]
 
     def file(self, suffix: str) -> Path:
+        """The group's output of role ``suffix`` (``.gff3``, ..., ``cds``, ``proteins``)."""
+        if suffix in mo.DEFAULT_SUFFIX:
+            return self.report_path.parent / self.report["options"][suffix]
         return self.report_path.parent / f"{self.stem}{suffix}"
 
     @property
@@ -175,14 +186,23 @@ def _load_group(path: str) -> _Group:
         raise UsageError(f"run report '{shown}' cannot be read: {reason}") from None
     stem = p.name[: -len(REPORT_SUFFIX)]
     names = check_report(report, shown, REPORT_SCHEMA, stem, p.parent)
+    page = report["options"].get("report")
+    if page is not None:
+        raise UsageError(
+            f"run report '{shown}' lists the HTML page '{escape_text(page)}' (--report), "
+            "which merge cannot gather (it shows one run's records and figures): annotate "
+            "the groups without --report and run --report on the whole assembly"
+        )
     high = BIGWIG_MAX_LENGTH if any(n.endswith(".bw") for n in names) else None
     table = read_group_records(report, p.parent, shown, max_length=high)
     return _Group(p, stem, report, names, table)
 
 
 def _suffixes(group: _Group) -> list[str]:
-    """The group's output names without its stem (``.gff3``, ...), in report order."""
-    return [name[len(group.stem) :] for name in group.names]
+    """The group's output roles in report order: the names without its stem (``.gff3``,
+    ...), ``cds`` and ``proteins`` for its CDS and protein FASTA
+    (:func:`seqstate.commands.groupfiles.output_role`)."""
+    return [output_role(group.report, group.stem, name) for name in group.names]
 
 
 def _check_groups(groups: list[_Group]) -> list[str]:
@@ -194,7 +214,17 @@ def _check_groups(groups: list[_Group]) -> list[str]:
     suffixes = _suffixes(first)
     for g in groups[1:]:
         a, b = first.report["options"], g.report["options"]
+        differ = mo.output_difference(a, first.stem, b, g.stem)
+        if differ is not None:
+            option, was_a, was_b = differ
+            raise UsageError(
+                f"run report '{g.shown}' was run {was_b} and '{first.shown}' {was_a}: "
+                "groups must write the same outputs (annotate every group with the same "
+                "options)"
+            )
         for key in sorted(set(a) | set(b)):
+            if key in mo.OUTPUT_OPTIONS:
+                continue
             if key not in INVOCATION_OPTIONS and a.get(key) != b.get(key):
                 raise UsageError(
                     f"run reports '{first.shown}' and '{g.shown}' differ in option '{key}' "
@@ -208,7 +238,7 @@ def _check_groups(groups: list[_Group]) -> list[str]:
                     f"run reports '{first.shown}' and '{g.shown}' differ in '{key}': "
                     "groups must be runs of the same version, model and options"
                 )
-        if sorted(_suffixes(g)) != sorted(suffixes):
+        if sorted(map(mo.same_kind, _suffixes(g))) != sorted(map(mo.same_kind, suffixes)):
             raise UsageError(
                 f"run reports '{first.shown}' and '{g.shown}' list different output files "
                 "(groups must write the same tracks)"
@@ -450,6 +480,12 @@ def _write_table(groups: list[_Group], suffix: str, out: TextIO) -> None:
             out.write(line)
 
 
+def _write_whole(groups: list[_Group], suffix: str, out: TextIO) -> None:
+    """Every group's file whole, in order (the CDS and protein FASTA, the BED12)."""
+    for g in groups:
+        out.writelines(_lines(g.file(suffix)))
+
+
 def _write_bigwig(groups: list[_Group], suffix: str, path: Path) -> None:
     """One bigWig of every group's records, with the entries of the group files.
 
@@ -514,18 +550,32 @@ def merge(opts: MergeOptions) -> MergeReport:
     groups, reordered = _in_fasta_order(groups, fasta)
     if any(s.endswith(".bw") for s in suffixes):
         tracks.require_bigwig()
+    bases = mo.indexed_bases(suffixes)
+    if bases:
+        indexed.require_pysam()
     for g in groups:
         check_group_files(g.report, g.report_path.parent, g.names, g.shown, g.table.records)
     for s in suffixes:
-        if s.endswith((".features.tsv", TABLE_SUFFIX, ".bedgraph")):
+        if s.endswith((".features.tsv", TABLE_SUFFIX, ".bedgraph", ".genes.gtf")):
             _check_table_headers(groups, s)
-    names = [stem + s for s in suffixes]
-    group_files = [g.report_path for g in groups] + [g.file(s) for g in groups for s in suffixes]
+    first_group = groups[0]
+    # the gathered plain files by role (the compressed, indexed copies are made again)
+    plain = {
+        s: mo.gathered_name(s, first_group.file(s).name, first_group.stem, stem)
+        for s in suffixes
+        if not s.endswith((".gz", *mo.INDEX_ENDS))
+    }
+    longest = max((int(r["length"]) for g in groups for r in g.table.records), default=0)
+    index_end = indexed.index_suffix(longest)
+    copies = [plain[b] + end for b in bases for end in (".gz", ".gz" + index_end)]
+    names = [*plain.values(), *copies]
+    group_files = [g.report_path for g in groups]
+    group_files += [g.report_path.parent / n for g in groups for n in g.names]
     inputs = read_set(fasta=fasta, files=group_files)
     check_outputs([Path(opts.out_dir) / n for n in names], inputs, force=opts.force)
     gff_headers = {s: _gff3_headers(groups, s) for s in suffixes if s.endswith(".gff3")}
 
-    first = groups[0].report
+    first = first_group.report
     report = dict(first)
     report["command_line"] = list(opts.command_line)
     options = dict(first["options"])
@@ -534,6 +584,9 @@ def merge(opts: MergeOptions) -> MergeReport:
     options["records"] = None
     if "stem" in options:
         options["stem"] = stem if opts.stem is not None else options["stem"]
+    for role in mo.DEFAULT_SUFFIX:
+        if options.get(role) is not None:
+            options[role] = plain[role]
     report["options"] = options
     limit = first["records_limit"]
     totals = Totals()
@@ -548,8 +601,9 @@ def merge(opts: MergeOptions) -> MergeReport:
     report["outputs"] = sorted(names)
 
     with OutputSet(opts.out_dir, force=opts.force, inputs=inputs) as outs:
+        outs.replaces_set_of(stem + REPORT_SUFFIX)  # with --force, as annotate's set
         staged: dict[str, Path] = {}
-        for suffix, name in zip(suffixes, names):
+        for suffix, name in plain.items():
             if suffix == REPORT_SUFFIX:
                 continue  # written last, with the others' checksums
             if suffix.endswith(".bw"):
@@ -559,11 +613,15 @@ def merge(opts: MergeOptions) -> MergeReport:
             with outs.open_text(name) as fh:
                 if suffix.endswith(".gff3"):
                     _write_gff3(groups, suffix, gff_headers[suffix], fh)
-                else:  # .features.tsv, .records.tsv, .bedgraph
+                elif suffix in mo.DEFAULT_SUFFIX or suffix.endswith(".genes.bed"):
+                    _write_whole(groups, suffix, fh)
+                else:  # .features.tsv, .records.tsv, .bedgraph, .genes.gtf
                     _write_table(groups, suffix, fh)
             staged[name] = Path(fh.name)
-        folder = next(iter(staged.values())).parent  # every staged file is in one folder
-        report["output_sha256"] = output_checksums(folder, list(staged))
+        made = [(plain[b], staged[plain[b]], mo.index_kind(b)) for b in bases]
+        written = list(staged) + mo.write_indexed(outs, made, longest)
+        folder = staged[plain[".gff3"]].parent  # every staged file is in one folder
+        report["output_sha256"] = output_checksums(folder, written)
         with outs.open_text(stem + REPORT_SUFFIX) as fh:
             json.dump(report, fh, indent=2, sort_keys=False)
             fh.write("\n")

@@ -4,12 +4,10 @@ A run report (``STEM.run.json``) read by another command (``seqstate merge``) is
 input like any other: :func:`read_report` parses it with a bounded nesting depth
 and :func:`check_report` checks every field against the one schema annotate
 writes (types, ranges, output names that are plain file names of the report's
-folder).  :func:`check_group_files` then reads each listed file once and checks
-it against the report: its SHA-256 checksum (``output_sha256``, which annotate
-records for every output but the report itself), UTF-8 text, and the lines or
-entries the records imply (records, their spans, features per record).  The
-records come from the run's records table (:func:`read_group_records`: every
-record, checked against the report's ``totals`` and first entries).  Every
+folder).  :func:`seqstate.commands.groupfiles.check_group_files` then reads each
+listed file once and checks it against the report.  The records come from the
+run's records table (:func:`read_group_records`: every record, checked against
+the report's ``totals`` and first entries).  Every
 failure is one :class:`ReportFormatError` line naming the file (and the line),
 what was found and what was expected.
 
@@ -25,7 +23,7 @@ import math
 import os
 import re
 import stat
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
@@ -37,8 +35,6 @@ from seqstate.commands.records_table import (
     read_table,
 )
 from seqstate.errors import SeqstateError, escape_text
-from seqstate.io import tracks
-from seqstate.io.gff3 import escape_seqid
 
 #: Deepest nesting of JSON arrays and objects a run report may have (annotate's
 #: reports have 4: the report, ``records``, one record, ``filtered_genes``).
@@ -279,7 +275,7 @@ def check_report(
     outputs = c.typed(report, "outputs", "outputs", list, "a non-empty list of file names")
     if not outputs:
         raise c.fail("outputs", outputs, "a non-empty list of file names")
-    names = _check_outputs(c, outputs, stem, folder)
+    names = _check_outputs(c, report, outputs, stem, folder)
     bigwig = any(n.endswith(".bw") for n in names)
     high = BIGWIG_MAX_LENGTH if bigwig else None
 
@@ -427,20 +423,54 @@ def read_group_records(
     return table
 
 
-#: Output kinds a report may list, by the end of the name after ``STEM``.
-_KINDS = (".run.json", ".gff3", ".features.tsv", TABLE_SUFFIX, ".bedgraph", ".bw")
+#: Output kinds a report may list, by the end of the name after ``STEM`` (besides the
+#: files its options ``cds``, ``proteins`` and ``report`` name).
+_PLAIN_KINDS = (".run.json", ".gff3", ".features.tsv", TABLE_SUFFIX, ".bedgraph", ".bw")
+#: Gene structures (``--gene-formats``), and the kinds ``--index-outputs`` copies.
+_GENE_KINDS = (".genes.bed", ".genes.gtf")
+_INDEXED = tuple(
+    kind + end
+    for kind in (".gff3", ".bedgraph", *_GENE_KINDS)
+    for end in (".gz", ".gz.tbi", ".gz.csi")
+)
+_KINDS = _PLAIN_KINDS + _GENE_KINDS + _INDEXED
+#: Outputs every annotate run writes (after ``STEM``).
+_REQUIRED = (".run.json", ".gff3", ".features.tsv", TABLE_SUFFIX)
+#: Options of a report that name an output file of the run's folder (or are null).
+NAMED_OUTPUTS = ("cds", "proteins", "report")
 
 
-def _check_outputs(c: _Checker, outputs: list[Any], stem: str, folder: Path) -> list[str]:
+def _plain_name(c: _Checker, where: str, name: Any) -> str:
+    if not isinstance(name, str) or not name:
+        raise c.fail(where, name, "a file name")
+    if "/" in name or "\\" in name or "\0" in name or name in (".", ".."):
+        raise c.fail(where, name, "a plain file name in the report's folder (no folder part)")
+    return name
+
+
+def _check_outputs(
+    c: _Checker, report: dict[str, Any], outputs: list[Any], stem: str, folder: Path
+) -> list[str]:
     names: list[str] = []
     root = os.path.realpath(folder)
+    named: dict[str, str] = {}
+    for option in NAMED_OUTPUTS:
+        value = report["options"].get(option)
+        if value is not None:
+            named[option] = _plain_name(c, f"options.{option}", value)
+            own = [stem + end for end in _REQUIRED]
+            if value in own or list(named.values()).count(value) > 1:
+                raise c.fail(
+                    f"options.{option}",
+                    value,
+                    f"a file name of its own (not {', '.join(own)} nor another option's)",
+                )
     for i, name in enumerate(outputs):
         where = f"outputs[{i}]"
-        if not isinstance(name, str) or not name:
-            raise c.fail(where, name, "a file name")
-        if "/" in name or "\\" in name or "\0" in name or name in (".", ".."):
-            raise c.fail(where, name, "a plain file name in the report's folder (no folder part)")
-        if not name.startswith(stem + ".") or not name.endswith(_KINDS):
+        _plain_name(c, where, name)
+        if name in named.values():
+            pass  # the CDS, protein or HTML file its options name
+        elif not name.startswith(stem + ".") or not name.endswith(_KINDS):
             raise c.fail(
                 where,
                 name,
@@ -450,7 +480,14 @@ def _check_outputs(c: _Checker, outputs: list[Any], stem: str, folder: Path) -> 
         if name in names:
             raise c.fail(where, name, "each output once")
         names.append(name)
-    for required in (".run.json", ".gff3", ".features.tsv", TABLE_SUFFIX):
+    for option, name in named.items():
+        if name not in names:
+            raise ReportFormatError(
+                f"'outputs' does not list '{escape_text(name)}', the file of "
+                f"'options.{option}', expected every output of the run",
+                path=c.shown,
+            )
+    for required in _REQUIRED:
         if stem + required not in names:
             raise ReportFormatError(
                 f"'outputs' does not list '{escape_text(stem + required)}', expected every "
@@ -484,256 +521,5 @@ def _check_outputs(c: _Checker, outputs: list[Any], stem: str, folder: Path) -> 
     return names
 
 
-# ---------------------------------------------------------------- group files
-def _text_lines(path: Path) -> Iterator[tuple[int, str]]:
-    """``(0-based line number, line)`` of a UTF-8 text file.
-
-    A line that is not UTF-8, or a last line without its line end, is an error.
-    """
-    shown = escape_text(str(path))
-    with open(path, "rb") as fh:
-        for n, raw in enumerate(fh):
-            try:
-                line = raw.decode("utf-8")
-            except UnicodeDecodeError as exc:
-                raise ReportFormatError(
-                    f"byte {exc.start + 1} is 0x{raw[exc.start]:02x}, not UTF-8: expected "
-                    "UTF-8 text",
-                    path=shown,
-                    line0=n,
-                ) from None
-            if not line.endswith("\n"):
-                raise ReportFormatError(
-                    "the last line has no line end, expected a complete file", path=shown, line0=n
-                )
-            yield n, line
-
-
 def _wrong(path: Path, line0: int | None, message: str) -> ReportFormatError:
     return ReportFormatError(message, path=escape_text(str(path)), line0=line0)
-
-
-def _check_gff3(path: Path, records: list[dict[str, Any]]) -> None:
-    """The version line, one ``##sequence-region`` line per record, ``#`` comments,
-    then each record's features (as many as the report says, inside its span)."""
-    regions = [
-        f"##sequence-region {escape_seqid(r['id'])} {r['start_1based']} {r['end_1based']}\n"
-        for r in records
-    ]
-    place = {escape_seqid(r["id"]): i for i, r in enumerate(records)}
-    counts = [0] * len(records)
-    at = 0  # the record of the last feature (features come in record order)
-    n = -1
-    for n, line in _text_lines(path):
-        if n == 0:
-            if line != "##gff-version 3\n":
-                raise _wrong(path, n, f"{_kind(line.rstrip())}, expected '##gff-version 3'")
-            continue
-        if n <= len(regions):
-            if line != regions[n - 1]:
-                raise _wrong(
-                    path,
-                    n,
-                    f"{_kind(line.rstrip())}, expected {regions[n - 1].rstrip()!r} "
-                    "(the report's records, in order)",
-                )
-            continue
-        if line.startswith("#"):
-            if line.startswith("##"):
-                raise _wrong(path, n, f"{_kind(line.rstrip())}, expected a feature line")
-            continue
-        cols = line.rstrip("\n").split("\t")
-        if len(cols) != 9:
-            raise _wrong(path, n, f"{len(cols)} column(s), expected 9 (a GFF3 feature line)")
-        i = place.get(cols[0])
-        if i is None or i < at:
-            raise _wrong(
-                path,
-                n,
-                f"seqid {escape_text(cols[0])!r}, expected a record of the run report, "
-                "in the report's order",
-            )
-        at = i
-        rec = records[i]
-        ok = cols[3].isdigit() and cols[4].isdigit()
-        if not ok or not rec["start_1based"] <= int(cols[3]) <= int(cols[4]) <= rec["end_1based"]:
-            raise _wrong(
-                path,
-                n,
-                f"feature at {escape_text(cols[3])}-{escape_text(cols[4])}, expected "
-                f"{rec['start_1based']} <= start <= end <= {rec['end_1based']} "
-                "(the record's span in the report)",
-            )
-        counts[i] += 1
-    if n < len(regions):
-        raise _wrong(
-            path,
-            None,
-            f"{max(n, 0)} sequence-region line(s), expected {len(regions)} (one per record)",
-        )
-    for rec, count in zip(records, counts):
-        if count != rec["features"]:
-            raise _wrong(
-                path,
-                None,
-                f"{count} feature line(s) on record '{escape_text(rec['id'])}', expected "
-                f"{rec['features']} (the run report's 'features')",
-            )
-
-
-def _check_table(path: Path, records: list[dict[str, Any]]) -> None:
-    """A header line, then one row per feature of the report, each with its columns."""
-    width = 0
-    rows = 0
-    for n, line in _text_lines(path):
-        cols = line.count("\t") + 1
-        if n == 0:
-            width = cols
-            continue
-        if cols != width:
-            raise _wrong(path, n, f"{cols} column(s), expected {width} (as the header line)")
-        rows += 1
-    want = sum(r["features"] for r in records)
-    if width == 0 or rows != want:
-        raise _wrong(
-            path, None, f"{rows} row(s), expected {want} (the run report's features, one row each)"
-        )
-
-
-def _check_bedgraph(path: Path, records: list[dict[str, Any]]) -> None:
-    """A track line, then ``chrom start end value`` lines on the report's records, in
-    order, inside each record's span (0-based half-open)."""
-    place = {tracks.escape_text(r["id"]): i for i, r in enumerate(records)}
-    at = 0
-    n = -1
-    for n, line in _text_lines(path):
-        if n == 0:
-            if not line.startswith("track type=bedGraph"):
-                raise _wrong(path, n, f"{_kind(line.rstrip())}, expected a bedGraph track line")
-            continue
-        cols = line.rstrip("\n").split("\t")
-        i = place.get(cols[0]) if len(cols) == 4 else None
-        if i is None or i < at:
-            raise _wrong(
-                path,
-                n,
-                f"{_kind(line.rstrip())}, expected 'chrom start end value' on a record of the "
-                "run report, in the report's order",
-            )
-        at = i
-        rec = records[i]
-        ok = cols[1].isdigit() and cols[2].isdigit()
-        lo, hi = rec["start_1based"] - 1, rec["end_1based"]
-        if not ok or not lo <= int(cols[1]) < int(cols[2]) <= hi:
-            raise _wrong(
-                path,
-                n,
-                f"interval {escape_text(cols[1])}-{escape_text(cols[2])}, expected "
-                f"{lo} <= start < end <= {hi} (the record's span in the report, 0-based)",
-            )
-    if n < 0:
-        raise _wrong(path, None, "an empty file, expected a bedGraph track line")
-
-
-def _check_bigwig_layout(path: Path) -> None:
-    """The fixed header of a bigWig (Kent et al. 2010, Bioinformatics 26:2204; the
-    layout of the UCSC format description) and that every offset it and its zoom
-    headers give lies inside the file, with the chromosome tree and the data index
-    where they say: a file cut short or not a bigWig is refused here, before the
-    reading library (which does not check) is handed it."""
-    size = path.stat().st_size
-    with open(path, "rb") as fh:
-        head = fh.read(64)
-        if head[:4] != BIGWIG_MAGIC:
-            raise _wrong(
-                path, None, f"first bytes {head[:4].hex() or 'none'}, expected a bigWig file"
-            )
-        if len(head) < 64:
-            raise _wrong(path, None, f"{size} bytes, expected a bigWig header of 64 bytes")
-        zooms = int.from_bytes(head[6:8], "little")
-        chrom_tree, data, index = (int.from_bytes(head[k : k + 8], "little") for k in (8, 16, 24))
-        summary = int.from_bytes(head[44:52], "little")
-        zoom_heads = fh.read(24 * zooms)
-        offsets = [chrom_tree, data, index] + ([summary] if summary else [])
-        for z in range(len(zoom_heads) // 24):
-            entry = zoom_heads[24 * z : 24 * z + 24]
-            offsets += [
-                int.from_bytes(entry[8:16], "little"),
-                int.from_bytes(entry[16:24], "little"),
-            ]
-        magics = {}
-        for offset, magic in ((chrom_tree, 0x78CA8C91), (index, 0x2468ACE0)):
-            fh.seek(min(offset, size))
-            magics[offset] = (fh.read(4), magic.to_bytes(4, "little"))
-    if len(zoom_heads) < 24 * zooms or any(not 64 <= o < size for o in offsets):
-        raise _wrong(
-            path,
-            None,
-            f"{size} bytes, an offset of its header past them: expected a whole bigWig file",
-        )
-    if any(found != want for found, want in magics.values()):
-        raise _wrong(path, None, "no chromosome tree or data index where its header says")
-
-
-def _check_bigwig(path: Path, records: list[dict[str, Any]]) -> None:
-    """The bigWig magic number, then (pyBigWig) one chromosome per record of the
-    report with the record's length."""
-    _check_bigwig_layout(path)
-    module = tracks._import_pybigwig()
-    try:
-        bw = module.open(str(path))
-    except (RuntimeError, OSError):
-        bw = None
-    if bw is None:
-        raise _wrong(path, None, "cannot be read as a bigWig file, expected one")
-    try:
-        try:
-            chroms = dict(bw.chroms()) if bw.isBigWig() else None
-        except (RuntimeError, OSError):
-            chroms = None
-    finally:
-        bw.close()
-    want = {tracks.escape_text(r["id"]): int(r["length"]) for r in records}
-    if chroms != want:
-        found = "no readable header" if chroms is None else f"{len(chroms)} chromosome(s)"
-        raise _wrong(
-            path,
-            None,
-            f"{found}, expected the run report's {len(want)} record(s) with their lengths",
-        )
-
-
-_CHECKS: dict[str, Callable[[Path, list[dict[str, Any]]], None]] = {
-    ".gff3": _check_gff3,
-    ".features.tsv": _check_table,
-    ".bedgraph": _check_bedgraph,
-    ".bw": _check_bigwig,
-}
-
-
-def check_group_files(
-    report: dict[str, Any],
-    folder: Path,
-    names: Sequence[str],
-    shown: str,
-    records: list[dict[str, Any]],
-) -> None:
-    """Check every output of a checked report (see the module docstring) against
-    ``records`` (every annotated record, from its records table): first its checksum
-    (so no library reads a changed file), then UTF-8 and the lines or entries the
-    records imply.  The records table itself is checked by :func:`read_group_records`."""
-    sums = report["output_sha256"]
-    for name in names:
-        check = next((f for end, f in _CHECKS.items() if name.endswith(end)), None)
-        if check is None:  # the report itself, the records table
-            continue
-        path = folder / name
-        found = file_sha256(path)
-        if found != sums[name]:
-            raise _wrong(
-                path,
-                None,
-                f"SHA-256 {found}, expected {sums[name]} as run report '{shown}' records "
-                "(the file changed after the run)",
-            )
-        check(path, records)

@@ -16,6 +16,9 @@ order; other columns are ignored):
   ``false``, ``1``/``0``): write the spliced CDS, the protein translations (gene
   models) or the HTML page of the run for this assembly; an empty cell (or no
   column): the config's default.
+- ``gene_formats`` (optional): ``bed12``, ``gtf`` or ``bed12,gtf`` (the gene structures
+  ``seqstate annotate --gene-formats`` writes; gene models), or ``none``; an empty cell
+  (or no column): the config's ``annotate.gene_formats``.
 
 Blank lines and lines starting with ``#`` are skipped.  Every problem is a
 :class:`SheetError` whose message names the sheet, the 1-based line and the
@@ -31,7 +34,8 @@ from pathlib import Path
 
 REQUIRED = ("assembly", "fasta", "model")
 GENE_OUTPUTS = ("cds", "proteins", "report")
-OPTIONAL = ("reference", *GENE_OUTPUTS)
+OPTIONAL = ("reference", *GENE_OUTPUTS, "gene_formats")
+GENE_FORMATS = ("bed12", "gtf")
 YES = ("yes", "true", "1")
 NO = ("no", "false", "0")
 NAME = re.compile(r"[A-Za-z0-9._-]+")
@@ -53,11 +57,24 @@ class Assembly:
     line: int
     #: the gene output cells: True, False or None (empty: the config's default), by column
     outputs: dict[str, bool | None] = field(default_factory=dict)
+    #: the gene_formats cell: the formats (() for ``none``), or None (empty: the config's)
+    gene_formats: tuple[str, ...] | None = None
 
     def wants(self, output: str, default: bool) -> bool:
         """Whether this assembly writes ``output`` (cds, proteins or report)."""
         value = self.outputs.get(output)
         return default if value is None else value
+
+
+def parse_gene_formats(text: str) -> tuple[str, ...] | None:
+    """``bed12``/``gtf`` comma-separated (each once), or ``none`` (no format); None if
+    ``text`` is neither."""
+    if text.strip().lower() == "none":
+        return ()
+    formats = tuple(f.strip() for f in text.split(","))
+    if not formats or any(f not in GENE_FORMATS for f in formats):
+        return None
+    return formats if len(set(formats)) == len(formats) else None
 
 
 def _resolve(base: Path, value: str) -> str:
@@ -141,7 +158,15 @@ def read_sheet(path: str | Path, default_model: str = "cpg-island") -> list[Asse
                     "(or empty: the config's default)"
                 )
             outputs[column] = None if not cell else cell in YES
-        out.append(Assembly(name, fasta, model, reference, line, outputs))
+        formats = None
+        if row.get("gene_formats"):
+            formats = parse_gene_formats(row["gene_formats"])
+            if formats is None:
+                raise SheetError(
+                    f"{where}: the 'gene_formats' cell is {row['gene_formats']!r}, expected "
+                    "bed12, gtf, bed12,gtf or none (or empty: the config's default)"
+                )
+        out.append(Assembly(name, fasta, model, reference, line, outputs, formats))
     if not out:
         raise SheetError(f"sample sheet '{shown}' has a header and no rows")
     return out
