@@ -3,7 +3,7 @@
 This module holds the ``seqstate`` group (``main``) and its error handling; the
 commands are in ``cli_annotate.py`` (annotate, index, merge), ``cli_models.py`` (model,
 sample, fit) and ``cli_evaluate.py`` (score, plot, compare, calibrate), their shared
-options in ``cli_shared.py`` (re-exported here).
+options in ``cli_shared.py``.
 
 Exit codes: 0 success; 1 input or format error (FASTA, GFF3, BED, model tables,
 impossible record); 2 usage error (bad option, unknown model, bad region,
@@ -22,19 +22,6 @@ from seqstate import __version__
 from seqstate.cli_annotate import annotate_cmd, index_cmd, merge_cmd
 from seqstate.cli_evaluate import calibrate_cmd, compare_cmd, plot_cmd, score_cmd
 from seqstate.cli_models import fit_cmd, model_group, sample_cmd
-from seqstate.cli_shared import (
-    F,
-    command_line,
-    decoding_options,
-    echo_stdout,
-    fasta_argument,
-    force_option,
-    masked_option,
-    model_option,
-    not_empty,
-    quiet_option,
-    say,
-)
 from seqstate.commands.process import (
     EXIT_INTERRUPTED,
     Interrupted,
@@ -44,20 +31,7 @@ from seqstate.commands.process import (
 from seqstate.errors import SeqstateError
 from seqstate.io.atomic import stop_requested
 
-__all__ = [
-    "F",
-    "command_line",
-    "decoding_options",
-    "echo_stdout",
-    "fasta_argument",
-    "force_option",
-    "main",
-    "masked_option",
-    "model_option",
-    "not_empty",
-    "quiet_option",
-    "say",
-]
+__all__ = ["main"]
 
 
 def _debug_before_command(args: Sequence[str]) -> bool:

@@ -19,6 +19,7 @@ from seqstate.cli_shared import (
     masked_option,
     model_option,
     not_empty,
+    out_folder_option,
     quiet_option,
     say,
 )
@@ -28,15 +29,7 @@ from seqstate.cli_shared import (
 @click.command("annotate")
 @fasta_argument
 @model_option()
-@click.option(
-    "-o",
-    "--out",
-    "out_dir",
-    default="seqstate-out",
-    show_default=True,
-    callback=not_empty,
-    help="Output folder (created if absent); '-': only the GFF3, on standard output.",
-)
+@out_folder_option("Output folder (created if absent); '-': only the GFF3, on standard output.")
 @decoding_options
 @click.option(
     "--region",
@@ -215,15 +208,7 @@ def index_cmd(quiet: bool, **options: Any) -> None:
 # ---------------------------------------------------------------- merge
 @click.command("merge")
 @click.argument("reports", nargs=-1, required=True, metavar="REPORT.run.json...")
-@click.option(
-    "-o",
-    "--out",
-    "out_dir",
-    default="seqstate-out",
-    show_default=True,
-    callback=not_empty,
-    help="Output folder of the gathered set (created if absent).",
-)
+@out_folder_option("Output folder of the gathered set (created if absent).")
 @click.option(
     "--stem",
     default=None,

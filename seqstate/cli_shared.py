@@ -65,6 +65,19 @@ def model_option(
     return click.option("-m", "--model", default="cpg-island", show_default=True, help=help)
 
 
+def out_folder_option(help: str) -> Callable[[F], F]:
+    """-o/--out: the output folder of a run (``seqstate-out`` by default, never '')."""
+    return click.option(
+        "-o",
+        "--out",
+        "out_dir",
+        default="seqstate-out",
+        show_default=True,
+        callback=not_empty,
+        help=help,
+    )
+
+
 def fasta_argument(command: F) -> F:
     """The FASTA input, first argument of every command that reads sequences."""
     return click.argument("input", metavar="FASTA")(command)
