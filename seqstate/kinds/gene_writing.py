@@ -354,12 +354,7 @@ def write_gene(
                 attributes=attrs,
             )
         )
-        if tsv is not None and recal is not None:
-            cells = {
-                **({} if sc is None else sc),
-                **({key_x: px} if px is not None else {}),
-                **({"calibrated_" + key_x: cal_x} if cal_x is not None else {}),
-            }
+        if tsv is not None:
             row = [
                 seqid,
                 str(a + offset0 + 1),
@@ -370,35 +365,25 @@ def write_gene(
                 ln.parent or "",
                 "." if ln.phase is None else str(ln.phase),
             ]
-            for col in with_calibrated(GENE_COLUMNS[8:-1]):
-                v = cells.get(col)
-                fmt = EXACT_FORMAT if "exon_" in col or "structure_" in col else SCORE_FORMATS[col]
-                row.append("" if v is None else format_value(v, fmt))
+            if recal is not None:
+                cells = {
+                    **({} if sc is None else sc),
+                    **({key_x: px} if px is not None else {}),
+                    **({"calibrated_" + key_x: cal_x} if cal_x is not None else {}),
+                }
+                for col in with_calibrated(GENE_COLUMNS[8:-1]):
+                    v = cells.get(col)
+                    exact_col = "exon_" in col or "structure_" in col
+                    fmt = EXACT_FORMAT if exact_col else SCORE_FORMATS[col]
+                    row.append("" if v is None else format_value(v, fmt))
+            else:
+                row += [
+                    format_value(sc["mean_posterior"], ".4f") if sc else "",
+                    format_value(sc["min_posterior"], ".4f") if sc else "",
+                    format_value(sc["segment_probability"], ".4g") if sc else "",
+                    format_value(px, EXACT_FORMAT) if px is not None and ln.type != "mRNA" else "",
+                    format_value(px, EXACT_FORMAT) if px is not None and ln.type == "mRNA" else "",
+                ]
             tsv.write(tsv_row([*row, str(b - a)]))
-        elif tsv is not None:
-            tsv.write(
-                tsv_row(
-                    [
-                        seqid,
-                        str(a + offset0 + 1),
-                        str(b + offset0),
-                        strand,
-                        ln.type,
-                        ln.id,
-                        ln.parent or "",
-                        "." if ln.phase is None else str(ln.phase),
-                        format_value(sc["mean_posterior"], ".4f") if sc else "",
-                        format_value(sc["min_posterior"], ".4f") if sc else "",
-                        format_value(sc["segment_probability"], ".4g") if sc else "",
-                        format_value(px, EXACT_FORMAT)
-                        if px is not None and ln.type != "mRNA"
-                        else "",
-                        format_value(px, EXACT_FORMAT)
-                        if px is not None and ln.type == "mRNA"
-                        else "",
-                        str(b - a),
-                    ]
-                )
-            )
         count += 1
     return count
