@@ -117,17 +117,18 @@ __all__ = [
 ]
 
 
+def _given(*options: tuple[str, object]) -> list[str]:
+    """The names of the options whose value is not None, in the order given."""
+    return [name for name, value in options if value is not None]
+
+
 def _check(opts: CalibrateOptions) -> None:
     if opts.fasta is None:
-        given = [
-            name
-            for name, value in (
-                ("--type", opts.types or None),
-                ("--region", opts.region),
-                ("--records-file", opts.record_ids),
-            )
-            if value is not None
-        ]
+        given = _given(
+            ("--type", opts.types or None),
+            ("--region", opts.region),
+            ("--records-file", opts.record_ids),
+        )
         if given:
             raise UsageError(
                 f"{', '.join(given)} only apply to --fasta with --truth: give them, or leave "
@@ -136,14 +137,7 @@ def _check(opts: CalibrateOptions) -> None:
     if opts.fasta is not None:
         if opts.region is not None and opts.record_ids is not None:
             raise UsageError("--records cannot be combined with --region (a region names one)")
-        given = [
-            name
-            for name, value in (
-                ("--length", opts.length),
-                ("--seed", opts.seed),
-            )
-            if value is not None
-        ]
+        given = _given(("--length", opts.length), ("--seed", opts.seed))
         if given:
             raise UsageError(
                 f"{', '.join(given)} only apply to sampled records: leave them out with --fasta"
