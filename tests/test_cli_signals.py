@@ -16,13 +16,13 @@ import pytest
 from click.testing import CliRunner
 
 from seqstate.cli import main
-from seqstate.io import atomic
+from seqstate.io import atomic, staging
 from seqstate.io.atomic import OutputSet
 
 
 @pytest.fixture(autouse=True)
 def _no_stop_left_behind(monkeypatch):
-    monkeypatch.setattr(atomic, "_STOPS", [])
+    monkeypatch.setattr(staging, "_STOPS", [])
 
 
 def _annotate_with(monkeypatch, body):

@@ -323,7 +323,7 @@ def test_exon_and_cds_of_one_span_are_one_row() -> None:
 
 
 def _density_axes(rows: list, records: list) -> list:
-    from seqstate.io.html_report import _density_figure
+    from seqstate.io.html_figures import _density_figure
 
     return _density_figure(rows, records).axes
 

@@ -1,12 +1,8 @@
-"""Safe outputs: the overwrite rule, and all-or-nothing output sets.
+"""Safe outputs: all-or-nothing output sets, applying the overwrite rule.
 
-The rule (:func:`check_outputs`), the same for every command:
-
-- an output that already exists is replaced only with ``force`` (``--force``);
-- an output that is also an input (the same file, by :func:`os.path.samefile`
-  or by resolved path), or two outputs of one run that are the same path, is
-  always refused, ``force`` or not;
-- an output name that is empty or names a folder is refused.
+The overwrite rule itself (:func:`check_outputs`) is in :mod:`seqstate.io.overwrite`;
+stop signals, hold points, locks and recovery in :mod:`seqstate.io.staging`.  Both are
+re-exported here, the one import path for commands.
 
 The commit (:class:`OutputSet`): every file of a run is written into a hidden
 staging folder ``.seqstate-stage-PID/`` inside the folder the file goes to.
@@ -39,36 +35,45 @@ a file changed since, or listed without a checksum, is kept.
 from __future__ import annotations
 
 import contextlib
-import errno
-import fcntl
 import json
 import os
 import re
 import shutil
-import signal
-import time
 from collections.abc import Callable, Iterable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
-from types import FrameType, TracebackType
-from typing import Literal, TextIO, TypeGuard
+from types import TracebackType
+from typing import Literal, TextIO
 
 from seqstate.errors import UsageError
+from seqstate.io.overwrite import WRITE_ERRNOS, _usable, check_outputs, same_file, write_failure
+from seqstate.io.staging import (
+    JOURNAL,
+    STAGE_PREFIX,
+    _locked,
+    held_signals,
+    hold_point,
+    note_stop,
+    recover_folder,
+    stop_requested,
+)
 
 __all__ = [
     "STAGE_PREFIX",
+    "WRITE_ERRNOS",
     "OutputSet",
     "atomic_folder",
     "atomic_text",
     "check_outputs",
+    "held_signals",
     "hold_point",
+    "note_stop",
     "recover_folder",
     "same_file",
+    "stop_requested",
     "write_failure",
 ]
 
-STAGE_PREFIX = ".seqstate-stage-"
-JOURNAL = "COMMIT"
 _BACKUP = ".old-"
 #: Largest earlier run report read to find the set it owns (its files are listed there).
 MAX_REPORT_BYTES = 64 * 1024 * 1024
@@ -84,257 +89,6 @@ def _sha256(path: Path) -> str:
         while block := fh.read(1 << 20):
             digest.update(block)
     return digest.hexdigest()
-
-
-_STAGE_RE = re.compile(r"^\.seqstate-stage-([0-9]+)$")
-_OLD_TEMP_RE = re.compile(r"^\..+\.tmp-([0-9]+)$")
-_HELD = tuple(getattr(signal, n) for n in ("SIGINT", "SIGTERM", "SIGHUP") if hasattr(signal, n))
-#: errno values that mean "the output cannot be written" (full disk, quota, size limit,
-#: read-only file system, device error).
-WRITE_ERRNOS = frozenset(
-    e
-    for e in (
-        errno.ENOSPC,
-        errno.EFBIG,
-        getattr(errno, "EDQUOT", None),
-        errno.EROFS,
-        errno.EIO,
-    )
-    if e is not None
-)
-
-
-# ---------------------------------------------------------------- the overwrite rule
-def _key(path: Path) -> str:
-    return os.path.normcase(os.path.realpath(path))
-
-
-def same_file(a: str | os.PathLike, b: str | os.PathLike) -> bool:
-    """True if ``a`` and ``b`` are one file: :func:`os.path.samefile` when both exist,
-    else the same path once symbolic links and ``..`` are resolved."""
-    pa, pb = Path(a), Path(b)
-    try:
-        if pa.exists() and pb.exists():
-            return os.path.samefile(pa, pb)
-    except OSError:
-        pass
-    return _key(pa) == _key(pb)
-
-
-def _usable(path: str | os.PathLike | None) -> TypeGuard[str | os.PathLike[str]]:
-    return path is not None and str(path) != "-"
-
-
-def check_outputs(
-    outputs: Iterable[str | os.PathLike | None],
-    inputs: Iterable[str | os.PathLike | None] = (),
-    *,
-    force: bool = False,
-) -> None:
-    """Apply the overwrite rule to one run's output files; raise UsageError (exit 2).
-
-    ``outputs`` and ``inputs`` are file paths; ``None`` and ``"-"`` (standard
-    input/output) are skipped.  See the module docstring for the rule.
-    """
-    outs = [Path(p) for p in outputs if _usable(p)]
-    ins = [Path(p) for p in inputs if _usable(p)]
-    for out in outs:
-        if not str(out) or out.name in ("", ".", ".."):
-            raise UsageError(f"output file '{out}' is not a file name")
-    for i, out in enumerate(outs):
-        for other in outs[:i]:
-            if same_file(out, other):
-                raise UsageError(
-                    f"outputs '{other}' and '{out}' are the same file: give each output its "
-                    "own name"
-                )
-        for inp in ins:
-            if same_file(out, inp):
-                raise UsageError(
-                    f"output '{out}' is the input '{inp}': refusing to overwrite an input "
-                    "(even with --force); choose another output name"
-                )
-        if out.is_dir():
-            raise UsageError(f"output file '{out}' is a directory, expected a file name")
-        if (out.exists() or out.is_symlink()) and not force:
-            raise UsageError(f"output '{out}' already exists: use --force to replace it")
-
-
-def write_failure(exc: OSError, what: str) -> UsageError | None:
-    """The one-line error for an OSError that means ``what`` cannot be written, else None."""
-    if exc.errno not in WRITE_ERRNOS:
-        return None
-    reason = exc.strerror or os.strerror(exc.errno or 0)  # errno is one of WRITE_ERRNOS
-    return UsageError(f"{what} cannot be written: {reason}")
-
-
-# ---------------------------------------------------------------- signals, locks, recovery
-#: Stop signals received by this process (see :func:`note_stop`); sticky for the run.
-_STOPS: list[int] = []
-
-
-def note_stop(signum: int) -> None:
-    """Record that a stop signal arrived.  No output set commits after this.
-
-    The signal handler also raises, but Python may run a handler where the exception
-    is swallowed (inside a weakref or import callback); the note makes sure such a
-    run still ends without committing its outputs.
-    """
-    _STOPS.append(signum)
-
-
-def stop_requested() -> bool:
-    """True once :func:`note_stop` has been called in this process."""
-    return bool(_STOPS)
-
-
-#: Test-only: ``SEQSTATE_TEST_HOLD=POINT:FLAGFILE`` (read once) holds the run at ``POINT``.
-_HOLD_ENV = "SEQSTATE_TEST_HOLD"
-_HOLD: list[tuple[str, str] | None] = []
-_HOLD_SECONDS = 120.0
-
-
-def hold_point(point: str) -> None:
-    """Test-only hook; does nothing unless ``SEQSTATE_TEST_HOLD`` is set.
-
-    With ``SEQSTATE_TEST_HOLD=POINT:FLAGFILE`` (read on the first call), the first time
-    the run reaches ``point`` it writes its process id to ``FLAGFILE`` (atomically)
-    and waits there until a stop signal has been noted (:func:`note_stop`; in the
-    main thread the signal's exception ends the wait), at most two minutes.  Tests
-    use it to send a signal at a known moment instead of after a guessed sleep.
-    Points: ``commit`` (every file staged, just before the commit) and
-    ``record-written`` (a record's outputs written to the staged files).
-    """
-    if not _HOLD:
-        name, sep, flag = os.environ.get(_HOLD_ENV, "").partition(":")
-        _HOLD.append((name, flag) if sep and name and flag else None)
-    held = _HOLD[0]
-    if held is None or held[0] != point:
-        return
-    _HOLD[0] = None  # once per process
-    part = f"{held[1]}.part"
-    with open(part, "w", encoding="utf-8") as handle:
-        handle.write(f"{os.getpid()}\n")
-    os.replace(part, held[1])
-    deadline = time.monotonic() + _HOLD_SECONDS
-    while not stop_requested() and time.monotonic() < deadline:
-        time.sleep(0.005)
-
-
-@contextmanager
-def held_signals() -> Iterator[None]:
-    """Hold back SIGINT, SIGTERM and SIGHUP in this block; a pending one acts after it.
-
-    The signals' handlers are swapped for one that only takes note (Python runs
-    handlers in the main thread, whatever thread the system picks); on leaving,
-    the handlers are restored and the first signal noted is raised again.
-    Outside the main thread nothing is held.
-    """
-    pending: list[int] = []
-
-    def note(signum: int, frame: FrameType | None) -> None:
-        pending.append(signum)
-
-    saved = {}
-    for signum in _HELD:
-        try:
-            saved[signum] = signal.signal(signum, note)
-        except (ValueError, OSError):  # not the main thread
-            break
-    try:
-        yield
-    finally:
-        for signum, handler in saved.items():
-            signal.signal(signum, signal.SIG_DFL if handler is None else handler)
-        if pending:
-            signal.raise_signal(pending[0])
-
-
-@contextmanager
-def _locked(folders: Iterable[Path]) -> Iterator[None]:
-    """Exclusive advisory locks on folders (sorted, so two runs never deadlock)."""
-    fds = []
-    try:
-        for folder in sorted(set(folders), key=str):
-            try:
-                fd = os.open(folder, os.O_RDONLY)
-            except OSError:
-                continue
-            fds.append(fd)
-            try:
-                fcntl.flock(fd, fcntl.LOCK_EX)
-            except OSError:
-                pass
-        yield
-    finally:
-        for fd in fds:
-            with contextlib.suppress(OSError):
-                fcntl.flock(fd, fcntl.LOCK_UN)
-            os.close(fd)
-
-
-def _alive(pid: int) -> bool:
-    if pid == os.getpid():
-        return True
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except (PermissionError, OverflowError, OSError):
-        return True
-    return True
-
-
-def _roll_forward(folder: Path, stage: Path) -> None:
-    try:
-        names = json.loads((stage / JOURNAL).read_text(encoding="utf-8"))
-    except (OSError, ValueError):
-        return
-    if not isinstance(names, list):
-        return
-    for name in names:
-        if isinstance(name, str) and "/" not in name and (stage / name).is_file():
-            with contextlib.suppress(OSError):
-                os.replace(stage / name, folder / name)
-
-
-def recover_folder(folder: str | os.PathLike, names: Iterable[str] = ()) -> list[str]:
-    """Finish or remove what dead seqstate runs left in ``folder``; returns the entries.
-
-    A staging folder (``.seqstate-stage-PID``) of a dead process with a complete
-    journal is committed (its files renamed into place), any other one deleted.
-    Temporary files of older versions (``.NAME.tmp-PID``) are deleted only for
-    the given output ``names``, so files of other programs in a shared folder
-    are never touched.  Entries of live processes are left alone.
-    """
-    folder = Path(folder)
-    wanted = set(names)
-    done: list[str] = []
-    try:
-        entries = list(os.scandir(folder))
-    except OSError:
-        return done
-    for entry in entries:
-        stage = _STAGE_RE.match(entry.name)
-        old = _OLD_TEMP_RE.match(entry.name)
-        if old and entry.name[1 : old.start(1) - len(".tmp-")] not in wanted:
-            old = None
-        match = stage or old
-        if match is None or _alive(int(match.group(1))):
-            continue
-        path = Path(entry.path)
-        try:
-            if stage and entry.is_dir(follow_symlinks=False):
-                if (path / JOURNAL).is_file():
-                    _roll_forward(folder, path)
-                shutil.rmtree(path)
-                done.append(entry.name)
-            elif old and entry.is_file(follow_symlinks=False):
-                path.unlink()
-                done.append(entry.name)
-        except OSError:
-            continue
-    return done
 
 
 # ---------------------------------------------------------------- the output set

@@ -5,25 +5,34 @@ inline SVG drawn by matplotlib (:func:`build_report_figures`), the table is sort
 searched by a small inline script.  Everything taken from the data is HTML-escaped.  The
 page holds no timestamp, so the same input gives the same bytes.
 
-``features_rows`` are the rows of annotate's feature table (dicts keyed by the columns
-of :meth:`seqstate.kinds.base.Kind.feature_columns`, values as written in the TSV or as
-numbers); coordinates in them are 1-based closed (``start_1based``, ``end_1based``).
-
-Numbers are written one way throughout the page (:func:`fmt_number`): whole numbers with
-a comma between thousands, fractions with :data:`DECIMALS` decimals (as ``seqstate
-compare`` prints them), ``NA`` for a measure that is undefined.
+This module writes the page (its sections, style and script); the page's data (numbers,
+table rows, records, accuracy) is in :mod:`seqstate.io.html_data`, its figures in
+:mod:`seqstate.io.html_figures` (their public names re-exported here).
 """
 
 from __future__ import annotations
 
 import html
-import io
-import math
-import re
 from collections.abc import Iterable, Mapping, Sequence
 from typing import Any, TextIO
 
-from seqstate.errors import OptionalDependencyError
+from seqstate.io.html_data import (
+    TABLE_COLUMNS,
+    TOP_FEATURES,
+    _number,
+    _records,
+    _type_counts,
+    accuracy_rows,
+    fmt_number,
+    shown_records,
+    table_rows,
+)
+from seqstate.io.html_figures import (
+    build_report_figures,
+    calibration_svg,
+    inline_svg,
+    panels_in_columns,
+)
 
 __all__ = [
     "TOP_FEATURES",
@@ -38,8 +47,7 @@ __all__ = [
     "write_html_report",
 ]
 
-#: Most features listed in the table (the best by segment probability, then posterior).
-TOP_FEATURES = 500
+
 #: Figure keys in the order the page shows them, and their headings.
 FIGURE_TITLES = {
     "feature_lengths": "Feature length distribution",
@@ -47,416 +55,6 @@ FIGURE_TITLES = {
     "feature_density": "Features per record",
     "calibration": "Calibration (reliability diagram)",
 }
-#: Columns shown in the table of top features, when the rows have them.
-TABLE_COLUMNS = [
-    "seqid",
-    "start_1based",
-    "end_1based",
-    "strand",
-    "type",
-    "id",
-    "length",
-    "mean_posterior",
-    "min_posterior",
-    "segment_probability",
-    "log_odds_bits",
-]
-
-_GREYS = ["0.1", "0.45", "0.7", "0.3", "0.6", "0.85"]
-#: Decimals of every fraction on the page (posteriors, ECE, Brier, Sn, Sp).
-DECIMALS = 4
-#: At most this many records get a panel of features along the record; more get bars.
-ALONG_RECORDS = 3
-#: Columns of the calibration figure on the page (one panel pair per track group).
-CALIBRATION_COLUMNS = 2
-
-
-def fmt_number(value: Any, *, missing: str = "") -> str:
-    """The page's one number format: ``1,348,131``, ``0.0134``; ``missing`` for None/NaN.
-
-    Whole numbers (ints, or text that reads as an int) get thousands separators;
-    other numbers get :data:`DECIMALS` decimals; text that is no number is kept.
-    Booleans are written ``yes``/``no``.
-    """
-    if value is None:
-        return missing
-    if isinstance(value, bool):
-        return "yes" if value else "no"
-    if isinstance(value, int):
-        return f"{value:,}"
-    if isinstance(value, float):
-        return f"{value:.{DECIMALS}f}" if math.isfinite(value) else missing
-    text = str(value)
-    if re.fullmatch(r"[+-]?\d+", text):
-        return f"{int(text):,}"
-    num = _number(text)
-    if num is not None and re.fullmatch(r"[+-]?(\d+\.\d*|\.\d+|\d+(\.\d*)?[eE][+-]?\d+)", text):
-        return f"{num:.{DECIMALS}f}"
-    if text.lower() in ("nan", "na"):
-        return missing
-    return text
-
-
-def _number(value: Any) -> float | None:
-    if value is None or value == "":
-        return None
-    try:
-        out = float(value)
-    except (TypeError, ValueError):
-        return None
-    return out if math.isfinite(out) else None
-
-
-def _length_of(row: Mapping[str, Any]) -> int | None:
-    length = _number(row.get("length"))
-    if length is not None:
-        return int(length)
-    s, e = _number(row.get("start_1based")), _number(row.get("end_1based"))
-    if s is None or e is None:
-        return None
-    return int(e - s + 1)
-
-
-def table_rows(rows: Sequence[Mapping[str, Any]]) -> list[dict[str, Any]]:
-    """The feature rows with each span listed once: a row with the same seqid, start, end
-    and strand as an earlier row that is its sibling (an mRNA's exon and CDS) or its parent
-    (a gene and its only mRNA) is folded into that row, whose ``type`` then names both
-    (``exon + CDS``, ``gene + mRNA``).  Rows keep their order; other rows are kept as they are.
-    """
-    out: list[dict[str, Any]] = []
-    seen: dict[tuple[str, str, str, str], list[dict[str, Any]]] = {}
-    for row in rows:
-        key = tuple(str(row.get(c, "")) for c in ("seqid", "start_1based", "end_1based", "strand"))
-        parent = str(row.get("parent") or "")
-        kind = str(row.get("type") or "feature")
-        host = None
-        for other in seen.get(key, []):  # type: ignore[arg-type]
-            if kind in str(other["type"]).split(" + "):
-                continue
-            if parent == str(other.get("id") or "") or (
-                parent and parent == str(other.get("parent") or "")
-            ):
-                host = other
-                break
-        if host is not None:
-            host["type"] = f"{host['type']} + {kind}"
-            continue
-        copy = dict(row)
-        copy["type"] = kind
-        out.append(copy)
-        seen.setdefault(key, []).append(copy)  # type: ignore[arg-type]
-    return out
-
-
-def _top_level(rows: Sequence[Mapping[str, Any]]) -> list[Mapping[str, Any]]:
-    """Rows that are no part of another (no ``parent``): genes, islands, segments."""
-    return [r for r in rows if not str(r.get("parent") or "")]
-
-
-def _records(records: Iterable[Any]) -> list[tuple[str, int]]:
-    """(id, bases) pairs from (id, length) pairs or run-report record dicts."""
-    out = []
-    for rec in records:
-        if isinstance(rec, Mapping):
-            if "start_1based" in rec and "end_1based" in rec:
-                n = int(rec["end_1based"]) - int(rec["start_1based"]) + 1
-            else:
-                n = int(rec["length"])
-            out.append((str(rec["id"]), n))
-        else:
-            rid, n = rec
-            out.append((str(rid), int(n)))
-    return out
-
-
-# ---------------------------------------------------------------- figures
-def inline_svg(svg: str, prefix: str) -> str:
-    """Matplotlib SVG text made fit to sit inside an HTML5 page.
-
-    Drops the XML prolog, the document type, the metadata block and the namespace
-    declarations (an HTML parser gives ``<svg>`` its namespace), and prefixes every
-    ``id`` (and its ``#id`` references) with ``prefix`` so several figures can share
-    a page.
-    """
-    text = re.sub(r"<\?xml[^>]*\?>", "", svg)
-    text = re.sub(r"<!DOCTYPE[^>]*>", "", text, flags=re.S)
-    text = re.sub(r"<metadata>.*?</metadata>", "", text, flags=re.S)
-    text = re.sub(r'\s+xmlns(:\w+)?="[^"]*"', "", text)
-    ids = set(re.findall(r'\bid="([^"]+)"', text))
-
-    def rename(match: re.Match[str]) -> str:
-        name = match.group(2)
-        if name not in ids:
-            return match.group(0)
-        return f"{match.group(1)}{prefix}-{name}"
-
-    text = re.sub(r'(\bid=")([^"]+)(?=")', rename, text)
-    text = re.sub(r"(#)([A-Za-z_][\w.\-]*)", rename, text)
-    return text.strip()
-
-
-def _matplotlib() -> Any:
-    """The ``matplotlib`` module, or :class:`~seqstate.errors.OptionalDependencyError`."""
-    try:
-        import matplotlib
-        from matplotlib.backends.backend_agg import FigureCanvasAgg  # noqa: F401
-    except ImportError:
-        raise OptionalDependencyError(
-            "the HTML report's figures need matplotlib: pip install 'seqstate[plot]'"
-        ) from None
-    return matplotlib
-
-
-def _svg_of(fig: Any) -> str:
-    matplotlib = _matplotlib()
-    buf = io.StringIO()
-    with matplotlib.rc_context({"svg.hashsalt": "seqstate", "svg.fonttype": "path"}):
-        fig.savefig(buf, format="svg", metadata={"Creator": "seqstate", "Date": None})
-    return buf.getvalue()
-
-
-def _figure(width: float, height: float) -> Any:
-    _matplotlib()
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    fig = Figure(figsize=(width, height), dpi=100)
-    FigureCanvasAgg(fig)
-    return fig
-
-
-def _by_type(rows: Sequence[Mapping[str, Any]]) -> dict[str, list[Mapping[str, Any]]]:
-    out: dict[str, list[Mapping[str, Any]]] = {}
-    for row in rows:
-        out.setdefault(str(row.get("type") or "feature"), []).append(row)
-    return dict(sorted(out.items()))
-
-
-def _empty_note(ax: Any, text: str) -> None:
-    ax.text(0.5, 0.5, text, ha="center", va="center", transform=ax.transAxes, color="0.3")
-    ax.set_xticks([])
-    ax.set_yticks([])
-
-
-def _lengths_figure(rows: Sequence[Mapping[str, Any]]) -> Any:
-    import numpy as np
-
-    fig = _figure(6.4, 3.6)
-    ax = fig.add_subplot(1, 1, 1)
-    groups = _by_type(rows)
-    lengths = {
-        t: [n for n in (_length_of(r) for r in rs) if n and n > 0] for t, rs in groups.items()
-    }
-    every = [n for ns in lengths.values() for n in ns]
-    if not every:
-        _empty_note(ax, "no features")
-    else:
-        lo, hi = math.log10(min(every)), math.log10(max(every))
-        edges = np.logspace(lo, hi + 1e-9 if hi > lo else lo + 1, 31)
-        for k, (name, ns) in enumerate(lengths.items()):
-            if ns:
-                ax.hist(
-                    ns,
-                    bins=edges,
-                    histtype="step",
-                    color=_GREYS[k % len(_GREYS)],
-                    linewidth=1.5,
-                    linestyle=["-", "--", ":", "-."][k % 4],
-                    label=f"{name} (n={len(ns):,})",
-                )
-        ax.set_xscale("log")
-        ax.set_xlabel("feature length (bases)")
-        ax.set_ylabel("features")
-        ax.legend(frameon=False, fontsize="small")
-    fig.tight_layout()
-    return fig
-
-
-def _scores_figure(rows: Sequence[Mapping[str, Any]]) -> Any:
-    import numpy as np
-
-    fig = _figure(8.0, 3.4)
-    names = ("mean_posterior", "segment_probability")
-    groups = _by_type(rows)
-    edges = np.linspace(0.0, 1.0, 21)
-    for col, name in enumerate(names):
-        ax = fig.add_subplot(1, 2, col + 1)
-        drawn = False
-        for k, (label, rs) in enumerate(groups.items()):
-            vals = [v for v in (_number(r.get(name)) for r in rs) if v is not None]
-            if vals:
-                drawn = True
-                ax.hist(
-                    np.clip(vals, 0.0, 1.0),
-                    bins=edges,
-                    histtype="step",
-                    color=_GREYS[k % len(_GREYS)],
-                    linewidth=1.5,
-                    linestyle=["-", "--", ":", "-."][k % 4],
-                    label=label,
-                )
-        if drawn:
-            ax.set_xlim(0, 1)
-            ax.set_xlabel(name.replace("_", " "))
-            ax.set_ylabel("features")
-            ax.legend(frameon=False, fontsize="small")
-        else:
-            _empty_note(ax, f"no {name.replace('_', ' ')}")
-    fig.tight_layout()
-    return fig
-
-
-def shown_records(records: list[tuple[str, int]], most: int = 40) -> list[tuple[str, int]]:
-    """The ``most`` longest records (ties: the first), in input order: the density bars."""
-    longest = sorted(range(len(records)), key=lambda i: (-records[i][1], i))[:most]
-    return [records[i] for i in sorted(longest)]
-
-
-def _spans(records: Iterable[Any]) -> list[tuple[str, int, int]]:
-    """(id, first, last) 1-based closed: the stretch of each record that was annotated."""
-    out = []
-    for rec in records:
-        if isinstance(rec, Mapping) and "start_1based" in rec and "end_1based" in rec:
-            out.append((str(rec["id"]), int(rec["start_1based"]), int(rec["end_1based"])))
-        else:
-            rid, n = _records([rec])[0]
-            out.append((rid, 1, n))
-    return out
-
-
-def _round_width(span: int, bins: int) -> int:
-    """A round bin width (1, 2 or 5 times a power of ten) giving at most about ``bins``
-    bins over ``span`` bases."""
-    target = max(1.0, span / bins)
-    power = 10 ** math.floor(math.log10(target))
-    for step in (1, 2, 5, 10):
-        if step * power >= target:
-            return int(step * power)
-    return int(10 * power)  # pragma: no cover
-
-
-def _bases_text(n: int) -> str:
-    for size, unit in ((1_000_000, "Mbp"), (1_000, "kbp")):
-        if n >= size and n % size == 0:
-            return f"{n // size:,} {unit}"
-    return f"{n:,} bases"
-
-
-def _unit(rows: Sequence[Mapping[str, Any]]) -> str:
-    kinds = sorted({str(r.get("type") or "feature") for r in rows})
-    return f"{kinds[0]}s" if len(kinds) == 1 else "features"
-
-
-def _density_figure(rows: Sequence[Mapping[str, Any]], records: Sequence[Any]) -> Any:
-    """Features per record: for at most :data:`ALONG_RECORDS` records, counts in round bins
-    along each record (one panel each); for more, bars of features per Mbp of the 40
-    longest records, one readable row per record."""
-    from matplotlib.ticker import FuncFormatter, MaxNLocator
-
-    tops = _top_level(rows)
-    unit = _unit(tops)
-    spans = _spans(records)
-    if not spans:
-        fig = _figure(6.4, 2.0)
-        _empty_note(fig.add_subplot(1, 1, 1), "no records")
-        fig.tight_layout()
-        return fig
-    if len(spans) <= ALONG_RECORDS:
-        fig = _figure(8.0, 0.6 + 1.9 * len(spans))
-        for k, (rid, first, last) in enumerate(spans):
-            ax = fig.add_subplot(len(spans), 1, k + 1)
-            width = _round_width(last - first + 1, 60)
-            starts = [
-                int(v)
-                for v in (_number(r.get("start_1based")) for r in tops if r.get("seqid") == rid)
-                if v is not None
-            ]
-            edges = list(range(first, last + 1, width)) + [last + 1]
-            ax.hist(starts, bins=edges, color="0.35", edgecolor="white", linewidth=0.3)
-            ax.set_xlim(first, last + 1)
-            ax.set_ylabel(f"{unit} per\n{_bases_text(width)}")
-            ax.yaxis.set_major_locator(MaxNLocator(nbins=4, integer=True))
-            ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _p: f"{int(round(v)):,}"))
-            ax.set_title(f"{rid}: {len(starts):,} {unit}", loc="left", fontsize="medium")
-            for side in ("top", "right"):
-                ax.spines[side].set_visible(False)
-        fig.axes[-1].set_xlabel("start position (1-based)")
-        fig.tight_layout()
-        return fig
-    counts: dict[str, int] = {}
-    for row in tops:
-        sid = str(row.get("seqid"))
-        counts[sid] = counts.get(sid, 0) + 1
-    shown = shown_records(_records(records))
-    fig = _figure(8.0, 1.0 + 0.24 * len(shown))
-    ax = fig.add_subplot(1, 1, 1)
-    dens = [counts.get(rid, 0) / max(n, 1) * 1e6 for rid, n in shown]
-    ax.barh(range(len(shown)), dens, color="0.35", height=0.7)
-    ax.set_yticks(range(len(shown)))
-    ax.set_yticklabels([rid for rid, _ in shown])
-    ax.set_ylim(len(shown) - 0.5, -0.5)  # input order, top to bottom
-    ax.set_xlabel(f"{unit} per Mbp")
-    if len(spans) > len(shown):
-        ax.set_title(f"the {len(shown)} longest of {len(spans):,} records", loc="left")
-    for side in ("top", "right"):
-        ax.spines[side].set_visible(False)
-    fig.tight_layout()
-    return fig
-
-
-def panels_in_columns(fig: Any, columns: int = CALIBRATION_COLUMNS) -> Any:
-    """Lay out a figure of panel pairs side by side (a grid of 2 rows by n columns, as the
-    calibration figure draws them) in at most ``columns`` columns, rows of pairs below one
-    another, at a size where its text is read at 100 % on a page; returns ``fig``."""
-    axes = [a for a in fig.axes if a.get_subplotspec() is not None]
-    if not axes:
-        return fig
-    old = axes[0].get_subplotspec().get_gridspec()
-    n_rows, n_cols = old.get_geometry()
-    if n_rows != 2 or n_cols <= columns:
-        return fig
-    blocks = -(-n_cols // columns)
-    ratios = list(old.get_height_ratios() or [1, 1])
-    grid = fig.add_gridspec(2 * blocks, columns, height_ratios=ratios * blocks)
-    for ax in axes:
-        spec = ax.get_subplotspec()
-        row, col = spec.rowspan.start, spec.colspan.start
-        ax.set_subplotspec(grid[(col // columns) * 2 + row, col % columns])
-    width, height = fig.get_size_inches()
-    fig.set_size_inches(min(width, 5.0 * columns), height * blocks * 0.9)
-    fig.set_layout_engine("constrained")
-    return fig
-
-
-def build_report_figures(
-    features_rows: Sequence[Mapping[str, Any]], records: Iterable[Any]
-) -> dict[str, str]:
-    """The report's figures as SVG text: ``feature_lengths``, ``scores``, ``feature_density``.
-
-    ``records`` are ``(id, bases)`` pairs or the run report's record dicts (their
-    ``start_1based``/``end_1based`` give the bases annotated).  The length and score
-    figures count a span once (:func:`table_rows`); the density figure counts features
-    that are part of no other (genes, islands).  Needs matplotlib
-    (:class:`~seqstate.errors.OptionalDependencyError` otherwise); greyscale-readable.
-    """
-    rows = list(features_rows)
-    once = table_rows(rows)
-    recs = list(records)
-    return {
-        "feature_lengths": _svg_of(_lengths_figure(once)),
-        "scores": _svg_of(_scores_figure(once)),
-        "feature_density": _svg_of(_density_figure(rows, recs)),
-    }
-
-
-def calibration_svg(fig: Any, truth_name: str | None = None, source: str = "truth") -> str:
-    """The calibration figure (a matplotlib Figure of panel pairs) as SVG text for the
-    page, laid out by :func:`panels_in_columns` so its text is readable; the word
-    ``source`` in its title is replaced by ``truth_name`` (the file) when given."""
-    title = fig.get_suptitle()
-    if truth_name is not None and f"({source}," in title:
-        fig.suptitle(title.replace(f"({source},", f"({truth_name},", 1), fontsize="medium")
-    return _svg_of(panels_in_columns(fig))
 
 
 # ---------------------------------------------------------------- the page
@@ -470,6 +68,7 @@ th.sort{cursor:pointer;background:#eee}th.sort:hover{background:#ddd}
 figure{margin:1em 0}figure svg{max-width:100%;height:auto}
 .note{color:#444;font-size:.9em}
 """
+
 
 _SCRIPT = """
 (function(){
@@ -573,52 +172,6 @@ def _calibration_section(calibration: Any, truth_name: str | None) -> str:
     )
 
 
-def accuracy_rows(result: Mapping[str, Any]) -> list[tuple[str, Any, Any, str]]:
-    """(level, Sn, Sp, counts) of a comparison as ``seqstate compare`` returns it
-    (:func:`seqstate.commands.compare.compare_files`): bases (strand-aware), features
-    (exons for CDS and exon), and for those also transcripts and genes.  Sn and Sp are
-    fractions or None (undefined)."""
-    counts = result["counts"]
-    exon = result.get("rule") == "exon"
-    word = "exons" if exon else f"{result.get('type', 'feature')} features"
-    nuc, nc = result["nucleotide"]["strand_aware"], counts["nucleotide"]["strand_aware"]
-    fe, fc = result["feature"], counts["feature"]
-    rows = [
-        (
-            "bases (strand-aware)",
-            nuc["sensitivity"],
-            nuc["specificity"],
-            f"{nc['tp']:,} of {nc['tp'] + nc['fn']:,} reference and of "
-            f"{nc['tp'] + nc['fp']:,} predicted bases",
-        ),
-        (
-            word,
-            fe["sensitivity"],
-            fe["specificity"],
-            f"{fc['matched_reference']:,} of {fc['reference']:,} reference and "
-            f"{fc['matched_predicted']:,} of {fc['predicted']:,} predicted matched",
-        ),
-    ]
-    for level in ("transcript", "gene"):
-        if level in result:
-            m, c = result[level], counts[level]
-            rows.append(
-                (
-                    f"{level}s",
-                    m["sensitivity"],
-                    m["specificity"],
-                    f"{c['matched_reference']:,} of {c['reference']:,} reference and "
-                    f"{c['matched_predicted']:,} of {c['predicted']:,} predicted "
-                    + (
-                        "with every exon exact"
-                        if level == "transcript"
-                        else "with an exact transcript"
-                    ),
-                )
-            )
-    return rows
-
-
 def _accuracy_section(accuracy: Mapping[str, Any], truth_name: str | None) -> str:
     if "error" in accuracy:  # the comparison could not be made; say why
         return (
@@ -649,15 +202,6 @@ def _accuracy_section(accuracy: Mapping[str, Any], truth_name: str | None) -> st
         f"<table id='accuracy-table'><thead>{head}</thead><tbody>{body}</tbody></table>"
         "</section>"
     )
-
-
-def _type_counts(rows: Sequence[Mapping[str, Any]]) -> list[tuple[str, int]]:
-    """Features per type, types in the order they first appear (gene, mRNA, exon, CDS)."""
-    counts: dict[str, int] = {}
-    for row in rows:
-        t = str(row.get("type") or "feature")
-        counts[t] = counts.get(t, 0) + 1
-    return list(counts.items())
 
 
 def write_html_report(

@@ -19,12 +19,11 @@ import numpy as np
 from seqstate.engine import stream as engine_stream
 from seqstate.engine import stream_paths
 from seqstate.io.gff3 import GFF3Writer
+from seqstate.kinds.gene_writing import _memo, _Tally
 from seqstate.kinds.genes import (
     ExactScore,
     GeneLine,
     GenePrediction,
-    _memo,
-    _Tally,
     decoding_classes,
     exact_allowed,
     exact_scorer,
