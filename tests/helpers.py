@@ -472,3 +472,39 @@ def _draw_from_chain(
         clean += 1
         ctx = (ctx * a + x) % (a ** min(clean, k)) if k else 0
     return path, sym
+
+
+# ----------------------------------------------------------------- the CLI in process
+def cli_run(*args: object):
+    """``seqstate ARGS`` through click's test runner (arguments turned into text)."""
+    from click.testing import CliRunner
+
+    from seqstate.cli import main
+
+    return CliRunner().invoke(main, [str(a) for a in args])
+
+
+def cli_ok(*args: object):
+    """:func:`cli_run` that must exit 0 (the output shown when it does not)."""
+    result = cli_run(*args)
+    assert result.exit_code == 0, result.output
+    return result
+
+
+def one_error_line(result, code: int = 2) -> str:
+    """The one ``error: ...`` line of a run that failed with exit ``code``."""
+    assert result.exit_code == code, result.output
+    lines = result.output.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("error: "), result.output
+    return lines[0]
+
+
+def without_invocation(report: dict) -> dict:
+    """A run report without what only the invocation sets (command line, merge's own
+    options), for comparing a merged report with a whole run's."""
+    from seqstate.commands.merge import INVOCATION_OPTIONS
+
+    report = dict(report)
+    report.pop("command_line")
+    report["options"] = {k: v for k, v in report["options"].items() if k not in INVOCATION_OPTIONS}
+    return report

@@ -17,23 +17,13 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-from click.testing import CliRunner
+from helpers import cli_ok as ok
+from helpers import cli_run as run
 
-from seqstate.cli import main
 from seqstate.commands.runreport import MAX_DEPTH
 
 HAVE_BIGWIG = importlib.util.find_spec("pyBigWig") is not None
 TRACKS = "both" if HAVE_BIGWIG else "bedgraph"
-
-
-def run(*args: object):
-    return CliRunner().invoke(main, [str(a) for a in args])
-
-
-def ok(*args: object):
-    result = run(*args)
-    assert result.exit_code == 0, result.output
-    return result
 
 
 def sha256(path: Path) -> str:

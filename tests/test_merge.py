@@ -13,36 +13,12 @@ import json
 from pathlib import Path
 
 import pytest
-from click.testing import CliRunner
-
-from seqstate.cli import main
-from seqstate.commands.merge import INVOCATION_OPTIONS
+from helpers import cli_ok as ok
+from helpers import cli_run as run
+from helpers import one_error_line as one_error
+from helpers import without_invocation
 
 GROUPS = [["sim1", "sim2"], ["sim3"], ["sim4", "sim5"]]
-
-
-def run(*args: object):
-    return CliRunner().invoke(main, [str(a) for a in args])
-
-
-def ok(*args: object):
-    result = run(*args)
-    assert result.exit_code == 0, result.output
-    return result
-
-
-def one_error(result, code: int = 2) -> str:
-    assert result.exit_code == code, result.output
-    lines = result.output.strip().splitlines()
-    assert len(lines) == 1 and lines[0].startswith("error: "), result.output
-    return lines[0]
-
-
-def without_invocation(report: dict) -> dict:
-    report = dict(report)
-    report.pop("command_line")
-    report["options"] = {k: v for k, v in report["options"].items() if k not in INVOCATION_OPTIONS}
-    return report
 
 
 @pytest.fixture(scope="module")

@@ -15,21 +15,11 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-from click.testing import CliRunner
+from helpers import cli_ok as ok
+from helpers import cli_run as run
 
-from seqstate.cli import main
 from seqstate.commands.records_table import COLUMNS, LISTED_RECORDS
 from seqstate.io.tsvtext import unescape_cell
-
-
-def run(*args: object):
-    return CliRunner().invoke(main, [str(a) for a in args])
-
-
-def ok(*args: object):
-    result = run(*args)
-    assert result.exit_code == 0, result.output
-    return result
 
 
 def load(path: Path) -> dict[str, Any]:
