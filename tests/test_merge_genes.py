@@ -11,9 +11,9 @@ from __future__ import annotations
 
 import hashlib
 import json
-import os
 from pathlib import Path
 
+import pysam
 import pytest
 from helpers import cli_ok as ok
 from helpers import cli_run as run
@@ -21,16 +21,6 @@ from helpers import one_error_line as one_error
 from helpers import without_invocation
 
 from seqstate.commands import merge_outputs as mo
-
-IN_CI = os.environ.get("CI", "").strip().lower() in ("true", "1", "yes")
-try:
-    import pysam  # noqa: F401  (--index-outputs needs it)
-except ImportError:  # in CI (CI=true) a missing pysam fails: the test extra installs it
-    if IN_CI:
-        raise
-    pytest.skip(
-        "pysam (the optional extra seqstate[index]) is not installed", allow_module_level=True
-    )
 
 GROUPS = [["gx1"], ["gx2", "gx3"], ["gx4"]]
 GENES = ["--cds", "--proteins", "--gene-formats", "bed12,gtf", "--index-outputs"]
