@@ -856,7 +856,7 @@ def test_cursor_snapshots_equal_one_pass_from_the_checkpoint(monkeypatch, block)
             vec, lg = cur.forward(int(pos)) if forward else cur.backward(int(pos))
             want, want_log = one_pass(int(pos), forward)
             assert np.array_equal(vec[0], want), (pos, forward)
-            assert lg == pytest.approx(want_log, rel=0, abs=1e-9), (pos, forward)
+            assert lg == want_log, (pos, forward)  # one sum of the exponents, as one pass
 
 
 @pytest.mark.parametrize("block", [17, 40, 333])

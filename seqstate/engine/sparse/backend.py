@@ -220,7 +220,8 @@ class _Snapshots:
         self.cur, self.step = cur, step
         self.sub = max(16, math.isqrt(max(post.block, 1)) + 1)
         self.vecs = np.zeros((post.block // self.sub + 2, m + 2))
-        self.logs = np.zeros(self.vecs.shape[0])
+        self.exps = np.zeros(self.vecs.shape[0], dtype=np.int64)  # binary exponents taken out
+        self.ck_base = 0.0  # the checkpoint's log scale
         self.bk = -1
         self.anchor = self.reach = -1  # snapshot 0's position; the furthest one's
         if step > 0:
@@ -230,10 +231,10 @@ class _Snapshots:
             self.ck, self.ck_log = post.beta_ck, post.beta_ck_log
             self.advance, self.tables = sparse_query.backward_advance, cur.sp.bwd
 
-    def load(self, bk: int, pos: int, rows: np.ndarray) -> tuple[int, float]:
+    def load(self, bk: int, pos: int, rows: np.ndarray) -> tuple[int, int]:
         """Put in row 0 of ``rows`` the snapshot of block ``bk`` nearest ``pos`` on the
         checkpoint's side (stepping further snapshots first where they do not reach it);
-        returns its position and log scale."""
+        returns its position and the binary exponent taken out since the checkpoint."""
         cur, sub, st, vecs = self.cur, self.sub, self.step, self.vecs
         if self.bk != bk:
             block = cur.post.block
@@ -242,7 +243,8 @@ class _Snapshots:
             self.anchor = first if st > 0 else min(cur.codes.shape[0], first + block) - 1
             self.reach = self.anchor
             vecs[0] = rows[0]
-            self.logs[0] = float(self.ck_log[bk])
+            self.exps[0] = 0
+            self.ck_base = float(self.ck_log[bk])
             self.bk = bk
         while (pos - self.reach) * st >= sub:  # one snapshot further into the block
             j = (self.reach - self.anchor) * st // sub
@@ -250,11 +252,11 @@ class _Snapshots:
             nxt = self.reach + st * sub
             ex = self.advance(cur.codes, self.reach, nxt, rows, *self.tables, cur.lim)
             vecs[j + 1] = rows[0]
-            self.logs[j + 1] = self.logs[j] + ex * LN2
+            self.exps[j + 1] = self.exps[j] + ex
             self.reach = nxt
         j = (pos - self.anchor) * st // sub
         rows[0] = vecs[j]
-        return self.anchor + st * j * sub, float(self.logs[j])
+        return self.anchor + st * j * sub, int(self.exps[j])
 
 
 class Cursor:
@@ -277,6 +279,9 @@ class Cursor:
         self.b = np.zeros((2, m + 2))
         self.f_pos = self.b_pos = -1
         self.f_log = self.b_log = 0.0
+        # log scale = the block checkpoint's + (binary exponents taken out since) * ln 2, in
+        # one sum whatever the route, so it is that of one pass from the checkpoint
+        self.f_exp = self.b_exp = 0
         self.work = np.zeros((2, m + 2))
         self.ones = np.ones((1, m + 2))
         # snapshots of the current block's vectors: a query steps from the nearest one
@@ -299,12 +304,14 @@ class Cursor:
         bk = pos // post.block
         near = 0 <= self.f_pos <= pos and pos - self.f_pos < self.f_snaps.sub
         if not (near and self.f_pos // post.block == bk):
-            self.f_pos, self.f_log = self.f_snaps.load(bk, pos, self.f)
+            self.f_pos, self.f_exp = self.f_snaps.load(bk, pos, self.f)
+            self.f_log = self.f_snaps.ck_base + self.f_exp * LN2
         if pos > self.f_pos:
             ex = sparse_query.forward_advance(
                 self.codes, self.f_pos, pos, self.f, *sp.fwd, self.lim
             )
-            self.f_pos, self.f_log = pos, self.f_log + ex * LN2
+            self.f_pos, self.f_exp = pos, self.f_exp + ex
+            self.f_log = self.f_snaps.ck_base + self.f_exp * LN2
         return self.f, self.f_log
 
     def backward(self, pos: int) -> tuple[np.ndarray, float]:
@@ -318,10 +325,12 @@ class Cursor:
         bk = pos // post.block
         near = self.b_pos >= pos and self.b_pos - pos < self.b_snaps.sub
         if not (near and self.b_pos // post.block == bk):
-            self.b_pos, self.b_log = self.b_snaps.load(bk, pos, self.b)
+            self.b_pos, self.b_exp = self.b_snaps.load(bk, pos, self.b)
+            self.b_log = self.b_snaps.ck_base + self.b_exp * LN2
         if pos < self.b_pos:
             ex = sparse_query.backward_advance(
                 self.codes, self.b_pos, pos, self.b, *sp.bwd, self.lim
             )
-            self.b_pos, self.b_log = pos, self.b_log + ex * LN2
+            self.b_pos, self.b_exp = pos, self.b_exp + ex
+            self.b_log = self.b_snaps.ck_base + self.b_exp * LN2
         return self.b, self.b_log
