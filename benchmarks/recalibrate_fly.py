@@ -39,11 +39,10 @@ REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 sys.path.insert(0, str(REPO / "benchmarks"))
 
-from recalibrate_plant import cross_fitted, print_measured, run  # noqa: E402
+from recalibrate_plant import cross_fitted, print_measured, run, table_meta  # noqa: E402
 
-from seqstate.commands.fit.writing import file_sha256  # noqa: E402
 from seqstate.commands.recalibrate import recalibrated_model, write_recalibrated  # noqa: E402
-from seqstate.io.tables import load_model, model_sha256  # noqa: E402
+from seqstate.io.tables import load_model  # noqa: E402
 
 SEQID = "NC_004353.4"
 HALVES = {"left": "1-671140", "right": "671141-1348131"}
@@ -60,22 +59,13 @@ def data_dir() -> Path:
 
 def _meta(forecasting: list[str], stretches: list[str], work: Path, fasta: str, labels: str,
           folds: int, block: int, command: str) -> dict:  # fmt: skip
-    return {
-        "forecasts_of": "gene-segment-layout fitted on the other half of "
-        f"{SEQID} (cut at base 671,141: "
+    forecasts_of = (
+        f"gene-segment-layout fitted on the other half of {SEQID} (cut at base 671,141: "
         + ", ".join(f"fit --region {HALVES[h]} forecasting {HALVES[OTHER[h]]}" for h in forecasting)
-        + ")",
-        "forecasts_sha256": [model_sha256(load_model(work / f"model-{h}")) for h in forecasting],
-        "truth": Path(labels).name,
-        "truth_sha256": file_sha256(labels),
-        "types": ["CDS"],
-        "fasta": Path(fasta).name,
-        "fasta_sha256": file_sha256(fasta),
-        "stretches": stretches,
-        "folds": folds,
-        "fold_block": block,
-        "command_line": command,
-    }
+        + ")"
+    )
+    models = [work / f"model-{h}" for h in forecasting]
+    return table_meta(forecasts_of, models, fasta, labels, stretches, folds, block, command)
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -125,6 +125,33 @@ def cross_fitted(
     return recal, choices, stretches
 
 
+def table_meta(
+    forecasts_of: str,
+    models: Sequence[Path],
+    fasta: str,
+    labels: str,
+    stretches: list[str],
+    folds: int,
+    block: int,
+    command: str,
+) -> dict:
+    """The ``[recalibration]`` table of a shipped model: whose forecasts (the model folders
+    ``models``), the truth and FASTA with their SHA-256, the stretches, folds and command."""
+    return {
+        "forecasts_of": forecasts_of,
+        "forecasts_sha256": [model_sha256(load_model(m)) for m in models],
+        "truth": Path(labels).name,
+        "truth_sha256": file_sha256(labels),
+        "types": ["CDS"],
+        "fasta": Path(fasta).name,
+        "fasta_sha256": file_sha256(fasta),
+        "stretches": stretches,
+        "folds": folds,
+        "fold_block": block,
+        "command_line": command,
+    }
+
+
 def print_measured(report: Path, title: str) -> None:
     """Print the per-label table of a ``seqstate calibrate`` JSON report (raw -> calibrated)."""
     got = json.loads(report.read_text())
@@ -177,24 +204,19 @@ def main(argv: list[str] | None = None) -> int:
             for m, t in (("first", "second"), ("second", "first"))
         ]
         recal, choices, stretches = cross_fitted(pairs, fasta, labels, args.folds, args.fold_block)
-        meta = {
-            "forecasts_of": "gene-segment-layout-plant fitted on the other half of "
+        meta = table_meta(
+            "gene-segment-layout-plant fitted on the other half of "
             f"{SEQID}:1-15000000 (fit --region {HALVES['first']} forecasting "
             f"{HALVES['second']}, and the reverse)",
-            "forecasts_sha256": [
-                model_sha256(load_model(work / f"model-{h}")) for h in ("first", "second")
-            ],
-            "truth": Path(labels).name,
-            "truth_sha256": file_sha256(labels),
-            "types": ["CDS"],
-            "fasta": Path(fasta).name,
-            "fasta_sha256": file_sha256(fasta),
-            "stretches": stretches,
-            "folds": args.folds,
-            "fold_block": args.fold_block,
-            "command_line": "PYTHONPATH=. python benchmarks/recalibrate_plant.py"
+            [work / f"model-{h}" for h in ("first", "second")],
+            fasta,
+            labels,
+            stretches,
+            args.folds,
+            args.fold_block,
+            "PYTHONPATH=. python benchmarks/recalibrate_plant.py"
             + (" --ship" if args.ship else ""),
-        }
+        )
         new = recalibrated_model(shipped, recal, meta)
         write_recalibrated(new, target, force=True, inputs=[fasta, labels])
         print(f"recalibration table -> {target}/recalibration.tsv")
